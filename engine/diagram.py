@@ -1,0 +1,397 @@
+"""The document: blocks, wires and settings as plain data with stable ids.
+
+Nothing here computes a model; :mod:`loopwright.engine.blocks` reads the parameters and
+:mod:`loopwright.engine.interconnect` assembles. The mutating methods only keep the data
+consistent (unique names, wires attached to existing ports); whether the drawing makes a
+valid loop is decided by :func:`loopwright.engine.validation.problems`.
+"""
+from __future__ import annotations
+
+import copy
+import re
+from dataclasses import dataclass, field
+from typing import Any
+
+import networkx as nx
+
+from loopwright.engine.errors import ConnectionError_, DiagramError, ParameterError, UnknownNameError
+
+__all__ = ["BLOCK_KINDS", "SOURCE_ROLES", "PortRef", "Block", "Wire", "Diagram", "default_params"]
+
+BLOCK_KINDS = ("plant", "dynamic", "gain", "sum", "integrator", "estimator", "source")
+SOURCE_ROLES = ("reference", "disturbance", "noise")
+
+_NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+
+
+@dataclass(frozen=True)
+class PortRef:
+    """One port of one block: ``PortRef("b3", "u")``."""
+
+    block: str
+    port: str
+
+
+@dataclass
+class Block:
+    """A box on the canvas.
+
+    Attributes
+    ----------
+    id : str
+        Stable internal id (``b1``); never shown to the user.
+    kind : str
+        One of :data:`BLOCK_KINDS`.
+    name : str
+        Unique, user-visible; an identifier (letters, digits, underscore).
+    params : dict
+        Kind-specific, JSON-native values (see DEVELOPERS.md, "Diagram").
+    layout : dict
+        ``x``, ``y`` (scene units), ``rotation`` (degrees, multiple of 90), ``flip`` (bool).
+    caption : str
+        Optional text drawn under the block.
+    """
+
+    id: str
+    kind: str
+    name: str
+    params: dict[str, Any] = field(default_factory=dict)
+    layout: dict[str, Any] = field(default_factory=dict)
+    caption: str = ""
+
+
+@dataclass
+class Wire:
+    """A connection from one output port to one or more input ports, carrying one signal.
+
+    ``layout`` may hold ``bends``: a dict target-index (as str) -> list of [x, y] points.
+    """
+
+    id: str
+    name: str
+    source: PortRef
+    targets: list[PortRef] = field(default_factory=list)
+    layout: dict[str, Any] = field(default_factory=dict)
+
+
+def default_params(kind: str) -> dict[str, Any]:
+    """Parameters a freshly placed block of ``kind`` starts with (a valid SISO block)."""
+    if kind in ("plant", "dynamic"):
+        return {"num": [1.0], "den": [1.0, 1.0]}
+    if kind == "gain":
+        return {"K": [[1.0]]}
+    if kind == "sum":
+        return {"signs": ["+", "-"], "width": 1}
+    if kind == "integrator":
+        return {"width": 1}
+    if kind == "estimator":
+        return {"A": [[-1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]], "L": [[1.0]]}
+    if kind == "source":
+        return {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0, "start": 0.0}}
+    raise ParameterError(f"unknown block kind {kind!r}; expected one of {', '.join(BLOCK_KINDS)}", field="kind")
+
+
+class Diagram:
+    """Blocks, wires, analysis settings and free-form metadata.
+
+    Examples
+    --------
+    >>> d = Diagram()
+    >>> r = d.add_block("source", "r")
+    >>> g = d.add_block("gain", "Kp", {"K": [[4.0]]})
+    >>> w = d.connect("r.out", "Kp.in")
+    >>> d.wires[w].name
+    'r.out'
+    """
+
+    def __init__(self) -> None:
+        self.blocks: dict[str, Block] = {}
+        self.wires: dict[str, Wire] = {}
+        self.settings: dict[str, Any] = {}
+        self.meta: dict[str, Any] = {}
+        self._next = {"b": 1, "w": 1}
+
+    # ---- ids and lookup -------------------------------------------------------------
+    def _new_id(self, prefix: str) -> str:
+        taken = self.blocks if prefix == "b" else self.wires
+        while f"{prefix}{self._next[prefix]}" in taken:
+            self._next[prefix] += 1
+        new = f"{prefix}{self._next[prefix]}"
+        self._next[prefix] += 1
+        return new
+
+    def copy(self) -> "Diagram":
+        """A deep, independent snapshot (what worker threads compute on)."""
+        return copy.deepcopy(self)
+
+    def block_by_name(self, name: str) -> Block:
+        """The block called ``name``; :class:`UnknownNameError` with suggestions otherwise."""
+        for b in self.blocks.values():
+            if b.name == name:
+                return b
+        raise UnknownNameError(
+            f"no block named {name!r}", suggestions=_close(name, [b.name for b in self.blocks.values()])
+        )
+
+    def wire_by_name(self, name: str) -> Wire:
+        for w in self.wires.values():
+            if w.name == name:
+                return w
+        raise UnknownNameError(
+            f"no wire carries a signal named {name!r}", suggestions=_close(name, [w.name for w in self.wires.values()])
+        )
+
+    def resolve_port(self, ref: str | PortRef) -> PortRef:
+        """Turn ``"P.u"`` (block name, port) into a :class:`PortRef` by id."""
+        if isinstance(ref, PortRef):
+            if ref.block not in self.blocks:
+                raise ConnectionError_(f"port {ref.block}.{ref.port}: no such block id")
+            return ref
+        if not isinstance(ref, str) or "." not in ref:
+            raise ConnectionError_(f"port {ref!r}: expected 'block.port'")
+        bname, port = ref.rsplit(".", 1)
+        return PortRef(self.block_by_name(bname).id, port)
+
+    def port_label(self, ref: PortRef) -> str:
+        b = self.blocks.get(ref.block)
+        return f"{b.name if b else ref.block}.{ref.port}"
+
+    def wire_into(self, ref: PortRef) -> Wire | None:
+        """The wire that feeds input port ``ref``, or None."""
+        for w in self.wires.values():
+            if ref in w.targets:
+                return w
+        return None
+
+    def wire_from(self, ref: PortRef) -> Wire | None:
+        """The wire leaving output port ``ref``, or None."""
+        for w in self.wires.values():
+            if w.source == ref:
+                return w
+        return None
+
+    # ---- blocks ---------------------------------------------------------------------
+    def add_block(
+        self,
+        kind: str,
+        name: str,
+        params: dict[str, Any] | None = None,
+        *,
+        layout: dict[str, Any] | None = None,
+        caption: str = "",
+        block_id: str | None = None,
+    ) -> str:
+        """Add a block and return its id.
+
+        Raises
+        ------
+        ParameterError
+            Unknown kind, or a name that is not an identifier.
+        DiagramError
+            The name is taken.
+        """
+        if kind not in BLOCK_KINDS:
+            raise ParameterError(
+                f"block {name!r}: unknown block kind {kind!r}; expected one of {', '.join(BLOCK_KINDS)}", field="kind"
+            )
+        self._check_new_name(name)
+        bid = block_id if block_id is not None else self._new_id("b")
+        if bid in self.blocks:
+            raise DiagramError(f"block id {bid!r} is already used")
+        lay = {"x": 0.0, "y": 0.0, "rotation": 0, "flip": False}
+        lay.update(layout or {})
+        self.blocks[bid] = Block(bid, kind, name, copy.deepcopy(params) if params is not None else default_params(kind), lay, caption)
+        return bid
+
+    def _check_new_name(self, name: str, *, ignore: str | None = None) -> None:
+        if not isinstance(name, str) or not _NAME_RE.match(name):
+            raise ParameterError(
+                f"block name {name!r} is not valid: use letters, digits and '_', starting with a letter", field="name"
+            )
+        for b in self.blocks.values():
+            if b.name == name and b.id != ignore:
+                raise DiagramError(f"block name {name!r} is already used by another block", block_ids=[b.id])
+
+    def unique_name(self, stem: str) -> str:
+        """``stem`` if free, else ``stem2``, ``stem3``, ... (for placing and pasting)."""
+        taken = {b.name for b in self.blocks.values()}
+        if stem not in taken:
+            return stem
+        base = stem.rstrip("0123456789") or stem
+        k = 2
+        while f"{base}{k}" in taken:
+            k += 1
+        return f"{base}{k}"
+
+    def rename_block(self, block_id: str, new_name: str) -> None:
+        """Rename a block; wires named after it (``old.port``) follow."""
+        blk = self._block(block_id)
+        if new_name == blk.name:
+            return
+        self._check_new_name(new_name, ignore=block_id)
+        old = blk.name
+        blk.name = new_name
+        for w in self.wires.values():
+            if w.source.block == block_id and w.name == f"{old}.{w.source.port}":
+                w.name = f"{new_name}.{w.source.port}"
+        for b in self.blocks.values():
+            if b.kind == "estimator" and b.params.get("plant") == old:
+                b.params["plant"] = new_name
+            recipe = b.params.get("recipe")
+            if isinstance(recipe, dict) and recipe.get("plant") == old:
+                recipe["plant"] = new_name
+
+    def remove_block(self, block_id: str) -> list[Wire]:
+        """Remove a block and detach its wires; returns the wires removed entirely."""
+        self._block(block_id)
+        removed = []
+        for wid in list(self.wires):
+            w = self.wires[wid]
+            if w.source.block == block_id:
+                removed.append(self.wires.pop(wid))
+                continue
+            w.targets = [t for t in w.targets if t.block != block_id]
+        del self.blocks[block_id]
+        return removed
+
+    def set_params(self, block_id: str, params: dict[str, Any]) -> None:
+        """Replace a block's parameters (validated later, by assembly or validation)."""
+        self._block(block_id).params = copy.deepcopy(params)
+
+    def set_layout(self, block_id: str, **layout: Any) -> None:
+        self._block(block_id).layout.update(layout)
+
+    def _block(self, block_id: str) -> Block:
+        try:
+            return self.blocks[block_id]
+        except KeyError:
+            raise DiagramError(f"no block with id {block_id!r}") from None
+
+    # ---- wires ----------------------------------------------------------------------
+    def connect(self, source: str | PortRef, target: str | PortRef, *, name: str | None = None, wire_id: str | None = None) -> str:
+        """Wire an output port to an input port; returns the wire id.
+
+        A second target on an output that already has a wire fans that wire out.
+
+        Raises
+        ------
+        ConnectionError_
+            Missing ports, or the input is already fed.
+        """
+        src, dst = self.resolve_port(source), self.resolve_port(target)
+        from loopwright.engine.ports import input_ports, output_ports
+
+        s_blk, d_blk = self.blocks[src.block], self.blocks[dst.block]
+        if src.port not in output_ports(s_blk):
+            raise ConnectionError_(
+                f"{s_blk.name}.{src.port} is not an output port of {s_blk.kind} {s_blk.name!r} "
+                f"(outputs: {', '.join(output_ports(s_blk)) or 'none'})",
+                block_ids=[s_blk.id],
+            )
+        if dst.port not in input_ports(d_blk):
+            raise ConnectionError_(
+                f"{d_blk.name}.{dst.port} is not an input port of {d_blk.kind} {d_blk.name!r} "
+                f"(inputs: {', '.join(input_ports(d_blk)) or 'none'})",
+                block_ids=[d_blk.id],
+            )
+        fed = self.wire_into(dst)
+        if fed is not None:
+            raise ConnectionError_(
+                f"{d_blk.name}.{dst.port} is already fed by wire {fed.name!r}", block_ids=[d_blk.id], wire_ids=[fed.id]
+            )
+        wire = self.wire_from(src)
+        if wire is None:
+            wname = name or self._default_signal_name(src)
+            self._check_signal_name(wname)
+            wid = wire_id if wire_id is not None else self._new_id("w")
+            wire = Wire(wid, wname, src, [])
+            self.wires[wid] = wire
+        elif name is not None and name != wire.name:
+            self.rename_wire(wire.id, name)
+        wire.targets.append(dst)
+        return wire.id
+
+    def _default_signal_name(self, src: PortRef) -> str:
+        stem = f"{self.blocks[src.block].name}.{src.port}"
+        taken = {w.name for w in self.wires.values()}
+        out, k = stem, 2
+        while out in taken:
+            out = f"{stem}_{k}"
+            k += 1
+        return out
+
+    def _check_signal_name(self, name: str, *, ignore: str | None = None) -> None:
+        if not isinstance(name, str) or not re.match(r"^[A-Za-z_][A-Za-z0-9_.]*$", name):
+            raise ParameterError(f"signal name {name!r} is not valid: use letters, digits, '_' and '.'", field="name")
+        for w in self.wires.values():
+            if w.name == name and w.id != ignore:
+                raise DiagramError(f"signal name {name!r} is already carried by another wire", wire_ids=[w.id])
+
+    def rename_wire(self, wire_id: str, new_name: str) -> None:
+        w = self._wire(wire_id)
+        if w.name == new_name:
+            return
+        self._check_signal_name(new_name, ignore=wire_id)
+        w.name = new_name
+
+    def disconnect(self, wire_id: str, target: PortRef) -> bool:
+        """Detach one target; the wire goes when its last target goes. True if it went."""
+        w = self._wire(wire_id)
+        w.targets = [t for t in w.targets if t != target]
+        if not w.targets:
+            del self.wires[wire_id]
+            return True
+        return False
+
+    def remove_wire(self, wire_id: str) -> Wire:
+        return self.wires.pop(self._wire(wire_id).id)
+
+    def restore_wire(self, wire: Wire) -> None:
+        """Put back a wire removed earlier (undo)."""
+        if wire.id in self.wires:
+            raise DiagramError(f"wire id {wire.id!r} is already used")
+        self.wires[wire.id] = copy.deepcopy(wire)
+
+    def restore_block(self, block: Block) -> None:
+        """Put back a block removed earlier (undo)."""
+        if block.id in self.blocks:
+            raise DiagramError(f"block id {block.id!r} is already used")
+        self._check_new_name(block.name)
+        self.blocks[block.id] = copy.deepcopy(block)
+
+    def set_wire_layout(self, wire_id: str, layout: dict[str, Any]) -> None:
+        self._wire(wire_id).layout = copy.deepcopy(layout)
+
+    def _wire(self, wire_id: str) -> Wire:
+        try:
+            return self.wires[wire_id]
+        except KeyError:
+            raise DiagramError(f"no wire with id {wire_id!r}") from None
+
+    # ---- views ----------------------------------------------------------------------
+    def graph(self) -> nx.MultiDiGraph:
+        """Blocks as nodes (by id), one edge per (wire, target) keyed by wire id.
+
+        Edge data: ``src_port``, ``dst_port``, ``signal`` (the wire's name).
+        """
+        g = nx.MultiDiGraph()
+        for b in self.blocks.values():
+            g.add_node(b.id, name=b.name, kind=b.kind)
+        for w in self.wires.values():
+            for t in w.targets:
+                g.add_edge(w.source.block, t.block, key=w.id, src_port=w.source.port, dst_port=t.port, signal=w.name)
+        return g
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, Diagram):
+            return NotImplemented
+        return (self.blocks, self.wires, self.settings, self.meta) == (other.blocks, other.wires, other.settings, other.meta)
+
+    def __repr__(self) -> str:
+        return f"Diagram({len(self.blocks)} blocks, {len(self.wires)} wires)"
+
+
+def _close(name: str, candidates: list[str]) -> list[str]:
+    import difflib
+
+    return difflib.get_close_matches(name, candidates, n=3, cutoff=0.5)
