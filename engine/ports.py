@@ -9,7 +9,10 @@ __all__ = ["input_ports", "output_ports"]
 def input_ports(block: Block) -> list[str]:
     """Input port names of ``block``, in stacking order."""
     kind = block.kind
-    if kind in ("plant", "dynamic"):
+    if kind == "plant":
+        # a state-space plant may state where its load acts: x' = A x + B u + E d
+        return ["u", "d"] if "E" in block.params else ["u"]
+    if kind == "dynamic":
         return ["u"]
     if kind in ("gain", "integrator"):
         return ["in"]

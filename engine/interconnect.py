@@ -1,0 +1,461 @@
+"""Wiring graph -> one closed-loop state-space model.
+
+Every block (sources aside) is realised and stacked block-diagonally::
+
+    x' = Ab x + Bb u        (u: all block input ports, stacked)
+    y  = Cb x + Db u + E e  (y: all output ports; E picks the sources' exogenous inputs e)
+
+Each output port is a *signal*; every signal offers an additive injection ``v``, so
+``s = y + v``. Wires select which signal feeds each input: ``u = M s`` (M is a 0/1
+selection). Eliminating ``u`` gives ``(I - Db M) s = Cb x + E e + v``. That system is
+solved with a sparse LU factorisation; when it is singular (an ill-posed loop of direct
+feedthrough) the strongly connected part of the feedthrough graph names the blocks.
+
+The result has inputs ``[e, v]`` (sources, then an injection on every signal component)
+and outputs ``s`` (every signal component). A *loop break* at a signal re-routes that
+signal's consumers to a new input group ``break:<signal>``; the signal still reports the
+upstream value, so the loop transfer there is ``L = -G(break:<signal> -> <signal>)``.
+"""
+from __future__ import annotations
+
+import difflib
+from dataclasses import dataclass, field
+
+import networkx as nx
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+from scipy.sparse.csgraph import connected_components
+
+from loopwright.engine.blocks import Realization, port_widths, realize
+from loopwright.engine.diagram import Diagram, PortRef
+from loopwright.engine.errors import (
+    AlgebraicLoopError,
+    ConnectionError_,
+    DiagramError,
+    DimensionError,
+    EngineError,
+    UnknownNameError,
+)
+from loopwright.engine.ports import input_ports, output_ports
+
+__all__ = ["AssembledModel", "assemble", "signal_names", "Problem", "collect_problems"]
+
+# An algebraic loop whose solve is this badly conditioned is treated as ill-posed: the
+# "model" would amplify rounding noise by more than 1e12.
+_ILL_POSED_COND = 1e12
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong with a diagram, for the problems list and the canvas markings."""
+
+    message: str
+    block_ids: tuple[str, ...] = ()
+    wire_ids: tuple[str, ...] = ()
+    severity: str = "error"
+
+
+@dataclass(frozen=True, eq=False)
+class AssembledModel:
+    """The one closed-loop model of a diagram: ``x' = A x + B w``, ``z = C x + D w``.
+
+    Attributes
+    ----------
+    A : (n, n) ndarray
+    B : (n, m) ndarray
+        Columns: sources, then ``inject:<signal>`` for every signal (and ``break:<signal>``).
+    C : (p, n) ndarray
+        Rows: every signal component.
+    D : (p, m) ndarray
+    state_names, input_names, output_names : tuple of str
+        Component names (``P.x1``, ``d``, ``inject:xhat[2]``, ``y``).
+    inputs : dict
+        Input group -> column slice.
+    signals : dict
+        Signal name -> row slice.
+    states : dict
+        Block name -> state slice (blocks with states only).
+    sources : dict
+        Source name -> role.
+    signal_ports : dict
+        Signal name -> the output ``PortRef`` that drives it.
+    diagram : Diagram
+        The snapshot the model was built from.
+    """
+
+    A: np.ndarray
+    B: np.ndarray
+    C: np.ndarray
+    D: np.ndarray
+    state_names: tuple[str, ...]
+    input_names: tuple[str, ...]
+    output_names: tuple[str, ...]
+    inputs: dict[str, slice]
+    signals: dict[str, slice]
+    states: dict[str, slice]
+    sources: dict[str, str]
+    signal_ports: dict[str, PortRef]
+    diagram: Diagram = field(repr=False)
+    break_at: str | None = None
+
+    @property
+    def n_states(self) -> int:
+        return self.A.shape[0]
+
+    def resolve_input(self, name: str) -> str:
+        """Input group for ``name``: a source, ``inject:<signal>``, ``break:<signal>``, or a bare
+        signal name (meaning the injection on that signal).
+
+        Raises
+        ------
+        UnknownNameError
+            With the closest valid names as ``suggestions``.
+        """
+        if name in self.inputs:
+            return name
+        if f"inject:{name}" in self.inputs:
+            return f"inject:{name}"
+        cands = list(self.sources) + list(self.signals)
+        sugg = difflib.get_close_matches(name, cands, n=3, cutoff=0.4)
+        raise UnknownNameError(
+            f"no input called {name!r}; inputs are the sources ({', '.join(self.sources) or 'none'}) "
+            f"or any signal (its injection)" + (f"; did you mean {', '.join(sugg)}?" if sugg else ""),
+            suggestions=sugg,
+        )
+
+    def resolve_signal(self, name: str) -> str:
+        """``name`` if it is a signal; :class:`UnknownNameError` with suggestions otherwise."""
+        if name in self.signals:
+            return name
+        sugg = difflib.get_close_matches(name, list(self.signals), n=3, cutoff=0.4)
+        raise UnknownNameError(
+            f"no signal called {name!r}" + (f"; did you mean {', '.join(sugg)}?" if sugg else f"; signals: {', '.join(self.signals)}"),
+            suggestions=sugg,
+        )
+
+    def pair(self, input_group: str, signal: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """``(A, B, C, D)`` of the path from one input group to one signal (all components)."""
+        cols = self.inputs[self.resolve_input(input_group)]
+        rows = self.signals[self.resolve_signal(signal)]
+        return self.A, self.B[:, cols], self.C[rows, :], self.D[rows, cols]
+
+
+def signal_names(diagram: Diagram) -> dict[PortRef, str]:
+    """Signal name of every output port: the wire's name, or ``block.port`` when unwired."""
+    out: dict[PortRef, str] = {}
+    wired = {w.source: w.name for w in diagram.wires.values()}
+    for b in diagram.blocks.values():
+        for port in output_ports(b):
+            ref = PortRef(b.id, port)
+            out[ref] = wired.get(ref, f"{b.name}.{port}")
+    return out
+
+
+def _comp_names(name: str, width: int) -> list[str]:
+    return [name] if width == 1 else [f"{name}[{k + 1}]" for k in range(width)]
+
+
+def collect_problems(diagram: Diagram) -> list[Problem]:
+    """Every problem that keeps ``diagram`` from assembling (empty list: it assembles).
+
+    Parameter errors, unconnected inputs, width mismatches and name clashes are gathered
+    in one pass; an ill-posed algebraic loop is found only when the rest is clean.
+    """
+    found: list[Problem] = []
+    widths: dict[str, tuple[dict[str, int], dict[str, int]]] = {}
+    for b in diagram.blocks.values():
+        try:
+            widths[b.id] = port_widths(b, diagram)
+        except EngineError as err:
+            found.append(Problem(err.message, tuple(err.block_ids) or (b.id,), tuple(err.wire_ids)))
+    for w in diagram.wires.values():
+        src_blk = diagram.blocks.get(w.source.block)
+        if src_blk is None:
+            found.append(Problem(f"wire {w.name!r} starts at a block that no longer exists", (), (w.id,)))
+            continue
+        sw = widths.get(src_blk.id, (None, {}))[1].get(w.source.port)
+        for t in w.targets:
+            dst = diagram.blocks.get(t.block)
+            if dst is None:
+                found.append(Problem(f"wire {w.name!r} ends at a block that no longer exists", (), (w.id,)))
+                continue
+            if t.port not in input_ports(dst):
+                found.append(Problem(f"wire {w.name!r} ends at {dst.name}.{t.port}, which is not an input port", (dst.id,), (w.id,)))
+                continue
+            dw = widths.get(dst.id, ({}, None))[0].get(t.port)
+            if sw is not None and dw is not None and sw != dw:
+                found.append(
+                    Problem(
+                        f"wire {w.name!r}: {src_blk.name}.{w.source.port} has {sw} signal{'s' if sw != 1 else ''}, "
+                        f"{dst.name}.{t.port} expects {dw}",
+                        (src_blk.id, dst.id),
+                        (w.id,),
+                    )
+                )
+    fed: dict[PortRef, list[str]] = {}
+    for w in diagram.wires.values():
+        for t in w.targets:
+            fed.setdefault(t, []).append(w.id)
+    for b in diagram.blocks.values():
+        for port in input_ports(b):
+            ref = PortRef(b.id, port)
+            if ref not in fed:
+                found.append(Problem(f"input {b.name}.{port} is not connected", (b.id,)))
+            elif len(fed[ref]) > 1:
+                found.append(Problem(f"input {b.name}.{port} is fed by {len(fed[ref])} wires", (b.id,), tuple(fed[ref])))
+    seen: dict[str, PortRef] = {}
+    for ref, name in signal_names(diagram).items():
+        if name in seen:
+            found.append(Problem(f"signal name {name!r} is used twice", (ref.block, seen[name].block)))
+        seen[name] = ref
+    if not found:
+        try:
+            assemble(diagram)
+        except EngineError as err:
+            found.append(Problem(err.message, tuple(err.block_ids), tuple(err.wire_ids)))
+    return found
+
+
+def _raise_first(problems: list[Problem]) -> None:
+    if not problems:
+        return
+    p = problems[0]
+    more = f" (and {len(problems) - 1} more problem{'s' if len(problems) > 2 else ''})" if len(problems) > 1 else ""
+    text = p.message + more
+    if "not connected" in p.message or "fed by" in p.message:
+        raise ConnectionError_(text, block_ids=p.block_ids, wire_ids=p.wire_ids)
+    if "expects" in p.message:
+        raise DimensionError(text, block_ids=p.block_ids, wire_ids=p.wire_ids)
+    raise DiagramError(text, block_ids=p.block_ids, wire_ids=p.wire_ids)
+
+
+def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel:
+    """Reduce ``diagram`` to one continuous-time state-space model.
+
+    Parameters
+    ----------
+    diagram : Diagram
+        Not modified; the model keeps a snapshot.
+    break_at : str, optional
+        Signal at which to open the loop (see the module docstring).
+
+    Returns
+    -------
+    AssembledModel
+
+    Raises
+    ------
+    ParameterError, ConnectionError_, DimensionError
+        The first problem found (``collect_problems`` lists them all).
+    AlgebraicLoopError
+        A loop of direct feedthrough without a unique solution; ``block_ids`` holds the loop.
+    UnknownNameError
+        ``break_at`` is not a signal.
+
+    Examples
+    --------
+    >>> d = Diagram()
+    >>> _ = d.add_block("source", "r")
+    >>> _ = d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    >>> _ = d.add_block("plant", "P", {"num": [1.0], "den": [1.0, 1.0]})
+    >>> _ = d.connect("r.out", "e.in1"); _ = d.connect("e.out", "P.u"); _ = d.connect("P.y", "e.in2")
+    >>> m = assemble(d)
+    >>> m.A
+    array([[-2.]])
+    """
+    snap = diagram.copy()
+    blocks = list(snap.blocks.values())
+    reals: dict[str, Realization] = {}
+    problems: list[Problem] = []
+    for b in blocks:
+        if b.kind == "source":
+            continue
+        try:
+            reals[b.id] = realize(b, snap)
+        except EngineError as err:
+            problems.append(Problem(err.message, tuple(err.block_ids) or (b.id,)))
+    _raise_first(problems)
+
+    # ---- signals: every output port; sources contribute exogenous inputs ------------
+    sig_of_port = signal_names(snap)
+    sig_names: list[str] = []
+    sig_slices: dict[str, slice] = {}
+    sig_ports: dict[str, PortRef] = {}
+    port_rows: dict[PortRef, slice] = {}
+    src_cols: dict[str, slice] = {}
+    sources: dict[str, str] = {}
+    state_slices: dict[str, slice] = {}
+    state_names: list[str] = []
+    ns = ne = nx_ = 0
+    A_parts, B_parts, C_parts, D_parts = [], [], [], []
+    in_offsets: dict[PortRef, slice] = {}
+    nu = 0
+    y_rows_of_block: list[tuple[int, int]] = []  # (row offset, rows) per realised block, in stacking order
+    src_rows, src_cols_list = [], []
+    for b in blocks:
+        if b.kind == "source":
+            w = port_widths(b, snap)[1]["out"]
+            ref = PortRef(b.id, "out")
+            name = sig_of_port[ref]
+            port_rows[ref] = slice(ns, ns + w)
+            sig_slices[name], sig_ports[name] = slice(ns, ns + w), ref
+            sig_names.extend(_comp_names(name, w))
+            src_cols[b.name] = slice(ne, ne + w)
+            sources[b.name] = b.params.get("role", "reference")
+            src_rows.extend(range(ns, ns + w))
+            src_cols_list.extend(range(ne, ne + w))
+            ns += w
+            ne += w
+            continue
+        r = reals[b.id]
+        n = r.A.shape[0]
+        if n:
+            state_slices[b.name] = slice(nx_, nx_ + n)
+            state_names.extend(r.state_names)
+        A_parts.append(r.A)
+        B_parts.append(r.B)
+        C_parts.append(r.C)
+        D_parts.append(r.D)
+        for port, w in r.inputs:
+            in_offsets[PortRef(b.id, port)] = slice(nu, nu + w)
+            nu += w
+        row0 = ns
+        for port, w in r.outputs:
+            ref = PortRef(b.id, port)
+            name = sig_of_port[ref]
+            port_rows[ref] = slice(ns, ns + w)
+            sig_slices[name], sig_ports[name] = slice(ns, ns + w), ref
+            sig_names.extend(_comp_names(name, w))
+            ns += w
+        y_rows_of_block.append((row0, ns - row0))
+        nx_ += n
+    if len(sig_slices) != len(sig_ports) or len(sig_names) != ns:
+        raise DiagramError("two signals share a name; rename one of the wires")
+
+    # ---- stacked block matrices, with output rows placed among the source rows -------
+    Ab = sp.block_diag(A_parts, format="csr") if A_parts else sp.csr_matrix((0, 0))
+    Bb = sp.block_diag(B_parts, format="csr") if B_parts else sp.csr_matrix((0, 0))
+    Cb_blk = sp.block_diag(C_parts, format="coo") if C_parts else sp.coo_matrix((0, nx_))
+    Db_blk = sp.block_diag(D_parts, format="coo") if D_parts else sp.coo_matrix((0, nu))
+    Ab = sp.csr_matrix(Ab, shape=(nx_, nx_))
+    Bb = sp.csr_matrix(Bb, shape=(nx_, nu))
+    # map stacked block-output rows to signal rows (sources interleave in diagram order)
+    row_map = np.concatenate([np.arange(r0, r0 + k) for r0, k in y_rows_of_block]) if y_rows_of_block else np.zeros(0, int)
+    Cb = sp.csr_matrix((Cb_blk.data, (row_map[Cb_blk.row], Cb_blk.col)), shape=(ns, nx_))
+    Db = sp.csr_matrix((Db_blk.data, (row_map[Db_blk.row], Db_blk.col)), shape=(ns, nu))
+    E = sp.csr_matrix((np.ones(len(src_rows)), (src_rows, src_cols_list)), shape=(ns, ne))
+
+    # ---- selection u = M s (+ Mb b for a broken signal) ------------------------------
+    broken: str | None = None
+    if break_at is not None:
+        if break_at not in sig_slices:
+            sugg = difflib.get_close_matches(break_at, list(sig_slices), n=3, cutoff=0.4)
+            raise UnknownNameError(
+                f"cannot break the loop at {break_at!r}: no such signal" + (f"; did you mean {', '.join(sugg)}?" if sugg else ""),
+                suggestions=sugg,
+            )
+        broken = break_at
+    m_rows, m_cols, b_rows, b_cols = [], [], [], []
+    nb = 0
+    for w in snap.wires.values():
+        srows = port_rows[w.source]
+        is_broken = broken is not None and sig_of_port[w.source] == broken
+        if is_broken:
+            nb = srows.stop - srows.start
+        for t in w.targets:
+            urows = in_offsets[t]
+            if urows.stop - urows.start != srows.stop - srows.start:
+                raise DimensionError(f"wire {w.name!r}: widths differ at {snap.port_label(t)}", wire_ids=[w.id])
+            if is_broken:
+                b_rows.extend(range(urows.start, urows.stop))
+                b_cols.extend(range(nb))
+            else:
+                m_rows.extend(range(urows.start, urows.stop))
+                m_cols.extend(range(srows.start, srows.stop))
+    if broken is not None and nb == 0:
+        nb = sig_slices[broken].stop - sig_slices[broken].start
+    M = sp.csr_matrix((np.ones(len(m_rows)), (m_rows, m_cols)), shape=(nu, ns))
+    Mb = sp.csr_matrix((np.ones(len(b_rows)), (b_rows, b_cols)), shape=(nu, nb))
+
+    # ---- eliminate u: (I - Db M) s = Cb x + E e + v + Db Mb b -------------------------
+    DM = (Db @ M).tocsr()
+    F = (sp.identity(ns, format="csr") - DM).tocsc()
+    _check_well_posed(DM, F, sig_names, sig_ports, snap, port_rows)
+    rhs = sp.hstack([Cb, E, sp.identity(ns, format="csr"), Db @ Mb], format="csc")
+    try:
+        lu = spla.splu(F)
+        G = lu.solve(rhs.toarray())
+    except RuntimeError as err:  # exactly singular: the structural check missed a cancellation
+        raise AlgebraicLoopError("the direct-feedthrough loops have no unique solution (I - M D is singular)") from err
+    Gx, Ge, Gv, Gb = G[:, :nx_], G[:, nx_:nx_ + ne], G[:, nx_ + ne:nx_ + ne + ns], G[:, nx_ + ne + ns:]
+    BM = (Bb @ M).tocsr()
+    A = Ab.toarray() + BM @ Gx
+    B = np.hstack([BM @ Ge, BM @ Gv, BM @ Gb + (Bb @ Mb).toarray()])
+    C = Gx
+    D = np.hstack([Ge, Gv, Gb])
+
+    inputs: dict[str, slice] = dict(src_cols)
+    input_names: list[str] = []
+    for name, sl in src_cols.items():
+        input_names.extend(_comp_names(name, sl.stop - sl.start))
+    for name, sl in sig_slices.items():
+        inputs[f"inject:{name}"] = slice(ne + sl.start, ne + sl.stop)
+        input_names.extend(_comp_names(f"inject:{name}", sl.stop - sl.start))
+    if broken is not None:
+        inputs[f"break:{broken}"] = slice(ne + ns, ne + ns + nb)
+        input_names.extend(_comp_names(f"break:{broken}", nb))
+    return AssembledModel(
+        A=np.ascontiguousarray(A),
+        B=np.ascontiguousarray(B),
+        C=np.ascontiguousarray(C),
+        D=np.ascontiguousarray(D),
+        state_names=tuple(state_names),
+        input_names=tuple(input_names),
+        output_names=tuple(sig_names),
+        inputs=inputs,
+        signals=sig_slices,
+        states=state_slices,
+        sources=sources,
+        signal_ports=sig_ports,
+        diagram=snap,
+        break_at=broken,
+    )
+
+
+def _check_well_posed(DM, F, sig_names, sig_ports, diagram: Diagram, port_rows) -> None:
+    """Raise :class:`AlgebraicLoopError` naming the blocks of an ill-posed feedthrough loop.
+
+    Only strongly connected parts of the feedthrough graph can make ``I - D M`` singular
+    (an acyclic part is unit-triangular after reordering), so each of those small dense
+    blocks is checked by its condition number.
+    """
+    ns = DM.shape[0]
+    if ns == 0 or DM.nnz == 0:
+        return
+    ncomp, labels = connected_components(DM, directed=True, connection="strong")
+    sizes = np.bincount(labels, minlength=ncomp)
+    diag_nz = DM.diagonal() != 0
+    row_block = np.empty(ns, dtype=object)
+    for ref, rows in port_rows.items():
+        row_block[rows] = ref.block
+    for comp in np.flatnonzero((sizes > 1) | np.bincount(labels, weights=diag_nz, minlength=ncomp).astype(bool)):
+        idx = np.flatnonzero(labels == comp)
+        sub = F[idx][:, idx].toarray()
+        cond = np.linalg.cond(sub)
+        if not np.isfinite(cond) or cond > _ILL_POSED_COND:
+            g = nx.DiGraph()
+            sub_dm = DM[idx][:, idx].tocoo()
+            for i, j in zip(sub_dm.row, sub_dm.col):
+                g.add_edge(row_block[idx[j]], row_block[idx[i]])
+            try:
+                cyc = [u for u, _ in nx.find_cycle(g)]
+            except nx.NetworkXNoCycle:
+                cyc = sorted(set(row_block[idx]))
+            names = [diagram.blocks[b].name for b in cyc]
+            raise AlgebraicLoopError(
+                f"algebraic loop through {' -> '.join(names + names[:1])} has no unique solution "
+                f"(direct feedthrough around the loop makes I - M D singular, condition {cond:.3g}); "
+                "add dynamics or change a gain or sign on the loop",
+                block_ids=cyc,
+            )
