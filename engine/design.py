@@ -267,9 +267,14 @@ def check_weight(M, name: str, size: int, *, definite: bool) -> np.ndarray:
 
     A scalar or a flat list of ``size`` numbers means a diagonal weight.
     """
-    W = _as_matrix(M, name, shape=(size, size))
-    if np.isscalar(M) or np.ndim(M) == 0:
-        W = float(M) * np.eye(size)
+    if np.ndim(M) == 0 and not isinstance(M, (str, bytes)):
+        try:
+            W = float(M) * np.eye(size)
+        except (TypeError, ValueError) as err:
+            raise DesignError(f"{name}: expected a number or a matrix, got {M!r}") from err
+        W = _as_matrix(W, name, shape=(size, size))
+    else:
+        W = _as_matrix(M, name, shape=(size, size))
     scale = max(1.0, float(np.max(np.abs(W))))
     if not np.allclose(W, W.T, rtol=0.0, atol=1e-10 * scale):
         raise DesignError(f"{name}: must be symmetric, got {W.tolist()}")
