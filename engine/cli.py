@@ -1,0 +1,134 @@
+"""``loopwright`` on the command line, headless: check, analyse, design and export a diagram.
+
+Every command reads a project file and prints readable text, or JSON with ``--json``.
+A user's mistake (bad file, wrong name) prints one line on stderr and exits with 2;
+only a bug in Loopwright itself shows a traceback.
+"""
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from loopwright.engine import CAUTION, __version__
+from loopwright.engine.check import pole_table, summarize
+from loopwright.engine.cli_common import fmt_complex, fmt_num, load_diagram, print_json
+from loopwright.engine.errors import EngineError
+
+__all__ = ["main", "build_parser", "COMMANDS"]
+
+# Command modules that add their own sub-commands (``add_commands(subparsers)``).
+_COMMAND_MODULES = ("loopwright.engine.cli_analysis", "loopwright.engine.cli_design")
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str):  # one line and exit 2, like every other user error
+        self.exit(2, f"{self.prog}: {message} (see '{self.prog} --help')\n")
+
+
+def _check(args: argparse.Namespace) -> int:
+    diagram = load_diagram(args.file)
+    rep = summarize(diagram)
+    sep = rep.separation
+    if args.json:
+        print_json(
+            {
+                "file": args.file,
+                "states": rep.states,
+                "state_names": list(rep.model.state_names),
+                "poles": [[p.real, p.imag] for p in rep.poles],
+                "pole_table": pole_table(rep.poles),
+                "stable": rep.stable,
+                "rhp_poles": rep.rhp_poles,
+                "signals": list(rep.signals),
+                "sources": list(rep.sources),
+                "source_roles": rep.sources,
+                "inputs": len(rep.model.input_names),
+                "warnings": list(rep.warnings),
+                "separation": None
+                if sep is None
+                else {
+                    "expected": [[p.real, p.imag] for p in sep.expected],
+                    "state_feedback_poles": [[p.real, p.imag] for p in sep.state_feedback_poles],
+                    "estimator_poles": [[p.real, p.imag] for p in sep.estimator_poles],
+                    "matches": sep.matches,
+                    "max_relative_gap": sep.max_mismatch,
+                    "pairs": [list(p) for p in sep.pairs],
+                    "static_gains": {k: v for k, v in sep.gains.items()},
+                },
+                "caution": CAUTION,
+            }
+        )
+        return 0
+    title = diagram.meta.get("title")
+    print(f"{args.file}" + (f"  ({title})" if title else ""))
+    print(f"  states   {rep.states}")
+    print(f"  signals  {len(rep.signals)}: {', '.join(rep.signals)}")
+    print(f"  sources  {len(rep.sources)}: {', '.join(f'{k} ({v})' for k, v in rep.sources.items()) or 'none'}")
+    print(f"  inputs   {len(rep.model.input_names)} (sources and an injection on every signal component)")
+    print()
+    print("  closed-loop poles            damping   natural freq (rad/s)")
+    for row, p in zip(pole_table(rep.poles), rep.poles):
+        print(f"    {fmt_complex(p):<26} {fmt_num(row['damping'], digits=4):>8}   {fmt_num(row['wn_rad_s'], digits=6)}")
+    verdict = "stable" if rep.stable else (f"UNSTABLE: {rep.rhp_poles} pole(s) in the right half-plane" if rep.rhp_poles else "NOT asymptotically stable (poles on the imaginary axis)")
+    print(f"\n  verdict  {verdict}")
+    if sep is not None:
+        print()
+        for plant, est in sep.pairs:
+            k = sep.gains.get(est)
+            ktxt = f", static gain K = {fmt_matrix(k)}" if k is not None else ""
+            print(f"  separation check: estimator {est!r} on plant {plant!r}{ktxt}")
+        print(f"    state feedback  eig(A - B K): {', '.join(fmt_complex(p, digits=5) for p in sep.state_feedback_poles)}")
+        print(f"    estimator       eig(A - L C): {', '.join(fmt_complex(p, digits=5) for p in sep.estimator_poles)}")
+        print(f"    closed loop = union of both: {'yes' if sep.matches else 'NO'} (worst relative gap {sep.max_mismatch:.1e})")
+    for w in rep.warnings:
+        print(f"  warning: {w}")
+    print(f"\n  {CAUTION}")
+    return 0
+
+
+def fmt_matrix(k) -> str:
+    rows = ["[" + ", ".join(fmt_num(v, digits=5) for v in row) + "]" for row in k]
+    return "[" + ", ".join(rows) + "]" if len(rows) > 1 else rows[0]
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="loopwright", description="Assemble, analyse and design observer-based control loops drawn as block diagrams.")
+    parser.add_argument("--version", action="version", version=f"loopwright {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    p = sub.add_parser("check", help="assemble a diagram; print its states, poles, stability and the separation check")
+    p.add_argument("file", help="diagram file (.lwd)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(run=_check)
+    for mod in _COMMAND_MODULES:
+        try:
+            module = importlib.import_module(mod)
+        except ModuleNotFoundError as err:
+            if err.name != mod:
+                raise
+            continue
+        module.add_commands(sub)
+    return parser
+
+
+COMMANDS = ("check", "freq", "time", "margins", "audit", "noise", "design", "export")
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run one command; returns the exit status (0 ok, 2 user error)."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "run", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args.run(args) or 0)
+    except EngineError as err:
+        print(f"loopwright {args.command}: {err}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
