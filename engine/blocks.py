@@ -334,14 +334,14 @@ def realize(block: Block, diagram: Diagram) -> Realization:
     name = block.name
     if kind in ("plant", "dynamic"):
         A, B, C, D = _lti_matrices(block)
-        n, m, q = A.shape[0], B.shape[1] if A.shape[0] else D.shape[1], C.shape[0] if A.shape[0] else D.shape[0]
+        n, m, q = A.shape[0], D.shape[1], D.shape[0]
         ins: tuple[tuple[str, int], ...] = (("u", m),)
         dist = _disturbance_matrices(block, n, q) if kind == "plant" else None
         if dist is not None:
             E, F = dist
-            B, D = np.hstack([B.reshape(n, m), E]), np.hstack([D, F])
+            B, D = np.hstack([B, E]), np.hstack([D, F])
             ins = (("u", m), ("d", E.shape[1]))
-        return Realization(A, B.reshape(n, -1), C.reshape(-1, n), D, ins, (("y", q),), tuple(f"{name}.x{k + 1}" for k in range(n)))
+        return Realization(A, B, C, D, ins, (("y", q),), tuple(f"{name}.x{k + 1}" for k in range(n)))
     if kind == "gain":
         if "K" not in p:
             raise ParameterError(f"{where}: gain needs K", field="K", block_ids=[block.id])

@@ -18,6 +18,7 @@ upstream value, so the loop transfer there is ``L = -G(break:<signal> -> <signal
 """
 from __future__ import annotations
 
+import copy
 import difflib
 from dataclasses import dataclass, field
 
@@ -54,6 +55,7 @@ class Problem:
     block_ids: tuple[str, ...] = ()
     wire_ids: tuple[str, ...] = ()
     severity: str = "error"
+    error: EngineError | None = field(default=None, compare=False, repr=False)
 
 
 @dataclass(frozen=True, eq=False)
@@ -169,6 +171,18 @@ def collect_problems(diagram: Diagram) -> list[Problem]:
             widths[b.id] = port_widths(b, diagram)
         except EngineError as err:
             found.append(Problem(err.message, tuple(err.block_ids) or (b.id,), tuple(err.wire_ids)))
+    found += _wiring_problems(diagram, widths)
+    if not found:
+        try:
+            assemble(diagram)
+        except EngineError as err:
+            found.append(Problem(err.message, tuple(err.block_ids), tuple(err.wire_ids)))
+    return found
+
+
+def _wiring_problems(diagram: Diagram, widths: dict[str, tuple[dict[str, int], dict[str, int]]]) -> list[Problem]:
+    """Wires to missing ports, width mismatches, unconnected or doubly fed inputs, name clashes."""
+    found: list[Problem] = []
     for w in diagram.wires.values():
         src_blk = diagram.blocks.get(w.source.block)
         if src_blk is None:
@@ -209,11 +223,6 @@ def collect_problems(diagram: Diagram) -> list[Problem]:
         if name in seen:
             found.append(Problem(f"signal name {name!r} is used twice", (ref.block, seen[name].block)))
         seen[name] = ref
-    if not found:
-        try:
-            assemble(diagram)
-        except EngineError as err:
-            found.append(Problem(err.message, tuple(err.block_ids), tuple(err.wire_ids)))
     return found
 
 
@@ -223,6 +232,10 @@ def _raise_first(problems: list[Problem]) -> None:
     p = problems[0]
     more = f" (and {len(problems) - 1} more problem{'s' if len(problems) > 2 else ''})" if len(problems) > 1 else ""
     text = p.message + more
+    if p.error is not None:
+        err = copy.copy(p.error)
+        err.message, err.args = text, (text,)
+        raise err from p.error
     if "not connected" in p.message or "fed by" in p.message:
         raise ConnectionError_(text, block_ids=p.block_ids, wire_ids=p.wire_ids)
     if "expects" in p.message:
@@ -274,8 +287,13 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         try:
             reals[b.id] = realize(b, snap)
         except EngineError as err:
-            problems.append(Problem(err.message, tuple(err.block_ids) or (b.id,)))
+            problems.append(Problem(err.message, tuple(err.block_ids) or (b.id,), error=err))
     _raise_first(problems)
+    widths = {bid: (dict(r.inputs), dict(r.outputs)) for bid, r in reals.items()}
+    for b in blocks:
+        if b.kind == "source":
+            widths[b.id] = port_widths(b, snap)
+    _raise_first(_wiring_problems(snap, widths))
 
     # ---- signals: every output port; sources contribute exogenous inputs ------------
     sig_of_port = signal_names(snap)
