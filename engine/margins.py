@@ -1,0 +1,678 @@
+"""Loop-break margins: gain-margin interval, phase and delay margins, peak sensitivity and
+disk margins, for a loop transfer ``L`` given as state space or as a sampled response.
+
+Conventions (see the shared reference cases): at a loop break ``L = -G(break -> signal)``
+with every source at zero; ``S = (I + L)^-1``, ``T = I - S``.
+
+* **Gain margin** is the interval ``(g_lower, g_upper)`` of real factors ``g > 0`` for
+  which the loop with ``g L`` stays stable. The closed loop can only change stability at a
+  gain ``g = -1/L(jw)`` where ``L(jw)`` is real and negative (``w`` in ``[0, inf]``); those
+  frequencies are found on a dense grid and refined with ``brentq``, and each interval
+  between them is then classified by the closed-loop pole count (eigenvalues of
+  ``A - g B (I + g D)^-1 C``), never by guessing. Open-loop unstable loops thus get a
+  finite lower margin.
+* **Phase margin** is ``PM_i = angle L(jw_i) + 180 deg`` wrapped into (-180, 180] at the
+  gain crossover with the smallest ``|PM_i|``; the **delay margin** is
+  ``min_i ((angle L(jw_i) + 180) mod 360) * pi/180 / w_i``.
+* **Disk margin** with skew ``sigma``: ``alpha = 1 / ||S + (sigma - 1)/2 ||_inf``, gain
+  interval ``[(1 - alpha(1 - sigma)/2) / (1 + alpha(1 + sigma)/2),
+  (1 + alpha(1 - sigma)/2) / (1 - alpha(1 + sigma)/2)]`` and phase
+  ``arccos((1 + g_lo g_hi) / (g_lo + g_hi))``, which becomes ``arccos(g_lo)`` when the upper
+  gain is unbounded (Blight, Dailey & Gangsaas 1994; Seiler, Packard & Gahinet 2020,
+  from memory).
+* For a vector loop: loop-at-a-time margins (break one component, the others closed) and
+  the **all-loops-at-once** disk margin ``alpha = 1 / ||S + (sigma - 1)/2 I||_inf`` with
+  the full matrix ``S``. This is the margin against an *unstructured* complex
+  perturbation of the whole loop; it is a lower bound of the margin against independent
+  per-channel (diagonal) perturbations, which would need a structured singular value.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg as sla
+import scipy.optimize as sopt
+
+from loopwright.engine.errors import AnalysisError, UnknownNameError
+from loopwright.engine.norms import is_stable_matrix, peak_gain
+from loopwright.engine.responses import _as_system, auto_frequency_grid, reduce_model, reduced_response
+from loopwright.engine.structure import minimal_realization, transmission_zeros
+
+__all__ = [
+    "DiskMargin",
+    "LoopMargins",
+    "VectorLoopMargins",
+    "disk_margin_from_alpha",
+    "sensitivity_system",
+    "closed_loop_matrix",
+    "loop_margins",
+    "vector_loop_margins",
+    "margins_from_response",
+    "loop_transfer",
+    "margins_at",
+    "sensitivity_maps",
+]
+
+
+@dataclass(frozen=True)
+class DiskMargin:
+    """A disk margin: size ``alpha``, skew, the gain interval it implies and the phase.
+
+    ``w_rad_s`` is where ``|S + (sigma - 1)/2|`` peaks (the critical frequency).
+    """
+
+    alpha: float
+    skew: float
+    gain_lower: float
+    gain_upper: float
+    phase_deg: float
+    w_rad_s: float
+
+    @property
+    def gain_db(self) -> tuple[float, float]:
+        return _db(self.gain_lower), _db(self.gain_upper)
+
+
+@dataclass
+class LoopMargins:
+    """Margins of one scalar loop. Frequencies in rad/s, phases in degrees, delays in s.
+
+    ``gain_lower``/``gain_upper`` are absolute factors (``0``/``inf`` when unbounded on
+    that side, ``nan`` when the nominal closed loop is unstable). ``*_w_rad_s`` give the
+    frequency at which each bound is reached.
+    """
+
+    closed_loop_stable: bool
+    open_loop_unstable_poles: int
+    gain_lower: float
+    gain_upper: float
+    gain_lower_w_rad_s: float
+    gain_upper_w_rad_s: float
+    phase_margin_deg: float
+    phase_margin_w_rad_s: float
+    delay_margin_s: float
+    gain_crossovers_w_rad_s: list[float]
+    phase_margins_deg: list[float]
+    phase_crossovers_w_rad_s: list[float]
+    peak_sensitivity: float
+    peak_sensitivity_w_rad_s: float
+    disk: DiskMargin
+    message: str = ""
+
+    @property
+    def gain_margin_db(self) -> tuple[float, float]:
+        return _db(self.gain_lower), _db(self.gain_upper)
+
+    @property
+    def modulus_margin(self) -> float:
+        """``1/||S||_inf``: the distance from ``L(jw)`` to the critical point -1."""
+        return 0.0 if not np.isfinite(self.peak_sensitivity) else 1.0 / self.peak_sensitivity
+
+    def as_dict(self) -> dict:
+        """Plain values for JSON (keys carry the units)."""
+        return {
+            "closed_loop_stable": self.closed_loop_stable,
+            "open_loop_unstable_poles": self.open_loop_unstable_poles,
+            "gain_margin": [self.gain_lower, self.gain_upper],
+            "gain_margin_db": list(self.gain_margin_db),
+            "gain_margin_w_rad_s": [self.gain_lower_w_rad_s, self.gain_upper_w_rad_s],
+            "phase_margin_deg": self.phase_margin_deg,
+            "phase_margin_w_rad_s": self.phase_margin_w_rad_s,
+            "delay_margin_s": self.delay_margin_s,
+            "gain_crossovers_w_rad_s": list(self.gain_crossovers_w_rad_s),
+            "phase_margins_deg": list(self.phase_margins_deg),
+            "phase_crossovers_w_rad_s": list(self.phase_crossovers_w_rad_s),
+            "peak_sensitivity": self.peak_sensitivity,
+            "peak_sensitivity_w_rad_s": self.peak_sensitivity_w_rad_s,
+            "modulus_margin": self.modulus_margin,
+            "disk_margin": _disk_dict(self.disk),
+            "message": self.message,
+        }
+
+
+@dataclass
+class VectorLoopMargins:
+    """Margins of a loop break on a vector signal.
+
+    ``per_channel[i]`` breaks component ``i`` with the other components closed.
+    ``all_at_once`` is the unstructured (full-block) disk margin of the whole loop.
+    """
+
+    closed_loop_stable: bool
+    per_channel: list[LoopMargins]
+    all_at_once: DiskMargin
+    peak_sensitivity: float
+    peak_sensitivity_w_rad_s: float
+    channel_names: list[str] = field(default_factory=list)
+
+    def as_dict(self) -> dict:
+        return {
+            "closed_loop_stable": self.closed_loop_stable,
+            "channels": {name: m.as_dict() for name, m in zip(self.channel_names, self.per_channel)},
+            "disk_margin_all_loops": _disk_dict(self.all_at_once),
+            "disk_margin_all_loops_note": "1/||S + (skew-1)/2 I||_inf with the full matrix S: margin against an unstructured "
+            "perturbation of all loops at once (a lower bound for independent per-loop perturbations)",
+            "peak_sensitivity": self.peak_sensitivity,
+            "peak_sensitivity_w_rad_s": self.peak_sensitivity_w_rad_s,
+        }
+
+
+def _db(g: float) -> float:
+    if g == 0:
+        return -np.inf
+    if not np.isfinite(g):
+        return g
+    return float(20.0 * np.log10(g))
+
+
+def _disk_dict(d: DiskMargin) -> dict:
+    return {
+        "alpha": d.alpha,
+        "skew": d.skew,
+        "gain": [d.gain_lower, d.gain_upper],
+        "gain_db": list(d.gain_db),
+        "phase_deg": d.phase_deg,
+        "w_rad_s": d.w_rad_s,
+    }
+
+
+def disk_margin_from_alpha(alpha: float, *, skew: float = 0.0, w_rad_s: float = np.nan) -> DiskMargin:
+    """Gain interval and phase margin implied by a disk of size ``alpha`` and skew ``sigma``.
+
+    Uses the ``arccos(g_lo)`` limit when the upper gain is unbounded (REFERENCES.md REF-04
+    note).
+
+    Examples
+    --------
+    >>> d = disk_margin_from_alpha(1.0, skew=1.0)
+    >>> round(d.gain_lower, 12), d.gain_upper, round(d.phase_deg, 9)
+    (0.5, inf, 60.0)
+    """
+    a, s = float(alpha), float(skew)
+    if not np.isfinite(a) or a <= 0:
+        return DiskMargin(max(a, 0.0) if np.isfinite(a) else np.inf, s, 1.0, 1.0, 0.0, w_rad_s) if a <= 0 or np.isnan(a) else DiskMargin(np.inf, s, 0.0, np.inf, 180.0, w_rad_s)
+    lo = (1.0 - a * (1.0 - s) / 2.0) / (1.0 + a * (1.0 + s) / 2.0)
+    den = 1.0 - a * (1.0 + s) / 2.0
+    hi = (1.0 + a * (1.0 - s) / 2.0) / den if den > 0 else np.inf
+    lo = max(lo, 0.0)
+    if np.isinf(hi):
+        c = lo
+    else:
+        c = (1.0 + lo * hi) / (lo + hi)
+    phase = float(np.degrees(np.arccos(np.clip(c, -1.0, 1.0))))
+    return DiskMargin(a, s, float(lo), float(hi), phase, w_rad_s)
+
+
+def closed_loop_matrix(A, B, C, D, g: float = 1.0) -> np.ndarray:
+    """State matrix of the loop ``g L`` closed negatively: ``A - g B (I + g D)^-1 C``."""
+    A, B, C, D = _as_system(A, B, C, D)
+    M = np.eye(D.shape[0]) + g * D
+    return A - g * B @ np.linalg.solve(M, C)
+
+
+def sensitivity_system(A, B, C, D, *, offset: float = 0.0):
+    """State space of ``S + offset I`` with ``S = (I + L)^-1``; ``L`` square.
+
+    Returns
+    -------
+    (A_S, B_S, C_S, D_S) : ndarrays
+    """
+    A, B, C, D = _as_system(A, B, C, D)
+    q = D.shape[0]
+    Mi = np.linalg.inv(np.eye(q) + D)
+    return A - B @ Mi @ C, B @ Mi, -Mi @ C, Mi + offset * np.eye(q)
+
+
+def _ill_posed(D: np.ndarray) -> bool:
+    q = D.shape[0]
+    return abs(np.linalg.det(np.eye(q) + D)) < 1e-12 * max(1.0, np.linalg.norm(D, 1)) ** q
+
+
+def _grid_for(A, B, C, D) -> np.ndarray:
+    poles = sla.eigvals(A) if A.size else np.zeros(0)
+    try:
+        zeros = transmission_zeros(A, B, C, D)
+    except (np.linalg.LinAlgError, ValueError):
+        zeros = np.zeros(0)
+    return auto_frequency_grid(poles, zeros, points_per_decade=80, decades_beyond=3.0)
+
+
+def _wrap180(x):
+    """Wrap degrees into (-180, 180]."""
+    y = np.mod(np.asarray(x, dtype=float) + 180.0, 360.0) - 180.0
+    return np.where(y == -180.0, 180.0, y)
+
+
+def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
+    """All margins of a scalar loop transfer ``L(s) = C (sI - A)^-1 B + D``.
+
+    Parameters
+    ----------
+    A, B, C, D : array_like
+        A SISO realisation of ``L`` (shapes (n, n), (n, 1), (1, n), (1, 1)).
+    skew : float
+        Skew ``sigma`` of the disk margin (0: balanced disk; 1: gains above nominal only
+        trusted less, as for LQR's ``[1/2, inf)``).
+
+    Returns
+    -------
+    LoopMargins
+
+    Raises
+    ------
+    AnalysisError
+        ``L`` is not scalar, or ``1 + L(inf) = 0`` (the closed loop is not proper).
+    """
+    A, B, C, D = _as_system(A, B, C, D)
+    if B.shape[1] != 1 or C.shape[0] != 1:
+        raise AnalysisError(f"loop_margins needs a scalar loop; L is {C.shape[0]}x{B.shape[1]} (use vector_loop_margins)")
+    if _ill_posed(D):
+        raise AnalysisError("1 + L(inf) = 0: the closed loop has no proper solution at this break")
+    n = A.shape[0]
+    red = reduce_model(A)
+    Bt, Ct = red.input_matrix(B), red.output_matrix(C)
+
+    def Ljw(w):
+        return reduced_response(red, Bt, Ct, D, 1j * np.atleast_1d(np.asarray(w, dtype=float)))[:, 0, 0]
+
+    ol_unstable = int(np.sum(red.poles.real >= 0)) if n else 0
+    grid = _grid_for(A, B, C, D)
+    L = Ljw(grid)
+    finite = np.isfinite(L)
+    grid, L = grid[finite], L[finite]
+
+    # --- gain crossovers |L| = 1 -------------------------------------------------------
+    logmag = np.log(np.abs(L) + 1e-300)
+    crossings = _refine_roots(lambda w: np.log(np.abs(Ljw(w)[0]) + 1e-300), grid, logmag)
+    wc = np.array(crossings)
+    pms = _wrap180(np.degrees(np.angle(Ljw(wc))) + 180.0) if wc.size else np.zeros(0)
+    if wc.size:
+        i = int(np.argmin(np.abs(pms)))
+        pm, pm_w = float(pms[i]), float(wc[i])
+        lag = np.mod(np.degrees(np.angle(Ljw(wc))) + 180.0, 360.0)
+        with np.errstate(divide="ignore"):
+            delays = np.where(wc > 0, np.radians(lag) / wc, np.inf)
+        dm = float(np.min(delays))
+    else:
+        pm, pm_w, dm = np.inf, np.nan, np.inf
+
+    # --- critical gains: L(jw) real and negative ----------------------------------------
+    crit: list[tuple[float, float]] = []  # (gain, w)
+    imag = L.imag
+    for w in _refine_roots(lambda w: Ljw(w)[0].imag, grid, imag):
+        val = Ljw(w)[0]
+        if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val):
+            crit.append((-1.0 / val.real, float(w)))
+    if n == 0 or _nonsingular(A):
+        L0 = Ljw(0.0)[0]
+        if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0):
+            crit.append((-1.0 / L0.real, 0.0))
+    d = float(D[0, 0])
+    if d < 0:
+        crit.append((-1.0 / d, np.inf))
+    crit.sort()
+    phase_cross = sorted({w for _, w in crit})
+    # classify the intervals between critical gains by closed-loop pole count
+    edges = [0.0] + [g for g, _ in crit] + [np.inf]
+
+    def stable_at(g):
+        if abs(1.0 + g * d) < 1e-14:
+            return False
+        return is_stable_matrix(closed_loop_matrix(A, B, C, D, g))
+
+    nominal = stable_at(1.0)
+    msg = ""
+    if nominal:
+        lo_g, hi_g, lo_w, hi_w = 0.0, np.inf, np.nan, np.nan
+        for g, w in crit:
+            if g < 1.0 and g >= lo_g:
+                lo_g, lo_w = g, w
+            if g > 1.0 and g < hi_g:
+                hi_g, hi_w = g, w
+            if g == 1.0:
+                nominal = False
+        if lo_g == 0.0:
+            lo_w = np.nan
+    if not nominal:
+        lo_g = hi_g = lo_w = hi_w = np.nan
+        stable_ranges = []
+        for a, b in zip(edges[:-1], edges[1:]):
+            mid = np.sqrt(a * b) if a > 0 and np.isfinite(b) else (b / 2.0 if a == 0 and np.isfinite(b) else (2.0 * a if a > 0 else 1.0))
+            if stable_at(mid):
+                stable_ranges.append((a, b))
+        msg = "the closed loop is unstable at nominal gain" + (
+            "; it is stable for gains in " + ", ".join(f"({a:.6g}, {b:.6g})" for a, b in stable_ranges) if stable_ranges else ""
+        )
+
+    # --- sensitivity and disk margins ---------------------------------------------------
+    if nominal:
+        As, Bs, Cs, Ds = sensitivity_system(A, B, C, D)
+        ps = peak_gain(As, Bs, Cs, Ds)
+        pk_d = peak_gain(As, Bs, Cs, Ds + (skew - 1.0) / 2.0)
+        disk = disk_margin_from_alpha(1.0 / pk_d.value if pk_d.value > 0 else np.inf, skew=skew, w_rad_s=pk_d.w_rad_s)
+        s_peak, s_w = ps.value, ps.w_rad_s
+    else:
+        s_peak, s_w = np.inf, np.nan
+        disk = DiskMargin(0.0, skew, 1.0, 1.0, 0.0, np.nan)
+        dm = np.nan if not nominal else dm
+    return LoopMargins(
+        closed_loop_stable=bool(nominal),
+        open_loop_unstable_poles=ol_unstable,
+        gain_lower=float(lo_g),
+        gain_upper=float(hi_g),
+        gain_lower_w_rad_s=float(lo_w),
+        gain_upper_w_rad_s=float(hi_w),
+        phase_margin_deg=pm,
+        phase_margin_w_rad_s=pm_w,
+        delay_margin_s=dm,
+        gain_crossovers_w_rad_s=[float(x) for x in wc],
+        phase_margins_deg=[float(x) for x in pms],
+        phase_crossovers_w_rad_s=[float(x) for x in phase_cross],
+        peak_sensitivity=float(s_peak),
+        peak_sensitivity_w_rad_s=float(s_w),
+        disk=disk,
+        message=msg,
+    )
+
+
+def _nonsingular(A) -> bool:
+    if A.size == 0:
+        return True
+    s = np.linalg.svd(A, compute_uv=False)
+    return bool(s[-1] > 1e-12 * max(1.0, s[0]))
+
+
+def _refine_roots(f, grid: np.ndarray, values: np.ndarray) -> list[float]:
+    """Roots of ``f`` on ``(grid[0], grid[-1])``, bracketed by sign changes of ``values``."""
+    roots = []
+    v = np.asarray(values, dtype=float)
+    for i in np.nonzero(np.sign(v[:-1]) * np.sign(v[1:]) < 0)[0]:
+        a, b = grid[i], grid[i + 1]
+        try:
+            # work in log-frequency: crossings are evenly resolved across decades
+            r = sopt.brentq(lambda lw: f(np.exp(lw)), np.log(a), np.log(b), xtol=1e-15, rtol=1e-15, maxiter=200)
+            roots.append(float(np.exp(r)))
+        except ValueError:
+            continue
+    for i in np.nonzero(v == 0)[0]:
+        roots.append(float(grid[i]))
+    return sorted(set(roots))
+
+
+def _close_channels(A, B, C, D, keep: int):
+    """Scalar loop seen at channel ``keep`` of a square loop ``L`` with the others closed.
+
+    With ``G = -L`` (the break's transfer), closing channel ``j`` means ``b_j = z_j``.
+    """
+    q = D.shape[0]
+    J = [j for j in range(q) if j != keep]
+    G_C, G_D = -C, -D
+    if not J:
+        return A, B, C, D
+    Dj = G_D[np.ix_(J, J)]
+    M = np.eye(len(J)) - Dj
+    # b_J = M^-1 (C_J x + D_Ji b_i)
+    K1 = np.linalg.solve(M, G_C[J, :])
+    K2 = np.linalg.solve(M, G_D[np.ix_(J, [keep])])
+    Ac = A + B[:, J] @ K1
+    Bc = B[:, [keep]] + B[:, J] @ K2
+    Cg = G_C[[keep], :] + G_D[np.ix_([keep], J)] @ K1
+    Dg = G_D[np.ix_([keep], [keep])] + G_D[np.ix_([keep], J)] @ K2
+    return Ac, Bc, -Cg, -Dg
+
+
+def vector_loop_margins(A, B, C, D=None, *, skew: float = 0.0, channel_names=None) -> VectorLoopMargins:
+    """Margins of a square vector loop ``L`` (q x q).
+
+    Returns loop-at-a-time margins for each channel (the others closed) and the
+    all-loops-at-once (unstructured) disk margin ``1/||S + (skew - 1)/2 I||_inf``.
+    """
+    A, B, C, D = _as_system(A, B, C, D)
+    q = D.shape[0]
+    if D.shape[1] != q:
+        raise AnalysisError(f"a loop transfer must be square; got {D.shape[0]}x{D.shape[1]}")
+    if _ill_posed(D):
+        raise AnalysisError("det(I + L(inf)) = 0: the closed loop has no proper solution at this break")
+    stable = is_stable_matrix(closed_loop_matrix(A, B, C, D))
+    chans = [loop_margins(*_close_channels(A, B, C, D, i), skew=skew) for i in range(q)]
+    if stable:
+        As, Bs, Cs, Ds = sensitivity_system(A, B, C, D)
+        ps = peak_gain(As, Bs, Cs, Ds)
+        pk = peak_gain(As, Bs, Cs, Ds + (skew - 1.0) / 2.0 * np.eye(q))
+        disk = disk_margin_from_alpha(1.0 / pk.value if pk.value > 0 else np.inf, skew=skew, w_rad_s=pk.w_rad_s)
+        s_peak, s_w = ps.value, ps.w_rad_s
+    else:
+        disk = DiskMargin(0.0, skew, 1.0, 1.0, 0.0, np.nan)
+        s_peak, s_w = np.inf, np.nan
+    names = list(channel_names) if channel_names is not None else [f"[{i + 1}]" for i in range(q)]
+    return VectorLoopMargins(bool(stable), chans, disk, float(s_peak), float(s_w), names)
+
+
+def margins_from_response(
+    w_rad_s,
+    L_jw,
+    *,
+    open_loop_unstable_poles: int = 0,
+    poles_at_origin: int = 0,
+    skew: float = 0.0,
+) -> LoopMargins:
+    """Margins of a scalar loop known only by samples ``L(jw)`` (e.g. a sampled-data loop).
+
+    Crossings are located on the grid and refined by interpolation (linear in log
+    frequency for ``log|L|`` and for ``Im L``); peak sensitivity and the disk margin are
+    the grid maxima refined by a parabola through the three points around the peak.
+    Stability of ``g L`` is decided by counting encirclements of ``-1/g`` by the Nyquist
+    contour built from the samples (mirrored for negative frequencies, with the arc of
+    ``poles_at_origin`` integrators), ``Z = P + N_clockwise``.
+
+    Parameters
+    ----------
+    w_rad_s : (k,) array_like
+        Increasing frequencies in rad/s (dense enough that the phase moves less than
+        180 deg between samples).
+    L_jw : (k,) array_like of complex
+    open_loop_unstable_poles : int
+        ``P``: open-loop poles in the open right half-plane.
+    poles_at_origin : int
+        Integrators in the loop (poles at ``s = 0``).
+    skew : float
+
+    Returns
+    -------
+    LoopMargins
+    """
+    w = np.asarray(w_rad_s, dtype=float).ravel()
+    L = np.asarray(L_jw, dtype=complex).ravel()
+    if w.shape != L.shape or w.size < 3:
+        raise AnalysisError(f"need matching w and L samples (at least 3); got {w.size} and {L.size}")
+    ok = np.isfinite(L) & (w >= 0)
+    w, L = w[ok], L[ok]
+    order = np.argsort(w)
+    w, L = w[order], L[order]
+    lw = np.log(np.maximum(w, 1e-300))
+    mag = np.abs(L)
+    ph = np.unwrap(np.angle(L))
+    # gain crossovers
+    lm = np.log(mag + 1e-300)
+    wc, phc = [], []
+    for i in np.nonzero(np.sign(lm[:-1]) * np.sign(lm[1:]) < 0)[0]:
+        t = lm[i] / (lm[i] - lm[i + 1])
+        wc.append(float(np.exp(lw[i] + t * (lw[i + 1] - lw[i]))) if w[i] > 0 else float(w[i] + t * (w[i + 1] - w[i])))
+        phc.append(float(ph[i] + t * (ph[i + 1] - ph[i])))
+    wc_a, phc_a = np.array(wc), np.degrees(np.array(phc))
+    pms = _wrap180(phc_a + 180.0) if wc else np.zeros(0)
+    if wc:
+        i = int(np.argmin(np.abs(pms)))
+        pm, pm_w = float(pms[i]), float(wc_a[i])
+        dm = float(np.min(np.radians(np.mod(phc_a + 180.0, 360.0)) / np.where(wc_a > 0, wc_a, np.nan)))
+    else:
+        pm, pm_w, dm = np.inf, np.nan, np.inf
+    # critical gains
+    crit = []
+    im = L.imag
+    for i in np.nonzero(np.sign(im[:-1]) * np.sign(im[1:]) < 0)[0]:
+        t = im[i] / (im[i] - im[i + 1])
+        re = L[i].real + t * (L[i + 1].real - L[i].real)
+        wx = float(np.exp(lw[i] + t * (lw[i + 1] - lw[i]))) if w[i] > 0 else float(w[i] + t * (w[i + 1] - w[i]))
+        if re < 0:
+            crit.append((-1.0 / re, wx))
+    # the lowest sample stands for w -> 0 when the loop has no integrator and is (nearly)
+    # real there
+    if poles_at_origin == 0 and L[0].real < 0 and abs(L[0].imag) <= (1e-9 if w[0] == 0 else 1e-3) * abs(L[0]):
+        crit.append((-1.0 / L[0].real, float(w[0])))
+    crit.sort()
+    contour = _nyquist_contour(w, L, poles_at_origin)
+
+    def stable_at(g):
+        q = -1.0 / g
+        z = contour - q
+        ang = np.angle(z)
+        dang = np.diff(np.concatenate([ang, ang[:1]]))
+        dang = np.mod(dang + np.pi, 2 * np.pi) - np.pi
+        ccw = int(np.round(np.sum(dang) / (2 * np.pi)))
+        return open_loop_unstable_poles - ccw == 0
+
+    nominal = stable_at(1.0)
+    if nominal:
+        lo_g, hi_g, lo_w, hi_w = 0.0, np.inf, np.nan, np.nan
+        for g, wx in crit:
+            if g < 1.0 and g >= lo_g:
+                lo_g, lo_w = g, wx
+            if g > 1.0 and g < hi_g:
+                hi_g, hi_w = g, wx
+        msg = ""
+    else:
+        lo_g = hi_g = lo_w = hi_w = np.nan
+        msg = "the closed loop is unstable at nominal gain (Nyquist count)"
+    S = 1.0 / (1.0 + L)
+    s_peak, s_w = _grid_peak(w, np.abs(S))
+    dpk, dw = _grid_peak(w, np.abs(S + (skew - 1.0) / 2.0))
+    if nominal:
+        disk = disk_margin_from_alpha(1.0 / dpk if dpk > 0 else np.inf, skew=skew, w_rad_s=dw)
+    else:
+        disk = DiskMargin(0.0, skew, 1.0, 1.0, 0.0, np.nan)
+        s_peak, s_w, dm = np.inf, np.nan, np.nan
+    return LoopMargins(
+        bool(nominal), int(open_loop_unstable_poles), float(lo_g), float(hi_g), float(lo_w), float(hi_w),
+        pm, pm_w, dm, [float(x) for x in wc_a], [float(x) for x in pms], sorted({wx for _, wx in crit}),
+        float(s_peak), float(s_w), disk, msg,
+    )
+
+
+def _grid_peak(w: np.ndarray, g: np.ndarray) -> tuple[float, float]:
+    i = int(np.argmax(g))
+    if 0 < i < g.size - 1:
+        x = np.log(np.maximum(w[i - 1 : i + 2], 1e-300)) if w[i - 1] > 0 else w[i - 1 : i + 2]
+        y = g[i - 1 : i + 2]
+        den = (x[0] - x[1]) * (x[0] - x[2]) * (x[1] - x[2])
+        if den != 0:
+            a = (x[2] * (y[1] - y[0]) + x[1] * (y[0] - y[2]) + x[0] * (y[2] - y[1])) / den
+            b = (x[2] ** 2 * (y[0] - y[1]) + x[1] ** 2 * (y[2] - y[0]) + x[0] ** 2 * (y[1] - y[2])) / den
+            if a < 0:
+                xv = -b / (2 * a)
+                c = y[1] - a * x[1] ** 2 - b * x[1]
+                yv = a * xv * xv + b * xv + c
+                if yv >= g[i] and x[0] <= xv <= x[2]:
+                    return float(yv), float(np.exp(xv) if w[i - 1] > 0 else xv)
+    return float(g[i]), float(w[i])
+
+
+def _nyquist_contour(w: np.ndarray, L: np.ndarray, k: int) -> np.ndarray:
+    pos = L[w > 0] if k > 0 else L
+    neg = np.conj(pos[::-1])
+    parts = [neg]
+    if k > 0 and pos.size:
+        theta = np.linspace(-np.pi / 2, np.pi / 2, 60 * k + 1)
+        parts.append(pos[0] * np.exp(1j * k * (np.pi / 2 - theta)))
+    parts.append(pos)
+    return np.concatenate(parts)
+
+
+# ---------------------------------------------------------------------------------------
+# diagram level
+
+
+def loop_transfer(diagram, signal: str):
+    """``L = -G(break:signal -> signal)`` of the diagram opened at ``signal``.
+
+    Returns
+    -------
+    (A, B, C, D) : ndarrays
+        Realisation of ``L`` (all states of the diagram; hidden ones are harmless).
+    """
+    from loopwright.engine.interconnect import assemble
+
+    sig = _resolve_break(diagram, signal)
+    model = assemble(diagram, break_at=sig)
+    A, B, C, D = model.pair(f"break:{sig}", sig)
+    return A, B, -C, -D
+
+
+def _resolve_break(diagram, signal: str) -> str:
+    names = [w.name for w in diagram.wires.values()]
+    if signal in names:
+        return signal
+    import difflib
+
+    sugg = difflib.get_close_matches(signal, names, n=3, cutoff=0.4)
+    raise UnknownNameError(
+        f"cannot break the loop at {signal!r}: no wire carries that signal"
+        + (f"; did you mean {', '.join(sugg)}?" if sugg else f"; wires: {', '.join(names)}"),
+        suggestions=sugg,
+    )
+
+
+def margins_at(diagram, signal: str, *, skew: float = 0.0):
+    """Margins of the loop broken at ``signal``: :class:`LoopMargins` for a scalar signal,
+    :class:`VectorLoopMargins` for a vector one."""
+    A, B, C, D = loop_transfer(diagram, signal)
+    A, B, C, D = _trim_for_margins(A, B, C, D)
+    if D.shape[0] == 1:
+        return loop_margins(A, B, C, D, skew=skew)
+    names = [f"{signal}[{i + 1}]" for i in range(D.shape[0])]
+    return vector_loop_margins(A, B, C, D, skew=skew, channel_names=names)
+
+
+def _trim_for_margins(A, B, C, D):
+    """Drop the states that neither reach nor see the loop, but only when every state is
+    stable: unstable hidden states must stay so the closed loop is reported unstable."""
+    if is_stable_matrix(A):
+        return minimal_realization(A, B, C, D)
+    return A, B, C, D
+
+
+def sensitivity_maps(diagram, plant: str) -> dict:
+    """The four closed-loop maps around a plant block, from injections.
+
+    With ``u`` the signal into the plant and ``y`` the signal out of it:
+    ``S = G(inject:y -> y)``, ``T = I - S``, ``PS = G(inject:u -> y)``,
+    ``CS = -G(inject:y -> u)``. For the standard loop ``e = r - y``, ``u = C e`` these are
+    ``(I + PC)^-1``, ``PC (I + PC)^-1``, ``P (I + CP)^-1`` and ``C (I + PC)^-1``.
+
+    Returns
+    -------
+    dict
+        ``{"S": (A,B,C,D), "T": ..., "PS": ..., "CS": ..., "u": name, "y": name}``.
+    """
+    from loopwright.engine.diagram import PortRef
+    from loopwright.engine.interconnect import assemble
+
+    blk = diagram.block_by_name(plant)
+    if blk.kind not in ("plant", "dynamic"):
+        raise AnalysisError(f"block {plant!r} is a {blk.kind}; the four maps need a plant block", block_ids=[blk.id])
+    w_in = diagram.wire_into(PortRef(blk.id, "u"))
+    w_out = diagram.wire_from(PortRef(blk.id, "y"))
+    if w_in is None or w_out is None:
+        raise AnalysisError(f"plant {plant!r} must have wired input and output to close a loop around it", block_ids=[blk.id])
+    model = assemble(diagram)
+    u, y = w_in.name, w_out.name
+    S = model.pair(f"inject:{y}", y)
+    A, Bs, Cs, Ds = S
+    q = Ds.shape[0]
+    T = (A, Bs, -Cs, np.eye(q) - Ds)
+    PS = model.pair(f"inject:{u}", y)
+    Acs, Bcs, Ccs, Dcs = model.pair(f"inject:{y}", u)
+    CS = (Acs, Bcs, -Ccs, -Dcs)
+    return {"S": S, "T": T, "PS": PS, "CS": CS, "u": u, "y": y}
+
