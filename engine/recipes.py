@@ -268,8 +268,16 @@ def noise_defaults(diagram: Diagram, estimator: str, *, model: AssembledModel | 
     est = diagram.block_by_name(estimator)
     plant_name = recipe_plant(diagram, est)
     plant = diagram.block_by_name(plant_name)
-    model = assemble(diagram) if model is None else model
     real = realize(plant, diagram)
+    if model is None:
+        # The estimator's current L may not fit a plant that changed size (that is why it is
+        # being re-designed); L only feeds the estimator's states, never the direct
+        # feedthrough traced here, so a zero L of the right shape gives the same answer.
+        probe = diagram.copy()
+        pe = probe.block_by_name(estimator)
+        if pe.params.get("plant") == plant_name:
+            pe.params["L"] = np.zeros((real.A.shape[0], real.C.shape[0])).tolist()
+        model = assemble(probe)
     widths = dict(real.inputs)
     m = widths["u"]
     B_all = real.B
