@@ -1,0 +1,88 @@
+"""Starting the desktop app: ``run_app(path, screenshot)`` is what ``loopwright [FILE]`` calls."""
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+
+from PySide6.QtCore import QSettings
+from PySide6.QtWidgets import QApplication
+
+__all__ = ["run_app", "make_window", "render_screenshot", "SCREENSHOT_SIZE"]
+
+SCREENSHOT_SIZE = (1400, 900)
+
+
+def _application() -> QApplication:
+    app = QApplication.instance()
+    if app is None:
+        app = QApplication(sys.argv[:1])
+    app.setOrganizationName("Loopwright")
+    app.setApplicationName("Loopwright")
+    return app
+
+
+def make_window(path: str | None = None, *, settings: QSettings | None = None, prefs=None, dialogs=None):
+    """A main window, with ``path`` opened (errors shown by the window's dialogs)."""
+    from loopwright.gui.main_window import MainWindow
+    from loopwright.gui.settings import load_preferences
+
+    _application()
+    settings = settings if settings is not None else QSettings()
+    prefs = prefs if prefs is not None else load_preferences(settings)
+    win = MainWindow(settings=settings, prefs=prefs, dialogs=dialogs)
+    if path:
+        win.open_path(path)
+    return win
+
+
+def render_screenshot(win, out: str | Path, *, size=SCREENSHOT_SIZE, timeout_s: float = 20.0) -> bool:
+    """Show ``win`` at ``size``, wait for the live model, fit the view and save a PNG.
+
+    Returns True when the live model was current when the picture was taken.
+    """
+    app = QApplication.instance()
+    win.resize(*size)
+    win.show()
+    win.live.request_now()
+    deadline = time.monotonic() + timeout_s
+    while not win.live.is_current() and time.monotonic() < deadline:
+        app.processEvents()
+        time.sleep(0.01)
+    app.processEvents()
+    win.view.fit_to_view()
+    app.processEvents()
+    ok = win.live.is_current()
+    Path(out).parent.mkdir(parents=True, exist_ok=True)
+    win.grab().save(str(out))
+    return ok
+
+
+def run_app(path: str | None, screenshot: str | None) -> int:
+    """Open the app on ``path`` (or an empty diagram).
+
+    With ``screenshot``, render the window offscreen at a fixed size once the live model
+    is assembled, save the PNG there and return 0 without entering the event loop.
+    """
+    app = _application()
+    if screenshot:
+        from loopwright.gui.settings import load_preferences
+
+        settings = QSettings()
+        prefs = load_preferences(settings, autosave_interval_s=0)
+        win = make_window(None, settings=settings, prefs=prefs)
+        if path and not win.open_path(path):
+            return 2
+        render_screenshot(win, screenshot)
+        win._closing_ok = True
+        win.close()
+        return 0
+    win = make_window(None)
+    if path:
+        win.open_path(path)
+    else:
+        win.offer_recovery()
+    win.show()
+    if path is None and not win.document.diagram.blocks:
+        win.view.fit_to_view()
+    return app.exec()

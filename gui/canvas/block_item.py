@@ -1,0 +1,158 @@
+"""The canvas view of one :class:`loopwright.engine.diagram.Block`.
+
+The item shows the block as the document has it; moving it with the mouse changes only
+the item until the drag ends, when the scene turns the whole drag into one command.
+Painting is cached per device (the body only changes when the block, the selection or
+the problem marking changes), which keeps panning a large diagram smooth.
+"""
+from __future__ import annotations
+
+from PySide6.QtCore import QPointF, QRectF, Qt
+from PySide6.QtGui import QFont, QPainterPath, QPen
+from PySide6.QtWidgets import QGraphicsItem
+
+from loopwright.engine.diagram import Block, PortRef
+from loopwright.gui.canvas.geometry import SOURCE_RADIUS, SUM_RADIUS, port_spots
+from loopwright.gui.canvas.glyphs import body_rect, caption_rect, paint_block
+from loopwright.gui.canvas.port_item import PortItem
+
+__all__ = ["BlockItem"]
+
+
+class BlockItem(QGraphicsItem):
+    """One block; ``block_id`` ties it to the document."""
+
+    Type = QGraphicsItem.UserType + 1
+
+    def __init__(self, block: Block, theme, *, font: QFont, grid: float = 10.0):
+        super().__init__()
+        self.block_id = block.id
+        self._block = block
+        self._theme = theme
+        self._font = font
+        self._grid = grid
+        self._problems: list[str] = []
+        self._highlighted = False
+        self._syncing = False
+        self.ports: dict[tuple[str, bool], PortItem] = {}
+        self.setFlags(
+            QGraphicsItem.GraphicsItemFlag.ItemIsMovable
+            | QGraphicsItem.GraphicsItemFlag.ItemIsSelectable
+            | QGraphicsItem.GraphicsItemFlag.ItemSendsGeometryChanges
+        )
+        self.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
+        self.setZValue(1)
+        self.sync(block)
+
+    def type(self) -> int:
+        return self.Type
+
+    @property
+    def block(self) -> Block:
+        return self._block
+
+    # ---- from the document -----------------------------------------------------------
+    def sync(self, block: Block) -> None:
+        """Show ``block`` as it is now (position, ports, symbol)."""
+        self.prepareGeometryChange()
+        self._block = block
+        self._syncing = True
+        self.setPos(float(block.layout.get("x", 0.0)), float(block.layout.get("y", 0.0)))
+        self._syncing = False
+        spots = port_spots(block)
+        wanted = {(s.name, s.is_input) for s in spots}
+        for key in list(self.ports):
+            if key not in wanted:
+                item = self.ports.pop(key)
+                item.setParentItem(None)
+                if item.scene() is not None:
+                    item.scene().removeItem(item)
+        for s in spots:
+            key = (s.name, s.is_input)
+            if key not in self.ports:
+                self.ports[key] = PortItem(self, PortRef(block.id, s.name), is_input=s.is_input, normal=s.normal, theme=self._theme)
+            port = self.ports[key]
+            port.normal = s.normal
+            port.setPos(s.x, s.y)
+        self._refresh_tooltip()
+        self.update()
+
+    def set_theme(self, theme) -> None:
+        self._theme = theme
+        for p in self.ports.values():
+            p.set_theme(theme)
+        self.update()
+
+    def set_problems(self, messages: list[str]) -> None:
+        if messages != self._problems:
+            self._problems = list(messages)
+            self._refresh_tooltip()
+            self.update()
+
+    @property
+    def problems(self) -> list[str]:
+        return list(self._problems)
+
+    def set_highlighted(self, on: bool) -> None:
+        if on != self._highlighted:
+            self._highlighted = on
+            self.update()
+
+    def _refresh_tooltip(self) -> None:
+        b = self._block
+        tip = f"{b.kind} {b.name}" + (f" — {b.caption}" if b.caption else "")
+        if self._problems:
+            tip += "\n" + "\n".join(f"⚠ {m}" for m in self._problems)
+        self.setToolTip(tip)
+
+    # ---- geometry ----------------------------------------------------------------------
+    def port(self, name: str, *, is_input: bool) -> PortItem | None:
+        return self.ports.get((name, is_input))
+
+    def port_scene_pos(self, name: str, *, is_input: bool) -> QPointF:
+        p = self.ports.get((name, is_input))
+        return self.mapToScene(p.pos()) if p is not None else self.scenePos()
+
+    def body_scene_rect(self) -> QRectF:
+        return self.mapRectToScene(body_rect(self._block))
+
+    def boundingRect(self) -> QRectF:
+        r = body_rect(self._block).adjusted(-46, -24, 46, 24)
+        if self._block.caption:
+            r = r.united(caption_rect(self._block))
+        return r
+
+    def shape(self) -> QPainterPath:
+        path = QPainterPath()
+        if self._block.kind == "sum":
+            path.addEllipse(QPointF(0, 0), SUM_RADIUS + 2, SUM_RADIUS + 2)
+        elif self._block.kind == "source":
+            path.addEllipse(QPointF(0, 0), SOURCE_RADIUS + 2, SOURCE_RADIUS + 2)
+        else:
+            path.addRect(body_rect(self._block))
+        return path
+
+    def paint(self, painter, option, widget=None) -> None:
+        paint_block(
+            painter, self._block, self._theme,
+            selected=self.isSelected(), problem=bool(self._problems), highlighted=self._highlighted, font=self._font,
+        )
+        if self._block.caption:
+            f = QFont(self._font)
+            f.setPointSizeF(self._font.pointSizeF() * 0.85)
+            painter.setFont(f)
+            painter.setPen(QPen(self._theme.caption))
+            painter.drawText(caption_rect(self._block), Qt.AlignmentFlag.AlignHCenter | Qt.AlignmentFlag.AlignTop, self._block.caption)
+
+    # ---- dragging ------------------------------------------------------------------------
+    def itemChange(self, change, value):
+        if change == QGraphicsItem.GraphicsItemChange.ItemPositionChange and not self._syncing and self._grid > 0:
+            g = self._grid
+            return QPointF(round(value.x() / g) * g, round(value.y() / g) * g)
+        if change == QGraphicsItem.GraphicsItemChange.ItemPositionHasChanged:
+            scene = self.scene()
+            if scene is not None and hasattr(scene, "block_item_moved"):
+                scene.block_item_moved(self)
+        if change == QGraphicsItem.GraphicsItemChange.ItemSelectedHasChanged:
+            self.update()
+        return super().itemChange(change, value)

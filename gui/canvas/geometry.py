@@ -1,0 +1,217 @@
+"""Shapes of blocks and orthogonal wire routes, as plain numbers (no Qt).
+
+Every block is drawn around its centre ``(x, y)`` from the layout. Port positions are
+given in the block's own frame (inputs on the left, outputs on the right, signal flowing
+left to right) and turned by :func:`orient`: first the optional mirror (``flip``, so a
+feedback path can run right to left), then the rotation (degrees, clockwise on screen,
+multiple of 90).
+
+Routes are lists of points; consecutive points differ in x or in y only.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from loopwright.engine.diagram import Block
+from loopwright.engine.ports import input_ports, output_ports
+
+__all__ = [
+    "PortSpot",
+    "block_size",
+    "orient",
+    "port_spots",
+    "route",
+    "orthogonalize",
+    "simplify",
+    "STUB",
+    "SUM_RADIUS",
+    "SOURCE_RADIUS",
+]
+
+STUB = 14.0
+SUM_RADIUS = 15.0
+SOURCE_RADIUS = 14.0
+
+_SIZES = {
+    "plant": (96.0, 56.0),
+    "dynamic": (96.0, 56.0),
+    "gain": (60.0, 44.0),
+    "integrator": (52.0, 44.0),
+    "estimator": (116.0, 76.0),
+    "sum": (2 * SUM_RADIUS, 2 * SUM_RADIUS),
+    "source": (2 * SOURCE_RADIUS, 2 * SOURCE_RADIUS),
+}
+
+
+@dataclass(frozen=True)
+class PortSpot:
+    """Where a port sits relative to its block's centre, and which way it faces.
+
+    ``normal`` points away from the block: the way a wire leaves an output, or the way
+    a wire comes from when it enters an input.
+    """
+
+    name: str
+    is_input: bool
+    x: float
+    y: float
+    normal: tuple[float, float]
+
+
+def block_size(block: Block) -> tuple[float, float]:
+    """(width, height) of the unrotated body in scene units."""
+    w, h = _SIZES.get(block.kind, (80.0, 50.0))
+    if block.kind in ("plant", "dynamic", "gain"):
+        n = max(len(input_ports(block)), len(output_ports(block)))
+        h = max(h, 24.0 * n)
+    return w, h
+
+
+def orient(x: float, y: float, rotation: float, flip: bool) -> tuple[float, float]:
+    """Map a point of the block's own frame to the drawn frame (mirror, then rotate)."""
+    if flip:
+        x = -x
+    quarter = int(round(rotation / 90.0)) % 4
+    c, s = ((1, 0), (0, 1), (-1, 0), (0, -1))[quarter]
+    return (c * x - s * y, s * x + c * y)
+
+
+def _sum_input_offsets(n: int) -> list[tuple[float, float]]:
+    # Textbook habit: the first input from the left, the second (usually the feedback)
+    # from below, a third from above, any further ones spread over the left arc.
+    spots = [(-1.0, 0.0), (0.0, 1.0), (0.0, -1.0)]
+    extra = n - 3
+    for k in range(max(extra, 0)):
+        ang = math.radians(180.0 + (k + 1) * 90.0 / (extra + 1) * (1 if k % 2 == 0 else -1) * 0.9)
+        spots.append((math.cos(ang), math.sin(ang)))
+    return spots[:n]
+
+
+def port_spots(block: Block) -> list[PortSpot]:
+    """Every port of ``block`` with its oriented position and outward normal."""
+    rot = float(block.layout.get("rotation", 0) or 0)
+    flip = bool(block.layout.get("flip", False))
+    ins, outs = input_ports(block), output_ports(block)
+    w, h = block_size(block)
+    raw: list[tuple[str, bool, float, float, float, float]] = []
+    if block.kind == "sum":
+        r = SUM_RADIUS
+        for name, (ux, uy) in zip(ins, _sum_input_offsets(len(ins))):
+            raw.append((name, True, ux * r, uy * r, ux, uy))
+        raw.append(("out", False, r, 0.0, 1.0, 0.0))
+    else:
+        for k, name in enumerate(ins):
+            raw.append((name, True, -w / 2, -h / 2 + h * (k + 0.5) / len(ins), -1.0, 0.0))
+        for k, name in enumerate(outs):
+            raw.append((name, False, w / 2, -h / 2 + h * (k + 0.5) / len(outs), 1.0, 0.0))
+    spots = []
+    for name, is_in, x, y, nx, ny in raw:
+        px, py = orient(x, y, rot, flip)
+        qx, qy = orient(nx, ny, rot, flip)
+        spots.append(PortSpot(name, is_in, px, py, (qx, qy)))
+    return spots
+
+
+def _sgn(v: float) -> int:
+    return (v > 1e-9) - (v < -1e-9)
+
+
+def orthogonalize(points: list[tuple[float, float]], *, first_horizontal: bool = True) -> list[tuple[float, float]]:
+    """Insert elbows so that every segment is horizontal or vertical.
+
+    Each elbow turns away from the direction of the previous segment, so a chain of
+    user bends stays a staircase instead of doubling back.
+    """
+    if not points:
+        return []
+    out = [tuple(points[0])]
+    last_horizontal = not first_horizontal
+    for nxt in points[1:]:
+        cur = out[-1]
+        dx, dy = abs(cur[0] - nxt[0]) > 1e-9, abs(cur[1] - nxt[1]) > 1e-9
+        if dx and dy:
+            # The elbow's second leg runs the same way as the previous segment did.
+            out.append((cur[0], nxt[1]) if last_horizontal else (nxt[0], cur[1]))
+        elif dx or dy:
+            last_horizontal = dx
+        out.append(tuple(nxt))
+    return out
+
+
+def simplify(points: list[tuple[float, float]]) -> list[tuple[float, float]]:
+    """Drop repeated points and the middle of three collinear ones (keeps the ends)."""
+    pts: list[tuple[float, float]] = []
+    for p in points:
+        if pts and abs(pts[-1][0] - p[0]) < 1e-9 and abs(pts[-1][1] - p[1]) < 1e-9:
+            continue
+        pts.append(p)
+    k = 1
+    while k < len(pts) - 1:
+        a, b, c = pts[k - 1], pts[k], pts[k + 1]
+        if (abs(a[0] - b[0]) < 1e-9 and abs(b[0] - c[0]) < 1e-9) or (abs(a[1] - b[1]) < 1e-9 and abs(b[1] - c[1]) < 1e-9):
+            # Keep a reversal (a spike) out of the route as well.
+            del pts[k]
+            k = max(k - 1, 1)
+        else:
+            k += 1
+    return pts
+
+
+def route(
+    p: tuple[float, float],
+    dp: tuple[float, float],
+    q: tuple[float, float],
+    dq: tuple[float, float],
+    *,
+    bends: list | None = None,
+    detour_y: float | None = None,
+    gap_y: float | None = None,
+    stub: float = STUB,
+) -> list[tuple[float, float]]:
+    """Orthogonal route from an output at ``p`` (facing ``dp``) to an input at ``q`` (facing ``dq``).
+
+    ``bends`` are the user's interior points (kept as given, elbows added between them);
+    without them an automatic route is chosen. A wire that has to run backwards (a
+    feedback path) takes the lane ``gap_y`` between the two blocks when they are stacked
+    with room between them, else the lane ``detour_y`` below both.
+    """
+    a = (p[0] + dp[0] * stub, p[1] + dp[1] * stub)
+    b = (q[0] + dq[0] * stub, q[1] + dq[1] * stub)
+    if bends:
+        mid = orthogonalize([a] + [tuple(map(float, pt)) for pt in bends] + [b], first_horizontal=abs(dp[0]) > 0.5)
+        return simplify([p] + mid + [q])
+    hp, hq = abs(dp[0]) > 0.5, abs(dq[0]) > 0.5
+    if hp and hq:
+        pts = _route_parallel(a, b, dp[0], dq[0], detour=gap_y if gap_y is not None else detour_y, axis=0)
+    elif not hp and not hq:
+        swapped = _route_parallel((a[1], a[0]), (b[1], b[0]), dp[1], dq[1], detour=None, axis=0)
+        pts = [(y, x) for x, y in swapped]
+    elif hp:
+        corner = (b[0], a[1])
+        if _sgn(b[1] - a[1]) == -_sgn(dq[1]) and _sgn(b[0] - a[0]) * dp[0] >= 0:
+            pts = [a, corner, b]
+        else:
+            pts = [a, (a[0], b[1]), b]
+    else:
+        corner = (a[0], b[1])
+        if _sgn(b[0] - a[0]) == -_sgn(dq[0]) and _sgn(b[1] - a[1]) * dp[1] >= 0:
+            pts = [a, corner, b]
+        else:
+            pts = [a, (b[0], a[1]), b]
+    return simplify([p] + pts + [q])
+
+
+def _route_parallel(a, b, da: float, db: float, *, detour: float | None, axis: int):
+    """Both ends face along x: forward (mid-x), same way (outer x), or backward (a lane)."""
+    ahead = (b[0] - a[0]) * da
+    if db == -da and ahead >= 0:
+        if abs(a[1] - b[1]) < 1e-9:
+            return [a, b]
+        m = (a[0] + b[0]) / 2.0
+        return [a, (m, a[1]), (m, b[1]), b]
+    if db == da:
+        xe = max(a[0], b[0]) if da > 0 else min(a[0], b[0])
+        return [a, (xe, a[1]), (xe, b[1]), b]
+    lane = detour if detour is not None else max(a[1], b[1]) + 40.0
+    return [a, (a[0], lane), (b[0], lane), b]

@@ -1,0 +1,251 @@
+"""Painting of block bodies and symbols, one function per kind (no state).
+
+The body (box, circle, source glyph) follows the block's orientation; text is always
+drawn upright so a mirrored feedback block stays readable.
+"""
+from __future__ import annotations
+
+from PySide6.QtCore import QPointF, QRectF, Qt
+from PySide6.QtGui import QBrush, QFont, QFontMetricsF, QPainterPath, QPen, QTransform
+
+from loopwright.engine.diagram import Block
+from loopwright.gui.canvas.geometry import SOURCE_RADIUS, SUM_RADIUS, block_size, port_spots
+
+__all__ = ["symbol_text", "paint_block", "body_rect", "caption_rect", "format_poly"]
+
+
+def _fmt(v: float) -> str:
+    if float(v).is_integer() and abs(v) < 1e6:
+        return str(int(v))
+    return f"{v:.3g}"
+
+
+def format_poly(coeffs) -> str:
+    """``[1, 3, 2]`` -> ``s² + 3s + 2`` (short form for drawing only)."""
+    try:
+        cs = [float(c) for c in coeffs]
+    except (TypeError, ValueError):
+        return "?"
+    n = len(cs) - 1
+    sup = {2: "²", 3: "³", 4: "⁴", 5: "⁵", 6: "⁶", 7: "⁷", 8: "⁸", 9: "⁹"}
+    terms = []
+    for k, c in enumerate(cs):
+        p = n - k
+        if c == 0:
+            continue
+        mag = abs(c)
+        var = "" if p == 0 else ("s" if p == 1 else f"s{sup.get(p, '^' + str(p))}")
+        coef = _fmt(mag) if (mag != 1 or p == 0) else ""
+        sign = "-" if c < 0 else "+"
+        terms.append((sign, f"{coef}{var}"))
+    if not terms:
+        return "0"
+    text = ("-" if terms[0][0] == "-" else "") + terms[0][1]
+    for sign, t in terms[1:]:
+        text += f" {sign} {t}"
+    return text
+
+
+def symbol_text(block: Block) -> tuple[str, str | None]:
+    """(main symbol, denominator or None) drawn inside the block."""
+    p = block.params
+    if block.kind == "integrator":
+        return "1", "s"
+    if block.kind == "dynamic":
+        if "num" in p and "den" in p and _is_siso(p["num"]) and _is_siso(p["den"]):
+            num, den = format_poly(p["num"]), format_poly(p["den"])
+            if len(num) <= 16 and len(den) <= 16:
+                return num, den
+            return "tf", None
+        return "ss", None
+    return block.name, None
+
+
+def _is_siso(v) -> bool:
+    return isinstance(v, (list, tuple)) and all(isinstance(c, (int, float)) for c in v)
+
+
+def body_rect(block: Block) -> QRectF:
+    """The oriented body's bounding rectangle around the centre."""
+    w, h = block_size(block)
+    if int(round(float(block.layout.get("rotation", 0) or 0) / 90.0)) % 2:
+        w, h = h, w
+    return QRectF(-w / 2, -h / 2, w, h)
+
+
+def _orientation(block: Block) -> QTransform:
+    t = QTransform()
+    t.rotate(float(block.layout.get("rotation", 0) or 0))
+    if block.layout.get("flip"):
+        t.scale(-1, 1)
+    return t
+
+
+def paint_block(painter, block: Block, theme, *, selected: bool, problem: bool, highlighted: bool, font: QFont, widths: dict | None = None) -> None:
+    """Paint ``block`` around (0, 0) in item coordinates."""
+    border = theme.problem if problem else (theme.selection if selected else (theme.highlight if highlighted else theme.block_border))
+    pen_w = 2.4 if (selected or problem or highlighted) else 1.4
+    painter.setRenderHint(painter.RenderHint.Antialiasing, True)
+    if block.kind == "sum":
+        _paint_sum(painter, block, theme, border, pen_w, font)
+    elif block.kind == "source":
+        _paint_source(painter, block, theme, border if (selected or problem or highlighted) else None, pen_w, font)
+    else:
+        _paint_box(painter, block, theme, border, pen_w, font)
+
+
+def _paint_box(painter, block, theme, border, pen_w, font) -> None:
+    r = body_rect(block)
+    painter.setPen(QPen(border, pen_w))
+    painter.setBrush(QBrush(theme.block_fill))
+    if block.kind == "estimator":
+        painter.drawRoundedRect(r, 9, 9)
+        # A second inner outline marks the estimator as a model running beside the plant.
+        painter.setPen(QPen(border, 0.8, Qt.PenStyle.DashLine))
+        painter.setBrush(Qt.BrushStyle.NoBrush)
+        painter.drawRoundedRect(r.adjusted(4, 4, -4, -4), 6, 6)
+    else:
+        painter.drawRoundedRect(r, 3, 3)
+    painter.setPen(QPen(theme.text))
+    main, den = symbol_text(block)
+    if block.kind == "estimator":
+        f = QFont(font)
+        f.setBold(True)
+        painter.setFont(f)
+        painter.drawText(r.adjusted(0, 4, 0, -r.height() / 2), Qt.AlignmentFlag.AlignCenter, block.name)
+        f2 = QFont(font)
+        f2.setPointSizeF(font.pointSizeF() * 0.8)
+        painter.setFont(f2)
+        painter.setPen(QPen(theme.caption))
+        link = block.params.get("plant")
+        painter.drawText(r.adjusted(0, r.height() / 2 - 6, 0, -4), Qt.AlignmentFlag.AlignCenter,
+                         f"estimator of {link}" if link else "estimator")
+        _paint_port_labels(painter, block, theme, f2)
+        return
+    if den is None:
+        f = QFont(font)
+        italic = block.kind in ("plant", "gain")
+        f.setItalic(italic)
+        if italic:
+            f.setPointSizeF(font.pointSizeF() * 1.25)
+        fm = QFontMetricsF(f)
+        while fm.horizontalAdvance(main) > r.width() - 8 and f.pointSizeF() > 6:
+            f.setPointSizeF(f.pointSizeF() - 0.5)
+            fm = QFontMetricsF(f)
+        painter.setFont(f)
+        painter.drawText(r, Qt.AlignmentFlag.AlignCenter, main)
+    else:
+        f = QFont(font)
+        fm = QFontMetricsF(f)
+        while max(fm.horizontalAdvance(main), fm.horizontalAdvance(den)) > r.width() - 8 and f.pointSizeF() > 6:
+            f.setPointSizeF(f.pointSizeF() - 0.5)
+            fm = QFontMetricsF(f)
+        painter.setFont(f)
+        bar = max(fm.horizontalAdvance(main), fm.horizontalAdvance(den)) + 6
+        cy = r.center().y()
+        painter.drawText(QRectF(r.left(), cy - fm.height() - 1, r.width(), fm.height()), Qt.AlignmentFlag.AlignCenter, main)
+        painter.drawText(QRectF(r.left(), cy + 2, r.width(), fm.height()), Qt.AlignmentFlag.AlignCenter, den)
+        painter.drawLine(QPointF(-bar / 2, cy + 0.5), QPointF(bar / 2, cy + 0.5))
+    if block.kind in ("dynamic", "integrator"):
+        f = QFont(font)
+        f.setPointSizeF(font.pointSizeF() * 0.85)
+        painter.setFont(f)
+        painter.setPen(QPen(theme.caption))
+        painter.drawText(QRectF(r.left() - 40, r.top() - 18, r.width() + 80, 16), Qt.AlignmentFlag.AlignCenter, block.name)
+
+
+def _paint_port_labels(painter, block, theme, font) -> None:
+    painter.setFont(font)
+    painter.setPen(QPen(theme.caption))
+    labels = {"xhat": "x̂", "yhat": "ŷ", "u": "u", "y": "y"}
+    for s in port_spots(block):
+        text = labels.get(s.name, s.name)
+        inward = (-s.normal[0] * 10, -s.normal[1] * 10)
+        rect = QRectF(s.x + inward[0] - 10, s.y + inward[1] - 8, 20, 16)
+        painter.drawText(rect, Qt.AlignmentFlag.AlignCenter, text)
+
+
+def _paint_sum(painter, block, theme, border, pen_w, font) -> None:
+    r = SUM_RADIUS
+    painter.setPen(QPen(border, pen_w))
+    painter.setBrush(QBrush(theme.block_fill))
+    painter.drawEllipse(QPointF(0, 0), r, r)
+    f = QFont(font)
+    f.setBold(True)
+    painter.setFont(f)
+    signs = block.params.get("signs", [])
+    for s in port_spots(block):
+        if not s.is_input:
+            continue
+        idx = int(s.name[2:]) - 1 if s.name[2:].isdigit() else -1
+        sign = signs[idx] if 0 <= idx < len(signs) else "?"
+        glyph = "−" if sign == "-" else sign
+        # Beside the input, a little outside the circle and turned a quarter towards the top
+        # left, where a textbook writes it.
+        nx, ny = s.normal
+        tx, ty = -ny, nx
+        if ty > 0 or (abs(ty) < 1e-9 and tx > 0):
+            tx, ty = -tx, -ty
+        cx = s.x + nx * 3 + tx * 10
+        cy = s.y + ny * 3 + ty * 10
+        painter.setPen(QPen(theme.problem if sign not in ("+", "-") else theme.text))
+        painter.drawText(QRectF(cx - 8, cy - 9, 16, 18), Qt.AlignmentFlag.AlignCenter, glyph)
+
+
+def _paint_source(painter, block, theme, border, pen_w, font) -> None:
+    role = block.params.get("role", "reference")
+    colour = theme.role_colour(role)
+    r = SOURCE_RADIUS
+    painter.setPen(QPen(border if border is not None else colour, pen_w))
+    painter.setBrush(QBrush(theme.block_fill))
+    painter.drawEllipse(QPointF(0, 0), r, r)
+    painter.save()
+    painter.setTransform(_orientation(block), True)
+    painter.setPen(QPen(colour, 1.8, Qt.PenStyle.SolidLine, Qt.PenCapStyle.RoundCap, Qt.PenJoinStyle.RoundJoin))
+    painter.setBrush(Qt.BrushStyle.NoBrush)
+    path = QPainterPath()
+    if role == "reference":
+        # A step: the set-point the loop should follow.
+        path.moveTo(-8, 5)
+        path.lineTo(-2, 5)
+        path.lineTo(-2, -5)
+        path.lineTo(8, -5)
+    elif role == "disturbance":
+        # A jolt: a bolt-like zig-zag that pushes on the plant.
+        path.moveTo(-3, -9)
+        path.lineTo(4, -2)
+        path.lineTo(-2, 1)
+        path.lineTo(5, 9)
+        painter.setBrush(Qt.BrushStyle.NoBrush)
+        painter.drawPath(path)
+        head = QPainterPath()
+        head.moveTo(5, 9)
+        head.lineTo(0.5, 7.5)
+        head.moveTo(5, 9)
+        head.lineTo(4.5, 4.5)
+        path = head
+    else:
+        # Hiss: a ragged trace, the sensor's noise.
+        ys = [0, -5, 3, -2, 6, -6, 2, -3, 4, 0]
+        path.moveTo(-9, ys[0])
+        for k, y in enumerate(ys[1:], 1):
+            path.lineTo(-9 + 2 * k, y * 0.9)
+    painter.drawPath(path)
+    painter.restore()
+    f = QFont(font)
+    f.setItalic(True)
+    painter.setFont(f)
+    painter.setPen(QPen(theme.text))
+    # Name on the side away from the output.
+    out = next(s for s in port_spots(block) if not s.is_input)
+    nx, ny = -out.normal[0], -out.normal[1]
+    cx, cy = nx * (r + 14), ny * (r + 12)
+    if abs(ny) > 0.5:
+        cx, cy = r + 12, 0
+    painter.drawText(QRectF(cx - 30, cy - 10, 60, 20), Qt.AlignmentFlag.AlignCenter, block.name)
+
+
+def caption_rect(block: Block, caption_height: float = 16.0) -> QRectF:
+    r = body_rect(block)
+    return QRectF(r.left() - 40, r.bottom() + 3, r.width() + 80, caption_height)
+

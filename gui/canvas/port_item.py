@@ -1,0 +1,66 @@
+"""A port drawn on a block: a small chevron for inputs, a dot for outputs.
+
+Ports are children of their :class:`~loopwright.gui.canvas.block_item.BlockItem`; the scene
+starts a connection drag when one is pressed and highlights the valid ends meanwhile.
+"""
+from __future__ import annotations
+
+from PySide6.QtCore import QPointF, QRectF, Qt
+from PySide6.QtGui import QBrush, QPainterPath, QPen
+from PySide6.QtWidgets import QGraphicsItem
+
+from loopwright.engine.diagram import PortRef
+
+__all__ = ["PortItem"]
+
+_R = 4.5
+
+
+class PortItem(QGraphicsItem):
+    """One port; ``ref`` names it, ``is_input`` says which end of a wire it can be."""
+
+    Type = QGraphicsItem.UserType + 3
+
+    def __init__(self, parent, ref: PortRef, *, is_input: bool, normal: tuple[float, float], theme):
+        super().__init__(parent)
+        self.ref = ref
+        self.is_input = is_input
+        self.normal = normal
+        self._theme = theme
+        self._target_state = 0  # 0 plain, 1 valid target, 2 under the cursor
+        self.setAcceptHoverEvents(True)
+        self.setCursor(Qt.CursorShape.CrossCursor)
+        self.setZValue(2)
+        self.setToolTip(f"{'input' if is_input else 'output'} {ref.port}: drag to connect")
+
+    def type(self) -> int:
+        return self.Type
+
+    def set_theme(self, theme) -> None:
+        self._theme = theme
+        self.update()
+
+    def set_target_state(self, state: int) -> None:
+        if state != self._target_state:
+            self._target_state = state
+            self.update()
+
+    def boundingRect(self) -> QRectF:
+        return QRectF(-_R * 2, -_R * 2, _R * 4, _R * 4)
+
+    def shape(self) -> QPainterPath:
+        path = QPainterPath()
+        path.addEllipse(QPointF(0, 0), _R * 1.8, _R * 1.8)
+        return path
+
+    def paint(self, painter, option, widget=None) -> None:
+        t = self._theme
+        if self._target_state:
+            colour = t.target_ok
+            painter.setPen(QPen(colour, 2.0))
+            painter.setBrush(QBrush(colour.lighter(150) if self._target_state == 2 else Qt.BrushStyle.NoBrush))
+            painter.drawEllipse(QPointF(0, 0), _R * 1.6, _R * 1.6)
+        if not self.is_input:
+            painter.setPen(Qt.PenStyle.NoPen)
+            painter.setBrush(QBrush(t.port))
+            painter.drawEllipse(QPointF(0, 0), 2.2, 2.2)

@@ -1,0 +1,416 @@
+"""The scene: block and wire items kept in step with a :class:`~loopwright.gui.document.Document`.
+
+The scene listens to the document's signals and updates only the items concerned; it
+turns mouse gestures into commands (a finished drag of blocks, a new connection, a moved
+wire segment, a drop from the shelf) and never changes the diagram itself. It also
+carries the markings from the live model: problems on blocks and wires, signal widths,
+and an arbitrary highlighted set (for the analysis panels).
+"""
+from __future__ import annotations
+
+import json
+import math
+
+from PySide6.QtCore import QLineF, QPointF, QRectF, Qt, Signal
+from PySide6.QtGui import QFont, QPainterPath, QPen
+from PySide6.QtWidgets import QGraphicsPathItem, QGraphicsScene
+
+from loopwright.engine.diagram import PortRef
+from loopwright.engine.errors import EngineError
+from loopwright.gui.canvas.block_item import BlockItem
+from loopwright.gui.canvas.port_item import PortItem
+from loopwright.gui.canvas.wire_item import WireItem
+from loopwright.gui.commands import AddBlock, Connect, MoveBlocks, SetWireLayout
+
+__all__ = ["DiagramScene", "BLOCK_MIME"]
+
+BLOCK_MIME = "application/x-loopwright-block-kind"
+
+_SNAP_RADIUS = 18.0
+_DRAG_START = 6.0
+
+
+class DiagramScene(QGraphicsScene):
+    """Items for every block and wire of ``document``.
+
+    Signals
+    -------
+    edit_refused(str)
+        A gesture the engine refused (e.g. a connection to an input already fed); the
+        window shows the message in the status bar.
+    """
+
+    edit_refused = Signal(str)
+
+    def __init__(self, document, theme, *, grid_size: float = 10.0, font: QFont | None = None, parent=None):
+        super().__init__(parent)
+        self.document = document
+        self.theme = theme
+        self.grid_size = grid_size
+        self.font_ = font or QFont("DejaVu Sans", 9)
+        self.block_items: dict[str, BlockItem] = {}
+        self.wire_items: dict[str, WireItem] = {}
+        self._wires_of: dict[str, set[str]] = {}
+        self._link: dict | None = None
+        self._pending_branch: tuple[str, QPointF] | None = None
+        self._widths: dict[str, int] = {}
+        self.setItemIndexMethod(QGraphicsScene.ItemIndexMethod.BspTreeIndex)
+        self.setBackgroundBrush(theme.background)
+        d = document
+        d.block_added.connect(self._on_block_added)
+        d.block_removed.connect(self._on_block_removed)
+        d.wire_added.connect(self._on_wire_added)
+        d.wire_removed.connect(self._on_wire_removed)
+        d.wire_changed.connect(self._on_wire_changed)
+        d.params_changed.connect(self._on_block_changed)
+        d.layout_changed.connect(self._on_block_changed)
+        d.renamed.connect(self._on_block_changed)
+        d.caption_changed.connect(self._on_block_changed)
+        d.wire_layout_changed.connect(self._on_wire_changed)
+        d.wire_renamed.connect(self._on_wire_changed)
+        d.diagram_replaced.connect(self._on_diagram_replaced)
+        self._on_diagram_replaced()
+
+    # ---- document -> items ----------------------------------------------------------------
+    def _on_diagram_replaced(self) -> None:
+        self._link = None
+        self._pending_branch = None
+        self.clear()
+        self.block_items.clear()
+        self.wire_items.clear()
+        self._wires_of.clear()
+        self._widths.clear()
+        for bid in self.document.diagram.blocks:
+            self._add_block_item(bid)
+        for wid in self.document.diagram.wires:
+            self._add_wire_item(wid)
+        self._fit_scene_rect()
+
+    def _add_block_item(self, bid: str) -> BlockItem:
+        item = BlockItem(self.document.diagram.blocks[bid], self.theme, font=self.font_, grid=self.grid_size)
+        self.block_items[bid] = item
+        self._wires_of.setdefault(bid, set())
+        self.addItem(item)
+        return item
+
+    def _add_wire_item(self, wid: str) -> WireItem:
+        item = WireItem(wid, self, self.theme, font=self.font_)
+        self.wire_items[wid] = item
+        self.addItem(item)
+        self._index_wire(wid)
+        item.set_signal_width(self._widths.get(wid))
+        item.recompute()
+        return item
+
+    def _index_wire(self, wid: str) -> None:
+        for s in self._wires_of.values():
+            s.discard(wid)
+        w = self.document.diagram.wires.get(wid)
+        if w is None:
+            return
+        for bid in {w.source.block, *(t.block for t in w.targets)}:
+            self._wires_of.setdefault(bid, set()).add(wid)
+
+    def _unindex_wire(self, wid: str) -> None:
+        w_blocks = [bid for bid, s in self._wires_of.items() if wid in s]
+        for bid in w_blocks:
+            self._wires_of[bid].discard(wid)
+
+    def _on_block_added(self, bid: str) -> None:
+        self._add_block_item(bid)
+        self._fit_scene_rect()
+
+    def _on_block_removed(self, bid: str) -> None:
+        item = self.block_items.pop(bid, None)
+        self._wires_of.pop(bid, None)
+        if item is not None:
+            self.removeItem(item)
+
+    def _on_block_changed(self, bid: str) -> None:
+        item = self.block_items.get(bid)
+        if item is None:
+            return
+        item.sync(self.document.diagram.blocks[bid])
+        self._reroute_block(bid)
+        self._fit_scene_rect()
+
+    def _on_wire_added(self, wid: str) -> None:
+        self._add_wire_item(wid)
+
+    def _on_wire_removed(self, wid: str) -> None:
+        item = self.wire_items.pop(wid, None)
+        self._unindex_wire(wid)
+        if item is not None:
+            self.removeItem(item)
+
+    def _on_wire_changed(self, wid: str) -> None:
+        item = self.wire_items.get(wid)
+        if item is None:
+            return
+        self._index_wire(wid)
+        item.recompute()
+
+    def _reroute_block(self, bid: str) -> None:
+        for wid in self._wires_of.get(bid, ()):
+            item = self.wire_items.get(wid)
+            if item is not None:
+                item.recompute()
+
+    def block_item_moved(self, item: BlockItem) -> None:
+        """Called by a block item while it is dragged: its wires follow at once."""
+        self._reroute_block(item.block_id)
+
+    def _fit_scene_rect(self) -> None:
+        rect = self.itemsBoundingRect().adjusted(-400, -300, 400, 300)
+        rect = rect.united(QRectF(-600, -400, 1200, 800))
+        self.setSceneRect(rect)
+
+    # ---- markings from the live model --------------------------------------------------------
+    def set_problems(self, problems) -> None:
+        """Mark the culprits of ``problems`` (objects with message, block_ids, wire_ids)."""
+        by_block: dict[str, list[str]] = {}
+        by_wire: dict[str, list[str]] = {}
+        for p in problems:
+            for b in getattr(p, "block_ids", ()) or ():
+                by_block.setdefault(b, []).append(p.message)
+            for w in getattr(p, "wire_ids", ()) or ():
+                by_wire.setdefault(w, []).append(p.message)
+        for bid, item in self.block_items.items():
+            item.set_problems(by_block.get(bid, []))
+        for wid, item in self.wire_items.items():
+            item.set_problems(by_wire.get(wid, []))
+
+    def set_widths(self, widths: dict[str, int]) -> None:
+        """Signal widths by wire id (vectors are drawn heavier, with their width)."""
+        self._widths = dict(widths)
+        for wid, item in self.wire_items.items():
+            item.set_signal_width(self._widths.get(wid))
+
+    def highlight(self, block_ids=(), wire_ids=()) -> None:
+        """Highlight any set of blocks and wires (an empty call clears it)."""
+        bs, ws = set(block_ids), set(wire_ids)
+        for bid, item in self.block_items.items():
+            item.set_highlighted(bid in bs)
+        for wid, item in self.wire_items.items():
+            item.set_highlighted(wid in ws)
+
+    def set_theme(self, theme) -> None:
+        self.theme = theme
+        self.setBackgroundBrush(theme.background)
+        for item in list(self.block_items.values()) + list(self.wire_items.values()):
+            item.set_theme(theme)
+        self.update()
+
+    # ---- selection ---------------------------------------------------------------------------
+    def selected_block_ids(self) -> list[str]:
+        return [i.block_id for i in self.selectedItems() if isinstance(i, BlockItem)]
+
+    def selected_wire_ids(self) -> list[str]:
+        return [i.wire_id for i in self.selectedItems() if isinstance(i, WireItem)]
+
+    def select_ids(self, block_ids=(), wire_ids=()) -> None:
+        self.clearSelection()
+        for b in block_ids:
+            if b in self.block_items:
+                self.block_items[b].setSelected(True)
+        for w in wire_ids:
+            if w in self.wire_items:
+                self.wire_items[w].setSelected(True)
+
+    # ---- commands from gestures ------------------------------------------------------------------
+    def _push(self, command) -> bool:
+        try:
+            self.document.push(command)
+        except EngineError as err:
+            self.edit_refused.emit(str(err))
+            return False
+        return True
+
+    def place_block(self, kind: str, pos: QPointF, params: dict | None = None) -> str | None:
+        g = self.grid_size or 1.0
+        layout = {"x": round(pos.x() / g) * g, "y": round(pos.y() / g) * g, "rotation": 0, "flip": False}
+        cmd = AddBlock(self.document, kind, params=params, layout=layout)
+        if not self._push(cmd):
+            return None
+        self.select_ids([cmd.block_id])
+        return cmd.block_id
+
+    def commit_moves(self) -> bool:
+        """Turn positions changed by a mouse drag into one undoable move."""
+        changes = {}
+        for bid, item in self.block_items.items():
+            lay = self.document.diagram.blocks[bid].layout
+            x, y = item.pos().x(), item.pos().y()
+            if abs(x - float(lay.get("x", 0.0))) > 1e-9 or abs(y - float(lay.get("y", 0.0))) > 1e-9:
+                changes[bid] = {"x": x, "y": y}
+        if not changes:
+            return False
+        return self._push(MoveBlocks(self.document, changes))
+
+    def commit_wire_bends(self, wid: str, target_index: int, points: list[list[float]]) -> None:
+        w = self.document.diagram.wires.get(wid)
+        if w is None:
+            return
+        lay = json.loads(json.dumps(w.layout))
+        lay.setdefault("bends", {})[str(target_index)] = points
+        if not self._push(SetWireLayout(self.document, wid, lay)):
+            self.wire_items[wid].recompute()
+
+    def connect_ports(self, source: PortRef, target: PortRef) -> str | None:
+        cmd = Connect(self.document, source, target)
+        return cmd.wire_id if self._push(cmd) else None
+
+    # ---- mouse: connections, branches, moves ------------------------------------------------------
+    def _valid_ends(self, from_input: bool) -> list[PortItem]:
+        if from_input:
+            return [p for it in self.block_items.values() for p in it.ports.values() if not p.is_input]
+        fed = {t for w in self.document.diagram.wires.values() for t in w.targets}
+        return [p for it in self.block_items.values() for p in it.ports.values() if p.is_input and p.ref not in fed]
+
+    def _start_link(self, origin: QPointF, *, source: PortRef | None, target: PortRef | None) -> None:
+        valid = self._valid_ends(from_input=target is not None)
+        for p in valid:
+            p.set_target_state(1)
+        temp = QGraphicsPathItem()
+        temp.setPen(QPen(self.theme.target_ok, 1.5, Qt.PenStyle.DashLine))
+        temp.setZValue(5)
+        self.addItem(temp)
+        self._link = {"origin": origin, "source": source, "target": target, "valid": valid, "temp": temp, "hover": None}
+
+    def _nearest_valid(self, pos: QPointF) -> PortItem | None:
+        best, best_d = None, _SNAP_RADIUS
+        for p in self._link["valid"]:
+            d = QLineF(p.scenePos(), pos).length()
+            if d < best_d:
+                best, best_d = p, d
+        return best
+
+    def _end_link(self, pos: QPointF | None) -> None:
+        link, self._link = self._link, None
+        for p in link["valid"]:
+            p.set_target_state(0)
+        self.removeItem(link["temp"])
+        if pos is None:
+            return
+        hit = None
+        best_d = _SNAP_RADIUS
+        for p in link["valid"]:
+            d = QLineF(p.scenePos(), pos).length()
+            if d < best_d:
+                hit, best_d = p, d
+        if hit is None:
+            return
+        if link["source"] is not None:
+            self.connect_ports(link["source"], hit.ref)
+        else:
+            self.connect_ports(hit.ref, link["target"])
+
+    def mousePressEvent(self, event) -> None:
+        if event.button() == Qt.MouseButton.LeftButton:
+            item = self.itemAt(event.scenePos(), self.views()[0].transform() if self.views() else self._identity())
+            if isinstance(item, PortItem):
+                fed = self.document.diagram.wire_into(item.ref) if item.is_input else None
+                if item.is_input and fed is not None:
+                    # Dragging from a fed input starts from the wire's source instead: a branch.
+                    self._start_link(event.scenePos(), source=fed.source, target=None)
+                elif item.is_input:
+                    self._start_link(item.scenePos(), source=None, target=item.ref)
+                else:
+                    self._start_link(item.scenePos(), source=item.ref, target=None)
+                event.accept()
+                return
+            if isinstance(item, WireItem) and item.handle_at(event.scenePos()) is None:
+                self._pending_branch = (item.wire_id, event.scenePos())
+        super().mousePressEvent(event)
+
+    @staticmethod
+    def _identity():
+        from PySide6.QtGui import QTransform
+
+        return QTransform()
+
+    def mouseMoveEvent(self, event) -> None:
+        if self._pending_branch is not None and self._link is None:
+            wid, start = self._pending_branch
+            if QLineF(start, event.scenePos()).length() >= _DRAG_START and wid in self.document.diagram.wires:
+                self._pending_branch = None
+                self._start_link(start, source=self.document.diagram.wires[wid].source, target=None)
+        if self._link is not None:
+            pos = event.scenePos()
+            near = self._nearest_valid(pos)
+            if self._link["hover"] is not near:
+                if self._link["hover"] is not None:
+                    self._link["hover"].set_target_state(1)
+                if near is not None:
+                    near.set_target_state(2)
+                self._link["hover"] = near
+            end = near.scenePos() if near is not None else pos
+            o = self._link["origin"]
+            path = QPainterPath(o)
+            mx = (o.x() + end.x()) / 2
+            path.lineTo(mx, o.y())
+            path.lineTo(mx, end.y())
+            path.lineTo(end)
+            self._link["temp"].setPath(path)
+            event.accept()
+            return
+        super().mouseMoveEvent(event)
+
+    def mouseReleaseEvent(self, event) -> None:
+        self._pending_branch = None
+        if self._link is not None:
+            self._end_link(event.scenePos())
+            event.accept()
+            return
+        super().mouseReleaseEvent(event)
+        if event.button() == Qt.MouseButton.LeftButton:
+            self.commit_moves()
+
+    def cancel_gesture(self) -> None:
+        if self._link is not None:
+            self._end_link(None)
+
+    # ---- drops from the shelf --------------------------------------------------------------------
+    def dragEnterEvent(self, event) -> None:
+        if event.mimeData().hasFormat(BLOCK_MIME):
+            event.acceptProposedAction()
+        else:
+            super().dragEnterEvent(event)
+
+    def dragMoveEvent(self, event) -> None:
+        if event.mimeData().hasFormat(BLOCK_MIME):
+            event.acceptProposedAction()
+        else:
+            super().dragMoveEvent(event)
+
+    def dropEvent(self, event) -> None:
+        md = event.mimeData()
+        if not md.hasFormat(BLOCK_MIME):
+            super().dropEvent(event)
+            return
+        spec = json.loads(bytes(md.data(BLOCK_MIME)).decode("utf-8"))
+        self.place_block(spec["kind"], event.scenePos(), spec.get("params"))
+        event.acceptProposedAction()
+
+    # ---- grid ------------------------------------------------------------------------------------
+    def drawBackground(self, painter, rect: QRectF) -> None:
+        super().drawBackground(painter, rect)
+        g = self.grid_size * 2
+        if g <= 0:
+            return
+        scale = painter.worldTransform().m11()
+        if scale * g < 8:  # too dense to help when zoomed far out
+            return
+        painter.setPen(QPen(self.theme.grid, 0))
+        left = math.floor(rect.left() / g) * g
+        top = math.floor(rect.top() / g) * g
+        lines = []
+        x = left
+        while x < rect.right():
+            lines.append(QLineF(x, rect.top(), x, rect.bottom()))
+            x += g
+        y = top
+        while y < rect.bottom():
+            lines.append(QLineF(rect.left(), y, rect.right(), y))
+            y += g
+        painter.drawLines(lines)

@@ -1,0 +1,226 @@
+"""The view on the diagram scene: zoom, pan, fit, rubber-band selection, rename in place,
+and a hint on an empty canvas saying how to start."""
+from __future__ import annotations
+
+from PySide6.QtCore import QPointF, QRectF, Qt, Signal
+from PySide6.QtGui import QFont, QPainter, QPen
+from PySide6.QtWidgets import QGraphicsView, QLineEdit
+
+from loopwright.engine.errors import EngineError
+from loopwright.gui.canvas.block_item import BlockItem
+from loopwright.gui.canvas.wire_item import WireItem
+from loopwright.gui.commands import RenameBlock, RenameWire
+
+__all__ = ["DiagramView"]
+
+_ZOOM_STEP = 1.2
+_MIN_SCALE, _MAX_SCALE = 0.05, 8.0
+
+EMPTY_HINT = (
+    "This diagram is empty.\n"
+    "Drag a block from the shelf, or double-click one there.\n"
+    "To start from a worked loop: File ▸ Open sample."
+)
+
+
+class DiagramView(QGraphicsView):
+    """Shows a :class:`~loopwright.gui.canvas.scene.DiagramScene`.
+
+    Wheel zooms about the cursor, the middle button (or Space held down) pans, a drag on
+    the background selects with a rubber band, and a double-click on a block or a wire
+    renames it in place.
+    """
+
+    zoom_changed = Signal(float)
+
+    def __init__(self, scene, parent=None):
+        super().__init__(scene, parent)
+        self.setRenderHints(QPainter.RenderHint.Antialiasing | QPainter.RenderHint.TextAntialiasing)
+        self.setDragMode(QGraphicsView.DragMode.RubberBandDrag)
+        self.setRubberBandSelectionMode(Qt.ItemSelectionMode.IntersectsItemShape)
+        self.setTransformationAnchor(QGraphicsView.ViewportAnchor.AnchorUnderMouse)
+        self.setViewportUpdateMode(QGraphicsView.ViewportUpdateMode.SmartViewportUpdate)
+        self.setOptimizationFlags(QGraphicsView.OptimizationFlag.DontSavePainterState)
+        self.setCacheMode(QGraphicsView.CacheModeFlag.CacheBackground)
+        self.setAcceptDrops(True)
+        self._pan_from: QPointF | None = None
+        self._space = False
+        self._editor: QLineEdit | None = None
+        self.hint_text = EMPTY_HINT
+
+    # ---- zoom and pan ----------------------------------------------------------------------
+    def scale_factor(self) -> float:
+        return self.transform().m11()
+
+    def zoom_by(self, factor: float) -> None:
+        s = self.scale_factor()
+        factor = max(_MIN_SCALE / s, min(_MAX_SCALE / s, factor))
+        self.scale(factor, factor)
+        self.resetCachedContent()
+        self.zoom_changed.emit(self.scale_factor())
+
+    def zoom_in(self) -> None:
+        self.zoom_by(_ZOOM_STEP)
+
+    def zoom_out(self) -> None:
+        self.zoom_by(1 / _ZOOM_STEP)
+
+    def zoom_reset(self) -> None:
+        self.resetTransform()
+        self.resetCachedContent()
+        self.zoom_changed.emit(1.0)
+
+    def fit_to_view(self) -> None:
+        sc = self.scene()
+        rect = sc.itemsBoundingRect() if sc.items() else QRectF(-300, -200, 600, 400)
+        rect = rect.adjusted(-30, -30, 30, 30)
+        self.fitInView(rect, Qt.AspectRatioMode.KeepAspectRatio)
+        if self.scale_factor() > 1.6:
+            f = 1.6 / self.scale_factor()
+            self.scale(f, f)
+        self.centerOn(rect.center())
+        self.resetCachedContent()
+        self.zoom_changed.emit(self.scale_factor())
+
+    def wheelEvent(self, event) -> None:
+        if event.modifiers() & Qt.KeyboardModifier.ShiftModifier:
+            super().wheelEvent(event)
+            return
+        delta = event.angleDelta().y()
+        if delta:
+            self.zoom_by(_ZOOM_STEP ** (delta / 120.0))
+        event.accept()
+
+    def pan_by(self, dx: float, dy: float) -> None:
+        """Scroll the view by (dx, dy) pixels (also used by the benchmark)."""
+        h, v = self.horizontalScrollBar(), self.verticalScrollBar()
+        h.setValue(h.value() + int(dx))
+        v.setValue(v.value() + int(dy))
+
+    def keyPressEvent(self, event) -> None:
+        if event.key() == Qt.Key.Key_Space and not event.isAutoRepeat() and self._editor is None:
+            self._space = True
+            self.setDragMode(QGraphicsView.DragMode.ScrollHandDrag)
+            event.accept()
+            return
+        if event.key() == Qt.Key.Key_Escape:
+            self.scene().cancel_gesture()
+        super().keyPressEvent(event)
+
+    def keyReleaseEvent(self, event) -> None:
+        if event.key() == Qt.Key.Key_Space and not event.isAutoRepeat() and self._space:
+            self._space = False
+            self.setDragMode(QGraphicsView.DragMode.RubberBandDrag)
+            event.accept()
+            return
+        super().keyReleaseEvent(event)
+
+    def mousePressEvent(self, event) -> None:
+        if event.button() == Qt.MouseButton.MiddleButton:
+            self._pan_from = event.position()
+            self.viewport().setCursor(Qt.CursorShape.ClosedHandCursor)
+            event.accept()
+            return
+        super().mousePressEvent(event)
+
+    def mouseMoveEvent(self, event) -> None:
+        if self._pan_from is not None:
+            d = event.position() - self._pan_from
+            self._pan_from = event.position()
+            self.pan_by(-d.x(), -d.y())
+            event.accept()
+            return
+        super().mouseMoveEvent(event)
+
+    def mouseReleaseEvent(self, event) -> None:
+        if self._pan_from is not None and event.button() == Qt.MouseButton.MiddleButton:
+            self._pan_from = None
+            self.viewport().unsetCursor()
+            event.accept()
+            return
+        super().mouseReleaseEvent(event)
+
+    # ---- rename in place ----------------------------------------------------------------------
+    def mouseDoubleClickEvent(self, event) -> None:
+        item = self.itemAt(event.position().toPoint())
+        if isinstance(item, BlockItem):
+            self.begin_rename(item)
+            event.accept()
+            return
+        if isinstance(item, WireItem):
+            self.begin_rename(item)
+            event.accept()
+            return
+        super().mouseDoubleClickEvent(event)
+
+    def begin_rename(self, item) -> QLineEdit:
+        """Open a line editor over ``item``'s name; Enter commits, Escape cancels."""
+        self.end_rename(commit=False)
+        doc = self.scene().document
+        if isinstance(item, BlockItem):
+            current = doc.diagram.blocks[item.block_id].name
+            anchor = item.mapToScene(QPointF(0, 0))
+        else:
+            current = doc.diagram.wires[item.wire_id].name
+            r = item.routes[0] if item.routes else [(0.0, 0.0), (0.0, 0.0)]
+            anchor = QPointF((r[0][0] + r[1][0]) / 2, (r[0][1] + r[1][1]) / 2)
+        editor = QLineEdit(current, self.viewport())
+        editor.setObjectName("rename_editor")
+        editor.selectAll()
+        p = self.mapFromScene(anchor)
+        editor.resize(max(90, editor.fontMetrics().horizontalAdvance(current) + 30), editor.sizeHint().height())
+        editor.move(int(p.x() - editor.width() / 2), int(p.y() - editor.height() / 2))
+        editor.show()
+        editor.setFocus()
+        editor.returnPressed.connect(lambda: self.end_rename(commit=True))
+        editor._target = item  # noqa: SLF001 - the editor remembers what it renames
+        editor.installEventFilter(self)
+        self._editor = editor
+        return editor
+
+    def eventFilter(self, obj, event) -> bool:
+        if obj is self._editor and event.type() == event.Type.KeyPress and event.key() == Qt.Key.Key_Escape:
+            self.end_rename(commit=False)
+            return True
+        if obj is self._editor and event.type() == event.Type.FocusOut:
+            self.end_rename(commit=True)
+            return False
+        return super().eventFilter(obj, event)
+
+    def end_rename(self, *, commit: bool) -> None:
+        editor, self._editor = self._editor, None
+        if editor is None:
+            return
+        editor.removeEventFilter(self)
+        text = editor.text().strip()
+        item = editor._target
+        editor.hide()
+        editor.deleteLater()
+        if not commit:
+            return
+        sc = self.scene()
+        doc = sc.document
+        try:
+            if isinstance(item, BlockItem) and item.block_id in doc.diagram.blocks:
+                if text != doc.diagram.blocks[item.block_id].name:
+                    doc.push(RenameBlock(doc, item.block_id, text))
+            elif isinstance(item, WireItem) and item.wire_id in doc.diagram.wires:
+                if text != doc.diagram.wires[item.wire_id].name:
+                    doc.push(RenameWire(doc, item.wire_id, text))
+        except EngineError as err:
+            sc.edit_refused.emit(str(err))
+
+    # ---- empty-canvas hint -------------------------------------------------------------------------
+    def drawForeground(self, painter, rect: QRectF) -> None:
+        super().drawForeground(painter, rect)
+        sc = self.scene()
+        if sc is None or sc.block_items:
+            return
+        painter.save()
+        painter.resetTransform()
+        f = QFont(sc.font_)
+        f.setPointSizeF(f.pointSizeF() * 1.3)
+        painter.setFont(f)
+        painter.setPen(QPen(sc.theme.hint))
+        painter.drawText(self.viewport().rect(), Qt.AlignmentFlag.AlignCenter, self.hint_text)
+        painter.restore()

@@ -1,0 +1,303 @@
+"""The canvas view of one :class:`loopwright.engine.diagram.Wire`.
+
+Draws the orthogonal route from the source port to every target (fan-out branches meet in
+a dot), an arrowhead into each input, the signal name, and for a vector signal a heavier
+stroke with a slash and its width. A selected wire shows handles on its inner segments;
+dragging one moves that segment and ends as one :class:`~loopwright.gui.commands.SetWireLayout`.
+"""
+from __future__ import annotations
+
+import copy
+
+from PySide6.QtCore import QPointF, QRectF, Qt
+from PySide6.QtGui import QBrush, QFont, QFontMetricsF, QPainterPath, QPainterPathStroker, QPen, QPolygonF
+from PySide6.QtWidgets import QGraphicsItem
+
+from loopwright.gui.canvas.geometry import route
+
+__all__ = ["WireItem"]
+
+_HANDLE = 4.0
+
+
+class WireItem(QGraphicsItem):
+    """One wire; ``wire_id`` ties it to the document. Coordinates are scene coordinates."""
+
+    Type = QGraphicsItem.UserType + 2
+
+    def __init__(self, wire_id: str, scene_ref, theme, *, font: QFont):
+        super().__init__()
+        self.wire_id = wire_id
+        self._scene_ref = scene_ref
+        self._theme = theme
+        self._font = font
+        self.routes: list[list[tuple[float, float]]] = []
+        self._path = QPainterPath()
+        self._shape = QPainterPath()
+        self._bounds = QRectF()
+        self._label_rect = QRectF()
+        self._label = ""
+        self._width: int | None = None
+        self._problems: list[str] = []
+        self._highlighted = False
+        self._drag: tuple[int, int, list, QPointF] | None = None
+        self.setFlags(QGraphicsItem.GraphicsItemFlag.ItemIsSelectable)
+        self.setAcceptHoverEvents(True)
+        self.setZValue(0)
+
+    def type(self) -> int:
+        return self.Type
+
+    # ---- state ---------------------------------------------------------------------------
+    @property
+    def signal_width(self) -> int | None:
+        return self._width
+
+    @property
+    def label(self) -> str:
+        return self._label
+
+    def set_theme(self, theme) -> None:
+        self._theme = theme
+        self.update()
+
+    def set_signal_width(self, width: int | None) -> None:
+        if width != self._width:
+            self.prepareGeometryChange()
+            self._width = width
+            self._rebuild_shape()
+            self.update()
+
+    def set_problems(self, messages: list[str]) -> None:
+        if messages != self._problems:
+            self._problems = list(messages)
+            self._refresh_tooltip()
+            self.update()
+
+    @property
+    def problems(self) -> list[str]:
+        return list(self._problems)
+
+    def set_highlighted(self, on: bool) -> None:
+        if on != self._highlighted:
+            self._highlighted = on
+            self.update()
+
+    def _refresh_tooltip(self) -> None:
+        tip = f"signal {self._label}" + (f" ({self._width} components)" if self._width and self._width > 1 else "")
+        tip += "\ndrag to branch off; double-click to rename"
+        if self._problems:
+            tip += "\n" + "\n".join(f"⚠ {m}" for m in self._problems)
+        self.setToolTip(tip)
+
+    # ---- routing -------------------------------------------------------------------------
+    def recompute(self) -> None:
+        """Re-route from the current positions of the block items (also during a drag)."""
+        sc = self._scene_ref
+        wire = sc.document.diagram.wires.get(self.wire_id)
+        if wire is None:
+            return
+        self._label = wire.name
+        src_item = sc.block_items.get(wire.source.block)
+        if src_item is None:
+            return
+        src_port = src_item.port(wire.source.port, is_input=False)
+        p = src_item.port_scene_pos(wire.source.port, is_input=False)
+        dp = src_port.normal if src_port is not None else (1.0, 0.0)
+        bends = wire.layout.get("bends", {}) or {}
+        routes = []
+        for j, t in enumerate(wire.targets):
+            dst_item = sc.block_items.get(t.block)
+            if dst_item is None:
+                continue
+            dst_port = dst_item.port(t.port, is_input=True)
+            q = dst_item.port_scene_pos(t.port, is_input=True)
+            dq = dst_port.normal if dst_port is not None else (-1.0, 0.0)
+            rs, rd = src_item.body_scene_rect(), dst_item.body_scene_rect()
+            lane = max(rs.bottom(), rd.bottom()) + 36.0
+            gap = None
+            if rs.bottom() + 24.0 < rd.top():
+                gap = (rs.bottom() + rd.top()) / 2.0
+            elif rd.bottom() + 24.0 < rs.top():
+                gap = (rd.bottom() + rs.top()) / 2.0
+            routes.append(route((p.x(), p.y()), dp, (q.x(), q.y()), dq, bends=bends.get(str(j)), detour_y=lane, gap_y=gap))
+        self.prepareGeometryChange()
+        self.routes = routes
+        self._rebuild_shape()
+        self._refresh_tooltip()
+        self.update()
+
+    def _rebuild_shape(self) -> None:
+        path = QPainterPath()
+        for pts in self.routes:
+            path.moveTo(*pts[0])
+            for pt in pts[1:]:
+                path.lineTo(*pt)
+        self._path = path
+        stroker = QPainterPathStroker()
+        stroker.setWidth(9.0)
+        shape = stroker.createStroke(path)
+        fm = QFontMetricsF(self._font)
+        self._label_rect = QRectF()
+        if self.routes:
+            pts = self.routes[0]
+            seg = _label_segment(pts)
+            (x0, y0), (x1, y1) = pts[seg], pts[seg + 1]
+            w = fm.horizontalAdvance(self._label) + 6
+            mx, my = (x0 + x1) / 2, (y0 + y1) / 2
+            if abs(y0 - y1) < 1e-9:
+                self._label_rect = QRectF(mx - w / 2, my - fm.height() - 3, w, fm.height())
+            else:
+                self._label_rect = QRectF(mx + 5, my - fm.height() / 2, w, fm.height())
+            shape.addRect(self._label_rect)
+        self._shape = shape
+        self._bounds = path.boundingRect().adjusted(-14, -14, 14, 14).united(self._label_rect.adjusted(-4, -4, 4, 4))
+
+    def boundingRect(self) -> QRectF:
+        return self._bounds
+
+    def shape(self) -> QPainterPath:
+        return self._shape
+
+    # ---- painting ------------------------------------------------------------------------
+    def paint(self, painter, option, widget=None) -> None:
+        t = self._theme
+        colour = t.problem if self._problems else (t.selection if self.isSelected() else (t.highlight if self._highlighted else t.wire))
+        vector = bool(self._width and self._width > 1)
+        painter.setRenderHint(painter.RenderHint.Antialiasing, True)
+        painter.setPen(QPen(colour, 3.2 if vector else 1.5, Qt.PenStyle.SolidLine, Qt.PenCapStyle.FlatCap, Qt.PenJoinStyle.MiterJoin))
+        painter.setBrush(Qt.BrushStyle.NoBrush)
+        painter.drawPath(self._path)
+        painter.setPen(Qt.PenStyle.NoPen)
+        painter.setBrush(QBrush(colour))
+        for pts in self.routes:
+            painter.drawPolygon(_arrowhead(pts[-2], pts[-1], 10.0 if vector else 8.0))
+        if len(self.routes) > 1:
+            # Where branches part: the first point at which the routes differ.
+            for pt in _branch_points(self.routes):
+                painter.drawEllipse(QPointF(*pt), 3.4 if vector else 2.8, 3.4 if vector else 2.8)
+        painter.setFont(self._font)
+        painter.setPen(QPen(t.text))
+        if self._label and not self._label_rect.isNull():
+            painter.drawText(self._label_rect, Qt.AlignmentFlag.AlignCenter, self._label)
+        if vector and self.routes:
+            (x0, y0), (x1, y1) = self.routes[0][0], self.routes[0][1]
+            length = max(abs(x1 - x0), abs(y1 - y0))
+            d = min(9.0, length / 2)
+            ux, uy = ((x1 - x0) / length, (y1 - y0) / length) if length > 0 else (1.0, 0.0)
+            cx, cy = x0 + ux * d, y0 + uy * d
+            painter.setPen(QPen(colour, 1.4))
+            painter.drawLine(QPointF(cx - 4 * ux + 5 * uy, cy - 4 * uy - 5 * ux), QPointF(cx + 4 * ux - 5 * uy, cy + 4 * uy + 5 * ux))
+            painter.setPen(QPen(t.text))
+            f = QFont(self._font)
+            f.setPointSizeF(self._font.pointSizeF() * 0.8)
+            painter.setFont(f)
+            off = (-uy * 12 + 6 * ux, ux * 12) if abs(uy) > 0.5 else (2, 10)
+            painter.drawText(QRectF(cx + off[0] - 10, cy + off[1] - 2, 20, 14), Qt.AlignmentFlag.AlignCenter, str(self._width))
+        if self.isSelected():
+            painter.setPen(QPen(t.selection, 1.0))
+            painter.setBrush(QBrush(t.background))
+            for _, _, mid in self._handles():
+                painter.drawRect(QRectF(mid.x() - _HANDLE, mid.y() - _HANDLE, 2 * _HANDLE, 2 * _HANDLE))
+
+    # ---- bend handles ----------------------------------------------------------------------
+    def _handles(self):
+        """(target index, segment index, midpoint) of every movable segment."""
+        out = []
+        for j, pts in enumerate(self.routes):
+            for k in range(1, len(pts) - 2):
+                (x0, y0), (x1, y1) = pts[k], pts[k + 1]
+                out.append((j, k, QPointF((x0 + x1) / 2, (y0 + y1) / 2)))
+        return out
+
+    def handle_at(self, pos: QPointF):
+        if not self.isSelected():
+            return None
+        for j, k, mid in self._handles():
+            if abs(mid.x() - pos.x()) <= _HANDLE + 2 and abs(mid.y() - pos.y()) <= _HANDLE + 2:
+                return j, k
+        return None
+
+    def mousePressEvent(self, event) -> None:
+        hit = self.handle_at(event.scenePos()) if event.button() == Qt.MouseButton.LeftButton else None
+        if hit is not None:
+            j, k = hit
+            self._drag = (j, k, copy.deepcopy(self.routes[j]), event.scenePos())
+            event.accept()
+            return
+        super().mousePressEvent(event)
+
+    def mouseMoveEvent(self, event) -> None:
+        if self._drag is None:
+            super().mouseMoveEvent(event)
+            return
+        j, k, pts, start = self._drag
+        grid = getattr(self._scene_ref, "grid_size", 10.0) or 1.0
+        moved = [list(p) for p in pts]
+        horizontal = abs(pts[k][1] - pts[k + 1][1]) < 1e-9
+        if horizontal:
+            y = round((pts[k][1] + event.scenePos().y() - start.y()) / grid) * grid
+            moved[k][1] = moved[k + 1][1] = y
+        else:
+            x = round((pts[k][0] + event.scenePos().x() - start.x()) / grid) * grid
+            moved[k][0] = moved[k + 1][0] = x
+        self.prepareGeometryChange()
+        self.routes[j] = [tuple(p) for p in moved]
+        self._rebuild_shape()
+        self.update()
+        event.accept()
+
+    def mouseReleaseEvent(self, event) -> None:
+        if self._drag is None:
+            super().mouseReleaseEvent(event)
+            return
+        j = self._drag[0]
+        self._drag = None
+        interior = [[float(x), float(y)] for x, y in self.routes[j][1:-1]]
+        self._scene_ref.commit_wire_bends(self.wire_id, j, interior)
+        event.accept()
+
+
+def _label_segment(pts) -> int:
+    """Index of the segment that carries the signal name: the first long horizontal one."""
+    best, best_len = 0, -1.0
+    for k in range(len(pts) - 1):
+        (x0, y0), (x1, y1) = pts[k], pts[k + 1]
+        length = abs(x1 - x0) + abs(y1 - y0)
+        horizontal = abs(y0 - y1) < 1e-9
+        if horizontal and length >= 40:
+            return k
+        if length > best_len:
+            best, best_len = k, length
+    return best
+
+
+def _branch_points(routes) -> list[tuple[float, float]]:
+    """The points where fan-out branches leave the shared trunk."""
+    out = set()
+    first = routes[0]
+    for other in routes[1:]:
+        k = 0
+        while k + 1 < min(len(first), len(other)) and first[k + 1] == other[k + 1]:
+            k += 1
+        # The branch leaves somewhere on segment k; the dot goes where the two routes' next
+        # points stop sharing a line.
+        a, b1, b2 = first[k], first[k + 1], other[k + 1]
+        if abs(a[1] - b1[1]) < 1e-9 and abs(a[1] - b2[1]) < 1e-9:
+            x = min(b1[0], b2[0], key=lambda v: abs(v - a[0]))
+            out.add((x, a[1]))
+        elif abs(a[0] - b1[0]) < 1e-9 and abs(a[0] - b2[0]) < 1e-9:
+            y = min(b1[1], b2[1], key=lambda v: abs(v - a[1]))
+            out.add((a[0], y))
+        else:
+            out.add(a)
+    return sorted(out)
+
+
+def _arrowhead(prev, tip, size: float) -> QPolygonF:
+    dx, dy = tip[0] - prev[0], tip[1] - prev[1]
+    n = max((dx * dx + dy * dy) ** 0.5, 1e-9)
+    ux, uy = dx / n, dy / n
+    bx, by = tip[0] - ux * size, tip[1] - uy * size
+    w = size * 0.45
+    return QPolygonF([QPointF(*tip), QPointF(bx - uy * w, by + ux * w), QPointF(bx + uy * w, by - ux * w)])

@@ -1,0 +1,541 @@
+"""The main window: canvas in the centre, shelf, inspector and problems list in docks,
+menus and a toolbar, a status bar showing the live model, files, autosave and recovery.
+
+Docks for the analysis panels are added later beside these; the window keeps dock
+nesting on and saves the dock layout with the window state, apart from the document.
+"""
+from __future__ import annotations
+
+import importlib.resources
+from pathlib import Path
+
+from PySide6.QtCore import QEvent, QPointF, QSettings, Qt, QTimer, Signal
+from PySide6.QtGui import QAction, QActionGroup, QGuiApplication, QKeySequence
+from PySide6.QtWidgets import QDockWidget, QLabel, QMainWindow, QStyle
+
+from loopwright.engine import CAUTION, __version__
+from loopwright.engine.diagram import Diagram
+from loopwright.engine.errors import EngineError
+from loopwright.engine.project import FILE_SUFFIX, load, save
+from loopwright.gui.autosave import Autosaver, find_leftovers
+from loopwright.gui.canvas.clipboard import fragment_from_mime, fragment_to_mime, make_fragment
+from loopwright.gui.canvas.scene import DiagramScene
+from loopwright.gui.canvas.view import DiagramView
+from loopwright.gui.commands import DeleteItems, MoveBlocks, PasteFragment
+from loopwright.gui.dialogs import Dialogs
+from loopwright.gui.document import Document
+from loopwright.gui.inspector import Inspector
+from loopwright.gui.problems import ProblemsList
+from loopwright.gui.settings import Preferences, RecentFiles
+from loopwright.gui.shelf import Shelf
+from loopwright.gui.theme import theme_from_palette
+from loopwright.gui.workers import LiveModel, LiveResult
+
+__all__ = ["MainWindow", "sample_paths", "status_text"]
+
+
+def sample_paths() -> list[Path]:
+    """The bundled sample diagrams, sorted by file name."""
+    root = importlib.resources.files("loopwright.samples")
+    return sorted((Path(str(p)) for p in root.iterdir() if p.name.endswith(FILE_SUFFIX)), key=lambda p: p.name)
+
+
+def status_text(result: LiveResult | None) -> str:
+    """One line about the live model, as the status bar shows it."""
+    if result is None:
+        return "checking…"
+    rep = result.report
+    if rep is None:
+        return f"not assembled — {result.error}" if result.error else "not assembled"
+    parts = [f"{rep.states} state{'s' if rep.states != 1 else ''}"]
+    if rep.stable:
+        parts.append("stable")
+    elif rep.rhp_poles:
+        parts.append(f"UNSTABLE: {rep.rhp_poles} right-half-plane pole{'s' if rep.rhp_poles != 1 else ''}")
+    else:
+        parts.append(f"not stable: {getattr(rep, 'marginal_poles', 0)} pole(s) on the imaginary axis")
+    sep = rep.separation
+    if sep is not None:
+        parts.append("separation: poles match eig(A−BK) ∪ eig(A−LC)" if sep.matches else "separation: poles DIFFER from eig(A−BK) ∪ eig(A−LC)")
+    return " · ".join(parts)
+
+
+class MainWindow(QMainWindow):
+    """One diagram in one window.
+
+    Parameters
+    ----------
+    settings : QSettings
+        Where recent files and the window layout live (tests pass an ini file).
+    prefs : Preferences
+        Autosave folder and interval, grid, debounce, theme.
+    dialogs : object, optional
+        Answers the window's questions; defaults to real dialogs.
+    """
+
+    live_updated = Signal(object)
+
+    def __init__(self, *, settings: QSettings, prefs: Preferences, dialogs=None, parent=None):
+        super().__init__(parent)
+        self.settings = settings
+        self.prefs = prefs
+        self.dialogs = dialogs or Dialogs(self)
+        self.recent = RecentFiles(settings)
+        self.document = Document(parent=self)
+        self.theme = theme_from_palette(dark=prefs.dark)
+        self._theme_choice = prefs.dark
+        self.scene = DiagramScene(self.document, self.theme, grid_size=prefs.grid_size, parent=self)
+        self.view = DiagramView(self.scene)
+        self.view.setObjectName("canvas")
+        self.setCentralWidget(self.view)
+        self.setDockNestingEnabled(True)
+        self.shelf = Shelf(self.theme)
+        self.inspector = Inspector(self.document)
+        self.problems = ProblemsList()
+        self.shelf_dock = self._dock("Shelf", "shelf_dock", self.shelf, Qt.DockWidgetArea.LeftDockWidgetArea)
+        self.inspector_dock = self._dock("Inspector", "inspector_dock", self.inspector, Qt.DockWidgetArea.RightDockWidgetArea)
+        self.problems_dock = self._dock("Problems", "problems_dock", self.problems, Qt.DockWidgetArea.BottomDockWidgetArea)
+        self.live = LiveModel(self.document, debounce_ms=prefs.debounce_ms, parent=self)
+        self.autosaver = Autosaver(prefs.autosave_dir)
+        self._autosave_timer = QTimer(self)
+        if prefs.autosave_interval_s > 0:
+            self._autosave_timer.setInterval(int(prefs.autosave_interval_s * 1000))
+            self._autosave_timer.timeout.connect(self.autosave_now)
+            self._autosave_timer.start()
+        self._model_label = QLabel("checking…")
+        self._model_label.setObjectName("model_status")
+        self._model_label.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
+        self.statusBar().addPermanentWidget(self._model_label, 1)
+        self._build_actions()
+        self._build_menus()
+        self._build_toolbar()
+        self.scene.selectionChanged.connect(self._on_selection_changed)
+        self.scene.edit_refused.connect(lambda msg: self.statusBar().showMessage(msg, 8000))
+        self.shelf.place_requested.connect(self._place_from_shelf)
+        self.problems.culprits_chosen.connect(self.select_culprits)
+        self.live.result_ready.connect(self._on_live_result)
+        self.live.busy_changed.connect(self._on_busy)
+        self.document.undo_stack.cleanChanged.connect(lambda _c: self._update_title())
+        self.document.path_changed.connect(lambda _p: self._update_title())
+        self.document.diagram_replaced.connect(self._on_diagram_replaced)
+        self._closing_ok = False
+        self._update_title()
+        self.resize(1400, 900)
+        self._docks_sized = False
+        state = settings.value("window/state")
+        if state is not None:
+            self.restoreState(state)
+        self.live.request_now()
+
+    # ---- construction --------------------------------------------------------------------------
+    def _dock(self, title: str, name: str, widget, area) -> QDockWidget:
+        dock = QDockWidget(title, self)
+        dock.setObjectName(name)
+        dock.setWidget(widget)
+        self.addDockWidget(area, dock)
+        return dock
+
+    def _action(self, text: str, slot, *, shortcut=None, tip: str = "", icon=None, name: str | None = None) -> QAction:
+        act = QAction(text, self)
+        if icon is not None:
+            act.setIcon(self.style().standardIcon(icon))
+        if shortcut is not None:
+            if isinstance(shortcut, QKeySequence.StandardKey):
+                act.setShortcuts(shortcut)
+            else:
+                act.setShortcut(QKeySequence(shortcut))
+        if tip:
+            act.setStatusTip(tip)
+            act.setToolTip(tip)
+        act.triggered.connect(lambda _checked=False: slot())
+        act.setObjectName(name or text.lower().replace(" ", "_").replace("…", "").replace("&", ""))
+        self.addAction(act)
+        return act
+
+    def _build_actions(self) -> None:
+        SK, SP = QKeySequence.StandardKey, QStyle.StandardPixmap
+        a = self.actions_ = {}
+        a["new"] = self._action("&New", self.new_diagram, shortcut=SK.New, icon=SP.SP_FileIcon, tip="Start an empty diagram")
+        a["open"] = self._action("&Open…", self.open_dialog, shortcut=SK.Open, icon=SP.SP_DialogOpenButton, tip="Open a diagram file")
+        a["save"] = self._action("&Save", self.save, shortcut=SK.Save, icon=SP.SP_DialogSaveButton, tip="Save the diagram")
+        a["save_as"] = self._action("Save &as…", self.save_as, shortcut=SK.SaveAs, tip="Save the diagram under a new name")
+        a["close"] = self._action("&Close window", self.close, shortcut=SK.Close)
+        a["quit"] = self._action("&Quit", self._quit, shortcut=SK.Quit)
+        undo = self.document.undo_stack.createUndoAction(self, "&Undo")
+        undo.setShortcuts(SK.Undo)
+        undo.setObjectName("undo")
+        redo = self.document.undo_stack.createRedoAction(self, "&Redo")
+        redo.setShortcuts(SK.Redo)
+        redo.setObjectName("redo")
+        a["undo"], a["redo"] = undo, redo
+        a["cut"] = self._action("Cu&t", self.cut, shortcut=SK.Cut)
+        a["copy"] = self._action("&Copy", self.copy, shortcut=SK.Copy)
+        a["paste"] = self._action("&Paste", self.paste, shortcut=SK.Paste)
+        a["delete"] = self._action("&Delete", self.delete_selection, shortcut=SK.Delete)
+        a["select_all"] = self._action("Select &all", self.select_all, shortcut=SK.SelectAll)
+        a["rename"] = self._action("&Rename", self.rename_selected, shortcut="F2", tip="Rename the selected block or signal in place")
+        a["rotate"] = self._action("&Turn a quarter", self.rotate_selection, shortcut="Ctrl+R", tip="Turn the selected blocks 90° clockwise")
+        a["flip"] = self._action("&Mirror", self.flip_selection, shortcut="Ctrl+M", tip="Mirror the selected blocks (feedback paths run right to left)")
+        a["align_left"] = self._action("Line up &left edges", lambda: self.align("left"))
+        a["align_right"] = self._action("Line up &right edges", lambda: self.align("right"))
+        a["align_top"] = self._action("Line up &top edges", lambda: self.align("top"))
+        a["align_bottom"] = self._action("Line up &bottom edges", lambda: self.align("bottom"))
+        a["align_hcenter"] = self._action("Line up centres &vertically", lambda: self.align("hcenter"))
+        a["align_vcenter"] = self._action("Line up centres &horizontally", lambda: self.align("vcenter"))
+        a["spread_h"] = self._action("Space &evenly across", lambda: self.distribute("h"))
+        a["spread_v"] = self._action("Space evenly &down", lambda: self.distribute("v"))
+        a["zoom_in"] = self._action("Zoom &in", self.view.zoom_in, shortcut=SK.ZoomIn)
+        a["zoom_out"] = self._action("Zoom &out", self.view.zoom_out, shortcut=SK.ZoomOut)
+        a["zoom_fit"] = self._action("&Fit to window", self.view.fit_to_view, shortcut="Ctrl+0", tip="Show the whole diagram")
+        a["zoom_reset"] = self._action("&Actual size", self.view.zoom_reset, shortcut="Ctrl+1")
+        a["check_now"] = self._action("Check &now", self.live.request_now, shortcut=SK.Refresh, tip="Re-check the diagram at once")
+        a["about"] = self._action("&About Loopwright", self.show_about, shortcut=None)
+
+    def _build_menus(self) -> None:
+        a = self.actions_
+        mb = self.menuBar()
+        m = mb.addMenu("&File")
+        for k in ("new", "open"):
+            m.addAction(a[k])
+        self.samples_menu = m.addMenu("Open &sample")
+        self.samples_menu.setObjectName("samples_menu")
+        for p in sample_paths():
+            act = self.samples_menu.addAction(p.stem.replace("_", " "))
+            act.setData(str(p))
+            act.triggered.connect(lambda _c=False, path=str(p): self.open_sample(path))
+        self.recent_menu = m.addMenu("Open &recent")
+        self.recent_menu.aboutToShow.connect(self._fill_recent)
+        self._fill_recent()
+        m.addSeparator()
+        for k in ("save", "save_as"):
+            m.addAction(a[k])
+        m.addSeparator()
+        m.addAction(a["close"])
+        m.addAction(a["quit"])
+        m = mb.addMenu("&Edit")
+        for k in ("undo", "redo", None, "cut", "copy", "paste", "delete", None, "select_all", "rename"):
+            m.addSeparator() if k is None else m.addAction(a[k])
+        m = mb.addMenu("&Arrange")
+        for k in ("rotate", "flip", None, "align_left", "align_right", "align_hcenter", "align_top", "align_bottom", "align_vcenter",
+                  None, "spread_h", "spread_v"):
+            m.addSeparator() if k is None else m.addAction(a[k])
+        m = mb.addMenu("&View")
+        for k in ("zoom_in", "zoom_out", "zoom_fit", "zoom_reset", None, "check_now"):
+            m.addSeparator() if k is None else m.addAction(a[k])
+        m.addSeparator()
+        for dock in (self.shelf_dock, self.inspector_dock, self.problems_dock):
+            m.addAction(dock.toggleViewAction())
+        theme_menu = m.addMenu("Canvas &colours")
+        group = QActionGroup(self)
+        for label, choice in (("Follow the system", None), ("Light", False), ("Dark", True)):
+            act = theme_menu.addAction(label)
+            act.setCheckable(True)
+            act.setChecked(choice == self._theme_choice)
+            act.triggered.connect(lambda _c=False, ch=choice: self.set_theme_choice(ch))
+            group.addAction(act)
+        m = mb.addMenu("&Help")
+        m.addAction(a["about"])
+
+    def _build_toolbar(self) -> None:
+        tb = self.addToolBar("Main")
+        tb.setObjectName("main_toolbar")
+        a = self.actions_
+        for k in ("new", "open", "save", None, "undo", "redo", None, "rotate", "flip", None, "zoom_fit"):
+            tb.addSeparator() if k is None else tb.addAction(a[k])
+
+    def showEvent(self, event) -> None:
+        super().showEvent(event)
+        if not self._docks_sized and self.settings.value("window/state") is None:
+            # Dock sizes only take once the window has its size: keep the canvas large.
+            self._docks_sized = True
+            self.resizeDocks([self.problems_dock], [110], Qt.Orientation.Vertical)
+            self.resizeDocks([self.shelf_dock, self.inspector_dock], [190, 330], Qt.Orientation.Horizontal)
+
+    # ---- title, status --------------------------------------------------------------------------
+    def _update_title(self) -> None:
+        d = self.document
+        name = d.title() if d.path else self.document.diagram.meta.get("title", "untitled") if False else d.title()
+        self.setWindowTitle(f"{name}{' *' if d.is_dirty else ''} — Loopwright")
+        self.setWindowModified(d.is_dirty)
+
+    def _on_busy(self, busy: bool) -> None:
+        if busy:
+            self._model_label.setText("checking…  " + (status_text(self.live.latest) if self.live.latest else ""))
+
+    def _on_live_result(self, result: LiveResult) -> None:
+        text = status_text(result)
+        self._model_label.setText(text)
+        self._model_label.setToolTip("\n".join(getattr(result.report, "warnings", ()) or ()) or text)
+        self.scene.set_problems(result.problems)
+        self.scene.set_widths(result.widths)
+        self.inspector.set_live_widths(result.widths)
+        self.problems.set_problems(result.problems)
+        self.problems_dock.setWindowTitle(f"Problems ({len(result.problems)})" if result.problems else "Problems")
+        self.live_updated.emit(result)
+
+    def _on_selection_changed(self) -> None:
+        try:
+            self.inspector.show_selection(self.scene.selected_block_ids(), self.scene.selected_wire_ids())
+        except RuntimeError:
+            pass  # the scene is being torn down
+
+    def _on_diagram_replaced(self) -> None:
+        self._update_title()
+        self.view.fit_to_view()
+
+    def select_culprits(self, block_ids, wire_ids) -> None:
+        self.scene.select_ids(block_ids, wire_ids)
+        items = [self.scene.block_items[b] for b in block_ids if b in self.scene.block_items]
+        items += [self.scene.wire_items[w] for w in wire_ids if w in self.scene.wire_items]
+        if items:
+            self.view.centerOn(items[0])
+
+    # ---- files ----------------------------------------------------------------------------------
+    def _confirm_discard(self) -> bool:
+        """True if it is fine to drop the current diagram (saved, or the user agreed)."""
+        if not self.document.is_dirty:
+            return True
+        answer = self.dialogs.ask_save_changes(self.document.title())
+        if answer == "save":
+            return self.save()
+        return answer == "discard"
+
+    def new_diagram(self) -> None:
+        if self._confirm_discard():
+            self.document.replace_diagram(Diagram())
+            self.autosaver.clear()
+
+    def open_dialog(self) -> None:
+        folder = str(Path(self.document.path).parent) if self.document.path else ""
+        path = self.dialogs.open_path(folder)
+        if path:
+            self.open_path(path)
+
+    def open_path(self, path: str, *, as_untitled: bool = False) -> bool:
+        """Open ``path``; on any engine error show its message and change nothing."""
+        try:
+            diagram = load(path)
+        except EngineError as err:
+            self.dialogs.error("Cannot open diagram", str(err))
+            return False
+        if not self._confirm_discard():
+            return False
+        self.document.replace_diagram(diagram, path=None if as_untitled else str(Path(path).resolve()))
+        self.autosaver.clear()
+        if not as_untitled:
+            self.recent.add(path)
+        return True
+
+    def open_sample(self, path: str) -> bool:
+        """Open a bundled sample as an untitled copy (saving asks where)."""
+        return self.open_path(path, as_untitled=True)
+
+    def _fill_recent(self) -> None:
+        self.recent_menu.clear()
+        paths = self.recent.paths()
+        for p in paths:
+            act = self.recent_menu.addAction(p)
+            act.triggered.connect(lambda _c=False, path=p: self.open_path(path))
+        if not paths:
+            act = self.recent_menu.addAction("(none yet)")
+            act.setEnabled(False)
+        else:
+            self.recent_menu.addSeparator()
+            self.recent_menu.addAction("Clear this list", self.recent.clear)
+
+    def save(self) -> bool:
+        if not self.document.path:
+            return self.save_as()
+        return self.save_to(self.document.path)
+
+    def save_as(self) -> bool:
+        path = self.dialogs.save_path(self.document.path or f"untitled{FILE_SUFFIX}")
+        return self.save_to(path) if path else False
+
+    def save_to(self, path: str) -> bool:
+        try:
+            save(self.document.diagram, path)
+        except (EngineError, OSError) as err:
+            self.dialogs.error("Cannot save diagram", str(err))
+            return False
+        self.document.mark_saved(str(Path(path).resolve()))
+        self.recent.add(path)
+        self.autosaver.clear()
+        self.statusBar().showMessage(f"Saved {path}", 4000)
+        return True
+
+    def autosave_now(self) -> Path | None:
+        """Write the autosave copy if there are unsaved changes."""
+        if not self.document.is_dirty:
+            return None
+        try:
+            return self.autosaver.write(self.document.diagram, self.document.path)
+        except (EngineError, OSError) as err:
+            self.statusBar().showMessage(f"Autosave failed: {err}", 8000)
+            return None
+
+    def offer_recovery(self) -> bool:
+        """If an earlier run left autosaves behind, offer the newest one; True if recovered."""
+        leftovers = [lo for lo in find_leftovers(self.prefs.autosave_dir) if lo.path != self.autosaver.path]
+        if not leftovers:
+            return False
+        newest = leftovers[0]
+        recovered = False
+        if self.dialogs.ask_recover(newest.describe()):
+            try:
+                diagram = load(newest.path)
+            except EngineError as err:
+                self.dialogs.error("Cannot recover", str(err))
+            else:
+                self.document.replace_diagram(diagram, path=newest.original, dirty=True)
+                recovered = True
+                self.autosave_now()
+        for lo in leftovers:
+            lo.discard()
+        return recovered
+
+    def closeEvent(self, event) -> None:
+        if not self._closing_ok and not self._confirm_discard():
+            event.ignore()
+            return
+        self.settings.setValue("window/state", self.saveState())
+        self._autosave_timer.stop()
+        self.live.shutdown()
+        self.autosaver.clear()
+        event.accept()
+
+    def _quit(self) -> None:
+        for w in QGuiApplication.topLevelWindows():
+            _ = w
+        self.close()
+
+    # ---- editing ----------------------------------------------------------------------------------
+    def _place_from_shelf(self, kind: str, params) -> None:
+        centre = self.view.mapToScene(self.view.viewport().rect().center())
+        offset = 10.0 * (len(self.document.diagram.blocks) % 5)
+        self.scene.place_block(kind, QPointF(centre.x() + offset, centre.y() + offset), params)
+
+    def _push(self, command) -> bool:
+        try:
+            self.document.push(command)
+        except EngineError as err:
+            self.statusBar().showMessage(str(err), 8000)
+            return False
+        return True
+
+    def delete_selection(self) -> None:
+        cmd = DeleteItems(self.document, self.scene.selected_block_ids(), self.scene.selected_wire_ids())
+        if not cmd.is_empty():
+            self._push(cmd)
+
+    def select_all(self) -> None:
+        for item in list(self.scene.block_items.values()) + list(self.scene.wire_items.values()):
+            item.setSelected(True)
+
+    def copy(self) -> bool:
+        ids = self.scene.selected_block_ids()
+        if not ids:
+            return False
+        QGuiApplication.clipboard().setMimeData(fragment_to_mime(make_fragment(self.document.diagram, ids)))
+        return True
+
+    def cut(self) -> None:
+        if self.copy():
+            cmd = DeleteItems(self.document, self.scene.selected_block_ids(), self.scene.selected_wire_ids())
+            cmd.setText("Cut")
+            self._push(cmd)
+
+    def paste(self) -> list[str]:
+        try:
+            fragment = fragment_from_mime(QGuiApplication.clipboard().mimeData())
+        except EngineError as err:
+            self.statusBar().showMessage(f"Cannot paste: {err}", 8000)
+            return []
+        if fragment is None or not fragment.blocks:
+            self.statusBar().showMessage("The clipboard holds no blocks", 4000)
+            return []
+        cmd = PasteFragment(self.document, fragment, offset=(40.0, 40.0))
+        if not self._push(cmd):
+            return []
+        self.scene.select_ids(cmd.block_ids)
+        return cmd.block_ids
+
+    def rename_selected(self) -> None:
+        items = self.scene.selectedItems()
+        if len(items) == 1:
+            self.view.begin_rename(items[0])
+
+    def rotate_selection(self) -> None:
+        d = self.document.diagram
+        changes = {b: {"rotation": (int(d.blocks[b].layout.get("rotation", 0) or 0) + 90) % 360} for b in self.scene.selected_block_ids()}
+        if changes:
+            self._push(MoveBlocks(self.document, changes, text="Turn"))
+
+    def flip_selection(self) -> None:
+        d = self.document.diagram
+        changes = {b: {"flip": not bool(d.blocks[b].layout.get("flip", False))} for b in self.scene.selected_block_ids()}
+        if changes:
+            self._push(MoveBlocks(self.document, changes, text="Mirror"))
+
+    def align(self, edge: str) -> None:
+        items = [self.scene.block_items[b] for b in self.scene.selected_block_ids()]
+        if len(items) < 2:
+            return
+        rects = {it.block_id: it.body_scene_rect() for it in items}
+        pos = {it.block_id: it.pos() for it in items}
+        changes = {}
+        if edge == "left":
+            ref = min(r.left() for r in rects.values())
+            changes = {b: {"x": pos[b].x() + ref - r.left()} for b, r in rects.items()}
+        elif edge == "right":
+            ref = max(r.right() for r in rects.values())
+            changes = {b: {"x": pos[b].x() + ref - r.right()} for b, r in rects.items()}
+        elif edge == "top":
+            ref = min(r.top() for r in rects.values())
+            changes = {b: {"y": pos[b].y() + ref - r.top()} for b, r in rects.items()}
+        elif edge == "bottom":
+            ref = max(r.bottom() for r in rects.values())
+            changes = {b: {"y": pos[b].y() + ref - r.bottom()} for b, r in rects.items()}
+        elif edge == "hcenter":
+            ref = sum(p.x() for p in pos.values()) / len(pos)
+            changes = {b: {"x": ref} for b in pos}
+        elif edge == "vcenter":
+            ref = sum(p.y() for p in pos.values()) / len(pos)
+            changes = {b: {"y": ref} for b in pos}
+        changes = {b: {k: float(round(v, 6)) for k, v in c.items()} for b, c in changes.items()}
+        self._push(MoveBlocks(self.document, changes, text="Line up"))
+
+    def distribute(self, axis: str) -> None:
+        items = [self.scene.block_items[b] for b in self.scene.selected_block_ids()]
+        if len(items) < 3:
+            return
+        key = (lambda it: it.pos().x()) if axis == "h" else (lambda it: it.pos().y())
+        items.sort(key=key)
+        first, last = key(items[0]), key(items[-1])
+        step = (last - first) / (len(items) - 1)
+        coord = "x" if axis == "h" else "y"
+        changes = {it.block_id: {coord: float(first + k * step)} for k, it in enumerate(items)}
+        self._push(MoveBlocks(self.document, changes, text="Space evenly"))
+
+    # ---- theme, about ---------------------------------------------------------------------------
+    def set_theme_choice(self, dark: bool | None) -> None:
+        self._theme_choice = dark
+        self.theme = theme_from_palette(dark=dark)
+        self.scene.set_theme(self.theme)
+        self.view.resetCachedContent()
+
+    def changeEvent(self, event) -> None:
+        if event.type() in (QEvent.Type.PaletteChange, QEvent.Type.ApplicationPaletteChange) and self._theme_choice is None:
+            self.set_theme_choice(None)
+        super().changeEvent(event)
+
+    def about_text(self) -> str:
+        return (
+            f"<h3>Loopwright {__version__}</h3>"
+            "<p>Draw an observer-based control loop with its disturbances and sensor noise, "
+            "and get one closed-loop model of exactly that drawing.</p>"
+            f"<p><b>{CAUTION}</b></p>"
+        )
+
+    def show_about(self) -> None:
+        self.dialogs.info("About Loopwright", self.about_text())

@@ -1,0 +1,35 @@
+"""The problems list: every error the engine finds in the diagram; clicking one selects
+its culprits on the canvas."""
+from __future__ import annotations
+
+from PySide6.QtCore import Qt, Signal
+from PySide6.QtWidgets import QListWidget, QListWidgetItem, QStyle
+
+__all__ = ["ProblemsList"]
+
+
+class ProblemsList(QListWidget):
+    """Shows ``Problem`` objects; emits ``culprits_chosen(block_ids, wire_ids)`` on a click."""
+
+    culprits_chosen = Signal(list, list)
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.setObjectName("problems_list")
+        self.setWordWrap(True)
+        self.itemClicked.connect(self._on_clicked)
+        self.itemActivated.connect(self._on_clicked)
+
+    def set_problems(self, problems) -> None:
+        self.clear()
+        err_icon = self.style().standardIcon(QStyle.StandardPixmap.SP_MessageBoxCritical)
+        warn_icon = self.style().standardIcon(QStyle.StandardPixmap.SP_MessageBoxWarning)
+        for p in problems:
+            item = QListWidgetItem(err_icon if getattr(p, "severity", "error") == "error" else warn_icon, p.message)
+            item.setData(Qt.ItemDataRole.UserRole, (list(p.block_ids), list(p.wire_ids)))
+            item.setToolTip(p.message)
+            self.addItem(item)
+
+    def _on_clicked(self, item: QListWidgetItem) -> None:
+        blocks, wires = item.data(Qt.ItemDataRole.UserRole)
+        self.culprits_chosen.emit(list(blocks), list(wires))

@@ -1,0 +1,162 @@
+"""Keeps the live model of the open diagram up to date without freezing the window.
+
+After each edit the document's ``changed`` signal restarts a short single-shot timer
+(debounce). When it fires, a deep snapshot of the diagram is sent, tagged with the
+document's revision, to a one-worker executor. The worker validates, computes signal
+widths and the check report (all through the engine). Its result comes back through a
+Qt signal emitted from the worker thread to an object living on the GUI thread, so Qt
+queues the delivery; a result whose revision is no longer the document's is dropped.
+"""
+from __future__ import annotations
+
+from concurrent.futures import Future, ThreadPoolExecutor
+from dataclasses import dataclass, field
+
+from PySide6.QtCore import QObject, QTimer, Signal
+
+from loopwright.engine.diagram import Diagram
+from loopwright.engine.errors import EngineError
+
+__all__ = ["LiveResult", "LiveModel", "compute_live_result"]
+
+
+@dataclass(frozen=True)
+class LiveResult:
+    """What the window shows about one revision of the diagram.
+
+    Attributes
+    ----------
+    revision : int
+        The document revision the snapshot was taken at.
+    problems : list
+        ``Problem`` objects from the engine (message, block_ids, wire_ids, severity).
+    widths : dict
+        Signal width by wire id, for every wire whose source block can be read.
+    report : CheckReport or None
+        The engine's summary when the diagram assembles.
+    error : str or None
+        Why there is no report (the engine's message), if there is none.
+    """
+
+    revision: int
+    problems: list = field(default_factory=list)
+    widths: dict = field(default_factory=dict)
+    report: object | None = None
+    error: str | None = None
+
+
+def compute_live_result(diagram: Diagram, revision: int) -> LiveResult:
+    """Validate and summarise a diagram snapshot (runs on the worker thread)."""
+    from loopwright.engine.blocks import port_widths
+    from loopwright.engine.check import summarize
+    from loopwright.engine.validation import problems as find_problems
+
+    widths: dict[str, int] = {}
+    cache: dict[str, dict] = {}
+    for w in diagram.wires.values():
+        bid = w.source.block
+        if bid not in cache:
+            try:
+                cache[bid] = port_widths(diagram.blocks[bid], diagram)[1]
+            except (EngineError, KeyError):
+                cache[bid] = {}
+        if w.source.port in cache[bid]:
+            widths[w.id] = int(cache[bid][w.source.port])
+    try:
+        found = list(find_problems(diagram))
+    except EngineError as err:
+        found = []
+        error = str(err)
+    else:
+        error = None
+    report = None
+    if not diagram.blocks:
+        error = "empty diagram"
+    elif not any(getattr(p, "severity", "error") == "error" for p in found) and error is None:
+        try:
+            report = summarize(diagram)
+        except EngineError as err:
+            error = str(err)
+    else:
+        errs = [p for p in found if getattr(p, "severity", "error") == "error"]
+        if errs and error is None:
+            error = f"{len(errs)} problem{'s' if len(errs) > 1 else ''}: {errs[0].message}"
+    return LiveResult(revision=revision, problems=found, widths=widths, report=report, error=error)
+
+
+class LiveModel(QObject):
+    """Re-assembles the document's diagram off the GUI thread after each quiet spell.
+
+    Signals
+    -------
+    result_ready(LiveResult)
+        A fresh result for the document's current revision (GUI thread).
+    busy_changed(bool)
+        True while a request is queued or running.
+    """
+
+    result_ready = Signal(object)
+    busy_changed = Signal(bool)
+    _finished = Signal(object)  # emitted on the worker thread; queued to the GUI thread
+
+    def __init__(self, document, *, debounce_ms: int = 150, parent: QObject | None = None):
+        super().__init__(parent)
+        self._doc = document
+        self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-live")
+        self._timer = QTimer(self)
+        self._timer.setSingleShot(True)
+        self._timer.setInterval(debounce_ms)
+        self._timer.timeout.connect(self.request_now)
+        self._pending: Future | None = None
+        self._closed = False
+        self.latest: LiveResult | None = None
+        self.discarded = 0
+        self._finished.connect(self._on_finished)
+        document.changed.connect(self._on_changed)
+
+    def _on_changed(self, revision: int) -> None:
+        self._timer.start()
+        self.busy_changed.emit(True)
+
+    def request_now(self) -> None:
+        """Send the current diagram to the worker at once (skipping the debounce)."""
+        if self._closed:
+            return
+        self._timer.stop()
+        if self._pending is not None:
+            self._pending.cancel()  # only succeeds while it waits; a running one is dropped later
+        revision = self._doc.revision
+        snapshot = self._doc.snapshot()
+        fut = self._executor.submit(compute_live_result, snapshot, revision)
+        fut.add_done_callback(self._deliver)
+        self._pending = fut
+        self.busy_changed.emit(True)
+
+    def _deliver(self, fut: Future) -> None:
+        if fut.cancelled() or self._closed:
+            return
+        try:
+            result = fut.result()
+        except Exception as err:  # an engine bug must not kill the window: show it as a problem
+            result = LiveResult(revision=-1, error=f"internal error while checking the diagram: {err!r}")
+        try:
+            self._finished.emit(result)
+        except RuntimeError:
+            pass  # the window was closed while the worker ran
+
+    def _on_finished(self, result: LiveResult) -> None:
+        if result.revision != self._doc.revision and result.revision != -1:
+            self.discarded += 1
+            return
+        self.latest = result
+        self.busy_changed.emit(self._timer.isActive())
+        self.result_ready.emit(result)
+
+    def is_current(self) -> bool:
+        """True when the latest result belongs to the document's current revision."""
+        return self.latest is not None and self.latest.revision == self._doc.revision and not self._timer.isActive()
+
+    def shutdown(self) -> None:
+        self._closed = True
+        self._timer.stop()
+        self._executor.shutdown(wait=True, cancel_futures=True)
