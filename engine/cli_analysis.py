@@ -1,0 +1,398 @@
+"""Analysis commands of the headless CLI: ``freq``, ``time``, ``margins``, ``audit``, ``noise``.
+
+Each handler loads the diagram, assembles it, computes, and prints an aligned table by
+default, one JSON object with ``--json`` (always carrying ``"caution"``), or CSV with
+``--csv``. Wrong names raise :class:`UnknownNameError` (with the nearest valid names),
+which :func:`loopwright.engine.cli.main` turns into one line and exit status 2.
+"""
+from __future__ import annotations
+
+import argparse
+
+import numpy as np
+
+from loopwright.engine import CAUTION
+from loopwright.engine.cli_common import fmt_num, load_diagram, print_json, write_csv
+from loopwright.engine.errors import ParameterError
+from loopwright.engine.interconnect import assemble
+
+__all__ = ["add_commands"]
+
+
+def add_commands(subparsers) -> None:
+    """Add the analysis sub-commands to the ``loopwright`` parser."""
+    p = subparsers.add_parser("freq", help="frequency response of one path (input -> signal)")
+    p.add_argument("file", help="diagram file (.lwd)")
+    p.add_argument("--from", dest="source", required=True, metavar="INPUT", help="a source name, or a signal name (its injection)")
+    p.add_argument("--to", dest="signal", required=True, metavar="SIGNAL", help="signal name")
+    p.add_argument("--w-min", type=float, default=None, help="lowest frequency, rad/s")
+    p.add_argument("--w-max", type=float, default=None, help="highest frequency, rad/s")
+    p.add_argument("--points", type=int, default=None, help="number of log-spaced frequencies (default: automatic grid)")
+    _format_flags(p)
+    p.set_defaults(run=_freq)
+
+    p = subparsers.add_parser("time", help="step, impulse or source-driven time response")
+    p.add_argument("file", help="diagram file (.lwd)")
+    mode = p.add_mutually_exclusive_group()
+    mode.add_argument("--step", metavar="INPUT", default=None, help="unit step on this input")
+    mode.add_argument("--impulse", metavar="INPUT", default=None, help="unit impulse on this input")
+    mode.add_argument("--run", action="store_true", help="drive the diagram with its sources' own waveforms (default)")
+    p.add_argument("--to", dest="signals", required=True, metavar="SIGNAL[,SIGNAL]", help="signals to report, comma-separated")
+    p.add_argument("--t-end", type=float, default=None, help="end time, s")
+    p.add_argument("--dt", type=float, default=None, help="time step, s")
+    _format_flags(p)
+    p.set_defaults(run=_time)
+
+    p = subparsers.add_parser("margins", help="gain, phase, delay and disk margins at a loop break")
+    p.add_argument("file", help="diagram file (.lwd)")
+    p.add_argument("--at", dest="signal", default=None, metavar="SIGNAL", help="signal where the loop is broken (default: the diagram's loop break)")
+    p.add_argument("--skew", type=float, default=0.0, help="disk-margin skew (0 balanced, 1 for [1/2, inf)-type guarantees)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(run=_margins)
+
+    p = subparsers.add_parser("audit", help="rank every source-to-signal path (peak gain, H2, DC gain, stability)")
+    p.add_argument("file", help="diagram file (.lwd)")
+    p.add_argument("--injections", action="store_true", help="also audit the injection on every signal")
+    p.add_argument("--top", type=int, default=None, help="show only the first N rows")
+    _format_flags(p)
+    p.set_defaults(run=_audit)
+
+    p = subparsers.add_parser("noise", help="noise budget: steady-state RMS of every signal, split by source")
+    p.add_argument("file", help="diagram file (.lwd)")
+    _format_flags(p)
+    p.set_defaults(run=_noise)
+
+
+def _format_flags(p) -> None:
+    fmt = p.add_mutually_exclusive_group()
+    fmt.add_argument("--json", action="store_true", help="print one JSON object")
+    fmt.add_argument("--csv", action="store_true", help="print CSV")
+
+
+def _table(header: list[str], rows: list[list[str]], *, indent: str = "  ") -> None:
+    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)]
+    print(indent + "  ".join(h.rjust(w) if i else h.ljust(w) for i, (h, w) in enumerate(zip(header, widths))))
+    for r in rows:
+        print(indent + "  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths))))
+
+
+# ---------------------------------------------------------------------------------------
+# freq
+
+
+def _freq(args: argparse.Namespace) -> int:
+    from loopwright.engine.responses import (
+        auto_frequency_grid,
+        magnitude_db,
+        phase_deg,
+        reduce_model,
+        reduced_response,
+        refine_grid_at_peaks,
+    )
+    from loopwright.engine.norms import sigma_max
+
+    diagram = load_diagram(args.file)
+    model = assemble(diagram)
+    grp = model.resolve_input(args.source)
+    sig = model.resolve_signal(args.signal)
+    A, B, C, D = model.pair(grp, sig)
+    red = reduce_model(A)
+    Bt, Ct = red.input_matrix(B), red.output_matrix(C)
+
+    def evaluate(w):
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float))
+
+    for name, v in (("--w-min", args.w_min), ("--w-max", args.w_max)):
+        if v is not None and not v > 0:
+            raise ParameterError(f"{name} must be a positive frequency in rad/s; got {v}", field=name)
+    if args.points is not None and args.points < 2:
+        raise ParameterError(f"--points must be at least 2; got {args.points}", field="--points")
+    if args.points is not None:
+        auto = auto_frequency_grid(red.poles)
+        lo = args.w_min if args.w_min is not None else auto[0]
+        hi = args.w_max if args.w_max is not None else auto[-1]
+        if not hi > lo:
+            raise ParameterError(f"--w-max ({hi}) must exceed --w-min ({lo})", field="--w-max")
+        w = np.logspace(np.log10(lo), np.log10(hi), args.points)
+        G = evaluate(w)
+    else:
+        w = auto_frequency_grid(red.poles, w_min=args.w_min, w_max=args.w_max)
+        G = evaluate(w)
+        w, _ = refine_grid_at_peaks(lambda x: sigma_max(evaluate(x)), w, sigma_max(G))
+        G = evaluate(w)
+    mag = magnitude_db(G)
+    ph = phase_deg(G)
+    in_names = [model.input_names[i] for i in range(model.inputs[grp].start, model.inputs[grp].stop)]
+    out_names = [model.output_names[i] for i in range(model.signals[sig].start, model.signals[sig].stop)]
+    elements = [(i, j, f"{out_names[i]} <- {in_names[j]}") for i in range(len(out_names)) for j in range(len(in_names))]
+    scalar = len(elements) == 1
+    if args.json:
+        out = {
+            "file": args.file,
+            "from": grp,
+            "to": sig,
+            "w": w,
+            "units": {"w": "rad/s", "mag_db": "dB", "phase_deg": "deg"},
+            "mag_db": mag[:, 0, 0] if scalar else mag,
+            "phase_deg": ph[:, 0, 0] if scalar else ph,
+            "re": G.real[:, 0, 0] if scalar else G.real,
+            "im": G.imag[:, 0, 0] if scalar else G.imag,
+            "shape": "per frequency" if scalar else "per frequency [output][input]",
+            "elements": [
+                {"output": out_names[i], "input": in_names[j], "mag_db": mag[:, i, j], "phase_deg": ph[:, i, j]} for i, j, _ in elements
+            ],
+            "caution": CAUTION,
+        }
+        if not scalar:
+            out["sigma_max_db"] = 20 * np.log10(np.maximum(sigma_max(G), 1e-300))
+        print_json(out)
+        return 0
+    if args.csv:
+        header = ["w_rad_s"]
+        for _, _, label in elements:
+            header += [f"mag_db[{label}]", f"phase_deg[{label}]"]
+        rows = []
+        for k in range(w.size):
+            row = [float(w[k])]
+            for i, j, _ in elements:
+                row += [float(mag[k, i, j]), float(ph[k, i, j])]
+            rows.append(row)
+        write_csv(rows, header)
+        return 0
+    print(f"{args.file}: frequency response {grp} -> {sig} ({w.size} frequencies)")
+    header = ["w (rad/s)"]
+    for _, _, label in elements:
+        header += [f"|G| dB {label}" if not scalar else "|G| (dB)", "phase (deg)"]
+    step = max(1, w.size // 60)
+    idx = sorted(set(range(0, w.size, step)) | {int(np.nanargmax(np.where(np.isfinite(mag[:, 0, 0]), mag[:, 0, 0], -np.inf)))})
+    rows = []
+    for k in idx:
+        row = [fmt_num(w[k], digits=5)]
+        for i, j, _ in elements:
+            row += [fmt_num(mag[k, i, j], digits=5), fmt_num(ph[k, i, j], digits=5)]
+        rows.append(row)
+    _table(header, rows)
+    if step > 1:
+        print(f"  (every {step}th point shown, plus the peak; --csv or --json gives all)")
+    print(f"\n  {CAUTION}")
+    return 0
+
+
+# ---------------------------------------------------------------------------------------
+# time
+
+
+def _time_grid(diagram, model, t_end, dt) -> np.ndarray:
+    settings = diagram.settings.get("time") or {}
+    t_end = t_end if t_end is not None else settings.get("t_end")
+    dt = dt if dt is not None else settings.get("dt")
+    if t_end is None:
+        ev = np.linalg.eigvals(model.A) if model.A.size else np.array([-1.0])
+        slow = np.abs(ev.real[ev.real < 0])
+        t_end = float(min(8.0 / slow.min(), 1e4)) if slow.size else 10.0
+    if dt is None:
+        dt = t_end / 2000.0
+    t_end, dt = float(t_end), float(dt)
+    if not (t_end > 0 and dt > 0 and dt < t_end):
+        raise ParameterError(f"need 0 < dt < t_end; got dt = {dt} s, t_end = {t_end} s", field="--dt")
+    if t_end / dt > 5e6:
+        raise ParameterError(f"{t_end / dt:.3g} time steps requested; at most 5e6 (raise --dt)", field="--dt")
+    N = int(round(t_end / dt)) + 1
+    return np.arange(N) * dt
+
+
+def _time(args: argparse.Namespace) -> int:
+    from loopwright.engine.responses import impulse_response, source_run, step_response
+
+    diagram = load_diagram(args.file)
+    model = assemble(diagram)
+    sigs = [model.resolve_signal(s.strip()) for s in args.signals.split(",") if s.strip()]
+    if not sigs:
+        raise ParameterError("--to needs at least one signal name", field="--to")
+    t = _time_grid(diagram, model, args.t_end, args.dt)
+    rows = [i for s in sigs for i in range(model.signals[s].start, model.signals[s].stop)]
+    out_names = [model.output_names[i] for i in rows]
+    if args.step or args.impulse:
+        grp = model.resolve_input(args.step or args.impulse)
+        cols = model.inputs[grp]
+        fn = step_response if args.step else impulse_response
+        res = fn(model.A, model.B[:, cols], model.C[rows], model.D[np.ix_(rows, range(cols.start, cols.stop))], t)
+        in_names = list(model.input_names[cols])
+        if len(in_names) == 1:
+            names = out_names
+            Y = res.y[:, :, 0]
+        else:
+            names = [f"{o} <- {i}" for o in out_names for i in in_names]
+            Y = res.y.reshape(res.y.shape[0], -1)
+        kind = ("step" if args.step else "impulse") + f" on {grp}"
+    else:
+        res = source_run(model, t, outputs=sigs)
+        names, Y = res.output_names, res.y
+        kind = "run driven by the sources' waveforms"
+    if args.json:
+        print_json(
+            {
+                "file": args.file,
+                "kind": kind,
+                "t": res.t,
+                "y": {nm: Y[:, k] for k, nm in enumerate(names)},
+                "units": {"t": "s"},
+                "diverged": res.diverged,
+                "message": res.message,
+                "caution": CAUTION,
+            }
+        )
+        return 0
+    if args.csv:
+        write_csv(([float(res.t[k])] + [float(v) for v in Y[k]] for k in range(res.t.size)), ["t_s"] + names)
+        return 0
+    print(f"{args.file}: {kind}, t = 0 .. {fmt_num(res.t[-1])} s, dt = {fmt_num(t[1] - t[0])} s")
+    step = max(1, res.t.size // 40)
+    idx = list(range(0, res.t.size, step))
+    if idx[-1] != res.t.size - 1:
+        idx.append(res.t.size - 1)
+    _table(["t (s)"] + names, [[fmt_num(res.t[k], digits=5)] + [fmt_num(v, digits=6) for v in Y[k]] for k in idx])
+    if res.diverged:
+        print(f"\n  WARNING: {res.message}")
+    print(f"\n  {CAUTION}")
+    return 0
+
+
+# ---------------------------------------------------------------------------------------
+# margins
+
+
+def _margins(args: argparse.Namespace) -> int:
+    from loopwright.engine.errors import AnalysisError
+    from loopwright.engine.margins import LoopMargins, margins_at
+
+    diagram = load_diagram(args.file)
+    at = args.signal or diagram.settings.get("loop_break")
+    if not at:
+        raise AnalysisError("no loop break given: use --at SIGNAL (the diagram has no settings.loop_break)")
+    res = margins_at(diagram, at, skew=args.skew)
+    if args.json:
+        body = res.as_dict()
+        body.update({"file": args.file, "at": at, "caution": CAUTION})
+        if not isinstance(res, LoopMargins):
+            body["kind"] = "vector"
+        print_json(body)
+        return 0
+    print(f"{args.file}: loop broken at {at!r}")
+    if isinstance(res, LoopMargins):
+        _print_scalar_margins(res, indent="  ")
+    else:
+        print(f"  closed loop      {'stable' if res.closed_loop_stable else 'UNSTABLE'}")
+        for name, m in zip(res.channel_names, res.per_channel):
+            print(f"\n  channel {name} (the other components closed):")
+            _print_scalar_margins(m, indent="    ")
+        d = res.all_at_once
+        print("\n  all loops at once (unstructured disk, 1/||S + (skew-1)/2 I||inf):")
+        print(f"    alpha {fmt_num(d.alpha)}, gain [{fmt_num(d.gain_lower)}, {fmt_num(d.gain_upper)}] "
+              f"({fmt_num(d.gain_db[0], digits=4)} .. {fmt_num(d.gain_db[1], digits=4)} dB), phase +-{fmt_num(d.phase_deg, digits=5)} deg")
+        print(f"    peak sensitivity {fmt_num(res.peak_sensitivity)} at {fmt_num(res.peak_sensitivity_w_rad_s)} rad/s")
+    print(f"\n  {CAUTION}")
+    return 0
+
+
+def _print_scalar_margins(m, *, indent: str) -> None:
+    lo_db, hi_db = m.gain_margin_db
+    rows = [
+        ["closed loop", "stable" if m.closed_loop_stable else "UNSTABLE", ""],
+        ["open-loop RHP poles", str(m.open_loop_unstable_poles), ""],
+        ["gain margin, lower", f"{fmt_num(m.gain_lower)} ({fmt_num(lo_db, digits=5)} dB)", f"at {fmt_num(m.gain_lower_w_rad_s)} rad/s"],
+        ["gain margin, upper", f"{fmt_num(m.gain_upper)} ({fmt_num(hi_db, digits=5)} dB)", f"at {fmt_num(m.gain_upper_w_rad_s)} rad/s"],
+        ["phase margin", f"{fmt_num(m.phase_margin_deg, digits=6)} deg", f"at {fmt_num(m.phase_margin_w_rad_s)} rad/s"],
+        ["delay margin", f"{fmt_num(m.delay_margin_s)} s", ""],
+        ["peak sensitivity", f"{fmt_num(m.peak_sensitivity)} (modulus margin {fmt_num(m.modulus_margin, digits=4)})", f"at {fmt_num(m.peak_sensitivity_w_rad_s)} rad/s"],
+        [
+            f"disk margin (skew {fmt_num(m.disk.skew, digits=3)})",
+            f"alpha {fmt_num(m.disk.alpha)}: gain [{fmt_num(m.disk.gain_lower, digits=5)}, {fmt_num(m.disk.gain_upper, digits=5)}], phase +-{fmt_num(m.disk.phase_deg, digits=5)} deg",
+            f"at {fmt_num(m.disk.w_rad_s)} rad/s",
+        ],
+        ["gain crossovers", ", ".join(fmt_num(x) for x in m.gain_crossovers_w_rad_s) or "none", "rad/s"],
+        ["phase crossovers", ", ".join(fmt_num(x) for x in m.phase_crossovers_w_rad_s) or "none", "rad/s"],
+    ]
+    width = max(len(r[0]) for r in rows)
+    for a, b, c in rows:
+        print(f"{indent}{a.ljust(width)}  {b}  {c}".rstrip())
+    if m.message:
+        print(f"{indent}note: {m.message}")
+
+
+# ---------------------------------------------------------------------------------------
+# audit
+
+
+def _audit(args: argparse.Namespace) -> int:
+    from loopwright.engine.audit import RANKING_RULE, path_audit
+
+    diagram = load_diagram(args.file)
+    model = assemble(diagram)
+    rows = path_audit(model, injections=args.injections)
+    if args.top is not None:
+        rows = rows[: max(0, args.top)]
+    if args.json:
+        print_json({"file": args.file, "ranking": RANKING_RULE, "units": {"peak_freq": "rad/s"}, "rows": [r.as_dict() for r in rows], "caution": CAUTION})
+        return 0
+    if args.csv:
+        write_csv(
+            (
+                [r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.stable, " ".join(r.blocks), " ".join(r.wires)]
+                for r in rows
+            ),
+            ["rank", "source", "signal", "peak_gain", "peak_freq_rad_s", "h2", "dc_gain", "stable", "blocks", "wires"],
+        )
+        return 0
+    print(f"{args.file}: path audit ({len(rows)} paths; {RANKING_RULE})")
+    _table(
+        ["#", "source", "signal", "peak gain", "at (rad/s)", "H2", "DC gain", "stable", "blocks on the path"],
+        [
+            [
+                str(r.rank), r.source, r.signal, fmt_num(r.peak_gain), fmt_num(r.peak_freq_rad_s), fmt_num(r.h2), fmt_num(r.dc_gain),
+                "yes" if r.stable else "NO", " ".join(r.blocks),
+            ]
+            for r in rows
+        ],
+    )
+    print(f"\n  {CAUTION}")
+    return 0
+
+
+# ---------------------------------------------------------------------------------------
+# noise
+
+
+def _noise(args: argparse.Namespace) -> int:
+    from loopwright.engine.noise import noise_budget
+
+    diagram = load_diagram(args.file)
+    model = assemble(diagram)
+    b = noise_budget(model)
+    srcs = list(b.sources)
+    if args.json:
+        body = b.as_dict()
+        body.update({"file": args.file, "caution": CAUTION})
+        print_json(body)
+        return 0
+    if args.csv:
+        write_csv(
+            ([ln.name, ln.signal, ln.rms] + [ln.share_by_source[s] for s in srcs] + [ln.reason] for ln in b.lines),
+            ["component", "signal", "rms"] + [f"share[{s}]" for s in srcs] + ["reason"],
+        )
+        return 0
+    print(f"{args.file}: noise budget (steady-state RMS; white sources: "
+          + (", ".join(f"{s} (W = {fmt_num(float(np.trace(W)), digits=4)}{' trace' if W.shape[0] > 1 else ''})" for s, W in b.sources.items()) or "none")
+          + ")")
+    if b.message:
+        print(f"  note: {b.message}")
+    _table(
+        ["component", "RMS"] + [f"share {s}" for s in srcs] + [""],
+        [
+            [ln.name, fmt_num(ln.rms)] + [("-" if not np.isfinite(ln.share_by_source[s]) else f"{100 * ln.share_by_source[s]:.1f} %") for s in srcs] + [ln.reason]
+            for ln in b.lines
+        ],
+    )
+    print(f"\n  {CAUTION}")
+    return 0
