@@ -8,6 +8,7 @@ valid loop is decided by :func:`loopwright.engine.validation.problems`.
 from __future__ import annotations
 
 import copy
+import pickle
 import re
 from dataclasses import dataclass, field
 from typing import Any
@@ -122,7 +123,8 @@ class Diagram:
 
     def copy(self) -> "Diagram":
         """A deep, independent snapshot (what worker threads compute on)."""
-        return copy.deepcopy(self)
+        # pickle's C implementation copies nested parameter lists ~10x faster than deepcopy
+        return pickle.loads(pickle.dumps(self, protocol=pickle.HIGHEST_PROTOCOL))
 
     def block_by_name(self, name: str) -> Block:
         """The block called ``name``; :class:`UnknownNameError` with suggestions otherwise."""

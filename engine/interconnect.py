@@ -399,19 +399,16 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     # ---- eliminate u: (I - Db M) s = Cb x + E e + v + Db Mb b -------------------------
     DM = (Db @ M).tocsr()
     F = (sp.identity(ns, format="csr") - DM).tocsc()
-    _check_well_posed(DM, F, sig_names, sig_ports, snap, port_rows)
-    rhs = sp.hstack([Cb, E, sp.identity(ns, format="csr"), Db @ Mb], format="csc")
-    try:
-        lu = spla.splu(F)
-        G = lu.solve(rhs.toarray())
-    except RuntimeError as err:  # exactly singular: the structural check missed a cancellation
-        raise AlgebraicLoopError("the direct-feedthrough loops have no unique solution (I - M D is singular)") from err
-    Gx, Ge, Gv, Gb = G[:, :nx_], G[:, nx_:nx_ + ne], G[:, nx_ + ne:nx_ + ne + ns], G[:, nx_ + ne + ns:]
+    acyclic = _check_well_posed(DM, F, sig_names, sig_ports, snap, port_rows)
+    Finv = _inverse_of_feedthrough(DM, F, acyclic)
+    DbMb = (Db @ Mb).tocsr()
+    Gx, Ge, Gb = Finv @ Cb, Finv @ E, Finv @ DbMb
     BM = (Bb @ M).tocsr()
-    A = Ab.toarray() + BM @ Gx
-    B = np.hstack([BM @ Ge, BM @ Gv, BM @ Gb + (Bb @ Mb).toarray()])
-    C = Gx
-    D = np.hstack([Ge, Gv, Gb])
+    BMF = BM @ Finv
+    A = _dense(Ab + BM @ Gx)
+    B = np.hstack([_dense(BMF @ E), _dense(BMF), _dense(BMF @ DbMb + Bb @ Mb)])
+    C = _dense(Gx)
+    D = np.hstack([_dense(Ge), _dense(Finv), _dense(Gb)])
 
     inputs: dict[str, slice] = dict(src_cols)
     input_names: list[str] = []
@@ -441,19 +438,48 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     )
 
 
-def _check_well_posed(DM, F, sig_names, sig_ports, diagram: Diagram, port_rows) -> None:
+def _dense(m) -> np.ndarray:
+    return m.toarray() if sp.issparse(m) else np.asarray(m)
+
+
+def _inverse_of_feedthrough(DM, F, acyclic: bool):
+    """``(I - D M)^-1``, sparse when the feedthrough graph has no loops.
+
+    Without algebraic loops ``D M`` is nilpotent, so the inverse is the finite sum
+    ``I + DM + DM^2 + ...`` (as long as the longest chain of direct feedthrough), and it
+    stays as sparse as the wiring. With loops, a sparse LU factorisation solves for it.
+    """
+    ns = DM.shape[0]
+    if acyclic:
+        total = sp.identity(ns, format="csr")
+        term = total
+        for _ in range(ns + 1):
+            term = (DM @ term).tocsr()
+            term.eliminate_zeros()
+            if term.nnz == 0:
+                return total
+            total = total + term
+    try:
+        return spla.splu(F.tocsc()).solve(np.eye(ns))
+    except RuntimeError as err:  # exactly singular: the structural check missed a cancellation
+        raise AlgebraicLoopError("the direct-feedthrough loops have no unique solution (I - M D is singular)") from err
+
+
+def _check_well_posed(DM, F, sig_names, sig_ports, diagram: Diagram, port_rows) -> bool:
     """Raise :class:`AlgebraicLoopError` naming the blocks of an ill-posed feedthrough loop.
 
     Only strongly connected parts of the feedthrough graph can make ``I - D M`` singular
     (an acyclic part is unit-triangular after reordering), so each of those small dense
-    blocks is checked by its condition number.
+    blocks is checked by its condition number. Returns True when there is no loop at all.
     """
     ns = DM.shape[0]
     if ns == 0 or DM.nnz == 0:
-        return
+        return True
     ncomp, labels = connected_components(DM, directed=True, connection="strong")
     sizes = np.bincount(labels, minlength=ncomp)
     diag_nz = DM.diagonal() != 0
+    if ncomp == ns and not diag_nz.any():
+        return True
     row_block = np.empty(ns, dtype=object)
     for ref, rows in port_rows.items():
         row_block[rows] = ref.block
@@ -477,3 +503,4 @@ def _check_well_posed(DM, F, sig_names, sig_ports, diagram: Diagram, port_rows) 
                 "add dynamics or change a gain or sign on the loop",
                 block_ids=cyc,
             )
+    return False

@@ -77,6 +77,7 @@ def test_separation_principle_on_random_plants(plant, data):
     assume(_well_conditioned(A, B) and _well_conditioned(A.T, C.T))
     kp = -np.arange(1, n + 1) * data.draw(st.floats(0.5, 2.0))
     lp = -np.arange(1, n + 1) * data.draw(st.floats(3.0, 6.0)) - 0.5
+    # coincident controller and estimator poles are allowed; poles_match loosens for repeats
     try:
         K = sig.place_poles(A, B, kp).gain_matrix
         L = sig.place_poles(A.T, C.T, lp).gain_matrix.T
@@ -85,7 +86,7 @@ def test_separation_principle_on_random_plants(plant, data):
     assume(np.abs(K).max() < 1e4 and np.abs(L).max() < 1e4)
     rep = summarize(observer_loop(A, B, C, K, L))
     expected = np.concatenate([np.linalg.eigvals(A - B @ K), np.linalg.eigvals(A - L @ C)])
-    ok, worst = poles_match(expected, rep.poles, rtol=1e-5)
+    ok, worst = poles_match(expected, rep.poles)
     assert ok, worst
     assert rep.separation.matches
 
