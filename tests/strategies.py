@@ -6,7 +6,7 @@ from hypothesis import strategies as st
 
 from loopwright.engine.diagram import Diagram
 
-finite = st.floats(min_value=-3.0, max_value=3.0, allow_nan=False, allow_infinity=False)
+finite = st.floats(min_value=-3.0, max_value=3.0, allow_nan=False, allow_infinity=False, allow_subnormal=False)
 
 
 @st.composite
