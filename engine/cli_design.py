@@ -1,0 +1,268 @@
+"""Design and export commands of the headless CLI: ``design`` and ``export``.
+
+``loopwright design FILE`` computes K, L and feedforward gains from the recipes stored in
+the file and prints them with the achieved poles and any warnings; ``--write`` stores them
+in the file (atomically: the old file stays whole until the new one is complete).
+
+``loopwright export FILE --what closed-loop|path|controller -o OUT`` writes the closed-loop
+model, one path, or the lumped controller (continuous, or discretised with ``--ts``) as
+JSON, NPZ or -- for a discretised controller -- C99 source and header.
+"""
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from loopwright.engine import CAUTION
+from loopwright.engine.cli_common import fmt_complex, fmt_num, load_diagram, print_json
+from loopwright.engine.design import poles_to_json
+from loopwright.engine.diagram import Diagram, PortRef
+from loopwright.engine.errors import DesignError, EngineError
+from loopwright.engine.export import closed_loop_model, controller_model, path_model, write_c, write_json, write_npz
+from loopwright.engine.lumped import controller_transfer_function, lumped_controller, sampled_loop_margins
+from loopwright.engine.project import save
+from loopwright.engine.recipes import recipe_blocks, redesign, stale_blocks
+
+__all__ = ["add_commands"]
+
+_DESIGN_EPILOG = """\
+Recipes live in a gain or estimator block's params under "recipe", e.g.
+  {"method": "place", "plant": "P", "poles": [[-2, 2], [-2, -2]], "sign": -1}
+  {"method": "lqr", "Q": [10, 1], "R": 0.1}
+  {"method": "kalman"}            (intensities traced from the diagram's noise sources)
+  {"method": "feedforward", "feedback": "K"}
+Complex poles are [re, im] pairs, each conjugate listed. Without --write nothing is changed.
+"""
+
+_EXPORT_EPILOG = """\
+examples:
+  loopwright export drive.lwd --what closed-loop -o drive_loop.json
+  loopwright export drive.lwd --what path --from dl --to y -o load_to_y.npz
+  loopwright export drive.lwd --what controller --ts 0.001 --method tustin -o drive_ctrl.c
+The controller runs from --measured to --actuator (defaults: the signal into the
+estimator's y input and the signal into its plant's u input). C output needs --ts.
+"""
+
+
+def add_commands(subparsers) -> None:
+    """Register ``design`` and ``export`` on the CLI's sub-command parser."""
+    p = subparsers.add_parser(
+        "design", help="compute K, L and feedforward gains from the recipes stored in a diagram",
+        epilog=_DESIGN_EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("file", help="diagram file (.lwd)")
+    which = p.add_mutually_exclusive_group()
+    which.add_argument("--block", action="append", metavar="NAME", default=None,
+                       help="design this block (repeat for several); feedforward blocks that read its gain follow")
+    which.add_argument("--all", action="store_true", help="design every block that has a recipe (the default)")
+    which.add_argument("--stale", action="store_true", help="design only the blocks whose plant or recipe changed")
+    act = p.add_mutually_exclusive_group()
+    act.add_argument("--write", action="store_true", help="store the new gains in FILE (atomic)")
+    act.add_argument("--print", dest="print_only", action="store_true", help="only print the new gains (the default)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(run=_design)
+
+    p = subparsers.add_parser(
+        "export", help="write the closed-loop model, a path or the lumped controller as JSON, NPZ or C",
+        epilog=_EXPORT_EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("file", help="diagram file (.lwd)")
+    p.add_argument("--what", required=True, choices=["closed-loop", "path", "controller"], help="which model to export")
+    p.add_argument("--from", dest="source", metavar="INPUT", default=None, help="path: a source, or a signal (its injection)")
+    p.add_argument("--to", dest="signal", metavar="SIGNAL", default=None, help="path: the signal it reaches")
+    p.add_argument("--measured", metavar="SIG[,SIG]", default=None, help="controller: signals it reads, comma-separated")
+    p.add_argument("--actuator", metavar="SIG[,SIG]", default=None, help="controller: signals it drives, comma-separated")
+    p.add_argument("--ts", type=float, default=None, metavar="SECONDS", help="controller: sample period; discretises it")
+    p.add_argument("--method", choices=["zoh", "tustin"], default="zoh", help="discretisation (default zoh)")
+    p.add_argument("--prewarp", type=float, default=None, metavar="RAD_S", help="tustin: frequency matched exactly, rad/s")
+    p.add_argument("--format", choices=["json", "npz", "c"], default=None,
+                   help="output format (default: from the suffix of OUT, else json)")
+    p.add_argument("--precision", choices=["double", "float"], default="double", help="C scalar type (default double)")
+    p.add_argument("--prefix", default=None, metavar="NAME", help="C identifier prefix (default: the stem of OUT)")
+    p.add_argument("-o", "--output", required=True, metavar="OUT", help="file to write (C: OUT.c and OUT.h)")
+    p.add_argument("--json", action="store_true", help="print a JSON summary instead of text")
+    p.set_defaults(run=_export)
+
+
+# ---------------------------------------------------------------------------------------
+# design
+# ---------------------------------------------------------------------------------------
+def _matrix_text(M: np.ndarray) -> str:
+    rows = ["[" + ", ".join(fmt_num(v, digits=8) for v in row) + "]" for row in np.atleast_2d(M)]
+    return "[" + ", ".join(rows) + "]"
+
+
+def _design(args: argparse.Namespace) -> int:
+    diagram = load_diagram(args.file)
+    recipes = [b.name for b in recipe_blocks(diagram)]
+    if not recipes:
+        raise DesignError(f"{args.file}: no block carries a recipe; add \"recipe\" to a gain or estimator block's params")
+    stale_before = stale_blocks(diagram)
+    if args.block:
+        names = args.block
+    elif args.stale:
+        names = stale_before
+    else:
+        names = recipes
+    if not names:
+        out, results = diagram, []
+    else:
+        out, results = redesign(diagram, names)
+    if args.write and results:
+        save(out, args.file)
+    if args.json:
+        print_json({
+            "file": args.file,
+            "written": bool(args.write and results),
+            "stale_before": stale_before,
+            "stale_after": stale_blocks(out),
+            "blocks": [
+                {
+                    "block": r.block, "kind": r.kind, "method": r.method, "plant": r.plant,
+                    "matrix_name": "K" if r.kind == "gain" else "L", "matrix": r.matrix,
+                    "poles": poles_to_json(r.poles), "gain_norm": r.gain_norm,
+                    "designed_for": r.fingerprint, "warnings": list(r.warnings),
+                }
+                for r in results
+            ],
+            "caution": CAUTION,
+        })
+        return 0
+    print(f"{args.file}: {len(results)} block(s) designed" + (" and written" if args.write and results else ""))
+    if stale_before:
+        print(f"  stale before: {', '.join(stale_before)}")
+    for r in results:
+        key = "K" if r.kind == "gain" else "L"
+        label = "feedforward" if r.method == "feedforward" else r.method
+        print(f"\n  {r.block} ({r.kind}, {label}, plant {r.plant!r})")
+        print(f"    {key} = {_matrix_text(r.matrix)}")
+        what = "closed-loop poles of its feedback" if r.method == "feedforward" else (
+            "eig(A - B K)" if r.kind == "gain" else "eig(A - L C)")
+        print(f"    {what}: {', '.join(fmt_complex(p, digits=6) for p in r.poles)}")
+        print(f"    gain size (largest singular value): {fmt_num(r.gain_norm, digits=6)}")
+        for w in r.warnings:
+            print(f"    warning: {w}")
+    if not args.write and results:
+        print("\n  (printed only; run with --write to store these gains in the file)")
+    print(f"\n  {CAUTION}")
+    return 0
+
+
+# ---------------------------------------------------------------------------------------
+# export
+# ---------------------------------------------------------------------------------------
+def _split(text: str | None) -> list[str] | None:
+    if text is None:
+        return None
+    names = [s.strip() for s in text.split(",") if s.strip()]
+    return names or None
+
+
+def _default_loop_signals(diagram: Diagram) -> tuple[list[str], list[str]]:
+    """Measured = the wire into the estimator's y; actuator = the wire into its plant's u."""
+    ests = [b for b in diagram.blocks.values() if b.kind == "estimator"]
+    if len(ests) != 1:
+        raise DesignError(
+            f"the diagram has {len(ests)} estimators; name the controller's signals with --measured and --actuator"
+        )
+    est = ests[0]
+    y = diagram.wire_into(PortRef(est.id, "y"))
+    plant_name = est.params.get("plant")
+    u = None
+    if isinstance(plant_name, str):
+        plant = diagram.block_by_name(plant_name)
+        u = diagram.wire_into(PortRef(plant.id, "u"))
+    if y is None or u is None:
+        raise DesignError("cannot tell the measured and actuator signals; give --measured and --actuator")
+    return [y.name], [u.name]
+
+
+def _export(args: argparse.Namespace) -> int:
+    diagram = load_diagram(args.file)
+    out_path = Path(args.output)
+    fmt = args.format or {".json": "json", ".npz": "npz", ".c": "c", ".h": "c"}.get(out_path.suffix.lower(), "json")
+    if args.what != "path" and (args.source or args.signal):
+        raise DesignError("--from and --to belong to --what path")
+    if args.what != "controller" and (args.measured or args.actuator or args.ts is not None or args.prewarp is not None):
+        raise DesignError("--measured, --actuator, --ts and --prewarp belong to --what controller")
+    if fmt == "c" and (args.what != "controller" or args.ts is None):
+        raise DesignError("C output is for a discretised controller: use --what controller with --ts SECONDS")
+    if args.prewarp is not None and args.method != "tustin":
+        raise DesignError("--prewarp needs --method tustin")
+    summary: dict = {"file": args.file, "what": args.what, "format": fmt}
+    if args.what == "closed-loop":
+        model = closed_loop_model(diagram, source=args.file)
+    elif args.what == "path":
+        if not args.source or not args.signal:
+            raise DesignError("--what path needs --from INPUT and --to SIGNAL")
+        model = path_model(diagram, args.source, args.signal, source=args.file)
+    else:
+        measured, actuator = _split(args.measured), _split(args.actuator)
+        if measured is None or actuator is None:
+            dm, da = _default_loop_signals(diagram)
+            measured, actuator = measured or dm, actuator or da
+        model = controller_model(diagram, measured=measured, actuator=actuator, ts=args.ts, method=args.method,
+                                 prewarp_rad_s=args.prewarp, source=args.file)
+        summary.update(measured=measured, actuator=actuator)
+        cont = lumped_controller(diagram, measured=measured, actuator=actuator)
+        if cont.B.shape[1] == 1 and cont.C.shape[0] == 1:
+            tf = controller_transfer_function(cont)
+            summary["transfer_function"] = {"num": tf["num"], "den": tf["den"], "poles": poles_to_json(tf["poles"]),
+                                            "zeros": poles_to_json(tf["zeros"])}
+        if args.ts is not None and len(actuator) == 1 and cont.C.shape[0] == 1:
+            try:
+                cmp_ = sampled_loop_margins(diagram, measured=measured, actuator=actuator[0], ts=args.ts,
+                                            method=args.method, prewarp_rad_s=args.prewarp)
+                summary["margins"] = {"continuous": cmp_.continuous.as_dict(), "sampled": cmp_.sampled.as_dict(),
+                                      "sampled_minus_continuous": cmp_.delta}
+            except EngineError as err:
+                summary["margins_note"] = f"margins not compared: {err}"
+    if fmt == "json":
+        write_json(model, out_path)
+        written = [str(out_path)]
+    elif fmt == "npz":
+        write_npz(model, out_path)
+        written = [str(out_path)]
+    else:
+        code = write_c(model, out_path, precision=args.precision, prefix=args.prefix)
+        stem = out_path.with_suffix("") if out_path.suffix in (".c", ".h") else out_path
+        written = [str(stem.with_name(code.source_name)), str(stem.with_name(code.header_name))]
+    summary.update(
+        written=written, states=len(model.state_names), inputs=list(model.input_names), outputs=list(model.output_names),
+        time="continuous" if model.sample_period_s is None else "discrete", sample_period_s=model.sample_period_s,
+        method=model.method, caution=CAUTION,
+    )
+    if args.json:
+        print_json(summary)
+        return 0
+    print(f"wrote {', '.join(written)}")
+    print(f"  {args.what}: {len(model.state_names)} states, {len(model.input_names)} inputs, {len(model.output_names)} outputs"
+          + ("" if model.sample_period_s is None else f", sampled every {model.sample_period_s:g} s ({model.method})"))
+    if "transfer_function" in summary:
+        tf = summary["transfer_function"]
+        print(f"  controller (as drawn, u = G(s) y): num {_vec(tf['num'])} / den {_vec(tf['den'])}")
+    if "margins" in summary:
+        c, s = summary["margins"]["continuous"], summary["margins"]["sampled"]
+        print("  margins at the actuator      continuous      sampled")
+        print(f"    phase margin (deg)      {fmt_num(c['phase_margin_deg']):>12}  {fmt_num(s['phase_margin_deg']):>12}")
+        print(f"    delay margin (s)        {fmt_num(c['delay_margin_s']):>12}  {fmt_num(s['delay_margin_s']):>12}")
+        print(f"    gain margin upper (dB)  {fmt_num(c['gain_margin_db'][1]):>12}  {fmt_num(s['gain_margin_db'][1]):>12}")
+        print(f"    gain margin lower (dB)  {fmt_num(c['gain_margin_db'][0]):>12}  {fmt_num(s['gain_margin_db'][0]):>12}")
+        print(f"    closed loop stable      {str(c['closed_loop_stable']):>12}  {str(s['closed_loop_stable']):>12}")
+    if "margins_note" in summary:
+        print(f"  {summary['margins_note']}")
+    print(f"\n  {CAUTION}")
+    return 0
+
+
+def _vec(v) -> str:
+    return "[" + ", ".join(fmt_num(x, digits=8) for x in np.atleast_1d(v)) + "]"
+
+
+if __name__ == "__main__":  # pragma: no cover - for running the module directly
+    from loopwright.engine.cli import main
+
+    sys.exit(main(["design", *sys.argv[1:]]))

@@ -1,0 +1,284 @@
+"""The lumped controller: everything between the measured signals and the actuator
+signals of a diagram, as one state-space model -- and the sampled version of the loop.
+
+Method
+------
+On a copy of the diagram, every wire that carries a measured signal is re-attached to a
+new, silent source block (its consumers now read that source; the block that drove it is
+left unwired). The copy is assembled and the map from those new sources to the actuator
+signals is read off. In that map the plant's states are still present but cannot reach
+the actuator any more (their path back ran through the measured wires), so states that
+are structurally unreachable from the new sources, or structurally invisible at the
+actuator signals, are dropped (a sparsity-pattern graph search on A, B, C: exact, no
+rounding). Other sources -- references, disturbances -- are simply not inputs of the
+lumped controller.
+
+Sign convention: the lumped controller is the map *as drawn*, ``u = G_c(s) y``. For the
+observer-based loop ``u = -K xhat`` with ``xhat' = A xhat + B u + L (y - C xhat - D u)`` this
+is ``G_c(s) = -K (sI - A + BK + LC - LDK)^-1 L``: the usual controller transfer
+``K (sI - A + BK + LC - LDK)^-1 L`` appears with a minus sign, because the loop's negative
+feedback lives inside the drawing.
+
+The plant path (actuator -> measured) is found the same way with the actuator wires
+re-attached instead. The loop transfer at the actuator is ``L = -G_c P`` (the convention of
+the loop break: ``L = -(returned)/(injected)``); the sampled loop is
+``L_d(z) = -G_cd(z) P_d(z)`` with ``P_d`` the zero-order-hold discretisation of the plant
+path and ``G_cd`` the controller discretised as chosen, evaluated on the unit circle up to
+the Nyquist frequency ``pi / T``.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.signal as ssig
+
+from loopwright.engine.diagram import Diagram, PortRef
+from loopwright.engine.discretize import DiscreteModel, discrete_frequency_response, discretize
+from loopwright.engine.errors import AnalysisError, DesignError
+from loopwright.engine.interconnect import AssembledModel, assemble
+from loopwright.engine.margins import LoopMargins, loop_margins, margins_from_response
+from loopwright.engine.responses import auto_frequency_grid
+from loopwright.engine.structure import transmission_zeros
+
+__all__ = [
+    "LumpedModel",
+    "lumped_controller",
+    "plant_path",
+    "controller_transfer_function",
+    "SampledLoopComparison",
+    "sampled_loop_margins",
+]
+
+
+@dataclass(frozen=True)
+class LumpedModel:
+    """A map between chosen signals of a diagram: ``x' = A x + B u``, ``y = C x + D u``.
+
+    Attributes
+    ----------
+    A : (n, n), B : (n, m), C : (p, n), D : (p, m) ndarray
+    state_names : tuple of str
+        The diagram states kept (``est.xhat1`` ...).
+    input_names, output_names : tuple of str
+        Signal component names (``y_meas``, ``u[2]``).
+    inputs, outputs : tuple of str
+        The signals as chosen.
+    """
+
+    A: np.ndarray
+    B: np.ndarray
+    C: np.ndarray
+    D: np.ndarray
+    state_names: tuple[str, ...]
+    input_names: tuple[str, ...]
+    output_names: tuple[str, ...]
+    inputs: tuple[str, ...]
+    outputs: tuple[str, ...]
+
+
+def _comp(name: str, width: int) -> list[str]:
+    return [name] if width == 1 else [f"{name}[{k + 1}]" for k in range(width)]
+
+
+def _structural_keep(A: np.ndarray, B: np.ndarray, C: np.ndarray) -> np.ndarray:
+    """States reachable from B's columns and seen by C's rows through A's sparsity pattern."""
+    nz = A != 0
+    reach = np.any(B != 0, axis=1)
+    while True:
+        nxt = reach | np.any(nz[:, reach], axis=1)
+        if np.array_equal(nxt, reach):
+            break
+        reach = nxt
+    seen = np.any(C != 0, axis=0)
+    while True:
+        nxt = seen | np.any(nz[seen, :], axis=0)
+        if np.array_equal(nxt, seen):
+            break
+        seen = nxt
+    return reach & seen
+
+
+def _cut_map(diagram: Diagram, cut: list[str], read: list[str], *, what: str) -> LumpedModel:
+    base = assemble(diagram)
+    cut = [base.resolve_signal(s) for s in cut]
+    read = [base.resolve_signal(s) for s in read]
+    if not cut or not read:
+        raise DesignError(f"{what}: name at least one input signal and one output signal")
+    clash = sorted(set(cut) & set(read))
+    if clash:
+        raise DesignError(f"{what}: signal(s) {', '.join(clash)} cannot be both an input and an output")
+    work = diagram.copy()
+    new_sources: list[str] = []
+    widths: list[int] = []
+    for sig in cut:
+        port = base.signal_ports[sig]
+        wire = work.wire_from(port)
+        if wire is None or not wire.targets:
+            raise DesignError(f"{what}: signal {sig!r} feeds no block, so nothing depends on it")
+        if work.blocks[port.block].kind == "source":
+            raise DesignError(f"{what}: signal {sig!r} comes straight from source {work.blocks[port.block].name!r}; choose a signal inside the loop")
+        w = base.signals[sig].stop - base.signals[sig].start
+        name = work.unique_name("cut_" + "".join(ch if ch.isalnum() else "_" for ch in sig))
+        bid = work.add_block("source", name, {"role": "reference", "width": w, "waveform": {"kind": "zero"}})
+        wire.source = PortRef(bid, "out")
+        new_sources.append(name)
+        widths.append(w)
+    model: AssembledModel = assemble(work)
+    B = np.hstack([model.B[:, model.inputs[s]] for s in new_sources])
+    rows = [model.signals[model.resolve_signal(s)] for s in read]
+    C = np.vstack([model.C[r] for r in rows])
+    D = np.vstack([np.hstack([model.D[r, model.inputs[s]] for s in new_sources]) for r in rows])
+    keep = _structural_keep(model.A, B, C)
+    A = model.A[np.ix_(keep, keep)]
+    names = tuple(n for n, k in zip(model.state_names, keep) if k)
+    in_names = tuple(c for s, w in zip(cut, widths) for c in _comp(s, w))
+    out_names = tuple(c for s in read for c in _comp(s, base.signals[s].stop - base.signals[s].start))
+    return LumpedModel(A, B[keep], C[:, keep], D, names, in_names, out_names, tuple(cut), tuple(read))
+
+
+def lumped_controller(diagram: Diagram, *, measured: list[str], actuator: list[str]) -> LumpedModel:
+    """The controller from the measured signals to the actuator signals, as one model.
+
+    Parameters
+    ----------
+    diagram : Diagram
+        Not modified.
+    measured : list of str
+        Signals the controller reads (e.g. the estimator's ``y`` input wire).
+    actuator : list of str
+        Signals the controller drives (e.g. the plant's input wire).
+
+    Returns
+    -------
+    LumpedModel
+        ``u = G_c(s) y`` as drawn (see the module docstring for the sign).
+
+    Raises
+    ------
+    UnknownNameError
+        A signal name that does not exist (with suggestions).
+    DesignError
+        A signal both measured and actuated, or one that feeds nothing.
+    """
+    return _cut_map(diagram, list(measured), list(actuator), what="lumped controller")
+
+
+def plant_path(diagram: Diagram, *, actuator: list[str], measured: list[str]) -> LumpedModel:
+    """The plant as seen by the controller: the map from the actuator signals to the
+    measured signals with the controller cut away (same method as :func:`lumped_controller`)."""
+    return _cut_map(diagram, list(actuator), list(measured), what="plant path")
+
+
+def controller_transfer_function(model: LumpedModel) -> dict:
+    """Transfer function, poles and zeros of a single-input single-output lumped model.
+
+    Returns
+    -------
+    dict
+        ``num``, ``den`` (descending powers of s, ``den`` monic), ``poles``, ``zeros``
+        (complex arrays, rad/s), ``gain`` (leading numerator coefficient).
+
+    Raises
+    ------
+    DesignError
+        The model is not SISO.
+    """
+    if model.B.shape[1] != 1 or model.C.shape[0] != 1:
+        raise DesignError(
+            f"a transfer function is shown for one input and one output; this controller has "
+            f"{model.B.shape[1]} input(s) and {model.C.shape[0]} output(s)"
+        )
+    n = model.A.shape[0]
+    if n == 0:
+        return {"num": model.D[0].copy(), "den": np.ones(1), "poles": np.zeros(0, complex), "zeros": np.zeros(0, complex), "gain": float(model.D[0, 0])}
+    num, den = ssig.ss2tf(model.A, model.B, model.C, model.D)
+    num = np.atleast_2d(num)[0]
+    # strip leading (numerically) zero numerator terms so the degree is honest
+    scale = max(1.0, float(np.max(np.abs(num))))
+    first = int(np.argmax(np.abs(num) > 1e-12 * scale)) if np.any(np.abs(num) > 1e-12 * scale) else num.size - 1
+    num = num[first:]
+    zeros = transmission_zeros(model.A, model.B, model.C, model.D)
+    return {"num": num, "den": den, "poles": np.linalg.eigvals(model.A), "zeros": zeros, "gain": float(num[0])}
+
+
+@dataclass(frozen=True)
+class SampledLoopComparison:
+    """Margins of the loop at the actuator: continuous controller vs sampled controller.
+
+    ``delta`` holds sampled minus continuous for the phase margin (deg), the delay
+    margin (s) and the gain-margin bounds (dB).
+    """
+
+    continuous: LoopMargins
+    sampled: LoopMargins
+    controller: DiscreteModel
+    plant: DiscreteModel
+    delta: dict
+
+
+def _series_loop(K: LumpedModel, P: LumpedModel):
+    """State space of ``L = -K P`` (P first)."""
+    nk, npl = K.A.shape[0], P.A.shape[0]
+    A = np.block([[P.A, np.zeros((npl, nk))], [K.B @ P.C, K.A]])
+    B = np.vstack([P.B, K.B @ P.D])
+    C = -np.hstack([K.D @ P.C, K.C])
+    D = -(K.D @ P.D)
+    return A, B, C, D
+
+
+def sampled_loop_margins(
+    diagram: Diagram,
+    *,
+    measured: list[str],
+    actuator: str,
+    ts: float,
+    method: str = "zoh",
+    prewarp_rad_s: float | None = None,
+    points: int = 3000,
+) -> SampledLoopComparison:
+    """How far the margins at the actuator fall when the controller runs sampled.
+
+    The continuous loop ``L = -G_c P`` uses the lumped controller and the plant path; the
+    sampled loop uses the controller discretised by ``method`` and the plant discretised
+    by zero-order hold (the hold a DAC applies), evaluated at ``z = e^{j w T}`` on a grid up
+    to ``pi / T`` and fed to :func:`margins_from_response`.
+
+    Raises
+    ------
+    AnalysisError
+        The actuator signal is not scalar.
+    """
+    K = lumped_controller(diagram, measured=measured, actuator=[actuator])
+    P = plant_path(diagram, actuator=[actuator], measured=measured)
+    if K.C.shape[0] != 1:
+        raise AnalysisError(f"sampled-loop margins need a scalar actuator signal; {actuator!r} has {K.C.shape[0]} components")
+    cont = loop_margins(*_series_loop(K, P))
+    Kd = discretize(K.A, K.B, K.C, K.D, ts, method=method, prewarp_rad_s=prewarp_rad_s)
+    Pd = discretize(P.A, P.B, P.C, P.D, ts, method="zoh")
+    w_nyq = np.pi / ts
+    poles = np.concatenate([np.linalg.eigvals(K.A), np.linalg.eigvals(P.A)]) if (K.A.size or P.A.size) else np.zeros(0)
+    if poles.size:
+        # integrators computed as tiny nonzero poles would stretch the grid down to 1e-9 rad/s
+        poles = poles[np.abs(poles) > 1e-6 * max(1.0, float(np.max(np.abs(poles))))]
+    grid = auto_frequency_grid(poles, w_max=w_nyq * (1 - 1e-9), points_per_decade=max(60, points // 8))
+    grid = np.unique(np.concatenate([grid, np.linspace(grid[0], w_nyq * (1 - 1e-9), points)]))
+    Lz = -(discrete_frequency_response(Kd, grid) @ discrete_frequency_response(Pd, grid))[:, 0, 0]
+    zpoles = np.concatenate([np.linalg.eigvals(Kd.A), np.linalg.eigvals(Pd.A)]) if poles.size else np.zeros(0)
+    # A repeated pole at s = 0 (a double integrator) maps to a defective pole at z = 1 that
+    # eig only finds to about sqrt(machine epsilon); count it as an integrator, not unstable.
+    near_one = np.abs(zpoles - 1.0) <= 1e-6
+    at_one = int(np.sum(near_one))
+    unstable = int(np.sum((np.abs(zpoles) > 1.0 + 1e-9) & ~near_one))
+    samp = margins_from_response(grid, Lz, open_loop_unstable_poles=unstable, poles_at_origin=at_one)
+
+    def db(g: float) -> float:
+        return float(20 * np.log10(g)) if g > 0 and np.isfinite(g) else (float("inf") if g == np.inf else float("-inf") if g == 0 else float("nan"))
+
+    delta = {
+        "phase_margin_deg": samp.phase_margin_deg - cont.phase_margin_deg,
+        "delay_margin_s": samp.delay_margin_s - cont.delay_margin_s,
+        "gain_upper_db": db(samp.gain_upper) - db(cont.gain_upper) if np.isfinite(db(cont.gain_upper)) else float("nan"),
+        "gain_lower_db": db(samp.gain_lower) - db(cont.gain_lower) if np.isfinite(db(cont.gain_lower)) else float("nan"),
+    }
+    return SampledLoopComparison(cont, samp, Kd, Pd, delta)
