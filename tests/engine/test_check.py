@@ -84,6 +84,8 @@ def test_separation_principle_on_random_plants(plant, data):
     except Exception:
         assume(False)
     assume(np.abs(K).max() < 1e4 and np.abs(L).max() < 1e4)
+    # pole placement on a nearly uncontrollable plant gives eigenvalues too sensitive to compare
+    assume(np.linalg.cond(np.linalg.eig(A - B @ K)[1]) < 1e3 and np.linalg.cond(np.linalg.eig(A - L @ C)[1]) < 1e3)
     rep = summarize(observer_loop(A, B, C, K, L))
     expected = np.concatenate([np.linalg.eigvals(A - B @ K), np.linalg.eigvals(A - L @ C)])
     ok, worst = poles_match(expected, rep.poles)
