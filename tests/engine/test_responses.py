@@ -1,0 +1,298 @@
+"""Tests of engine/responses.py: frequency responses, grids and time runs."""
+from __future__ import annotations
+
+import control as ct
+import numpy as np
+import pytest
+import scipy.linalg as sla
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from numpy.testing import assert_allclose
+
+from loopwright.engine.diagram import Diagram
+from loopwright.engine.errors import ParameterError, UnknownNameError
+from loopwright.engine.interconnect import assemble
+from loopwright.engine.responses import (
+    auto_frequency_grid,
+    discretise,
+    frequency_response,
+    impulse_response,
+    initial_response,
+    initial_state,
+    magnitude_db,
+    phase_deg,
+    reduce_model,
+    reduced_response,
+    refine_grid_at_peaks,
+    simulate,
+    source_inputs,
+    source_run,
+    step_response,
+)
+
+
+def _stable_system(seed: int, n: int, m: int, p: int, *, with_d: bool = True):
+    rng = np.random.default_rng(seed)
+    A = rng.standard_normal((n, n))
+    A -= (np.max(np.linalg.eigvals(A).real) + rng.uniform(0.1, 1.0)) * np.eye(n)
+    B = rng.standard_normal((n, m))
+    C = rng.standard_normal((p, n))
+    D = rng.standard_normal((p, m)) if with_d else np.zeros((p, m))
+    return A, B, C, D
+
+
+# ---- frequency response -------------------------------------------------------------
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10_000), n=st.integers(1, 7), m=st.integers(1, 3), p=st.integers(1, 3))
+def test_frequency_response_matches_python_control_on_random_stable_systems(seed, n, m, p):
+    # python-control 0.10.2 evaluates (jw I - A)^-1 B per frequency: an outside reference
+    A, B, C, D = _stable_system(seed, n, m, p)
+    w = np.logspace(-2, 3, 40)
+    ours = frequency_response(A, B, C, D, w)
+    ref = np.moveaxis(ct.ss(A, B, C, D)(1j * w, squeeze=False), 2, 0)
+    assert ours.shape == (w.size, p, m)
+    assert_allclose(ours, ref, rtol=1e-8, atol=1e-12 * np.abs(ref).max())
+
+
+@pytest.mark.parametrize(
+    "A, B, C, D, w, expected, source",
+    [
+        ([[-2.0]], [[1.0]], [[1.0]], [[0.0]], 2.0, 0.25 - 0.25j, "1/(s+2) at w=2 by hand, common practice, no source"),
+        ([[0.0, 1.0], [-25.0, -2.0]], [[0.0], [1.0]], [[25.0, 0.0]], [[0.0]], 5.0, -2.5j, "25/(s^2+2s+25) at w=wn is 1/(2 zeta j); REFERENCES.md REF-06 system"),
+        ([[-1.0]], [[1.0]], [[-1.0]], [[1.0]], 1.0, 0.5 + 0.5j, "s/(s+1) at w=1 by hand, common practice, no source"),
+    ],
+)
+def test_frequency_response_hand_values(A, B, C, D, w, expected, source):
+    assert_allclose(frequency_response(A, B, C, D, [w])[0, 0, 0], expected, rtol=1e-12)
+
+
+def test_frequency_response_reuses_one_reduction_across_paths():
+    A, B, C, D = _stable_system(3, 12, 3, 2)
+    red = reduce_model(A)
+    w = np.logspace(-1, 2, 25)
+    full = frequency_response(A, B, C, D, w, reduced=red)
+    for j in range(3):
+        one = frequency_response(A, B[:, [j]], C, D[:, [j]], w, reduced=red)
+        assert_allclose(one[:, :, 0], full[:, :, j], rtol=1e-12)
+
+
+def test_frequency_response_agrees_with_python_control_on_a_large_loop():
+    # 300 states, chained lightly damped sections: stresses balancing and the blocked solve
+    rng = np.random.default_rng(5)
+    n = 300
+    A = rng.standard_normal((n, n)) / np.sqrt(n) - 1.2 * np.eye(n)
+    B = rng.standard_normal((n, 2))
+    C = rng.standard_normal((1, n))
+    w = np.logspace(-2, 2, 15)
+    ours = frequency_response(A, B, C, np.zeros((1, 2)), w)
+    ref = np.moveaxis(ct.ss(A, B, C, np.zeros((1, 2)))(1j * w, squeeze=False), 2, 0)
+    assert_allclose(ours, ref, rtol=1e-8)
+
+
+def test_frequency_response_at_a_pole_on_the_axis_is_infinite_not_an_error():
+    G = frequency_response([[0.0]], [[1.0]], [[1.0]], [[0.0]], [0.0, 1.0])
+    assert not np.isfinite(G[0, 0, 0])
+    assert_allclose(G[1, 0, 0], -1j, rtol=1e-14)
+
+
+def test_magnitude_db_and_unwrapped_phase_of_a_triple_lag():
+    # 1/(s+1)^3: phase passes -180 deg at sqrt(3) rad/s and tends to -270 deg (common practice, no source)
+    A = [[-1, 0, 0], [1, -1, 0], [0, 1, -1]]
+    w = np.logspace(-2, 3, 400)
+    G = frequency_response(A, [[1], [0], [0]], [[0, 0, 1]], [[0]], w)
+    ph = phase_deg(G)[:, 0, 0]
+    assert_allclose(ph, -3 * np.degrees(np.arctan(w)), atol=1e-9)
+    assert_allclose(magnitude_db(G)[:, 0, 0], -30 * np.log10(1 + w**2), atol=1e-9)
+
+
+# ---- automatic grid -----------------------------------------------------------------
+
+
+@pytest.mark.parametrize("zeta", [0.2, 0.01, 0.001, 1e-4])
+def test_auto_grid_never_misses_a_lightly_damped_peak(zeta):
+    # peak of wn^2/(s^2 + 2 zeta wn s + wn^2) is 1/(2 zeta sqrt(1 - zeta^2)) (REFERENCES.md REF-07 formula)
+    wn = 37.0
+    A = np.array([[0.0, 1.0], [-wn * wn, -2 * zeta * wn]])
+    B, C, D = np.array([[0.0], [1.0]]), np.array([[wn * wn, 0.0]]), np.zeros((1, 1))
+    w = auto_frequency_grid(np.linalg.eigvals(A))
+    mag = np.abs(frequency_response(A, B, C, D, w)[:, 0, 0])
+    true_peak = 1 / (2 * zeta * np.sqrt(1 - zeta * zeta))
+    assert mag.max() >= 0.995 * true_peak
+    w2, g2 = refine_grid_at_peaks(lambda x: np.abs(frequency_response(A, B, C, D, x)[:, 0, 0]), w, mag)
+    assert_allclose(g2.max(), true_peak, rtol=1e-8)
+    assert np.all(np.diff(w2) > 0)
+
+
+def test_auto_grid_spans_two_decades_beyond_the_dynamics():
+    w = auto_frequency_grid([-0.5, -200.0])
+    assert_allclose([w[0], w[-1]], [0.005, 20000.0], rtol=1e-9)
+
+
+# ---- time responses -----------------------------------------------------------------
+
+
+def test_step_response_of_second_order_servo_matches_closed_form():
+    # REFERENCES.md REF-11: T(s) = 4/(s^2 + 2 s + 4)
+    A = [[0.0, 1.0], [-4.0, -2.0]]
+    B, C, D = [[0.0], [4.0]], [[1.0, 0.0]], [[0.0]]
+    t = np.linspace(0.0, 3.0, 3001)
+    y = step_response(A, B, C, D, t).y[:, 0, 0]
+    for tk, yk in [(0.5, 0.3402998466), (1.0, 0.8494256349), (2.0, 1.153122768), (3.0, 1.002289494)]:
+        assert_allclose(y[int(round(tk * 1000))], yk, atol=1e-8)  # REFERENCES.md REF-11
+    t_long = np.linspace(0.0, 10.0, 200001)
+    y_long = step_response(A, B, C, D, t_long).y[:, 0, 0]
+    assert_allclose(y_long.max(), 1.163033535, atol=1e-9)  # REF-11 peak value
+    assert_allclose(t_long[np.argmax(y_long)], 1.813799364, atol=1e-4)  # REF-11 peak time (grid 5e-5 s)
+
+
+@settings(max_examples=15, deadline=None)
+@given(seed=st.integers(0, 10_000), n=st.integers(1, 5), m=st.integers(1, 2), p=st.integers(1, 2))
+def test_step_and_impulse_match_python_control(seed, n, m, p):
+    A, B, C, D = _stable_system(seed, n, m, p)
+    t = np.linspace(0.0, 5.0, 501)
+    ours = step_response(A, B, C, D, t).y
+    ref = ct.step_response(ct.ss(A, B, C, D), t).outputs  # (p, m, N)
+    ref = np.asarray(ref).reshape(p, m, -1)
+    assert_allclose(ours, np.moveaxis(ref, 2, 0), atol=1e-9 * max(1.0, np.abs(ref).max()))
+    ours_i = impulse_response(A, B, C, np.zeros_like(D), t).y
+    ref_i = np.asarray(ct.impulse_response(ct.ss(A, B, C, 0 * D), t).outputs).reshape(p, m, -1)
+    assert_allclose(ours_i, np.moveaxis(ref_i, 2, 0), atol=1e-9 * max(1.0, np.abs(ref_i).max()))
+
+
+def test_first_order_hold_matches_python_control_forced_response():
+    # python-control 0.10.2 forced_response holds inputs linearly between samples
+    A, B, C, D = _stable_system(11, 4, 2, 1)
+    t = np.linspace(0.0, 4.0, 401)
+    U = np.column_stack([np.sin(3 * t), np.maximum(t - 1, 0.0)])
+    ours = simulate(A, B, C, D, t, U, foh_columns=[0, 1]).y[:, 0]
+    ref = np.ravel(ct.forced_response(ct.ss(A, B, C, D), t, U.T).outputs)
+    assert_allclose(ours, ref, atol=1e-9)
+
+
+def test_ramp_through_an_integrator_is_exact_with_first_order_hold():
+    # y = t^2/2 for a unit ramp into 1/s, common practice, no source
+    t = np.linspace(0.0, 2.0, 11)
+    y = simulate([[0.0]], [[1.0]], [[1.0]], [[0.0]], t, t[:, None], foh_columns=[0]).y[:, 0]
+    assert_allclose(y, t**2 / 2, atol=1e-13)
+    y_zoh = simulate([[0.0]], [[1.0]], [[1.0]], [[0.0]], t, t[:, None]).y[:, 0]
+    assert abs(y_zoh[-1] - 2.0) > 0.1  # zero-order hold of a ramp lags by half a step
+
+
+def test_discretise_zero_order_hold_matches_block_exponential():
+    A = np.array([[0.0, 1.0], [-3.0, -0.5]])
+    B = np.array([[0.0], [2.0]])
+    Phi, G0, G1 = discretise(A, B, 0.1)
+    assert_allclose(Phi, sla.expm(A * 0.1), rtol=1e-13)
+    assert_allclose(G0, np.linalg.solve(A, (Phi - np.eye(2)) @ B), rtol=1e-11)
+    assert_allclose(G1, 0.0)
+
+
+def test_unstable_run_stops_with_a_warning_flag_not_overflow():
+    t = np.linspace(0.0, 1000.0, 10001)
+    res = initial_response([[1.0]], [[1.0]], [1.0], t)
+    assert res.diverged
+    assert "grows without bound" in res.message
+    assert res.t[-1] < 300.0  # e^t passes 1e100 near t = 230 s
+    assert np.all(np.isfinite(res.y))
+
+
+def test_time_grid_must_be_uniform():
+    with pytest.raises(ParameterError):
+        simulate([[-1.0]], [[1.0]], [[1.0]], [[0.0]], [0.0, 0.1, 0.3])
+
+
+# ---- diagram-driven runs ------------------------------------------------------------
+
+
+def _white_lag_diagram(W: float, seed: int, a: float = 0.5) -> Diagram:
+    d = Diagram()
+    d.add_block("source", "w", {"role": "disturbance", "width": 1, "waveform": {"kind": "white", "intensity": W, "seed": seed}})
+    d.add_block("plant", "P", {"A": [[-a]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]]})
+    d.connect("w.out", "P.u", name="gust")
+    return d
+
+
+def test_white_noise_samples_have_variance_w_over_dt_and_are_reproducible():
+    d = _white_lag_diagram(0.04, seed=3)
+    model = assemble(d)
+    t = np.arange(200_001) * 0.01
+    U1, foh = source_inputs(model, t)
+    U2, _ = source_inputs(model, t)
+    col = model.inputs["w"].start
+    assert foh == []
+    assert_allclose(U1, U2)  # same seed, same samples
+    assert_allclose(U1[:, col].var(), 0.04 / 0.01, rtol=0.02)  # W/dt (sampling error ~0.3 %)
+
+
+def test_white_noise_run_reaches_the_discrete_stationary_variance():
+    # REFERENCES.md REF-08 greenhouse: x' = -0.5 x + w, W = 0.04. Piecewise-constant noise of
+    # variance W/dt gives the discrete variance gamma^2 (W/dt)/(1 - phi^2) -> W/(2a) = 0.04 as dt -> 0.
+    d = _white_lag_diagram(0.04, seed=11)
+    model = assemble(d)
+    dt = 0.05
+    t = np.arange(400_001) * dt
+    res = source_run(model, t, outputs=["P.y"])
+    phi = np.exp(-0.5 * dt)
+    gamma = (1 - phi) / 0.5
+    expected = gamma**2 * (0.04 / dt) / (1 - phi**2)
+    assert_allclose(res.y[2000:, 0].var(), expected, rtol=0.05)
+    assert_allclose(expected, 0.04, rtol=1e-3)
+
+
+def _observer_stage_diagram() -> Diagram:
+    # REFERENCES.md REF-03: air-bearing stage, K = [8, 4], L = [11, 30]
+    d = Diagram()
+    d.add_block("source", "d", {"role": "disturbance", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0, "start": 0.0}})
+    d.add_block("plant", "P", {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
+    d.add_block("estimator", "est", {"plant": "P", "L": [[11], [30]]})
+    d.add_block("gain", "Kx", {"K": [[-8, -4]]})
+    d.add_block("sum", "up", {"signs": ["+", "+"], "width": 1})
+    d.connect("est.xhat", "Kx.in", name="xhat")
+    d.connect("Kx.out", "up.in1", name="ufb")
+    d.connect("Kx.out", "est.u")
+    d.connect("d.out", "up.in2", name="dist")
+    d.connect("up.out", "P.u", name="plant_input")
+    d.connect("P.y", "est.y", name="y")
+    return d
+
+
+def test_initial_state_by_block_shows_the_estimation_error_transient():
+    # separation principle (REFERENCES.md REF-03): e = x - xhat obeys e' = (A - L C) e
+    model = assemble(_observer_stage_diagram())
+    x0 = initial_state(model, {"P": [1.0, -0.5]})
+    t = np.linspace(0.0, 2.0, 201)
+    ps, es = model.states["P"], model.states["est"]
+    E = np.zeros((2, model.A.shape[0]))
+    E[:, ps] = np.eye(2)
+    E[:, es] -= np.eye(2)
+    res = initial_response(model.A, E, x0, t)
+    ALC = np.array([[-11.0, 1.0], [-30.0, 0.0]])
+    for k in (0, 50, 200):
+        assert_allclose(res.y[k], sla.expm(ALC * t[k]) @ [1.0, -0.5], atol=1e-10)
+
+
+def test_initial_state_rejects_unknown_blocks_with_suggestions():
+    model = assemble(_observer_stage_diagram())
+    with pytest.raises(UnknownNameError) as err:
+        initial_state(model, {"Pp": 1.0})
+    assert "P" in err.value.suggestions
+
+
+def test_source_run_matches_python_control_for_a_step_disturbance():
+    # d -> y of REF-03 has DC gain 82/240 (REFERENCES.md REF-03)
+    model = assemble(_observer_stage_diagram())
+    t = np.linspace(0.0, 12.0, 1201)
+    res = source_run(model, t, outputs=["y"])
+    A, B, C, D = model.pair("d", "y")
+    ref = ct.step_response(ct.ss(A, B, C, D), t).outputs
+    assert_allclose(res.y[:, 0], np.ravel(ref), atol=1e-9)
+    assert_allclose(res.y[-1, 0], 82 / 240, rtol=1e-5)
+    assert res.output_names == ["y"]
+
+
+def test_reduced_response_is_d_when_there_are_no_states():
+    red = reduce_model(np.zeros((0, 0)))
+    out = reduced_response(red, np.zeros((0, 1)), np.zeros((1, 0)), np.array([[2.5]]), 1j * np.array([1.0, 2.0]))
+    assert_allclose(out[:, 0, 0], 2.5)
