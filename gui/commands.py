@@ -33,13 +33,17 @@ class AddBlock(QUndoCommand):
     """Place a block of ``kind`` with a free name derived from ``stem``."""
 
     def __init__(self, doc, kind: str, *, name: str | None = None, params: dict | None = None, layout: dict | None = None, caption: str = ""):
+        super().__init__(f"Place {kind}")
         self._doc = doc
-        self._name = name or doc.diagram.unique_name(stem_for(kind, params))
-        super().__init__(f"Place {kind} {self._name}")
+        self._name = name
         self._kind, self._params, self._layout, self._caption = kind, params, layout or {}, caption
         self.block_id: str | None = None
 
     def redo(self) -> None:
+        if self._name is None:
+            # Chosen when first done, so commands built ahead of time do not collide.
+            self._name = self._doc.diagram.unique_name(stem_for(self._kind, self._params))
+            self.setText(f"Place {self._kind} {self._name}")
         self.block_id = self._doc.add_block(
             self._kind, self._name, copy.deepcopy(self._params), layout=dict(self._layout), caption=self._caption, block_id=self.block_id
         )

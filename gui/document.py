@@ -269,6 +269,13 @@ def _check_block_params(block: Block, diagram: Diagram) -> None:
         port_widths(block, diagram)
     except ParameterError:
         raise
+    except (ValueError, TypeError) as err:
+        if isinstance(err, DiagramError):
+            return
+        # The engine did not recognise this malformation itself; refuse it all the same.
+        raise ParameterError(
+            f"block {block.name!r}: parameters cannot be read ({err})", field=None, block_ids=[block.id]
+        ) from err
     except DiagramError:
         # Disagreements with neighbours (widths, links) are the problems list's job; only a
         # block that cannot be read at all is refused here.

@@ -1,0 +1,107 @@
+"""Shared fixtures. Qt runs offscreen; Qt is imported only inside the GUI fixtures so the
+headless engine job (no Qt installed) can still collect tests/engine."""
+from __future__ import annotations
+
+import os
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+
+from pathlib import Path  # noqa: E402
+
+import pytest  # noqa: E402
+
+SCREENSHOT_DIR = Path(__file__).parent / "_screenshots"
+
+
+class ScriptedDialogs:
+    """Stands in for the window's dialogs: answers are set by the test, messages recorded."""
+
+    def __init__(self):
+        self.errors: list[tuple[str, str]] = []
+        self.infos: list[tuple[str, str]] = []
+        self.save_answer = "cancel"
+        self.recover_answer = True
+        self.open_answer: str | None = None
+        self.save_as_answer: str | None = None
+        self.asked_save = 0
+        self.asked_recover: list[str] = []
+
+    def error(self, title, text):
+        self.errors.append((title, text))
+
+    def info(self, title, text):
+        self.infos.append((title, text))
+
+    def ask_save_changes(self, name):
+        self.asked_save += 1
+        return self.save_answer
+
+    def ask_recover(self, description):
+        self.asked_recover.append(description)
+        return self.recover_answer
+
+    def open_path(self, folder=""):
+        return self.open_answer
+
+    def save_path(self, suggestion=""):
+        return self.save_as_answer
+
+
+@pytest.fixture
+def dialogs():
+    return ScriptedDialogs()
+
+
+@pytest.fixture
+def qsettings(tmp_path):
+    from PySide6.QtCore import QSettings
+
+    return QSettings(str(tmp_path / "settings.ini"), QSettings.Format.IniFormat)
+
+
+@pytest.fixture
+def prefs(tmp_path):
+    from loopwright.gui.settings import Preferences
+
+    return Preferences(autosave_dir=tmp_path / "autosave", autosave_interval_s=0, grid_size=10.0, debounce_ms=20, dark=False)
+
+
+@pytest.fixture
+def make_window(qtbot, qsettings, prefs, dialogs):
+    """Build main windows that share this test's settings, preferences and dialogs."""
+    from loopwright.gui.main_window import MainWindow
+
+    made = []
+
+    def _make(**overrides):
+        win = MainWindow(settings=qsettings, prefs=overrides.pop("prefs", prefs), dialogs=overrides.pop("dialogs", dialogs))
+        qtbot.addWidget(win)
+        made.append(win)
+        return win
+
+    yield _make
+    for win in made:
+        win._closing_ok = True
+        win.live.shutdown()
+
+
+@pytest.fixture
+def window(make_window):
+    return make_window()
+
+
+@pytest.fixture
+def wait_live(qtbot):
+    """Wait until a window's live model describes its document's current revision."""
+
+    def _wait(win, timeout=10000):
+        qtbot.waitUntil(win.live.is_current, timeout=timeout)
+        return win.live.latest
+
+    return _wait
+
+
+@pytest.fixture
+def screenshot_dir():
+    SCREENSHOT_DIR.mkdir(exist_ok=True)
+    return SCREENSHOT_DIR
