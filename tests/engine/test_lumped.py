@@ -1,0 +1,164 @@
+"""Tests of engine/lumped.py: lumped controller, plant path, sampled-loop margins."""
+from __future__ import annotations
+
+from importlib import resources
+
+import control as ct
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from numpy.testing import assert_allclose
+
+from loopwright.engine.errors import DesignError, UnknownNameError
+from loopwright.engine.lumped import (
+    controller_transfer_function,
+    lumped_controller,
+    plant_path,
+    sampled_loop_margins,
+)
+from loopwright.engine.margins import loop_transfer
+from loopwright.engine.project import load
+from loopwright.engine.recipes import redesign
+
+from test_recipes import stage_loop  # the REF-03 stage loop builder, shared with the recipe tests
+
+
+def _designed_stage():
+    d = stage_loop({"method": "place", "poles": [[-2, 2], [-2, -2]]}, {"method": "place", "poles": [-5, -6]})
+    return redesign(d)[0]
+
+
+def _freq(A, B, C, D, s):
+    A, B, C, D = (np.atleast_2d(np.asarray(M, dtype=float)) for M in (A, B, C, D))
+    if A.shape[0] == 0:
+        return D.astype(complex)
+    return C @ np.linalg.solve(s * np.eye(A.shape[0]) - A, B) + D
+
+
+def test_stage_controller_matches_hand_transfer_function():
+    # REFERENCES.md REF-03: u = -(208 s + 240)/(s^2 + 15 s + 82) y.
+    k = lumped_controller(_designed_stage(), measured=["y_meas"], actuator=["u"])
+    assert k.state_names == ("est.xhat1", "est.xhat2")
+    tf = controller_transfer_function(k)
+    assert_allclose(tf["num"], [-208.0, -240.0], rtol=1e-10)
+    assert_allclose(tf["den"], [1.0, 15.0, 82.0], rtol=1e-10)
+    assert_allclose(tf["zeros"], [-240.0 / 208.0], rtol=1e-10)
+    assert_allclose(np.sort_complex(tf["poles"]), np.sort_complex(np.roots([1, 15, 82])), rtol=1e-10)
+
+
+@st.composite
+def _observer_loops(draw):
+    n = draw(st.integers(1, 3))
+    rng = np.random.default_rng(draw(st.integers(0, 2**32 - 1)))
+    A = rng.normal(size=(n, n))
+    B = rng.normal(size=(n, 1))
+    C = rng.normal(size=(1, n))
+    D = rng.normal(size=(1, 1)) * draw(st.sampled_from([0.0, 0.3]))
+    K = rng.normal(size=(1, n))
+    L = rng.normal(size=(n, 1))
+    return A, B, C, D, K, L
+
+
+@settings(max_examples=30, deadline=None)
+@given(_observer_loops())
+def test_lumped_observer_controller_equals_textbook_formula(case):
+    # Identity: for u = -K xhat the drawn map y -> u is -K (sI - A + BK + LC - LDK)^-1 L
+    # (common practice, no source; derived in the lumped module docstring).
+    A, B, C, D, K, L = case
+    plant = {"A": A.tolist(), "B": B.tolist(), "C": C.tolist(), "D": D.tolist()}
+    d = stage_loop(None, None, plant=plant)
+    d.set_params(d.block_by_name("est").id, {"plant": "P", "L": L.tolist()})
+    d.set_params(d.block_by_name("Kx").id, {"K": (-K).tolist()})
+    d.set_params(d.block_by_name("Nr").id, {"K": [[1.0]]})
+    k = lumped_controller(d, measured=["y_meas"], actuator=["u"])
+    Ac = A - B @ K - L @ C + L @ D @ K
+    for s in (0.3j, 2.0 + 1.0j, 7.0j):
+        want = -K @ np.linalg.solve(s * np.eye(A.shape[0]) - Ac, L)
+        assert_allclose(_freq(k.A, k.B, k.C, k.D, s), want, rtol=1e-8, atol=1e-10)
+    assert k.A.shape[0] == A.shape[0]  # the plant's states were pruned, the estimator's kept
+
+
+def test_plant_path_of_stage_is_the_plant():
+    p = plant_path(_designed_stage(), actuator=["u"], measured=["y_meas"])
+    assert p.A.shape == (2, 2)
+    assert_allclose(_freq(p.A, p.B, p.C, p.D, 1.5j), 1.0 / (1.5j) ** 2, rtol=1e-12)
+
+
+def test_loop_from_lumped_parts_equals_loop_break_at_actuator():
+    # L = -G_c P must equal the diagram's own loop break at u (margins.loop_transfer) when,
+    # as in REFERENCES.md REF-03, the estimator reads the gain's output rather than u
+    # (a break at u then opens the plant input only).
+    from loopwright.engine.diagram import PortRef
+
+    d = _designed_stage()
+    est = d.block_by_name("est")
+    d.disconnect(d.wire_into(PortRef(est.id, "u")).id, PortRef(est.id, "u"))
+    d.connect("Kx.out", "est.u")
+    k = lumped_controller(d, measured=["y_meas"], actuator=["u"])
+    p = plant_path(d, actuator=["u"], measured=["y_meas"])
+    Lb = loop_transfer(d, "u")
+    for s in (0.2j, 3.0j, 40.0j):
+        assert_allclose(-_freq(k.A, k.B, k.C, k.D, s) @ _freq(p.A, p.B, p.C, p.D, s), _freq(*Lb, s), rtol=1e-9)
+
+
+def test_sampled_margins_of_stage_match_python_control_and_converge_to_continuous():
+    # Continuous margins: REFERENCES.md REF-03 (gm 4.665310651, pm 38.48828081 deg,
+    # delay margin 0.2516967597 s). Sampled: python-control 0.10.2 sample_system +
+    # stability_margins on the discrete loop as reference.
+    d = _designed_stage()
+    res = sampled_loop_margins(d, measured=["y_meas"], actuator="u", ts=0.02, method="zoh")
+    assert_allclose(res.continuous.gain_upper, 4.665310651, rtol=1e-7)
+    assert_allclose(res.continuous.phase_margin_deg, 38.48828081, rtol=1e-7)
+    assert_allclose(res.continuous.delay_margin_s, 0.2516967597, rtol=1e-7)
+    Kc = ct.ss(*[np.atleast_2d(M) for M in (res.controller.A, res.controller.B, res.controller.C, res.controller.D)], 0.02)
+    Pd = ct.ss(res.plant.A, res.plant.B, res.plant.C, res.plant.D, 0.02)
+    gm, pm, _, _, _, _ = ct.stability_margins(ct.ss2tf(-Kc * Pd), method="poly")
+    assert_allclose(res.sampled.gain_upper, gm, rtol=1e-5)
+    assert_allclose(res.sampled.phase_margin_deg, pm, rtol=1e-5)
+    assert res.delta["phase_margin_deg"] < 0 and res.delta["gain_upper_db"] < 0
+    fine = sampled_loop_margins(d, measured=["y_meas"], actuator="u", ts=1e-4, method="tustin")
+    assert abs(fine.delta["phase_margin_deg"]) < 0.05
+    assert abs(fine.delta["delay_margin_s"]) < 2e-4
+
+
+def test_sampled_plant_is_zoh_of_plant_path():
+    # REFERENCES.md REF-01 stage, ZOH of 1/s^2: Ad = [[1, T], [0, 1]], Bd = [T^2/2, T]
+    # (common practice, no source).
+    res = sampled_loop_margins(_designed_stage(), measured=["y_meas"], actuator="u", ts=0.1)
+    T = 0.1
+    tf_d = ct.ss2tf(ct.ss(res.plant.A, res.plant.B, res.plant.C, res.plant.D, T))
+    ref = ct.ss2tf(ct.ss([[1, T], [0, 1]], [[T * T / 2], [T]], [[1, 0]], [[0]], T))
+    z = np.exp(0.7j)
+    assert_allclose(tf_d(z), ref(z), rtol=1e-10)
+
+
+def test_levitated_rotor_sample_controller_is_stable_loop_with_two_sided_gain_margin():
+    # Open-loop unstable plant (pole at +63 rad/s, demo data): finite lower gain margin.
+    d = load(str(resources.files("loopwright.samples") / "levitated_rotor_axis.lwd"))
+    res = sampled_loop_margins(d, measured=["y_meas"], actuator="u", ts=1e-4)
+    assert res.continuous.closed_loop_stable and res.sampled.closed_loop_stable
+    assert 0 < res.continuous.gain_lower < 1 < res.continuous.gain_upper < np.inf
+    assert abs(res.delta["phase_margin_deg"]) < 1.0
+
+
+def test_vector_controller_of_oven_sample_has_two_inputs_two_outputs():
+    d = load(str(resources.files("loopwright.samples") / "two_zone_oven.lwd"))
+    k = lumped_controller(d, measured=["y_meas"], actuator=["u"])
+    assert k.input_names == ("y_meas[1]", "y_meas[2]") and k.output_names == ("u[1]", "u[2]")
+    with pytest.raises(DesignError, match="one input and one output"):
+        controller_transfer_function(k)
+
+
+@pytest.mark.parametrize(
+    "measured, actuator, error, message",
+    [
+        (["nope"], ["u"], UnknownNameError, "no signal called 'nope'"),
+        (["u"], ["u"], DesignError, "both an input and an output"),
+        (["ref"], ["u"], DesignError, "straight from source"),
+    ],
+    ids=["unknown-signal", "same-signal", "source-signal"],
+)
+def test_bad_controller_signals_are_rejected(measured, actuator, error, message):
+    with pytest.raises(error, match=message):
+        lumped_controller(_designed_stage(), measured=measured, actuator=actuator)
