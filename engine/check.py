@@ -21,10 +21,11 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.optimize import linear_sum_assignment
 
-from loopwright.engine.blocks import plant_fingerprint, plant_matrices, realize
+from loopwright.engine.blocks import plant_matrices, realize
 from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.errors import EngineError
 from loopwright.engine.interconnect import AssembledModel, assemble
+from loopwright.engine.recipes import stale_blocks
 
 __all__ = ["CheckReport", "Separation", "summarize", "pole_table", "poles_match"]
 
@@ -179,14 +180,8 @@ def summarize(diagram: Diagram) -> CheckReport:
             f"(worst relative gap {sep.max_mismatch:.2g}): the estimator does not see the plant's own input and output, "
             "or its model differs from the plant"
         )
-    for b in diagram.blocks.values():
-        recipe = b.params.get("recipe")
-        if isinstance(recipe, dict) and recipe.get("designed_for") and recipe.get("plant"):
-            try:
-                if plant_fingerprint(diagram, recipe["plant"]) != recipe["designed_for"]:
-                    warnings.append(f"block {b.name!r} is stale: plant {recipe['plant']!r} changed since it was designed")
-            except EngineError:
-                warnings.append(f"block {b.name!r}: its recipe names plant {recipe['plant']!r}, which is missing or invalid")
+    for name in stale_blocks(diagram):
+        warnings.append(f"block {name!r} is stale: its plant or recipe changed since it was designed (run 'loopwright design --write')")
     return CheckReport(
         states=model.n_states,
         signals=tuple(model.signals),
