@@ -1,0 +1,354 @@
+"""Tests of engine/margins.py: gain-margin intervals, phase/delay/disk margins, vector loops."""
+from __future__ import annotations
+
+import control as ct
+import numpy as np
+import pytest
+import scipy.integrate as si
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from numpy.testing import assert_allclose
+
+from loopwright.engine.diagram import Diagram
+from loopwright.engine.errors import AnalysisError, UnknownNameError
+from loopwright.engine.margins import (
+    closed_loop_matrix,
+    disk_margin_from_alpha,
+    loop_margins,
+    loop_transfer,
+    margins_at,
+    margins_from_response,
+    sensitivity_maps,
+    vector_loop_margins,
+)
+from loopwright.engine.norms import peak_gain
+from loopwright.engine.responses import frequency_response
+
+
+def _ss(sys):
+    s = ct.ss(sys)
+    return np.asarray(s.A), np.asarray(s.B), np.asarray(s.C), np.asarray(s.D)
+
+
+# ---- diagrams of the reference cases -------------------------------------------------
+
+
+def _unity_loop(plant: dict, K: float, *, controller: dict | None = None) -> Diagram:
+    """r -> e = r - y -> [gain K or controller] -> P -> y (REFERENCES.md REF-09 layout)."""
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0, "start": 0.0}})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    if controller is None:
+        d.add_block("gain", "Kp", {"K": [[K]]})
+        d.connect("e.out", "Kp.in", name="err")
+    else:
+        d.add_block("plant", "Kp", controller)
+        d.connect("e.out", "Kp.u", name="err")
+    d.add_block("plant", "P", plant)
+    d.connect("r.out", "e.in1", name="ref")
+    d.connect("Kp.out" if controller is None else "Kp.y", "P.u", name="u")
+    d.connect("P.y", "e.in2", name="y")
+    return d
+
+
+def _stage_observer_loop() -> Diagram:
+    # REFERENCES.md REF-03
+    d = Diagram()
+    d.add_block("source", "d", {"role": "disturbance", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0, "start": 0.0}})
+    d.add_block("plant", "P", {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
+    d.add_block("estimator", "est", {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]], "L": [[11], [30]]})
+    d.add_block("gain", "Kx", {"K": [[-8, -4]]})
+    d.add_block("sum", "up", {"signs": ["+", "+"], "width": 1})
+    d.connect("est.xhat", "Kx.in", name="xhat")
+    d.connect("Kx.out", "up.in1", name="ufb")
+    d.connect("Kx.out", "est.u")
+    d.connect("d.out", "up.in2", name="dist")
+    d.connect("up.out", "P.u", name="plant_input")
+    d.connect("P.y", "est.y", name="y")
+    return d
+
+
+def _reactor_lqr_loop() -> Diagram:
+    # REFERENCES.md REF-04
+    d = Diagram()
+    d.add_block("source", "d", {"role": "disturbance", "width": 1, "waveform": {"kind": "zero"}})
+    d.add_block("plant", "P", {"A": [[1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]]})
+    d.add_block("gain", "Kx", {"K": [[-3.0]]})
+    d.add_block("sum", "up", {"signs": ["+", "+"], "width": 1})
+    d.connect("P.y", "Kx.in", name="x")
+    d.connect("Kx.out", "up.in1", name="ufb")
+    d.connect("d.out", "up.in2", name="dist")
+    d.connect("up.out", "P.u", name="plant_input")
+    return d
+
+
+OVEN = {"A": [[-1, 0, 0], [1, -1, 0], [0, 1, -1]], "B": [[1], [0], [0]], "C": [[0, 0, 1]], "D": [[0]]}
+CAMERA = {"A": [[0, 1], [0, -1]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]}
+ROTOR = {"A": [[0, 1], [4, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]}
+LEAD = {"A": [[-10.0]], "B": [[1.0]], "C": [[-720.0]], "D": [[80.0]]}
+
+# (diagram builder, break signal, expected dict, source)
+CASES = [
+    (
+        _stage_observer_loop,
+        "plant_input",
+        dict(lo=0.0, hi=4.665310651, hi_w=8.043152845, pm=38.48828081, pm_w=2.668875135, dm=0.2516967597),
+        "REFERENCES.md REF-03",
+    ),
+    (
+        _reactor_lqr_loop,
+        "plant_input",
+        dict(lo=1 / 3, lo_w=0.0, hi=np.inf, pm=70.52877937, pm_w=2 * np.sqrt(2), dm=0.4352098757, s_peak=1.0),
+        "REFERENCES.md REF-04",
+    ),
+    (
+        lambda: _unity_loop(OVEN, 4.0),
+        "u",
+        dict(lo=0.0, hi=2.0, hi_w=np.sqrt(3), pm=27.1416306, pm_w=1.232818762, dm=0.3842501695, s_peak=3.0, s_w=np.sqrt(2)),
+        "REFERENCES.md REF-09",
+    ),
+    (
+        lambda: _unity_loop(CAMERA, 2.0),
+        "u",
+        dict(lo=0.0, hi=np.inf, pm=38.66828249, pm_w=1.249621068, dm=0.5400747979),
+        "REFERENCES.md REF-10",
+    ),
+    (
+        lambda: _unity_loop(ROTOR, 0.0, controller=LEAD),
+        "u",
+        dict(lo=0.5, lo_w=0.0, hi=np.inf, pm=48.94734683, pm_w=6.234008542, dm=0.1370374065, s_peak=1.489134766, s_w=9.581343554),
+        "REFERENCES.md REF-12",
+    ),
+]
+
+
+@pytest.mark.parametrize("build, at, expected, source", CASES, ids=[c[3] for c in CASES])
+def test_margins_of_reference_diagrams(build, at, expected, source):
+    m = margins_at(build(), at)
+    assert m.closed_loop_stable
+    assert_allclose(m.gain_lower, expected["lo"], rtol=1e-7)
+    assert_allclose(m.gain_upper, expected["hi"], rtol=1e-7)
+    if "lo_w" in expected:
+        assert_allclose(m.gain_lower_w_rad_s, expected["lo_w"], atol=1e-9)
+    if "hi_w" in expected:
+        assert_allclose(m.gain_upper_w_rad_s, expected["hi_w"], rtol=1e-7)
+    assert_allclose(m.phase_margin_deg, expected["pm"], rtol=1e-7)
+    assert_allclose(m.phase_margin_w_rad_s, expected["pm_w"], rtol=1e-7)
+    assert_allclose(m.delay_margin_s, expected["dm"], rtol=1e-7)
+    if "s_peak" in expected:
+        assert_allclose(m.peak_sensitivity, expected["s_peak"], rtol=1e-7)
+    if "s_w" in expected:
+        assert_allclose(m.peak_sensitivity_w_rad_s, expected["s_w"], rtol=1e-5)
+
+
+def test_disk_margins_of_the_triple_lag_oven():
+    # REFERENCES.md REF-09: alpha 0.3776579041, gain [0.6823278038, 1.465571232], phase 21.38638975 deg
+    m = margins_at(_unity_loop(OVEN, 4.0), "u")
+    assert_allclose(m.disk.alpha, 0.3776579041, rtol=1e-7)
+    assert_allclose([m.disk.gain_lower, m.disk.gain_upper], [0.6823278038, 1.465571232], rtol=1e-7)
+    assert_allclose(m.disk.phase_deg, 21.38638975, rtol=1e-7)
+    assert_allclose(m.gain_margin_db[1], 6.020599913, rtol=1e-7)
+
+
+@pytest.mark.parametrize(
+    "skew, alpha, lo, hi, phase, source",
+    [
+        (0.0, 1.0, 1 / 3, 3.0, 53.13010235, "REFERENCES.md REF-04 skew 0"),
+        (1.0, 1.0, 0.5, np.inf, 60.0, "REFERENCES.md REF-04 skew +1 (the LQR guarantee; arccos(g_lo) limit)"),
+    ],
+)
+def test_disk_margins_of_the_lqr_reactor(skew, alpha, lo, hi, phase, source):
+    m = margins_at(_reactor_lqr_loop(), "plant_input", skew=skew)
+    assert_allclose(m.disk.alpha, alpha, rtol=1e-8)
+    assert_allclose(m.disk.gain_lower, lo, rtol=1e-8)
+    assert_allclose(m.disk.gain_upper, hi, rtol=1e-8)
+    assert_allclose(m.disk.phase_deg, phase, rtol=1e-8)
+
+
+def test_disk_margin_formula_uses_the_arccos_limit_when_the_upper_gain_is_unbounded():
+    # REFERENCES.md REF-04 note: alpha = 1, skew 1 gives 60 deg, not 90
+    d = disk_margin_from_alpha(1.0, skew=1.0)
+    assert d.gain_upper == np.inf
+    assert_allclose(d.phase_deg, 60.0, rtol=1e-12)
+
+
+def test_bode_sensitivity_integral_with_an_unstable_plant():
+    # REFERENCES.md REF-12: int_0^inf ln|S(jw)| dw = pi * sum Re(p_unstable) = 2 pi
+    A, B, C, D = loop_transfer(_unity_loop(ROTOR, 0.0, controller=LEAD), "u")
+    ol = np.linalg.eigvals(A)
+
+    def ln_s(theta):
+        w = np.tan(theta)
+        L = frequency_response(A, B, C, D, [w])[0, 0, 0]
+        return np.log(abs(1.0 / (1.0 + L))) / np.cos(theta) ** 2
+
+    val, _ = si.quad(ln_s, 0.0, np.pi / 2, epsabs=1e-12, limit=400)
+    assert_allclose(val, np.pi * np.sum(ol.real[ol.real > 0]), atol=1e-6)
+    assert_allclose(val, 2 * np.pi, atol=1e-6)
+
+
+def test_unstable_nominal_loop_is_reported_not_given_margins():
+    # oven with gain 10 > 8 (upper margin 2 at gain 4): common practice, no source
+    m = margins_at(_unity_loop(OVEN, 10.0), "u")
+    assert not m.closed_loop_stable
+    assert np.isnan(m.gain_lower) and np.isnan(m.gain_upper)
+    assert m.peak_sensitivity == np.inf
+    assert "stable for gains in (0, 0.8)" in m.message
+
+
+@pytest.mark.parametrize(
+    "num_gain, extra_pole, finite_upper",
+    [(3.0, None, False), (8000.0, 20.0, True)],
+    ids=["open-loop unstable, relative degree 2", "open-loop unstable, band of stable gains"],
+)
+def test_open_loop_unstable_loop_interval_agrees_with_the_closed_loop_pole_count(num_gain, extra_pole, finite_upper):
+    # L = k (s+1)^2 / ((s-1)(s+5)^2(s+10)[(s+20)]): stable only above a lower gain (and, with
+    # the extra lag, below an upper one). The interval is checked against closed-loop poles
+    # from python-control 0.10.2 just inside and just outside each bound.
+    den = np.polymul([1, -1], np.polymul(np.polymul([1, 5], [1, 5]), [1, 10]))
+    if extra_pole is not None:
+        den = np.polymul(den, [1, extra_pole])
+    else:
+        num_gain = 400.0
+    L = ct.tf(np.polymul([1, 1], [1, 1]) * num_gain, den)
+    m = loop_margins(*_ss(L))
+    assert m.closed_loop_stable
+    assert 0 < m.gain_lower < 1
+    assert np.isfinite(m.gain_upper) == finite_upper
+    for g, stable in [(m.gain_lower * 0.99, False), (m.gain_lower * 1.01, True), (m.gain_upper * 0.99, True), (m.gain_upper * 1.01, False)]:
+        if not np.isfinite(g):
+            continue
+        poles = ct.poles(ct.feedback(g * L, 1))
+        assert (np.max(poles.real) < 0) == stable
+
+
+@settings(max_examples=20, deadline=None)
+@given(k=st.floats(0.2, 7.5), p=st.floats(0.3, 3.0))
+def test_margins_match_python_control_stability_margins(k, p):
+    # python-control 0.10.2 stability_margins on a stable triple lag k/(s+p)^3
+    L = ct.tf([k], np.polymul([1, p], np.polymul([1, p], [1, p])))
+    gm, pm, _, wpc, wgc, _ = ct.stability_margins(L)
+    m = loop_margins(*_ss(L))
+    if k / p**3 < 8:  # stable closed loop
+        assert_allclose(m.gain_upper, gm, rtol=1e-6)
+        assert_allclose(m.gain_upper_w_rad_s, wpc, rtol=1e-6)
+        if np.isfinite(pm) and k / p**3 > 1:
+            assert_allclose(m.phase_margin_deg, pm, rtol=1e-6)
+            assert_allclose(m.phase_margin_w_rad_s, wgc, rtol=1e-6)
+
+
+@pytest.mark.parametrize(
+    "tf, P, k, expected, source",
+    [
+        (ct.tf(4, [1, 3, 3, 1]), 0, 0, dict(hi=2.0, pm=27.1416306, dm=0.3842501695, s_peak=3.0, alpha=0.3776579041), "REFERENCES.md REF-09"),
+        (ct.tf([80, 80], [1, 10, -4, -40]), 1, 0, dict(lo=0.5, hi=np.inf, pm=48.94734683, dm=0.1370374065, s_peak=1.489134766), "REFERENCES.md REF-12"),
+        (ct.tf(2, [1, 1, 0]), 0, 1, dict(hi=np.inf, pm=38.66828249, dm=0.5400747979), "REFERENCES.md REF-10"),
+        (ct.tf(3, [1, -1]), 1, 0, dict(lo=1 / 3, hi=np.inf, pm=70.52877937, dm=0.4352098757, s_peak=1.0, alpha=1.0), "REFERENCES.md REF-04"),
+    ],
+)
+def test_margins_from_sampled_response(tf, P, k, expected, source):
+    w = np.logspace(-4, 4, 80001)
+    m = margins_from_response(w, tf(1j * w), open_loop_unstable_poles=P, poles_at_origin=k)
+    assert m.closed_loop_stable
+    assert_allclose(m.gain_lower, expected.get("lo", 0.0), rtol=1e-4)
+    assert_allclose(m.gain_upper, expected["hi"], rtol=1e-5)
+    assert_allclose(m.phase_margin_deg, expected["pm"], rtol=1e-5)
+    assert_allclose(m.delay_margin_s, expected["dm"], rtol=1e-5)
+    if "s_peak" in expected:
+        assert_allclose(m.peak_sensitivity, expected["s_peak"], rtol=1e-5)
+    if "alpha" in expected:
+        assert_allclose(m.disk.alpha, expected["alpha"], rtol=1e-5)
+
+
+def test_sampled_response_of_an_unstable_closed_loop_is_flagged_by_the_nyquist_count():
+    w = np.logspace(-3, 3, 20001)
+    L = ct.tf(10, [1, 3, 3, 1])  # beyond the upper margin 8: common practice, no source
+    m = margins_from_response(w, L(1j * w))
+    assert not m.closed_loop_stable
+    # an open-loop unstable loop whose Nyquist plot does not encircle -1 is unstable closed
+    L2 = ct.tf(0.5, [1, -1])
+    assert not margins_from_response(w, L2(1j * w), open_loop_unstable_poles=1).closed_loop_stable
+
+
+# ---- vector loops: loop-at-a-time margins can mislead ------------------------------
+
+
+def _spinning_drum(a: float = 6.0) -> Diagram:
+    """Two-axis attitude loop of a spinning drum (demo data, our own numbers).
+
+    Plant ``P(s) = 1/(s^2 + a^2) [[s - a^2, a (s + 1)], [-a (s + 1), s - a^2]]`` realised as
+    ``x' = [[0, a], [-a, 0]] x + u``, ``y = [[1, a], [-a, 1]] x``; unit feedback ``u = -y``.
+    """
+    d = Diagram()
+    d.add_block("plant", "drum", {"A": [[0.0, a], [-a, 0.0]], "B": [[1.0, 0.0], [0.0, 1.0]], "C": [[1.0, a], [-a, 1.0]], "D": [[0.0, 0.0], [0.0, 0.0]]})
+    d.add_block("gain", "Kneg", {"K": [[-1.0, 0.0], [0.0, -1.0]]})
+    d.connect("drum.y", "Kneg.in", name="rates")
+    d.connect("Kneg.out", "drum.u", name="torques")
+    return d
+
+
+def test_loop_at_a_time_margins_mislead_for_a_spinning_drum():
+    # Common practice (Doyle & Stein 1981; Skogestad & Postlethwaite, from memory): each loop
+    # alone is 1/s (infinite gain margin, 90 deg), yet a small simultaneous gain change
+    # destabilises. Expected values derived here by hand and with python-control 0.10.2.
+    a = 6.0
+    m = margins_at(_spinning_drum(a), "torques")
+    assert m.closed_loop_stable
+    for ch in m.per_channel:
+        assert ch.closed_loop_stable
+        assert ch.gain_lower == 0.0 and ch.gain_upper == np.inf
+        assert_allclose(ch.phase_margin_deg, 90.0, rtol=1e-8)  # L_i = 1/s crosses at 1 rad/s with -90 deg
+        assert_allclose(ch.phase_margin_w_rad_s, 1.0, rtol=1e-8)
+    # all loops at once: alpha = 1/||S - I/2||_inf, with S from python-control
+    P = ct.ss([[0, a], [-a, 0]], np.eye(2), [[1, a], [-a, 1]], np.zeros((2, 2)))
+    S = ct.feedback(ct.ss([], [], [], np.eye(2)), P)
+    ref = ct.norm(S - 0.5 * ct.ss([], [], [], np.eye(2)), "inf", method="scipy", tol=1e-12)
+    assert_allclose(m.all_at_once.alpha, 1.0 / ref, rtol=1e-7)
+    assert m.all_at_once.alpha < 0.2  # tiny, against alpha = 2 for each loop alone
+    # a simultaneous perturbation diag(1 + delta, 1 - delta) destabilises for small delta
+    A, B, C, D = loop_transfer(_spinning_drum(a), "torques")
+
+    def max_re(delta):
+        G = np.diag([1 + delta, 1 - delta])
+        return np.max(np.linalg.eigvals(A - B @ G @ C).real)
+
+    assert max_re(0.0) < 0
+    assert max_re(0.2) > 0  # 20 % opposite gain changes are enough
+    # and the all-loops disk margin is consistent with it: the guaranteed gain interval excludes 1.2 or 0.8
+    d = m.all_at_once
+    assert d.gain_upper < 1.2 or d.gain_lower > 0.8
+
+
+def test_vector_loop_margins_reject_non_square_loops():
+    with pytest.raises(AnalysisError):
+        vector_loop_margins(np.zeros((1, 1)), np.zeros((1, 2)), np.zeros((1, 1)), np.zeros((1, 2)))
+
+
+def test_unknown_break_signal_suggests_names():
+    with pytest.raises(UnknownNameError) as err:
+        margins_at(_unity_loop(OVEN, 4.0), "uu")
+    assert "u" in err.value.suggestions
+
+
+# ---- four closed-loop maps ---------------------------------------------------------
+
+
+def test_sensitivity_maps_around_the_oven_plant():
+    # S = 1/(1 + PC), T = PC/(1 + PC), PS = P/(1 + PC), CS = C/(1 + PC) with C = 4 (common practice, no source)
+    maps = sensitivity_maps(_unity_loop(OVEN, 4.0), "P")
+    w = np.array([0.0, 0.7, np.sqrt(2), 3.0])
+    s = 1j * w
+    P = 1 / (s + 1) ** 3
+    Cc = 4.0
+    expect = {"S": 1 / (1 + P * Cc), "T": P * Cc / (1 + P * Cc), "PS": P / (1 + P * Cc), "CS": Cc / (1 + P * Cc)}
+    for key, val in expect.items():
+        assert_allclose(frequency_response(*maps[key], w)[:, 0, 0], val, rtol=1e-10, err_msg=key)
+    assert_allclose(peak_gain(*maps["S"]).value, 3.0, rtol=1e-8)  # REFERENCES.md REF-09 ||S||_inf = 3
+    assert (maps["u"], maps["y"]) == ("u", "y")
+
+
+def test_closed_loop_matrix_gives_the_reference_poles():
+    # REFERENCES.md REF-09 closed-loop poles -2.587401052, -0.206299474 +- 1.374729637j
+    A, B, C, D = loop_transfer(_unity_loop(OVEN, 4.0), "u")
+    ev = np.sort_complex(np.linalg.eigvals(closed_loop_matrix(A, B, C, D)))
+    assert_allclose(ev, np.sort_complex([-2.587401052, -0.206299474 - 1.374729637j, -0.206299474 + 1.374729637j]), atol=1e-8)
