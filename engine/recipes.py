@@ -64,7 +64,6 @@ from loopwright.engine.design import (
     noise_dominance_warning,
     place_estimator,
     place_state_feedback,
-    poles_to_json,
 )
 from loopwright.engine.diagram import Block, Diagram, PortRef
 from loopwright.engine.errors import DesignError, EngineError

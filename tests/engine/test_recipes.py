@@ -118,6 +118,13 @@ def test_kalman_recipe_takes_intensities_from_the_diagram():
     assert any("taken from source(s) dist" in w for w in res.warnings)
 
 
+def test_estimator_ackermann_recipe_equals_dual_hand_gain():
+    # REFERENCES.md REF-03: (s + 5)(s + 6) on the stage gives L = [11, 30]'; Ackermann on the
+    # dual pair (REFERENCES.md REF-02 formula).
+    d = stage_loop(None, {"method": "ackermann", "poles": [-5, -6]})
+    assert_allclose(design_block(d, "est").matrix, [[11.0], [30.0]], atol=1e-9)
+
+
 def test_kalman_recipe_with_stated_weights_matches_python_control_lqe():
     # python-control 0.10.2 lqe as reference; G defaults to the plant's B.
     d = stage_loop(None, {"method": "kalman", "W": 4.0, "V": 0.01})
