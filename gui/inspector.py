@@ -254,7 +254,7 @@ class Inspector(QWidget):
         document.wire_removed.connect(self._on_wire_removed)
         document.wire_renamed.connect(self._on_wire_event)
         document.wire_changed.connect(self._on_wire_event)
-        document.diagram_replaced.connect(lambda: self.show_nothing())
+        document.diagram_replaced.connect(self._on_diagram_replaced)
         self.show_nothing()
 
     # ---- what to show ----------------------------------------------------------------------
@@ -277,6 +277,9 @@ class Inspector(QWidget):
         lay.addWidget(lab)
         lay.addStretch(1)
         self._set_page(w)
+
+    def _on_diagram_replaced(self) -> None:
+        self.show_nothing()
 
     def set_live_widths(self, widths: dict[str, int]) -> None:
         self._live_widths = dict(widths)

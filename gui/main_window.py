@@ -110,13 +110,15 @@ class MainWindow(QMainWindow):
         self._build_menus()
         self._build_toolbar()
         self.scene.selectionChanged.connect(self._on_selection_changed)
-        self.scene.edit_refused.connect(lambda msg: self.statusBar().showMessage(msg, 8000))
+        self.scene.edit_refused.connect(self._show_refusal)
         self.shelf.place_requested.connect(self._place_from_shelf)
         self.problems.culprits_chosen.connect(self.select_culprits)
         self.live.result_ready.connect(self._on_live_result)
         self.live.busy_changed.connect(self._on_busy)
-        self.document.undo_stack.cleanChanged.connect(lambda _c: self._update_title())
-        self.document.path_changed.connect(lambda _p: self._update_title())
+        # Bound methods, not lambdas: Qt drops them when the window goes, while the undo
+        # stack may still emit as it is destroyed.
+        self.document.undo_stack.cleanChanged.connect(self._update_title)
+        self.document.path_changed.connect(self._update_title)
         self.document.diagram_replaced.connect(self._on_diagram_replaced)
         self._closing_ok = False
         self._update_title()
@@ -252,10 +254,12 @@ class MainWindow(QMainWindow):
             self.resizeDocks([self.shelf_dock, self.inspector_dock], [190, 330], Qt.Orientation.Horizontal)
 
     # ---- title, status --------------------------------------------------------------------------
-    def _update_title(self) -> None:
+    def _show_refusal(self, message: str) -> None:
+        self.statusBar().showMessage(message, 8000)
+
+    def _update_title(self, *_args) -> None:
         d = self.document
-        name = d.title() if d.path else self.document.diagram.meta.get("title", "untitled") if False else d.title()
-        self.setWindowTitle(f"{name}{' *' if d.is_dirty else ''} — Loopwright")
+        self.setWindowTitle(f"{d.title()}[*] — Loopwright")
         self.setWindowModified(d.is_dirty)
 
     def _on_busy(self, busy: bool) -> None:

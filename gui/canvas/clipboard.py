@@ -18,7 +18,10 @@ FRAGMENT_MIME = "application/x-loopwright-fragment+json"
 
 def make_fragment(diagram: Diagram, block_ids) -> Diagram:
     """The blocks ``block_ids`` and every wire branch that runs between two of them."""
-    keep = [b for b in block_ids if b in diagram.blocks]
+    # Diagram order, not selection order: the pasted model then lists its states and
+    # signals in the same order as the original.
+    wanted = set(block_ids)
+    keep = [b for b in diagram.blocks if b in wanted]
     frag = Diagram()
     for bid in keep:
         b = diagram.blocks[bid]

@@ -1,0 +1,237 @@
+"""The canvas: items mirror the document, gestures become commands, markings show the
+live model (tests of gui/canvas/scene.py, view.py, block_item.py, wire_item.py)."""
+from __future__ import annotations
+
+import pytest
+from PySide6.QtCore import QPoint, QPointF, Qt
+from PySide6.QtTest import QTest
+
+from loopwright.engine.diagram import PortRef
+from loopwright.engine.project import load
+from loopwright.gui.canvas.block_item import BlockItem
+from loopwright.gui.canvas.wire_item import WireItem
+from loopwright.gui.commands import AddBlock
+
+from tests.gui.helpers import SAMPLES
+
+pytestmark = pytest.mark.qt
+
+OVEN = next(p for p in SAMPLES if p.stem == "two_zone_oven")
+
+
+def _vp(view, scene_pt: QPointF) -> QPoint:
+    return view.mapFromScene(scene_pt)
+
+
+def _drag(qtbot, view, a: QPointF, b: QPointF, steps: int = 6) -> None:
+    vp = view.viewport()
+    pa, pb = _vp(view, a), _vp(view, b)
+    QTest.mousePress(vp, Qt.MouseButton.LeftButton, Qt.KeyboardModifier.NoModifier, pa)
+    for k in range(1, steps + 1):
+        p = pa + (pb - pa) * k / steps
+        QTest.mouseMove(vp, p)
+    QTest.mouseRelease(vp, Qt.MouseButton.LeftButton, Qt.KeyboardModifier.NoModifier, pb)
+
+
+@pytest.fixture
+def shown(window, qtbot):
+    window.show()
+    qtbot.waitExposed(window)
+    return window
+
+
+def test_items_mirror_the_document_for_every_sample(window):
+    for path in SAMPLES:
+        window.open_sample(str(path))
+        d = window.document.diagram
+        assert set(window.scene.block_items) == set(d.blocks)
+        assert set(window.scene.wire_items) == set(d.wires)
+        for wid, item in window.scene.wire_items.items():
+            assert len(item.routes) == len(d.wires[wid].targets)
+
+
+def test_every_wire_route_is_orthogonal_and_ends_on_its_ports(window):
+    window.open_sample(str(SAMPLES[0]))
+    sc = window.scene
+    for wid, item in sc.wire_items.items():
+        w = window.document.diagram.wires[wid]
+        for route, t in zip(item.routes, w.targets):
+            for (x0, y0), (x1, y1) in zip(route, route[1:]):
+                assert abs(x0 - x1) < 1e-9 or abs(y0 - y1) < 1e-9
+            src = sc.block_items[w.source.block].port_scene_pos(w.source.port, is_input=False)
+            dst = sc.block_items[t.block].port_scene_pos(t.port, is_input=True)
+            assert route[0] == pytest.approx((src.x(), src.y()))
+            assert route[-1] == pytest.approx((dst.x(), dst.y()))
+
+
+def test_vector_signals_get_their_width_from_the_live_model(window, wait_live):
+    window.open_sample(str(OVEN))
+    wait_live(window)
+    d = window.document.diagram
+    xhat = window.scene.wire_items[d.wire_by_name("xhat").id]
+    assert xhat.signal_width == 2  # two oven zones: two estimated states
+    r = window.scene.wire_items[d.wire_by_name("d").id]
+    assert r.signal_width == 1
+
+
+def test_connecting_by_dragging_from_an_output_to_an_input(shown, qtbot):
+    doc = shown.document
+    a = AddBlock(doc, "gain", layout={"x": 0, "y": 0})
+    b = AddBlock(doc, "integrator", layout={"x": 200, "y": 40})
+    doc.push(a)
+    doc.push(b)
+    shown.view.centerOn(100, 20)
+    sc = shown.scene
+    out = sc.block_items[a.block_id].port_scene_pos("out", is_input=False)
+    inp = sc.block_items[b.block_id].port_scene_pos("in", is_input=True)
+    steps = doc.undo_stack.count()
+    _drag(qtbot, shown.view, out, inp + QPointF(5, 4))  # released near the port: snaps to it
+    w = doc.diagram.wire_from(PortRef(a.block_id, "out"))
+    assert w is not None and w.targets == [PortRef(b.block_id, "in")]
+    assert doc.undo_stack.count() == steps + 1
+
+
+def test_dragging_from_a_wire_branches_off_its_source(shown, qtbot):
+    doc = shown.document
+    a = AddBlock(doc, "gain", layout={"x": 0, "y": 0})
+    b = AddBlock(doc, "integrator", layout={"x": 200, "y": 0})
+    c = AddBlock(doc, "integrator", layout={"x": 200, "y": 120})
+    for cmd in (a, b, c):
+        doc.push(cmd)
+    shown.scene.connect_ports(PortRef(a.block_id, "out"), PortRef(b.block_id, "in"))
+    shown.view.centerOn(100, 60)
+    item = next(iter(shown.scene.wire_items.values()))
+    (x0, y0), (x1, y1) = item.routes[0][0], item.routes[0][1]
+    on_wire = QPointF((x0 + x1) / 2 + 30, y0)
+    target = shown.scene.block_items[c.block_id].port_scene_pos("in", is_input=True)
+    _drag(qtbot, shown.view, on_wire, target)
+    w = doc.diagram.wire_from(PortRef(a.block_id, "out"))
+    assert w.targets == [PortRef(b.block_id, "in"), PortRef(c.block_id, "in")]
+
+
+def test_valid_targets_are_highlighted_while_connecting(shown, qtbot):
+    doc = shown.document
+    a = AddBlock(doc, "gain", layout={"x": 0, "y": 0})
+    b = AddBlock(doc, "sum", layout={"x": 200, "y": 0})
+    doc.push(a)
+    doc.push(b)
+    sc = shown.scene
+    out = sc.block_items[a.block_id].port(("out"), is_input=False)
+    sc._start_link(out.scenePos(), source=out.ref, target=None)
+    states = {p.ref.port: p._target_state for p in sc.block_items[b.block_id].ports.values() if p.is_input}
+    assert states == {"in1": 1, "in2": 1}
+    assert sc.block_items[a.block_id].port("in", is_input=True)._target_state == 1
+    sc.cancel_gesture()
+    assert all(p._target_state == 0 for it in sc.block_items.values() for p in it.ports.values())
+
+
+def test_moving_blocks_by_mouse_snaps_to_the_grid_and_is_one_undo_step(shown, qtbot):
+    doc = shown.document
+    a = AddBlock(doc, "plant", layout={"x": 0, "y": 0})
+    doc.push(a)
+    shown.view.centerOn(0, 0)
+    steps = doc.undo_stack.count()
+    _drag(qtbot, shown.view, QPointF(0, 0), QPointF(63, 27), steps=10)
+    lay = doc.diagram.blocks[a.block_id].layout
+    assert (lay["x"] % 10, lay["y"] % 10) == (0, 0)
+    assert (lay["x"], lay["y"]) != (0, 0)
+    assert doc.undo_stack.count() == steps + 1
+    doc.undo_stack.undo()
+    assert shown.scene.block_items[a.block_id].pos() == QPointF(0, 0)
+
+
+def test_rubber_band_selects_the_blocks_it_touches(shown, qtbot):
+    doc = shown.document
+    for x in (0, 150, 600):
+        doc.push(AddBlock(doc, "gain", layout={"x": x, "y": 0}))
+    shown.view.zoom_reset()
+    shown.view.centerOn(250, 0)
+    _drag(qtbot, shown.view, QPointF(-60, -60), QPointF(200, 60))
+    names = sorted(doc.diagram.blocks[b].name for b in shown.scene.selected_block_ids())
+    assert names == ["K", "K2"]
+
+
+def test_rename_in_place_commits_on_enter_and_reports_a_refusal(shown, qtbot):
+    doc = shown.document
+    a = AddBlock(doc, "gain", layout={"x": 0, "y": 0})
+    b = AddBlock(doc, "gain", layout={"x": 200, "y": 0})
+    doc.push(a)
+    doc.push(b)
+    editor = shown.view.begin_rename(shown.scene.block_items[a.block_id])
+    editor.setText("Kfb")
+    QTest.keyClick(editor, Qt.Key.Key_Return)
+    assert doc.diagram.blocks[a.block_id].name == "Kfb"
+    refused = []
+    shown.scene.edit_refused.connect(refused.append)
+    editor = shown.view.begin_rename(shown.scene.block_items[b.block_id])
+    editor.setText("Kfb")
+    QTest.keyClick(editor, Qt.Key.Key_Return)
+    assert doc.diagram.blocks[b.block_id].name == "K2"
+    assert refused and "already used" in refused[0]
+
+
+def test_mirroring_puts_the_input_on_the_right_for_a_feedback_path(window):
+    doc = window.document
+    a = AddBlock(doc, "gain", layout={"x": 0, "y": 0})
+    doc.push(a)
+    window.scene.select_ids([a.block_id])
+    item = window.scene.block_items[a.block_id]
+    assert item.port_scene_pos("in", is_input=True).x() < 0
+    window.actions_["flip"].trigger()
+    assert item.port_scene_pos("in", is_input=True).x() > 0
+    window.actions_["rotate"].trigger()
+    assert doc.diagram.blocks[a.block_id].layout["rotation"] == 90
+    # Mirrored, then turned a quarter clockwise: the input now faces down.
+    assert item.port_scene_pos("in", is_input=True).y() > 0
+    doc.undo_stack.undo()
+    doc.undo_stack.undo()
+    assert item.port_scene_pos("in", is_input=True).x() < 0
+
+
+def test_a_moved_wire_segment_is_kept_as_bends_and_undoable(window):
+    window.open_sample(str(SAMPLES[0]))
+    d = window.document.diagram
+    w = d.wire_by_name("ufb")
+    item = window.scene.wire_items[w.id]
+    route = item.routes[0]
+    assert len(route) >= 4
+    interior = [list(p) for p in route[1:-1]]
+    k = 1
+    horizontal = abs(route[k][1] - route[k + 1][1]) < 1e-9
+    for idx in (k - 1, k):
+        if horizontal:
+            interior[idx][1] += 30.0
+        else:
+            interior[idx][0] -= 30.0
+    window.scene.commit_wire_bends(w.id, 0, interior)
+    assert d.wires[w.id].layout["bends"]["0"] == interior
+    moved = item.routes[0]
+    assert [list(p) for p in moved[1:-1]] == interior
+    window.document.undo_stack.undo()
+    assert item.routes[0] == route
+
+
+def test_highlight_marks_any_set_of_blocks_and_wires(window):
+    window.open_sample(str(SAMPLES[0]))
+    d = window.document.diagram
+    p, u = d.block_by_name("P").id, d.wire_by_name("u").id
+    window.scene.highlight([p], [u])
+    assert window.scene.block_items[p]._highlighted and window.scene.wire_items[u]._highlighted
+    window.scene.highlight()
+    assert not window.scene.block_items[p]._highlighted
+
+
+def test_blocks_and_wires_use_device_cache_and_selection_is_by_id(window):
+    window.open_sample(str(SAMPLES[0]))
+    for item in window.scene.block_items.values():
+        assert item.cacheMode() == BlockItem.CacheMode.DeviceCoordinateCache
+    window.scene.select_ids([], [next(iter(window.scene.wire_items))])
+    assert all(isinstance(i, WireItem) for i in window.scene.selectedItems())
+
+
+def test_drop_from_the_shelf_places_that_kind_at_the_drop_point(window):
+    spec = window.shelf.spec(7)  # disturbance
+    bid = window.scene.place_block(spec["kind"], QPointF(123, 47), spec["params"])
+    blk = window.document.diagram.blocks[bid]
+    assert (blk.kind, blk.params["role"], blk.name) == ("source", "disturbance", "d")
+    assert (blk.layout["x"], blk.layout["y"]) == (120, 50)
