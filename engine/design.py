@@ -46,6 +46,7 @@ __all__ = [
     "noise_dominance_warning",
     "check_weight",
     "pole_mismatch",
+    "discrete_lqr_gain",
 ]
 
 # Relative tolerance of the PBH rank test: sigma_min([A - lam I, B]) <= _PBH_RTOL * scale.
@@ -476,6 +477,46 @@ def lqr_gain(A, B, Q, R, *, N=None, inputs=None) -> GainDesign:
     poles = _sort_poles(np.linalg.eigvals(A - B @ K))
     _require_stable(poles, "LQR")
     return GainDesign(K, poles, float(np.linalg.norm(K, 2)), "lqr", riccati=P)
+
+
+def discrete_lqr_gain(Ad, Bd, Q, R, *, N=None) -> GainDesign:
+    """Discrete-time LQR ``u[k] = -K x[k]`` minimising ``sum (x'Qx + u'Ru + 2x'Nu)``.
+
+    For a plant already sampled (e.g. by :func:`loopwright.engine.discretize.discretize`
+    with ZOH): ``K = (R + B'PB)^-1 (B'PA + N')`` where P solves the discrete Riccati
+    equation. ``poles`` are the eigenvalues of ``Ad - Bd K`` (inside the unit circle).
+
+    Raises
+    ------
+    DesignError
+        Bad weights, an uncontrollable mode on or outside the unit circle, no
+        stabilising solution.
+    """
+    A, B = _check_system(Ad, Bd)
+    n, m = A.shape[0], B.shape[1]
+    Qm = check_weight(Q, "Q", n, definite=False)
+    Rm = check_weight(R, "R", m, definite=True)
+    Nm = np.zeros((n, m)) if N is None else _as_matrix(N, "N", shape=(n, m))
+    if N is not None:
+        check_weight(np.block([[Qm, Nm], [Nm.T, Rm]]), "[[Q, N], [N', R]]", n + m, definite=False)
+    bad = [lam for lam in _pbh_modes(A, B) if abs(lam) >= 1.0 - 1e-12]
+    if bad:
+        raise DesignError(
+            f"discrete LQR: the sampled plant is not stabilisable: uncontrollable mode(s) at z = "
+            f"{', '.join(_fmt(v) for v in bad)} (on or outside the unit circle)"
+        )
+    try:
+        P = sla.solve_discrete_are(A, B, Qm, Rm, s=Nm, balanced=True)
+    except (np.linalg.LinAlgError, ValueError) as err:
+        raise DesignError(f"discrete LQR: the Riccati equation has no stabilising solution ({err})") from err
+    P = 0.5 * (P + P.T)
+    K = np.linalg.solve(Rm + B.T @ P @ B, B.T @ P @ A + Nm.T)
+    poles = _sort_poles(np.linalg.eigvals(A - B @ K))
+    if np.max(np.abs(poles)) >= 1.0 - 1e-12:
+        raise DesignError(
+            f"discrete LQR: no stabilising solution, a closed-loop pole stays at |z| = {np.max(np.abs(poles)):.6g}"
+        )
+    return GainDesign(K, poles, float(np.linalg.norm(K, 2)), "dlqr", riccati=P)
 
 
 def _solve_care(A, B, Q, R, N, *, what: str) -> np.ndarray:

@@ -37,6 +37,7 @@ from loopwright.engine.project import atomic_write
 
 __all__ = [
     "EXPORT_FORMAT",
+    "ExportError",
     "ExportModel",
     "closed_loop_model",
     "path_model",

@@ -276,3 +276,29 @@ def test_check_weight_scalar_means_scaled_identity():
 
 def test_poles_to_json_writes_complex_as_pairs():
     assert poles_to_json([-1.0, -2 + 3j, -2 - 3j]) == [-1.0, [-2.0, 3.0], [-2.0, -3.0]]
+
+
+def test_discrete_lqr_agrees_with_python_control_dlqr_on_sampled_conveyor():
+    # python-control 0.10.2 dlqr as reference, on the REF-02 conveyor sampled by ZOH at 10 ms.
+    from loopwright.engine.design import discrete_lqr_gain
+    from loopwright.engine.discretize import discretize
+
+    dm = discretize(CONVEYOR_A, CONVEYOR_B, np.eye(3), np.zeros((3, 1)), 0.01)
+    Q, R, N = np.diag([10.0, 1.0, 0.1]), np.array([[0.5]]), np.array([[0.05], [0.0], [0.01]])
+    res = discrete_lqr_gain(dm.A, dm.B, Q, R, N=N)
+    K_ct, P_ct, E_ct = ct.dlqr(dm.A, dm.B, Q, R, N)
+    assert_allclose(res.gain, K_ct, rtol=1e-8)
+    assert_allclose(res.riccati, P_ct, rtol=1e-8)
+    assert pole_mismatch(res.poles, E_ct) < 1e-10
+    assert np.max(np.abs(res.poles)) < 1.0
+
+
+def test_discrete_lqr_scalar_closed_form():
+    # x[k+1] = a x + b u, q, r: P = q + a^2 P - a^2 b^2 P^2/(r + b^2 P); with a = 2, b = 1,
+    # q = r = 1: P^2 - 4P - 1 = 0, P = 2 + sqrt(5), K = 2P/(1 + P) (common practice, no source).
+    from loopwright.engine.design import discrete_lqr_gain
+
+    res = discrete_lqr_gain([[2.0]], [[1.0]], 1.0, 1.0)
+    P = 2 + np.sqrt(5)
+    assert_allclose(res.riccati, [[P]], rtol=1e-12)
+    assert_allclose(res.gain, [[2 * P / (1 + P)]], rtol=1e-12)

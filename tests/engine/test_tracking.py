@@ -4,6 +4,8 @@ from __future__ import annotations
 import control as ct
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
 from loopwright.engine.design import normalize_poles, pole_mismatch
@@ -142,3 +144,23 @@ def test_add_integral_action_rejects_unknown_signal_and_non_sum_block():
         add_integral_action(d, [[1.0]], reference="nope", measured="g.out", actuator_sum="g")
     with pytest.raises(DiagramError, match="not a summing junction"):
         add_integral_action(d, [[1.0]], reference="r.out", measured="g.out", actuator_sum="g")
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.integers(0, 2**32 - 1), st.integers(1, 4), st.integers(1, 2))
+def test_feedforward_gives_identity_dc_gain_on_random_square_plants(seed, n, m):
+    # Property: with u = -K x + N r the closed-loop DC gain r -> y is I (definition of N);
+    # python-control 0.10.2 dcgain as the outside evaluation.
+    rng = np.random.default_rng(seed)
+    A = rng.normal(size=(n, n))
+    B = rng.normal(size=(n, m))
+    C = rng.normal(size=(m, n))
+    D = rng.normal(size=(m, m)) * 0.1
+    if np.linalg.svd(ct.ctrb(A, B), compute_uv=False)[-1] < 1e-3:
+        return
+    K = ct.place(A, B, -np.arange(1, n + 1, dtype=float)) if m <= n else np.zeros((m, n))
+    if np.linalg.svd(np.block([[A, B], [C, D]]), compute_uv=False)[-1] < 1e-6:
+        return
+    N = feedforward_gain(A, B, C, D, K)
+    dc = _closed_loop_dc(A, B, C, D, K, N)
+    assert_allclose(dc, np.eye(m), atol=1e-7 * max(1.0, np.abs(N).max()))
