@@ -18,8 +18,8 @@ verdict. ``peak_over_dc`` (resonance relative to the static gain) is reported al
 
 **Speed:** ``A`` is reduced once (balanced complex Schur form); each input group is then
 evaluated for all signals at once on one frequency grid, peaks are refined jointly by
-grid densification (4 passes of 9 points around each pair's peak, each pass one batched
-evaluation), and H2 norms reuse the same real Schur form for one Lyapunov solve per input
+grid densification (up to 8 passes of 9 points around each pair's peak, each pass one
+batched evaluation; a peak at either end of the grid extends the grid outward first), and H2 norms reuse the same real Schur form for one Lyapunov solve per input
 group. Stability per pair uses the left and right eigenvectors of each non-stable mode
 taken from the triangular form. Peak gains are therefore grid-and-refine values (relative
 error about 1e-8 or better around a smooth peak), not Hamiltonian certificates; use
@@ -164,7 +164,7 @@ def path_audit(
     injections: bool = False,
     reduced: ReducedModel | None = None,
     points_per_decade: int = 40,
-    refine_passes: int = 4,
+    refine_passes: int = 8,
 ) -> list[AuditRow]:
     """Rank every (source, signal) path of the assembled model (see the module docstring
     for the rule).
@@ -231,10 +231,15 @@ def path_audit(
             for sig, _ in sig_items:
                 gv = np.where(np.isfinite(g_all[sig]), g_all[sig], -np.inf)
                 i = int(np.argmax(gv))
-                if 0 < i < w_all.size - 1:
+                if i == w_all.size - 1 and w_all[i] > 0:
+                    # still rising at the top of the grid (a fast zero): look further up
+                    new.append(w_all[i] * np.logspace(0.05, 1.5, 10))
+                elif i == 1 and w_all[0] == 0.0:
+                    # peak between DC and the lowest grid point
+                    new.append(w_all[1] * np.logspace(-1.5, -0.05, 10))
+                    new.append(np.linspace(w_all[1], w_all[2], 11)[1:-1])
+                elif 0 < i < w_all.size - 1:
                     new.append(np.linspace(w_all[i - 1], w_all[i + 1], 11)[1:-1])
-                elif i == w_all.size - 1 and w_all.size > 1:
-                    new.append(np.linspace(w_all[i - 1], w_all[i], 10)[1:])
             if not new:
                 break
             wn = np.setdiff1d(np.unique(np.concatenate(new)), w_all)

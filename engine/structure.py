@@ -83,8 +83,10 @@ def controllable_part(A, B, C, *, tol: float = DEFAULT_RANK_TOL):
     """
     A = np.atleast_2d(np.asarray(A, dtype=float))
     n = A.shape[0]
-    B = np.asarray(B, dtype=float).reshape(n, -1)
-    C = np.asarray(C, dtype=float).reshape(-1, n)
+    B = np.asarray(B, dtype=float)
+    C = np.asarray(C, dtype=float)
+    B = B if B.ndim == 2 else B.reshape(n, -1)
+    C = C if C.ndim == 2 else C.reshape(-1, n)
     scale = max(1.0, np.linalg.norm(A, 2) if n else 0.0, np.linalg.norm(B, 2) if B.size else 0.0)
     thresh = tol * scale
     basis = np.zeros((n, 0))
