@@ -248,3 +248,20 @@ def test_oven_sample_gains_agree_with_python_control():
     V = np.diag([0.01, 0.01])  # the noise source's intensity, traced by noise_defaults
     L_ct, _, _ = ct.lqe(A, np.array(rec_l["G"]), C, np.array(rec_l["W"]), V)
     assert_allclose(np.array(d.block_by_name("est").params["L"]), L_ct, rtol=1e-8)
+
+
+def test_noise_dominance_warning_reports_rms_equal_to_h2_norm_times_sqrt_intensity():
+    # RMS of a white-noise-driven path = sqrt(W) * ||G||_2 (REFERENCES.md REF-08
+    # conventions); ||G||_2 by python-control 0.10.2 norm(..., 2).
+    import re
+
+    d = stage_loop({"method": "place", "poles": [-5, -6]}, {"method": "place", "poles": [-6, -7]},
+                   disturbance={"kind": "white", "intensity": 0.04, "seed": 1},
+                   noise={"kind": "white", "intensity": 0.25, "seed": 2})
+    out, res = redesign(d)
+    msg = next(w for w in {r.block: r for r in res}["Kx"].warnings if "dominates" in w)
+    rms_noise, rms_other = (float(v) for v in re.findall(r"RMS ([0-9.eE+-]+) from noise sources vs ([0-9.eE+-]+)", msg)[0])
+    model = assemble(out)
+    h2 = {src: ct.norm(ct.ss(*model.pair(src, "u_fb")), 2) for src in ("meas_noise", "dist")}
+    assert_allclose(rms_noise, 0.5 * h2["meas_noise"], rtol=1e-3)  # message rounds to 4 digits
+    assert_allclose(rms_other, 0.2 * h2["dist"], rtol=1e-3)
