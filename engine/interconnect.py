@@ -15,6 +15,10 @@ The result has inputs ``[e, v]`` (sources, then an injection on every signal com
 and outputs ``s`` (every signal component). A *loop break* at a signal re-routes that
 signal's consumers to a new input group ``break:<signal>``; the signal still reports the
 upstream value, so the loop transfer there is ``L = -G(break:<signal> -> <signal>)``.
+A break may also name one input port (``"P.u"``): then only that consumer is cut, the
+input group is ``break:P.u`` and the value returns on the signal feeding it
+(``model.break_return``). That is the break "where the controller meets the plant" when
+the estimator reads the same command wire as the plant.
 """
 from __future__ import annotations
 
@@ -100,6 +104,7 @@ class AssembledModel:
     signal_ports: dict[str, PortRef]
     diagram: Diagram = field(repr=False)
     break_at: str | None = None
+    break_return: str | None = None
 
     @property
     def n_states(self) -> int:
@@ -251,7 +256,7 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     diagram : Diagram
         Not modified; the model keeps a snapshot.
     break_at : str, optional
-        Signal at which to open the loop (see the module docstring).
+        Signal, or input port ``"block.port"``, at which to open the loop (see the module docstring).
 
     Returns
     -------
@@ -365,34 +370,25 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     E = sp.csr_matrix((np.ones(len(src_rows)), (src_rows, src_cols_list)), shape=(ns, ne))
 
     # ---- selection u = M s (+ Mb b for a broken signal) ------------------------------
-    broken: str | None = None
+    broken: str | None = None  # the signal whose value returns at the break
+    broken_port: PortRef | None = None  # set when only one consumer of that signal is cut
     if break_at is not None:
-        if break_at not in sig_slices:
-            sugg = difflib.get_close_matches(break_at, list(sig_slices), n=3, cutoff=0.4)
-            raise UnknownNameError(
-                f"cannot break the loop at {break_at!r}: no such signal" + (f"; did you mean {', '.join(sugg)}?" if sugg else ""),
-                suggestions=sugg,
-            )
-        broken = break_at
+        broken, broken_port = _resolve_break(snap, break_at, sig_slices, sig_of_port)
     m_rows, m_cols, b_rows, b_cols = [], [], [], []
-    nb = 0
+    nb = sig_slices[broken].stop - sig_slices[broken].start if broken is not None else 0
     for w in snap.wires.values():
         srows = port_rows[w.source]
-        is_broken = broken is not None and sig_of_port[w.source] == broken
-        if is_broken:
-            nb = srows.stop - srows.start
+        on_broken_signal = broken is not None and sig_of_port[w.source] == broken
         for t in w.targets:
             urows = in_offsets[t]
             if urows.stop - urows.start != srows.stop - srows.start:
                 raise DimensionError(f"wire {w.name!r}: widths differ at {snap.port_label(t)}", wire_ids=[w.id])
-            if is_broken:
+            if on_broken_signal and (broken_port is None or t == broken_port):
                 b_rows.extend(range(urows.start, urows.stop))
                 b_cols.extend(range(nb))
             else:
                 m_rows.extend(range(urows.start, urows.stop))
                 m_cols.extend(range(srows.start, srows.stop))
-    if broken is not None and nb == 0:
-        nb = sig_slices[broken].stop - sig_slices[broken].start
     M = sp.csr_matrix((np.ones(len(m_rows)), (m_rows, m_cols)), shape=(nu, ns))
     Mb = sp.csr_matrix((np.ones(len(b_rows)), (b_rows, b_cols)), shape=(nu, nb))
 
@@ -418,8 +414,8 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         inputs[f"inject:{name}"] = slice(ne + sl.start, ne + sl.stop)
         input_names.extend(_comp_names(f"inject:{name}", sl.stop - sl.start))
     if broken is not None:
-        inputs[f"break:{broken}"] = slice(ne + ns, ne + ns + nb)
-        input_names.extend(_comp_names(f"break:{broken}", nb))
+        inputs[f"break:{break_at}"] = slice(ne + ns, ne + ns + nb)
+        input_names.extend(_comp_names(f"break:{break_at}", nb))
     return AssembledModel(
         A=np.ascontiguousarray(A),
         B=np.ascontiguousarray(B),
@@ -434,7 +430,31 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         sources=sources,
         signal_ports=sig_ports,
         diagram=snap,
-        break_at=broken,
+        break_at=break_at,
+        break_return=broken,
+    )
+
+
+def _resolve_break(diagram: Diagram, where: str, sig_slices, sig_of_port) -> tuple[str, PortRef | None]:
+    """``(signal, port)`` for a loop break named by a signal (all its consumers) or by one input port."""
+    if where in sig_slices:
+        return where, None
+    if "." in where:
+        try:
+            ref = diagram.resolve_port(where)
+        except EngineError:
+            ref = None
+        if ref is not None and ref.port in input_ports(diagram.blocks[ref.block]):
+            wire = diagram.wire_into(ref)
+            if wire is None:
+                raise ConnectionError_(f"cannot break the loop at {where}: that input is not connected", block_ids=[ref.block])
+            return sig_of_port[wire.source], ref
+    ports = [f"{b.name}.{p}" for b in diagram.blocks.values() for p in input_ports(b)]
+    sugg = difflib.get_close_matches(where, list(sig_slices) + ports, n=3, cutoff=0.4)
+    raise UnknownNameError(
+        f"cannot break the loop at {where!r}: no signal or input port of that name"
+        + (f"; did you mean {', '.join(sugg)}?" if sugg else ""),
+        suggestions=sugg,
     )
 
 

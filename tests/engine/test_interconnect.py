@@ -221,3 +221,30 @@ def test_injection_adds_at_the_signal():
     G = tf_eval(m, "P.y", "P.y", 0.0)  # bare signal name means its injection
     assert m.resolve_input("P.y") == "inject:P.y"
     assert G.shape == (1, 1) and np.isfinite(G).all()
+
+
+def test_break_at_one_input_port_cuts_only_that_consumer():
+    # REFERENCES.md REF-03 with the estimator reading the plant's own input wire: breaking the
+    # whole signal also cuts the estimator's input, breaking the port P.u cuts the plant only.
+    d = stage_loop()
+    up = d.resolve_port("est.u")
+    d.disconnect(d.wire_into(up).id, up)
+    d.connect("up.out", "est.u")
+    m = assemble(d, break_at="P.u")
+    assert m.break_return == "up.out" and "break:P.u" in m.inputs
+    s = 1.3j
+    A, B, C, D = m.pair("break:P.u", m.break_return)
+    Ls = -(C @ np.linalg.solve(s * np.eye(A.shape[0]) - A, B) + D)[0, 0]
+    # plant-input loop of an observer-based controller fed the true command (REF-03 closed form)
+    assert_allclose(Ls, (208 * s + 240) / (s**2 * (s**2 + 15 * s + 82)), rtol=1e-10)
+    # cutting every consumer gives the state-feedback loop K (sI - A)^-1 B instead
+    m_all = assemble(d, break_at="up.out")
+    A, B, C, D = m_all.pair("break:up.out", "up.out")
+    L_all = -(C @ np.linalg.solve(s * np.eye(A.shape[0]) - A, B) + D)[0, 0]
+    assert_allclose(L_all, (4 * s + 8) / s**2, rtol=1e-10)
+
+
+def test_break_at_an_unknown_place_suggests_ports_and_signals():
+    with pytest.raises(UnknownNameError) as info:
+        assemble(stage_loop(), break_at="P.v")
+    assert "P.u" in info.value.suggestions
