@@ -36,7 +36,7 @@ def add_commands(subparsers) -> None:
     mode = p.add_mutually_exclusive_group()
     mode.add_argument("--step", metavar="INPUT", default=None, help="unit step on this input")
     mode.add_argument("--impulse", metavar="INPUT", default=None, help="unit impulse on this input")
-    mode.add_argument("--run", action="store_true", help="drive the diagram with its sources' own waveforms (default)")
+    mode.add_argument("--run", dest="run_sources", action="store_true", help="drive the diagram with its sources' own waveforms (default)")
     p.add_argument("--to", dest="signals", required=True, metavar="SIGNAL[,SIGNAL]", help="signals to report, comma-separated")
     p.add_argument("--t-end", type=float, default=None, help="end time, s")
     p.add_argument("--dt", type=float, default=None, help="time step, s")
