@@ -58,6 +58,28 @@ def render_screenshot(win, out: str | Path, *, size=SCREENSHOT_SIZE, timeout_s: 
     return ok
 
 
+class _HeadlessDialogs:
+    """Answers for a window nobody looks at (screenshot mode): errors go to stderr."""
+
+    def error(self, title: str, text: str) -> None:
+        print(f"loopwright: {text}", file=sys.stderr)
+
+    def info(self, title: str, text: str) -> None:
+        pass
+
+    def ask_save_changes(self, name: str) -> str:
+        return "discard"
+
+    def ask_recover(self, description: str) -> bool:
+        return False
+
+    def open_path(self, folder: str = "") -> None:
+        return None
+
+    def save_path(self, suggestion: str = "") -> None:
+        return None
+
+
 def run_app(path: str | None, screenshot: str | None) -> int:
     """Open the app on ``path`` (or an empty diagram).
 
@@ -66,16 +88,23 @@ def run_app(path: str | None, screenshot: str | None) -> int:
     """
     app = _application()
     if screenshot:
-        from loopwright.gui.settings import load_preferences
+        import tempfile
 
-        settings = QSettings()
-        prefs = load_preferences(settings, autosave_interval_s=0)
-        win = make_window(None, settings=settings, prefs=prefs)
-        if path and not win.open_path(path):
-            return 2
-        render_screenshot(win, screenshot)
-        win._closing_ok = True
-        win.close()
+        from loopwright.gui.settings import Preferences
+
+        with tempfile.TemporaryDirectory(prefix="loopwright-shot-") as tmp:
+            # A throwaway settings file and autosave folder: a screenshot run leaves no trace
+            # in the user's preferences, recent files or autosaves.
+            settings = QSettings(str(Path(tmp) / "settings.ini"), QSettings.Format.IniFormat)
+            prefs = Preferences(autosave_dir=Path(tmp) / "autosave", autosave_interval_s=0)
+            win = make_window(None, settings=settings, prefs=prefs, dialogs=_HeadlessDialogs())
+            if path and not win.open_path(path):
+                win._closing_ok = True
+                win.close()
+                return 2
+            render_screenshot(win, screenshot)
+            win._closing_ok = True
+            win.close()
         return 0
     win = make_window(None)
     if path:
@@ -83,6 +112,6 @@ def run_app(path: str | None, screenshot: str | None) -> int:
     else:
         win.offer_recovery()
     win.show()
-    if path is None and not win.document.diagram.blocks:
-        win.view.fit_to_view()
-    return app.exec()
+    code = app.exec()
+    win.live.shutdown()
+    return code

@@ -128,24 +128,24 @@ class LiveModel(QObject):
         revision = self._doc.revision
         snapshot = self._doc.snapshot()
         fut = self._executor.submit(compute_live_result, snapshot, revision)
-        fut.add_done_callback(self._deliver)
+        fut.add_done_callback(lambda f, rev=revision: self._deliver(f, rev))
         self._pending = fut
         self.busy_changed.emit(True)
 
-    def _deliver(self, fut: Future) -> None:
+    def _deliver(self, fut: Future, revision: int) -> None:
         if fut.cancelled() or self._closed:
             return
         try:
             result = fut.result()
         except Exception as err:  # an engine bug must not kill the window: show it as a problem
-            result = LiveResult(revision=-1, error=f"internal error while checking the diagram: {err!r}")
+            result = LiveResult(revision=revision, error=f"internal error while checking the diagram: {err!r}")
         try:
             self._finished.emit(result)
         except RuntimeError:
             pass  # the window was closed while the worker ran
 
     def _on_finished(self, result: LiveResult) -> None:
-        if result.revision != self._doc.revision and result.revision != -1:
+        if result.revision != self._doc.revision:
             self.discarded += 1
             return
         self.latest = result

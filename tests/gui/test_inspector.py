@@ -1,0 +1,203 @@
+"""The inspector: parameter editing through commands, matrix tables that follow the
+dimensions, paste of spreadsheet text and numpy literals, refusals with the reason
+(tests of gui/inspector.py)."""
+from __future__ import annotations
+
+import control as ct
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from PySide6.QtGui import QGuiApplication
+from PySide6.QtWidgets import QComboBox, QLineEdit
+
+from loopwright.engine.project import load
+from loopwright.gui.commands import AddBlock
+from loopwright.gui.inspector import Inspector, MatrixEditor, format_complex_list
+
+from tests.gui.helpers import SAMPLES
+
+pytestmark = pytest.mark.qt
+
+
+@pytest.fixture
+def doc_and_inspector(qtbot):
+    from loopwright.gui.document import Document
+
+    doc = Document(load(SAMPLES[0]))
+    insp = Inspector(doc)
+    qtbot.addWidget(insp)
+    return doc, insp
+
+
+def _commit(edit: QLineEdit, text: str) -> None:
+    edit.setText(text)
+    edit.editingFinished.emit()
+
+
+def test_matrix_editor_grows_and_shrinks_with_the_dimensions(qtbot):
+    ed = MatrixEditor([[1.0, 2.0], [3.0, 4.0]], name="A")
+    qtbot.addWidget(ed)
+    seen = []
+    ed.edited.connect(seen.append)
+    ed.rows.setValue(3)
+    assert seen[-1] == [[1.0, 2.0], [3.0, 4.0], [0.0, 0.0]]
+    ed.cols.setValue(1)
+    assert seen[-1] == [[1.0], [3.0], [0.0]]
+
+
+@pytest.mark.parametrize(
+    "text, expected, source",
+    [
+        ("1\t2\n3\t4\n", [[1.0, 2.0], [3.0, 4.0]], "spreadsheet copy: tab-separated cells (common practice, no source)"),
+        ("np.array([[0, 1], [-2, -3]])", [[0.0, 1.0], [-2.0, -3.0]], "numpy literal"),
+        ("[[1.5, -2e-3]]", [[1.5, -0.002]], "Python literal"),
+        ("1, 2; 3, 4", [[1.0, 2.0], [3.0, 4.0]], "semicolon rows"),
+    ],
+)
+def test_matrix_editor_pastes_spreadsheet_text_and_literals(qtbot, text, expected, source):
+    ed = MatrixEditor([[0.0]], name="K")
+    qtbot.addWidget(ed)
+    assert ed.paste_text(text), source
+    assert ed.value() == expected
+    assert (ed.rows.value(), ed.cols.value()) == (len(expected), len(expected[0]))
+
+
+def test_matrix_editor_refuses_a_bad_cell_with_its_position(qtbot):
+    ed = MatrixEditor([[1.0, 2.0]], name="K")
+    qtbot.addWidget(ed)
+    seen = []
+    ed.edited.connect(seen.append)
+    ed.table.item(0, 1).setText("two")
+    assert not seen
+    assert "row 1, column 2" in ed.error.text() and not ed.error.isHidden()
+    assert not ed.paste_text("1\t2\n3")
+    assert "different lengths" in ed.error.text()
+
+
+def test_editing_a_gain_in_the_table_pushes_one_command_and_undo_restores(doc_and_inspector):
+    doc, insp = doc_and_inspector
+    k = doc.diagram.block_by_name("K")
+    insp.show_block(k.id)
+    ed = insp.fields["K"]
+    old = [row[:] for row in k.params["K"]]
+    steps = doc.undo_stack.count()
+    ed.table.item(0, 0).setText("12.5")
+    assert doc.diagram.blocks[k.id].params["K"][0][0] == 12.5
+    assert doc.undo_stack.count() == steps + 1
+    doc.undo_stack.undo()
+    assert doc.diagram.blocks[k.id].params["K"] == old
+
+
+def test_a_matrix_of_the_wrong_size_is_refused_with_the_engine_reason_and_nothing_changes(doc_and_inspector):
+    doc, insp = doc_and_inspector
+    p = doc.diagram.block_by_name("P")
+    insp.show_block(p.id)
+    before = doc.snapshot()
+    insp.fields["B"].rows.setValue(1)  # B must have as many rows as A
+    assert doc.diagram == before
+    assert "B has 1 rows, expected 4" in insp.fields["B"].error.text()
+
+
+def test_transfer_function_fields_show_poles_and_zeros(qtbot):
+    from loopwright.gui.document import Document
+
+    doc = Document()
+    cmd = AddBlock(doc, "dynamic")
+    doc.push(cmd)
+    insp = Inspector(doc)
+    qtbot.addWidget(insp)
+    insp.show_block(cmd.block_id)
+    _commit(insp.fields["num"], "1, 3")
+    _commit(insp.fields["den"], "1, 3, 2")
+    blk = doc.diagram.blocks[cmd.block_id]
+    assert blk.params == {"num": [1.0, 3.0], "den": [1.0, 3.0, 2.0]}
+    text = insp.fields["poles_zeros"].text()
+    # Reference: python-control's poles and zeros of (s + 3) / (s^2 + 3 s + 2).
+    sys = ct.tf([1, 3], [1, 3, 2])
+    assert_allclose(sorted(sys.poles().real), [-2.0, -1.0])
+    assert "poles: -2, -1" in text or "poles: -1, -2" in text
+    assert f"zeros: {sys.zeros()[0].real:.4g}" in text
+
+
+def test_a_bad_coefficient_is_refused_next_to_the_field(qtbot):
+    from loopwright.gui.document import Document
+
+    doc = Document()
+    cmd = AddBlock(doc, "dynamic")
+    doc.push(cmd)
+    insp = Inspector(doc)
+    qtbot.addWidget(insp)
+    insp.show_block(cmd.block_id)
+    _commit(insp.fields["den"], "1, x")
+    assert doc.diagram.blocks[cmd.block_id].params["den"] == [1.0, 1.0]
+    err = insp.errors["den"]
+    assert not err.isHidden() and "'x' is not a finite number" in err.text()
+    _commit(insp.fields["den"], "0, 0")
+    assert doc.diagram.blocks[cmd.block_id].params["den"] == [1.0, 1.0]
+    assert "den" in insp.errors["den"].text()
+
+
+def test_complex_lists_are_written_as_conjugate_pairs():
+    assert format_complex_list(np.array([-1 + 2j, -1 - 2j, -3])) == "-1 ± 2j, -3"
+    assert format_complex_list(np.array([])) == "none"
+
+
+def test_source_role_waveform_and_intensity_are_edited(doc_and_inspector):
+    doc, insp = doc_and_inspector
+    n = doc.diagram.block_by_name("n")
+    insp.show_block(n.id)
+    role: QComboBox = insp.fields["role"]
+    role.setCurrentText("disturbance")
+    assert doc.diagram.blocks[n.id].params["role"] == "disturbance"
+    insp.fields["waveform"].setCurrentText("white")
+    assert doc.diagram.blocks[n.id].params["waveform"]["kind"] == "white"
+    _commit(insp.fields["intensity"], "2.5e-6")
+    assert doc.diagram.blocks[n.id].params["waveform"]["intensity"] == 2.5e-6
+    _commit(insp.fields["intensity"], "-1")
+    assert doc.diagram.blocks[n.id].params["waveform"]["intensity"] == 2.5e-6
+    assert not insp.errors["intensity"].isHidden()
+
+
+def test_estimator_link_can_switch_to_an_own_model_and_back(doc_and_inspector):
+    doc, insp = doc_and_inspector
+    est = doc.diagram.block_by_name("est")
+    insp.show_block(est.id)
+    link: QComboBox = insp.fields["plant"]
+    link.setCurrentIndex(0)  # own model: the plant's matrices are copied in
+    params = doc.diagram.blocks[est.id].params
+    assert "plant" not in params
+    assert_allclose(params["A"], doc.diagram.block_by_name("P").params["A"])
+    insp.fields["plant"].setCurrentIndex(insp.fields["plant"].findData("P"))
+    assert doc.diagram.blocks[est.id].params.get("plant") == "P"
+
+
+def test_sum_signs_flip_and_inputs_are_added(doc_and_inspector):
+    doc, insp = doc_and_inspector
+    s = doc.diagram.block_by_name("err")
+    insp.show_block(s.id)
+    before = list(s.params["signs"])
+    from PySide6.QtWidgets import QPushButton
+
+    insp.findChild(QPushButton, "sign_1").click()
+    assert doc.diagram.blocks[s.id].params["signs"][0] != before[0]
+    insp.findChild(QPushButton, "sign_add").click()
+    assert len(doc.diagram.blocks[s.id].params["signs"]) == len(before) + 1
+
+
+def test_wire_page_renames_the_signal_and_refuses_a_taken_name(doc_and_inspector):
+    doc, insp = doc_and_inspector
+    u = doc.diagram.wire_by_name("u")
+    insp.show_wire(u.id)
+    _commit(insp.fields["signal"], "u_cmd")
+    assert doc.diagram.wires[u.id].name == "u_cmd"
+    _commit(insp.fields["signal"], "y")
+    assert doc.diagram.wires[u.id].name == "u_cmd"
+    assert "already carried" in insp.errors["signal"].text()
+
+
+def test_paste_button_reads_the_system_clipboard(qtbot):
+    ed = MatrixEditor([[0.0]], name="L")
+    qtbot.addWidget(ed)
+    QGuiApplication.clipboard().setText("0.5\n1.5")
+    ed.paste_button.click()
+    assert ed.value() == [[0.5], [1.5]]
