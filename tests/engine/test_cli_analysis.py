@@ -95,9 +95,9 @@ def test_freq_csv_and_vector_pairs(capsys):
 
 def test_time_step_json_reaches_the_reference_dc_gain(tmp_path, capsys):
     # REF-09 closed loop r -> y settles at 4/(1+4) = 0.8 (common practice, no source)
-    assert main(["time", _oven_file(tmp_path), "--step", "r", "--to", "y,u", "--t-end", "40", "--dt", "0.01", "--json"]) == 0
+    assert main(["time", _oven_file(tmp_path), "--step", "r", "--to", "y,u", "--t-end", "100", "--dt", "0.01", "--json"]) == 0
     out = _json(capsys)
-    assert_allclose(out["t"][-1], 40.0)
+    assert_allclose(out["t"][-1], 100.0)
     assert_allclose(out["y"]["y"][-1], 0.8, rtol=1e-6)
     assert_allclose(out["y"]["u"][0], 4.0, rtol=1e-12)  # direct path r -> e -> Kp at t = 0
     assert out["diverged"] is False and out["caution"] == CAUTION
