@@ -1,11 +1,13 @@
-"""Guard against a reference-count leak on ``True`` in PySide6 6.12 under CPython 3.11.
+"""Guard against reference-count leaks on singletons in PySide6 6.12 under CPython 3.11.
 
-Every ``SignalInstance.emit()`` called from Python returns ``True`` without taking a
-reference to it, so each discarded return value drops one reference that was never
-given. After a few hundred emits CPython aborts with "bool_dealloc: deallocating True or
-False". CPython 3.12 and later make ``True`` immortal, which hides the bug; on 3.11 we
-give ``True`` and ``False`` a very large reference count once, which does the same.
-Harmless where the bug is absent (the objects are never freed anyway).
+Two places drop a reference they never took: ``SignalInstance.emit()`` called from
+Python returns ``True`` without a new reference, and a Python override of a C++ virtual
+method that returns ``None`` (``paint``, ``mousePressEvent``, ...) loses one reference to
+``None`` per call. After a few hundred emits or repaints CPython aborts with
+"bool_dealloc" or "none_dealloc". CPython 3.12 and later make these objects immortal,
+which hides the bug; on 3.11 we give ``None``, ``True`` and ``False`` a very large
+reference count once, which does the same. Harmless where the bug is absent (these
+objects are never freed anyway).
 """
 from __future__ import annotations
 
@@ -18,10 +20,10 @@ _MARGIN = 1 << 40
 
 
 def apply() -> None:
-    """Raise the reference counts of True and False once per process (CPython < 3.12)."""
+    """Raise the reference counts of None, True and False once per process (CPython < 3.12)."""
     if sys.implementation.name != "cpython" or sys.version_info >= (3, 12) or getattr(apply, "done", False):
         return
-    for obj in (True, False):
+    for obj in (None, True, False):
         # ob_refcnt is the first field of every object header in CPython.
         ctypes.c_ssize_t.from_address(id(obj)).value += _MARGIN
     apply.done = True

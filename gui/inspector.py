@@ -106,6 +106,8 @@ class MatrixEditor(QWidget):
             s.setRange(0, 200)
         self.table = QTableWidget()
         self.table.setObjectName(f"table_{name}")
+        self.table.horizontalHeader().setDefaultSectionSize(62)
+        self.table.verticalHeader().setDefaultSectionSize(24)
         self.paste_button = QPushButton("Paste")
         self.paste_button.setToolTip("Paste numbers from a spreadsheet, or a Python/numpy literal such as [[1, 2], [3, 4]]")
         self.error = _error_label()

@@ -165,9 +165,11 @@ class MainWindow(QMainWindow):
         a["quit"] = self._action("&Quit", self._quit, shortcut=SK.Quit)
         undo = self.document.undo_stack.createUndoAction(self, "&Undo")
         undo.setShortcuts(SK.Undo)
+        undo.setIcon(self.style().standardIcon(SP.SP_ArrowBack))
         undo.setObjectName("undo")
         redo = self.document.undo_stack.createRedoAction(self, "&Redo")
         redo.setShortcuts(SK.Redo)
+        redo.setIcon(self.style().standardIcon(SP.SP_ArrowForward))
         redo.setObjectName("redo")
         a["undo"], a["redo"] = undo, redo
         a["cut"] = self._action("Cu&t", self.cut, shortcut=SK.Cut)

@@ -92,6 +92,11 @@ def paint_block(painter, block: Block, theme, *, selected: bool, problem: bool, 
         _paint_source(painter, block, theme, border if (selected or problem or highlighted) else None, pen_w, font)
     else:
         _paint_box(painter, block, theme, border, pen_w, font)
+    painter.setPen(Qt.PenStyle.NoPen)
+    painter.setBrush(QBrush(theme.port))
+    for s in port_spots(block):
+        if not s.is_input:
+            painter.drawEllipse(QPointF(s.x, s.y), 2.2, 2.2)
 
 
 def _paint_box(painter, block, theme, border, pen_w, font) -> None:

@@ -31,6 +31,9 @@ class PortItem(QGraphicsItem):
         self.setAcceptHoverEvents(True)
         self.setCursor(Qt.CursorShape.CrossCursor)
         self.setZValue(2)
+        # Idle ports draw nothing (the block paints its output dots in its cached pixmap),
+        # so a large diagram does not pay one paint call per port on every frame.
+        self.setFlag(QGraphicsItem.GraphicsItemFlag.ItemHasNoContents, True)
         self.setToolTip(f"{'input' if is_input else 'output'} {ref.port}: drag to connect")
 
     def type(self) -> int:
@@ -43,6 +46,7 @@ class PortItem(QGraphicsItem):
     def set_target_state(self, state: int) -> None:
         if state != self._target_state:
             self._target_state = state
+            self.setFlag(QGraphicsItem.GraphicsItemFlag.ItemHasNoContents, state == 0)
             self.update()
 
     def boundingRect(self) -> QRectF:
@@ -60,7 +64,3 @@ class PortItem(QGraphicsItem):
             painter.setPen(QPen(colour, 2.0))
             painter.setBrush(QBrush(colour.lighter(150) if self._target_state == 2 else Qt.BrushStyle.NoBrush))
             painter.drawEllipse(QPointF(0, 0), _R * 1.6, _R * 1.6)
-        if not self.is_input:
-            painter.setPen(Qt.PenStyle.NoPen)
-            painter.setBrush(QBrush(t.port))
-            painter.drawEllipse(QPointF(0, 0), 2.2, 2.2)

@@ -42,6 +42,7 @@ class WireItem(QGraphicsItem):
         self._highlighted = False
         self._drag: tuple[int, int, list, QPointF] | None = None
         self.setFlags(QGraphicsItem.GraphicsItemFlag.ItemIsSelectable)
+        self.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
         self.setAcceptHoverEvents(True)
         self.setZValue(0)
 

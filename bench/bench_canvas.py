@@ -1,0 +1,127 @@
+"""Canvas benchmark: open a generated 300-block diagram and pan and zoom it offscreen.
+
+Prints the open time (load the file, build every item, first full paint), frames per
+second while panning and while zooming (each frame a synchronous repaint of the whole
+viewport), and the time the live model needs for the same diagram on its worker.
+python-control draws nothing, so there is no side-by-side ratio for the drawing itself;
+the assembly ratio against python-control is printed by bench_assembly.py.
+
+Run:  QT_QPA_PLATFORM=offscreen python bench/bench_canvas.py [--blocks 300]
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+
+import loopwright.gui  # noqa: E402,F401  (applies the PySide6 guard before Qt is used)
+from loopwright.engine.diagram import Diagram  # noqa: E402
+from loopwright.engine.project import dumps, load  # noqa: E402
+
+SAMPLE = "conveyor_flexible_drive.lwd"
+
+
+def tiled_diagram(blocks: int) -> Diagram:
+    """Copies of the conveyor sample (demo data) laid out on a grid, about ``blocks`` blocks."""
+    import importlib.resources
+
+    cell = load(Path(str(importlib.resources.files("loopwright.samples") / SAMPLE)))
+    per = len(cell.blocks)
+    copies = max(1, round(blocks / per))
+    cols = max(1, int(round(copies ** 0.5)))
+    out = Diagram()
+    for k in range(copies):
+        dx, dy = (k % cols) * 900.0, (k // cols) * 600.0
+        ids = {}
+        for b in cell.blocks.values():
+            params = dict(b.params)
+            if "plant" in params:
+                params["plant"] = f"{params['plant']}_{k}"
+            if isinstance(params.get("recipe"), dict) and "plant" in params["recipe"]:
+                params["recipe"] = dict(params["recipe"], plant=f"{params['recipe']['plant']}_{k}")
+            lay = dict(b.layout, x=b.layout["x"] + dx, y=b.layout["y"] + dy)
+            ids[b.id] = out.add_block(b.kind, f"{b.name}_{k}", params, layout=lay, caption=b.caption)
+        for w in cell.wires.values():
+            from loopwright.engine.diagram import PortRef
+
+            wid = None
+            for t in w.targets:
+                wid = out.connect(PortRef(ids[w.source.block], w.source.port), PortRef(ids[t.block], t.port),
+                                  name=f"{w.name}_{k}" if wid is None else None)
+    return out
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--blocks", type=int, default=300)
+    ap.add_argument("--frames", type=int, default=120)
+    args = ap.parse_args(argv)
+
+    from PySide6.QtCore import QSettings
+    from PySide6.QtWidgets import QApplication
+
+    from loopwright.gui.app import _HeadlessDialogs
+    from loopwright.gui.main_window import MainWindow
+    from loopwright.gui.settings import Preferences
+    from loopwright.gui.workers import compute_live_result
+
+    app = QApplication.instance() or QApplication(sys.argv[:1])
+    diagram = tiled_diagram(args.blocks)
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "big.lwd"
+        path.write_text(dumps(diagram), encoding="utf-8")
+        settings = QSettings(str(Path(tmp) / "s.ini"), QSettings.Format.IniFormat)
+        win = MainWindow(settings=settings, prefs=Preferences(autosave_dir=Path(tmp) / "a", autosave_interval_s=0),
+                         dialogs=_HeadlessDialogs())
+        win.resize(1400, 900)
+        win.show()
+        app.processEvents()
+        vp = win.view.viewport()
+
+        t0 = time.perf_counter()
+        assert win.open_path(str(path))
+        win.view.zoom_reset()
+        vp.repaint()
+        app.processEvents()
+        t_open = time.perf_counter() - t0
+
+        def frames(step):
+            times = []
+            for k in range(args.frames):
+                t = time.perf_counter()
+                step(k)
+                vp.repaint()
+                times.append(time.perf_counter() - t)
+            return times
+
+        pan = frames(lambda k: win.view.pan_by(25 if (k // 40) % 2 == 0 else -25, 12 if (k // 60) % 2 == 0 else -12))
+        zoom = frames(lambda k: win.view.zoom_by(1.03 if (k // 30) % 2 == 0 else 1 / 1.03))
+        win.view.fit_to_view()
+        whole = frames(lambda k: win.view.pan_by(3 if k % 2 else -3, 0))
+
+        t = time.perf_counter()
+        res = compute_live_result(win.document.snapshot(), 0)
+        t_live = time.perf_counter() - t
+
+        n_blocks, n_wires = len(win.document.diagram.blocks), len(win.document.diagram.wires)
+        print(f"diagram: {n_blocks} blocks, {n_wires} wires, "
+              f"{res.report.states if res.report else '?'} states (demo data: tiled conveyor loops)")
+        print(f"open (load + items + first paint): {t_open:.3f} s")
+        for label, ts in (("pan at 100 %", pan), ("zoom in/out", zoom), ("pan, whole diagram in view", whole)):
+            print(f"{label:>28}: {1.0 / statistics.mean(ts):7.1f} frames/s mean, "
+                  f"{1.0 / max(ts):7.1f} frames/s worst frame ({len(ts)} frames)")
+        print(f"live model on the worker (validate + widths + check): {t_live:.3f} s")
+        win._closing_ok = True
+        win.close()
+        win.live.shutdown()
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
