@@ -147,10 +147,13 @@ class MatrixEditor(QWidget):
                 self.table.setItem(i, j, QTableWidgetItem(_num(v)))
         for w in (self.rows, self.cols, self.table):
             w.blockSignals(False)
+        self.table.resizeColumnsToContents()
         self._fit_height()
 
     def _fit_height(self) -> None:
-        h = self.table.horizontalHeader().height() + 4 + sum(self.table.rowHeight(i) for i in range(self.table.rowCount()))
+        # Rows, header, and room for the horizontal scroll bar that wide numbers may need.
+        h = (self.table.horizontalHeader().sizeHint().height() + 6 + self.table.horizontalScrollBar().sizeHint().height()
+             + sum(self.table.rowHeight(i) for i in range(self.table.rowCount())))
         self.table.setFixedHeight(min(max(h, 40), 260))
 
     def _on_resize(self) -> None:

@@ -194,6 +194,13 @@ class MainWindow(QMainWindow):
         a["zoom_reset"] = self._action("&Actual size", self.view.zoom_reset, shortcut="Ctrl+1")
         a["check_now"] = self._action("Check &now", self.live.request_now, shortcut=SK.Refresh, tip="Re-check the diagram at once")
         a["about"] = self._action("&About Loopwright", self.show_about, shortcut=None)
+        # Editing keys act on the canvas only: in the inspector, paste and delete belong to
+        # the field being edited (a matrix table takes a pasted spreadsheet block).
+        for k in ("cut", "copy", "paste", "delete", "select_all", "rename", "rotate", "flip"):
+            act = a[k]
+            self.removeAction(act)
+            act.setShortcutContext(Qt.ShortcutContext.WidgetWithChildrenShortcut)
+            self.view.addAction(act)
 
     def _build_menus(self) -> None:
         a = self.actions_

@@ -152,7 +152,8 @@ class WireItem(QGraphicsItem):
                 self._label_rect = QRectF(mx + 5, my - fm.height() / 2, w, fm.height())
             shape.addRect(self._label_rect)
         self._shape = shape
-        self._bounds = path.boundingRect().adjusted(-14, -14, 14, 14).united(self._label_rect.adjusted(-4, -4, 4, 4))
+        # Room for arrowheads, branch dots and the width number beside a vector's slash.
+        self._bounds = path.boundingRect().adjusted(-26, -26, 26, 26).united(self._label_rect.adjusted(-4, -4, 4, 4))
 
     def boundingRect(self) -> QRectF:
         return self._bounds

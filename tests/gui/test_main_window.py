@@ -210,3 +210,30 @@ def test_dark_canvas_follows_the_choice(window):
     assert window.scene.backgroundBrush().color().lightness() < 80
     window.set_theme_choice(False)
     assert window.scene.backgroundBrush().color().lightness() > 200
+
+
+def test_paste_key_in_an_inspector_table_pastes_into_the_table_not_the_canvas(window, qtbot):
+    from PySide6.QtGui import QGuiApplication
+    from PySide6.QtTest import QTest
+
+    window.show()
+    qtbot.waitExposed(window)
+    window.open_sample(str(SAMPLES[0]))
+    d = window.document.diagram
+    k = d.block_by_name("K")
+    window.scene.select_ids([k.id])
+    table = window.inspector.fields["K"].table
+    table.setFocus()
+    QGuiApplication.clipboard().setText("1\t2\t3\t4")
+    blocks = len(d.blocks)
+    QTest.keySequence(table, QKeySequence.StandardKey.Paste)
+    assert len(window.document.diagram.blocks) == blocks
+    assert window.document.diagram.blocks[k.id].params["K"] == [[1.0, 2.0, 3.0, 4.0]]
+    # With the canvas focused the same key pastes blocks.
+    window.activateWindow()
+    window.view.setFocus()
+    qtbot.waitUntil(window.view.hasFocus)
+    window.scene.select_ids([k.id])
+    QTest.keySequence(window.view, QKeySequence.StandardKey.Copy)
+    QTest.keySequence(window.view, QKeySequence.StandardKey.Paste)
+    assert len(window.document.diagram.blocks) == blocks + 1
