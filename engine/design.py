@@ -364,37 +364,43 @@ def place_state_feedback(A, B, poles, *, inputs=None, method: str = "place") -> 
     _require_controllable(A, Bs, what="K")
     rank_b = int(np.linalg.matrix_rank(Bs))
     target = normalize_poles(poles, n, what="controller poles", max_multiplicity=rank_b)
+    notes: list[str] = []
     if method == "ackermann":
         if Bs.shape[1] != 1:
             raise DesignError(f"method 'ackermann' needs a single input, {Bs.shape[1]} are selected; use 'place'")
         K_sel = ackermann_gain(A, Bs, target)
     elif method == "place":
-        K_sel = _place(A, Bs, target, what="controller poles")
+        K_sel, notes = _place(A, Bs, target, what="controller poles")
     else:
         raise DesignError(f"method {method!r} is not a pole-placement method; expected 'place' or 'ackermann'")
     K = _expand_rows(K_sel, idx, m)
     achieved = _sort_poles(np.linalg.eigvals(A - B @ K))
-    return GainDesign(K, achieved, float(np.linalg.norm(K, 2)), method)
+    return GainDesign(K, achieved, float(np.linalg.norm(K, 2)), method, warnings=tuple(notes))
 
 
-def _place(A: np.ndarray, B: np.ndarray, target: np.ndarray, *, what: str) -> np.ndarray:
+def _place(A: np.ndarray, B: np.ndarray, target: np.ndarray, *, what: str) -> tuple[np.ndarray, list[str]]:
+    """Robust eigenstructure assignment; returns the gain and any warnings."""
     try:
         with warnings.catch_warnings():
             # scipy warns when its iteration stops early; the achieved poles are
-            # reported and compared with the request below, so the warning adds nothing.
+            # compared with the request below and reported, so the warning adds nothing.
             warnings.simplefilter("ignore", UserWarning)
-            res = ssig.place_poles(A, B, target, method="YT", maxiter=60)
+            res = ssig.place_poles(A, B, target, method="YT", maxiter=30)
     except ValueError as err:
         raise DesignError(f"{what}: pole placement failed: {err}") from err
     K = np.real(res.gain_matrix)
     got = _sort_poles(np.linalg.eigvals(A - B @ K))
     scale = max(1.0, float(np.max(np.abs(target))))
-    if pole_mismatch(got, target) > 1e-6 * scale:
-        raise DesignError(
-            f"{what}: placement reached {', '.join(_fmt(p) for p in got)} instead of the request "
-            f"({', '.join(_fmt(p) for p in target)}); the problem is too ill-conditioned"
+    gap = pole_mismatch(got, target)
+    notes = []
+    if gap > 1e-6 * scale:
+        # The gain is right in exact arithmetic, but the closed loop is so non-normal that
+        # its eigenvalues move by this much under rounding: the design is fragile.
+        notes.append(
+            f"{what}: the achieved poles differ from the request by up to {gap:.3g} (relative "
+            f"{gap / scale:.1e}); the closed loop is very sensitive, consider fewer or slower poles"
         )
-    return K
+    return K, notes
 
 
 def ackermann_gain(A, B, poles) -> np.ndarray:
@@ -569,9 +575,10 @@ def place_estimator(A, C, poles) -> GainDesign:
     _require_controllable(A.T, C.T, what="L")
     rank_c = int(np.linalg.matrix_rank(C))
     target = normalize_poles(poles, n, what="estimator poles", max_multiplicity=rank_c)
-    L = _place(A.T, C.T, target, what="estimator poles").T
+    Lt, notes = _place(A.T, C.T, target, what="estimator poles")
+    L = Lt.T
     achieved = _sort_poles(np.linalg.eigvals(A - L @ C))
-    return GainDesign(L, achieved, float(np.linalg.norm(L, 2)), "place")
+    return GainDesign(L, achieved, float(np.linalg.norm(L, 2)), "place", warnings=tuple(notes))
 
 
 def kalman_gain(A, C, W, V, *, G=None, B=None) -> GainDesign:

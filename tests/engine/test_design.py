@@ -302,3 +302,14 @@ def test_discrete_lqr_scalar_closed_form():
     P = 2 + np.sqrt(5)
     assert_allclose(res.riccati, [[P]], rtol=1e-12)
     assert_allclose(res.gain, [[2 * P / (1 + P)]], rtol=1e-12)
+
+
+def test_fragile_placement_is_reported_as_a_warning_with_the_gap():
+    # Twenty real poles with two inputs: the closed loop is so non-normal that rounding
+    # moves its eigenvalues visibly; the design reports the gap instead of hiding it.
+    rng = np.random.default_rng(0)
+    A = rng.normal(size=(20, 20))
+    B = rng.normal(size=(20, 2))
+    res = place_state_feedback(A, B, -np.arange(1.0, 21.0))
+    assert any("differ from the request" in w for w in res.warnings)
+    assert pole_mismatch(res.poles, -np.arange(1.0, 21.0)) > 1e-6 * 20
