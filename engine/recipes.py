@@ -26,6 +26,12 @@ file). Keys (all JSON-native):
     Feedforward only: 1-based plant outputs to track (default all).
 ``feedback``
     Feedforward only: name of the gain block holding the state feedback.
+``integral``
+    State feedback only: ``{"block": "<gain name>", "outputs": [1, ...]}`` adds integral
+    action on the tracking error ``r - y`` of those plant outputs (default all). The
+    design then runs on the augmented plant (see :mod:`.tracking`): ``poles`` lists
+    ``n + q`` poles, ``Q`` is ``(n + q) x (n + q)``; this block gets ``sign * K_x`` and the
+    named gain block (fed by the integrator of ``r - y``) gets ``sign * K_i``.
 ``sign``
     Maps the design to the block: block matrix = ``sign * K_design``. Default ``-1`` for
     state feedback (the gain block holds ``-K`` and feeds a ``'+'`` input; use ``+1``
@@ -68,7 +74,7 @@ from loopwright.engine.design import (
 from loopwright.engine.diagram import Block, Diagram, PortRef
 from loopwright.engine.errors import DesignError, EngineError
 from loopwright.engine.interconnect import AssembledModel, assemble
-from loopwright.engine.tracking import feedforward_gain
+from loopwright.engine.tracking import design_integral_action, feedforward_gain
 
 __all__ = [
     "RECIPE_KEYS",
@@ -85,7 +91,10 @@ __all__ = [
     "redesign",
 ]
 
-RECIPE_KEYS = ("method", "plant", "poles", "Q", "R", "N", "W", "V", "G", "inputs", "outputs", "feedback", "sign", "designed_for")
+RECIPE_KEYS = (
+    "method", "plant", "poles", "Q", "R", "N", "W", "V", "G", "inputs", "outputs", "feedback", "integral", "sign",
+    "designed_for",
+)
 GAIN_METHODS = ("place", "ackermann", "lqr", "feedforward")
 ESTIMATOR_METHODS = ("place", "ackermann", "kalman")
 
@@ -116,6 +125,8 @@ class BlockDesign:
     warnings : tuple of str
     design : GainDesign or None
         The underlying design (None for feedforward).
+    linked : dict
+        Other blocks the design sets too (block name -> new params): the integral gain.
     """
 
     block: str
@@ -129,6 +140,7 @@ class BlockDesign:
     params: dict[str, Any]
     warnings: tuple[str, ...] = field(default_factory=tuple)
     design: GainDesign | None = None
+    linked: dict[str, dict[str, Any]] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -370,6 +382,7 @@ def design_block(diagram: Diagram, name: str) -> BlockDesign:
     method = rec["method"]
     warns: list[str] = []
     design: GainDesign | None = None
+    linked: dict[str, dict[str, Any]] = {}
     try:
         if block.kind == "gain" and method == "feedforward":
             fb_name = _need(rec, "feedback", where, block, method)
@@ -390,6 +403,30 @@ def design_block(diagram: Diagram, name: str) -> BlockDesign:
             matrix = _sign(rec, 1.0, where, block) * N
             poles = np.linalg.eigvals(A - B @ K_design)
             gain_norm = float(np.linalg.norm(N, 2))
+        elif block.kind == "gain" and rec.get("integral") is not None:
+            integ = rec["integral"]
+            if not isinstance(integ, dict) or not isinstance(integ.get("block"), str):
+                raise DesignError(f"{where}: recipe integral must be {{\"block\": \"<gain name>\", \"outputs\": [...]}}, got {integ!r}",
+                                  block_ids=[block.id])
+            ki_blk = diagram.block_by_name(integ["block"])
+            if ki_blk.kind != "gain" or ki_blk.id == block.id:
+                raise DesignError(f"{where}: integral block {integ['block']!r} must be another gain block", block_ids=[block.id, ki_blk.id])
+            unknown = sorted(set(integ) - {"block", "outputs"})
+            if unknown:
+                raise DesignError(f"{where}: recipe integral key(s) {', '.join(unknown)} unknown; expected block, outputs", block_ids=[block.id])
+            outs = _indices(integ, "outputs", C.shape[0], where, block)
+            inputs = _indices(rec, "inputs", B.shape[1], where, block)
+            idesign = design_integral_action(
+                A, B, C, D, method=method, poles=rec.get("poles"), Q=rec.get("Q"), R=rec.get("R"), N=rec.get("N"),
+                outputs=outs, inputs=inputs,
+            )
+            design = idesign.design
+            sign = _sign(rec, -1.0, where, block)
+            matrix = sign * idesign.K_x
+            ki_params = json.loads(json.dumps(ki_blk.params))
+            ki_params["K"] = (sign * idesign.K_i).tolist()
+            linked[ki_blk.name] = ki_params
+            poles, gain_norm = design.poles, design.gain_norm
         elif block.kind == "gain":
             inputs = _indices(rec, "inputs", B.shape[1], where, block)
             if method in ("place", "ackermann"):
@@ -450,7 +487,8 @@ def design_block(diagram: Diagram, name: str) -> BlockDesign:
     fp = recipe_fingerprint(_with_block(diagram, probe), probe)
     params["recipe"]["designed_for"] = fp
     return BlockDesign(
-        name, block.kind, method, plant, matrix, np.asarray(poles, dtype=complex), gain_norm, fp, params, tuple(warns), design
+        name, block.kind, method, plant, matrix, np.asarray(poles, dtype=complex), gain_norm, fp, params, tuple(warns), design,
+        linked,
     )
 
 
@@ -501,6 +539,8 @@ def redesign(diagram: Diagram, names: list[str] | None = None) -> tuple[Diagram,
     for n in _order(diagram, names):
         res = design_block(out, n)
         out.set_params(out.block_by_name(n).id, res.params)
+        for other, params in res.linked.items():
+            out.set_params(out.block_by_name(other).id, params)
         results.append(res)
     return out, _cross_checks(out, results)
 

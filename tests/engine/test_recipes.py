@@ -265,3 +265,30 @@ def test_noise_dominance_warning_reports_rms_equal_to_h2_norm_times_sqrt_intensi
     h2 = {src: ct.norm(ct.ss(*model.pair(src, "u_fb")), 2) for src in ("meas_noise", "dist")}
     assert_allclose(rms_noise, 0.5 * h2["meas_noise"], rtol=1e-3)  # message rounds to 4 digits
     assert_allclose(rms_other, 0.2 * h2["dist"], rtol=1e-3)
+
+
+def test_integral_recipe_designs_both_gains_and_the_loop_rejects_a_constant_load():
+    # Stage of REFERENCES.md REF-01 with integral action on the measured position; by hand
+    # (see test_tracking): poles {-2, -2 +- 2j} give K_x = [16, 6], K_i = -16. With the
+    # estimator at {-5, -6} the drawn loop has exactly those poles (separation principle).
+    from loopwright.engine.tracking import add_integral_action
+
+    d = stage_loop({"method": "place", "poles": [-2, [-2, 2], [-2, -2]],
+                    "integral": {"block": "integral_gain", "outputs": [1]}},
+                   {"method": "place", "poles": [-5, -6]})
+    d.remove_block(d.block_by_name("Nr").id)
+    # the reference now enters through the integrator only; uc.in1 gets a zero feedforward
+    d.add_block("gain", "r_pass", {"K": [[0.0]]})
+    d.connect("r_pass.out", "uc.in1")
+    d.connect("r.out", "r_pass.in")
+    d = add_integral_action(d, [[0.0]], reference="ref", measured="y", actuator_sum="uc")
+    out, res = redesign(d)
+    assert_allclose(out.block_by_name("Kx").params["K"], [[-16.0, -6.0]], atol=1e-9)
+    assert_allclose(out.block_by_name("integral_gain").params["K"], [[16.0]], atol=1e-9)
+    model = assemble(out)
+    want = normalize_poles([-2, [-2, 2], [-2, -2], -5, -6], 5)
+    assert pole_mismatch(np.linalg.eigvals(model.A), want) < 1e-8
+    dc = lambda src: (lambda A, B, C, D: C @ np.linalg.solve(-A, B) + D)(*model.pair(src, "y"))
+    assert_allclose(dc("r"), [[1.0]], rtol=1e-10)
+    assert_allclose(dc("dist"), [[0.0]], atol=1e-12)
+    assert stale_blocks(out) == []
