@@ -34,6 +34,7 @@ Recipes live in a gain or estimator block's params under "recipe", e.g.
   {"method": "lqr", "Q": [10, 1], "R": 0.1}
   {"method": "kalman"}            (intensities traced from the diagram's noise sources)
   {"method": "feedforward", "feedback": "K"}
+  {"method": "place", "poles": [...n+1 poles...], "integral": {"block": "Ki", "outputs": [1]}}
 Complex poles are [re, im] pairs, each conjugate listed. Without --write nothing is changed.
 """
 
@@ -125,6 +126,7 @@ def _design(args: argparse.Namespace) -> int:
                     "matrix_name": "K" if r.kind == "gain" else "L", "matrix": r.matrix,
                     "poles": poles_to_json(r.poles), "gain_norm": r.gain_norm,
                     "designed_for": r.fingerprint, "warnings": list(r.warnings),
+                    "also_sets": {name: params.get("K") for name, params in r.linked.items()},
                 }
                 for r in results
             ],
@@ -139,6 +141,8 @@ def _design(args: argparse.Namespace) -> int:
         label = "feedforward" if r.method == "feedforward" else r.method
         print(f"\n  {r.block} ({r.kind}, {label}, plant {r.plant!r})")
         print(f"    {key} = {_matrix_text(r.matrix)}")
+        for other, params in r.linked.items():
+            print(f"    also sets {other}: K = {_matrix_text(np.asarray(params['K']))} (integral action)")
         what = "closed-loop poles of its feedback" if r.method == "feedforward" else (
             "eig(A - B K)" if r.kind == "gain" else "eig(A - L C)")
         print(f"    {what}: {', '.join(fmt_complex(p, digits=6) for p in r.poles)}")
