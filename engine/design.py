@@ -232,7 +232,7 @@ def _pbh_modes(A: np.ndarray, B: np.ndarray) -> list[complex]:
     for lam in lams:
         M = np.hstack([A - lam * np.eye(n), B.astype(complex)])
         smin = np.linalg.svd(M, compute_uv=False)[-1] if M.shape[1] >= n else 0.0
-        if smin <= _PBH_RTOL * scale * max(1.0, abs(lam)):
+        if smin <= _PBH_RTOL * max(scale, abs(lam)):
             if not any(abs(lam - q) <= 1e-7 * max(1.0, abs(lam)) for q in bad):
                 bad.append(complex(lam))
     return [complex(v) for v in _sort_poles(bad)] if bad else []

@@ -313,3 +313,15 @@ def test_fragile_placement_is_reported_as_a_warning_with_the_gap():
     res = place_state_feedback(A, B, -np.arange(1.0, 21.0))
     assert any("differ from the request" in w for w in res.warnings)
     assert pole_mismatch(res.poles, -np.arange(1.0, 21.0)) > 1e-6 * 20
+
+
+@pytest.mark.parametrize("scale", [1e-3, 1.0, 1e4])
+def test_pbh_test_is_invariant_to_time_scaling(scale):
+    # Scaling time by a factor scales A, B and every mode alike; controllability does not
+    # change (common practice, no source). The decoupled mode sits at -3 * scale.
+    A = scale * np.array([[-1.0, 2.0, 0.0], [0.0, -2.0, 0.0], [0.0, 0.0, -3.0]])
+    B = scale * np.array([[0.0], [1.0], [0.0]])
+    modes = uncontrollable_modes(A, B)
+    assert len(modes) == 1
+    assert_allclose(modes[0], -3.0 * scale, rtol=1e-12)
+    assert uncontrollable_modes(A[:2, :2], B[:2]) == []
