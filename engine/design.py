@@ -49,7 +49,8 @@ __all__ = [
     "discrete_lqr_gain",
 ]
 
-# Relative tolerance of the PBH rank test: sigma_min([A - lam I, B]) <= _PBH_RTOL * scale.
+# Relative tolerance of the PBH rank test: a mode lam is hidden when
+# sigma_min([A - lam I, B]) <= _PBH_RTOL * max(||[A, B]||, |lam|), the size of that matrix.
 _PBH_RTOL = 1e-8
 # Closeness below which two requested poles count as the same (repeated) pole.
 _SAME_POLE_RTOL = 1e-9
