@@ -101,7 +101,7 @@ def test_generated_comments_carry_period_method_origin_and_caution():
     for text in (code.header, code.source):
         assert "0.002 s" in text and "tustin" in text and "conveyor.lwd" in text
         assert " ".join(CAUTION.split()[:6]) in " ".join(text.split())
-    assert "u[1] = y[2]" in code.header
+    assert "in[1] = y[2]" in code.header and "out[0] = u" in code.header
     assert "LW_CONTROLLER_N_STATES 3" in code.header
 
 
