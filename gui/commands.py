@@ -13,6 +13,7 @@ from typing import Any
 from PySide6.QtGui import QUndoCommand
 
 from loopwright.engine.diagram import Block, Diagram, PortRef, Wire
+from loopwright.engine.errors import EngineError
 
 __all__ = [
     "AddBlock",
@@ -29,7 +30,28 @@ __all__ = [
 ]
 
 
-class AddBlock(QUndoCommand):
+class _Command(QUndoCommand):
+    """Base of our commands: an edit the engine refuses when first done leaves no trace.
+
+    ``QUndoStack.push`` runs ``redo`` and keeps the command even if ``redo`` raised; here
+    a refusal marks the command obsolete, so the stack drops it at once, and keeps the
+    error for :meth:`Document.push` to raise to the caller.
+    """
+
+    error: EngineError | None = None
+
+    def redo(self) -> None:
+        try:
+            self._redo()
+        except EngineError as err:
+            self.error = err
+            self.setObsolete(True)
+
+    def _redo(self) -> None:
+        raise NotImplementedError
+
+
+class AddBlock(_Command):
     """Place a block of ``kind`` with a free name derived from ``stem``."""
 
     def __init__(self, doc, kind: str, *, name: str | None = None, params: dict | None = None, layout: dict | None = None, caption: str = ""):
@@ -39,7 +61,7 @@ class AddBlock(QUndoCommand):
         self._kind, self._params, self._layout, self._caption = kind, params, layout or {}, caption
         self.block_id: str | None = None
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         if self._name is None:
             # Chosen when first done, so commands built ahead of time do not collide.
             self._name = self._doc.diagram.unique_name(stem_for(self._kind, self._params))
@@ -70,7 +92,7 @@ def stem_for(kind: str, params: dict | None = None) -> str:
     return _NAME_STEMS.get(kind, kind)
 
 
-class DeleteItems(QUndoCommand):
+class DeleteItems(_Command):
     """Delete blocks and wires; wires touching a deleted block lose those ends."""
 
     def __init__(self, doc, block_ids, wire_ids):
@@ -102,7 +124,7 @@ class DeleteItems(QUndoCommand):
     def is_empty(self) -> bool:
         return not self._blocks and not self._originals
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         for w in self._originals:
             self._doc.remove_wire(w.id)
         for b in self._blocks:
@@ -133,7 +155,7 @@ def _bends_for_targets(wire: Wire, keep: list[PortRef]) -> dict:
     return lay
 
 
-class Connect(QUndoCommand):
+class Connect(_Command):
     """Wire an output port to an input port (a new wire, or a new branch of the existing one)."""
 
     def __init__(self, doc, source: PortRef, target: PortRef, *, name: str | None = None, bends: list | None = None):
@@ -145,7 +167,7 @@ class Connect(QUndoCommand):
         self._old_layout = copy.deepcopy(existing.layout) if existing else None
         self.setText(f"Connect {doc.diagram.port_label(source)} to {doc.diagram.port_label(target)}")
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         self.wire_id = self._doc.connect(self._src, self._dst, name=self._name, wire_id=self.wire_id)
         if self._bends:
             w = self._doc.diagram.wires[self.wire_id]
@@ -159,7 +181,7 @@ class Connect(QUndoCommand):
             self._doc.set_wire_layout(self.wire_id, copy.deepcopy(self._old_layout))
 
 
-class Disconnect(QUndoCommand):
+class Disconnect(_Command):
     """Detach one target of a wire (the wire goes with its last target)."""
 
     def __init__(self, doc, wire_id: str, target: PortRef):
@@ -167,7 +189,7 @@ class Disconnect(QUndoCommand):
         self._doc, self._wid, self._dst = doc, wire_id, target
         self._original = copy.deepcopy(doc.diagram.wires[wire_id])
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         w = self._doc.diagram.wires[self._wid]
         keep = [t for t in w.targets if t != self._dst]
         self._doc.remove_wire(self._wid)
@@ -182,7 +204,7 @@ class Disconnect(QUndoCommand):
         self._doc.restore_wire(self._original)
 
 
-class MoveBlocks(QUndoCommand):
+class MoveBlocks(_Command):
     """Change the layout (position, rotation, flip) of several blocks at once.
 
     ``changes`` maps block id to the new layout keys. Bends of wires whose every end moves
@@ -193,6 +215,12 @@ class MoveBlocks(QUndoCommand):
         super().__init__(text)
         self._doc = doc
         d = doc.diagram
+        from loopwright.engine.errors import DiagramError
+
+        for b, v in changes.items():
+            rot = v.get("rotation", 0)
+            if not isinstance(rot, (int, float)) or rot % 90:
+                raise DiagramError(f"block {d.blocks[b].name!r}: rotation {rot!r} is not a multiple of 90 degrees", block_ids=[b])
         self._new = {b: dict(v) for b, v in changes.items()}
         self._old = {b: {k: d.blocks[b].layout.get(k) for k in v} for b, v in changes.items()}
         self._wire_old: dict[str, dict] = {}
@@ -216,7 +244,7 @@ class MoveBlocks(QUndoCommand):
             self._wire_old[w.id] = copy.deepcopy(w.layout)
             self._wire_new[w.id] = lay
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         for b, v in self._new.items():
             self._doc.set_layout(b, v)
         for w, lay in self._wire_new.items():
@@ -229,7 +257,7 @@ class MoveBlocks(QUndoCommand):
             self._doc.set_wire_layout(w, lay)
 
 
-class SetParams(QUndoCommand):
+class SetParams(_Command):
     """Replace one block's parameters (checked by the document before anything changes)."""
 
     def __init__(self, doc, block_id: str, params: dict[str, Any], *, text: str | None = None):
@@ -239,55 +267,55 @@ class SetParams(QUndoCommand):
         self._doc, self._bid = doc, block_id
         self._old, self._new = copy.deepcopy(blk.params), copy.deepcopy(params)
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         self._doc.set_params(self._bid, copy.deepcopy(self._new))
 
     def undo(self) -> None:
         self._doc.set_params(self._bid, copy.deepcopy(self._old))
 
 
-class RenameBlock(QUndoCommand):
+class RenameBlock(_Command):
     def __init__(self, doc, block_id: str, name: str):
         blk = doc.diagram.blocks[block_id]
         super().__init__(f"Rename {blk.name} to {name}")
         doc.diagram._check_new_name(name, ignore=block_id)
         self._doc, self._bid, self._old, self._new = doc, block_id, blk.name, name
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         self._doc.rename_block(self._bid, self._new)
 
     def undo(self) -> None:
         self._doc.rename_block(self._bid, self._old)
 
 
-class SetCaption(QUndoCommand):
+class SetCaption(_Command):
     def __init__(self, doc, block_id: str, caption: str):
         super().__init__("Edit caption")
         self._doc, self._bid = doc, block_id
         self._old, self._new = doc.diagram.blocks[block_id].caption, caption
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         self._doc.set_caption(self._bid, self._new)
 
     def undo(self) -> None:
         self._doc.set_caption(self._bid, self._old)
 
 
-class RenameWire(QUndoCommand):
+class RenameWire(_Command):
     def __init__(self, doc, wire_id: str, name: str):
         w = doc.diagram.wires[wire_id]
         super().__init__(f"Rename signal {w.name} to {name}")
         doc.diagram._check_signal_name(name, ignore=wire_id)
         self._doc, self._wid, self._old, self._new = doc, wire_id, w.name, name
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         self._doc.rename_wire(self._wid, self._new)
 
     def undo(self) -> None:
         self._doc.rename_wire(self._wid, self._old)
 
 
-class SetWireLayout(QUndoCommand):
+class SetWireLayout(_Command):
     """Move the bends of a wire (one drag of one segment is one command)."""
 
     def __init__(self, doc, wire_id: str, layout: dict):
@@ -295,14 +323,14 @@ class SetWireLayout(QUndoCommand):
         self._doc, self._wid = doc, wire_id
         self._old, self._new = copy.deepcopy(doc.diagram.wires[wire_id].layout), copy.deepcopy(layout)
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         self._doc.set_wire_layout(self._wid, copy.deepcopy(self._new))
 
     def undo(self) -> None:
         self._doc.set_wire_layout(self._wid, copy.deepcopy(self._old))
 
 
-class PasteFragment(QUndoCommand):
+class PasteFragment(_Command):
     """Add a copied fragment (blocks and the wires among them), shifted by ``offset``.
 
     Pasted blocks get free names (``P`` becomes ``P2`` if ``P`` is taken) and an estimator
@@ -344,7 +372,7 @@ class PasteFragment(QUndoCommand):
         self._wire_ids: list[str] = []
         self.block_ids: list[str] = []
 
-    def redo(self) -> None:
+    def _redo(self) -> None:
         self.block_ids = []
         for old_id, kind, name, params, lay, caption in self._blocks:
             bid = self._doc.add_block(kind, name, copy.deepcopy(params), layout=dict(lay), caption=caption, block_id=self._ids.get(old_id))

@@ -78,8 +78,17 @@ class Document(QObject):
         return self._diagram.copy()
 
     def push(self, command) -> None:
-        """Run a command and record it for undo."""
+        """Run a command and record it for undo.
+
+        Raises
+        ------
+        EngineError
+            The engine refused the edit; nothing changed and nothing was recorded.
+        """
         self.undo_stack.push(command)
+        err = getattr(command, "error", None)
+        if err is not None:
+            raise err
 
     def title(self) -> str:
         return Path(self._path).name if self._path else "untitled"

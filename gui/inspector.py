@@ -312,8 +312,12 @@ class Inspector(QWidget):
             self.show_wire(wid)
 
     # ---- committing ----------------------------------------------------------------------
-    def _commit_params(self, key: str, mutate) -> bool:
-        """Apply ``mutate(params)`` to a copy of the block's params and push it."""
+    def _commit_params(self, key: str, mutate, *, rebuild: bool = True) -> bool:
+        """Apply ``mutate(params)`` to a copy of the block's params and push it.
+
+        ``rebuild`` redraws the page (needed when the fields themselves change, e.g. a new
+        waveform kind); a plain value edit keeps the page, so focus and scroll stay put.
+        """
         blk = self._doc.diagram.blocks.get(self._block_id)
         if blk is None:
             return False
@@ -333,7 +337,8 @@ class Inspector(QWidget):
         finally:
             self._building = False
         self._set_field_error(key, None)
-        self.show_block(blk.id)
+        if rebuild:
+            self.show_block(blk.id)
         return True
 
     def _set_field_error(self, key: str, message: str | None) -> None:
@@ -402,7 +407,7 @@ class Inspector(QWidget):
 
     def _matrix(self, form, blk, key: str, label: str | None = None) -> MatrixEditor:
         ed = MatrixEditor(blk.params.get(key, []), name=key)
-        ed.edited.connect(lambda val, k=key: self._commit_params(k, lambda p: p.__setitem__(k, val)))
+        ed.edited.connect(lambda val, k=key: self._commit_params(k, lambda p: p.__setitem__(k, val), rebuild=False))
         self._add(form, key, label or key, ed)
         return ed
 
@@ -465,7 +470,11 @@ class Inspector(QWidget):
         except ParameterError as err:
             self._set_field_error(key, f"{key}: {err}")
             return
-        self._commit_params(key, lambda p: p.__setitem__(key, rows[0]))
+        if self._commit_params(key, lambda p: p.__setitem__(key, rows[0]), rebuild=False):
+            blk = self._doc.diagram.blocks.get(self._block_id)
+            label = self.fields.get("poles_zeros")
+            if blk is not None and label is not None:
+                label.setText(self._poles_zeros_text(blk.params.get("num"), blk.params.get("den")))
 
     def _switch_form(self, to_tf: bool) -> None:
         """Switch between state space and transfer function; keeps the block SISO-valid."""
@@ -512,7 +521,7 @@ class Inspector(QWidget):
         spin.setObjectName("field_width")
         spin.setRange(1, 10000)
         spin.setValue(int(blk.params.get("width", 1)))
-        spin.editingFinished.connect(lambda: self._commit_params("width", lambda p: p.__setitem__("width", spin.value())))
+        spin.editingFinished.connect(lambda: self._commit_params("width", lambda p: p.__setitem__("width", spin.value()), rebuild=False))
         self._add(form, "width", "width", spin)
 
     def _build_sum(self, form, blk) -> None:
@@ -635,7 +644,7 @@ class Inspector(QWidget):
             wf = dict(p.get("waveform", {}) or {})
             wf[key] = value
             p["waveform"] = wf
-        self._commit_params(key, mutate)
+        self._commit_params(key, mutate, rebuild=False)
 
     # ---- wire page ----------------------------------------------------------------------------
     def show_wire(self, wid: str) -> None:

@@ -360,6 +360,10 @@ class DiagramScene(QGraphicsScene):
         self._pending_branch = None
         if self._link is not None:
             self._end_link(event.scenePos())
+            grabber = self.mouseGrabberItem()
+            if grabber is not None:
+                # A branch started on a wire item, which still holds the mouse.
+                grabber.ungrabMouse()
             event.accept()
             return
         super().mouseReleaseEvent(event)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from PySide6.QtCore import QPointF, QRectF, Qt, Signal
 from PySide6.QtGui import QFont, QPainter, QPen
-from PySide6.QtWidgets import QGraphicsView, QLineEdit
+from PySide6.QtWidgets import QGraphicsView, QLineEdit, QMenu
 
 from loopwright.engine.errors import EngineError
 from loopwright.gui.canvas.block_item import BlockItem
@@ -209,6 +209,24 @@ class DiagramView(QGraphicsView):
                     doc.push(RenameWire(doc, item.wire_id, text))
         except EngineError as err:
             sc.edit_refused.emit(str(err))
+
+    def contextMenuEvent(self, event) -> None:
+        """The canvas's own editing commands (turn, mirror, rename, cut, copy, paste, delete)."""
+        item = self.itemAt(event.pos())
+        if item is not None and not item.isSelected() and hasattr(item, "setSelected"):
+            owner = item if isinstance(item, (BlockItem, WireItem)) else item.parentItem()
+            if owner is not None:
+                self.scene().clearSelection()
+                owner.setSelected(True)
+        actions = [a for a in self.actions() if a.isEnabled()]
+        if not actions:
+            return
+        menu = QMenu(self)
+        for a in actions:
+            menu.addAction(a)
+        menu.popup(event.globalPos())
+        self._context_menu = menu
+        event.accept()
 
     # ---- empty-canvas hint -------------------------------------------------------------------------
     def drawForeground(self, painter, rect: QRectF) -> None:
