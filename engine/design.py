@@ -551,7 +551,7 @@ def _require_stable(poles: np.ndarray, what: str) -> None:
 # ---------------------------------------------------------------------------------------
 # estimator
 # ---------------------------------------------------------------------------------------
-def place_estimator(A, C, poles) -> GainDesign:
+def place_estimator(A, C, poles, *, method: str = "place") -> GainDesign:
     """Estimator gain L with ``eig(A - L C)`` at ``poles`` (placement on the dual pair).
 
     Parameters
@@ -559,6 +559,8 @@ def place_estimator(A, C, poles) -> GainDesign:
     A : (n, n) array_like
     C : (p, n) array_like
     poles : sequence of n poles, rad/s
+    method : {"place", "ackermann"}
+        Ackermann's formula on the dual pair needs a single measured output.
 
     Returns
     -------
@@ -576,10 +578,17 @@ def place_estimator(A, C, poles) -> GainDesign:
     _require_controllable(A.T, C.T, what="L")
     rank_c = int(np.linalg.matrix_rank(C))
     target = normalize_poles(poles, n, what="estimator poles", max_multiplicity=rank_c)
-    Lt, notes = _place(A.T, C.T, target, what="estimator poles")
+    if method == "ackermann":
+        if C.shape[0] != 1:
+            raise DesignError(f"method 'ackermann' needs a single measured output, the plant has {C.shape[0]}; use 'place'")
+        Lt, notes = ackermann_gain(A.T, C.T, target), []
+    elif method == "place":
+        Lt, notes = _place(A.T, C.T, target, what="estimator poles")
+    else:
+        raise DesignError(f"method {method!r} is not a pole-placement method; expected 'place' or 'ackermann'")
     L = Lt.T
     achieved = _sort_poles(np.linalg.eigvals(A - L @ C))
-    return GainDesign(L, achieved, float(np.linalg.norm(L, 2)), "place", warnings=tuple(notes))
+    return GainDesign(L, achieved, float(np.linalg.norm(L, 2)), method, warnings=tuple(notes))
 
 
 def kalman_gain(A, C, W, V, *, G=None, B=None) -> GainDesign:

@@ -438,14 +438,7 @@ def design_block(diagram: Diagram, name: str) -> BlockDesign:
             poles, gain_norm = design.poles, design.gain_norm
         else:
             if method in ("place", "ackermann"):
-                if method == "ackermann":
-                    if C.shape[0] != 1:
-                        raise DesignError(f"{where}: method 'ackermann' needs a single measured output, plant {plant!r} has {C.shape[0]}")
-                    dual = place_state_feedback(A.T, C.T, _need(rec, "poles", where, block, method), method="ackermann")
-                    L = dual.gain.T
-                    design = GainDesign(L, np.sort_complex(np.linalg.eigvals(A - L @ C)), float(np.linalg.norm(L, 2)), "ackermann")
-                else:
-                    design = place_estimator(A, C, _need(rec, "poles", where, block, method))
+                design = place_estimator(A, C, _need(rec, "poles", where, block, method), method=method)
             else:
                 W, V, G = rec.get("W"), rec.get("V"), rec.get("G")
                 if W is None or V is None:

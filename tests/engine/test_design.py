@@ -325,3 +325,14 @@ def test_pbh_test_is_invariant_to_time_scaling(scale):
     assert len(modes) == 1
     assert_allclose(modes[0], -3.0 * scale, rtol=1e-12)
     assert uncontrollable_modes(A[:2, :2], B[:2]) == []
+
+
+def test_estimator_ackermann_agrees_with_python_control_acker_on_dual():
+    # python-control 0.10.2 acker on the dual pair (A', C') as reference; conveyor of
+    # REFERENCES.md REF-02 measuring belt position.
+    C = np.array([[1.0, 0.0, 0.0]])
+    res = place_estimator(CONVEYOR_A, C, [-10, -11, -12], method="ackermann")
+    L_ct = np.atleast_2d(ct.acker(np.array(CONVEYOR_A).T, C.T, [-10, -11, -12])).T
+    assert_allclose(res.gain, L_ct, rtol=1e-9)
+    with pytest.raises(DesignError, match="single measured output"):
+        place_estimator(CONVEYOR_A, np.eye(3)[:2], [-10, -11, -12], method="ackermann")
