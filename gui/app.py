@@ -44,7 +44,8 @@ def render_screenshot(win, out: str | Path, *, size=SCREENSHOT_SIZE, timeout_s: 
     app = QApplication.instance()
     win.resize(*size)
     win.show()
-    win.live.request_now()
+    if not win.live.is_current():
+        win.live.request_now()
     deadline = time.monotonic() + timeout_s
     while not win.live.is_current() and time.monotonic() < deadline:
         app.processEvents()

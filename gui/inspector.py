@@ -488,8 +488,6 @@ class Inspector(QWidget):
         self._commit_params("form", mutate)
 
     def _toggle_load(self, on: bool) -> None:
-        blk = self._doc.diagram.blocks[self._block_id]
-
         def mutate(p):
             if on:
                 n = len(p.get("A", []))
@@ -499,7 +497,6 @@ class Inspector(QWidget):
             else:
                 p.pop("E", None)
                 p.pop("F", None)
-        _ = blk
         self._commit_params("load", mutate)
 
     def _build_plant(self, form, blk) -> None:

@@ -282,8 +282,10 @@ class MainWindow(QMainWindow):
         self.scene.set_problems(result.problems)
         self.scene.set_widths(result.widths)
         self.inspector.set_live_widths(result.widths)
-        self.problems.set_problems(result.problems)
-        self.problems_dock.setWindowTitle(f"Problems ({len(result.problems)})" if result.problems else "Problems")
+        warnings = tuple(getattr(result.report, "warnings", ()) or ())
+        self.problems.set_problems(result.problems, warnings=warnings)
+        count = len(result.problems) + len(warnings)
+        self.problems_dock.setWindowTitle(f"Problems ({count})" if count else "Problems")
         self.live_updated.emit(result)
 
     def _on_selection_changed(self) -> None:
@@ -413,14 +415,15 @@ class MainWindow(QMainWindow):
             return
         self.settings.setValue("window/state", self.saveState())
         self._autosave_timer.stop()
-        self.live.shutdown()
+        # Do not wait for a check still running on the worker: its result is dropped.
+        self.live.shutdown(wait=False)
         self.autosaver.clear()
         event.accept()
 
     def _quit(self) -> None:
-        for w in QGuiApplication.topLevelWindows():
-            _ = w
-        self.close()
+        from PySide6.QtWidgets import QApplication
+
+        QApplication.closeAllWindows()
 
     # ---- editing ----------------------------------------------------------------------------------
     def _place_from_shelf(self, kind: str, params) -> None:

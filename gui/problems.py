@@ -20,7 +20,8 @@ class ProblemsList(QListWidget):
         self.itemClicked.connect(self._on_clicked)
         self.itemActivated.connect(self._on_clicked)
 
-    def set_problems(self, problems) -> None:
+    def set_problems(self, problems, *, warnings=()) -> None:
+        """Errors first (each selects its culprits), then the check report's warnings."""
         self.clear()
         err_icon = self.style().standardIcon(QStyle.StandardPixmap.SP_MessageBoxCritical)
         warn_icon = self.style().standardIcon(QStyle.StandardPixmap.SP_MessageBoxWarning)
@@ -28,6 +29,11 @@ class ProblemsList(QListWidget):
             item = QListWidgetItem(err_icon if getattr(p, "severity", "error") == "error" else warn_icon, p.message)
             item.setData(Qt.ItemDataRole.UserRole, (list(p.block_ids), list(p.wire_ids)))
             item.setToolTip(p.message)
+            self.addItem(item)
+        for text in warnings:
+            item = QListWidgetItem(warn_icon, text)
+            item.setData(Qt.ItemDataRole.UserRole, ([], []))
+            item.setToolTip(text)
             self.addItem(item)
 
     def _on_clicked(self, item: QListWidgetItem) -> None:

@@ -108,6 +108,7 @@ class LiveModel(QObject):
         self._timer.setInterval(debounce_ms)
         self._timer.timeout.connect(self.request_now)
         self._pending: Future | None = None
+        self._delivered: Future | None = None
         self._closed = False
         self.latest: LiveResult | None = None
         self.discarded = 0
@@ -140,11 +141,14 @@ class LiveModel(QObject):
         except Exception as err:  # an engine bug must not kill the window: show it as a problem
             result = LiveResult(revision=revision, error=f"internal error while checking the diagram: {err!r}")
         try:
-            self._finished.emit(result)
+            self._finished.emit((fut, result))
         except RuntimeError:
             pass  # the window was closed while the worker ran
 
-    def _on_finished(self, result: LiveResult) -> None:
+    def _on_finished(self, delivery) -> None:
+        fut, result = delivery if isinstance(delivery, tuple) else (None, delivery)
+        if fut is not None:
+            self._delivered = fut
         if result.revision != self._doc.revision:
             self.discarded += 1
             return
@@ -154,9 +158,11 @@ class LiveModel(QObject):
 
     def is_current(self) -> bool:
         """True when the latest result belongs to the document's current revision."""
-        return self.latest is not None and self.latest.revision == self._doc.revision and not self._timer.isActive()
+        idle = self._pending is None or (self._pending.done() and self._delivered is self._pending)
+        return idle and self.latest is not None and self.latest.revision == self._doc.revision and not self._timer.isActive()
 
-    def shutdown(self) -> None:
+    def shutdown(self, *, wait: bool = True) -> None:
+        """Stop taking requests; ``wait`` blocks until a running check has finished."""
         self._closed = True
         self._timer.stop()
-        self._executor.shutdown(wait=True, cancel_futures=True)
+        self._executor.shutdown(wait=wait, cancel_futures=True)

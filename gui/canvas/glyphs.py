@@ -127,6 +127,12 @@ def _paint_box(painter, block, theme, border, pen_w, font) -> None:
                          f"estimator of {link}" if link else "estimator")
         _paint_port_labels(painter, block, theme, f2)
         return
+    if len(port_spots(block)) > 2:
+        # More than one input or output (a plant with a load input): name the ports.
+        small = QFont(font)
+        small.setPointSizeF(font.pointSizeF() * 0.8)
+        _paint_port_labels(painter, block, theme, small)
+        painter.setPen(QPen(theme.text))
     if den is None:
         f = QFont(font)
         italic = block.kind in ("plant", "gain")

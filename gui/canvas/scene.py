@@ -11,7 +11,7 @@ from __future__ import annotations
 import json
 import math
 
-from PySide6.QtCore import QLineF, QPointF, QRectF, Qt, Signal
+from PySide6.QtCore import QLineF, QPointF, QRectF, Qt, QTimer, Signal
 from PySide6.QtGui import QFont, QPainterPath, QPen
 from PySide6.QtWidgets import QGraphicsPathItem, QGraphicsScene
 
@@ -54,6 +54,7 @@ class DiagramScene(QGraphicsScene):
         self._link: dict | None = None
         self._pending_branch: tuple[str, QPointF] | None = None
         self._widths: dict[str, int] = {}
+        self._rect_pending = False
         self.setItemIndexMethod(QGraphicsScene.ItemIndexMethod.BspTreeIndex)
         self.setBackgroundBrush(theme.background)
         d = document
@@ -84,7 +85,7 @@ class DiagramScene(QGraphicsScene):
             self._add_block_item(bid)
         for wid in self.document.diagram.wires:
             self._add_wire_item(wid)
-        self._fit_scene_rect()
+        self._refit_scene_rect()
 
     def _add_block_item(self, bid: str) -> BlockItem:
         item = BlockItem(self.document.diagram.blocks[bid], self.theme, font=self.font_, grid=self.grid_size)
@@ -161,6 +162,14 @@ class DiagramScene(QGraphicsScene):
         self._reroute_block(item.block_id)
 
     def _fit_scene_rect(self) -> None:
+        # Many blocks change in one command (a group move): recompute the rectangle once,
+        # after the command, instead of once per block.
+        if not self._rect_pending:
+            self._rect_pending = True
+            QTimer.singleShot(0, self, self._refit_scene_rect)
+
+    def _refit_scene_rect(self) -> None:
+        self._rect_pending = False
         rect = self.itemsBoundingRect().adjusted(-400, -300, 400, 300)
         rect = rect.united(QRectF(-600, -400, 1200, 800))
         self.setSceneRect(rect)
