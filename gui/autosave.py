@@ -40,13 +40,37 @@ class Leftover:
                 pass
 
 
+def _owner_running(path: Path) -> bool:
+    """True if the autosave belongs to another Loopwright process that is still running."""
+    parts = path.stem.split("-")
+    if len(parts) < 3 or not parts[1].isdigit() or os.name != "posix":
+        # Elsewhere a signal-0 probe is not harmless (on Windows it ends the process).
+        return False
+    pid = int(parts[1])
+    if pid == os.getpid():
+        return False
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
 def find_leftovers(folder: Path) -> list[Leftover]:
-    """Autosaves in ``folder``, newest first."""
+    """Autosaves in ``folder`` left by processes that are gone, newest first.
+
+    A copy whose owner is still running (a second Loopwright open at the same time) is
+    not a leftover and is never offered or deleted.
+    """
     folder = Path(folder)
     if not folder.is_dir():
         return []
     out = []
     for p in folder.glob(f"*{FILE_SUFFIX}"):
+        if _owner_running(p):
+            continue
         note = p.with_suffix(".json")
         original, saved_at = None, p.stat().st_mtime
         try:

@@ -256,6 +256,15 @@ class DiagramScene(QGraphicsScene):
             return False
         return self._push(MoveBlocks(self.document, changes))
 
+    def nudge_selection(self, dx: float, dy: float) -> bool:
+        """Move the selected blocks by (dx, dy) as one command (arrow keys)."""
+        d = self.document.diagram
+        changes = {
+            b: {"x": float(d.blocks[b].layout.get("x", 0.0)) + dx, "y": float(d.blocks[b].layout.get("y", 0.0)) + dy}
+            for b in self.selected_block_ids()
+        }
+        return bool(changes) and self._push(MoveBlocks(self.document, changes, text="Nudge"))
+
     def commit_wire_bends(self, wid: str, target_index: int, points: list[list[float]]) -> None:
         w = self.document.diagram.wires.get(wid)
         if w is None:

@@ -105,6 +105,14 @@ class DiagramView(QGraphicsView):
             return
         if event.key() == Qt.Key.Key_Escape:
             self.scene().cancel_gesture()
+        steps = {Qt.Key.Key_Left: (-1, 0), Qt.Key.Key_Right: (1, 0), Qt.Key.Key_Up: (0, -1), Qt.Key.Key_Down: (0, 1)}
+        if event.key() in steps and self.scene().selected_block_ids():
+            dx, dy = steps[event.key()]
+            grid = self.scene().grid_size or 1.0
+            factor = 5 if event.modifiers() & Qt.KeyboardModifier.ShiftModifier else 1
+            self.scene().nudge_selection(dx * grid * factor, dy * grid * factor)
+            event.accept()
+            return
         super().keyPressEvent(event)
 
     def keyReleaseEvent(self, event) -> None:

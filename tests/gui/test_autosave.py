@@ -42,3 +42,19 @@ def test_a_damaged_note_still_offers_the_copy(tmp_path, note):
     saver.path.with_suffix(".json").write_text(note, encoding="utf-8")
     (found,) = find_leftovers(tmp_path)
     assert found.original is None and found.path == saver.path
+
+
+def test_a_copy_owned_by_another_running_process_is_not_a_leftover(tmp_path):
+    import subprocess
+    import sys
+
+    proc = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(30)"])
+    try:
+        saver = Autosaver(tmp_path)
+        saver.token = f"autosave-{proc.pid}-feedbeef"
+        saver.write(load(SAMPLES[0]), None)
+        assert find_leftovers(tmp_path) == []
+    finally:
+        proc.kill()
+        proc.wait()
+    assert [lo.path for lo in find_leftovers(tmp_path)] == [saver.path]

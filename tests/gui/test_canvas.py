@@ -235,3 +235,17 @@ def test_drop_from_the_shelf_places_that_kind_at_the_drop_point(window):
     blk = window.document.diagram.blocks[bid]
     assert (blk.kind, blk.params["role"], blk.name) == ("source", "disturbance", "d")
     assert (blk.layout["x"], blk.layout["y"]) == (120, 50)
+
+
+def test_arrow_keys_nudge_the_selection_by_one_grid_step(shown, qtbot):
+    doc = shown.document
+    a = AddBlock(doc, "gain", layout={"x": 0, "y": 0})
+    doc.push(a)
+    shown.scene.select_ids([a.block_id])
+    shown.view.setFocus()
+    QTest.keyClick(shown.view, Qt.Key.Key_Right)
+    QTest.keyClick(shown.view, Qt.Key.Key_Down, Qt.KeyboardModifier.ShiftModifier)
+    lay = doc.diagram.blocks[a.block_id].layout
+    assert (lay["x"], lay["y"]) == (10.0, 50.0)
+    doc.undo_stack.undo()
+    assert doc.diagram.blocks[a.block_id].layout["y"] == 0.0
