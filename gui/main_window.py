@@ -40,6 +40,17 @@ def sample_paths() -> list[Path]:
     return sorted((Path(str(p)) for p in root.iterdir() if p.name.endswith(FILE_SUFFIX)), key=lambda p: p.name)
 
 
+def _sample_title(path: Path) -> str:
+    """The sample's own title (its ``meta.title``), else a name made from the file name."""
+    import json
+
+    try:
+        title = json.loads(path.read_text(encoding="utf-8")).get("meta", {}).get("title")
+    except (OSError, ValueError, AttributeError):
+        title = None
+    return str(title) if title else path.stem.replace("_", " ")
+
+
 def status_text(result: LiveResult | None) -> str:
     """One line about the live model, as the status bar shows it."""
     if result is None:
@@ -211,7 +222,7 @@ class MainWindow(QMainWindow):
         self.samples_menu = m.addMenu("Open &sample")
         self.samples_menu.setObjectName("samples_menu")
         for p in sample_paths():
-            act = self.samples_menu.addAction(p.stem.replace("_", " "))
+            act = self.samples_menu.addAction(_sample_title(p))
             act.setData(str(p))
             act.triggered.connect(lambda _c=False, path=str(p): self.open_sample(path))
         self.recent_menu = m.addMenu("Open &recent")

@@ -249,3 +249,23 @@ def test_arrow_keys_nudge_the_selection_by_one_grid_step(shown, qtbot):
     assert (lay["x"], lay["y"]) == (10.0, 50.0)
     doc.undo_stack.undo()
     assert doc.diagram.blocks[a.block_id].layout["y"] == 0.0
+
+
+def test_dropping_a_shelf_entry_on_the_canvas_places_it_there(shown, qtbot):
+    from PySide6.QtCore import QPointF as P
+    from PySide6.QtGui import QDragEnterEvent, QDragMoveEvent, QDropEvent
+    from PySide6.QtWidgets import QApplication
+
+    md = shown.shelf.mimeData([shown.shelf.item(0)])  # plant
+    vp = shown.view.viewport()
+    shown.view.centerOn(0, 0)
+    at = shown.view.mapFromScene(P(200, 100))
+    pos = P(at)
+    action = Qt.DropAction.CopyAction
+    btn, mod = Qt.MouseButton.LeftButton, Qt.KeyboardModifier.NoModifier
+    QApplication.sendEvent(vp, QDragEnterEvent(pos, action, md, btn, mod))
+    QApplication.sendEvent(vp, QDragMoveEvent(pos, action, md, btn, mod))
+    QApplication.sendEvent(vp, QDropEvent(pos, action, md, btn, mod))
+    (blk,) = shown.document.diagram.blocks.values()
+    assert blk.kind == "plant"
+    assert (blk.layout["x"], blk.layout["y"]) == (200, 100)
