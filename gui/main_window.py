@@ -191,6 +191,8 @@ class MainWindow(QMainWindow):
         a["rename"] = self._action("&Rename", self.rename_selected, shortcut="F2", tip="Rename the selected block or signal in place")
         a["rotate"] = self._action("&Turn a quarter", self.rotate_selection, shortcut="Ctrl+R", tip="Turn the selected blocks 90° clockwise")
         a["flip"] = self._action("&Mirror", self.flip_selection, shortcut="Ctrl+M", tip="Mirror the selected blocks (feedback paths run right to left)")
+        a["flip_v"] = self._action("Mirror &top to bottom", self.flip_selection_vertically, shortcut="Ctrl+Shift+M",
+                                   tip="Mirror the selected blocks top to bottom (e.g. a junction's second input from above)")
         a["align_left"] = self._action("Line up &left edges", lambda: self.align("left"))
         a["align_right"] = self._action("Line up &right edges", lambda: self.align("right"))
         a["align_top"] = self._action("Line up &top edges", lambda: self.align("top"))
@@ -207,7 +209,7 @@ class MainWindow(QMainWindow):
         a["about"] = self._action("&About Loopwright", self.show_about, shortcut=None)
         # Editing keys act on the canvas only: in the inspector, paste and delete belong to
         # the field being edited (a matrix table takes a pasted spreadsheet block).
-        for k in ("cut", "copy", "paste", "delete", "select_all", "rename", "rotate", "flip"):
+        for k in ("cut", "copy", "paste", "delete", "select_all", "rename", "rotate", "flip", "flip_v"):
             act = a[k]
             self.removeAction(act)
             act.setShortcutContext(Qt.ShortcutContext.WidgetWithChildrenShortcut)
@@ -238,7 +240,7 @@ class MainWindow(QMainWindow):
         for k in ("undo", "redo", None, "cut", "copy", "paste", "delete", None, "select_all", "rename"):
             m.addSeparator() if k is None else m.addAction(a[k])
         m = mb.addMenu("&Arrange")
-        for k in ("rotate", "flip", None, "align_left", "align_right", "align_hcenter", "align_top", "align_bottom", "align_vcenter",
+        for k in ("rotate", "flip", "flip_v", None, "align_left", "align_right", "align_hcenter", "align_top", "align_bottom", "align_vcenter",
                   None, "spread_h", "spread_v"):
             m.addSeparator() if k is None else m.addAction(a[k])
         m = mb.addMenu("&View")
@@ -503,6 +505,17 @@ class MainWindow(QMainWindow):
         changes = {b: {"flip": not bool(d.blocks[b].layout.get("flip", False))} for b in self.scene.selected_block_ids()}
         if changes:
             self._push(MoveBlocks(self.document, changes, text="Mirror"))
+
+    def flip_selection_vertically(self) -> None:
+        # A top-to-bottom mirror is a left-right mirror followed by a half turn.
+        d = self.document.diagram
+        changes = {
+            b: {"rotation": (int(d.blocks[b].layout.get("rotation", 0) or 0) + 180) % 360,
+                "flip": not bool(d.blocks[b].layout.get("flip", False))}
+            for b in self.scene.selected_block_ids()
+        }
+        if changes:
+            self._push(MoveBlocks(self.document, changes, text="Mirror top to bottom"))
 
     def align(self, edge: str) -> None:
         items = [self.scene.block_items[b] for b in self.scene.selected_block_ids()]

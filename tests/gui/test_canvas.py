@@ -269,3 +269,15 @@ def test_dropping_a_shelf_entry_on_the_canvas_places_it_there(shown, qtbot):
     (blk,) = shown.document.diagram.blocks.values()
     assert blk.kind == "plant"
     assert (blk.layout["x"], blk.layout["y"]) == (200, 100)
+
+
+def test_mirror_top_to_bottom_moves_a_junctions_second_input_to_the_top(window):
+    doc = window.document
+    s = AddBlock(doc, "sum", layout={"x": 0, "y": 0})
+    doc.push(s)
+    window.scene.select_ids([s.block_id])
+    item = window.scene.block_items[s.block_id]
+    assert item.port_scene_pos("in2", is_input=True).y() > 0
+    window.actions_["flip_v"].trigger()
+    assert item.port_scene_pos("in2", is_input=True).y() < 0
+    assert item.port_scene_pos("out", is_input=False).x() > 0  # still flows left to right
