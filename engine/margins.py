@@ -594,33 +594,26 @@ def _nyquist_contour(w: np.ndarray, L: np.ndarray, k: int) -> np.ndarray:
 
 
 def loop_transfer(diagram, signal: str):
-    """``L = -G(break:signal -> signal)`` of the diagram opened at ``signal``.
+    """``L = -G(break -> returned signal)`` of the diagram opened at ``signal``.
+
+    ``signal`` names a signal (every consumer is cut) or one input port ``"block.port"``
+    (only that consumer is cut; see :func:`loopwright.engine.interconnect.assemble`).
 
     Returns
     -------
     (A, B, C, D) : ndarrays
         Realisation of ``L`` (all states of the diagram; hidden ones are harmless).
+
+    Raises
+    ------
+    UnknownNameError
+        No such signal or input port (with suggestions).
     """
     from loopwright.engine.interconnect import assemble
 
-    sig = _resolve_break(diagram, signal)
-    model = assemble(diagram, break_at=sig)
-    A, B, C, D = model.pair(f"break:{sig}", sig)
+    model = assemble(diagram, break_at=signal)
+    A, B, C, D = model.pair(f"break:{signal}", model.break_return)
     return A, B, -C, -D
-
-
-def _resolve_break(diagram, signal: str) -> str:
-    names = [w.name for w in diagram.wires.values()]
-    if signal in names:
-        return signal
-    import difflib
-
-    sugg = difflib.get_close_matches(signal, names, n=3, cutoff=0.4)
-    raise UnknownNameError(
-        f"cannot break the loop at {signal!r}: no wire carries that signal"
-        + (f"; did you mean {', '.join(sugg)}?" if sugg else f"; wires: {', '.join(names)}"),
-        suggestions=sugg,
-    )
 
 
 def margins_at(diagram, signal: str, *, skew: float = 0.0):
