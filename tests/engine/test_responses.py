@@ -296,3 +296,42 @@ def test_reduced_response_is_d_when_there_are_no_states():
     red = reduce_model(np.zeros((0, 0)))
     out = reduced_response(red, np.zeros((0, 1)), np.zeros((1, 0)), np.array([[2.5]]), 1j * np.array([1.0, 2.0]))
     assert_allclose(out[:, 0, 0], 2.5)
+
+
+@pytest.mark.parametrize("cascade", [False, True], ids=["one strongly coupled loop", "cascade of loops"])
+def test_reduction_is_a_unitary_triangular_form_of_the_balanced_matrix(cascade):
+    # A = S Z T Z^H S^-1 with Z unitary and T upper triangular, whether or not the cascade
+    # shortcut (one Schur form per strongly connected part) is taken
+    rng = np.random.default_rng(8)
+    if cascade:
+        blocks = [rng.standard_normal((k, k)) - 3 * np.eye(k) for k in (3, 1, 4, 2)]
+        A = sla.block_diag(*blocks)
+        A[3:, :3] = rng.standard_normal((7, 3)) * (rng.random((7, 3)) < 0.5)  # later parts driven by earlier ones
+    else:
+        A = rng.standard_normal((10, 10))
+    red = reduce_model(A)
+    assert_allclose(np.tril(red.T, -1), 0.0, atol=0)
+    assert_allclose(red.Z.conj().T @ red.Z, np.eye(10), atol=1e-13)
+    Ab = red.Z @ red.T @ red.Z.conj().T
+    assert_allclose(red.scale[:, None] * Ab / red.scale[None, :], A, atol=1e-12 * np.abs(A).max())
+    assert_allclose(red.Z_real @ red.T_real @ red.Z_real.T, A / red.scale[:, None] * red.scale[None, :], atol=1e-12 * np.abs(A).max())
+    ev = np.linalg.eigvals(A)
+    assert_allclose([np.min(np.abs(ev - p)) for p in red.poles], 0.0, atol=1e-10)
+    assert_allclose([np.min(np.abs(red.poles - e)) for e in ev], 0.0, atol=1e-10)
+
+
+def test_refinement_restores_relative_accuracy_far_below_the_peak():
+    # a chain of 30 lags: the response at high frequency is ~1e-40 of its DC value, yet each
+    # entry must keep its relative accuracy (python-control 0.10.2 solves per frequency in
+    # the original coordinates and serves as the reference)
+    n = 30
+    A = -np.eye(n) * np.linspace(1.0, 3.0, n) + np.diag(np.ones(n - 1), -1)
+    B = np.zeros((n, 1))
+    B[0, 0] = 1.0
+    C = np.zeros((1, n))
+    C[0, -1] = 1.0
+    w = np.logspace(-1, 2, 60)
+    ours = frequency_response(A, B, C, [[0.0]], w)[:, 0, 0]
+    ref = np.ravel(ct.ss(A, B, C, 0)(1j * w))
+    assert np.abs(ref).min() < 1e-30 * np.abs(ref).max()
+    assert_allclose(ours, ref, rtol=1e-9)
