@@ -101,7 +101,7 @@ def _freq(args: argparse.Namespace) -> int:
 
     def evaluate(w):
         with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-            return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float))
+            return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C)
 
     for name, v in (("--w-min", args.w_min), ("--w-max", args.w_max)):
         if v is not None and not v > 0:

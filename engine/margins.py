@@ -274,7 +274,7 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
     Bt, Ct = red.input_matrix(B), red.output_matrix(C)
 
     def Ljw(w):
-        return reduced_response(red, Bt, Ct, D, 1j * np.atleast_1d(np.asarray(w, dtype=float)))[:, 0, 0]
+        return reduced_response(red, Bt, Ct, D, 1j * np.atleast_1d(np.asarray(w, dtype=float)), B=B, C=C)[:, 0, 0]
 
     ol_unstable = int(np.sum(red.poles.real >= 0)) if n else 0
     grid = _grid_for(A, B, C, D)
