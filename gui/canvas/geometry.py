@@ -167,6 +167,7 @@ def route(
     bends: list | None = None,
     detour_y: float | None = None,
     gap_y: float | None = None,
+    early_turn: bool = False,
     stub: float = STUB,
 ) -> list[tuple[float, float]]:
     """Orthogonal route from an output at ``p`` (facing ``dp``) to an input at ``q`` (facing ``dq``).
@@ -174,7 +175,9 @@ def route(
     ``bends`` are the user's interior points (kept as given, elbows added between them);
     without them an automatic route is chosen. A wire that has to run backwards (a
     feedback path) takes the lane ``gap_y`` between the two blocks when they are stacked
-    with room between them, else the lane ``detour_y`` below both.
+    with room between them, else the lane ``detour_y`` below both. ``early_turn`` makes a
+    forward wire turn right after leaving its source instead of half way (the branches of
+    a fan-out then leave from one visible branch point, as drawn in textbooks).
     """
     a = (p[0] + dp[0] * stub, p[1] + dp[1] * stub)
     b = (q[0] + dq[0] * stub, q[1] + dq[1] * stub)
@@ -183,9 +186,9 @@ def route(
         return simplify([p] + mid + [q])
     hp, hq = abs(dp[0]) > 0.5, abs(dq[0]) > 0.5
     if hp and hq:
-        pts = _route_parallel(a, b, dp[0], dq[0], detour=gap_y if gap_y is not None else detour_y, axis=0)
+        pts = _route_parallel(a, b, dp[0], dq[0], detour=detour_y, gap=gap_y, early=early_turn)
     elif not hp and not hq:
-        swapped = _route_parallel((a[1], a[0]), (b[1], b[0]), dp[1], dq[1], detour=None, axis=0)
+        swapped = _route_parallel((a[1], a[0]), (b[1], b[0]), dp[1], dq[1], detour=None, gap=None, early=early_turn)
         pts = [(y, x) for x, y in swapped]
     elif hp:
         corner = (b[0], a[1])
@@ -202,16 +205,22 @@ def route(
     return simplify([p] + pts + [q])
 
 
-def _route_parallel(a, b, da: float, db: float, *, detour: float | None, axis: int):
-    """Both ends face along x: forward (mid-x), same way (outer x), or backward (a lane)."""
+def _route_parallel(a, b, da: float, db: float, *, detour: float | None, gap: float | None, early: bool):
+    """Both ends face along x: forward (mid-x), same way (outer x), or backward (a lane).
+
+    When the two blocks sit in different rows with room between them (``gap``), the
+    wires that cannot go straight cross over in that gap rather than through a block.
+    """
     ahead = (b[0] - a[0]) * da
     if db == -da and ahead >= 0:
         if abs(a[1] - b[1]) < 1e-9:
             return [a, b]
-        m = (a[0] + b[0]) / 2.0
+        m = a[0] if early else (a[0] + b[0]) / 2.0
         return [a, (m, a[1]), (m, b[1]), b]
     if db == da:
         xe = max(a[0], b[0]) if da > 0 else min(a[0], b[0])
+        if gap is not None:
+            return [a, (a[0], gap), (xe, gap), (xe, b[1]), b]
         return [a, (xe, a[1]), (xe, b[1]), b]
-    lane = detour if detour is not None else max(a[1], b[1]) + 40.0
+    lane = gap if gap is not None else (detour if detour is not None else max(a[1], b[1]) + 40.0)
     return [a, (a[0], lane), (b[0], lane), b]

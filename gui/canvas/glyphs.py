@@ -191,12 +191,16 @@ def _paint_sum(painter, block, theme, border, pen_w, font) -> None:
         idx = int(s.name[2:]) - 1 if s.name[2:].isdigit() else -1
         sign = signs[idx] if 0 <= idx < len(signs) else "?"
         glyph = "−" if sign == "-" else sign
-        # Beside the input, a little outside the circle and turned a quarter towards the top
-        # left, where a textbook writes it.
+        # Beside the input where a textbook writes it: above a wire coming from the side,
+        # left of one coming from below, right of one coming from above (so the signs of
+        # a left and a top input never collide).
         nx, ny = s.normal
-        tx, ty = -ny, nx
-        if ty > 0 or (abs(ty) < 1e-9 and tx > 0):
-            tx, ty = -tx, -ty
+        if abs(nx) > 0.5:
+            tx, ty = 0.0, -1.0
+        elif ny > 0:
+            tx, ty = -1.0, 0.0
+        else:
+            tx, ty = 1.0, 0.0
         cx = s.x + nx * 3 + tx * 10
         cy = s.y + ny * 3 + ty * 10
         painter.setPen(QPen(theme.problem if sign not in ("+", "-") else theme.text))

@@ -121,7 +121,8 @@ class WireItem(QGraphicsItem):
                 gap = (rs.bottom() + rd.top()) / 2.0
             elif rd.bottom() + 24.0 < rs.top():
                 gap = (rd.bottom() + rs.top()) / 2.0
-            routes.append(route((p.x(), p.y()), dp, (q.x(), q.y()), dq, bends=bends.get(str(j)), detour_y=lane, gap_y=gap))
+            routes.append(route((p.x(), p.y()), dp, (q.x(), q.y()), dq, bends=bends.get(str(j)), detour_y=lane, gap_y=gap,
+                                early_turn=len(wire.targets) > 1))
         self.prepareGeometryChange()
         self.routes = routes
         self._rebuild_shape()
