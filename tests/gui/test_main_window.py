@@ -237,3 +237,22 @@ def test_paste_key_in_an_inspector_table_pastes_into_the_table_not_the_canvas(wi
     QTest.keySequence(window.view, QKeySequence.StandardKey.Copy)
     QTest.keySequence(window.view, QKeySequence.StandardKey.Paste)
     assert len(window.document.diagram.blocks) == blocks + 1
+
+
+def test_a_width_mismatch_marks_the_wire_with_the_engine_message(window, wait_live):
+    doc = window.document
+    r = AddBlock(doc, "source", params={"role": "reference", "width": 2, "waveform": {"kind": "zero"}}, layout={"x": 0, "y": 0})
+    k = AddBlock(doc, "gain", layout={"x": 150, "y": 0})
+    doc.push(r)
+    doc.push(k)
+    c = Connect(doc, PortRef(r.block_id, "out"), PortRef(k.block_id, "in"))
+    doc.push(c)
+    wait_live(window)
+    wire = window.scene.wire_items[c.wire_id]
+    assert any("has 2 signals" in m and "expects 1" in m for m in wire.problems)
+    assert "has 2 signals" in wire.toolTip()
+    assert wire.signal_width == 2
+    # Fix it: the mark goes away with the next live result.
+    doc.push(SetParams(doc, k.block_id, {"K": [[1.0, 1.0]]}))
+    wait_live(window)
+    assert wire.problems == []
