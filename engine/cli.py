@@ -87,6 +87,20 @@ def _check(args: argparse.Namespace) -> int:
     return 0
 
 
+def _report(args: argparse.Namespace) -> int:
+    from loopwright.engine.report import format_report, loop_report
+
+    if args.top < 1:
+        print(f"loopwright report: --top must be at least 1, got {args.top}", file=sys.stderr)
+        return 2
+    rep = loop_report(load_diagram(args.file), top=args.top)
+    if args.json:
+        print_json({"file": args.file, **rep.as_dict()})
+    else:
+        print(format_report(rep, origin=args.file))
+    return 0
+
+
 def fmt_matrix(k) -> str:
     rows = ["[" + ", ".join(fmt_num(v, digits=5) for v in row) + "]" for row in k]
     return "[" + ", ".join(rows) + "]" if len(rows) > 1 else rows[0]
@@ -100,6 +114,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("file", help="diagram file (.lwd)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=_check)
+    p = sub.add_parser("report", help="the first look at a loop: poles, separation, margins, noise budget, worst paths")
+    p.add_argument("file", help="diagram file (.lwd)")
+    p.add_argument("--top", type=int, default=5, help="how many paths of the audit to show (default 5)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(run=_report)
     for mod in _COMMAND_MODULES:
         try:
             module = importlib.import_module(mod)
@@ -111,7 +130,7 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-COMMANDS = ("check", "freq", "time", "margins", "audit", "noise", "design", "export")
+COMMANDS = ("check", "report", "freq", "time", "margins", "audit", "noise", "design", "export")
 
 
 def main(argv: list[str] | None = None) -> int:
