@@ -8,7 +8,7 @@ import sys
 
 import pytest
 
-from tests.gui.helpers import SAMPLES
+from gui_helpers import SAMPLES
 
 pytestmark = pytest.mark.qt
 

@@ -6,7 +6,7 @@ import pytest
 from loopwright.engine.project import load
 from loopwright.gui.autosave import Autosaver, find_leftovers
 
-from tests.gui.helpers import SAMPLES
+from gui_helpers import SAMPLES
 
 
 def test_write_then_find_then_discard(tmp_path):

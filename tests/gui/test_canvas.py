@@ -12,7 +12,7 @@ from loopwright.gui.canvas.block_item import BlockItem
 from loopwright.gui.canvas.wire_item import WireItem
 from loopwright.gui.commands import AddBlock
 
-from tests.gui.helpers import SAMPLES
+from gui_helpers import SAMPLES
 
 pytestmark = pytest.mark.qt
 

@@ -28,7 +28,7 @@ from loopwright.gui.commands import (
 from loopwright.gui.canvas.clipboard import fragment_from_mime, fragment_to_mime, make_fragment
 from loopwright.gui.document import Document
 
-from tests.gui.helpers import SAMPLES, assert_same_transfer
+from gui_helpers import SAMPLES, assert_same_transfer
 
 pytestmark = pytest.mark.qt
 

@@ -14,7 +14,7 @@ from loopwright.engine.project import load
 from loopwright.gui.commands import AddBlock
 from loopwright.gui.inspector import Inspector, MatrixEditor, format_complex_list
 
-from tests.gui.helpers import SAMPLES
+from gui_helpers import SAMPLES
 
 pytestmark = pytest.mark.qt
 

@@ -13,7 +13,7 @@ from loopwright.gui.commands import AddBlock, SetParams
 from loopwright.gui.document import Document
 from loopwright.gui.workers import LiveModel, LiveResult, compute_live_result
 
-from tests.gui.helpers import SAMPLES
+from gui_helpers import SAMPLES
 
 pytestmark = pytest.mark.qt
 

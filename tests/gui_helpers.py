@@ -9,7 +9,7 @@ from numpy.testing import assert_allclose
 
 from loopwright.engine.interconnect import assemble
 
-SAMPLES = sorted(Path(__file__).resolve().parents[2].joinpath("samples").glob("*.lwd"))
+SAMPLES = sorted(Path(__file__).resolve().parents[1].joinpath("samples").glob("*.lwd"))
 FREQS_RAD_S = np.array([0.1, 1.0, 7.0, 40.0])
 
 
