@@ -287,7 +287,12 @@ class Inspector(QWidget):
         self.show_nothing()
 
     def set_live_widths(self, widths: dict[str, int]) -> None:
+        """Widths from the live model; the wire page shown updates its width in place."""
         self._live_widths = dict(widths)
+        label = self.fields.get("width_info")
+        if self._wire_id is not None and isinstance(label, QLabel):
+            width = self._live_widths.get(self._wire_id)
+            label.setText(str(width) if width is not None else "unknown until the diagram checks")
 
     def _set_page(self, w: QWidget) -> None:
         old = self._scroll.takeWidget()
@@ -662,7 +667,10 @@ class Inspector(QWidget):
         form.addRow("from", QLabel(d.port_label(w.source)))
         form.addRow("to", QLabel(", ".join(d.port_label(t) for t in w.targets)))
         width = self._live_widths.get(wid)
-        form.addRow("width", QLabel(str(width) if width is not None else "unknown until the diagram checks"))
+        width_label = QLabel(str(width) if width is not None else "unknown until the diagram checks")
+        width_label.setObjectName("width_info")
+        self.fields["width_info"] = width_label
+        form.addRow("width", width_label)
         hint = QLabel(f"Any point can be excited without redrawing: the assembled model has the input inject:{w.name}.")
         hint.setWordWrap(True)
         form.addRow("", hint)

@@ -562,6 +562,7 @@ class MainWindow(QMainWindow):
         self._theme_choice = dark
         self.theme = theme_from_palette(dark=dark)
         self.scene.set_theme(self.theme)
+        self.shelf.set_theme(self.theme)
         self.view.resetCachedContent()
 
     def changeEvent(self, event) -> None:

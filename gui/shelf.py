@@ -62,13 +62,18 @@ class Shelf(QListWidget):
         self.setDragDropMode(QAbstractItemView.DragDropMode.DragOnly)
         self.setIconSize(QSize(64, 40))
         self.setSpacing(2)
-        font = font or QFont("DejaVu Sans", 9)
+        self._font = font or QFont("DejaVu Sans", 9)
         for label, kind, params, help_text in SHELF_ENTRIES:
-            item = QListWidgetItem(_icon(kind, params, theme, font), label)
+            item = QListWidgetItem(_icon(kind, params, theme, self._font), label)
             item.setData(Qt.ItemDataRole.UserRole, {"kind": kind, "params": params})
             item.setToolTip(f"{label}: {help_text}.\nDrag onto the canvas, or double-click to place.")
             self.addItem(item)
         self.itemDoubleClicked.connect(self._on_double_clicked)
+
+    def set_theme(self, theme) -> None:
+        """Repaint the icons in the canvas colours."""
+        for row, (_label, kind, params, _help) in enumerate(SHELF_ENTRIES):
+            self.item(row).setIcon(_icon(kind, params, theme, self._font))
 
     def spec(self, row: int) -> dict:
         return self.item(row).data(Qt.ItemDataRole.UserRole)

@@ -281,3 +281,30 @@ def test_mirror_top_to_bottom_moves_a_junctions_second_input_to_the_top(window):
     window.actions_["flip_v"].trigger()
     assert item.port_scene_pos("in2", is_input=True).y() < 0
     assert item.port_scene_pos("out", is_input=False).x() > 0  # still flows left to right
+
+
+def test_dragging_a_handle_of_a_selected_wire_moves_that_segment(shown, qtbot):
+    shown.open_sample(str(SAMPLES[0]))
+    shown.view.zoom_reset()
+    d = shown.document.diagram
+    w = d.wire_by_name("ufb")
+    item = shown.scene.wire_items[w.id]
+    shown.scene.select_ids([], [w.id])
+    (j, k, mid), *_ = item._handles()
+    shown.view.centerOn(mid)
+    route = list(item.routes[j])
+    horizontal = abs(route[k][1] - route[k + 1][1]) < 1e-9
+    delta = QPointF(0, 40) if horizontal else QPointF(-40, 0)
+    steps = shown.document.undo_stack.count()
+    _drag(qtbot, shown.view, mid, mid + delta)
+    assert shown.document.undo_stack.count() == steps + 1
+    bends = d.wires[w.id].layout["bends"][str(j)]
+    moved = item.routes[j]
+    # The moved segment lands on the snap grid.
+    if horizontal:
+        assert moved[k][1] == pytest.approx(round((route[k][1] + 40) / 10) * 10)
+    else:
+        assert moved[k][0] == pytest.approx(round((route[k][0] - 40) / 10) * 10)
+    assert [list(p) for p in moved[1:-1]] == bends
+    shown.document.undo_stack.undo()
+    assert item.routes[j] == route

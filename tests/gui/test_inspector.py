@@ -201,3 +201,12 @@ def test_paste_button_reads_the_system_clipboard(qtbot):
     QGuiApplication.clipboard().setText("0.5\n1.5")
     ed.paste_button.click()
     assert ed.value() == [[0.5], [1.5]]
+
+
+def test_wire_page_shows_the_width_once_the_live_model_has_it(doc_and_inspector):
+    doc, insp = doc_and_inspector
+    u = doc.diagram.wire_by_name("xhat")
+    insp.show_wire(u.id)
+    assert insp.fields["width_info"].text().startswith("unknown")
+    insp.set_live_widths({u.id: 4})
+    assert insp.fields["width_info"].text() == "4"
