@@ -11,6 +11,7 @@ from typing import Any
 import numpy as np
 
 from loopwright.engine.diagram import Diagram
+from loopwright.engine.jsonable import to_jsonable
 from loopwright.engine.project import load
 
 __all__ = ["load_diagram", "to_jsonable", "print_json", "write_csv", "fmt_complex", "fmt_num"]
@@ -19,33 +20,6 @@ __all__ = ["load_diagram", "to_jsonable", "print_json", "write_csv", "fmt_comple
 def load_diagram(path: str) -> Diagram:
     """Load the diagram named on the command line (errors are ``ProjectFileError``)."""
     return load(path)
-
-
-def to_jsonable(obj: Any) -> Any:
-    """numpy values to plain JSON; infinities become the strings ``"inf"``/``"-inf"``, NaN becomes null.
-
-    Strings rather than JSON's missing infinity keep "unbounded" distinct from "not defined".
-    """
-    if isinstance(obj, dict):
-        return {str(k): to_jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [to_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return to_jsonable(obj.tolist())
-    if isinstance(obj, (np.bool_, bool)):
-        return bool(obj)
-    if isinstance(obj, (np.integer,)):
-        return int(obj)
-    if isinstance(obj, (complex, np.complexfloating)):
-        return [to_jsonable(float(obj.real)), to_jsonable(float(obj.imag))]
-    if isinstance(obj, (float, np.floating)):
-        v = float(obj)
-        if math.isnan(v):
-            return None
-        if math.isinf(v):
-            return "inf" if v > 0 else "-inf"
-        return v
-    return obj
 
 
 def print_json(obj: Any, *, file=None) -> None:

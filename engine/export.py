@@ -32,6 +32,7 @@ from loopwright.engine.diagram import Diagram
 from loopwright.engine.discretize import DiscreteModel, discretize
 from loopwright.engine.errors import EngineError
 from loopwright.engine.interconnect import assemble
+from loopwright.engine.jsonable import to_jsonable
 from loopwright.engine.lumped import lumped_controller
 from loopwright.engine.project import atomic_write
 
@@ -132,33 +133,6 @@ def controller_model(
     )
 
 
-def _num(v: float):
-    v = float(v)
-    if np.isnan(v):
-        return None
-    if np.isinf(v):
-        return "inf" if v > 0 else "-inf"
-    return v
-
-
-def _plain(obj: Any) -> Any:
-    if isinstance(obj, dict):
-        return {str(k): _plain(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_plain(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _plain(obj.tolist())
-    if isinstance(obj, (bool, np.bool_)):
-        return bool(obj)
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        return _num(obj)
-    if isinstance(obj, (complex, np.complexfloating)):
-        return [_num(obj.real), _num(obj.imag)]
-    return obj
-
-
 def model_to_dict(model: ExportModel) -> dict[str, Any]:
     """The JSON-native form of an export (see the module docstring)."""
     out = {
@@ -180,7 +154,7 @@ def model_to_dict(model: ExportModel) -> dict[str, Any]:
         "caution": CAUTION,
     }
     out.update(model.extra)
-    return _plain(out)
+    return to_jsonable(out)
 
 
 def _write(path: str | os.PathLike, data: str | bytes) -> None:
