@@ -60,7 +60,7 @@ def status_text(result: LiveResult | None) -> str:
         return f"not assembled — {result.error}" if result.error else "not assembled"
     parts = [f"{rep.states} state{'s' if rep.states != 1 else ''}"]
     if rep.stable:
-        parts.append("stable")
+        parts.append("stable (0 right-half-plane poles)")
     elif rep.rhp_poles:
         parts.append(f"UNSTABLE: {rep.rhp_poles} right-half-plane pole{'s' if rep.rhp_poles != 1 else ''}")
     else:

@@ -28,7 +28,8 @@ def test_each_sample_opens_checks_and_is_photographed(make_window, wait_live, sc
     report = summarize(load(path))  # the engine's own summary of the file is the reference
     assert result.report is not None and result.report.states == report.states
     text = win._model_label.text()
-    assert f"{report.states} states" in text and ("stable" in text) == report.stable
+    assert f"{report.states} states" in text
+    assert ("· stable (0 right-half-plane poles)" in text) == report.stable
     assert "separation: poles match" in text  # each sample is an observer-based loop that separates
     assert render_screenshot(win, screenshot_dir / f"{path.stem}.png")
     assert (screenshot_dir / f"{path.stem}.png").stat().st_size > 20000
