@@ -122,7 +122,7 @@ class Document(QObject):
 
     def remove_block(self, block_id: str) -> Block:
         """Remove a block that no wire touches any more (commands detach wires first)."""
-        blk = self._diagram._block(block_id)
+        blk = self._block(block_id)
         for w in self._diagram.wires.values():
             if w.source.block == block_id or any(t.block == block_id for t in w.targets):
                 raise ConnectionError_(f"block {blk.name!r} still has wire {w.name!r} attached", block_ids=[block_id], wire_ids=[w.id])
@@ -138,7 +138,7 @@ class Document(QObject):
         Refuses malformed parameters (through ``blocks.port_widths``) and changes that
         would remove a port a wire still uses (a summing junction losing an input).
         """
-        blk = self._diagram._block(block_id)
+        blk = self._block(block_id)
         trial = Block(blk.id, blk.kind, blk.name, copy.deepcopy(params), dict(blk.layout), blk.caption)
         kept_in, kept_out = set(input_ports(trial)), set(output_ports(trial))
         for w in self._diagram.wires.values():
@@ -156,7 +156,7 @@ class Document(QObject):
         _check_block_params(trial, self._diagram)
 
     def set_params(self, block_id: str, params: dict[str, Any]) -> None:
-        blk = self._diagram._block(block_id)
+        blk = self._block(block_id)
         if blk.params == params:
             return
         self.check_params(block_id, params)
@@ -165,7 +165,7 @@ class Document(QObject):
         self.params_changed.emit(block_id)
 
     def set_layout(self, block_id: str, layout: dict[str, Any]) -> None:
-        blk = self._diagram._block(block_id)
+        blk = self._block(block_id)
         merged = {**blk.layout, **layout}
         if merged == blk.layout:
             return
@@ -177,7 +177,7 @@ class Document(QObject):
         self.layout_changed.emit(block_id)
 
     def rename_block(self, block_id: str, name: str) -> None:
-        blk = self._diagram._block(block_id)
+        blk = self._block(block_id)
         if blk.name == name:
             return
         old = blk.name
@@ -194,7 +194,7 @@ class Document(QObject):
             self.params_changed.emit(bid)
 
     def set_caption(self, block_id: str, caption: str) -> None:
-        blk = self._diagram._block(block_id)
+        blk = self._block(block_id)
         if blk.caption == caption:
             return
         if not isinstance(caption, str) or len(caption) > 200:
@@ -217,7 +217,7 @@ class Document(QObject):
 
     def disconnect(self, wire_id: str, target: PortRef) -> bool:
         """Detach one target; True when that removed the wire."""
-        w = self._diagram._wire(wire_id)
+        w = self._wire(wire_id)
         if target not in w.targets:
             return False
         gone = self._diagram.disconnect(wire_id, target)
@@ -250,20 +250,32 @@ class Document(QObject):
         self.wire_added.emit(wire.id)
 
     def rename_wire(self, wire_id: str, name: str) -> None:
-        if self._diagram._wire(wire_id).name == name:
+        if self._wire(wire_id).name == name:
             return
         self._diagram.rename_wire(wire_id, name)
         self._bump()
         self.wire_renamed.emit(wire_id)
 
     def set_wire_layout(self, wire_id: str, layout: dict[str, Any]) -> None:
-        if self._diagram._wire(wire_id).layout == layout:
+        if self._wire(wire_id).layout == layout:
             return
         self._diagram.set_wire_layout(wire_id, layout)
         self._bump()
         self.wire_layout_changed.emit(wire_id)
 
     # ---- internals -----------------------------------------------------------------
+    def _block(self, block_id: str) -> Block:
+        try:
+            return self._diagram.blocks[block_id]
+        except KeyError:
+            raise DiagramError(f"no block with id {block_id!r}") from None
+
+    def _wire(self, wire_id: str) -> Wire:
+        try:
+            return self._diagram.wires[wire_id]
+        except KeyError:
+            raise DiagramError(f"no wire with id {wire_id!r}") from None
+
     def _bump(self) -> None:
         self.revision += 1
         self.changed.emit(self.revision)
