@@ -11,8 +11,8 @@ from numpy.testing import assert_allclose
 from loopwright.engine.check import poles_match, summarize
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.project import load
-from test_interconnect import stage_loop
-from test_project import SAMPLES, sample_path
+from diagrams import stage_loop_ref03 as stage_loop
+from diagrams import SAMPLES, sample_path
 
 
 def observer_loop(A, B, C, K, L) -> Diagram:

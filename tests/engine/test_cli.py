@@ -8,7 +8,7 @@ import sys
 import pytest
 
 from loopwright.engine.cli import main
-from test_project import SAMPLES, sample_path
+from diagrams import SAMPLES, sample_path
 
 
 @pytest.mark.parametrize("name", SAMPLES)

@@ -27,7 +27,7 @@ from loopwright.engine.interconnect import assemble
 from loopwright.engine.lumped import lumped_controller
 from loopwright.engine.recipes import redesign
 
-from test_recipes import stage_loop  # the REF-03 stage loop builder, shared with the recipe tests
+from diagrams import stage_servo as stage_loop
 
 
 def _stage():

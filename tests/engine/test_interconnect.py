@@ -11,24 +11,8 @@ from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import AlgebraicLoopError, ConnectionError_, DimensionError, ParameterError, UnknownNameError
 from loopwright.engine.interconnect import assemble, collect_problems
 from reference_models import to_python_control
+from diagrams import stage_loop_ref03 as stage_loop
 from strategies import loop_diagrams
-
-
-def stage_loop() -> Diagram:
-    """REFERENCES.md REF-03: air-bearing stage, K = [8, 4], L = [11, 30], disturbance at the plant input."""
-    d = Diagram()
-    d.add_block("source", "d", {"role": "disturbance", "width": 1})
-    d.add_block("plant", "P", {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
-    d.add_block("estimator", "est", {"plant": "P", "L": [[11], [30]]})
-    d.add_block("gain", "Kx", {"K": [[-8, -4]]})
-    d.add_block("sum", "up", {"signs": ["+", "+"], "width": 1})
-    d.connect("est.xhat", "Kx.in")
-    d.connect("Kx.out", "up.in1")
-    d.connect("d.out", "up.in2")
-    d.connect("up.out", "P.u")
-    d.connect("P.y", "est.y")
-    d.connect("Kx.out", "est.u")
-    return d
 
 
 def tf_eval(model, src: str, sig: str, s: complex) -> np.ndarray:

@@ -21,7 +21,7 @@ from loopwright.engine.margins import loop_transfer
 from loopwright.engine.project import load
 from loopwright.engine.recipes import redesign
 
-from test_recipes import stage_loop  # the REF-03 stage loop builder, shared with the recipe tests
+from diagrams import stage_servo as stage_loop
 
 
 def _designed_stage():

@@ -10,13 +10,9 @@ import pytest
 
 from loopwright.engine import project
 from loopwright.engine.errors import FormatVersionError, ProjectFileError
+from diagrams import SAMPLES, sample_path
 from loopwright.engine.project import dumps, load, loads, save
 
-SAMPLES = sorted(p.name for p in resources.files("loopwright.samples").iterdir() if p.name.endswith(".lwd"))
-
-
-def sample_path(name: str) -> Path:
-    return Path(str(resources.files("loopwright.samples") / name))
 
 
 def test_there_are_at_least_three_samples():

@@ -10,6 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
+from diagrams import STAGE, stage_servo as stage_loop
 from loopwright.engine.blocks import plant_matrices
 from loopwright.engine.design import normalize_poles, pole_mismatch
 from loopwright.engine.diagram import Diagram
@@ -18,35 +19,6 @@ from loopwright.engine.interconnect import assemble
 from loopwright.engine.project import load
 from loopwright.engine.recipes import design_block, noise_defaults, redesign, stale_blocks
 
-STAGE = {"A": [[0.0, 1.0], [0.0, 0.0]], "B": [[0.0], [1.0]], "C": [[1.0, 0.0]], "D": [[0.0]]}
-
-
-def stage_loop(k_recipe=None, l_recipe=None, *, plant=STAGE, disturbance=None, noise=None) -> Diagram:
-    """The observer-based loop of REFERENCES.md REF-03 (air-bearing stage, demo data)."""
-    d = Diagram()
-    d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0}})
-    d.add_block("source", "dist", {"role": "disturbance", "width": 1,
-                                   "waveform": disturbance or {"kind": "step", "amplitude": 0.2, "start": 1.0}})
-    d.add_block("source", "meas_noise", {"role": "noise", "width": 1, "waveform": noise or {"kind": "zero"}})
-    d.add_block("plant", "P", dict(plant))
-    d.add_block("estimator", "est", {"plant": "P", "L": [[1.0], [1.0]], **({"recipe": l_recipe} if l_recipe else {})})
-    d.add_block("gain", "Kx", {"K": [[-1.0, -1.0]], **({"recipe": k_recipe} if k_recipe else {})})
-    d.add_block("gain", "Nr", {"K": [[1.0]], "recipe": {"method": "feedforward", "feedback": "Kx"}})
-    d.add_block("sum", "uc", {"signs": ["+", "+"], "width": 1})
-    d.add_block("sum", "up", {"signs": ["+", "+"], "width": 1})
-    d.add_block("sum", "ym", {"signs": ["+", "+"], "width": 1})
-    d.connect("r.out", "Nr.in", name="ref")
-    d.connect("Nr.out", "uc.in1", name="u_ff")
-    d.connect("Kx.out", "uc.in2", name="u_fb")
-    d.connect("uc.out", "up.in1", name="u_c")
-    d.connect("uc.out", "est.u")  # the estimator knows the command, not the disturbance
-    d.connect("dist.out", "up.in2", name="d")
-    d.connect("up.out", "P.u", name="u")
-    d.connect("P.y", "ym.in1", name="y")
-    d.connect("meas_noise.out", "ym.in2", name="v")
-    d.connect("ym.out", "est.y", name="y_meas")
-    d.connect("est.xhat", "Kx.in", name="xhat")
-    return d
 
 
 def test_designed_stage_loop_matches_hand_gains_and_separation_principle():

@@ -10,8 +10,8 @@ from loopwright.engine.cli import main
 from loopwright.engine.margins import margins_at
 from loopwright.engine.project import load
 from loopwright.engine.report import format_report, loop_report
-from test_interconnect import stage_loop
-from test_project import SAMPLES, sample_path
+from diagrams import stage_loop_ref03 as stage_loop
+from diagrams import SAMPLES, sample_path
 
 
 @pytest.mark.parametrize("name", SAMPLES)
