@@ -7,7 +7,6 @@ from PySide6.QtCore import QPoint, QPointF, Qt
 from PySide6.QtTest import QTest
 
 from loopwright.engine.diagram import PortRef
-from loopwright.engine.project import load
 from loopwright.gui.canvas.block_item import BlockItem
 from loopwright.gui.canvas.wire_item import WireItem
 from loopwright.gui.commands import AddBlock
