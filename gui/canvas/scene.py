@@ -20,7 +20,7 @@ from loopwright.engine.errors import EngineError
 from loopwright.gui.canvas.block_item import BlockItem
 from loopwright.gui.canvas.port_item import PortItem
 from loopwright.gui.canvas.wire_item import WireItem
-from loopwright.gui.commands import AddBlock, Connect, MoveBlocks, SetWireLayout
+from loopwright.gui.commands import AddBlock, Connect, Disconnect, MoveBlocks, SetWireLayout
 
 __all__ = ["DiagramScene", "BLOCK_MIME"]
 
@@ -255,6 +255,10 @@ class DiagramScene(QGraphicsScene):
         if not changes:
             return False
         return self._push(MoveBlocks(self.document, changes))
+
+    def remove_branch(self, wire_id: str, target: PortRef) -> bool:
+        """Detach one target of a fan-out wire (the rest of the wire stays)."""
+        return self._push(Disconnect(self.document, wire_id, target))
 
     def nudge_selection(self, dx: float, dy: float) -> bool:
         """Move the selected blocks by (dx, dy) as one command (arrow keys)."""

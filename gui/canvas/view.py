@@ -227,11 +227,19 @@ class DiagramView(QGraphicsView):
                 self.scene().clearSelection()
                 owner.setSelected(True)
         actions = [a for a in self.actions() if a.isEnabled()]
-        if not actions:
-            return
         menu = QMenu(self)
+        if isinstance(item, WireItem):
+            j = item.branch_at(self.mapToScene(event.pos()))
+            wire = self.scene().document.diagram.wires.get(item.wire_id)
+            if j is not None and wire is not None:
+                target = wire.targets[j]
+                label = self.scene().document.diagram.port_label(target)
+                menu.addAction(f"Remove the branch to {label}", lambda: self.scene().remove_branch(item.wire_id, target))
+                menu.addSeparator()
         for a in actions:
             menu.addAction(a)
+        if menu.isEmpty():
+            return
         menu.popup(event.globalPos())
         self._context_menu = menu
         event.accept()

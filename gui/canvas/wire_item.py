@@ -204,6 +204,16 @@ class WireItem(QGraphicsItem):
                 painter.drawRect(QRectF(mid.x() - _HANDLE, mid.y() - _HANDLE, 2 * _HANDLE, 2 * _HANDLE))
 
     # ---- bend handles ----------------------------------------------------------------------
+    def branch_at(self, pos: QPointF) -> int | None:
+        """Index of the fan-out branch drawn nearest ``pos``; None on the shared trunk."""
+        if len(self.routes) < 2:
+            return None
+        dists = sorted((_distance_to_route(pos.x(), pos.y(), pts), j) for j, pts in enumerate(self.routes))
+        (d0, j0), (d1, _j1) = dists[0], dists[1]
+        if d0 > 8.0 or d1 - d0 < 1.0:
+            return None
+        return j0
+
     def _handles(self):
         """(target index, segment index, midpoint) of every movable segment."""
         out = []
@@ -259,6 +269,15 @@ class WireItem(QGraphicsItem):
         interior = [[float(x), float(y)] for x, y in self.routes[j][1:-1]]
         self._scene_ref.commit_wire_bends(self.wire_id, j, interior)
         event.accept()
+
+
+def _distance_to_route(x: float, y: float, pts) -> float:
+    best = float("inf")
+    for (x0, y0), (x1, y1) in zip(pts, pts[1:]):
+        cx = min(max(x, min(x0, x1)), max(x0, x1))
+        cy = min(max(y, min(y0, y1)), max(y0, y1))
+        best = min(best, ((x - cx) ** 2 + (y - cy) ** 2) ** 0.5)
+    return best
 
 
 def _label_segment(pts) -> int:

@@ -307,3 +307,23 @@ def test_dragging_a_handle_of_a_selected_wire_moves_that_segment(shown, qtbot):
     assert [list(p) for p in moved[1:-1]] == bends
     shown.document.undo_stack.undo()
     assert item.routes[j] == route
+
+
+def test_one_branch_of_a_fan_out_can_be_found_and_removed(window):
+    window.open_sample(str(SAMPLES[0]))
+    d = window.document.diagram
+    w = d.wire_by_name("y")
+    item = window.scene.wire_items[w.id]
+    assert len(w.targets) >= 2
+    last = item.routes[-1]
+    (x0, y0), (x1, y1) = last[-2], last[-1]
+    near_end = QPointF((x0 + x1) / 2, (y0 + y1) / 2)  # the last leg belongs to one branch only
+    j = item.branch_at(near_end)
+    assert j == len(w.targets) - 1
+    target = w.targets[j]
+    assert item.branch_at(QPointF(*item.routes[0][0])) is None  # the source end is shared
+    assert window.scene.remove_branch(w.id, target)
+    redrawn = window.scene.wire_items[w.id]
+    assert target not in d.wires[w.id].targets and len(d.wires[w.id].targets) == len(redrawn.routes)
+    window.document.undo_stack.undo()
+    assert d.wires[w.id].targets[j] == target
