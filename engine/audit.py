@@ -18,8 +18,9 @@ verdict. ``peak_over_dc`` (resonance relative to the static gain) is reported al
 
 **Speed:** ``A`` is reduced once (balanced complex Schur form); each input group is then
 evaluated for all signals at once on one frequency grid, peaks are refined jointly by
-grid densification (up to 8 passes of 9 points around each pair's peak, each pass one
-batched evaluation; a peak at either end of the grid extends the grid outward first), and H2 norms reuse the same real Schur form for one Lyapunov solve per input
+grid densification (up to 8 passes of 5 points inside each signal's bracket around its
+peak, each pass one batched solve shared by all signals; a peak at either end of the grid
+extends the grid outward first), and H2 norms reuse the same real Schur form for one Lyapunov solve per input
 group. Stability per pair uses the left and right eigenvectors of each non-stable mode
 taken from the triangular form. Peak gains are therefore grid-and-refine values (relative
 error about 1e-8 or better around a smooth peak), not Hamiltonian certificates; use
@@ -117,12 +118,14 @@ def _driver(model, signal: str) -> str:
     return model.signal_ports[signal].block
 
 
-def path_between(model, group: str, signal: str, graph=None) -> tuple[list[str], list[str]]:
+def path_between(model, group: str, signal: str, graph=None, *, cache: dict | None = None) -> tuple[list[str], list[str]]:
     """Block ids and wire ids on the paths from an input group to a signal.
 
     The blocks are those reachable from the source block (or from the consumers of an
     injected signal) that also reach the block driving ``signal``; the wires are the
     diagram edges between them, plus the injected and the observed signal's own wires.
+
+    ``cache`` (a dict, optional) keeps reachability sets between calls on the same model.
 
     Returns
     -------
@@ -141,12 +144,21 @@ def path_between(model, group: str, signal: str, graph=None) -> tuple[list[str],
             extra_wires.append(w.id)
     else:
         starts = {d.block_by_name(group).id}
-    fwd = set(starts)
-    for s in starts:
-        fwd |= nx.descendants(g, s)
-    back = nx.ancestors(g, end) | {end}
+    cache = {} if cache is None else cache
+    fkey = ("fwd", group)
+    if fkey not in cache:
+        fwd = set(starts)
+        for s in starts:
+            fwd |= nx.descendants(g, s)
+        cache[fkey] = fwd
+    bkey = ("back", end)
+    if bkey not in cache:
+        cache[bkey] = nx.ancestors(g, end) | {end}
+    fwd, back = cache[fkey], cache[bkey]
     nodes = fwd & back
-    wids = [k for u, v, k in g.edges(keys=True) if u in nodes and v in nodes]
+    if "edges" not in cache:
+        cache["edges"] = list(g.edges(keys=True))
+    wids = [k for u, v, k in cache["edges"] if u in nodes and v in nodes]
     if signal in wires_by_name and (nodes or extra_wires):
         extra_wires.append(wires_by_name[signal].id)
     seen, wire_ids = set(), []
@@ -156,6 +168,78 @@ def path_between(model, group: str, signal: str, graph=None) -> tuple[list[str],
             wire_ids.append(k)
     order = [b for b in d.blocks if b in nodes]
     return order, wire_ids
+
+
+def _refine_peaks(red, Bt, Ct_all, Dg, grid, Y, sig_items, passes: int) -> dict:
+    """Peak gain and its frequency for every signal of one input group.
+
+    Each signal keeps a bracket of samples around its best point; each pass puts 5 new
+    frequencies inside every distinct bracket (or extends the grid outward when the peak
+    sits at an end), solves once for all of them and evaluates each signal only at its
+    own points. Returns signal -> (peak, w_rad_s).
+    """
+    local: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+    best: dict[str, tuple[float, float]] = {}
+    top = grid[-1]
+    for sig, sl in sig_items:
+        g = sigma_max(Y[:, sl, :])
+        gv = np.where(np.isfinite(g), g, -np.inf)
+        i = int(np.argmax(gv))
+        if not np.isfinite(gv[i]):
+            best[sig] = (0.0, 0.0)
+            continue
+        lo, hi = max(i - 1, 0), min(i + 2, grid.size)
+        local[sig] = (grid[lo:hi].copy(), g[lo:hi].copy())
+    for _ in range(passes):
+        plans: dict[bytes, tuple[np.ndarray, list[str]]] = {}
+        for sig, (w, g) in local.items():
+            i = int(np.argmax(np.where(np.isfinite(g), g, -np.inf)))
+            if i == w.size - 1 and w[i] >= top:
+                new = w[i] * np.logspace(0.1, 1.5, 5)  # still rising at the top: look further up
+            elif i == 0 and w.size > 1 and w[0] > 0 and w[0] <= grid[1]:
+                new = w[0] * np.logspace(-1.5, -0.1, 5)  # between DC and the lowest grid point
+            elif 0 < i < w.size - 1:
+                new = np.linspace(w[i - 1], w[i + 1], 7)[1:-1]
+            else:
+                continue
+            new = new[~np.isin(new, w)]
+            if new.size == 0:
+                continue
+            key = new.tobytes()
+            if key in plans:
+                plans[key][1].append(sig)
+            else:
+                plans[key] = (new, [sig])
+        if not plans:
+            break
+        w_new = np.concatenate([pts for pts, _ in plans.values()])
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            X = _solve_for(red, Bt, w_new)  # (n, k, m)
+        col = 0
+        rows = dict(sig_items)
+        for pts, sigs in plans.values():
+            Xk = X[:, col : col + pts.size, :]
+            col += pts.size
+            for sig in sigs:
+                sl = rows[sig]
+                with np.errstate(invalid="ignore", over="ignore"):
+                    Yk = np.einsum("pn,nkm->kpm", Ct_all[sl], Xk) + Dg[sl][None, :, :]
+                gk = sigma_max(Yk)
+                w, g = local[sig]
+                w2 = np.concatenate([w, pts])
+                g2 = np.concatenate([g, gk])
+                order = np.argsort(w2)
+                local[sig] = (w2[order], g2[order])
+    for sig, (w, g) in local.items():
+        i = int(np.argmax(np.where(np.isfinite(g), g, -np.inf)))
+        best[sig] = (float(g[i]), float(w[i]))
+    return best
+
+
+def _solve_for(red, Bt, w_rad_s):
+    from loopwright.engine.responses import _shifted_solve
+
+    return _shifted_solve(red.T, 1j * np.asarray(w_rad_s, dtype=float), Bt)
 
 
 def path_audit(
@@ -201,6 +285,7 @@ def path_audit(
     if injections:
         groups += [g for g in model.inputs if g.startswith("inject:")]
     graph = model.diagram.graph()
+    reach_cache: dict = {}
     rows: list[AuditRow] = []
     sig_items = list(model.signals.items())
     for grp in groups:
@@ -220,37 +305,9 @@ def path_audit(
             S = red.scale
             Bw = Bg / S[:, None]
             X = lyapunov_from_schur(red.T_real, red.Z_real, Bw @ Bw.T)
-        # stable-path peaks, refined jointly across the group's signals
-        gains = {}
-        for sig, sl in sig_items:
-            gains[sig] = sigma_max(Y[:, sl, :])
-        w_all = grid.copy()
-        g_all = {s: gains[s].copy() for s, _ in sig_items}
-        for _ in range(refine_passes if n else 0):
-            new = []
-            for sig, _ in sig_items:
-                gv = np.where(np.isfinite(g_all[sig]), g_all[sig], -np.inf)
-                i = int(np.argmax(gv))
-                if i == w_all.size - 1 and w_all[i] > 0:
-                    # still rising at the top of the grid (a fast zero): look further up
-                    new.append(w_all[i] * np.logspace(0.05, 1.5, 10))
-                elif i == 1 and w_all[0] == 0.0:
-                    # peak between DC and the lowest grid point
-                    new.append(w_all[1] * np.logspace(-1.5, -0.05, 10))
-                    new.append(np.linspace(w_all[1], w_all[2], 11)[1:-1])
-                elif 0 < i < w_all.size - 1:
-                    new.append(np.linspace(w_all[i - 1], w_all[i + 1], 11)[1:-1])
-            if not new:
-                break
-            wn = np.setdiff1d(np.unique(np.concatenate(new)), w_all)
-            if wn.size == 0:
-                break
-            with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-                Yn = reduced_response(red, Bt, Ct_all, Dg, 1j * wn)
-            order = np.argsort(np.concatenate([w_all, wn]))
-            w_all = np.concatenate([w_all, wn])[order]
-            for sig, sl in sig_items:
-                g_all[sig] = np.concatenate([g_all[sig], sigma_max(Yn[:, sl, :])])[order]
+        best = _refine_peaks(red, Bt, Ct_all, Dg, grid, Y, sig_items, refine_passes if n else 0)
+        finite_y = np.abs(Y[np.isfinite(Y)])
+        scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
         for sig, sl in sig_items:
             Cz = Ct_all[sl]
             unstable = False
@@ -261,20 +318,14 @@ def path_audit(
                 if cn > 0 and np.linalg.norm(Cz @ v) / (np.linalg.norm(v) * cn) > _COUPLING_TOL:
                     unstable = True
                     break
-            bids, wids = path_between(model, grp, sig, graph)
+            bids, wids = path_between(model, grp, sig, graph, cache=reach_cache)
             d_peak = float(np.linalg.norm(Dg[sl], 2)) if Dg[sl].size else 0.0
             note = ""
             if unstable:
                 peak, wpk, h2 = np.inf, np.nan, np.inf
                 note = "a mode with Re(p) >= 0 is reached by the source and seen at the signal"
             else:
-                gv = g_all[sig]
-                fin = np.isfinite(gv)
-                if fin.any():
-                    i = int(np.argmax(np.where(fin, gv, -np.inf)))
-                    peak, wpk = float(gv[i]), float(w_all[i])
-                else:
-                    peak, wpk = 0.0, 0.0
+                peak, wpk = best[sig]
                 if d_peak > peak:
                     peak, wpk = d_peak, np.inf
                 if np.any(Dg[sl] != 0):
@@ -293,7 +344,6 @@ def path_audit(
             else:
                 dcm = dc_gain(A, Bg, C[sl], Dg[sl])
                 dc = float(np.linalg.norm(dcm, 2)) if np.all(np.isfinite(dcm)) else np.inf
-            scale_ref = max(1e-300, float(np.abs(Y[np.isfinite(Y)]).max()) if np.isfinite(Y).any() else 1.0)
             if not bids and not unstable and peak <= 1e-13 * scale_ref:
                 continue
             names_b = [model.diagram.blocks[b].name for b in bids]

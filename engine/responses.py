@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 import scipy.linalg as sla
 
-from loopwright.engine.errors import AnalysisError, DimensionError, ParameterError, UnknownNameError
+from loopwright.engine.errors import DimensionError, ParameterError, UnknownNameError
 
 __all__ = [
     "ReducedModel",
@@ -57,23 +57,29 @@ _MAX_ENTRIES = 4_000_000
 
 
 def _as_system(A, B, C, D) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Normalise ``(A, B, C, D)`` to 2-D float arrays with consistent shapes."""
-    A = np.atleast_2d(np.asarray(A, dtype=float))
-    n = A.shape[0]
+    """Normalise ``(A, B, C, D)`` to 2-D float arrays with consistent shapes.
+
+    ``B`` may be given as a flat vector for a single input and ``C`` as a flat vector for
+    a single output; ``D=None`` means zeros.
+    """
+    A = np.asarray(A, dtype=float)
+    A = A.reshape(0, 0) if A.size == 0 else np.atleast_2d(A)
     if A.ndim != 2 or A.shape[0] != A.shape[1]:
         raise DimensionError(f"A must be square (n, n); got shape {A.shape}")
+    n = A.shape[0]
     B = np.asarray(B, dtype=float)
     C = np.asarray(C, dtype=float)
-    B = B.reshape(n, -1) if B.size or n == 0 else np.zeros((n, 0))
-    C = C.reshape(-1, n) if C.size or n == 0 else np.zeros((0, n))
-    if n == 0:
-        B = np.asarray(B, dtype=float).reshape(0, -1) if np.ndim(B) == 2 else np.zeros((0, 0))
-        C = np.asarray(C, dtype=float).reshape(-1, 0) if np.ndim(C) == 2 else np.zeros((0, 0))
+    if B.ndim != 2:
+        B = B.reshape(n, -1)
+    if C.ndim != 2:
+        C = C.reshape(-1, n)
+    if B.shape[0] != n:
+        raise DimensionError(f"B must have n = {n} rows to match A; got shape {B.shape}")
+    if C.shape[1] != n:
+        raise DimensionError(f"C must have n = {n} columns to match A; got shape {C.shape}")
     m, p = B.shape[1], C.shape[0]
-    if D is None:
-        D = np.zeros((p, m))
-    D = np.asarray(D, dtype=float)
-    if D.size == 0:
+    D = np.zeros((p, m)) if D is None else np.asarray(D, dtype=float)
+    if D.size == 0 and p * m == 0:
         D = np.zeros((p, m))
     D = np.atleast_2d(D)
     if D.shape != (p, m):
@@ -812,7 +818,3 @@ def source_run(model, t, *, outputs=None, x0=None) -> TimeResult:
     res.output_names = [model.output_names[i] for i in rows]
     return res
 
-
-def _require(condition: bool, message: str) -> None:
-    if not condition:
-        raise AnalysisError(message)
