@@ -219,30 +219,36 @@ class DiagramView(QGraphicsView):
             sc.edit_refused.emit(str(err))
 
     def contextMenuEvent(self, event) -> None:
-        """The canvas's own editing commands (turn, mirror, rename, cut, copy, paste, delete)."""
-        item = self.itemAt(event.pos())
-        if item is not None and not item.isSelected() and hasattr(item, "setSelected"):
-            owner = item if isinstance(item, (BlockItem, WireItem)) else item.parentItem()
-            if owner is not None:
-                self.scene().clearSelection()
-                owner.setSelected(True)
-        actions = [a for a in self.actions() if a.isEnabled()]
+        menu = self.build_context_menu(event.pos())
+        if menu is not None:
+            menu.popup(event.globalPos())
+            self._context_menu = menu
+        event.accept()
+
+    def build_context_menu(self, pos) -> QMenu | None:
+        """The canvas's own commands for the point ``pos`` (viewport pixels).
+
+        The item under the cursor is selected first; on a fan-out wire the branch under
+        the cursor can be removed on its own.
+        """
+        hits = [i for i in self.items(pos) if isinstance(i, (BlockItem, WireItem))]
+        item = hits[0] if hits else None
+        if item is not None and not item.isSelected():
+            self.scene().clearSelection()
+            item.setSelected(True)
         menu = QMenu(self)
         if isinstance(item, WireItem):
-            j = item.branch_at(self.mapToScene(event.pos()))
+            j = item.branch_at(self.mapToScene(pos))
             wire = self.scene().document.diagram.wires.get(item.wire_id)
             if j is not None and wire is not None:
                 target = wire.targets[j]
                 label = self.scene().document.diagram.port_label(target)
                 menu.addAction(f"Remove the branch to {label}", lambda: self.scene().remove_branch(item.wire_id, target))
                 menu.addSeparator()
-        for a in actions:
-            menu.addAction(a)
-        if menu.isEmpty():
-            return
-        menu.popup(event.globalPos())
-        self._context_menu = menu
-        event.accept()
+        for a in self.actions():
+            if a.isEnabled():
+                menu.addAction(a)
+        return None if menu.isEmpty() else menu
 
     # ---- empty-canvas hint -------------------------------------------------------------------------
     def drawForeground(self, painter, rect: QRectF) -> None:

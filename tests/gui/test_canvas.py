@@ -327,3 +327,20 @@ def test_one_branch_of_a_fan_out_can_be_found_and_removed(window):
     assert target not in d.wires[w.id].targets and len(d.wires[w.id].targets) == len(redrawn.routes)
     window.document.undo_stack.undo()
     assert d.wires[w.id].targets[j] == target
+
+
+def test_the_context_menu_offers_the_canvas_commands_and_the_branch_under_the_cursor(shown, qtbot):
+    shown.open_sample(str(SAMPLES[0]))
+    shown.view.zoom_reset()
+    d = shown.document.diagram
+    item = shown.scene.wire_items[d.wire_by_name("y").id]
+    (x0, y0), (x1, y1) = item.routes[-1][-3], item.routes[-1][-2]
+    at = QPointF((x0 + x1) / 2, (y0 + y1) / 2)
+    shown.view.centerOn(at)
+    menu = shown.view.build_context_menu(shown.view.mapFromScene(at))
+    texts = [a.text() for a in menu.actions() if a.text()]
+    assert texts[0].startswith("Remove the branch to ")
+    assert any("Turn" in t for t in texts) and any("Delete" in t for t in texts)
+    assert shown.scene.selected_wire_ids() == [item.wire_id]
+    menu.actions()[0].trigger()
+    assert len(d.wire_by_name("y").targets) == len(item.routes) - 1
