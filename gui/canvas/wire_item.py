@@ -287,7 +287,7 @@ def _label_segment(pts) -> int:
         (x0, y0), (x1, y1) = pts[k], pts[k + 1]
         length = abs(x1 - x0) + abs(y1 - y0)
         horizontal = abs(y0 - y1) < 1e-9
-        if horizontal and length >= 40:
+        if horizontal and length >= 60:
             return k
         if length > best_len:
             best, best_len = k, length
