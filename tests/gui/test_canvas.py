@@ -11,7 +11,7 @@ from loopwright.gui.canvas.block_item import BlockItem
 from loopwright.gui.canvas.wire_item import WireItem
 from loopwright.gui.commands import AddBlock
 
-from gui_helpers import SAMPLES
+from gui_helpers import SAMPLES, apply_random_edit
 
 pytestmark = pytest.mark.qt
 
@@ -344,3 +344,46 @@ def test_the_context_menu_offers_the_canvas_commands_and_the_branch_under_the_cu
     assert shown.scene.selected_wire_ids() == [item.wire_id]
     menu.actions()[0].trigger()
     assert len(d.wire_by_name("y").targets) == len(item.routes) - 1
+
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+
+def _scene_matches_document(scene) -> None:
+    d = scene.document.diagram
+    assert set(scene.block_items) == set(d.blocks)
+    assert set(scene.wire_items) == set(d.wires)
+    for bid, item in scene.block_items.items():
+        lay = d.blocks[bid].layout
+        assert (item.pos().x(), item.pos().y()) == (float(lay["x"]), float(lay["y"]))
+        assert item.block is d.blocks[bid]
+    for wid, item in scene.wire_items.items():
+        assert len(item.routes) == len(d.wires[wid].targets)
+        assert item.label == d.wires[wid].name
+
+
+@settings(max_examples=15, deadline=None)
+@given(ops=st.lists(st.tuples(st.sampled_from(["add", "connect", "move", "turn", "delete", "paste", "undo", "redo"]),
+                              st.integers(0, 40)), min_size=1, max_size=16))
+def test_the_scene_mirrors_the_document_through_any_edits_undos_and_redos(qapp, ops):
+    # Property (common practice, no source): views follow the model exactly.
+    from loopwright.gui.canvas.scene import DiagramScene
+    from loopwright.gui.document import Document
+    from loopwright.gui.theme import theme_from_palette
+
+    doc = Document()
+    scene = DiagramScene(doc, theme_from_palette(dark=False))
+    kinds = ["plant", "gain", "sum", "source", "integrator", "estimator"]
+    for name, n in ops:
+        if name == "undo":
+            doc.undo_stack.undo()
+        elif name == "redo":
+            doc.undo_stack.redo()
+        elif name == "add":
+            apply_random_edit(doc, ("add", kinds[n % len(kinds)], 10 * n, -5 * n))
+        elif name == "connect":
+            apply_random_edit(doc, ("connect", n, n // 3))
+        elif name in ("move", "turn", "delete", "paste"):
+            apply_random_edit(doc, (name, n, n) if name == "move" else (name, n))
+        _scene_matches_document(scene)
