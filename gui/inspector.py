@@ -103,7 +103,7 @@ class MatrixEditor(QWidget):
         self.rows = QSpinBox()
         self.cols = QSpinBox()
         for s in (self.rows, self.cols):
-            s.setRange(0, 200)
+            s.setRange(0, 10000)
         self.table = QTableWidget()
         self.table.setObjectName(f"table_{name}")
         self.table.horizontalHeader().setDefaultSectionSize(62)
@@ -618,6 +618,27 @@ class Inspector(QWidget):
             edit.setObjectName(f"field_{key}")
             edit.editingFinished.connect(lambda k=key, e=edit: self._commit_waveform_field(k, e.text()))
             self._add(form, key, _FIELD_LABELS.get(key, key), edit)
+        if wf.get("kind") != "white":
+            val = p.get("intensity", "")
+            edit = QLineEdit(_num(val) if not isinstance(val, list) else repr(val))
+            edit.setObjectName("field_intensity")
+            edit.setPlaceholderText("none")
+            edit.setToolTip("intensity W of a random part riding on this waveform (used by the noise budget); leave empty for none")
+            edit.editingFinished.connect(lambda e=edit: self._commit_intensity(e.text()))
+            self._add(form, "intensity", "random part W", edit)
+
+    def _commit_intensity(self, text: str) -> None:
+        """The random part of a non-white source (for the noise budget); empty removes it."""
+        text = text.strip()
+        if not text:
+            self._commit_params("intensity", lambda p: p.pop("intensity", None), rebuild=False)
+            return
+        try:
+            value = _parse_number_or_list(text, field="intensity")
+        except ParameterError as err:
+            self._set_field_error("intensity", f"intensity: {err}")
+            return
+        self._commit_params("intensity", lambda p: p.__setitem__("intensity", value), rebuild=False)
 
     def _set_waveform_kind(self, kind: str) -> None:
         defaults = {

@@ -210,3 +210,25 @@ def test_wire_page_shows_the_width_once_the_live_model_has_it(doc_and_inspector)
     assert insp.fields["width_info"].text().startswith("unknown")
     insp.set_live_widths({u.id: 4})
     assert insp.fields["width_info"].text() == "4"
+
+
+def test_a_step_load_can_carry_a_random_part_and_lose_it_again(doc_and_inspector):
+    doc, insp = doc_and_inspector
+    dl = doc.diagram.block_by_name("dl")
+    insp.show_block(dl.id)
+    assert dl.params["waveform"]["kind"] != "white"
+    _commit(insp.fields["intensity"], "0.02")
+    assert doc.diagram.blocks[dl.id].params["intensity"] == 0.02
+    _commit(insp.fields["intensity"], "")
+    assert "intensity" not in doc.diagram.blocks[dl.id].params
+    _commit(insp.fields["intensity"], "lots")
+    assert "intensity" not in doc.diagram.blocks[dl.id].params
+    assert not insp.errors["intensity"].isHidden()
+
+
+def test_a_pasted_matrix_larger_than_usual_keeps_its_size(qtbot):
+    ed = MatrixEditor([[0.0]], name="A")
+    qtbot.addWidget(ed)
+    text = "\n".join("\t".join("1" for _ in range(3)) for _ in range(250))
+    assert ed.paste_text(text)
+    assert (ed.rows.value(), len(ed.value())) == (250, 250)
