@@ -346,6 +346,13 @@ class Inspector(QWidget):
             self.show_block(blk.id)
         return True
 
+    def _refresh_size(self) -> bool:
+        blk = self._doc.diagram.blocks.get(self._block_id)
+        label = self.fields.get("block_size")
+        if blk is not None and isinstance(label, QLabel):
+            label.setText(self._size_text(blk))
+        return True
+
     def _set_field_error(self, key: str, message: str | None) -> None:
         lab = self.errors.get(key)
         if lab is not None:
@@ -377,7 +384,32 @@ class Inspector(QWidget):
         self._add(form, "caption", "caption", cap)
         builder = getattr(self, f"_build_{blk.kind}")
         builder(form, blk)
+        size = QLabel(self._size_text(blk))
+        size.setObjectName("block_size")
+        size.setWordWrap(True)
+        self.fields["block_size"] = size
+        form.addRow("size", size)
         self._set_page(page)
+
+    def _size_text(self, blk) -> str:
+        """States and port widths as the engine reads the block (or why it cannot)."""
+        from loopwright.engine.blocks import realize
+
+        if blk.kind == "source":
+            from loopwright.engine.blocks import port_widths
+
+            try:
+                return f"output out: {port_widths(blk, self._doc.diagram)[1]['out']}"
+            except EngineError as err:
+                return f"unknown: {err}"
+        try:
+            r = realize(blk, self._doc.diagram)
+        except EngineError as err:
+            return f"unknown: {err}"
+        ins = ", ".join(f"{p}: {w}" for p, w in r.inputs) or "none"
+        outs = ", ".join(f"{p}: {w}" for p, w in r.outputs) or "none"
+        n = len(r.state_names)
+        return f"{n} state{'s' if n != 1 else ''}; inputs {ins}; outputs {outs}"
 
     def _add(self, form: QFormLayout, key: str, label: str, widget: QWidget) -> None:
         err = _error_label()
@@ -412,7 +444,8 @@ class Inspector(QWidget):
 
     def _matrix(self, form, blk, key: str, label: str | None = None) -> MatrixEditor:
         ed = MatrixEditor(blk.params.get(key, []), name=key)
-        ed.edited.connect(lambda val, k=key: self._commit_params(k, lambda p: p.__setitem__(k, val), rebuild=False))
+        ed.edited.connect(lambda val, k=key: self._commit_params(k, lambda p: p.__setitem__(k, val), rebuild=False)
+                          and self._refresh_size())
         self._add(form, key, label or key, ed)
         return ed
 
@@ -476,6 +509,7 @@ class Inspector(QWidget):
             self._set_field_error(key, f"{key}: {err}")
             return
         if self._commit_params(key, lambda p: p.__setitem__(key, rows[0]), rebuild=False):
+            self._refresh_size()
             blk = self._doc.diagram.blocks.get(self._block_id)
             label = self.fields.get("poles_zeros")
             if blk is not None and label is not None:

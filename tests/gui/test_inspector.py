@@ -232,3 +232,14 @@ def test_a_pasted_matrix_larger_than_usual_keeps_its_size(qtbot):
     text = "\n".join("\t".join("1" for _ in range(3)) for _ in range(250))
     assert ed.paste_text(text)
     assert (ed.rows.value(), len(ed.value())) == (250, 250)
+
+
+def test_the_block_page_states_the_size_the_engine_reads(doc_and_inspector):
+    doc, insp = doc_and_inspector
+    p = doc.diagram.block_by_name("P")
+    insp.show_block(p.id)
+    # The conveyor plant: 4 states, torque input u and load input d, one measured angle.
+    assert insp.fields["block_size"].text() == "4 states; inputs u: 1, d: 1; outputs y: 1"
+    est = doc.diagram.block_by_name("est")
+    insp.show_block(est.id)
+    assert insp.fields["block_size"].text().startswith("4 states; inputs u: 1, y: 1; outputs xhat: 4, yhat: 1")
