@@ -11,7 +11,7 @@ from pathlib import Path
 
 from PySide6.QtCore import QEvent, QPointF, QSettings, Qt, QTimer, Signal
 from PySide6.QtGui import QAction, QActionGroup, QGuiApplication, QKeySequence
-from PySide6.QtWidgets import QDockWidget, QLabel, QMainWindow, QStyle
+from PySide6.QtWidgets import QDockWidget, QLabel, QMainWindow, QStyle, QUndoView
 
 from loopwright.engine import CAUTION, __version__
 from loopwright.engine.diagram import Diagram
@@ -106,6 +106,12 @@ class MainWindow(QMainWindow):
         self.shelf_dock = self._dock("Shelf", "shelf_dock", self.shelf, Qt.DockWidgetArea.LeftDockWidgetArea)
         self.inspector_dock = self._dock("Inspector", "inspector_dock", self.inspector, Qt.DockWidgetArea.RightDockWidgetArea)
         self.problems_dock = self._dock("Problems", "problems_dock", self.problems, Qt.DockWidgetArea.BottomDockWidgetArea)
+        self.history = QUndoView(self.document.undo_stack)
+        self.history.setObjectName("history")
+        self.history.setEmptyLabel("(opened)")
+        self.history_dock = self._dock("History", "history_dock", self.history, Qt.DockWidgetArea.BottomDockWidgetArea)
+        self.tabifyDockWidget(self.problems_dock, self.history_dock)
+        self.problems_dock.raise_()
         self.live = LiveModel(self.document, debounce_ms=prefs.debounce_ms, parent=self)
         self.autosaver = Autosaver(prefs.autosave_dir)
         self._autosave_timer = QTimer(self)
@@ -117,6 +123,10 @@ class MainWindow(QMainWindow):
         self._model_label.setObjectName("model_status")
         self._model_label.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
         self.statusBar().addPermanentWidget(self._model_label, 1)
+        self._zoom_label = QLabel("100 %")
+        self._zoom_label.setObjectName("zoom_status")
+        self.statusBar().addPermanentWidget(self._zoom_label)
+        self.view.zoom_changed.connect(self._on_zoom_changed)
         self._build_actions()
         self._build_menus()
         self._build_toolbar()
@@ -247,7 +257,7 @@ class MainWindow(QMainWindow):
         for k in ("zoom_in", "zoom_out", "zoom_fit", "zoom_reset", None, "check_now"):
             m.addSeparator() if k is None else m.addAction(a[k])
         m.addSeparator()
-        for dock in (self.shelf_dock, self.inspector_dock, self.problems_dock):
+        for dock in (self.shelf_dock, self.inspector_dock, self.problems_dock, self.history_dock):
             m.addAction(dock.toggleViewAction())
         theme_menu = m.addMenu("Canvas &colours")
         group = QActionGroup(self)
@@ -276,6 +286,9 @@ class MainWindow(QMainWindow):
             self.resizeDocks([self.shelf_dock, self.inspector_dock], [190, 330], Qt.Orientation.Horizontal)
 
     # ---- title, status --------------------------------------------------------------------------
+    def _on_zoom_changed(self, scale: float) -> None:
+        self._zoom_label.setText(f"{scale * 100:.0f} %")
+
     def _show_refusal(self, message: str) -> None:
         self.statusBar().showMessage(message, 8000)
 

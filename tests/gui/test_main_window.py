@@ -257,3 +257,13 @@ def test_a_width_mismatch_marks_the_wire_with_the_engine_message(window, wait_li
     doc.push(SetParams(doc, k.block_id, {"K": [[1.0, 1.0]]}))
     wait_live(window)
     assert wire.problems == []
+
+
+def test_history_panel_lists_each_edit_and_zoom_is_shown(window):
+    window.document.push(AddBlock(window.document, "gain"))
+    window.document.push(AddBlock(window.document, "plant"))
+    model = window.history.model()
+    assert model.rowCount() == 3  # the opened state plus two edits
+    window.view.zoom_reset()
+    window.view.zoom_in()
+    assert window._zoom_label.text() == "120 %"
