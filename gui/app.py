@@ -91,6 +91,15 @@ def run_app(path: str | None, screenshot: str | None) -> int:
     if screenshot:
         import tempfile
 
+        from PySide6.QtCore import qInstallMessageHandler
+
+        def _quiet(mode, context, message):
+            # The offscreen platform reports on every show that it ignores size hints.
+            if "propagateSizeHints" not in message:
+                print(message, file=sys.stderr)
+
+        qInstallMessageHandler(_quiet)
+
         from loopwright.gui.settings import Preferences
 
         with tempfile.TemporaryDirectory(prefix="loopwright-shot-") as tmp:
