@@ -387,3 +387,38 @@ def test_the_scene_mirrors_the_document_through_any_edits_undos_and_redos(qapp, 
         elif name in ("move", "turn", "delete", "paste"):
             apply_random_edit(doc, (name, n, n) if name == "move" else (name, n))
         _scene_matches_document(scene)
+
+
+def test_a_loop_drawn_with_the_mouse_has_the_textbook_closed_loop_pole(shown, qtbot):
+    """Place from the shelf, connect by dragging, set K in the inspector; then check the model.
+
+    Reference: unity feedback of K / (s + 1) has its closed-loop pole at s = -(1 + K)
+    (closed form, derived by hand); python-control computes the poles of the assembled model.
+    """
+    import control as ct
+
+    from loopwright.engine.interconnect import assemble
+
+    sc, view, doc = shown.scene, shown.view, shown.document
+    view.zoom_reset()
+    view.centerOn(200, 60)
+    ids = {}
+    for name, kind, x, y, params in (
+        ("r", "source", 0, 0, None), ("e", "sum", 100, 0, None), ("K", "gain", 200, 0, None),
+        ("P", "plant", 330, 0, None),
+    ):
+        ids[name] = sc.place_block(kind, QPointF(x, y), params)
+    port = lambda b, p, inp: sc.block_items[ids[b]].port_scene_pos(p, is_input=inp)  # noqa: E731
+    _drag(qtbot, view, port("r", "out", False), port("e", "in1", True))
+    _drag(qtbot, view, port("e", "out", False), port("K", "in", True))
+    _drag(qtbot, view, port("K", "out", False), port("P", "u", True))
+    _drag(qtbot, view, port("P", "y", False), port("e", "in2", True))  # feedback into the bottom input
+    assert len(doc.diagram.wires) == 4
+    sc.select_ids([ids["K"]])
+    shown.inspector.fields["K"].table.item(0, 0).setText("4")
+    model = assemble(doc.diagram)
+    poles = ct.ss(model.A, model.B, model.C, model.D).poles()
+    assert sorted(poles.real) == pytest.approx([-5.0])
+    assert abs(poles.imag).max() == pytest.approx(0.0)
+    # The default junction signs are (+, -): negative feedback, as drawn.
+    assert doc.diagram.blocks[ids["e"]].params["signs"] == ["+", "-"]
