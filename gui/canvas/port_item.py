@@ -27,7 +27,7 @@ class PortItem(QGraphicsItem):
         self.is_input = is_input
         self.normal = normal
         self._theme = theme
-        self._target_state = 0  # 0 plain, 1 valid target, 2 under the cursor
+        self._target_state = 0  # 0 plain, 1 valid target, 2 target under the cursor, 3 hovered
         self.setAcceptHoverEvents(True)
         self.setCursor(Qt.CursorShape.CrossCursor)
         self.setZValue(2)
@@ -49,6 +49,18 @@ class PortItem(QGraphicsItem):
             self.setFlag(QGraphicsItem.GraphicsItemFlag.ItemHasNoContents, state == 0)
             self.update()
 
+    def hoverEnterEvent(self, event) -> None:
+        # A ring under the cursor says "a wire can start here"; a drag in progress owns
+        # the ring states, so hovering then changes nothing.
+        if self._target_state == 0:
+            self.set_target_state(3)
+        super().hoverEnterEvent(event)
+
+    def hoverLeaveEvent(self, event) -> None:
+        if self._target_state == 3:
+            self.set_target_state(0)
+        super().hoverLeaveEvent(event)
+
     def boundingRect(self) -> QRectF:
         return QRectF(-_R * 2, -_R * 2, _R * 4, _R * 4)
 
@@ -59,7 +71,11 @@ class PortItem(QGraphicsItem):
 
     def paint(self, painter, option, widget=None) -> None:
         t = self._theme
-        if self._target_state:
+        if self._target_state == 3:
+            painter.setPen(QPen(t.port, 1.2))
+            painter.setBrush(Qt.BrushStyle.NoBrush)
+            painter.drawEllipse(QPointF(0, 0), _R * 1.4, _R * 1.4)
+        elif self._target_state:
             colour = t.target_ok
             painter.setPen(QPen(colour, 2.0))
             painter.setBrush(QBrush(colour.lighter(150) if self._target_state == 2 else Qt.BrushStyle.NoBrush))

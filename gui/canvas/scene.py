@@ -291,6 +291,10 @@ class DiagramScene(QGraphicsScene):
 
     def _start_link(self, origin: QPointF, *, source: PortRef | None, target: PortRef | None) -> None:
         valid = self._valid_ends(from_input=target is not None)
+        for it in self.block_items.values():
+            for p in it.ports.values():
+                if p._target_state == 3:
+                    p.set_target_state(0)
         for p in valid:
             p.set_target_state(1)
         temp = QGraphicsPathItem()

@@ -422,3 +422,28 @@ def test_a_loop_drawn_with_the_mouse_has_the_textbook_closed_loop_pole(shown, qt
     assert abs(poles.imag).max() == pytest.approx(0.0)
     # The default junction signs are (+, -): negative feedback, as drawn.
     assert doc.diagram.blocks[ids["e"]].params["signs"] == ["+", "-"]
+
+
+def test_hovering_a_port_rings_it(shown, qtbot):
+    doc = shown.document
+    a = AddBlock(doc, "gain", layout={"x": 0, "y": 0})
+    doc.push(a)
+    shown.view.zoom_reset()
+    shown.view.centerOn(0, 0)
+    from PySide6.QtCore import QEvent
+    from PySide6.QtGui import QMouseEvent
+    from PySide6.QtWidgets import QApplication
+
+    port = shown.scene.block_items[a.block_id].port("out", is_input=False)
+    vp = shown.view.viewport()
+
+    def move_to(scene_pt):
+        local = QPointF(shown.view.mapFromScene(scene_pt))
+        ev = QMouseEvent(QEvent.Type.MouseMove, local, QPointF(vp.mapToGlobal(local.toPoint())),
+                         Qt.MouseButton.NoButton, Qt.MouseButton.NoButton, Qt.KeyboardModifier.NoModifier)
+        QApplication.sendEvent(vp, ev)
+
+    move_to(port.scenePos())
+    qtbot.waitUntil(lambda: port._target_state == 3, timeout=2000)
+    move_to(QPointF(300, 300))
+    qtbot.waitUntil(lambda: port._target_state == 0, timeout=2000)
