@@ -202,7 +202,9 @@ def _refine_peaks(red, Bt, Ct_all, Dg, grid, Y, sig_items, passes: int) -> dict:
                 new = np.linspace(w[i - 1], w[i + 1], 7)[1:-1]
             else:
                 continue
-            new = new[~np.isin(new, w)]
+            # drop points that coincide with samples already taken (linspace may reproduce
+            # an existing point up to rounding, which would make it its own neighbour)
+            new = new[np.all(np.abs(new[:, None] - w[None, :]) > 1e-12 * np.abs(new)[:, None], axis=1)]
             if new.size == 0:
                 continue
             key = new.tobytes()

@@ -181,3 +181,16 @@ def test_margins_cli_agrees_with_the_engine_on_a_sample(capsys):
     assert main(["margins", _path(SAMPLES[1]), "--json"]) == 0
     out = _json(capsys)
     assert_allclose(out["phase_margin_deg"], m.phase_margin_deg, rtol=1e-12)
+
+
+def test_time_impulse_of_the_oven_matches_the_engine(tmp_path, capsys):
+    from loopwright.engine.responses import impulse_response
+
+    f = _oven_file(tmp_path)
+    assert main(["time", f, "--impulse", "r", "--to", "y", "--t-end", "5", "--dt", "0.01", "--json"]) == 0
+    out = _json(capsys)
+    model = assemble(load(f))
+    A, B, C, D = model.pair("r", "y")
+    ref = impulse_response(A, B, C, D, np.array(out["t"])).y[:, 0, 0]
+    assert_allclose(out["y"]["y"], ref, rtol=1e-12, atol=1e-15)
+    assert "impulse on r" in out["kind"]

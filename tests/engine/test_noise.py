@@ -135,3 +135,17 @@ def test_no_white_sources_gives_an_empty_split():
     assert b.sources == {}
     assert "no source" in b.message
     assert b.line("P.y").rms == 0.0
+
+
+def test_vector_source_with_a_full_intensity_matrix():
+    # x' = -x + w1 + w2 with E[w w^T] = W delta: variance (W11 + 2 W12 + W22)/2 (common practice, no source)
+    W = [[2.0, 0.5], [0.5, 1.0]]
+    d = Diagram()
+    d.add_block("source", "w", {"role": "disturbance", "width": 2, "waveform": {"kind": "white", "intensity": W, "seed": 4}})
+    d.add_block("gain", "sumw", {"K": [[1.0, 1.0]]})
+    d.add_block("plant", "P", {"A": [[-1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]]})
+    d.connect("w.out", "sumw.in")
+    d.connect("sumw.out", "P.u")
+    b = noise_budget(assemble(d))
+    assert_allclose(b.line("P.y").rms ** 2, (2.0 + 1.0 + 1.0) / 2, rtol=1e-10)
+    assert b.line("w.out[1]").rms == np.inf
