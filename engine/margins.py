@@ -34,7 +34,7 @@ import numpy as np
 import scipy.linalg as sla
 import scipy.optimize as sopt
 
-from loopwright.engine.errors import AnalysisError, UnknownNameError
+from loopwright.engine.errors import AnalysisError
 from loopwright.engine.norms import is_stable_matrix, peak_gain
 from loopwright.engine.responses import _as_system, auto_frequency_grid, reduce_model, reduced_response
 from loopwright.engine.structure import minimal_realization, transmission_zeros

@@ -194,3 +194,23 @@ def test_time_impulse_of_the_oven_matches_the_engine(tmp_path, capsys):
     ref = impulse_response(A, B, C, D, np.array(out["t"])).y[:, 0, 0]
     assert_allclose(out["y"]["y"], ref, rtol=1e-12, atol=1e-15)
     assert "impulse on r" in out["kind"]
+
+
+def test_margins_on_a_vector_break_reports_each_loop_and_all_at_once(tmp_path, capsys):
+    # the spinning-drum loop of test_margins (demo data): each loop alone 1/s, together fragile
+    a = 6.0
+    d = Diagram()
+    d.add_block("plant", "drum", {"A": [[0.0, a], [-a, 0.0]], "B": [[1.0, 0.0], [0.0, 1.0]], "C": [[1.0, a], [-a, 1.0]], "D": [[0.0, 0.0], [0.0, 0.0]]})
+    d.add_block("gain", "Kneg", {"K": [[-1.0, 0.0], [0.0, -1.0]]})
+    d.connect("drum.y", "Kneg.in", name="rates")
+    d.connect("Kneg.out", "drum.u", name="torques")
+    f = tmp_path / "drum.lwd"
+    save(d, str(f))
+    assert main(["margins", str(f), "--at", "torques", "--json"]) == 0
+    out = _json(capsys)
+    assert out["kind"] == "vector"
+    assert set(out["channels"]) == {"torques[1]", "torques[2]"}
+    assert out["channels"]["torques[1]"]["gain_margin"] == [0.0, "inf"]
+    assert out["disk_margin_all_loops"]["alpha"] < 0.2
+    assert main(["margins", str(f), "--at", "torques"]) == 0
+    assert "all loops at once" in capsys.readouterr().out
