@@ -196,12 +196,66 @@ def lyapunov_from_schur(T_real: np.ndarray, Z_real: np.ndarray, Q: np.ndarray) -
     (n, n) ndarray
     """
     F = Z_real.T @ Q @ Z_real
-    Y, scale, info = sla.lapack.dtrsyl(T_real, T_real, -F, trana="N", tranb="T")
-    if info < 0:
-        raise ValueError(f"dtrsyl rejected argument {-info}")
-    Y = Y / scale
+    try:
+        Y = _sylvester_quasi_triangular(T_real, T_real, -F)
+    except _Rescaled:
+        # a leaf needed rescaling against overflow: solve in one piece, which reports
+        # one consistent scale
+        Y, scale, info = sla.lapack.dtrsyl(T_real, T_real, -F, trana="N", tranb="T")
+        if info < 0:
+            raise ValueError(f"dtrsyl rejected argument {-info}") from None
+        Y = Y / scale
     X = Z_real @ Y @ Z_real.T
     return 0.5 * (X + X.T)
+
+
+class _Rescaled(Exception):
+    pass
+
+
+# Leaves of the recursive Sylvester solver: LAPACK's unblocked solver below this size,
+# matrix products above it.
+_SYLV_LEAF = 64
+
+
+def _split(T: np.ndarray) -> int:
+    """A split point near the middle that does not cut a 2x2 block of a real Schur form."""
+    k = T.shape[0] // 2
+    if k > 0 and T[k, k - 1] != 0.0:
+        k += 1
+    return k
+
+
+def _sylvester_quasi_triangular(T1: np.ndarray, T2: np.ndarray, C: np.ndarray) -> np.ndarray:
+    """Solve ``T1 X + X T2^T = C`` for upper quasi-triangular ``T1`` (m, m), ``T2`` (n, n).
+
+    Recursive splitting (as in Jonsson & Kagstrom's recursive blocked algorithms, from
+    memory): halve the larger dimension, solve the trailing half, update the leading
+    right-hand side with one matrix product, solve the leading half. The arithmetic is
+    that of Bartels-Stewart; the updates run as matrix products instead of LAPACK's
+    level-2 loops.
+    """
+    m, n = C.shape
+    if m <= _SYLV_LEAF and n <= _SYLV_LEAF:
+        Y, scale, info = sla.lapack.dtrsyl(T1, T2, C, trana="N", tranb="T")
+        if info < 0:
+            raise ValueError(f"dtrsyl rejected argument {-info}")
+        if scale != 1.0:
+            raise _Rescaled
+        return Y
+    if m >= n:
+        k = _split(T1)
+        if k >= m:
+            k = m // 2 - 1 if m // 2 - 1 > 0 else m // 2
+        X2 = _sylvester_quasi_triangular(T1[k:, k:], T2, C[k:])
+        X1 = _sylvester_quasi_triangular(T1[:k, :k], T2, C[:k] - T1[:k, k:] @ X2)
+        return np.vstack([X1, X2])
+    k = _split(T2)
+    if k >= n:
+        k = n // 2 - 1 if n // 2 - 1 > 0 else n // 2
+    X2 = _sylvester_quasi_triangular(T1, T2[k:, k:], C[:, k:])
+    X1 = _sylvester_quasi_triangular(T1, T2[:k, :k], C[:, :k] - X2 @ T2[:k, k:].T)
+    return np.hstack([X1, X2])
 
 
 def h2_norm(A, B, C, D=None, *, minimal: bool = True) -> H2Norm:

@@ -150,3 +150,17 @@ def test_lyapunov_from_schur_agrees_with_scipy():
     Xb = lyapunov_from_schur(red.T_real, red.Z_real, (Q / S[:, None]) @ (Q / S[:, None]).T)
     X = S[:, None] * Xb * S[None, :]
     assert_allclose(X, sla.solve_continuous_lyapunov(A, -Q @ Q.T), rtol=1e-9, atol=1e-12)
+
+
+@pytest.mark.parametrize("n", [5, 70, 150])
+def test_recursive_lyapunov_solver_matches_scipy_across_the_leaf_size(n):
+    # sizes below, near and above the 64-state leaf of the recursive solver; scipy 1.17
+    # solve_continuous_lyapunov is the reference
+    import scipy.linalg as sla
+
+    rng = np.random.default_rng(n)
+    A = rng.standard_normal((n, n)) / np.sqrt(n) - 1.5 * np.eye(n)
+    Q = rng.standard_normal((n, 3))
+    T, Z = sla.schur(A, output="real")
+    X = lyapunov_from_schur(T, Z, Q @ Q.T)
+    assert_allclose(X, sla.solve_continuous_lyapunov(A, -Q @ Q.T), rtol=1e-9, atol=1e-12 * np.abs(X).max())
