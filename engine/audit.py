@@ -16,7 +16,7 @@ Frobenius-type H2 norm.
 Peak gains of different signals carry different units; the ranking is a worklist, not a
 verdict. ``peak_over_dc`` (resonance relative to the static gain) is reported alongside.
 
-**Speed:** ``A`` is reduced once (balanced complex Schur form); each input group is then
+**Speed:** ``A`` is reduced once (complex Schur form); each input group is then
 evaluated for all signals at once on one frequency grid, peaks are refined jointly by
 grid densification (up to 8 passes of 5 points inside each signal's bracket around its
 peak, each pass one batched solve shared by all signals; a peak at either end of the grid

@@ -155,7 +155,7 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
     if stable and srcs and n:
         red = reduce_model(model.A) if reduced is None else reduced
         S = red.scale
-        Cs = np.array([r[2] for r in rows]) * S[None, :]  # rows in balanced coordinates
+        Cs = np.array([r[2] for r in rows]) * S[None, :]  # rows in the reduction's (possibly balanced) coordinates
         for name, W in srcs.items():
             cols = model.inputs[name]
             Bw = model.B[:, cols] / S[:, None]

@@ -1,11 +1,14 @@
 """Frequency and time responses of a path ``(A, B, C, D)`` of the assembled model.
 
-Frequency responses reduce ``A`` once (balancing, then a real Schur form turned complex
-upper triangular) and solve the shifted triangular systems ``(s I - T) X = Z^H B`` for all
-frequencies together: a blocked back substitution whose off-diagonal work is matrix
-products across every frequency at once. The reduction is unitary, so each solve is
-backward stable; reusing one :class:`ReducedModel` across many input/output pairs is what
-makes the path audit cheap on large models.
+Frequency responses reduce ``A`` once to a unitary triangular (complex Schur) form, per
+strongly connected part when the model is a cascade, and solve the shifted triangular
+systems ``(s I - T) X = Z^H B`` for all frequencies together: a blocked back substitution
+whose off-diagonal work is matrix products across every frequency at once. The reduction
+is unitary, so each solve is backward stable; where the change of coordinates cancels
+(entries far below the response's peak, as on long chains) one step of iterative
+refinement in the original coordinates restores entry-wise relative accuracy. Reusing one
+:class:`ReducedModel` across many input/output pairs is what makes the path audit cheap
+on large models.
 
 Time responses use exact discretisation on a uniform grid: zero-order hold for
 piecewise-constant inputs, first-order hold for ramps and sines, both from one augmented
@@ -97,15 +100,16 @@ class ReducedModel:
     Attributes
     ----------
     T : (n, n) complex ndarray
-        Upper triangular (complex Schur form of the balanced ``A``).
+        Upper triangular (complex Schur form of ``S^-1 A S``).
     Z : (n, n) complex ndarray
         Unitary Schur vectors.
     scale : (n,) ndarray
-        Diagonal balancing similarity ``S`` (powers of two, exact).
+        Diagonal balancing similarity ``S`` (powers of two, exact; ones unless balancing
+        was asked for).
     T_real, Z_real : (n, n) ndarray
         The real Schur form and its orthogonal vectors (for Lyapunov solves).
     A_bal : (n, n) ndarray
-        The balanced ``S^-1 A S`` (for residuals in the original sparsity pattern).
+        ``S^-1 A S`` (for residuals in the original sparsity pattern).
     """
 
     T: np.ndarray
@@ -134,7 +138,7 @@ class ReducedModel:
 
 
 def reduce_model(A, *, balance: bool = False) -> ReducedModel:
-    """Balance ``A`` and reduce it to complex Schur form, once.
+    """Reduce ``A`` to complex Schur form, once (optionally balanced first).
 
     Parameters
     ----------
