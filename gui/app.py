@@ -17,9 +17,26 @@ def _application() -> QApplication:
     app = QApplication.instance()
     if app is None:
         app = QApplication(sys.argv[:1])
+        app.aboutToQuit.connect(_release_clipboard)
     app.setOrganizationName("Loopwright")
     app.setApplicationName("Loopwright")
     return app
+
+
+def _release_clipboard() -> None:
+    """Let go of a copied fragment before Qt shuts down.
+
+    With PySide6 6.12 the process crashes at exit while the clipboard still holds a
+    QMimeData made in Python; a fragment is only useful while Loopwright runs anyway.
+    """
+    from loopwright.gui.canvas.clipboard import FRAGMENT_MIME
+
+    app = QApplication.instance()
+    if app is None:
+        return
+    md = app.clipboard().mimeData()
+    if md is not None and md.hasFormat(FRAGMENT_MIME):
+        app.clipboard().clear()
 
 
 def make_window(path: str | None = None, *, settings: QSettings | None = None, prefs=None, dialogs=None):

@@ -24,6 +24,23 @@ def pytest_collection_modifyitems(config, items):
             item.add_marker(pytest.mark.qt_log_ignore(*_QT_NOISE))
 
 
+@pytest.fixture(scope="session", autouse=True)
+def _release_clipboard_at_exit():
+    """Empty the clipboard before the process ends.
+
+    With PySide6 6.12, a QMimeData made in Python and handed to the clipboard makes the
+    interpreter crash at exit unless the clipboard lets go of it first (the app does the
+    same on quit, see gui/app.py). Qt is looked up lazily: the headless job has none.
+    """
+    yield
+    import sys
+
+    widgets = sys.modules.get("PySide6.QtWidgets")
+    app = widgets.QApplication.instance() if widgets is not None else None
+    if app is not None:
+        app.clipboard().clear()
+
+
 class ScriptedDialogs:
     """Stands in for the window's dialogs: answers are set by the test, messages recorded."""
 
