@@ -178,29 +178,38 @@ def reduce_model(A, *, balance: bool = False) -> ReducedModel:
         return ReducedModel(np.triu(T), Z, scale, T_real, Z_real, Ab)
     # A cascade (chains of loops, prefilters, sources' shaping filters) is block triangular
     # up to a permutation: a Schur form of each diagonal block, placed at the permuted
-    # positions, is a Schur form of the whole matrix, at a fraction of the cost.
+    # positions, is a Schur form of the whole matrix, at a fraction of the cost. All the
+    # products below are block by block (O(n^2 b) for blocks of size b).
+    perm = np.concatenate(blocks)
+    Ap = Ab[np.ix_(perm, perm)]
+    starts = np.cumsum([0] + [idx.size for idx in blocks])
+    zr_list, u_list, tr_list, tc_list = [], [], [], []
+    for a, b in zip(starts[:-1], starts[1:]):
+        tr, zr = sla.schur(Ap[a:b, a:b], output="real")
+        tc, zc = sla.rsf2csf(tr, zr)
+        zr_list.append(zr)
+        u_list.append(zr.T @ zc)  # unitary: the real-to-complex Schur step of this block
+        tr_list.append(tr)
+        tc_list.append(np.triu(tc))
+    T_real = Ap.copy()
+    for (a, b), zr in zip(zip(starts[:-1], starts[1:]), zr_list):
+        T_real[a:b, :] = zr.T @ T_real[a:b, :]
+    for (a, b), zr in zip(zip(starts[:-1], starts[1:]), zr_list):
+        T_real[:, a:b] = T_real[:, a:b] @ zr
+    T = T_real.astype(complex)
+    for (a, b), u in zip(zip(starts[:-1], starts[1:]), u_list):
+        T[a:b, :] = u.conj().T @ T[a:b, :]
+    for (a, b), u in zip(zip(starts[:-1], starts[1:]), u_list):
+        T[:, a:b] = T[:, a:b] @ u
     Z_real = np.zeros((n, n))
     Z = np.zeros((n, n), dtype=complex)
-    diag_r, diag_c = [], []
-    pos = 0
-    for idx in blocks:
-        k = idx.size
-        tr, zr = sla.schur(Ab[np.ix_(idx, idx)], output="real")
-        tc, zc = sla.rsf2csf(tr, zr)
-        Z_real[idx, pos : pos + k] = zr
-        Z[idx, pos : pos + k] = zc
-        diag_r.append(tr)
-        diag_c.append(np.triu(tc))
-        pos += k
-    T_real = Z_real.T @ Ab @ Z_real
-    T = Z.conj().T @ Ab @ Z
-    pos = 0
-    for tr, tc in zip(diag_r, diag_c):
-        k = tr.shape[0]
-        T_real[pos : pos + k, pos : pos + k] = tr
-        T[pos : pos + k, pos : pos + k] = tc
-        T_real[pos + k :, pos : pos + k] = 0.0  # exactly zero: no coupling back up the cascade
-        pos += k
+    for (a, b), zr, u, tr, tc in zip(zip(starts[:-1], starts[1:]), zr_list, u_list, tr_list, tc_list):
+        idx = perm[a:b]
+        Z_real[idx, a:b] = zr
+        Z[idx, a:b] = zr @ u
+        T_real[a:b, a:b] = tr
+        T[a:b, a:b] = tc
+        T_real[b:, a:b] = 0.0  # exactly zero: no coupling back up the cascade
     return ReducedModel(np.triu(T), Z, scale, T_real, Z_real, Ab)
 
 
