@@ -335,3 +335,29 @@ def test_refinement_restores_relative_accuracy_far_below_the_peak():
     ref = np.ravel(ct.ss(A, B, C, 0)(1j * w))
     assert np.abs(ref).min() < 1e-30 * np.abs(ref).max()
     assert_allclose(ours, ref, rtol=1e-9)
+
+
+@settings(max_examples=20, deadline=None)
+@given(seed=st.integers(0, 10_000), sizes=st.lists(st.integers(1, 3), min_size=2, max_size=5))
+def test_frequency_response_of_random_cascades_matches_python_control(seed, sizes):
+    # block-triangular models (after a random permutation) take the per-part reduction
+    rng = np.random.default_rng(seed)
+    n = sum(sizes)
+    A = np.zeros((n, n))
+    pos = 0
+    for k in sizes:
+        blk = rng.standard_normal((k, k))
+        A[pos : pos + k, pos : pos + k] = blk - (np.max(np.linalg.eigvals(blk).real) + 0.5) * np.eye(k)
+        A[pos : pos + k, :pos] = rng.standard_normal((k, pos)) * (rng.random((k, pos)) < 0.6)
+        pos += k
+    perm = rng.permutation(n)
+    A = A[np.ix_(perm, perm)]
+    B = rng.standard_normal((n, 2))
+    C = rng.standard_normal((2, n))
+    D = rng.standard_normal((2, 2))
+    w = np.logspace(-2, 2, 30)
+    ref = np.moveaxis(ct.ss(A, B, C, D)(1j * w, squeeze=False), 2, 0)
+    assert_allclose(frequency_response(A, B, C, D, w), ref, rtol=1e-8, atol=1e-13 * np.abs(ref).max())
+    red = reduce_model(A)
+    assert_allclose(np.tril(red.T, -1), 0.0, atol=0)
+    assert_allclose(red.Z @ red.T @ red.Z.conj().T, A, atol=1e-12 * max(1.0, np.abs(A).max()))
