@@ -181,7 +181,7 @@ def _lti_matrices(block: Block) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.
     for k in ("B", "C"):
         if k not in p:
             raise ParameterError(f"{where}: state-space form needs {k}", field=k, block_ids=[block.id])
-    if "A" in p and np.size(p["A"]) > 0:
+    if "A" in p and not (isinstance(p["A"], list) and (not p["A"] or p["A"] == [[]])):
         A = as_matrix(p["A"], where=where, field="A", block_id=block.id, square=True)
     else:
         A = np.zeros((0, 0))
@@ -202,7 +202,9 @@ def _lti_matrices(block: Block) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.
 
 
 def _empty_or(value: Any, size: int, where: str, field: str, bid: str, *, axis: int) -> np.ndarray:
-    arr = np.array(value, dtype=float)
+    if value in ([], [[]]):
+        return np.zeros((0, 0))
+    arr = as_matrix(value, where=where, field=field, block_id=bid)
     if arr.size:
         raise ParameterError(f"{where}: {field} must be empty when A is empty", field=field, block_ids=[bid])
     return np.zeros((0, 0))

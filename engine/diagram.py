@@ -196,7 +196,7 @@ class Diagram:
             raise ParameterError(
                 f"block {name!r}: unknown block kind {kind!r}; expected one of {', '.join(BLOCK_KINDS)}", field="kind"
             )
-        self._check_new_name(name)
+        self.check_block_name(name)
         bid = block_id if block_id is not None else self._new_id("b")
         if bid in self.blocks:
             raise DiagramError(f"block id {bid!r} is already used")
@@ -205,7 +205,8 @@ class Diagram:
         self.blocks[bid] = Block(bid, kind, name, copy.deepcopy(params) if params is not None else default_params(kind), lay, caption)
         return bid
 
-    def _check_new_name(self, name: str, *, ignore: str | None = None) -> None:
+    def check_block_name(self, name: str, *, ignore: str | None = None) -> None:
+        """Raise unless ``name`` is a valid, free block name (``ignore``: the block being renamed)."""
         if not isinstance(name, str) or not _NAME_RE.match(name):
             raise ParameterError(
                 f"block name {name!r} is not valid: use letters, digits and '_', starting with a letter", field="name"
@@ -230,7 +231,7 @@ class Diagram:
         blk = self._block(block_id)
         if new_name == blk.name:
             return
-        self._check_new_name(new_name, ignore=block_id)
+        self.check_block_name(new_name, ignore=block_id)
         old = blk.name
         blk.name = new_name
         for w in self.wires.values():
@@ -304,7 +305,7 @@ class Diagram:
         wire = self.wire_from(src)
         if wire is None:
             wname = name or self._default_signal_name(src)
-            self._check_signal_name(wname)
+            self.check_signal_name(wname)
             wid = wire_id if wire_id is not None else self._new_id("w")
             wire = Wire(wid, wname, src, [])
             self.wires[wid] = wire
@@ -322,7 +323,8 @@ class Diagram:
             k += 1
         return out
 
-    def _check_signal_name(self, name: str, *, ignore: str | None = None) -> None:
+    def check_signal_name(self, name: str, *, ignore: str | None = None) -> None:
+        """Raise unless ``name`` is a valid signal name not carried by another wire."""
         if not isinstance(name, str) or not re.match(r"^[A-Za-z_][A-Za-z0-9_.]*$", name):
             raise ParameterError(f"signal name {name!r} is not valid: use letters, digits, '_' and '.'", field="name")
         for w in self.wires.values():
@@ -333,7 +335,7 @@ class Diagram:
         w = self._wire(wire_id)
         if w.name == new_name:
             return
-        self._check_signal_name(new_name, ignore=wire_id)
+        self.check_signal_name(new_name, ignore=wire_id)
         w.name = new_name
 
     def disconnect(self, wire_id: str, target: PortRef) -> bool:
@@ -358,7 +360,7 @@ class Diagram:
         """Put back a block removed earlier (undo)."""
         if block.id in self.blocks:
             raise DiagramError(f"block id {block.id!r} is already used")
-        self._check_new_name(block.name)
+        self.check_block_name(block.name)
         self.blocks[block.id] = copy.deepcopy(block)
 
     def set_wire_layout(self, wire_id: str, layout: dict[str, Any]) -> None:

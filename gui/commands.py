@@ -278,7 +278,7 @@ class RenameBlock(_Command):
     def __init__(self, doc, block_id: str, name: str):
         blk = doc.diagram.blocks[block_id]
         super().__init__(f"Rename {blk.name} to {name}")
-        doc.diagram._check_new_name(name, ignore=block_id)
+        doc.diagram.check_block_name(name, ignore=block_id)
         self._doc, self._bid, self._old, self._new = doc, block_id, blk.name, name
 
     def _redo(self) -> None:
@@ -305,7 +305,7 @@ class RenameWire(_Command):
     def __init__(self, doc, wire_id: str, name: str):
         w = doc.diagram.wires[wire_id]
         super().__init__(f"Rename signal {w.name} to {name}")
-        doc.diagram._check_signal_name(name, ignore=wire_id)
+        doc.diagram.check_signal_name(name, ignore=wire_id)
         self._doc, self._wid, self._old, self._new = doc, wire_id, w.name, name
 
     def _redo(self) -> None:

@@ -244,7 +244,7 @@ class Document(QObject):
             fed = d.wire_into(t)
             if fed is not None:
                 raise ConnectionError_(f"wire {wire.name!r}: {d.port_label(t)} is already fed by {fed.name!r}", wire_ids=[wire.id, fed.id])
-        d._check_signal_name(wire.name, ignore=wire.id)
+        d.check_signal_name(wire.name, ignore=wire.id)
         d.restore_wire(wire)
         self._bump()
         self.wire_added.emit(wire.id)

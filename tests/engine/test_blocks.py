@@ -108,3 +108,20 @@ def test_source_intensity_forms():
     assert_allclose(source_intensity(d.blocks[b]), np.diag([1, 2]))
     assert_allclose(source_intensity(d.blocks[c]), [[3]])
     assert source_intensity(d.blocks[e]) is None
+
+
+@pytest.mark.parametrize("field", ["A", "B", "C", "D"])
+def test_ragged_matrices_are_parameter_errors(field):
+    params = {"A": [[0, 1], [-2, -3]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]}
+    params[field] = [[1, 2], [3]]
+    d = Diagram()
+    b = d.add_block("plant", "P", params)
+    with pytest.raises(ParameterError, match=f"block 'P': {field} is not a numeric matrix"):
+        port_widths(d.blocks[b], d)
+
+
+def test_static_plant_without_states():
+    d = Diagram()
+    b = d.add_block("plant", "P", {"A": [], "B": [], "C": [], "D": [[2.0]]})
+    r = realize(d.blocks[b], d)
+    assert r.A.shape == (0, 0) and r.D.tolist() == [[2.0]]
