@@ -189,7 +189,14 @@ def _refine_peaks(red, Bt, Ct_all, Dg, grid, Y, sig_items, passes: int) -> dict:
             best[sig] = (0.0, 0.0)
             continue
         lo, hi = max(i - 1, 0), min(i + 2, grid.size)
-        local[sig] = (grid[lo:hi].copy(), g[lo:hi].copy())
+        # neighbours must be distinct points: step past near-duplicates of the peak
+        while lo > 0 and abs(grid[lo] - grid[i]) <= 1e-12 * grid[i]:
+            lo -= 1
+        while hi < grid.size and abs(grid[hi - 1] - grid[i]) <= 1e-12 * grid[i]:
+            hi += 1
+        w0, g0 = grid[lo:hi], g[lo:hi]
+        keep = np.concatenate([[True], np.diff(w0) > 1e-12 * np.abs(w0[1:])])
+        local[sig] = (w0[keep].copy(), g0[keep].copy())
     for _ in range(passes):
         plans: dict[bytes, tuple[np.ndarray, list[str]]] = {}
         for sig, (w, g) in local.items():

@@ -37,7 +37,7 @@ import scipy.optimize as sopt
 from loopwright.engine.errors import AnalysisError
 from loopwright.engine.norms import is_stable_matrix, peak_gain
 from loopwright.engine.responses import _as_system, auto_frequency_grid, reduce_model, reduced_response
-from loopwright.engine.structure import minimal_realization, transmission_zeros
+from loopwright.engine.structure import minimal_realization, structural_trim, transmission_zeros
 
 __all__ = [
     "DiskMargin",
@@ -628,8 +628,18 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0):
 
 
 def _trim_for_margins(A, B, C, D):
-    """Drop the states that neither reach nor see the loop, but only when every state is
-    stable: unstable hidden states must stay so the closed loop is reported unstable."""
+    """Drop the states that neither reach nor see the loop.
+
+    States off the loop structurally go first (exactly); if any of them is unstable the
+    whole model is kept, so the closed loop is still reported unstable. The numerically
+    hidden states are then removed only when every remaining state is stable.
+    """
+    keep = structural_trim(A, B, C)
+    if keep.size < A.shape[0]:
+        drop = np.setdiff1d(np.arange(A.shape[0]), keep)
+        if not is_stable_matrix(A[np.ix_(drop, drop)]):
+            return A, B, C, D
+        A, B, C = A[np.ix_(keep, keep)], B[keep], C[:, keep]
     if is_stable_matrix(A):
         return minimal_realization(A, B, C, D)
     return A, B, C, D

@@ -457,8 +457,10 @@ def auto_frequency_grid(
         parts.append(wd + half * np.linspace(-8.0, 8.0, 65))
         parts.append(np.array([wn, wn * np.sqrt(max(1.0 - 2.0 * zeta * zeta, 0.0))]))
     w = np.concatenate(parts)
-    w = w[(w >= w_lo) & (w <= w_hi) & (w > 0)]
-    return np.unique(w)
+    w = np.unique(w[(w >= w_lo) & (w <= w_hi) & (w > 0)])
+    # points equal up to rounding (w_n of one root, w_d of another) would be neighbours of
+    # themselves for the peak refinement
+    return w[np.concatenate([[True], np.diff(w) > 1e-12 * w[1:]])] if w.size else w
 
 
 def refine_grid_at_peaks(evaluate, w_rad_s: np.ndarray, gain: np.ndarray, *, passes: int = 4, points: int = 9):

@@ -16,6 +16,7 @@ from loopwright.engine.structure import (
     mode_table,
     observable_part,
     pole_damping,
+    structural_trim,
     transmission_zeros,
 )
 
@@ -112,3 +113,13 @@ def test_transmission_zeros_of_a_tall_system_are_the_common_ones():
     D = np.vstack([s1.D, s2.D])
     z = transmission_zeros(A, B, C, D)
     assert_allclose(z, [-3.0], atol=1e-7)
+
+
+def test_structural_trim_keeps_only_states_on_a_path():
+    # x1 -> x2 -> x3 chain; input on x2, output on x2: x1 cannot be reached, x3 cannot be seen
+    A = np.array([[-1.0, 0.0, 0.0], [1.0, -2.0, 0.0], [0.0, 1.0, -3.0]])
+    B = np.array([[0.0], [1.0], [0.0]])
+    C = np.array([[0.0, 1.0, 0.0]])
+    assert structural_trim(A, B, C).tolist() == [1]
+    assert structural_trim(A, B, np.array([[0.0, 0.0, 1.0]])).tolist() == [1, 2]
+    assert structural_trim(A, np.array([[1.0], [0.0], [0.0]]), C).tolist() == [0, 1]
