@@ -43,6 +43,8 @@ RANKING_RULE = "unstable paths first, then peak gain (largest first), then H2 no
 
 # A mode counts as reached/seen when its normalised coupling exceeds this.
 _COUPLING_TOL = 1e-8
+# A DC gain this small relative to the path's peak gain is rounding of an exact zero.
+_ROUNDING_ZERO = 1e-10
 
 
 @dataclass
@@ -335,8 +337,10 @@ def path_audit(
                 note = "a mode with Re(p) >= 0 is reached by the source and seen at the signal"
             else:
                 peak, wpk = best[sig]
-                if d_peak > peak:
-                    peak, wpk = d_peak, np.inf
+                # a sup reached only as w -> inf equals |D|; the refined grid then stops just
+                # short of it at some huge finite frequency, which would mislead
+                if d_peak >= peak * (1.0 - 1e-9):
+                    peak, wpk = max(d_peak, peak), np.inf
                 if np.any(Dg[sl] != 0):
                     h2 = np.inf
                     note = "direct feedthrough: H2 is infinite"
@@ -353,6 +357,10 @@ def path_audit(
             else:
                 dcm = dc_gain(A, Bg, C[sl], Dg[sl])
                 dc = float(np.linalg.norm(dcm, 2)) if np.all(np.isfinite(dcm)) else np.inf
+            if wpk == np.inf and np.isfinite(dc) and abs(dc - peak) <= 1e-9 * peak:
+                wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
+            if np.isfinite(dc) and np.isfinite(peak) and dc <= _ROUNDING_ZERO * peak:
+                dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
             if not bids and not unstable and peak <= 1e-13 * scale_ref:
                 continue
             names_b = [model.diagram.blocks[b].name for b in bids]

@@ -123,7 +123,7 @@ class AssembledModel:
             return name
         if f"inject:{name}" in self.inputs:
             return f"inject:{name}"
-        cands = list(self.sources) + list(self.signals)
+        cands = list(dict.fromkeys(list(self.sources) + list(self.signals)))
         sugg = difflib.get_close_matches(name, cands, n=3, cutoff=0.4)
         raise UnknownNameError(
             f"no input called {name!r}; inputs are the sources ({', '.join(self.sources) or 'none'}) "

@@ -127,3 +127,20 @@ def test_audit_of_a_large_chain_agrees_with_a_direct_evaluation():
     rows = {(r.source, r.signal): r for r in path_audit(model)}
     A, B, C, D = model.pair("r", "S11.y")
     assert_allclose(rows[("r", "S11.y")].peak_gain, peak_gain(A, B, C, D).value, rtol=1e-7)
+
+
+def test_feedthrough_peaks_are_at_infinity_and_rounding_zeros_are_zero():
+    # common practice, no source: a path whose sup is its feedthrough |D| peaks as w -> inf;
+    # a static path is flat (reported at w = 0); a zero at s = 0 gives an exact DC gain of 0
+    d = Diagram()
+    d.add_block("source", "r")
+    d.add_block("gain", "N", {"K": [[5.0]]})
+    d.add_block("dynamic", "F", {"num": [2.0, 0.0], "den": [1.0, 1.0]})  # 2 s/(s + 1): zero at 0, |D| = 2
+    d.add_block("dynamic", "H", {"num": [3.0, 1.0], "den": [1.0, 1.0]})  # (3 s + 1)/(s + 1): peak 3 as w -> inf
+    d.connect("r.out", "N.in")
+    d.connect("r.out", "F.u")
+    d.connect("r.out", "H.u")
+    rows = {r.signal: r for r in path_audit(assemble(d))}
+    assert rows["N.out"].peak_freq_rad_s == 0.0 and rows["N.out"].peak_gain == pytest.approx(5.0)
+    assert rows["F.y"].dc_gain == 0.0 and rows["F.y"].peak_freq_rad_s == np.inf
+    assert rows["H.y"].peak_gain == pytest.approx(3.0, rel=1e-9) and rows["H.y"].peak_freq_rad_s == np.inf
