@@ -148,7 +148,7 @@ class MatrixEditor(QWidget):
         self.table.setColumnCount(m)
         for i, r in enumerate(rows):
             for j, v in enumerate(r):
-                self.table.setItem(i, j, QTableWidgetItem(_num(v)))
+                self.table.setItem(i, j, _cell(v))
         for w in (self.rows, self.cols, self.table):
             w.blockSignals(False)
         self.table.resizeColumnsToContents()
@@ -181,6 +181,11 @@ class MatrixEditor(QWidget):
             for j in range(self.table.columnCount()):
                 item = self.table.item(i, j)
                 text = item.text().strip() if item is not None else ""
+                exact = item.data(_EXACT_ROLE) if item is not None else None
+                if exact is not None and text == _short_num(exact):
+                    # An untouched cell keeps the stored value, not its rounded display.
+                    row.append(float(exact))
+                    continue
                 try:
                     v = float(text)
                 except ValueError:
@@ -218,6 +223,28 @@ class MatrixEditor(QWidget):
             self.paste_text(QGuiApplication.clipboard().text())
             return True
         return super().eventFilter(obj, event)
+
+
+_EXACT_ROLE = Qt.ItemDataRole.UserRole + 1
+
+
+def _short_num(v) -> str:
+    """A matrix entry as shown: 10 significant digits, so a designed gain reads 1010,
+    not 1009.999999994998 (the full value stays in the cell and in its tooltip)."""
+    f = float(v)
+    return str(int(f)) if f.is_integer() and abs(f) < 1e15 else f"{f:.10g}"
+
+
+def _cell(v) -> QTableWidgetItem:
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return QTableWidgetItem(str(v))
+    item = QTableWidgetItem(_short_num(f))
+    item.setData(_EXACT_ROLE, f)
+    if _short_num(f) != _num(f):
+        item.setToolTip(_num(f))
+    return item
 
 
 def _num(v) -> str:

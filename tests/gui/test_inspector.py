@@ -243,3 +243,21 @@ def test_the_block_page_states_the_size_the_engine_reads(doc_and_inspector):
     est = doc.diagram.block_by_name("est")
     insp.show_block(est.id)
     assert insp.fields["block_size"].text().startswith("4 states; inputs u: 1, y: 1; outputs xhat: 4, yhat: 1")
+
+
+def test_a_designed_matrix_reads_rounded_but_untouched_cells_keep_their_exact_values(qtbot):
+    # A gain designed by a solver carries float round-off (1009.999999994998 for 1010);
+    # the table shows 10 significant digits and an edit of one cell leaves the others exact.
+    exact = [[1009.999999994998], [328599.9999972232], [0.1234567890123]]
+    ed = MatrixEditor(exact, name="L")
+    qtbot.addWidget(ed)
+    shown = [ed.table.item(i, 0).text() for i in range(3)]
+    assert shown == ["1010", "328600", "0.123456789"]
+    assert ed.table.item(0, 0).toolTip() == "1009.999999994998"
+    assert ed.value() == exact
+    seen = []
+    ed.edited.connect(seen.append)
+    ed.table.item(2, 0).setText("0.5")
+    assert seen[-1] == [[1009.999999994998], [328599.9999972232], [0.5]]
+    ed.table.item(0, 0).setText("1011")
+    assert seen[-1][0] == [1011.0]
