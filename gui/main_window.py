@@ -283,7 +283,7 @@ class MainWindow(QMainWindow):
             # Dock sizes only take once the window has its size: keep the canvas large.
             self._docks_sized = True
             self.resizeDocks([self.problems_dock], [110], Qt.Orientation.Vertical)
-            self.resizeDocks([self.shelf_dock, self.inspector_dock], [190, 330], Qt.Orientation.Horizontal)
+            self.resizeDocks([self.shelf_dock, self.inspector_dock], [200, 330], Qt.Orientation.Horizontal)
 
     # ---- title, status --------------------------------------------------------------------------
     def _on_zoom_changed(self, scale: float) -> None:

@@ -13,6 +13,7 @@ from PySide6.QtGui import QFont, QIcon, QPainter, QPixmap
 from PySide6.QtWidgets import QListWidget, QListWidgetItem, QAbstractItemView
 
 from loopwright.engine.diagram import Block, default_params
+from loopwright.gui.canvas.geometry import block_size
 from loopwright.gui.canvas.glyphs import paint_block
 from loopwright.gui.canvas.scene import BLOCK_MIME
 
@@ -35,15 +36,23 @@ SHELF_ENTRIES = [
 ]
 
 
+_PORT_ROOM = 6.0
+
+
 def _icon(kind: str, params: dict | None, theme, font: QFont) -> QIcon:
     pm = QPixmap(QSize(64, 40))
     pm.fill(Qt.GlobalColor.transparent)
     p = QPainter(pm)
     p.translate(32, 20)
-    p.scale(0.6, 0.6)
     name = {"plant": "P", "gain": "K", "estimator": "est", "dynamic": "C", "integrator": "I", "sum": "s"}.get(kind, "")
     blk = Block("icon", kind, name, params or default_params(kind), {"x": 0, "y": 0, "rotation": 0, "flip": False})
-    if kind == "source":
+    # Shrink each body to fit the icon with room for its port dots (the estimator is
+    # the widest block and was cut off at a common scale).
+    w, h = block_size(blk)
+    scale = min(0.6, (64.0 - 8.0) / (w + 2 * _PORT_ROOM), (40.0 - 4.0) / (h + 2 * _PORT_ROOM))
+    p.scale(scale, scale)
+    if kind in ("source", "dynamic", "integrator"):
+        # These draw their name outside the body, where the icon would cut it off.
         blk.name = ""
     paint_block(p, blk, theme, selected=False, problem=False, highlighted=False, font=font)
     p.end()
@@ -62,6 +71,9 @@ class Shelf(QListWidget):
         self.setDragDropMode(QAbstractItemView.DragDropMode.DragOnly)
         self.setIconSize(QSize(64, 40))
         self.setSpacing(2)
+        # Long names wrap instead of hiding behind a sideways scroll bar in a narrow dock.
+        self.setWordWrap(True)
+        self.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
         self._font = font or QFont("DejaVu Sans", 9)
         for label, kind, params, help_text in SHELF_ENTRIES:
             item = QListWidgetItem(_icon(kind, params, theme, self._font), label)

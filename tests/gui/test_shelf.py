@@ -7,6 +7,8 @@ import pytest
 
 from loopwright.engine.diagram import BLOCK_KINDS
 from loopwright.gui.canvas.scene import BLOCK_MIME
+from loopwright.gui.shelf import SHELF_ENTRIES, Shelf
+from loopwright.gui.theme import theme_from_palette
 
 pytestmark = pytest.mark.qt
 
@@ -31,3 +33,15 @@ def test_a_drag_carries_our_own_mime_type(window):
     md = window.shelf.mimeData([window.shelf.item(8)])
     spec = json.loads(bytes(md.data(BLOCK_MIME)).decode())
     assert spec["kind"] == "source" and spec["params"]["role"] == "noise"
+
+
+@pytest.mark.parametrize("row", range(len(SHELF_ENTRIES)), ids=[e[0] for e in SHELF_ENTRIES])
+def test_every_shelf_icon_fits_inside_its_square_with_nothing_cut_off(qtbot, row):
+    # A glyph clipped by the icon's edge leaves painted pixels on the outermost frame.
+    shelf = Shelf(theme_from_palette(dark=False))
+    qtbot.addWidget(shelf)
+    img = shelf.item(row).icon().pixmap(shelf.iconSize()).toImage()
+    w, h = img.width(), img.height()
+    frame = [(x, y) for x in range(w) for y in (0, h - 1)] + [(x, y) for y in range(h) for x in (0, w - 1)]
+    touched = [(x, y) for x, y in frame if img.pixelColor(x, y).alpha() > 0]
+    assert not touched, f"{SHELF_ENTRIES[row][0]}: painted up to the icon edge at {touched[:4]}"
