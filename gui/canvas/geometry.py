@@ -194,6 +194,10 @@ def route(
         corner = (b[0], a[1])
         if _sgn(b[1] - a[1]) == -_sgn(dq[1]) and _sgn(b[0] - a[0]) * dp[0] >= 0:
             pts = [a, corner, b]
+        elif gap_y is not None and _sgn(b[1] - gap_y) == -_sgn(dq[1]) and _sgn(gap_y - a[1]) != 0:
+            # Cross over in the free lane between the rows: a leg level with the port's
+            # stub would run along (or through) the blocks beside the destination.
+            pts = [a, (a[0], gap_y), (b[0], gap_y), b]
         else:
             pts = [a, (a[0], b[1]), b]
     else:

@@ -41,6 +41,16 @@ def test_a_wire_into_the_bottom_of_a_summing_junction_comes_up_from_below():
     assert pts[-2][0] == 0 and pts[-2][1] > 15  # last leg rises into the port
 
 
+def test_a_wire_from_a_lower_row_into_a_junction_from_below_crosses_in_the_lane_between_rows():
+    # Gain K sits below the forward row, unmirrored; its output turns back up into the
+    # junction's lower input. The leg level with the junction's stub (y = 29) would run
+    # along the bottom of a plant in the forward row (y from -28 to 28); the lane between
+    # the rows (y = 56.5) is free (common practice, no source).
+    pts = route((290, 120), (1, 0), (0, 15), (0, 1), gap_y=56.5)
+    assert pts == [(290, 120), (304.0, 120.0), (304.0, 56.5), (0.0, 56.5), (0, 15)]
+    assert _orthogonal(pts)
+
+
 @pytest.mark.parametrize(
     "rotation, flip, expected",
     [(0, False, (10, 2)), (90, False, (-2, 10)), (180, False, (-10, -2)), (0, True, (-10, 2)), (90, True, (-2, -10))],
