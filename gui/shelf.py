@@ -9,7 +9,7 @@ from __future__ import annotations
 import json
 
 from PySide6.QtCore import QByteArray, QMimeData, QSize, Qt, Signal
-from PySide6.QtGui import QFont, QIcon, QPainter, QPixmap
+from PySide6.QtGui import QFont, QIcon, QPainter, QPalette, QPixmap
 from PySide6.QtWidgets import QListWidget, QListWidgetItem, QAbstractItemView
 
 from loopwright.engine.diagram import Block, default_params
@@ -80,12 +80,22 @@ class Shelf(QListWidget):
             item.setData(Qt.ItemDataRole.UserRole, {"kind": kind, "params": params})
             item.setToolTip(f"{label}: {help_text}.\nDrag onto the canvas, or double-click to place.")
             self.addItem(item)
+        self._paint_background(theme)
         self.itemDoubleClicked.connect(self._on_double_clicked)
 
     def set_theme(self, theme) -> None:
-        """Repaint the icons in the canvas colours."""
+        """Repaint the icons, and the list behind them, in the canvas colours."""
         for row, (_label, kind, params, _help) in enumerate(SHELF_ENTRIES):
             self.item(row).setIcon(_icon(kind, params, theme, self._font))
+        self._paint_background(theme)
+
+    def _paint_background(self, theme) -> None:
+        # The icons are drawn in the canvas colours: on a list of the other brightness a
+        # dark-theme block would be a dark slab on white (or a light one on black).
+        pal = self.palette()
+        pal.setColor(QPalette.ColorRole.Base, theme.background)
+        pal.setColor(QPalette.ColorRole.Text, theme.text)
+        self.setPalette(pal)
 
     def spec(self, row: int) -> dict:
         return self.item(row).data(Qt.ItemDataRole.UserRole)

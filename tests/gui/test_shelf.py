@@ -45,3 +45,15 @@ def test_every_shelf_icon_fits_inside_its_square_with_nothing_cut_off(qtbot, row
     frame = [(x, y) for x in range(w) for y in (0, h - 1)] + [(x, y) for y in range(h) for x in (0, w - 1)]
     touched = [(x, y) for x, y in frame if img.pixelColor(x, y).alpha() > 0]
     assert not touched, f"{SHELF_ENTRIES[row][0]}: painted up to the icon edge at {touched[:4]}"
+
+
+def test_the_shelf_list_follows_the_canvas_colours_so_dark_icons_sit_on_a_dark_list(qtbot):
+    from PySide6.QtGui import QPalette
+
+    light, dark = theme_from_palette(dark=False), theme_from_palette(dark=True)
+    shelf = Shelf(light)
+    qtbot.addWidget(shelf)
+    assert shelf.palette().color(QPalette.ColorRole.Base) == light.background
+    shelf.set_theme(dark)
+    assert shelf.palette().color(QPalette.ColorRole.Base) == dark.background
+    assert shelf.palette().color(QPalette.ColorRole.Text) == dark.text
