@@ -15,7 +15,7 @@ from PySide6.QtWidgets import QGraphicsItem
 
 from loopwright.gui.canvas.geometry import route
 
-__all__ = ["WireItem"]
+__all__ = ["WireItem", "width_label_rect"]
 
 _HANDLE = 4.0
 
@@ -38,6 +38,7 @@ class WireItem(QGraphicsItem):
         self._label_rect = QRectF()
         self._label = ""
         self._width: int | None = None
+        self._caption_below = False
         self._problems: list[str] = []
         self._highlighted = False
         self._drag: tuple[int, int, list, QPointF] | None = None
@@ -103,6 +104,9 @@ class WireItem(QGraphicsItem):
         if src_item is None:
             return
         src_port = src_item.port(wire.source.port, is_input=False)
+        src_block = sc.document.diagram.blocks.get(wire.source.block)
+        # Round glyphs (sources, junctions) carry their caption just below the output.
+        self._caption_below = bool(src_block is not None and src_block.kind in ("source", "sum") and src_block.caption)
         p = src_item.port_scene_pos(wire.source.port, is_input=False)
         dp = src_port.normal if src_port is not None else (1.0, 0.0)
         bends = wire.layout.get("bends", {}) or {}
@@ -195,8 +199,8 @@ class WireItem(QGraphicsItem):
             f = QFont(self._font)
             f.setPointSizeF(self._font.pointSizeF() * 0.8)
             painter.setFont(f)
-            off = (-uy * 12 + 6 * ux, ux * 12) if abs(uy) > 0.5 else (2, 10)
-            painter.drawText(QRectF(cx + off[0] - 10, cy + off[1] - 2, 20, 14), Qt.AlignmentFlag.AlignCenter, str(self._width))
+            painter.drawText(width_label_rect(cx, cy, ux, uy, caption_below=self._caption_below), Qt.AlignmentFlag.AlignCenter,
+                             str(self._width))
         if self.isSelected():
             painter.setPen(QPen(t.selection, 1.0))
             painter.setBrush(QBrush(t.background))
@@ -269,6 +273,20 @@ class WireItem(QGraphicsItem):
         interior = [[float(x), float(y)] for x, y in self.routes[j][1:-1]]
         self._scene_ref.commit_wire_bends(self.wire_id, j, interior)
         event.accept()
+
+
+def width_label_rect(cx: float, cy: float, ux: float, uy: float, *, caption_below: bool = False) -> QRectF:
+    """Where the component count of a vector wire is written, beside its slash at (cx, cy).
+
+    ``(ux, uy)`` is the unit direction of the wire's first leg. On a horizontal leg the
+    number goes below the slash, or above it when the source block has its caption just
+    below the port (a source or a junction), so the two do not overprint.
+    """
+    if abs(uy) > 0.5:
+        off = (-uy * 12 + 6 * ux, ux * 12)
+    else:
+        off = (2.0, -16.0) if caption_below else (2.0, 10.0)
+    return QRectF(cx + off[0] - 10, cy + off[1] - 2, 20, 14)
 
 
 def _distance_to_route(x: float, y: float, pts) -> float:

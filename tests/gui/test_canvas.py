@@ -447,3 +447,28 @@ def test_hovering_a_port_rings_it(shown, qtbot):
     qtbot.waitUntil(lambda: port._target_state == 3, timeout=2000)
     move_to(QPointF(300, 300))
     qtbot.waitUntil(lambda: port._target_state == 0, timeout=2000)
+
+
+def test_the_width_of_a_vector_wire_from_a_captioned_source_is_written_above_the_caption_line(window, wait_live):
+    # The oven's set-point and its sensor-noise source have captions right below their
+    # output port: the component count goes above the slash there, below it elsewhere.
+    from loopwright.gui.canvas.glyphs import caption_rect
+    from loopwright.gui.canvas.wire_item import width_label_rect
+
+    window.open_sample(str(OVEN))
+    wait_live(window)
+    d = window.document.diagram
+    sc = window.scene
+    for signal in ("r", "v"):
+        w = d.wire_by_name(signal)
+        item = sc.wire_items[w.id]
+        assert item._caption_below
+        (x0, y0), (x1, y1) = item.routes[0][0], item.routes[0][1]
+        n = max(abs(x1 - x0), abs(y1 - y0))
+        ux, uy = (x1 - x0) / n, (y1 - y0) / n
+        d0 = min(9.0, n / 2)
+        rect = width_label_rect(x0 + ux * d0, y0 + uy * d0, ux, uy, caption_below=item._caption_below)
+        src = sc.block_items[w.source.block]
+        cap = src.mapRectToScene(caption_rect(d.blocks[w.source.block]))
+        assert not rect.intersects(cap), signal
+    assert not sc.wire_items[d.wire_by_name("uff").id]._caption_below  # a gain has no caption below its port
