@@ -8,6 +8,8 @@ from pathlib import Path
 from PySide6.QtCore import QSettings
 from PySide6.QtWidgets import QApplication
 
+from loopwright.gui.collector import install_collector
+
 __all__ = ["run_app", "make_window", "render_screenshot", "SCREENSHOT_SIZE"]
 
 SCREENSHOT_SIZE = (1400, 900)
@@ -18,6 +20,7 @@ def _application() -> QApplication:
     if app is None:
         app = QApplication(sys.argv[:1])
         app.aboutToQuit.connect(_release_clipboard)
+    install_collector(app)
     app.setOrganizationName("Loopwright")
     app.setApplicationName("Loopwright")
     return app

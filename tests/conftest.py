@@ -41,6 +41,22 @@ def _release_clipboard_at_exit():
         app.clipboard().clear()
 
 
+@pytest.fixture(autouse=True)
+def _collect_garbage_on_the_gui_thread(request):
+    """GUI tests run the live model on a worker thread: keep Python's cyclic collector on
+    the GUI thread (see gui/collector.py), and collect once after each test there."""
+    if "qapp" not in request.fixturenames and "qtbot" not in request.fixturenames:
+        yield
+        return
+    from loopwright.gui.collector import install_collector
+
+    install_collector(request.getfixturevalue("qapp"))
+    yield
+    import gc
+
+    gc.collect()
+
+
 class ScriptedDialogs:
     """Stands in for the window's dialogs: answers are set by the test, messages recorded."""
 
