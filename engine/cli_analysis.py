@@ -18,6 +18,9 @@ from loopwright.engine.interconnect import assemble
 
 __all__ = ["add_commands"]
 
+# A frequency grid beyond this many points is a typing slip, not a wish (memory grows with it).
+_MAX_POINTS = 200_000
+
 
 def add_commands(subparsers) -> None:
     """Add the analysis sub-commands to the ``loopwright`` parser."""
@@ -106,8 +109,10 @@ def _freq(args: argparse.Namespace) -> int:
     for name, v in (("--w-min", args.w_min), ("--w-max", args.w_max)):
         if v is not None and not v > 0:
             raise ParameterError(f"{name} must be a positive frequency in rad/s; got {v}", field=name)
-    if args.points is not None and args.points < 2:
-        raise ParameterError(f"--points must be at least 2; got {args.points}", field="--points")
+    if args.points is not None and not 2 <= args.points <= _MAX_POINTS:
+        raise ParameterError(f"--points must be from 2 to {_MAX_POINTS}; got {args.points}", field="--points")
+    if args.w_min is not None and args.w_max is not None and not args.w_max > args.w_min:
+        raise ParameterError(f"--w-max ({args.w_max}) must exceed --w-min ({args.w_min})", field="--w-max")
     if args.points is not None:
         auto = auto_frequency_grid(red.poles)
         lo = args.w_min if args.w_min is not None else auto[0]
@@ -332,7 +337,9 @@ def _audit(args: argparse.Namespace) -> int:
     model = assemble(diagram)
     rows = path_audit(model, injections=args.injections)
     if args.top is not None:
-        rows = rows[: max(0, args.top)]
+        if args.top < 1:
+            raise ParameterError(f"--top must be at least 1; got {args.top}", field="--top")
+        rows = rows[: args.top]
     if args.json:
         print_json({"file": args.file, "ranking": RANKING_RULE, "units": {"peak_freq": "rad/s"}, "rows": [r.as_dict() for r in rows], "caution": CAUTION})
         return 0

@@ -140,7 +140,11 @@ def _design(args: argparse.Namespace) -> int:
         key = "K" if r.kind == "gain" else "L"
         label = "feedforward" if r.method == "feedforward" else r.method
         print(f"\n  {r.block} ({r.kind}, {label}, plant {r.plant!r})")
-        print(f"    {key} = {_matrix_text(r.matrix)}")
+        if r.kind == "gain" and r.design is not None and not np.allclose(r.design.gain, r.matrix):
+            print(f"    K = {_matrix_text(r.design.gain)}  (design gain, u = -K x)")
+            print(f"    block matrix = {_matrix_text(r.matrix)}  (the sign of the feedback sits in the gain block)")
+        else:
+            print(f"    {key} = {_matrix_text(r.matrix)}")
         for other, params in r.linked.items():
             print(f"    also sets {other}: K = {_matrix_text(np.asarray(params['K']))} (integral action)")
         what = "closed-loop poles of its feedback" if r.method == "feedforward" else (
@@ -216,12 +220,21 @@ def _export(args: argparse.Namespace) -> int:
             tf = controller_transfer_function(cont)
             summary["transfer_function"] = {"num": tf["num"], "den": tf["den"], "poles": poles_to_json(tf["poles"]),
                                             "zeros": poles_to_json(tf["zeros"])}
-        if args.ts is not None and len(actuator) == 1 and cont.C.shape[0] == 1:
+        if args.ts is not None and len(actuator) == 1:
+            # a vector actuator is compared loop at a time: one component broken, the others closed
+            q = cont.C.shape[0]
+            names = [actuator[0]] if q == 1 else [f"{actuator[0]}[{k + 1}]" for k in range(q)]
             try:
-                cmp_ = sampled_loop_margins(diagram, measured=measured, actuator=actuator[0], ts=args.ts,
-                                            method=args.method, prewarp_rad_s=args.prewarp)
-                summary["margins"] = {"continuous": cmp_.continuous.as_dict(), "sampled": cmp_.sampled.as_dict(),
+                compared = {}
+                for ch, name in enumerate(names):
+                    cmp_ = sampled_loop_margins(diagram, measured=measured, actuator=actuator[0], ts=args.ts,
+                                                method=args.method, prewarp_rad_s=args.prewarp, channel=ch)
+                    compared[name] = {"continuous": cmp_.continuous.as_dict(), "sampled": cmp_.sampled.as_dict(),
                                       "sampled_minus_continuous": cmp_.delta}
+                if q == 1:
+                    summary["margins"] = compared[names[0]]
+                else:
+                    summary["margins_by_channel"] = compared
             except EngineError as err:
                 summary["margins_note"] = f"margins not compared: {err}"
     if fmt == "json":
@@ -248,9 +261,11 @@ def _export(args: argparse.Namespace) -> int:
     if "transfer_function" in summary:
         tf = summary["transfer_function"]
         print(f"  controller (as drawn, u = G(s) y): num {_vec(tf['num'])} / den {_vec(tf['den'])}")
-    if "margins" in summary:
-        c, s = summary["margins"]["continuous"], summary["margins"]["sampled"]
-        print("  margins at the actuator      continuous      sampled")
+    tables = {"": summary["margins"]} if "margins" in summary else summary.get("margins_by_channel", {})
+    for channel, table in tables.items():
+        c, s = table["continuous"], table["sampled"]
+        where = f"at {channel} (other components closed)" if channel else "at the actuator"
+        print(f"  margins {where:<20}  continuous      sampled")
         print(f"    phase margin (deg)      {fmt_num(c['phase_margin_deg']):>12}  {fmt_num(s['phase_margin_deg']):>12}")
         print(f"    delay margin (s)        {fmt_num(c['delay_margin_s']):>12}  {fmt_num(s['delay_margin_s']):>12}")
         print(f"    gain margin upper (dB)  {fmt_num(c['gain_margin_db'][1]):>12}  {fmt_num(s['gain_margin_db'][1]):>12}")

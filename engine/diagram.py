@@ -291,6 +291,12 @@ class Diagram:
                 f"(outputs: {', '.join(output_ports(s_blk)) or 'none'})",
                 block_ids=[s_blk.id],
             )
+        if d_blk.kind == "sum" and not isinstance(d_blk.params.get("signs"), list):
+            raise ConnectionError_(
+                f"summing junction {d_blk.name!r}: signs must be a list with one '+' or '-' per input, "
+                f"got {d_blk.params.get('signs')!r}",
+                block_ids=[d_blk.id],
+            )
         if dst.port not in input_ports(d_blk):
             raise ConnectionError_(
                 f"{d_blk.name}.{dst.port} is not an input port of {d_blk.kind} {d_blk.name!r} "

@@ -37,7 +37,7 @@ from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.discretize import DiscreteModel, discrete_frequency_response, discretize
 from loopwright.engine.errors import AnalysisError, DesignError
 from loopwright.engine.interconnect import AssembledModel, assemble
-from loopwright.engine.margins import LoopMargins, loop_margins, margins_from_response
+from loopwright.engine.margins import LoopMargins, _close_channels, loop_margins, margins_from_response
 from loopwright.engine.responses import auto_frequency_grid
 from loopwright.engine.structure import transmission_zeros
 
@@ -217,8 +217,8 @@ class SampledLoopComparison:
     delta: dict
 
 
-def _series_loop(K: LumpedModel, P: LumpedModel):
-    """State space of ``L = -K P`` (P first)."""
+def _series_loop(K, P):
+    """State space of ``L = -K P`` (P first); K and P carry ``A, B, C, D`` (continuous or discrete)."""
     nk, npl = K.A.shape[0], P.A.shape[0]
     A = np.block([[P.A, np.zeros((npl, nk))], [K.B @ P.C, K.A]])
     B = np.vstack([P.B, K.B @ P.D])
@@ -235,6 +235,7 @@ def sampled_loop_margins(
     ts: float,
     method: str = "zoh",
     prewarp_rad_s: float | None = None,
+    channel: int = 0,
     points: int = 3000,
 ) -> SampledLoopComparison:
     """How far the margins at the actuator fall when the controller runs sampled.
@@ -242,20 +243,26 @@ def sampled_loop_margins(
     The continuous loop ``L = -G_c P`` uses the lumped controller and the plant path; the
     sampled loop uses the controller discretised by ``method`` and the plant discretised
     by zero-order hold (the hold a DAC applies), evaluated at ``z = e^{j w T}`` on a grid up
-    to ``pi / T`` and fed to :func:`margins_from_response`.
+    to ``pi / T`` and fed to :func:`margins_from_response`. For a vector actuator signal the
+    loop is broken at component ``channel`` (0-based) with the other components closed, in
+    both the continuous and the sampled loop (loop at a time).
 
     Raises
     ------
     AnalysisError
-        The actuator signal is not scalar.
+        ``channel`` is not a component of the actuator signal, or the loop is not square.
     """
     K = lumped_controller(diagram, measured=measured, actuator=[actuator])
     P = plant_path(diagram, actuator=[actuator], measured=measured)
-    if K.C.shape[0] != 1:
-        raise AnalysisError(f"sampled-loop margins need a scalar actuator signal; {actuator!r} has {K.C.shape[0]} components")
-    cont = loop_margins(*_series_loop(K, P))
+    q = K.C.shape[0]
+    if not 0 <= channel < q:
+        raise AnalysisError(f"actuator {actuator!r} has {q} component(s); channel {channel + 1} does not exist")
+    if P.C.shape[0] != K.B.shape[1]:
+        raise AnalysisError(f"the loop at {actuator!r} is not square: the controller reads {K.B.shape[1]} signals, the plant gives {P.C.shape[0]}")
+    cont = loop_margins(*_close_channels(*_series_loop(K, P), channel))
     Kd = discretize(K.A, K.B, K.C, K.D, ts, method=method, prewarp_rad_s=prewarp_rad_s)
     Pd = discretize(P.A, P.B, P.C, P.D, ts, method="zoh")
+    Ad, Bd, Cd, Dd = _close_channels(*_series_loop(Kd, Pd), channel)
     w_nyq = np.pi / ts
     poles = np.concatenate([np.linalg.eigvals(K.A), np.linalg.eigvals(P.A)]) if (K.A.size or P.A.size) else np.zeros(0)
     if poles.size:
@@ -263,8 +270,8 @@ def sampled_loop_margins(
         poles = poles[np.abs(poles) > 1e-6 * max(1.0, float(np.max(np.abs(poles))))]
     grid = auto_frequency_grid(poles, w_max=w_nyq * (1 - 1e-9), points_per_decade=max(60, points // 8))
     grid = np.unique(np.concatenate([grid, np.linspace(grid[0], w_nyq * (1 - 1e-9), points)]))
-    Lz = -(discrete_frequency_response(Kd, grid) @ discrete_frequency_response(Pd, grid))[:, 0, 0]
-    zpoles = np.concatenate([np.linalg.eigvals(Kd.A), np.linalg.eigvals(Pd.A)]) if poles.size else np.zeros(0)
+    Lz = discrete_frequency_response(DiscreteModel(Ad, Bd, Cd, Dd, ts, method), grid)[:, 0, 0]
+    zpoles = np.linalg.eigvals(Ad) if Ad.size else np.zeros(0)
     # A repeated pole at s = 0 (a double integrator) maps to a defective pole at z = 1 that
     # eig only finds to about sqrt(machine epsilon); count it as an integrator, not unstable.
     near_one = np.abs(zpoles - 1.0) <= 1e-6

@@ -619,8 +619,14 @@ def loop_transfer(diagram, signal: str):
 def margins_at(diagram, signal: str, *, skew: float = 0.0):
     """Margins of the loop broken at ``signal``: :class:`LoopMargins` for a scalar signal,
     :class:`VectorLoopMargins` for a vector one."""
+    if not np.isfinite(skew):
+        raise AnalysisError(f"disk-margin skew must be a finite number; got {skew}")
     A, B, C, D = loop_transfer(diagram, signal)
     A, B, C, D = _trim_for_margins(A, B, C, D)
+    if not np.any(D) and (A.shape[0] == 0 or not np.any(B) or not np.any(C)):
+        raise AnalysisError(
+            f"no feedback loop passes through {signal!r}: a signal injected there never comes back, so there are no margins to compute"
+        )
     if D.shape[0] == 1:
         return loop_margins(A, B, C, D, skew=skew)
     names = [f"{signal}[{i + 1}]" for i in range(D.shape[0])]

@@ -180,6 +180,8 @@ def atomic_write(path: str | os.PathLike, data: str | bytes) -> None:
     over the target (``os.replace`` is atomic on POSIX and Windows).
     """
     p = Path(path)
+    if not p.parent.is_dir():
+        raise FileNotFoundError(2, f"folder {p.parent} does not exist", str(p.parent))
     mode = "wb" if isinstance(data, bytes) else "w"
     fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=p.parent if str(p.parent) else ".")
     try:

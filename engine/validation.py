@@ -68,13 +68,13 @@ def as_matrix(
         raise ParameterError(f"{where}: {field} is {arr.shape[0]}x{arr.shape[1]}, expected a square matrix", field=field, block_ids=ids)
     if rows is not None and arr.shape[0] != rows:
         raise ParameterError(
-            f"{where}: {field} has {arr.shape[0]} rows, expected {rows}{' (' + why_rows + ')' if why_rows else ''}",
+            f"{where}: {field} has {_count(arr.shape[0], 'row')}, expected {rows}{' (' + why_rows + ')' if why_rows else ''}",
             field=field,
             block_ids=ids,
         )
     if cols is not None and arr.shape[1] != cols:
         raise ParameterError(
-            f"{where}: {field} has {arr.shape[1]} columns, expected {cols}{' (' + why_cols + ')' if why_cols else ''}",
+            f"{where}: {field} has {_count(arr.shape[1], 'column')}, expected {cols}{' (' + why_cols + ')' if why_cols else ''}",
             field=field,
             block_ids=ids,
         )
@@ -105,6 +105,10 @@ def as_width(value: Any, *, where: str, field: str = "width", block_id: str | No
     if isinstance(value, bool) or not isinstance(value, (int, float)) or value != int(value) or not 1 <= value <= 10000:
         raise ParameterError(f"{where}: {field} is {value!r}, expected a whole number from 1 to 10000", field=field, block_ids=ids)
     return int(value)
+
+
+def _count(k: int, noun: str) -> str:
+    return f"{k} {noun}{'' if k == 1 else 's'}"
 
 
 _NP_CALL = re.compile(r"^\s*(?:np|numpy)\.(?:array|asarray|matrix)\s*\((.*)\)\s*$", re.S)

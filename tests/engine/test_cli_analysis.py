@@ -214,3 +214,23 @@ def test_margins_on_a_vector_break_reports_each_loop_and_all_at_once(tmp_path, c
     assert out["disk_margin_all_loops"]["alpha"] < 0.2
     assert main(["margins", str(f), "--at", "torques"]) == 0
     assert "all loops at once" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (["freq", "--from", "dl", "--to", "y", "--w-min", "10", "--w-max", "1"], "--w-max (1.0) must exceed --w-min (10.0)"),
+        (["freq", "--from", "dl", "--to", "y", "--points", "100000000"], "--points must be from 2 to"),
+        (["audit", "--top", "0"], "--top must be at least 1"),
+        (["margins", "--at", "r"], "no feedback loop passes through 'r'"),
+        (["margins", "--skew", "nan"], "skew must be a finite number"),
+    ],
+)
+def test_nonsense_options_get_one_line_and_exit_2(args, message, capsys):
+    from diagrams import sample_path
+    from loopwright.engine.cli import main
+
+    path = str(sample_path("levitated_rotor_axis.lwd"))
+    assert main([args[0], path, *args[1:]]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and message in err[0]

@@ -95,7 +95,7 @@ def test_a_matrix_of_the_wrong_size_is_refused_with_the_engine_reason_and_nothin
     before = doc.snapshot()
     insp.fields["B"].rows.setValue(1)  # B must have as many rows as A
     assert doc.diagram == before
-    assert "B has 1 rows, expected 4" in insp.fields["B"].error.text()
+    assert "B has 1 row, expected 4" in insp.fields["B"].error.text()
 
 
 def test_transfer_function_fields_show_poles_and_zeros(qtbot):
