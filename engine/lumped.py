@@ -116,9 +116,12 @@ def _cut_map(diagram: Diagram, cut: list[str], read: list[str], *, what: str) ->
         wire = work.wire_from(port)
         if wire is None or not wire.targets:
             raise DesignError(f"{what}: signal {sig!r} feeds no block, so nothing depends on it")
-        if work.blocks[port.block].kind == "source":
-            raise DesignError(f"{what}: signal {sig!r} comes straight from source {work.blocks[port.block].name!r}; choose a signal inside the loop")
         w = base.signals[sig].stop - base.signals[sig].start
+        if work.blocks[port.block].kind == "source":
+            # a reference read by the controller (feedforward): the source already is an input
+            new_sources.append(work.blocks[port.block].name)
+            widths.append(w)
+            continue
         name = work.unique_name("cut_" + "".join(ch if ch.isalnum() else "_" for ch in sig))
         bid = work.add_block("source", name, {"role": "reference", "width": w, "waveform": {"kind": "zero"}})
         wire.source = PortRef(bid, "out")

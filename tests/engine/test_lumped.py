@@ -170,3 +170,13 @@ def test_sampled_margins_of_a_vector_actuator_are_loop_at_a_time():
         assert abs(cmp_.delta["phase_margin_deg"]) < 0.5
     with pytest.raises(AnalysisError, match="channel 3 does not exist"):
         sampled_loop_margins(d, measured=["y_meas"], actuator="u", ts=0.01, channel=2)
+
+
+def test_controller_may_read_the_reference_for_its_feedforward():
+    # levitated-rotor sample: u = N r - K xhat; the reference column's feedthrough is N = 3750
+    # (the sample's feedforward gain), the measured column has none (common practice, no source)
+    d = load(sample_path("levitated_rotor_axis.lwd"))
+    k = lumped_controller(d, measured=["y_meas", "r"], actuator=["u"])
+    assert k.input_names == ("y_meas", "r")
+    assert_allclose(k.D, [[0.0, 3750.0]], atol=1e-9)
+    assert k.A.shape == (3, 3)
