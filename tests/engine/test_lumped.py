@@ -150,9 +150,9 @@ def test_vector_controller_of_oven_sample_has_two_inputs_two_outputs():
     [
         (["nope"], ["u"], UnknownNameError, "no signal called 'nope'"),
         (["u"], ["u"], DesignError, "both an input and an output"),
-        (["ref"], ["u"], DesignError, "straight from source"),
+        (["est.yhat"], ["u"], DesignError, "feeds no block"),
     ],
-    ids=["unknown-signal", "same-signal", "source-signal"],
+    ids=["unknown-signal", "same-signal", "unused-signal"],
 )
 def test_bad_controller_signals_are_rejected(measured, actuator, error, message):
     with pytest.raises(error, match=message):
