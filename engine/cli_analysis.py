@@ -128,8 +128,8 @@ def _freq(args: argparse.Namespace) -> int:
         G = evaluate(w)
     mag = magnitude_db(G)
     ph = phase_deg(G)
-    in_names = [model.input_names[i] for i in range(model.inputs[grp].start, model.inputs[grp].stop)]
-    out_names = [model.output_names[i] for i in range(model.signals[sig].start, model.signals[sig].stop)]
+    in_names = [model.input_names[i] for i in range(model.input_slice(grp).start, model.input_slice(grp).stop)]
+    out_names = [model.output_names[i] for i in range(model.signal_slice(sig).start, model.signal_slice(sig).stop)]
     elements = [(i, j, f"{out_names[i]} <- {in_names[j]}") for i in range(len(out_names)) for j in range(len(in_names))]
     scalar = len(elements) == 1
     if args.json:
@@ -216,11 +216,11 @@ def _time(args: argparse.Namespace) -> int:
     if not sigs:
         raise ParameterError("--to needs at least one signal name", field="--to")
     t = _time_grid(diagram, model, args.t_end, args.dt)
-    rows = [i for s in sigs for i in range(model.signals[s].start, model.signals[s].stop)]
+    rows = [i for s in sigs for i in range(model.signal_slice(s).start, model.signal_slice(s).stop)]
     out_names = [model.output_names[i] for i in rows]
     if args.step or args.impulse:
         grp = model.resolve_input(args.step or args.impulse)
-        cols = model.inputs[grp]
+        cols = model.input_slice(grp)
         fn = step_response if args.step else impulse_response
         res = fn(model.A, model.B[:, cols], model.C[rows], model.D[np.ix_(rows, range(cols.start, cols.stop))], t)
         in_names = list(model.input_names[cols])

@@ -102,7 +102,7 @@ def path_model(diagram: Diagram, input_name: str, signal: str, *, source: str | 
     group = m.resolve_input(input_name)
     sig = m.resolve_signal(signal)
     A, B, C, D = m.pair(group, sig)
-    cols, rows = m.inputs[group], m.signals[sig]
+    cols, rows = m.input_slice(group), m.signal_slice(sig)
     return ExportModel(
         "path", A, B, C, D, m.state_names, m.input_names[cols], m.output_names[rows],
         _origin(diagram, source) + f", path {group} -> {sig}",

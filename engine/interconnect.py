@@ -110,6 +110,14 @@ class AssembledModel:
     def n_states(self) -> int:
         return self.A.shape[0]
 
+    def input_slice(self, name: str) -> slice:
+        """Columns of an input group, or of one component of it (``"r[2]"``)."""
+        return _component(name, self.inputs, self.resolve_input, "input")
+
+    def signal_slice(self, name: str) -> slice:
+        """Rows of a signal, or of one component of it (``"u[1]"``)."""
+        return _component(name, self.signals, self.resolve_signal, "signal")
+
     def resolve_input(self, name: str) -> str:
         """Input group for ``name``: a source, ``inject:<signal>``, ``break:<signal>``, or a bare
         signal name (meaning the injection on that signal).
@@ -123,6 +131,9 @@ class AssembledModel:
             return name
         if f"inject:{name}" in self.inputs:
             return f"inject:{name}"
+        base, k = _split_component(name)
+        if k is not None and (base in self.inputs or f"inject:{base}" in self.inputs):
+            return name if base in self.inputs else f"inject:{name}"
         cands = list(dict.fromkeys(list(self.sources) + list(self.signals)))
         sugg = difflib.get_close_matches(name, cands, n=3, cutoff=0.4)
         raise UnknownNameError(
@@ -135,6 +146,9 @@ class AssembledModel:
         """``name`` if it is a signal; :class:`UnknownNameError` with suggestions otherwise."""
         if name in self.signals:
             return name
+        base, k = _split_component(name)
+        if k is not None and base in self.signals:
+            return name
         sugg = difflib.get_close_matches(name, list(self.signals), n=3, cutoff=0.4)
         raise UnknownNameError(
             f"no signal called {name!r}" + (f"; did you mean {', '.join(sugg)}?" if sugg else f"; signals: {', '.join(self.signals)}"),
@@ -143,9 +157,30 @@ class AssembledModel:
 
     def pair(self, input_group: str, signal: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """``(A, B, C, D)`` of the path from one input group to one signal (all components)."""
-        cols = self.inputs[self.resolve_input(input_group)]
-        rows = self.signals[self.resolve_signal(signal)]
+        cols = self.input_slice(input_group)
+        rows = self.signal_slice(signal)
         return self.A, self.B[:, cols], self.C[rows, :], self.D[rows, cols]
+
+
+def _split_component(name: str) -> tuple[str, int | None]:
+    """``"u[2]"`` -> ``("u", 2)``; a name without an index -> ``(name, None)``."""
+    if name.endswith("]") and "[" in name:
+        base, _, idx = name[:-1].rpartition("[")
+        if idx.isdigit():
+            return base, int(idx)
+    return name, None
+
+
+def _component(name: str, groups: dict[str, slice], resolve, what: str) -> slice:
+    key = resolve(name)
+    if key in groups:
+        return groups[key]
+    base, k = _split_component(key)
+    sl = groups[base]
+    width = sl.stop - sl.start
+    if not 1 <= k <= width:
+        raise UnknownNameError(f"{what} {base!r} has {width} component(s); {name!r} does not exist", suggestions=[f"{base}[1]"])
+    return slice(sl.start + k - 1, sl.start + k)
 
 
 def signal_names(diagram: Diagram) -> dict[PortRef, str]:

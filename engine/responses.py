@@ -833,8 +833,7 @@ def source_run(model, t, *, outputs=None, x0=None) -> TimeResult:
     else:
         rows = []
         for name in outputs:
-            sig = model.resolve_signal(name)
-            sl = model.signals[sig]
+            sl = model.signal_slice(name)
             rows.extend(range(sl.start, sl.stop))
     res = simulate(model.A, model.B, model.C[rows], model.D[rows], t, U, x0=x0, foh_columns=foh)
     res.output_names = [model.output_names[i] for i in rows]

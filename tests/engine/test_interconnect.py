@@ -232,3 +232,17 @@ def test_break_at_an_unknown_place_suggests_ports_and_signals():
     with pytest.raises(UnknownNameError) as info:
         assemble(stage_loop(), break_at="P.v")
     assert "P.u" in info.value.suggestions
+
+
+def test_one_component_of_a_vector_signal_can_be_picked():
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 2})
+    d.add_block("gain", "G", {"K": [[1.0, 2.0], [3.0, 4.0]]})
+    d.connect("r.out", "G.in", name="r")
+    m = assemble(d)
+    A, B, C, D = m.pair("r[2]", "G.out[1]")
+    assert_allclose(D, [[2.0]])
+    assert m.signal_slice("G.out[2]") == slice(m.signals["G.out"].start + 1, m.signals["G.out"].start + 2)
+    assert m.resolve_input("r[1]") == "r[1]"  # the source's own component, not the injection
+    with pytest.raises(UnknownNameError, match="has 2 component"):
+        m.pair("r[3]", "G.out")
