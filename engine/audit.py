@@ -149,15 +149,17 @@ def path_between(model, group: str, signal: str, graph=None, *, cache: dict | No
     cache = {} if cache is None else cache
     fkey = ("fwd", group)
     if fkey not in cache:
-        fwd = set(starts)
+        # hops from the source: every reachable block, and the order to list a path in
+        hops: dict[str, int] = {}
         for s in starts:
-            fwd |= nx.descendants(g, s)
-        cache[fkey] = fwd
+            for node, k in nx.single_source_shortest_path_length(g, s).items():
+                hops[node] = min(k, hops.get(node, k))
+        cache[fkey] = hops
     bkey = ("back", end)
     if bkey not in cache:
         cache[bkey] = nx.ancestors(g, end) | {end}
-    fwd, back = cache[fkey], cache[bkey]
-    nodes = fwd & back
+    hops, back = cache[fkey], cache[bkey]
+    nodes = set(hops) & back
     if "edges" not in cache:
         cache["edges"] = list(g.edges(keys=True))
     wids = [k for u, v, k in cache["edges"] if u in nodes and v in nodes]
@@ -168,7 +170,8 @@ def path_between(model, group: str, signal: str, graph=None, *, cache: dict | No
         if k not in seen:
             seen.add(k)
             wire_ids.append(k)
-    order = [b for b in d.blocks if b in nodes]
+    rank = {b: i for i, b in enumerate(d.blocks)}
+    order = sorted(nodes, key=lambda b: (hops[b], rank[b]))
     return order, wire_ids
 
 

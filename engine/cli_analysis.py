@@ -336,6 +336,7 @@ def _audit(args: argparse.Namespace) -> int:
     diagram = load_diagram(args.file)
     model = assemble(diagram)
     rows = path_audit(model, injections=args.injections)
+    total = len(rows)
     if args.top is not None:
         if args.top < 1:
             raise ParameterError(f"--top must be at least 1; got {args.top}", field="--top")
@@ -352,7 +353,8 @@ def _audit(args: argparse.Namespace) -> int:
             ["rank", "source", "signal", "peak_gain", "peak_freq_rad_s", "h2", "dc_gain", "stable", "blocks", "wires"],
         )
         return 0
-    print(f"{args.file}: path audit ({len(rows)} paths; {RANKING_RULE})")
+    shown = f"top {len(rows)} of {total} paths" if len(rows) < total else f"{total} paths"
+    print(f"{args.file}: path audit ({shown}; {RANKING_RULE})")
     _table(
         ["#", "source", "signal", "peak gain", "at (rad/s)", "H2", "DC gain", "stable", "blocks on the path"],
         [
