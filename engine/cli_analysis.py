@@ -74,9 +74,9 @@ def _format_flags(p) -> None:
 
 def _table(header: list[str], rows: list[list[str]], *, indent: str = "  ") -> None:
     widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)]
-    print(indent + "  ".join(h.rjust(w) if i else h.ljust(w) for i, (h, w) in enumerate(zip(header, widths))))
+    print((indent + "  ".join(h.rjust(w) if i else h.ljust(w) for i, (h, w) in enumerate(zip(header, widths)))).rstrip())
     for r in rows:
-        print(indent + "  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths))))
+        print((indent + "  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths)))).rstrip())
 
 
 # ---------------------------------------------------------------------------------------
