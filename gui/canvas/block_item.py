@@ -15,11 +15,12 @@ from loopwright.engine.diagram import Block, PortRef
 from loopwright.gui.canvas.geometry import SOURCE_RADIUS, SUM_RADIUS, port_spots
 from loopwright.gui.canvas.glyphs import body_rect, caption_rect, paint_block
 from loopwright.gui.canvas.port_item import PortItem
+from loopwright.gui.canvas.marking import Markable
 
 __all__ = ["BlockItem"]
 
 
-class BlockItem(QGraphicsItem):
+class BlockItem(Markable, QGraphicsItem):
     """One block; ``block_id`` ties it to the document."""
 
     Type = QGraphicsItem.UserType + 1
@@ -31,8 +32,7 @@ class BlockItem(QGraphicsItem):
         self._theme = theme
         self._font = font
         self._grid = grid
-        self._problems: list[str] = []
-        self._highlighted = False
+        self._init_marks()
         self._syncing = False
         self.ports: dict[tuple[str, bool], PortItem] = {}
         self.setFlags(
@@ -83,26 +83,10 @@ class BlockItem(QGraphicsItem):
             p.set_theme(theme)
         self.update()
 
-    def set_problems(self, messages: list[str]) -> None:
-        if messages != self._problems:
-            self._problems = list(messages)
-            self._refresh_tooltip()
-            self.update()
-
-    @property
-    def problems(self) -> list[str]:
-        return list(self._problems)
-
-    def set_highlighted(self, on: bool) -> None:
-        if on != self._highlighted:
-            self._highlighted = on
-            self.update()
-
     def _refresh_tooltip(self) -> None:
         b = self._block
         tip = f"{b.kind} {b.name}" + (f" — {b.caption}" if b.caption else "")
-        if self._problems:
-            tip += "\n" + "\n".join(f"⚠ {m}" for m in self._problems)
+        tip += self._problem_lines()
         self.setToolTip(tip)
 
     # ---- geometry ----------------------------------------------------------------------

@@ -14,13 +14,14 @@ from PySide6.QtGui import QBrush, QFont, QFontMetricsF, QPainterPath, QPainterPa
 from PySide6.QtWidgets import QGraphicsItem
 
 from loopwright.gui.canvas.geometry import route
+from loopwright.gui.canvas.marking import Markable
 
 __all__ = ["WireItem", "width_label_rect"]
 
 _HANDLE = 4.0
 
 
-class WireItem(QGraphicsItem):
+class WireItem(Markable, QGraphicsItem):
     """One wire; ``wire_id`` ties it to the document. Coordinates are scene coordinates."""
 
     Type = QGraphicsItem.UserType + 2
@@ -39,8 +40,7 @@ class WireItem(QGraphicsItem):
         self._label = ""
         self._width: int | None = None
         self._caption_below = False
-        self._problems: list[str] = []
-        self._highlighted = False
+        self._init_marks()
         self._drag: tuple[int, int, list, QPointF] | None = None
         self.setFlags(QGraphicsItem.GraphicsItemFlag.ItemIsSelectable)
         self.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
@@ -70,26 +70,10 @@ class WireItem(QGraphicsItem):
             self._rebuild_shape()
             self.update()
 
-    def set_problems(self, messages: list[str]) -> None:
-        if messages != self._problems:
-            self._problems = list(messages)
-            self._refresh_tooltip()
-            self.update()
-
-    @property
-    def problems(self) -> list[str]:
-        return list(self._problems)
-
-    def set_highlighted(self, on: bool) -> None:
-        if on != self._highlighted:
-            self._highlighted = on
-            self.update()
-
     def _refresh_tooltip(self) -> None:
         tip = f"signal {self._label}" + (f" ({self._width} components)" if self._width and self._width > 1 else "")
         tip += "\ndrag to branch off; double-click to rename"
-        if self._problems:
-            tip += "\n" + "\n".join(f"⚠ {m}" for m in self._problems)
+        tip += self._problem_lines()
         self.setToolTip(tip)
 
     # ---- routing -------------------------------------------------------------------------
