@@ -40,6 +40,10 @@ def add_commands(subparsers) -> None:
     mode.add_argument("--step", metavar="INPUT", default=None, help="unit step on this input")
     mode.add_argument("--impulse", metavar="INPUT", default=None, help="unit impulse on this input")
     mode.add_argument("--run", dest="run_sources", action="store_true", help="drive the diagram with its sources' own waveforms (default)")
+    mode.add_argument("--free", action="store_true", help="sources held at zero: the response to --initial alone")
+    p.add_argument("--initial", action="append", default=[], metavar="BLOCK=V[,V...]",
+                   help="initial state of one block's states (repeat per block); e.g. --initial P=0.001,0,0 "
+                        "with the estimator left at zero shows the estimation-error transient")
     p.add_argument("--to", dest="signals", required=True, metavar="SIGNAL[,SIGNAL]", help="signals to report, comma-separated")
     p.add_argument("--t-end", type=float, default=None, help="end time, s")
     p.add_argument("--dt", type=float, default=None, help="time step, s")
@@ -207,6 +211,26 @@ def _time_grid(diagram, model, t_end, dt) -> np.ndarray:
     return np.arange(N) * dt
 
 
+def _initial_state(model, specs: list[str]):
+    """``--initial BLOCK=V[,V...]`` options -> the model's initial state (None when none given)."""
+    from loopwright.engine.responses import initial_state
+
+    if not specs:
+        return None
+    values = {}
+    for spec in specs:
+        name, sep, text = spec.partition("=")
+        if not sep or not name.strip():
+            raise ParameterError(f"--initial {spec!r}: expected BLOCK=V[,V...]", field="--initial")
+        try:
+            values[name.strip()] = [float(v) for v in text.split(",") if v.strip()]
+        except ValueError as err:
+            raise ParameterError(f"--initial {spec!r}: the values must be numbers separated by commas", field="--initial") from err
+        if not values[name.strip()] or not np.all(np.isfinite(values[name.strip()])):
+            raise ParameterError(f"--initial {spec!r}: give finite numbers", field="--initial")
+    return initial_state(model, values)
+
+
 def _time(args: argparse.Namespace) -> int:
     from loopwright.engine.responses import impulse_response, source_run, step_response
 
@@ -218,7 +242,18 @@ def _time(args: argparse.Namespace) -> int:
     t = _time_grid(diagram, model, args.t_end, args.dt)
     rows = [i for s in sigs for i in range(model.signal_slice(s).start, model.signal_slice(s).stop)]
     out_names = [model.output_names[i] for i in rows]
-    if args.step or args.impulse:
+    x0 = _initial_state(model, args.initial)
+    if x0 is not None and (args.step or args.impulse):
+        raise ParameterError("--initial goes with --run or --free, not with --step or --impulse", field="--initial")
+    if args.free:
+        from loopwright.engine.responses import initial_response
+
+        if x0 is None:
+            raise ParameterError("--free needs at least one --initial BLOCK=V[,V...]", field="--free")
+        res = initial_response(model.A, model.C[rows], x0, t)
+        names, Y = out_names, res.y
+        kind = "free response from the initial state"
+    elif args.step or args.impulse:
         grp = model.resolve_input(args.step or args.impulse)
         cols = model.input_slice(grp)
         fn = step_response if args.step else impulse_response
@@ -232,9 +267,9 @@ def _time(args: argparse.Namespace) -> int:
             Y = res.y.reshape(res.y.shape[0], -1)
         kind = ("step" if args.step else "impulse") + f" on {grp}"
     else:
-        res = source_run(model, t, outputs=sigs)
+        res = source_run(model, t, outputs=sigs, x0=x0)
         names, Y = res.output_names, res.y
-        kind = "run driven by the sources' waveforms"
+        kind = "run driven by the sources' waveforms" + (" from the initial state" if x0 is not None else "")
     if args.json:
         print_json(
             {

@@ -234,3 +234,29 @@ def test_nonsense_options_get_one_line_and_exit_2(args, message, capsys):
     assert main([args[0], path, *args[1:]]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and message in err[0]
+
+
+def test_free_response_from_a_plant_initial_state_shows_the_estimation_error(capsys):
+    # y(t) = C e^{A t} x0 with x0 = (P.x = [1e-4, 0, 0], est.xhat = 0), checked against scipy's expm
+    # (closed form, common practice, no source); the estimate starts at zero and catches up
+    import json
+
+    import scipy.linalg as sla
+
+    from diagrams import sample_path
+    from loopwright.engine.cli import main
+    from loopwright.engine.interconnect import assemble
+    from loopwright.engine.project import load
+
+    path = str(sample_path("levitated_rotor_axis.lwd"))
+    assert main(["time", path, "--free", "--initial", "P=1e-4,0,0", "--to", "y,xhat", "--t-end", "0.05", "--dt", "0.001", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    m = assemble(load(path))
+    x0 = np.zeros(m.n_states)
+    x0[m.states["P"].start] = 1e-4
+    for k in (0, 10, 50):
+        t = out["t"][k]
+        z = m.C @ sla.expm(m.A * t) @ x0
+        assert_allclose(out["y"]["y"][k], z[m.signals["y"]][0], rtol=1e-9, atol=1e-15)
+        assert_allclose(out["y"]["xhat[1]"][k], z[m.signals["xhat"]][0], rtol=1e-9, atol=1e-15)
+    assert out["y"]["xhat[1]"][0] == 0.0 and abs(out["y"]["y"][-1] - out["y"]["xhat[1]"][-1]) < 1e-7
