@@ -59,3 +59,22 @@ def stage_servo(k_recipe=None, l_recipe=None, *, plant=STAGE, disturbance=None, 
     d.connect("ym.out", "est.y", name="y_meas")
     d.connect("est.xhat", "Kx.in", name="xhat")
     return d
+
+
+def stage_loop_named(*, linked: bool = True) -> Diagram:
+    """REFERENCES.md REF-03 with named wires (xhat, ufb, dist, plant_input, y) and a step
+    disturbance; ``linked=False`` gives the estimator its own copy of the plant model."""
+    stage = {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]}
+    d = Diagram()
+    d.add_block("source", "d", {"role": "disturbance", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0, "start": 0.0}})
+    d.add_block("plant", "P", dict(stage))
+    d.add_block("estimator", "est", {"plant": "P", "L": [[11], [30]]} if linked else {**stage, "L": [[11], [30]]})
+    d.add_block("gain", "Kx", {"K": [[-8, -4]]})
+    d.add_block("sum", "up", {"signs": ["+", "+"], "width": 1})
+    d.connect("est.xhat", "Kx.in", name="xhat")
+    d.connect("Kx.out", "up.in1", name="ufb")
+    d.connect("Kx.out", "est.u")
+    d.connect("d.out", "up.in2", name="dist")
+    d.connect("up.out", "P.u", name="plant_input")
+    d.connect("P.y", "est.y", name="y")
+    return d

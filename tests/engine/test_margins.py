@@ -9,6 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
+from diagrams import stage_loop_named
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import AnalysisError, UnknownNameError
 from loopwright.engine.margins import (
@@ -52,20 +53,8 @@ def _unity_loop(plant: dict, K: float, *, controller: dict | None = None) -> Dia
 
 
 def _stage_observer_loop() -> Diagram:
-    # REFERENCES.md REF-03
-    d = Diagram()
-    d.add_block("source", "d", {"role": "disturbance", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0, "start": 0.0}})
-    d.add_block("plant", "P", {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
-    d.add_block("estimator", "est", {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]], "L": [[11], [30]]})
-    d.add_block("gain", "Kx", {"K": [[-8, -4]]})
-    d.add_block("sum", "up", {"signs": ["+", "+"], "width": 1})
-    d.connect("est.xhat", "Kx.in", name="xhat")
-    d.connect("Kx.out", "up.in1", name="ufb")
-    d.connect("Kx.out", "est.u")
-    d.connect("d.out", "up.in2", name="dist")
-    d.connect("up.out", "P.u", name="plant_input")
-    d.connect("P.y", "est.y", name="y")
-    return d
+    # REFERENCES.md REF-03: air-bearing stage, K = [8, 4], L = [11, 30]
+    return stage_loop_named(linked=False)
 
 
 def _reactor_lqr_loop() -> Diagram:

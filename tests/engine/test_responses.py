@@ -9,6 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
+from diagrams import stage_loop_named
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import ParameterError, UnknownNameError
 from loopwright.engine.interconnect import assemble
@@ -243,19 +244,7 @@ def test_white_noise_run_reaches_the_discrete_stationary_variance():
 
 def _observer_stage_diagram() -> Diagram:
     # REFERENCES.md REF-03: air-bearing stage, K = [8, 4], L = [11, 30]
-    d = Diagram()
-    d.add_block("source", "d", {"role": "disturbance", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0, "start": 0.0}})
-    d.add_block("plant", "P", {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
-    d.add_block("estimator", "est", {"plant": "P", "L": [[11], [30]]})
-    d.add_block("gain", "Kx", {"K": [[-8, -4]]})
-    d.add_block("sum", "up", {"signs": ["+", "+"], "width": 1})
-    d.connect("est.xhat", "Kx.in", name="xhat")
-    d.connect("Kx.out", "up.in1", name="ufb")
-    d.connect("Kx.out", "est.u")
-    d.connect("d.out", "up.in2", name="dist")
-    d.connect("up.out", "P.u", name="plant_input")
-    d.connect("P.y", "est.y", name="y")
-    return d
+    return stage_loop_named(linked=True)
 
 
 def test_initial_state_by_block_shows_the_estimation_error_transient():
