@@ -324,14 +324,8 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
     nominal = stable_at(1.0)
     msg = ""
     if nominal:
-        lo_g, hi_g, lo_w, hi_w = 0.0, np.inf, np.nan, np.nan
-        for g, w in crit:
-            if g < 1.0 and g >= lo_g:
-                lo_g, lo_w = g, w
-            if g > 1.0 and g < hi_g:
-                hi_g, hi_w = g, w
-            if g == 1.0:
-                nominal = False
+        lo_g, hi_g, lo_w, hi_w = _nearest_critical_gains(crit)
+        nominal = all(g != 1.0 for g, _ in crit)
         if lo_g == 0.0:
             lo_w = np.nan
     if not nominal:
@@ -374,6 +368,21 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         disk=disk,
         message=msg,
     )
+
+
+def _nearest_critical_gains(crit) -> tuple[float, float, float, float]:
+    """The gain-margin interval around 1 from the critical gains ``(g, w)`` where ``g L(jw) = -1``.
+
+    Returns ``(g_lower, g_upper, w_lower, w_upper)``; ``0`` / ``inf`` (with ``nan``
+    frequencies) when nothing bounds that side.
+    """
+    lo_g, hi_g, lo_w, hi_w = 0.0, np.inf, np.nan, np.nan
+    for g, w in crit:
+        if g < 1.0 and g >= lo_g:
+            lo_g, lo_w = g, w
+        if g > 1.0 and g < hi_g:
+            hi_g, hi_w = g, w
+    return lo_g, hi_g, lo_w, hi_w
 
 
 def _nonsingular(A) -> bool:
@@ -535,12 +544,7 @@ def margins_from_response(
 
     nominal = stable_at(1.0)
     if nominal:
-        lo_g, hi_g, lo_w, hi_w = 0.0, np.inf, np.nan, np.nan
-        for g, wx in crit:
-            if g < 1.0 and g >= lo_g:
-                lo_g, lo_w = g, wx
-            if g > 1.0 and g < hi_g:
-                hi_g, hi_w = g, wx
+        lo_g, hi_g, lo_w, hi_w = _nearest_critical_gains(crit)
         msg = ""
     else:
         lo_g = hi_g = lo_w = hi_w = np.nan
