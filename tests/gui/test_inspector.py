@@ -29,6 +29,19 @@ def doc_and_inspector(qtbot):
     return doc, insp
 
 
+def _inspect_new_block(qtbot, kind: str):
+    """A fresh document with one new block of ``kind``, shown in an inspector."""
+    from loopwright.gui.document import Document
+
+    doc = Document()
+    cmd = AddBlock(doc, kind)
+    doc.push(cmd)
+    insp = Inspector(doc)
+    qtbot.addWidget(insp)
+    insp.show_block(cmd.block_id)
+    return doc, insp, cmd
+
+
 def _commit(edit: QLineEdit, text: str) -> None:
     edit.setText(text)
     edit.editingFinished.emit()
@@ -99,14 +112,7 @@ def test_a_matrix_of_the_wrong_size_is_refused_with_the_engine_reason_and_nothin
 
 
 def test_transfer_function_fields_show_poles_and_zeros(qtbot):
-    from loopwright.gui.document import Document
-
-    doc = Document()
-    cmd = AddBlock(doc, "dynamic")
-    doc.push(cmd)
-    insp = Inspector(doc)
-    qtbot.addWidget(insp)
-    insp.show_block(cmd.block_id)
+    doc, insp, cmd = _inspect_new_block(qtbot, "dynamic")
     _commit(insp.fields["num"], "1, 3")
     _commit(insp.fields["den"], "1, 3, 2")
     blk = doc.diagram.blocks[cmd.block_id]
@@ -120,14 +126,7 @@ def test_transfer_function_fields_show_poles_and_zeros(qtbot):
 
 
 def test_a_bad_coefficient_is_refused_next_to_the_field(qtbot):
-    from loopwright.gui.document import Document
-
-    doc = Document()
-    cmd = AddBlock(doc, "dynamic")
-    doc.push(cmd)
-    insp = Inspector(doc)
-    qtbot.addWidget(insp)
-    insp.show_block(cmd.block_id)
+    doc, insp, cmd = _inspect_new_block(qtbot, "dynamic")
     _commit(insp.fields["den"], "1, x")
     assert doc.diagram.blocks[cmd.block_id].params["den"] == [1.0, 1.0]
     err = insp.errors["den"]
