@@ -3,7 +3,6 @@ from __future__ import annotations
 
 import importlib.resources as ir
 
-import control as ct
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
@@ -13,6 +12,7 @@ from loopwright.engine.diagram import Diagram
 from loopwright.engine.interconnect import assemble
 from loopwright.engine.norms import dc_gain, h2_norm, peak_gain
 from loopwright.engine.project import load
+from reference_norms import h2_by_parseval
 
 SAMPLES = ["conveyor_flexible_drive.lwd", "levitated_rotor_axis.lwd", "two_zone_oven.lwd"]
 
@@ -43,13 +43,19 @@ def test_audit_rows_agree_with_single_path_norms(name):
         assert_allclose(r.dc_gain, np.linalg.norm(dc, 2), rtol=1e-7, atol=1e-9 * max(1.0, r.peak_gain))
 
 
-def test_audit_h2_matches_python_control_on_a_sample():
+def test_audit_h2_matches_the_frequency_domain_definition_on_a_sample():
+    # closed form: Parseval's integral (tests/reference_norms.py). python-control's norm(sys, 2)
+    # was fragile here: on OpenBLAS's Haswell kernels it returns inf with a warning.
     model = _sample("two_zone_oven.lwd")
+    checked = 0
     for r in path_audit(model)[:8]:
         if not np.isfinite(r.h2):
             continue
         A, B, C, D = model.pair(r.source, r.signal)
-        assert_allclose(r.h2, ct.norm(ct.ss(A, B, C, D), 2), rtol=1e-8)  # python-control 0.10.2
+        assert not np.any(D)
+        assert_allclose(r.h2, h2_by_parseval(A, B, C), rtol=1e-8, err_msg=f"{r.source}->{r.signal}")
+        checked += 1
+    assert checked >= 4
 
 
 def test_ranking_puts_unstable_paths_first_then_peak_gain_descending():

@@ -11,6 +11,7 @@ from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
 from diagrams import STAGE, stage_servo as stage_loop
+from reference_norms import h2_by_parseval
 from loopwright.engine.blocks import plant_matrices
 from loopwright.engine.design import normalize_poles, pole_mismatch
 from loopwright.engine.diagram import Diagram
@@ -224,7 +225,7 @@ def test_oven_sample_gains_agree_with_python_control():
 
 def test_noise_dominance_warning_reports_rms_equal_to_h2_norm_times_sqrt_intensity():
     # RMS of a white-noise-driven path = sqrt(W) * ||G||_2 (REFERENCES.md REF-08
-    # conventions); ||G||_2 by python-control 0.10.2 norm(..., 2).
+    # conventions); ||G||_2 from Parseval's integral (closed form, tests/reference_norms.py).
     import re
 
     d = stage_loop({"method": "place", "poles": [-5, -6]}, {"method": "place", "poles": [-6, -7]},
@@ -234,7 +235,7 @@ def test_noise_dominance_warning_reports_rms_equal_to_h2_norm_times_sqrt_intensi
     msg = next(w for w in {r.block: r for r in res}["Kx"].warnings if "dominates" in w)
     rms_noise, rms_other = (float(v) for v in re.findall(r"RMS ([0-9.eE+-]+) from noise sources vs ([0-9.eE+-]+)", msg)[0])
     model = assemble(out)
-    h2 = {src: ct.norm(ct.ss(*model.pair(src, "u_fb")), 2) for src in ("meas_noise", "dist")}
+    h2 = {src: h2_by_parseval(*model.pair(src, "u_fb")[:3]) for src in ("meas_noise", "dist")}
     assert_allclose(rms_noise, 0.5 * h2["meas_noise"], rtol=1e-3)  # message rounds to 4 digits
     assert_allclose(rms_other, 0.2 * h2["dist"], rtol=1e-3)
 
