@@ -21,6 +21,7 @@ __all__ = [
     "pair_frequency_response",
     "frequency_views",
     "singular_values",
+    "singular_value_views",
     "time_grid",
     "PairRun",
     "pair_time_response",
@@ -181,6 +182,19 @@ def singular_values(response: np.ndarray) -> np.ndarray:
     s = np.linalg.svd(safe, compute_uv=False)
     s[bad] = np.nan
     return s
+
+
+def singular_value_views(diagram, pairs) -> list:
+    """Per pair: ``(w_rad_s (k,), sigma_db (k, r))``, the singular values in dB largest
+    first, or the engine's message (a str) for a pair that cannot be computed."""
+    out = []
+    for resp in frequency_views(diagram, pairs):
+        if isinstance(resp, str):
+            out.append(resp)
+            continue
+        with np.errstate(divide="ignore"):
+            out.append((resp.w_rad_s, 20.0 * np.log10(singular_values(resp.response))))
+    return out
 
 
 # ---------------------------------------------------------------------------------------

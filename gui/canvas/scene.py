@@ -203,6 +203,13 @@ class DiagramScene(QGraphicsScene):
         for wid, item in self.wire_items.items():
             item.set_highlighted(wid in ws)
 
+    def set_tags(self, block_tags: dict, wire_tags: dict) -> None:
+        """Pin tags, ``{id: [(text, QColor), ...]}`` for blocks and wires; others lose theirs."""
+        for bid, item in self.block_items.items():
+            item.set_tags(block_tags.get(bid, []), self.font_)
+        for wid, item in self.wire_items.items():
+            item.set_tags(wire_tags.get(wid, []), self.font_)
+
     def set_theme(self, theme) -> None:
         self.theme = theme
         self.setBackgroundBrush(theme.background)
