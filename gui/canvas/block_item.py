@@ -139,6 +139,7 @@ class BlockItem(Markable, QGraphicsItem):
             g = self._grid
             return QPointF(round(value.x() / g) * g, round(value.y() / g) * g)
         if change == QGraphicsItem.GraphicsItemChange.ItemPositionHasChanged:
+            self._place_tags()
             scene = self.scene()
             if scene is not None and hasattr(scene, "block_item_moved"):
                 scene.block_item_moved(self)

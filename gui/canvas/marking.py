@@ -22,21 +22,32 @@ class Markable:
         if [(t.text, t.colour.name()) for t in self._tags] == [(text, c.name()) for text, c in tags]:
             return
         for t in self._tags:
-            t.setParentItem(None)
             if t.scene() is not None:
                 t.scene().removeItem(t)
-        self._tags = [TagItem(text, colour, font, parent=self) for text, colour in tags]
+        # Tags are top-level items (not children) so they draw above every block.
+        self._tags = [TagItem(text, colour, font) for text, colour in tags]
+        if self.scene() is not None:
+            for t in self._tags:
+                self.scene().addItem(t)
         self._place_tags()
+
+    def _drop_tags(self) -> None:
+        """Take the tags off the scene (the item itself is leaving it)."""
+        for t in self._tags:
+            if t.scene() is not None:
+                t.scene().removeItem(t)
+        self._tags = []
 
     @property
     def tags(self) -> list[str]:
         return [t.text for t in self._tags]
 
     def _place_tags(self) -> None:
-        """Line the tags up to the right of the item's tag anchor (see ``tag_anchor``)."""
+        """Line the tags up to the right of the item's tag anchor (``tag_anchor``, item coordinates)."""
         if not self._tags:
             return
-        x, y = self.tag_anchor()
+        anchor = self.mapToScene(*self.tag_anchor())
+        x, y = anchor.x(), anchor.y()
         for t in self._tags:
             t.setPos(x, y)
             x += t.width + 3

@@ -125,6 +125,7 @@ class DiagramScene(QGraphicsScene):
         item = self.block_items.pop(bid, None)
         self._wires_of.pop(bid, None)
         if item is not None:
+            item._drop_tags()
             self.removeItem(item)
 
     def _on_block_changed(self, bid: str) -> None:
@@ -142,6 +143,7 @@ class DiagramScene(QGraphicsScene):
         item = self.wire_items.pop(wid, None)
         self._unindex_wire(wid)
         if item is not None:
+            item._drop_tags()
             self.removeItem(item)
 
     def _on_wire_changed(self, wid: str) -> None:

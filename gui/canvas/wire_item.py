@@ -119,7 +119,7 @@ class WireItem(Markable, QGraphicsItem):
         self.update()
 
     def tag_anchor(self) -> tuple[float, float]:
-        """Where tags go: just after the signal name, on its line (scene coordinates)."""
+        """Where tags go: just after the signal name, on its line (the item's coordinates are the scene's)."""
         r = self._label_rect
         if r.isNull():
             pts = self.routes[0] if self.routes else [(0.0, 0.0)]

@@ -50,8 +50,9 @@ class AuditPanel(PlotPanel):
     def __init__(self, parent=None):
         super().__init__(parent)
         bar = QHBoxLayout()
-        self.injections = QCheckBox("also the injection on every signal")
+        self.injections = QCheckBox("with injections")
         self.injections.setObjectName("audit_injections")
+        self.injections.setToolTip("Also rank the paths from the injection on every signal")
         self.injections.toggled.connect(lambda _on: self.options_changed.emit())
         bar.addWidget(self.injections)
         bar.addStretch(1)
@@ -117,24 +118,8 @@ class AuditPanel(PlotPanel):
     def plot_scene_item(self):
         return None
 
-    def save_picture(self, path) -> None:
-        """The audit is a table: its picture is the widget as drawn."""
-        if str(path).lower().endswith(".svg"):
-            self._save_svg(path)
-        else:
-            self.grid.grab().save(str(path))
-
-    def _save_svg(self, path) -> None:
-        from PySide6.QtCore import QSize
-        from PySide6.QtSvg import QSvgGenerator
-        from PySide6.QtGui import QPainter
-
-        gen = QSvgGenerator()
-        gen.setFileName(str(path))
-        gen.setSize(QSize(self.grid.width(), self.grid.height()))
-        painter = QPainter(gen)
-        self.grid.render(painter)
-        painter.end()
+    def picture_widget(self):
+        return self.grid
 
     def table(self):
         return (["rank", "source", "signal", "peak_gain", "peak_freq_rad_s", "h2", "dc_gain", "stable", "blocks", "wires"],

@@ -12,7 +12,7 @@ from PySide6.QtGui import QColor
 from PySide6.QtWidgets import QComboBox, QHBoxLayout, QLabel
 
 from loopwright.engine.views_data import frequency_views
-from loopwright.gui.docks.panel import PlotPanel, new_layout_widget, pair_colour, pen_for, themed_plot
+from loopwright.gui.docks.panel import PlotPanel, elastic, new_layout_widget, pair_colour, pen_for, themed_plot
 from loopwright.gui.view_commands import input_label
 
 __all__ = ["FrequencyPanel", "AUDIT_COLOUR"]
@@ -41,6 +41,7 @@ class FrequencyPanel(PlotPanel):
         bar.addStretch(1)
         self.readout = QLabel("")
         self.readout.setObjectName("frequency_readout")
+        elastic(self.readout)
         self.readout.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
         bar.addWidget(self.readout, 3)
         self._layout.addLayout(bar)

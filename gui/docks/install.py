@@ -66,21 +66,15 @@ def install_views(window) -> None:
         window.view_docks[p.key] = dock
         window.views.add(p, dock)
     vd = window.view_docks
-    # two tab groups beside the problems list: responses on the left, loop questions on the
-    # right. A dock in a tab group cannot be split, so the history tab leaves for a moment.
+    # two tab groups beside the problems list: responses on the left, loop questions on the right
     bottom, across = Qt.DockWidgetArea.BottomDockWidgetArea, Qt.Orientation.Horizontal
-    window.removeDockWidget(window.history_dock)
-    window.removeDockWidget(window.problems_dock)
-    for dock in (window.problems_dock, vd["frequency"], vd["time"]):
+    for dock in (vd["frequency"], vd["time"]):
         window.addDockWidget(bottom, dock, across)
-        dock.show()
     for k in ("singular_values", "poles"):
         window.tabifyDockWidget(vd["frequency"], vd[k])
     for k in ("loop_break", "noise"):
         window.tabifyDockWidget(vd["time"], vd[k])
-    window.tabifyDockWidget(window.problems_dock, window.history_dock)
-    window.history_dock.show()
-    window.tabifyDockWidget(window.problems_dock, vd["audit"])
+    window.tabifyDockWidget(window.history_dock, vd["audit"])
     vd["frequency"].raise_()
     vd["time"].raise_()
     window.problems_dock.raise_()

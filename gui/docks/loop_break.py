@@ -7,11 +7,11 @@ from __future__ import annotations
 import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt
-from PySide6.QtWidgets import QComboBox, QHBoxLayout, QLabel, QSplitter, QTableWidget, QTableWidgetItem
+from PySide6.QtWidgets import QComboBox, QHBoxLayout, QLabel, QTableWidget, QTableWidgetItem
 
 from loopwright.engine.margins import LoopMargins
 from loopwright.engine.views_data import loop_break_view
-from loopwright.gui.docks.panel import PlotPanel, new_layout_widget, themed_plot
+from loopwright.gui.docks.panel import AdaptiveSplitter, PlotPanel, elastic, new_layout_widget, themed_plot
 
 __all__ = ["LoopBreakPanel", "margin_rows"]
 
@@ -51,21 +51,25 @@ class LoopBreakPanel(PlotPanel):
         bar = QHBoxLayout()
         self.where = QLabel("")
         self.where.setObjectName("loop_break_where")
+        elastic(self.where)
+        self.where.setMinimumWidth(90)
         bar.addWidget(self.where)
         bar.addStretch(1)
         bar.addWidget(QLabel("Show"))
         self.channel = QComboBox()
         self.channel.setObjectName("loop_break_channel")
+        self.channel.setSizeAdjustPolicy(QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
+        self.channel.setMinimumContentsLength(12)
         self.channel.currentIndexChanged.connect(self._draw)
         bar.addWidget(self.channel)
         self._layout.addLayout(bar)
-        split = QSplitter(Qt.Orientation.Horizontal)
+        split = AdaptiveSplitter()
         self.canvas = new_layout_widget()
         self.plot = themed_plot(self.canvas, 0, left="imaginary", bottom="real")
         self.plot.setAspectLocked(True)
         self.legend = self.plot.addLegend(offset=(10, 10), labelTextColor="#1f2933", brush=(255, 255, 255, 210))
-        self.curve = self.plot.plot(pen=pg.mkPen(_CURVE, width=2), name="L(jω), ω > 0")
-        self.mirror = self.plot.plot(pen=pg.mkPen(_CURVE, width=1, style=Qt.PenStyle.DashLine), name="ω < 0")
+        self.curve = self.plot.plot(pen=pg.mkPen(_CURVE, width=2), name="L(jω), ω positive")
+        self.mirror = self.plot.plot(pen=pg.mkPen(_CURVE, width=1, style=Qt.PenStyle.DashLine), name="ω negative")
         self.loci: list = []
         self.disk = self.plot.plot(pen=pg.mkPen("#c0392b", width=1.5, style=Qt.PenStyle.DashLine), name="disk-margin disk")
         self.critical = self.plot.plot([-1.0], [0.0], pen=None, symbol="+", symbolSize=16,
@@ -75,10 +79,10 @@ class LoopBreakPanel(PlotPanel):
         self.margins.setObjectName("loop_break_margins")
         self.margins.setHorizontalHeaderLabels(["margin", "value"])
         self.margins.verticalHeader().setVisible(False)
+        self.margins.setMinimumHeight(40)
         self.margins.horizontalHeader().setStretchLastSection(True)
         self.margins.setWordWrap(True)
         split.addWidget(self.margins)
-        split.setSizes([420, 300])
         self._layout.addWidget(split, 1)
         self.data = None
         self.set_message("No loop break: right-click a wire and choose “break the loop here”.")
@@ -131,7 +135,7 @@ class LoopBreakPanel(PlotPanel):
                 self.loci[i].setData(v.loci[:, i].real, v.loci[:, i].imag)
             d = v.margins.all_at_once
             rows = [("closed loop", "stable" if v.margins.closed_loop_stable else "UNSTABLE"),
-                    ("curves", "eigenvalues of L(jω), ω > 0"),
+                    ("curves", "eigenvalues of L(jω) for positive ω"),
                     ("disk margin α (all loops at once)", f"{_num(d.alpha)}: gain [{_num(d.gain_lower)}, {_num(d.gain_upper)}], phase ±{_num(d.phase_deg)}°"),
                     ("at", f"{_num(d.w_rad_s)} rad/s"),
                     ("peak sensitivity", f"{_num(v.margins.peak_sensitivity)} at {_num(v.margins.peak_sensitivity_w_rad_s)} rad/s")]

@@ -5,14 +5,13 @@ from __future__ import annotations
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtCore import Qt
 from PySide6.QtGui import QColor
-from PySide6.QtWidgets import QSplitter, QTableWidget, QTableWidgetItem
+from PySide6.QtWidgets import QTableWidget, QTableWidgetItem
 
 from loopwright.engine.interconnect import assemble
 from loopwright.engine.noise import noise_budget
 from loopwright.engine.views_data import noise_bars
-from loopwright.gui.docks.panel import PlotPanel, new_layout_widget, themed_plot
+from loopwright.gui.docks.panel import AdaptiveSplitter, PlotPanel, new_layout_widget, themed_plot
 
 __all__ = ["NoisePanel", "noise_view_data", "SOURCE_COLOURS"]
 
@@ -32,16 +31,16 @@ class NoisePanel(PlotPanel):
 
     def __init__(self, parent=None):
         super().__init__(parent)
-        split = QSplitter(Qt.Orientation.Horizontal)
+        split = AdaptiveSplitter()
         self.canvas = new_layout_widget()
-        self.plot = themed_plot(self.canvas, 0, left="RMS (split by share of variance)", bottom=None)
+        self.plot = themed_plot(self.canvas, 0, left="RMS", bottom=None)
         self.legend = self.plot.addLegend(offset=(-10, 10), labelTextColor="#1f2933", brush=(255, 255, 255, 210))
         split.addWidget(self.canvas)
         self.table_widget = QTableWidget(0, 0)
         self.table_widget.setObjectName("noise_table")
         self.table_widget.verticalHeader().setVisible(False)
+        self.table_widget.setMinimumHeight(40)
         split.addWidget(self.table_widget)
-        split.setSizes([420, 320])
         self._layout.addWidget(split, 1)
         self.bars: dict[str, pg.BarGraphItem] = {}
         self.shown: list = []
@@ -65,8 +64,7 @@ class NoisePanel(PlotPanel):
             if src not in self.bars:
                 item = pg.BarGraphItem(x=x, height=heights, y0=bottom, width=0.6, brush=QColor(SOURCE_COLOURS[k % len(SOURCE_COLOURS)]), name=src)
                 self.bars[src] = item
-                self.plot.addItem(item)
-                self.legend.addItem(item, src)
+                self.plot.addItem(item)  # named: the legend picks it up
             self.bars[src].setOpts(x=x, height=heights, y0=bottom.copy(), width=0.6)
             bottom = bottom + heights
         for src in [s for s in self.bars if s not in sources]:
@@ -76,6 +74,7 @@ class NoisePanel(PlotPanel):
         self.plot.getAxis("bottom").setTicks([[(float(i), b.name) for i, b in enumerate(bars)]])
         self._fill_table(budget, bars, sources)
         note = budget.message
+        note = (note + "; " if note else "") + "each bar is the RMS, split in proportion to each source's share of the variance"
         if self.pairs:
             note = (note + "; " if note else "") + "signals: the outputs of the kept pairs"
         else:

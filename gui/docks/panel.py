@@ -15,9 +15,9 @@ from pathlib import Path
 import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QAction, QColor
-from PySide6.QtWidgets import QFileDialog, QHBoxLayout, QLabel, QMenu, QProgressBar, QPushButton, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QSplitter, QFileDialog, QHBoxLayout, QLabel, QMenu, QProgressBar, QPushButton, QSizePolicy, QVBoxLayout, QWidget
 
-__all__ = ["PlotPanel", "PAIR_COLOURS", "pair_colour", "write_table_csv", "pen_for", "themed_plot", "new_layout_widget"]
+__all__ = ["PlotPanel", "PAIR_COLOURS", "pair_colour", "write_table_csv", "pen_for", "themed_plot", "new_layout_widget", "elastic", "AdaptiveSplitter"]
 
 # One colour per kept pair, the same in every panel and on the canvas; our own set,
 # chosen to stay apart from each other on light and dark backgrounds.
@@ -72,6 +72,7 @@ class PlotPanel(QWidget):
         self.message = QLabel("")
         self.message.setObjectName(f"{self.key}_message")
         self.message.setWordWrap(True)
+        self.message.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Preferred)
         self.message.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
         self._layout.addWidget(self.message)
         self.waiting = QWidget()
@@ -80,6 +81,7 @@ class PlotPanel(QWidget):
         bar = QProgressBar()
         bar.setRange(0, 0)  # busy: the engine gives no fraction done
         bar.setMaximumHeight(12)
+        bar.setMinimumWidth(30)
         bar.setTextVisible(False)
         row.addWidget(QLabel("computing…"))
         row.addWidget(bar, 1)
@@ -134,15 +136,40 @@ class PlotPanel(QWidget):
         menu.exec(event.globalPos())
 
     def save_picture(self, path: str | Path) -> None:
-        """Write the plot as PNG or SVG (by the file's suffix)."""
-        from pyqtgraph.exporters import ImageExporter, SVGExporter
+        """Write the plot as PNG or SVG (by the file's suffix).
 
+        SVG goes through Qt's own SVG painter (vector output); pyqtgraph's SVG exporter
+        fails on the closed paths of a filled legend box.
+        """
         path = str(path)
-        item = self.plot_scene_item()
-        exporter = SVGExporter(item) if path.lower().endswith(".svg") else ImageExporter(item)
-        if isinstance(exporter, ImageExporter):
+        widget = self.picture_widget()
+        if path.lower().endswith(".svg"):
+            from PySide6.QtCore import QPoint, QRect
+            from PySide6.QtGui import QPainter
+            from PySide6.QtSvg import QSvgGenerator
+
+            gen = QSvgGenerator()
+            gen.setFileName(path)
+            gen.setSize(widget.size())
+            gen.setViewBox(QRect(0, 0, widget.width(), widget.height()))
+            gen.setTitle(f"Loopwright {self.title}")
+            painter = QPainter(gen)
+            QWidget.render(widget, painter, QPoint(0, 0))  # the widget overload, also for a QGraphicsView
+            painter.end()
+        else:
+            from pyqtgraph.exporters import ImageExporter
+
+            item = self.plot_scene_item()
+            if item is None:
+                widget.grab().save(path)
+                return
+            exporter = ImageExporter(item)
             exporter.parameters()["width"] = max(800, int(item.boundingRect().width()))
-        exporter.export(path)
+            exporter.export(path)
+
+    def picture_widget(self) -> QWidget:
+        """The widget drawn into a picture (the plot area)."""
+        return self.canvas
 
     def save_data(self, path: str | Path) -> None:
         header, rows = self.table()
@@ -171,6 +198,7 @@ def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, 
     p.setLogMode(x=log_x, y=False)
     for side in ("left", "bottom"):
         ax = p.getAxis(side)
+        ax.enableAutoSIPrefix(False)  # a "(x0.001)" beside a unit is easy to miss
         ax.setPen(pg.mkPen("#5b6573"))
         ax.setTextPen(pg.mkPen("#1f2933"))
     return p
@@ -179,6 +207,30 @@ def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, 
 def new_layout_widget() -> pg.GraphicsLayoutWidget:
     w = pg.GraphicsLayoutWidget()
     w.setBackground("w")
-    w.setMinimumSize(200, 140)
+    w.setMinimumSize(160, 90)
     return w
+
+
+def elastic(label):
+    """Let a label of any length shrink with its panel (it elides instead of widening the window)."""
+    label.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Preferred)
+    label.setMinimumWidth(10)
+    return label
+
+
+class AdaptiveSplitter(QSplitter):
+    """Plot and table side by side when there is room, one above the other when narrow."""
+
+    def __init__(self, *, across_from: int = 720, parent=None):
+        super().__init__(Qt.Orientation.Horizontal, parent)
+        self._across_from = across_from
+        self.setChildrenCollapsible(False)
+
+    def resizeEvent(self, event) -> None:
+        want = Qt.Orientation.Horizontal if event.size().width() >= self._across_from else Qt.Orientation.Vertical
+        if want != self.orientation():
+            self.setOrientation(want)
+            total = event.size().width() if want == Qt.Orientation.Horizontal else event.size().height()
+            self.setSizes([int(total * 0.6), int(total * 0.4)])
+        super().resizeEvent(event)
 

@@ -10,7 +10,7 @@ from PySide6.QtWidgets import QLabel
 
 from loopwright.engine.check import pole_table, summarize
 from loopwright.engine.views_data import damping_guides
-from loopwright.gui.docks.panel import PlotPanel, new_layout_widget, themed_plot
+from loopwright.gui.docks.panel import PlotPanel, elastic, new_layout_widget, themed_plot
 
 __all__ = ["PoleMapPanel", "pole_map_data"]
 
@@ -45,6 +45,7 @@ class PoleMapPanel(PlotPanel):
         self._layout.addWidget(self.canvas, 1)
         self.readout = QLabel("Hover over a pole to read it.")
         self.readout.setObjectName("poles_readout")
+        elastic(self.readout)
         self._layout.addWidget(self.readout)
         self.closed = self.plot.plot(pen=None, symbol="x", symbolSize=12, symbolPen=pg.mkPen("#c0392b", width=2), name="closed loop")
         self.feedback = self.plot.plot(pen=None, symbol="o", symbolSize=15, symbolBrush=None,

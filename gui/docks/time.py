@@ -14,7 +14,7 @@ from PySide6.QtWidgets import QCheckBox, QComboBox, QHBoxLayout, QLabel, QLineEd
 
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.views_data import time_views
-from loopwright.gui.docks.panel import PlotPanel, new_layout_widget, pair_colour, pen_for, themed_plot
+from loopwright.gui.docks.panel import PlotPanel, elastic, new_layout_widget, pair_colour, pen_for, themed_plot
 from loopwright.gui.view_commands import input_label
 
 __all__ = ["TimePanel", "RUN_LABELS", "parse_initial"]
@@ -56,6 +56,8 @@ class TimePanel(PlotPanel):
         bar.addWidget(QLabel("Run"))
         self.kind = QComboBox()
         self.kind.setObjectName("time_kind")
+        self.kind.setSizeAdjustPolicy(QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
+        self.kind.setMinimumContentsLength(9)
         for k, label in RUN_LABELS.items():
             self.kind.addItem(label, k)
         self.kind.currentIndexChanged.connect(self._on_options)
@@ -66,8 +68,9 @@ class TimePanel(PlotPanel):
         self.initial.setToolTip("Initial state by block: BLOCK=V or BLOCK=V1,V2,...; items separated by ;. "
                                 "Start the plant and leave its estimator at zero to see the estimation error.")
         self.initial.editingFinished.connect(self._on_options)
+        self.initial.setMinimumWidth(60)
         bar.addWidget(self.initial, 1)
-        self.show_error_box = QCheckBox("estimation error")
+        self.show_error_box = QCheckBox("x − x̂")
         self.show_error_box.setObjectName("time_estimation_error")
         self.show_error_box.setToolTip("Also draw x − x̂ of every estimator linked to its plant")
         self.show_error_box.toggled.connect(self._on_options)
@@ -80,6 +83,7 @@ class TimePanel(PlotPanel):
         self.note = QLabel("")
         self.note.setObjectName("time_note")
         self.note.setWordWrap(True)
+        elastic(self.note)
         self._layout.addWidget(self.note)
         self.curves: dict[tuple, object] = {}
         self.runs: dict[tuple, object] = {}
