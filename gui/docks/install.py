@@ -81,6 +81,7 @@ def install_views(window) -> None:
     audit = window.panels["audit"]
     audit.path_selected.connect(lambda row: _show_audit_path(window, row))
     audit.summary_changed.connect(lambda text: window.statusBar().showMessage(text))
+    window.problems.view_requested.connect(lambda key: (window.view_docks[key].show(), window.view_docks[key].raise_()))
     _build_menus(window)
 
 

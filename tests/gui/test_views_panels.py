@@ -188,3 +188,17 @@ def test_views_stay_readable_at_800_by_600(window, wait_views, screenshot_dir):
         panel = _show(window, key, wait_views)
         assert panel.width() >= 150 and panel.height() >= 120, key
         window.grab().save(str(screenshot_dir / f"views_800x600_{key}.png"))
+
+
+def test_a_pole_warning_in_the_problems_list_opens_the_pole_map(window, wait_views):
+    from loopwright.gui.problems import view_for_warning
+
+    assert view_for_warning("2 poles on the imaginary axis: the loop is at best marginally stable") == "poles"
+    assert view_for_warning("block 'K' is stale") is None
+    window.show()
+    window.problems.set_problems([], warnings=("closed-loop poles differ from eig(A - B K) with eig(A - L C)",))
+    window.view_docks["frequency"].raise_()
+    item = window.problems.item(0)
+    assert "pole map" in item.text()
+    window.problems._on_clicked(item)
+    assert not window.view_docks["poles"].visibleRegion().isEmpty()
