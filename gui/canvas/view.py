@@ -48,7 +48,7 @@ class DiagramView(QGraphicsView):
         self._editor: QLineEdit | None = None
         self.hint_text = EMPTY_HINT
         # Set by the window: ``provider(kind, id, branch_target) -> [(text, slot), ...]``, the
-        # analysis picks ("look here", ...) offered first in a block's or wire's menu.
+        # analysis picks ("look here", ...) offered in a block's or wire's menu.
         self.pick_provider = None
 
     # ---- zoom and pan ----------------------------------------------------------------------
@@ -241,6 +241,13 @@ class DiagramView(QGraphicsView):
             item.setSelected(True)
         menu = QMenu(self)
         j = item.branch_at(self.mapToScene(pos)) if isinstance(item, WireItem) else None
+        if isinstance(item, WireItem):
+            wire = self.scene().document.diagram.wires.get(item.wire_id)
+            if j is not None and wire is not None:
+                target = wire.targets[j]
+                label = self.scene().document.diagram.port_label(target)
+                menu.addAction(f"Remove the branch to {label}", lambda: self.scene().remove_branch(item.wire_id, target))
+                menu.addSeparator()
         if item is not None and self.pick_provider is not None:
             wire = self.scene().document.diagram.wires.get(item.wire_id) if isinstance(item, WireItem) else None
             target = wire.targets[j] if wire is not None and j is not None else None
@@ -249,13 +256,6 @@ class DiagramView(QGraphicsView):
             for text, slot in picks:
                 menu.addAction(text, slot)
             if picks:
-                menu.addSeparator()
-        if isinstance(item, WireItem):
-            wire = self.scene().document.diagram.wires.get(item.wire_id)
-            if j is not None and wire is not None:
-                target = wire.targets[j]
-                label = self.scene().document.diagram.port_label(target)
-                menu.addAction(f"Remove the branch to {label}", lambda: self.scene().remove_branch(item.wire_id, target))
                 menu.addSeparator()
         for a in self.actions():
             if a.isEnabled():
