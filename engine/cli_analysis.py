@@ -18,10 +18,6 @@ from loopwright.engine.interconnect import assemble
 
 __all__ = ["add_commands"]
 
-# A frequency grid beyond this many points is a typing slip, not a wish (memory grows with it).
-_MAX_POINTS = 200_000
-
-
 def add_commands(subparsers) -> None:
     """Add the analysis sub-commands to the ``loopwright`` parser."""
     p = subparsers.add_parser("freq", help="frequency response of one path (input -> signal)")
@@ -88,52 +84,16 @@ def _table(header: list[str], rows: list[list[str]], *, indent: str = "  ") -> N
 
 
 def _freq(args: argparse.Namespace) -> int:
-    from loopwright.engine.responses import (
-        auto_frequency_grid,
-        magnitude_db,
-        phase_deg,
-        reduce_model,
-        reduced_response,
-        refine_grid_at_peaks,
-    )
     from loopwright.engine.norms import sigma_max
+    from loopwright.engine.views_data import pair_frequency_response
 
     diagram = load_diagram(args.file)
     model = assemble(diagram)
-    grp = model.resolve_input(args.source)
-    sig = model.resolve_signal(args.signal)
-    A, B, C, D = model.pair(grp, sig)
-    red = reduce_model(A)
-    Bt, Ct = red.input_matrix(B), red.output_matrix(C)
-
-    def evaluate(w):
-        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-            return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C)
-
-    for name, v in (("--w-min", args.w_min), ("--w-max", args.w_max)):
-        if v is not None and not v > 0:
-            raise ParameterError(f"{name} must be a positive frequency in rad/s; got {v}", field=name)
-    if args.points is not None and not 2 <= args.points <= _MAX_POINTS:
-        raise ParameterError(f"--points must be from 2 to {_MAX_POINTS}; got {args.points}", field="--points")
-    if args.w_min is not None and args.w_max is not None and not args.w_max > args.w_min:
-        raise ParameterError(f"--w-max ({args.w_max}) must exceed --w-min ({args.w_min})", field="--w-max")
-    if args.points is not None:
-        auto = auto_frequency_grid(red.poles)
-        lo = args.w_min if args.w_min is not None else auto[0]
-        hi = args.w_max if args.w_max is not None else auto[-1]
-        if not hi > lo:
-            raise ParameterError(f"--w-max ({hi}) must exceed --w-min ({lo})", field="--w-max")
-        w = np.logspace(np.log10(lo), np.log10(hi), args.points)
-        G = evaluate(w)
-    else:
-        w = auto_frequency_grid(red.poles, w_min=args.w_min, w_max=args.w_max)
-        G = evaluate(w)
-        w, _ = refine_grid_at_peaks(lambda x: sigma_max(evaluate(x)), w, sigma_max(G))
-        G = evaluate(w)
-    mag = magnitude_db(G)
-    ph = phase_deg(G)
-    in_names = [model.input_names[i] for i in range(model.input_slice(grp).start, model.input_slice(grp).stop)]
-    out_names = [model.output_names[i] for i in range(model.signal_slice(sig).start, model.signal_slice(sig).stop)]
+    resp = pair_frequency_response(model, args.source, args.signal, w_min=args.w_min, w_max=args.w_max, points=args.points)
+    grp, sig, w, G = resp.input_group, resp.signal, resp.w_rad_s, resp.response
+    mag = resp.mag_db
+    ph = resp.phase_deg
+    in_names, out_names = resp.input_names, resp.output_names
     elements = [(i, j, f"{out_names[i]} <- {in_names[j]}") for i in range(len(out_names)) for j in range(len(in_names))]
     scalar = len(elements) == 1
     if args.json:
@@ -192,25 +152,6 @@ def _freq(args: argparse.Namespace) -> int:
 # time
 
 
-def _time_grid(diagram, model, t_end, dt) -> np.ndarray:
-    settings = diagram.settings.get("time") or {}
-    t_end = t_end if t_end is not None else settings.get("t_end")
-    dt = dt if dt is not None else settings.get("dt")
-    if t_end is None:
-        ev = np.linalg.eigvals(model.A) if model.A.size else np.array([-1.0])
-        slow = np.abs(ev.real[ev.real < 0])
-        t_end = float(min(8.0 / slow.min(), 1e4)) if slow.size else 10.0
-    if dt is None:
-        dt = t_end / 2000.0
-    t_end, dt = float(t_end), float(dt)
-    if not (t_end > 0 and dt > 0 and dt < t_end):
-        raise ParameterError(f"need 0 < dt < t_end; got dt = {dt} s, t_end = {t_end} s", field="--dt")
-    if t_end / dt > 5e6:
-        raise ParameterError(f"{t_end / dt:.3g} time steps requested; at most 5e6 (raise --dt)", field="--dt")
-    N = int(round(t_end / dt)) + 1
-    return np.arange(N) * dt
-
-
 def _initial_state(model, specs: list[str]):
     """``--initial BLOCK=V[,V...]`` options -> the model's initial state (None when none given)."""
     from loopwright.engine.responses import initial_state
@@ -233,13 +174,14 @@ def _initial_state(model, specs: list[str]):
 
 def _time(args: argparse.Namespace) -> int:
     from loopwright.engine.responses import impulse_response, source_run, step_response
+    from loopwright.engine.views_data import time_grid
 
     diagram = load_diagram(args.file)
     model = assemble(diagram)
     sigs = [model.resolve_signal(s.strip()) for s in args.signals.split(",") if s.strip()]
     if not sigs:
         raise ParameterError("--to needs at least one signal name", field="--to")
-    t = _time_grid(diagram, model, args.t_end, args.dt)
+    t = time_grid(diagram, model, args.t_end, args.dt)
     rows = [i for s in sigs for i in range(model.signal_slice(s).start, model.signal_slice(s).stop)]
     out_names = [model.output_names[i] for i in rows]
     x0 = _initial_state(model, args.initial)

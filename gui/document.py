@@ -40,6 +40,7 @@ class Document(QObject):
     wire_renamed = Signal(str)
     caption_changed = Signal(str)
     diagram_replaced = Signal()
+    settings_changed = Signal(str)  # the key of diagram.settings that changed
     path_changed = Signal(str)
     changed = Signal(int)  # the new revision, after any edit
 
@@ -105,6 +106,19 @@ class Document(QObject):
             self.undo_stack.resetClean()
         self._bump()
         self.diagram_replaced.emit()
+
+    # ---- analysis settings ---------------------------------------------------------
+    def set_setting(self, key: str, value: Any) -> None:
+        """Set (or with ``None`` remove) one entry of ``diagram.settings``."""
+        settings = self._diagram.settings
+        if settings.get(key) == value:
+            return
+        if value is None:
+            settings.pop(key, None)
+        else:
+            settings[key] = copy.deepcopy(value)
+        self._bump()
+        self.settings_changed.emit(key)
 
     # ---- blocks --------------------------------------------------------------------
     def add_block(

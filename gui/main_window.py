@@ -1,8 +1,10 @@
 """The main window: canvas in the centre, shelf, inspector and problems list in docks,
 menus and a toolbar, a status bar showing the live model, files, autosave and recovery.
 
-Docks for the analysis panels are added later beside these; the window keeps dock
-nesting on and saves the dock layout with the window state, apart from the document.
+The analysis panels (pairs, frequency and time views, pole map, loop-break and
+singular-value views, noise budget, path audit) are added by
+:func:`loopwright.gui.docks.install.install_views`; the window keeps dock nesting on and
+saves the dock layout with the window state, apart from the document.
 """
 from __future__ import annotations
 
@@ -23,6 +25,7 @@ from loopwright.gui.canvas.scene import DiagramScene
 from loopwright.gui.canvas.view import DiagramView
 from loopwright.gui.commands import DeleteItems, MoveBlocks, PasteFragment
 from loopwright.gui.dialogs import Dialogs
+from loopwright.gui.docks.install import install_views
 from loopwright.gui.document import Document
 from loopwright.gui.inspector import Inspector
 from loopwright.gui.problems import ProblemsList
@@ -130,6 +133,7 @@ class MainWindow(QMainWindow):
         self._build_actions()
         self._build_menus()
         self._build_toolbar()
+        install_views(self)
         self.scene.selectionChanged.connect(self._on_selection_changed)
         self.scene.edit_refused.connect(self._show_refusal)
         self.shelf.place_requested.connect(self._place_from_shelf)
@@ -282,7 +286,9 @@ class MainWindow(QMainWindow):
         if not self._docks_sized and self.settings.value("window/state") is None:
             # Dock sizes only take once the window has its size: keep the canvas large.
             self._docks_sized = True
-            self.resizeDocks([self.problems_dock], [110], Qt.Orientation.Vertical)
+            self.resizeDocks([self.problems_dock], [300], Qt.Orientation.Vertical)
+            self.resizeDocks([self.problems_dock, self.view_docks["frequency"], self.view_docks["time"]], [330, 520, 520],
+                             Qt.Orientation.Horizontal)
             self.resizeDocks([self.shelf_dock, self.inspector_dock], [200, 330], Qt.Orientation.Horizontal)
 
     # ---- title, status --------------------------------------------------------------------------
@@ -443,6 +449,7 @@ class MainWindow(QMainWindow):
         self._autosave_timer.stop()
         # Do not wait for a check still running on the worker: its result is dropped.
         self.live.shutdown(wait=False)
+        self.views.shutdown()
         self.autosaver.clear()
         event.accept()
 

@@ -17,7 +17,7 @@ from PySide6.QtCore import QObject, QTimer, Signal
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import EngineError
 
-__all__ = ["LiveResult", "LiveModel", "compute_live_result"]
+__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs"]
 
 
 @dataclass(frozen=True)
@@ -166,3 +166,108 @@ class LiveModel(QObject):
         self._closed = True
         self._timer.stop()
         self._executor.shutdown(wait=wait, cancel_futures=True)
+
+
+@dataclass(frozen=True)
+class ViewResult:
+    """The outcome of one panel request: ``value`` from the engine, or ``error`` (its message)."""
+
+    key: str
+    revision: int
+    value: object = None
+    error: str | None = None
+
+
+class ViewJobs(QObject):
+    """Runs the plot panels' engine calls off the GUI thread, one at a time.
+
+    Each request carries a key (the panel) and the document revision it was built at. A
+    newer request for the same key cancels the older one while it waits, and drops its
+    result if it was already running; a result for an older revision is dropped too.
+
+    Signals
+    -------
+    result_ready(ViewResult)
+        A current result (GUI thread).
+    busy_changed(str, bool)
+        A panel's request started waiting or running (True), or ended (False).
+    """
+
+    result_ready = Signal(object)
+    busy_changed = Signal(str, bool)
+    _finished = Signal(object)  # emitted on the worker thread; queued to the GUI thread
+
+    def __init__(self, document, parent: QObject | None = None):
+        super().__init__(parent)
+        self._doc = document
+        self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views")
+        self._latest: dict[str, tuple[int, Future]] = {}
+        self._token = 0
+        self._closed = False
+        self.discarded = 0
+        self._finished.connect(self._on_finished)
+
+    def submit(self, key: str, fn, *args, **kwargs) -> None:
+        """Run ``fn(*args, **kwargs)`` on the worker for panel ``key`` (args must be snapshots)."""
+        if self._closed:
+            return
+        old = self._latest.get(key)
+        if old is not None:
+            old[1].cancel()
+        self._token += 1
+        token, revision = self._token, self._doc.revision
+        fut = self._executor.submit(_run_view_job, fn, args, kwargs)
+        self._latest[key] = (token, fut)
+        fut.add_done_callback(lambda f, k=key, tk=token, rev=revision: self._deliver(f, k, tk, rev))
+        self.busy_changed.emit(key, True)
+
+    def cancel(self, key: str) -> None:
+        """Forget the panel's request: a waiting one is cancelled, a running one dropped."""
+        old = self._latest.pop(key, None)
+        if old is not None:
+            old[1].cancel()
+            self.busy_changed.emit(key, False)
+
+    def is_busy(self, key: str) -> bool:
+        return key in self._latest
+
+    def _deliver(self, fut: Future, key: str, token: int, revision: int) -> None:
+        if fut.cancelled() or self._closed:
+            return
+        value, error = fut.result()
+        try:
+            self._finished.emit((key, token, ViewResult(key, revision, value, error)))
+        except RuntimeError:
+            pass  # the window was closed while the worker ran
+
+    def _on_finished(self, delivery) -> None:
+        key, token, result = delivery
+        latest = self._latest.get(key)
+        if latest is None or latest[0] != token or result.revision != self._doc.revision:
+            self.discarded += 1
+            return
+        del self._latest[key]
+        self.busy_changed.emit(key, False)
+        self.result_ready.emit(result)
+
+    def wait_idle(self) -> None:
+        """Block until every submitted job has run (tests and benches only)."""
+        for _token, fut in list(self._latest.values()):
+            try:
+                fut.result()
+            except Exception:  # noqa: BLE001 - cancelled or failed: nothing to wait for
+                pass
+
+    def shutdown(self, *, wait: bool = True) -> None:
+        self._closed = True
+        self._executor.shutdown(wait=wait, cancel_futures=True)
+
+
+def _run_view_job(fn, args, kwargs):
+    """(value, None) or (None, message); never raises, so the worker never loses a reply."""
+    try:
+        return fn(*args, **kwargs), None
+    except EngineError as err:
+        return None, str(err)
+    except Exception as err:  # noqa: BLE001 - an engine bug is shown in the panel, not a crash
+        return None, f"internal error: {err!r}"

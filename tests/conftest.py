@@ -127,6 +127,7 @@ def make_window(qtbot, qsettings, prefs, dialogs):
     for win in made:
         win._closing_ok = True
         win.live.shutdown()
+        win.views.shutdown()
 
 
 @pytest.fixture

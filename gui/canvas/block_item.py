@@ -97,6 +97,11 @@ class BlockItem(Markable, QGraphicsItem):
         p = self.ports.get((name, is_input))
         return self.mapToScene(p.pos()) if p is not None else self.scenePos()
 
+    def tag_anchor(self) -> tuple[float, float]:
+        """Where tags go: above the body's top-left corner (item coordinates)."""
+        r = body_rect(self._block)
+        return r.left(), r.top() - 20.0
+
     def body_scene_rect(self) -> QRectF:
         return self.mapRectToScene(body_rect(self._block))
 
@@ -134,6 +139,7 @@ class BlockItem(Markable, QGraphicsItem):
             g = self._grid
             return QPointF(round(value.x() / g) * g, round(value.y() / g) * g)
         if change == QGraphicsItem.GraphicsItemChange.ItemPositionHasChanged:
+            self._place_tags()
             scene = self.scene()
             if scene is not None and hasattr(scene, "block_item_moved"):
                 scene.block_item_moved(self)

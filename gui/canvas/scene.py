@@ -125,6 +125,7 @@ class DiagramScene(QGraphicsScene):
         item = self.block_items.pop(bid, None)
         self._wires_of.pop(bid, None)
         if item is not None:
+            item._drop_tags()
             self.removeItem(item)
 
     def _on_block_changed(self, bid: str) -> None:
@@ -142,6 +143,7 @@ class DiagramScene(QGraphicsScene):
         item = self.wire_items.pop(wid, None)
         self._unindex_wire(wid)
         if item is not None:
+            item._drop_tags()
             self.removeItem(item)
 
     def _on_wire_changed(self, wid: str) -> None:
@@ -202,6 +204,13 @@ class DiagramScene(QGraphicsScene):
             item.set_highlighted(bid in bs)
         for wid, item in self.wire_items.items():
             item.set_highlighted(wid in ws)
+
+    def set_tags(self, block_tags: dict, wire_tags: dict) -> None:
+        """Pin tags, ``{id: [(text, QColor), ...]}`` for blocks and wires; others lose theirs."""
+        for bid, item in self.block_items.items():
+            item.set_tags(block_tags.get(bid, []), self.font_)
+        for wid, item in self.wire_items.items():
+            item.set_tags(wire_tags.get(wid, []), self.font_)
 
     def set_theme(self, theme) -> None:
         self.theme = theme

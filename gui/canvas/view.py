@@ -47,6 +47,9 @@ class DiagramView(QGraphicsView):
         self._space = False
         self._editor: QLineEdit | None = None
         self.hint_text = EMPTY_HINT
+        # Set by the window: ``provider(kind, id, branch_target) -> [(text, slot), ...]``, the
+        # analysis picks ("look here", ...) offered in a block's or wire's menu.
+        self.pick_provider = None
 
     # ---- zoom and pan ----------------------------------------------------------------------
     def scale_factor(self) -> float:
@@ -237,13 +240,22 @@ class DiagramView(QGraphicsView):
             self.scene().clearSelection()
             item.setSelected(True)
         menu = QMenu(self)
+        j = item.branch_at(self.mapToScene(pos)) if isinstance(item, WireItem) else None
         if isinstance(item, WireItem):
-            j = item.branch_at(self.mapToScene(pos))
             wire = self.scene().document.diagram.wires.get(item.wire_id)
             if j is not None and wire is not None:
                 target = wire.targets[j]
                 label = self.scene().document.diagram.port_label(target)
                 menu.addAction(f"Remove the branch to {label}", lambda: self.scene().remove_branch(item.wire_id, target))
+                menu.addSeparator()
+        if item is not None and self.pick_provider is not None:
+            wire = self.scene().document.diagram.wires.get(item.wire_id) if isinstance(item, WireItem) else None
+            target = wire.targets[j] if wire is not None and j is not None else None
+            picks = self.pick_provider("wire" if isinstance(item, WireItem) else "block",
+                                       item.wire_id if isinstance(item, WireItem) else item.block_id, target)
+            for text, slot in picks:
+                menu.addAction(text, slot)
+            if picks:
                 menu.addSeparator()
         for a in self.actions():
             if a.isEnabled():

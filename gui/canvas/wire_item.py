@@ -115,7 +115,16 @@ class WireItem(Markable, QGraphicsItem):
         self.routes = routes
         self._rebuild_shape()
         self._refresh_tooltip()
+        self._place_tags()
         self.update()
+
+    def tag_anchor(self) -> tuple[float, float]:
+        """Where tags go: just after the signal name, on its line (the item's coordinates are the scene's)."""
+        r = self._label_rect
+        if r.isNull():
+            pts = self.routes[0] if self.routes else [(0.0, 0.0)]
+            return pts[0][0] + 12.0, pts[0][1] - 22.0
+        return r.right() + 2.0, r.top() - 1.0
 
     def _rebuild_shape(self) -> None:
         path = QPainterPath()

@@ -1,0 +1,504 @@
+"""What the app's plot panels show, computed from an assembled model or a diagram.
+
+Each function is pure: it takes a diagram snapshot or an :class:`AssembledModel` and the
+names the user picked, and returns plain arrays in physical units (rad/s, dB, degrees,
+seconds). The panels only draw them; the CLI's ``freq`` and ``time`` commands use the same
+grids and responses, so the app and the command line agree number for number.
+
+A *pair* names one input and one output: the input is a source name or
+``inject:<signal>`` (the injection on a signal), the output a signal name.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from loopwright.engine.errors import AnalysisError, EngineError, ParameterError
+
+__all__ = [
+    "PairResponse",
+    "pair_frequency_response",
+    "frequency_views",
+    "singular_values",
+    "singular_value_views",
+    "time_grid",
+    "PairRun",
+    "pair_time_response",
+    "time_views",
+    "estimation_error_names",
+    "damping_guides",
+    "disk_exclusion_circle",
+    "LoopBreakView",
+    "loop_break_view",
+    "NoiseBar",
+    "noise_bars",
+    "MAX_POINTS",
+]
+
+#: A frequency grid beyond this many points is a typing slip, not a wish (memory grows with it).
+MAX_POINTS = 200_000
+
+
+# ---------------------------------------------------------------------------------------
+# frequency
+
+
+@dataclass(frozen=True)
+class PairResponse:
+    """The frequency response of one pair on a grid refined at its peaks.
+
+    Attributes
+    ----------
+    input_group, signal : str
+        The resolved input group and signal.
+    w_rad_s : (k,) ndarray
+        Frequencies, rad/s.
+    response : (k, p, m) complex ndarray
+    input_names, output_names : list of str
+        Component names of the columns and rows.
+    """
+
+    input_group: str
+    signal: str
+    w_rad_s: np.ndarray
+    response: np.ndarray
+    input_names: list[str]
+    output_names: list[str]
+
+    @property
+    def mag_db(self) -> np.ndarray:
+        """(k, p, m) magnitude in dB."""
+        from loopwright.engine.responses import magnitude_db
+
+        return magnitude_db(self.response)
+
+    @property
+    def phase_deg(self) -> np.ndarray:
+        """(k, p, m) phase in degrees, unwrapped along frequency."""
+        from loopwright.engine.responses import phase_deg
+
+        return phase_deg(self.response)
+
+    def peak(self, i: int = 0, j: int = 0) -> tuple[float, float]:
+        """``(w_rad_s, mag_db)`` of the largest finite magnitude of element ``(i, j)``."""
+        mag = self.mag_db[:, i, j]
+        finite = np.where(np.isfinite(mag), mag, -np.inf)
+        k = int(np.argmax(finite))
+        return float(self.w_rad_s[k]), float(mag[k])
+
+
+def pair_frequency_response(
+    model, source: str, signal: str, *, w_min: float | None = None, w_max: float | None = None, points: int | None = None
+) -> PairResponse:
+    """Frequency response of the path ``source -> signal`` of an assembled model.
+
+    Parameters
+    ----------
+    model : AssembledModel
+    source : str
+        A source name, ``inject:<signal>``, or a bare signal name (its injection).
+    signal : str
+        A signal name (or one component, ``name[k]``).
+    w_min, w_max : float, optional
+        Frequency span in rad/s (default: two decades beyond the model's poles).
+    points : int, optional
+        A plain log-spaced grid of this many points; without it the grid is automatic
+        (dense at lightly damped poles) and refined at the response's peaks.
+
+    Raises
+    ------
+    UnknownNameError
+        No such input or signal.
+    ParameterError
+        A bad span or point count.
+    """
+    from loopwright.engine.norms import sigma_max
+    from loopwright.engine.responses import auto_frequency_grid, reduce_model, reduced_response, refine_grid_at_peaks
+
+    grp = model.resolve_input(source)
+    sig = model.resolve_signal(signal)
+    for name, v in (("--w-min", w_min), ("--w-max", w_max)):
+        if v is not None and not v > 0:
+            raise ParameterError(f"{name} must be a positive frequency in rad/s; got {v}", field=name)
+    if points is not None and not 2 <= points <= MAX_POINTS:
+        raise ParameterError(f"--points must be from 2 to {MAX_POINTS}; got {points}", field="--points")
+    if w_min is not None and w_max is not None and not w_max > w_min:
+        raise ParameterError(f"--w-max ({w_max}) must exceed --w-min ({w_min})", field="--w-max")
+    A, B, C, D = model.pair(grp, sig)
+    red = reduce_model(A)
+    Bt, Ct = red.input_matrix(B), red.output_matrix(C)
+
+    def evaluate(w):
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C)
+
+    if points is not None:
+        auto = auto_frequency_grid(red.poles)
+        lo = w_min if w_min is not None else auto[0]
+        hi = w_max if w_max is not None else auto[-1]
+        if not hi > lo:
+            raise ParameterError(f"--w-max ({hi}) must exceed --w-min ({lo})", field="--w-max")
+        w = np.logspace(np.log10(lo), np.log10(hi), points)
+    else:
+        w = auto_frequency_grid(red.poles, w_min=w_min, w_max=w_max)
+        w, _ = refine_grid_at_peaks(lambda x: sigma_max(evaluate(x)), w, sigma_max(evaluate(w)))
+    G = evaluate(w)
+    cols, rows = model.input_slice(grp), model.signal_slice(sig)
+    return PairResponse(grp, sig, w, G, list(model.input_names[cols]), list(model.output_names[rows]))
+
+
+def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float | None = None) -> list:
+    """One :class:`PairResponse` per pair, or the engine's message (a str) for a pair that
+    cannot be computed; the diagram is assembled once.
+
+    Parameters
+    ----------
+    diagram : Diagram
+    pairs : list of (input, output) tuples
+
+    Raises
+    ------
+    EngineError
+        The diagram does not assemble.
+    """
+    from loopwright.engine.interconnect import assemble
+
+    model = assemble(diagram)
+    out = []
+    for src, sig in pairs:
+        try:
+            out.append(pair_frequency_response(model, src, sig, w_min=w_min, w_max=w_max))
+        except EngineError as err:
+            out.append(str(err))
+    return out
+
+
+def singular_values(response: np.ndarray) -> np.ndarray:
+    """Singular values of a (k, p, m) response at every frequency, largest first: (k, min(p, m))."""
+    G = np.asarray(response)
+    bad = ~np.all(np.isfinite(G), axis=(1, 2))
+    safe = np.where(bad[:, None, None], 0.0, G)
+    s = np.linalg.svd(safe, compute_uv=False)
+    s[bad] = np.nan
+    return s
+
+
+def singular_value_views(diagram, pairs) -> list:
+    """Per pair: ``(w_rad_s (k,), sigma_db (k, r))``, the singular values in dB largest
+    first, or the engine's message (a str) for a pair that cannot be computed."""
+    out = []
+    for resp in frequency_views(diagram, pairs):
+        if isinstance(resp, str):
+            out.append(resp)
+            continue
+        with np.errstate(divide="ignore"):
+            out.append((resp.w_rad_s, 20.0 * np.log10(singular_values(resp.response))))
+    return out
+
+
+# ---------------------------------------------------------------------------------------
+# time
+
+
+def time_grid(diagram, model, t_end: float | None = None, dt: float | None = None) -> np.ndarray:
+    """The uniform time grid of a run, in s.
+
+    ``t_end``/``dt`` given here win; then the diagram's ``settings.time``; else eight
+    time constants of the slowest stable pole (at most 1e4 s) and 2000 steps.
+
+    Raises
+    ------
+    ParameterError
+        ``dt`` not below ``t_end``, or more than 5e6 steps.
+    """
+    settings = diagram.settings.get("time") or {}
+    t_end = t_end if t_end is not None else settings.get("t_end")
+    dt = dt if dt is not None else settings.get("dt")
+    if t_end is None:
+        ev = np.linalg.eigvals(model.A) if model.A.size else np.array([-1.0])
+        slow = np.abs(ev.real[ev.real < 0])
+        t_end = float(min(8.0 / slow.min(), 1e4)) if slow.size else 10.0
+    if dt is None:
+        dt = t_end / 2000.0
+    t_end, dt = float(t_end), float(dt)
+    if not (t_end > 0 and dt > 0 and dt < t_end):
+        raise ParameterError(f"need 0 < dt < t_end; got dt = {dt} s, t_end = {t_end} s", field="--dt")
+    if t_end / dt > 5e6:
+        raise ParameterError(f"{t_end / dt:.3g} time steps requested; at most 5e6 (raise --dt)", field="--dt")
+    N = int(round(t_end / dt)) + 1
+    return np.arange(N) * dt
+
+
+#: The kinds of time run the time view offers.
+RUN_KINDS = ("step", "impulse", "initial", "sources")
+
+
+@dataclass(frozen=True)
+class PairRun:
+    """One time run for one pair.
+
+    ``y`` is (N, q) with one column per name in ``names`` (``"out <- in"`` for a vector
+    input). ``kind`` is one of :data:`RUN_KINDS`.
+    """
+
+    kind: str
+    t: np.ndarray
+    y: np.ndarray
+    names: list[str]
+    diverged: bool = False
+    message: str = ""
+
+
+def estimation_error_names(model) -> dict[str, np.ndarray]:
+    """Component name (``error:est[1]``) -> the row ``E`` with ``e = E x``, for every
+    estimator linked to a plant of the same order."""
+    from loopwright.engine.noise import _error_maps
+
+    out = {}
+    for _est, E, names in _error_maps(model):
+        for i, nm in enumerate(names):
+            out[nm] = E[i]
+    return out
+
+
+def pair_time_response(model, kind: str, source: str, signal: str, t, *, x0=None) -> PairRun:
+    """A time run of one pair.
+
+    Parameters
+    ----------
+    model : AssembledModel
+    kind : str
+        ``"step"``/``"impulse"``: unit step or impulse on ``source``; ``"sources"``: every
+        source plays its own waveform (white noise with its seed), ``source`` unused;
+        ``"initial"``: sources at zero, the response to ``x0`` alone.
+    source, signal : str
+        The pair. ``signal`` may also be ``error:<estimator>`` (the estimation error).
+    t : (N,) array_like
+        Uniform times, s.
+    x0 : (n,) array_like, optional
+        Initial state (``"sources"`` and ``"initial"`` runs).
+
+    Raises
+    ------
+    ParameterError
+        Unknown ``kind``, or ``"initial"`` without ``x0``.
+    """
+    from loopwright.engine.responses import impulse_response, initial_response, simulate, source_inputs, step_response
+
+    if kind not in RUN_KINDS:
+        raise ParameterError(f"time run must be one of {', '.join(RUN_KINDS)}; got {kind!r}", field="kind")
+    errors = estimation_error_names(model)
+    if signal.startswith("error:"):
+        est = signal.split(":", 1)[1]
+        names = [nm for nm in errors if nm == signal or nm.startswith(f"error:{est}[")]
+        if not names:
+            raise AnalysisError(f"no estimator {est!r} linked to a plant of its own order: no estimation error to show")
+        C = np.array([errors[nm] for nm in names])
+        D = np.zeros((len(names), model.B.shape[1]))
+        out_names = names
+    else:
+        rows = model.signal_slice(model.resolve_signal(signal))
+        C, D = model.C[rows], model.D[rows]
+        out_names = list(model.output_names[rows])
+    if kind == "initial":
+        if x0 is None:
+            raise ParameterError("an initial-condition run needs an initial state", field="initial")
+        res = initial_response(model.A, C, x0, t)
+        return PairRun(kind, res.t, res.y, out_names, res.diverged, res.message)
+    if kind == "sources":
+        U, foh = source_inputs(model, t)
+        res = simulate(model.A, model.B, C, D, t, U, x0=x0, foh_columns=foh)
+        return PairRun(kind, res.t, res.y, out_names, res.diverged, res.message)
+    grp = model.resolve_input(source)
+    cols = model.input_slice(grp)
+    fn = step_response if kind == "step" else impulse_response
+    res = fn(model.A, model.B[:, cols], C, D[:, cols], t)
+    in_names = list(model.input_names[cols])
+    if len(in_names) == 1:
+        return PairRun(kind, res.t, res.y[:, :, 0], out_names, res.diverged, res.message)
+    names = [f"{o} <- {i}" for o in out_names for i in in_names]
+    return PairRun(kind, res.t, res.y.reshape(res.y.shape[0], -1), names, res.diverged, res.message)
+
+
+def time_views(diagram, pairs, kind: str, *, initial: dict | None = None, t_end: float | None = None, dt: float | None = None) -> list:
+    """One :class:`PairRun` per pair (or the engine's message as a str); one assembly.
+
+    ``initial`` maps block names to their initial state (see
+    :func:`loopwright.engine.responses.initial_state`).
+    """
+    from loopwright.engine.interconnect import assemble
+    from loopwright.engine.responses import initial_state
+
+    model = assemble(diagram)
+    t = time_grid(diagram, model, t_end, dt)
+    x0 = initial_state(model, initial) if initial else None
+    out = []
+    for src, sig in pairs:
+        try:
+            out.append(pair_time_response(model, kind, src, sig, t, x0=x0))
+        except EngineError as err:
+            out.append(str(err))
+    return out
+
+
+# ---------------------------------------------------------------------------------------
+# pole map
+
+
+def damping_guides(radius: float, *, ratios=(0.1, 0.2, 0.4, 0.6, 0.8), circles: int = 4) -> dict:
+    """Lines of constant damping ratio and circles of constant natural frequency for a
+    pole map reaching ``radius`` (rad/s) from the origin.
+
+    A pole ``s = -zeta wn + j wn sqrt(1 - zeta^2)`` lies on the ray at angle
+    ``arccos(zeta)`` from the negative real axis (closed form), and on the circle
+    ``|s| = wn``.
+
+    Returns
+    -------
+    dict
+        ``{"rays": [(zeta, x (2,), y (2,)), ...], "circles": [(wn, x (k,), y (k,)), ...]}``
+        with each ray from the origin into the left half-plane (upper and lower halves
+        as separate entries) and each circle as its left half.
+    """
+    r = float(radius) if np.isfinite(radius) and radius > 0 else 1.0
+    rays = []
+    for z in ratios:
+        th = np.arccos(z)
+        for sign in (1.0, -1.0):
+            rays.append((float(z), np.array([0.0, -r * np.cos(th)]), np.array([0.0, sign * r * np.sin(th)])))
+    # round steps of wn: 1, 2 or 5 times a power of ten
+    base = 10.0 ** np.floor(np.log10(r / circles))
+    step = next(m * base for m in (1.0, 2.0, 5.0, 10.0) if r / (m * base) <= circles)
+    phi = np.linspace(np.pi / 2, 3 * np.pi / 2, 91)
+    rings = [(float(k * step), k * step * np.cos(phi), k * step * np.sin(phi)) for k in range(1, circles + 1) if k * step <= r * 1.0001]
+    return {"rays": rays, "circles": rings}
+
+
+# ---------------------------------------------------------------------------------------
+# loop break
+
+
+def disk_exclusion_circle(gain_lower: float, gain_upper: float) -> tuple[float, float]:
+    """Centre (on the real axis) and radius of the disk the loop transfer ``L(jw)`` must
+    stay out of, for a disk margin with gain interval ``[gain_lower, gain_upper]``.
+
+    Closed form: the loop stays stable for every factor ``f`` in the margin's disk, so
+    ``1 + f L`` never vanishes and ``L`` never equals ``-1/f``. The disk of ``f`` is
+    symmetric about the real axis and meets it at the two gain limits, so its image under
+    ``f -> -1/f`` is the disk through ``-1/gain_lower`` and ``-1/gain_upper``
+    (``0`` when the upper gain is unbounded).
+
+    Returns
+    -------
+    centre, radius : float
+    """
+    a = -1.0 / gain_lower if gain_lower > 0 else -np.inf
+    b = -1.0 / gain_upper if np.isfinite(gain_upper) and gain_upper != 0 else 0.0
+    return float((a + b) / 2.0), float(abs(a - b) / 2.0)
+
+
+@dataclass(frozen=True)
+class LoopBreakView:
+    """The loop transfer at a break, channel by channel.
+
+    Attributes
+    ----------
+    at : str
+        Where the loop is broken (a signal or ``block.port``).
+    channel_names : list of str
+    w_rad_s : (k,) ndarray
+        Positive frequencies, rad/s (the curve for negative ones is the mirror image).
+    curves : list of (k,) complex ndarray
+        ``L_i(jw)`` of channel ``i`` with the other channels closed (the scalar loop's own
+        ``L`` for a scalar break).
+    circles : list of (centre, radius)
+        The exclusion disk of each channel's disk margin (``nan`` when unstable).
+    margins : LoopMargins or VectorLoopMargins
+    loci : (k, q) complex ndarray or None
+        Eigenvalues of the whole ``L(jw)`` (vector breaks: all loops at once).
+    """
+
+    at: str
+    channel_names: list[str]
+    w_rad_s: np.ndarray
+    curves: list[np.ndarray]
+    circles: list[tuple[float, float]]
+    margins: object
+    loci: np.ndarray | None = None
+    critical_w_rad_s: list[float] = field(default_factory=list)
+
+
+def loop_break_view(diagram, at: str, *, skew: float = 0.0) -> LoopBreakView:
+    """Nyquist curves, exclusion disks and margins of the loop broken at ``at``.
+
+    Raises
+    ------
+    UnknownNameError, AnalysisError
+        No such break point, or no loop through it.
+    """
+    from loopwright.engine.margins import LoopMargins, _close_channels, _trim_for_margins, loop_transfer, margins_at
+    from loopwright.engine.responses import auto_frequency_grid, frequency_response
+
+    margins = margins_at(diagram, at, skew=skew)
+    A, B, C, D = _trim_for_margins(*loop_transfer(diagram, at))
+    q = D.shape[0]
+    per = [margins] if isinstance(margins, LoopMargins) else list(margins.per_channel)
+    names = [at] if q == 1 else list(margins.channel_names)
+    crit = sorted({float(x) for m in per for x in (m.disk.w_rad_s, m.phase_margin_w_rad_s, m.gain_lower_w_rad_s, m.gain_upper_w_rad_s,
+                                                     m.peak_sensitivity_w_rad_s, *m.gain_crossovers_w_rad_s, *m.phase_crossovers_w_rad_s)
+                   if np.isfinite(x) and x > 0})
+    poles = np.linalg.eigvals(A) if A.size else np.zeros(0)
+    w = np.unique(np.concatenate([auto_frequency_grid(poles, points_per_decade=120), np.asarray(crit, dtype=float)]))
+    curves = []
+    for i in range(q):
+        Ai, Bi, Ci, Di = _close_channels(A, B, C, D, i) if q > 1 else (A, B, C, D)
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            curves.append(frequency_response(Ai, Bi, Ci, Di, w)[:, 0, 0])
+    circles = [disk_exclusion_circle(m.disk.gain_lower, m.disk.gain_upper) if m.closed_loop_stable else (np.nan, np.nan) for m in per]
+    loci = None
+    if q > 1:
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            L = frequency_response(A, B, C, D, w)
+        ok = np.all(np.isfinite(L), axis=(1, 2))
+        loci = np.full((w.size, q), np.nan + 0j)
+        loci[ok] = np.sort_complex(np.linalg.eigvals(L[ok]))
+    return LoopBreakView(at, names, w, curves, circles, margins, loci, crit)
+
+
+# ---------------------------------------------------------------------------------------
+# noise budget
+
+
+@dataclass(frozen=True)
+class NoiseBar:
+    """One bar of the noise budget: a signal component's RMS, split by source.
+
+    ``parts[source]`` is the source's share of the variance times the RMS, so the parts
+    add up to the RMS and each is in proportion to what that source contributes to the
+    variance (RMS values themselves do not add).
+    """
+
+    name: str
+    rms: float
+    parts: dict[str, float]
+    variance_by_source: dict[str, float]
+    reason: str = ""
+
+
+def noise_bars(budget, names=None) -> list[NoiseBar]:
+    """The bars for the components of the signals ``names`` (every line when None).
+
+    A name selects a whole signal (all its components) or one component line.
+    """
+    wanted = None if names is None else set(names)
+    out = []
+    for ln in budget.lines:
+        if wanted is not None and ln.signal not in wanted and ln.name not in wanted:
+            continue
+        if np.isfinite(ln.rms):
+            parts = {s: float(ln.rms * sh) if np.isfinite(sh) else 0.0 for s, sh in ln.share_by_source.items()}
+        else:
+            parts = {s: np.nan for s in ln.share_by_source}
+        out.append(NoiseBar(ln.name, float(ln.rms), parts, dict(ln.variance_by_source), ln.reason))
+    return out

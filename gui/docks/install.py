@@ -1,0 +1,129 @@
+"""Puts the analysis panels into a main window: the pairs panel, one dock per plot panel,
+the canvas picks, the Views menu and File ▸ Export view.
+
+Plot docks sit in the bottom area in two tab groups beside the problems list; their
+layout is saved with the window state (``window/state``), never in the diagram.
+"""
+from __future__ import annotations
+
+from PySide6.QtCore import Qt
+from PySide6.QtWidgets import QDockWidget
+
+from loopwright.gui.docks.audit import AuditPanel
+from loopwright.gui.docks.frequency import FrequencyPanel
+from loopwright.gui.docks.loop_break import LoopBreakPanel
+from loopwright.gui.docks.noise import NoisePanel
+from loopwright.gui.docks.pairs import PairPicker, PairsPanel
+from loopwright.gui.docks.poles import PoleMapPanel
+from loopwright.gui.docks.singular_values import SingularValuePanel
+from loopwright.gui.docks.time import TimePanel
+from loopwright.gui.docks.views import ViewsController
+
+__all__ = ["install_views", "PANEL_TITLES"]
+
+#: Dock titles (the names in the glossary).
+PANEL_TITLES = {
+    "frequency": "Frequency view",
+    "time": "Time view",
+    "poles": "Pole map",
+    "loop_break": "Loop-break view",
+    "singular_values": "Singular-value view",
+    "noise": "Noise budget",
+    "audit": "Path audit",
+}
+
+
+def _dock(window, title: str, name: str, widget) -> QDockWidget:
+    dock = QDockWidget(title, window)
+    dock.setObjectName(name)
+    dock.setWidget(widget)
+    return dock
+
+
+def install_views(window) -> None:
+    """Create the panels and docks of ``window`` and wire them to its document and canvas.
+
+    Sets ``window.picker``, ``window.pairs_panel``, ``window.views`` (the controller),
+    ``window.panels`` (key -> panel) and ``window.view_docks`` (key -> dock).
+    """
+    doc = window.document
+    window.picker = PairPicker(doc, window.scene, window._push, parent=window)
+    window.picker.message.connect(lambda text: window.statusBar().showMessage(text, 10000))
+    window.view.pick_provider = window.picker.actions_for
+    window.pairs_panel = PairsPanel(doc, window.picker, window._push)
+    window.pairs_dock = QDockWidget("Pairs", window)
+    window.pairs_dock.setObjectName("pairs_dock")
+    window.pairs_dock.setWidget(window.pairs_panel)
+    window.addDockWidget(Qt.DockWidgetArea.RightDockWidgetArea, window.pairs_dock)
+    window.tabifyDockWidget(window.inspector_dock, window.pairs_dock)
+    window.inspector_dock.raise_()
+    window.views = ViewsController(doc, debounce_ms=window.prefs.debounce_ms, parent=window)
+    panels = [FrequencyPanel(), TimePanel(), PoleMapPanel(), LoopBreakPanel(), SingularValuePanel(), NoisePanel(), AuditPanel()]
+    window.panels = {p.key: p for p in panels}
+    window.view_docks = {}
+    for p in panels:
+        dock = _dock(window, PANEL_TITLES[p.key], f"{p.key}_dock", p)
+        window.view_docks[p.key] = dock
+        window.views.add(p, dock)
+    vd = window.view_docks
+    # two tab groups beside the problems list: responses on the left, loop questions on the right
+    bottom, across = Qt.DockWidgetArea.BottomDockWidgetArea, Qt.Orientation.Horizontal
+    for dock in (vd["frequency"], vd["time"]):
+        window.addDockWidget(bottom, dock, across)
+    for k in ("singular_values", "poles"):
+        window.tabifyDockWidget(vd["frequency"], vd[k])
+    for k in ("loop_break", "noise"):
+        window.tabifyDockWidget(vd["time"], vd[k])
+    window.tabifyDockWidget(window.history_dock, vd["audit"])
+    vd["frequency"].raise_()
+    vd["time"].raise_()
+    window.problems_dock.raise_()
+    audit = window.panels["audit"]
+    audit.path_selected.connect(lambda row: _show_audit_path(window, row))
+    audit.summary_changed.connect(lambda text: window.statusBar().showMessage(text))
+    window.problems.view_requested.connect(lambda key: (window.view_docks[key].show(), window.view_docks[key].raise_()))
+    _build_menus(window)
+
+
+def _show_audit_path(window, row) -> None:
+    """Light the path on the canvas and draw it in the frequency view."""
+    if row is None:
+        window.scene.highlight()
+        window.panels["frequency"].set_audit_pair(None)
+        return
+    window.scene.highlight(row.block_ids, row.wire_ids)
+    window.panels["frequency"].set_audit_pair((row.source, row.signal))
+    window.view_docks["frequency"].raise_()
+    window.view_docks["frequency"].show()
+
+
+def _build_menus(window) -> None:
+    mb = window.menuBar()
+    views_menu = None
+    for act in mb.actions():
+        if act.text().replace("&", "") == "Help":
+            views_menu = mb.insertMenu(act, _new_menu(window, "Vie&ws")).menu()
+            break
+    if views_menu is None:
+        views_menu = mb.addMenu("Vie&ws")
+    views_menu.setObjectName("views_menu")
+    views_menu.addAction(window.pairs_dock.toggleViewAction())
+    views_menu.addSeparator()
+    for key, dock in window.view_docks.items():
+        views_menu.addAction(dock.toggleViewAction())
+    views_menu.addSeparator()
+    views_menu.addAction("Refresh every view", window.views.refresh_visible)
+    file_menu = next(a.menu() for a in mb.actions() if a.text().replace("&", "") == "File")
+    export = file_menu.addMenu("&Export view")
+    export.setObjectName("export_view_menu")
+    file_menu.insertMenu(file_menu.actions()[-3], export)  # above Close window / Quit
+    for key, panel in window.panels.items():
+        title = PANEL_TITLES[key]
+        export.addAction(f"{title} as a picture (PNG or SVG)…", panel.save_picture_dialog)
+        export.addAction(f"{title} data (CSV)…", panel.save_data_dialog)
+
+
+def _new_menu(window, title: str):
+    from PySide6.QtWidgets import QMenu
+
+    return QMenu(title, window)

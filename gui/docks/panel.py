@@ -1,0 +1,236 @@
+"""What every plot panel shares: a message line, a plot area, the pair colours, and the
+export of its picture (PNG, SVG) and its data (CSV).
+
+A panel says what to compute (:meth:`PlotPanel.job`: an engine function and its
+arguments, built from a snapshot on the GUI thread) and draws what comes back
+(:meth:`PlotPanel.show_value`); :class:`~loopwright.gui.docks.views.ViewsController`
+runs the job on the worker. Curves are created once per pair and then only get
+``setData`` (see STYLE.md, plot docks).
+"""
+from __future__ import annotations
+
+import csv
+from pathlib import Path
+
+import pyqtgraph as pg
+from PySide6.QtCore import Qt, Signal
+from PySide6.QtGui import QAction, QColor
+from PySide6.QtWidgets import QSplitter, QFileDialog, QHBoxLayout, QLabel, QMenu, QProgressBar, QPushButton, QSizePolicy, QVBoxLayout, QWidget
+
+__all__ = ["PlotPanel", "PAIR_COLOURS", "pair_colour", "write_table_csv", "pen_for", "themed_plot", "new_layout_widget", "elastic", "AdaptiveSplitter"]
+
+# One colour per kept pair, the same in every panel and on the canvas; our own set,
+# chosen to stay apart from each other on light and dark backgrounds.
+PAIR_COLOURS = ("#2f7fd0", "#e0662b", "#2aa05a", "#b0419e", "#c9a21a", "#17a3b8", "#7b5cd6", "#8a6d3b")
+
+_DASHES = (Qt.PenStyle.SolidLine, Qt.PenStyle.DashLine, Qt.PenStyle.DotLine, Qt.PenStyle.DashDotLine)
+
+
+def pair_colour(index: int) -> QColor:
+    """Colour of the pair at ``index`` in the diagram's kept pairs."""
+    return QColor(PAIR_COLOURS[index % len(PAIR_COLOURS)])
+
+
+def pen_for(colour: QColor, element: int = 0, *, width: float = 2.0):
+    """The pen of one curve: the pair's colour, one dash style per vector element."""
+    return pg.mkPen(colour, width=width, style=_DASHES[element % len(_DASHES)])
+
+
+def write_table_csv(path: str | Path, header: list[str], rows) -> None:
+    """Write a header and rows of numbers or text to a CSV file (no Qt involved)."""
+    with open(path, "w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(header)
+        for r in rows:
+            w.writerow([repr(float(v)) if isinstance(v, float) else v for v in r])
+
+
+class PlotPanel(QWidget):
+    """Base of the plot panels.
+
+    Subclasses set :attr:`key` and :attr:`title`, build their plots in ``__init__`` and
+    implement :meth:`job`, :meth:`show_value` and :meth:`table`.
+
+    Signals
+    -------
+    options_changed()
+        The panel's own options changed: its job must run again.
+    """
+
+    key = "panel"
+    title = "panel"
+    options_changed = Signal()
+    stop_requested = Signal()
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.setObjectName(f"{self.key}_panel")
+        self.pairs: list[tuple[str, str]] = []
+        self._layout = QVBoxLayout(self)
+        self._layout.setContentsMargins(4, 2, 4, 2)
+        self._layout.setSpacing(2)
+        self.message = QLabel("")
+        self.message.setObjectName(f"{self.key}_message")
+        self.message.setWordWrap(True)
+        self.message.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Preferred)
+        self.message.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
+        self._layout.addWidget(self.message)
+        self.waiting = QWidget()
+        row = QHBoxLayout(self.waiting)
+        row.setContentsMargins(0, 0, 0, 0)
+        bar = QProgressBar()
+        bar.setRange(0, 0)  # busy: the engine gives no fraction done
+        bar.setMaximumHeight(12)
+        bar.setMinimumWidth(30)
+        bar.setTextVisible(False)
+        row.addWidget(QLabel("computing…"))
+        row.addWidget(bar, 1)
+        self.stop_button = QPushButton("Stop")
+        self.stop_button.setObjectName(f"{self.key}_stop")
+        self.stop_button.clicked.connect(self.stop_requested.emit)
+        row.addWidget(self.stop_button)
+        self.waiting.setVisible(False)
+        self._layout.addWidget(self.waiting)
+        self.setContextMenuPolicy(Qt.ContextMenuPolicy.DefaultContextMenu)
+        self.save_picture_action = QAction("Save picture (PNG or SVG)…", self)
+        self.save_picture_action.triggered.connect(lambda _c=False: self.save_picture_dialog())
+        self.save_data_action = QAction("Save data (CSV)…", self)
+        self.save_data_action.triggered.connect(lambda _c=False: self.save_data_dialog())
+
+    # ---- what subclasses provide ----------------------------------------------------------
+    def job(self, diagram, pairs):
+        """``(fn, args, kwargs)`` to run on the worker for this diagram snapshot, or None."""
+        return None
+
+    def show_value(self, value) -> None:
+        raise NotImplementedError
+
+    def table(self) -> tuple[list[str], list[list]]:
+        """The data on show as a header and rows (what CSV export writes)."""
+        return [], []
+
+    def plot_scene_item(self):
+        """The graphics item exported as the picture."""
+        raise NotImplementedError
+
+    # ---- shared ---------------------------------------------------------------------------
+    def set_pairs(self, pairs: list[tuple[str, str]]) -> None:
+        self.pairs = list(pairs)
+
+    def set_waiting(self, on: bool) -> None:
+        """Show (after half a second of waiting) or hide the busy line with its Stop button."""
+        self.waiting.setVisible(on)
+
+    def show_error(self, text: str) -> None:
+        self.set_message(text, error=True)
+
+    def set_message(self, text: str, *, error: bool = False) -> None:
+        self.message.setText(text)
+        self.message.setStyleSheet("color: #c0392b;" if error else "")
+        self.message.setVisible(bool(text))
+
+    def contextMenuEvent(self, event) -> None:
+        menu = QMenu(self)
+        menu.addAction(self.save_picture_action)
+        menu.addAction(self.save_data_action)
+        menu.exec(event.globalPos())
+
+    def save_picture(self, path: str | Path) -> None:
+        """Write the plot as PNG or SVG (by the file's suffix).
+
+        SVG goes through Qt's own SVG painter (vector output); pyqtgraph's SVG exporter
+        fails on the closed paths of a filled legend box.
+        """
+        path = str(path)
+        widget = self.picture_widget()
+        if path.lower().endswith(".svg"):
+            from PySide6.QtCore import QPoint, QRect
+            from PySide6.QtGui import QPainter
+            from PySide6.QtSvg import QSvgGenerator
+
+            gen = QSvgGenerator()
+            gen.setFileName(path)
+            gen.setSize(widget.size())
+            gen.setViewBox(QRect(0, 0, widget.width(), widget.height()))
+            gen.setTitle(f"Loopwright {self.title}")
+            painter = QPainter(gen)
+            QWidget.render(widget, painter, QPoint(0, 0))  # the widget overload, also for a QGraphicsView
+            painter.end()
+        else:
+            from pyqtgraph.exporters import ImageExporter
+
+            item = self.plot_scene_item()
+            if item is None:
+                widget.grab().save(path)
+                return
+            exporter = ImageExporter(item)
+            exporter.parameters()["width"] = max(800, int(item.boundingRect().width()))
+            exporter.export(path)
+
+    def picture_widget(self) -> QWidget:
+        """The widget drawn into a picture (the plot area)."""
+        return self.canvas
+
+    def save_data(self, path: str | Path) -> None:
+        header, rows = self.table()
+        write_table_csv(path, header, rows)
+
+    def save_picture_dialog(self) -> None:
+        path, _ = QFileDialog.getSaveFileName(self, f"Save the {self.title} as a picture", f"{self.key}.svg",
+                                              "SVG picture (*.svg);;PNG picture (*.png)")
+        if path:
+            self.save_picture(path)
+
+    def save_data_dialog(self) -> None:
+        path, _ = QFileDialog.getSaveFileName(self, f"Save the {self.title} data", f"{self.key}.csv", "CSV (*.csv)")
+        if path:
+            self.save_data(path)
+
+
+def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, bottom: str | None, log_x: bool = False) -> pg.PlotItem:
+    """One plot cell with labelled axes, a grid and no pyqtgraph menu (the panel has its own)."""
+    p = layout_widget.addPlot(row=row, col=0)
+    p.setLabel("left", left)
+    if bottom:
+        p.setLabel("bottom", bottom)
+    p.showGrid(x=True, y=True, alpha=0.25)
+    p.setMenuEnabled(False)
+    p.setLogMode(x=log_x, y=False)
+    for side in ("left", "bottom"):
+        ax = p.getAxis(side)
+        ax.enableAutoSIPrefix(False)  # a "(x0.001)" beside a unit is easy to miss
+        ax.setPen(pg.mkPen("#5b6573"))
+        ax.setTextPen(pg.mkPen("#1f2933"))
+    return p
+
+
+def new_layout_widget() -> pg.GraphicsLayoutWidget:
+    w = pg.GraphicsLayoutWidget()
+    w.setBackground("w")
+    w.setMinimumSize(160, 90)
+    return w
+
+
+def elastic(label):
+    """Let a label of any length shrink with its panel (it elides instead of widening the window)."""
+    label.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Preferred)
+    label.setMinimumWidth(10)
+    return label
+
+
+class AdaptiveSplitter(QSplitter):
+    """Plot and table side by side when there is room, one above the other when narrow."""
+
+    def __init__(self, *, across_from: int = 720, parent=None):
+        super().__init__(Qt.Orientation.Horizontal, parent)
+        self._across_from = across_from
+        self.setChildrenCollapsible(False)
+
+    def resizeEvent(self, event) -> None:
+        want = Qt.Orientation.Horizontal if event.size().width() >= self._across_from else Qt.Orientation.Vertical
+        if want != self.orientation():
+            self.setOrientation(want)
+            total = event.size().width() if want == Qt.Orientation.Horizontal else event.size().height()
+            self.setSizes([int(total * 0.6), int(total * 0.4)])
+        super().resizeEvent(event)
+

@@ -1,0 +1,128 @@
+"""The pole map: the closed-loop poles, with the designed state-feedback poles eig(A − BK)
+and estimator poles eig(A − LC) overlaid so the separation shows, lines of constant damping
+and circles of constant natural frequency, and a read-out of the pole under the mouse."""
+from __future__ import annotations
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6.QtCore import Qt
+from PySide6.QtWidgets import QLabel
+
+from loopwright.engine.check import pole_table, summarize
+from loopwright.engine.views_data import damping_guides
+from loopwright.gui.docks.panel import PlotPanel, elastic, new_layout_widget, themed_plot
+
+__all__ = ["PoleMapPanel", "pole_map_data"]
+
+_GUIDE = pg.mkPen("#b8c0ca", width=1, style=Qt.PenStyle.DotLine)
+
+
+def pole_map_data(diagram) -> dict:
+    """What the pole map shows (worker thread): poles, the designed sets, guides, the table."""
+    rep = summarize(diagram)
+    poles = rep.poles
+    sep = rep.separation
+    fb = sep.state_feedback_poles if sep is not None else np.zeros(0, complex)
+    est = sep.estimator_poles if sep is not None else np.zeros(0, complex)
+    every = np.concatenate([poles, fb, est])
+    radius = 1.15 * float(np.abs(every).max()) if every.size else 1.0
+    return {"poles": poles, "feedback": fb, "estimator": est, "matches": None if sep is None else sep.matches,
+            "guides": damping_guides(radius), "table": pole_table(poles)}
+
+
+class PoleMapPanel(PlotPanel):
+    """Closed-loop poles (crosses), designed feedback poles (circles), estimator poles (squares)."""
+
+    key = "poles"
+    title = "pole map"
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.canvas = new_layout_widget()
+        self.plot = themed_plot(self.canvas, 0, left="imaginary (rad/s)", bottom="real (1/s)")
+        self.plot.setAspectLocked(False)
+        self.legend = self.plot.addLegend(offset=(10, 10), labelTextColor="#1f2933", brush=(255, 255, 255, 210))
+        self._layout.addWidget(self.canvas, 1)
+        self.readout = QLabel("Hover over a pole to read it.")
+        self.readout.setObjectName("poles_readout")
+        elastic(self.readout)
+        self._layout.addWidget(self.readout)
+        self.closed = self.plot.plot(pen=None, symbol="x", symbolSize=12, symbolPen=pg.mkPen("#c0392b", width=2), name="closed loop")
+        self.feedback = self.plot.plot(pen=None, symbol="o", symbolSize=15, symbolBrush=None,
+                                       symbolPen=pg.mkPen("#2f7fd0", width=1.6), name="designed eig(A − BK)")
+        self.estimator = self.plot.plot(pen=None, symbol="s", symbolSize=15, symbolBrush=None,
+                                        symbolPen=pg.mkPen("#2aa05a", width=1.6), name="designed eig(A − LC)")
+        self.guides: list = []
+        self.guide_labels: list = []
+        self.data: dict | None = None
+        self.plot.scene().sigMouseMoved.connect(self._on_mouse)
+        self.plot.addItem(pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen("#5b6573", width=1)), ignoreBounds=True)
+
+    def job(self, diagram, pairs):
+        return pole_map_data, (diagram,), {}
+
+    def show_value(self, value) -> None:
+        if value is None:
+            return
+        self.data = value
+        p = value["poles"]
+        self.closed.setData(p.real, p.imag)
+        self.feedback.setData(value["feedback"].real, value["feedback"].imag)
+        self.estimator.setData(value["estimator"].real, value["estimator"].imag)
+        g = value["guides"]
+        lines = [(x, y) for _z, x, y in g["rays"]] + [(x, y) for _w, x, y in g["circles"]]
+        while len(self.guides) < len(lines):
+            item = pg.PlotCurveItem(pen=_GUIDE)
+            self.plot.addItem(item, ignoreBounds=True)
+            self.guides.append(item)
+        for item, (x, y) in zip(self.guides, lines):
+            item.setData(x, y)
+        for item in self.guides[len(lines):]:
+            item.setData([], [])
+        for lab in self.guide_labels:
+            self.plot.removeItem(lab)
+        self.guide_labels = []
+        for z, x, y in g["rays"][::2]:
+            lab = pg.TextItem(f"ζ {z:g}", color="#8a94a0", anchor=(0.5, 1.0))
+            lab.setPos(x[1], y[1])
+            self.plot.addItem(lab, ignoreBounds=True)
+            self.guide_labels.append(lab)
+        for wn, x, y in g["circles"]:
+            lab = pg.TextItem(f"ωn {wn:g}", color="#8a94a0", anchor=(1.0, 0.0))
+            lab.setPos(-wn, 0.0)
+            self.plot.addItem(lab, ignoreBounds=True)
+            self.guide_labels.append(lab)
+        msg = f"{p.size} closed-loop poles"
+        if value["matches"] is True:
+            msg += "; they match eig(A − BK) ∪ eig(A − LC): the separation holds"
+        elif value["matches"] is False:
+            msg += "; they DIFFER from eig(A − BK) ∪ eig(A − LC)"
+        self.set_message(msg)
+        self.plot.enableAutoRange()
+
+    def _on_mouse(self, pos) -> None:
+        if not self.data or not self.data["table"]:
+            return
+        vb = self.plot.vb
+        best, best_d = None, 14.0
+        for row in self.data["table"]:
+            sp = vb.mapViewToScene(pg.Point(row["re"], row["im"]))
+            d = float(np.hypot(sp.x() - pos.x(), sp.y() - pos.y()))
+            if d < best_d:
+                best, best_d = row, d
+        if best is not None:
+            self.readout.setText(self.describe(best))
+
+    @staticmethod
+    def describe(row: dict) -> str:
+        im = f" ± {abs(row['im']):.4g}j" if row["im"] else ""
+        return f"pole {row['re']:.4g}{im}   damping ζ {row['damping']:.3g}   natural frequency ωn {row['wn_rad_s']:.4g} rad/s"
+
+    def plot_scene_item(self):
+        return self.canvas.ci
+
+    def table(self):
+        if not self.data:
+            return ["re", "im", "damping", "wn_rad_s"], []
+        rows = [[r["re"], r["im"], r["damping"], r["wn_rad_s"]] for r in self.data["table"]]
+        return ["re", "im", "damping", "wn_rad_s"], rows

@@ -1,0 +1,178 @@
+"""What the plot panels show (tests of engine/views_data.py), checked against python-control
+and closed forms."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import control as ct
+import numpy as np
+import pytest
+import scipy.linalg as sla
+from numpy.testing import assert_allclose
+
+from loopwright.engine.errors import AnalysisError, ParameterError, UnknownNameError
+from loopwright.engine.interconnect import assemble
+from loopwright.engine.noise import noise_budget
+from loopwright.engine.project import load
+from loopwright.engine.views_data import (
+    damping_guides,
+    disk_exclusion_circle,
+    estimation_error_names,
+    frequency_views,
+    loop_break_view,
+    noise_bars,
+    pair_frequency_response,
+    pair_time_response,
+    singular_values,
+    time_grid,
+    time_views,
+)
+
+SAMPLES = Path(__file__).resolve().parents[2] / "samples"
+CONVEYOR = SAMPLES / "conveyor_flexible_drive.lwd"
+OVEN = SAMPLES / "two_zone_oven.lwd"
+ROTOR = SAMPLES / "levitated_rotor_axis.lwd"
+
+
+def _ct_pair(model, src, sig):
+    return ct.ss(*model.pair(model.resolve_input(src), model.resolve_signal(sig)))
+
+
+@pytest.mark.parametrize("path,src,sig", [(CONVEYOR, "r", "y"), (CONVEYOR, "inject:u", "y"), (ROTOR, "dl", "y"), (OVEN, "dl", "y")],
+                         ids=["conveyor r->y", "conveyor inject u->y", "rotor dl->y", "oven dl->y (vector)"])
+def test_pair_frequency_response_matches_python_control(path, src, sig):
+    model = assemble(load(path))
+    resp = pair_frequency_response(model, src, sig)
+    ref = np.asarray(_ct_pair(model, src, sig)(1j * resp.w_rad_s, squeeze=False))  # python-control: (p, m, k)
+    assert_allclose(resp.response, np.moveaxis(ref, -1, 0), rtol=1e-8, atol=1e-12)
+    assert resp.mag_db.shape == resp.response.shape
+    # the marked peak is the largest magnitude on a dense python-control sweep (within 0.05 dB)
+    w_pk, db_pk = resp.peak()
+    dense = np.logspace(np.log10(resp.w_rad_s[0]), np.log10(resp.w_rad_s[-1]), 20000)
+    ref_db = 20 * np.log10(np.abs(np.asarray(_ct_pair(model, src, sig)(1j * dense, squeeze=False)))[0, 0])
+    assert db_pk >= ref_db.max() - 0.05
+    assert w_pk == pytest.approx(dense[np.argmax(ref_db)], rel=0.02)
+
+
+def test_frequency_views_reports_a_bad_pair_by_message_and_keeps_the_others():
+    out = frequency_views(load(CONVEYOR), [("r", "y"), ("r", "nosuch")])
+    assert out[0].signal == "y"
+    assert isinstance(out[1], str) and "nosuch" in out[1]
+
+
+def test_frequency_grid_options_are_checked():
+    model = assemble(load(CONVEYOR))
+    with pytest.raises(ParameterError):
+        pair_frequency_response(model, "r", "y", w_min=10.0, w_max=1.0)
+    with pytest.raises(UnknownNameError):
+        pair_frequency_response(model, "nosuch", "y")
+    resp = pair_frequency_response(model, "r", "y", w_min=0.1, w_max=100.0, points=50)
+    assert resp.w_rad_s.size == 50 and resp.w_rad_s[0] == pytest.approx(0.1)
+
+
+def test_singular_values_match_python_control():
+    model = assemble(load(OVEN))
+    resp = pair_frequency_response(model, "r", "y")
+    sv = singular_values(resp.response)
+    ref = ct.singular_values_response(_ct_pair(model, "r", "y"), resp.w_rad_s)  # python-control
+    assert_allclose(sv, np.asarray(ref.magnitude)[:, 0, :].T, rtol=1e-8)
+
+
+def test_step_run_matches_python_control_step_response():
+    d = load(CONVEYOR)
+    model = assemble(d)
+    t = time_grid(d, model)
+    run = pair_time_response(model, "step", "r", "y", t)
+    ref = ct.step_response(_ct_pair(model, "r", "y"), T=t)  # python-control
+    assert_allclose(run.y[:, 0], np.asarray(ref.outputs).ravel(), rtol=1e-6, atol=1e-9)
+    assert run.names == ["y"]
+
+
+def test_estimation_error_decays_with_the_estimator_dynamics_alone():
+    # Closed form (separation principle): e = x - xhat obeys e' = (A - L C) e whatever K is,
+    # so from x(0) = e0, xhat(0) = 0 the error is expm((A - L C) t) e0.
+    d = load(CONVEYOR)
+    model = assemble(d)
+    plant, est = d.block_by_name("P"), d.block_by_name("est")
+    A = np.asarray(plant.params["A"], float)
+    C = np.asarray(plant.params["C"], float)
+    L = np.asarray(est.params["L"], float)
+    n = A.shape[0]
+    e0 = np.linspace(1.0, 0.2, n)
+    runs = time_views(d, [("r", "error:est")], "initial", initial={"P": list(e0)}, t_end=0.5, dt=0.01)
+    run = runs[0]
+    assert run.names == [f"error:est[{i + 1}]" for i in range(n)] == list(estimation_error_names(model))
+    for k in (0, 10, 50):
+        assert_allclose(run.y[k], sla.expm((A - L @ C) * run.t[k]) @ e0, rtol=1e-6, atol=1e-9)
+
+
+def test_time_views_say_why_a_run_is_refused():
+    d = load(CONVEYOR)
+    with pytest.raises(ParameterError):
+        pair_time_response(assemble(d), "sideways", "r", "y", np.linspace(0, 1, 11))
+    assert "no estimator" in time_views(d, [("r", "error:nosuch")], "sources")[0]
+
+
+def test_damping_guides_lie_on_their_damping_ratio_and_natural_frequency():
+    g = damping_guides(10.0)
+    for zeta, x, y in g["rays"]:
+        s = complex(x[1], y[1])  # closed form: -Re(s)/|s| = zeta on the ray
+        assert -s.real / abs(s) == pytest.approx(zeta)
+        assert abs(s) == pytest.approx(10.0)
+    for wn, x, y in g["circles"]:
+        assert_allclose(np.hypot(x, y), wn)
+        assert np.all(x <= 1e-12)
+    assert [wn for wn, _, _ in g["circles"]] == [5.0, 10.0]  # round steps of 1, 2 or 5 times a power of ten, at most four
+
+
+def test_disk_exclusion_circle_closed_form():
+    # balanced disk of size alpha: gains (1 -+ a/2)/(1 +- a/2) map to -1/g on the real axis
+    c, r = disk_exclusion_circle(0.5, 2.0)
+    assert (c, r) == pytest.approx((-1.25, 0.75))
+    c, r = disk_exclusion_circle(0.5, np.inf)  # skew 1, alpha 1: the disk from -2 to 0
+    assert (c, r) == pytest.approx((-1.0, 1.0))
+
+
+@pytest.mark.parametrize("path", [CONVEYOR, ROTOR], ids=["conveyor", "rotor"])
+def test_loop_break_curve_touches_the_disk_margin_circle_and_agrees_with_python_control(path):
+    d = load(path)
+    view = loop_break_view(d, "P.u")
+    m = view.margins
+    L = view.curves[0]
+    c, r = view.circles[0]
+    dist = np.abs(L - c) - r
+    # L(jw) never enters the disk and touches it at the disk margin's critical frequency
+    assert dist.min() > -1e-6 * max(1.0, r)
+    k = int(np.argmin(np.abs(view.w_rad_s - m.disk.w_rad_s)))
+    assert abs(dist[k]) < 2e-3 * max(1.0, r)
+    # python-control's disk margin on a dense grid agrees with the margin drawn
+    from loopwright.engine.margins import loop_transfer
+
+    sys = ct.ss(*loop_transfer(d, "P.u"))
+    ref_L = np.asarray(sys(1j * view.w_rad_s)).ravel()
+    near = np.abs(ref_L) < 1e4  # where the loop has a pole at 0 both evaluations are ill conditioned
+    assert near.sum() > 100
+    assert_allclose(L[near], ref_L[near], rtol=1e-6, atol=1e-10)
+    dm, _, _ = ct.disk_margins(sys, view.w_rad_s, skew=0.0)
+    assert m.disk.alpha == pytest.approx(float(dm), rel=1e-3)
+
+
+def test_vector_break_gives_one_curve_per_channel_and_the_loci():
+    view = loop_break_view(load(OVEN), "P.u")
+    assert view.channel_names == ["P.u[1]", "P.u[2]"]
+    assert len(view.curves) == 2 and view.loci.shape == (view.w_rad_s.size, 2)
+    with pytest.raises(AnalysisError):
+        loop_break_view(load(OVEN), "r")
+
+
+def test_noise_bars_add_up_to_the_rms_in_proportion_to_the_variance():
+    model = assemble(load(CONVEYOR))
+    b = noise_budget(model)
+    bars = noise_bars(b, ["y", "u"])
+    assert [x.name for x in bars] == ["u", "y"] or [x.name for x in bars] == ["y", "u"]
+    for bar in bars:
+        assert sum(bar.parts.values()) == pytest.approx(bar.rms)
+        tot = sum(bar.variance_by_source.values())
+        for s, v in bar.variance_by_source.items():
+            assert bar.parts[s] / bar.rms == pytest.approx(v / tot)
+    assert len(noise_bars(b)) == len(b.lines)

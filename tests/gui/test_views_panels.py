@@ -1,0 +1,204 @@
+"""The time view, pole map, loop-break view, singular-value view, noise budget and path
+audit on each sample (tests of gui/docks/): what the plot items hold equals the engine's
+numbers; an audit row lights exactly its path; every view exports; 800x600 stays readable."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from loopwright.engine.audit import path_audit
+from loopwright.engine.check import summarize
+from loopwright.engine.interconnect import assemble
+from loopwright.engine.margins import LoopMargins
+from loopwright.engine.noise import noise_budget
+from loopwright.engine.project import load
+from loopwright.engine.views_data import loop_break_view, noise_bars, singular_value_views, time_views
+
+from gui_helpers import SAMPLES
+
+pytestmark = pytest.mark.qt
+
+
+@pytest.fixture
+def wait_views(qtbot):
+    def _wait(win, timeout=30000):
+        qtbot.waitUntil(lambda: win.views.is_idle() and win.live.is_current(), timeout=timeout)
+
+    return _wait
+
+
+def _open_with_pairs(win, path, pairs):
+    win.show()
+    assert win.open_sample(str(path))
+    for src, sig in pairs:
+        win.picker.pick_input(src)
+        win.picker.pick_output(sig)
+
+
+def _show(win, key, wait_views):
+    win.view_docks[key].show()
+    win.view_docks[key].raise_()
+    win.views.refresh(key)
+    wait_views(win)
+    return win.panels[key]
+
+
+@pytest.mark.parametrize("path", SAMPLES, ids=[p.stem for p in SAMPLES])
+def test_time_view_step_and_source_runs_equal_the_engine(window, wait_views, path):
+    _open_with_pairs(window, path, [("r", "y"), ("dl", "y")])
+    panel = _show(window, "time", wait_views)
+    d = load(path)
+    for kind in ("step", "sources"):
+        panel.set_run_kind(kind)
+        wait_views(window)
+        ref = time_views(d, [("r", "y"), ("dl", "y")], kind)
+        for pair, run in zip([("r", "y"), ("dl", "y")], ref):
+            for c, name in enumerate(run.names):
+                t, y = panel.curves[(pair, name)].getOriginalDataset()
+                assert_allclose(t, run.t)
+                assert_allclose(y, run.y[:, c], rtol=1e-9, atol=1e-15)
+    assert "seed 7" in panel.note.text()  # the white source's seed is named under a source run
+
+
+def test_time_view_shows_the_estimation_error_from_an_initial_state(window, wait_views):
+    path = next(p for p in SAMPLES if p.stem == "levitated_rotor_axis")
+    _open_with_pairs(window, path, [("r", "y")])
+    panel = _show(window, "time", wait_views)
+    panel.set_run_kind("initial")
+    panel.show_error_box.setChecked(True)
+    wait_views(window)
+    assert panel.initial.text() == "P=1"
+    ref = time_views(load(path), [("r", "error:est")], "initial", initial={"P": [1.0]})[0]
+    t, e1 = panel.curves[(("r", "error:est"), ref.names[0])].getOriginalDataset()
+    assert_allclose(e1, ref.y[:, 0], rtol=1e-9, atol=1e-15)
+    assert e1[0] == pytest.approx(1.0) and abs(e1[-1]) < 1e-3  # the estimator catches up
+
+
+@pytest.mark.parametrize("path", SAMPLES, ids=[p.stem for p in SAMPLES])
+def test_pole_map_shows_the_closed_loop_and_the_designed_poles(window, wait_views, path):
+    _open_with_pairs(window, path, [])
+    panel = _show(window, "poles", wait_views)
+    rep = summarize(load(path))
+    x, y = panel.closed.getOriginalDataset()
+    assert_allclose(np.sort_complex(x + 1j * y), np.sort_complex(rep.poles), rtol=1e-9, atol=1e-12)
+    fx, fy = panel.feedback.getOriginalDataset()
+    ex, ey = panel.estimator.getOriginalDataset()
+    assert_allclose(np.sort_complex(fx + 1j * fy), np.sort_complex(rep.separation.state_feedback_poles))
+    assert_allclose(np.sort_complex(ex + 1j * ey), np.sort_complex(rep.separation.estimator_poles))
+    assert "separation holds" in panel.message.text()
+    # the hover read-out: damping and natural frequency of a pole (closed form zeta = -Re/|p|)
+    p = rep.poles[np.argmax(np.abs(rep.poles.imag))]
+    row = {"re": p.real, "im": p.imag, "damping": -p.real / abs(p), "wn_rad_s": abs(p)}
+    assert f"{abs(p):.4g} rad/s" in panel.describe(row)
+
+
+@pytest.mark.parametrize("path", SAMPLES, ids=[p.stem for p in SAMPLES])
+def test_loop_break_view_lists_the_engines_margins_and_draws_its_curve(window, wait_views, path):
+    _open_with_pairs(window, path, [])
+    panel = _show(window, "loop_break", wait_views)
+    ref = loop_break_view(load(path), "P.u")
+    x, y = panel.curve.getOriginalDataset()
+    assert_allclose(x + 1j * y, ref.curves[0], rtol=1e-9)
+    m = ref.margins if isinstance(ref.margins, LoopMargins) else ref.margins.per_channel[0]
+    listed = panel.listed_margins()
+    assert listed["closed loop"] == "stable"
+    assert f"{m.phase_margin_deg:.4g}°" in listed["phase margin"]
+    assert f"{m.disk.alpha:.4g}" in listed["disk margin α"]
+    dx, dy = panel.disk.getOriginalDataset()
+    c, r = ref.circles[0]
+    assert_allclose(np.hypot(dx - c, dy), r)
+    if len(ref.curves) > 1:  # a vector break: each channel, then all loops at once
+        panel.channel.setCurrentIndex(len(ref.curves))
+        assert "all loops at once" in " ".join(panel.listed_margins())
+        assert f"{ref.margins.all_at_once.alpha:.4g}" in panel.listed_margins()["disk margin α (all loops at once)"]
+
+
+def test_singular_value_view_equals_the_engine_for_a_vector_pair(window, wait_views):
+    path = next(p for p in SAMPLES if p.stem == "two_zone_oven")
+    _open_with_pairs(window, path, [("r", "y")])
+    panel = _show(window, "singular_values", wait_views)
+    w, sv = singular_value_views(load(path), [("r", "y")])[0]
+    for i in range(2):
+        x, y = panel.curves[(("r", "y"), i)].getOriginalDataset()
+        assert_allclose(x, w)
+        assert_allclose(y, sv[:, i], rtol=1e-9)
+
+
+@pytest.mark.parametrize("path", SAMPLES, ids=[p.stem for p in SAMPLES])
+def test_noise_budget_bars_and_table_equal_the_engine(window, wait_views, path):
+    _open_with_pairs(window, path, [("r", "y")])
+    panel = _show(window, "noise", wait_views)
+    bars = noise_bars(noise_budget(assemble(load(path))), ["y"])
+    heights = panel.bar_heights()
+    for src in heights:
+        assert_allclose(heights[src], [b.parts[src] for b in bars], rtol=1e-9)
+    assert [panel.table_widget.item(i, 0).text() for i in range(panel.table_widget.rowCount())] == [b.name for b in bars]
+    assert panel.table_widget.item(0, 1).text() == f"{bars[0].rms:.4g}"
+
+
+@pytest.mark.parametrize("path", SAMPLES, ids=[p.stem for p in SAMPLES])
+def test_audit_row_lights_exactly_its_path_and_shows_it_in_the_frequency_view(window, wait_views, path):
+    _open_with_pairs(window, path, [])
+    panel = _show(window, "audit", wait_views)
+    rows = path_audit(assemble(load(path)))
+    assert [(r.source, r.signal, r.peak_gain) for r in panel.rows] == [(r.source, r.signal, r.peak_gain) for r in rows]
+    assert "worst stable path" in window.statusBar().currentMessage()
+    k = 2
+    panel.select_row(k)
+    lit_b = {b for b, it in window.scene.block_items.items() if it._highlighted}
+    lit_w = {w for w, it in window.scene.wire_items.items() if it._highlighted}
+    assert lit_b == set(rows[k].block_ids) and lit_w == set(rows[k].wire_ids)
+    wait_views(window)
+    freq = window.panels["frequency"]
+    assert freq.audit_pair == (rows[k].source, rows[k].signal)
+    assert any(key[0] == freq.audit_pair for key in freq.curves)
+    panel.grid.clearSelection()
+    assert not any(it._highlighted for it in window.scene.block_items.values())
+
+
+def test_every_view_exports_picture_and_data(window, wait_views, tmp_path):
+    path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+    _open_with_pairs(window, path, [("r", "y")])
+    for key, panel in window.panels.items():
+        _show(window, key, wait_views)
+        panel.save_picture(tmp_path / f"{key}.svg")
+        panel.save_picture(tmp_path / f"{key}.png")
+        panel.save_data(tmp_path / f"{key}.csv")
+        assert (tmp_path / f"{key}.svg").read_text(encoding="utf-8").lstrip().startswith("<?xml")
+        assert (tmp_path / f"{key}.png").stat().st_size > 1000
+        lines = (tmp_path / f"{key}.csv").read_text(encoding="utf-8").splitlines()
+        assert len(lines) > 1, key
+    # the CSV of the frequency view holds the engine's numbers
+    import csv
+
+    with open(tmp_path / "frequency.csv", encoding="utf-8") as fh:
+        rows = list(csv.reader(fh))
+    ref = window.panels["frequency"].data[("r", "y")]
+    assert float(rows[1][3]) == pytest.approx(float(ref.mag_db[0, 0, 0]))
+
+
+def test_views_stay_readable_at_800_by_600(window, wait_views, screenshot_dir):
+    path = next(p for p in SAMPLES if p.stem == "two_zone_oven")
+    _open_with_pairs(window, path, [("r", "y"), ("dl", "y")])
+    window.resize(800, 600)
+    wait_views(window)
+    assert window.width() <= 820 and window.height() <= 620  # no panel forces the window wider
+    for key in ("frequency", "time", "poles", "loop_break", "noise"):
+        panel = _show(window, key, wait_views)
+        assert panel.width() >= 150 and panel.height() >= 120, key
+        window.grab().save(str(screenshot_dir / f"views_800x600_{key}.png"))
+
+
+def test_a_pole_warning_in_the_problems_list_opens_the_pole_map(window, wait_views):
+    from loopwright.gui.problems import view_for_warning
+
+    assert view_for_warning("2 poles on the imaginary axis: the loop is at best marginally stable") == "poles"
+    assert view_for_warning("block 'K' is stale") is None
+    window.show()
+    window.problems.set_problems([], warnings=("closed-loop poles differ from eig(A - B K) with eig(A - L C)",))
+    window.view_docks["frequency"].raise_()
+    item = window.problems.item(0)
+    assert "pole map" in item.text()
+    window.problems._on_clicked(item)
+    assert not window.view_docks["poles"].visibleRegion().isEmpty()
