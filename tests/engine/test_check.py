@@ -33,7 +33,7 @@ def observer_loop(A, B, C, K, L) -> Diagram:
 
 
 def test_stage_separation_matches_reference():
-    # REFERENCES.md REF-03: eig(A - B K) = -2 +- 2j, eig(A - L C) = -5, -6
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand): eig(A - B K) = -2 +- 2j, eig(A - L C) = -5, -6
     rep = summarize(stage_loop())
     assert rep.stable and rep.rhp_poles == 0 and rep.states == 4
     sep = rep.separation

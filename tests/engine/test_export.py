@@ -52,7 +52,7 @@ def test_closed_loop_json_round_trip_keeps_matrices_names_and_caution(tmp_path):
 
 
 def test_path_export_has_the_path_dc_gain(tmp_path):
-    # REFERENCES.md REF-03: DC gain d -> y is 82/240.
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand): DC gain d -> y is 82/240.
     m = path_model(_stage(), "dist", "y")
     assert m.input_names == ("dist",) and m.output_names == ("y",)
     assert_allclose(ct.dcgain(ct.ss(m.A, m.B, m.C, m.D)), 82.0 / 240.0, rtol=1e-9)
