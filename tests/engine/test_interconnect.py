@@ -201,10 +201,13 @@ def test_unit_gain_is_the_identity(values):
 
 def test_injection_adds_at_the_signal():
     m = assemble(stage_loop())
-    # injecting at the plant output behaves as sensor noise: same DC map to xhat as a step in y
-    G = tf_eval(m, "P.y", "P.y", 0.0)  # bare signal name means its injection
+    # An injection n at P.y is sensor noise: P.y = n + P(s) u, u = -C(s) P.y, so the map
+    # n -> P.y is S = 1/(1 + L) with L of tests/REFERENCES.md#stage-observer (derived by hand):
+    # S(s) = s^2 (s^2 + 15 s + 82)/(s^4 + 15 s^3 + 82 s^2 + 208 s + 240); S(0) = 0.
     assert m.resolve_input("P.y") == "inject:P.y"
-    assert G.shape == (1, 1) and np.isfinite(G).all()
+    for s in (0.0, 0.7j, 3.0j, 20.0j):
+        S = s**2 * (s**2 + 15 * s + 82) / (s**4 + 15 * s**3 + 82 * s**2 + 208 * s + 240)
+        assert_allclose(tf_eval(m, "P.y", "P.y", s), [[S]], rtol=1e-10, atol=1e-14)
 
 
 def test_break_at_one_input_port_cuts_only_that_consumer():

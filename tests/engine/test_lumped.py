@@ -130,10 +130,26 @@ def test_sampled_plant_is_zoh_of_plant_path():
 
 def test_levitated_rotor_sample_controller_is_stable_loop_with_two_sided_gain_margin():
     # Open-loop unstable plant (pole at +63 rad/s, demo data): finite lower gain margin.
-    d = load(str(resources.files("loopwright.samples") / "levitated_rotor_axis.lwd"))
+    # Independent values (tests/independent.py: eigenvalues of the loop scaled by g, scipy
+    # 1.17.1 brentq): gain factors 0.30249489825 (at 0 rad/s) and 2.4829646189 (306.22 rad/s),
+    # phase margin 26.97694618 deg at 124.2778107 rad/s.
+    import json
+
+    from independent import gain_margin_factor, phase_margin, rotor_sample_parts
+
+    path = resources.files("loopwright.samples") / "levitated_rotor_axis.lwd"
+    parts = rotor_sample_parts(json.loads(path.read_text(encoding="utf-8")))
+    d = load(str(path))
     res = sampled_loop_margins(d, measured=["y_meas"], actuator="u", ts=1e-4)
     assert res.continuous.closed_loop_stable and res.sampled.closed_loop_stable
-    assert 0 < res.continuous.gain_lower < 1 < res.continuous.gain_upper < np.inf
+    g_lo, _ = gain_margin_factor(*parts, 0.05, 0.99)
+    g_hi, w_hi = gain_margin_factor(*parts, 1.01, 20.0)
+    pm, wc = phase_margin(*parts, 50.0, 200.0)
+    assert_allclose(res.continuous.gain_lower, g_lo, rtol=1e-8)
+    assert_allclose(res.continuous.gain_upper, g_hi, rtol=1e-8)
+    assert_allclose(res.continuous.gain_upper_w_rad_s, w_hi, rtol=1e-7)
+    assert_allclose(res.continuous.phase_margin_deg, pm, rtol=1e-8)
+    assert_allclose(res.continuous.delay_margin_s, np.radians(pm) / wc, rtol=1e-8)
     assert abs(res.delta["phase_margin_deg"]) < 1.0
 
 

@@ -5,7 +5,7 @@ import control as ct
 import numpy as np
 import pytest
 import scipy.integrate as si
-from hypothesis import given, settings
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
@@ -214,16 +214,35 @@ def test_open_loop_unstable_loop_interval_agrees_with_the_closed_loop_pole_count
 @settings(max_examples=20, deadline=None)
 @given(k=st.floats(0.2, 7.5), p=st.floats(0.3, 3.0))
 def test_margins_match_python_control_stability_margins(k, p):
-    # python-control 0.10.2 stability_margins on a stable triple lag k/(s+p)^3
+    # k/(s+p)^3, closed forms (common practice, no source): phase crossover at p sqrt 3 where
+    # |L| = k/(8 p^3), so the upper gain factor is 8 p^3/k and the closed loop is stable iff
+    # k/p^3 < 8 (Routh); gain crossover w_c = sqrt(k^(2/3) - p^2) when k > p^3, phase margin
+    # 180 - 3 atan(w_c/p) deg (negative when unstable). python-control 0.10.2
+    # stability_margins agrees on the stable draws.
+    assume(abs(k / p**3 - 8) > 0.05 and abs(k / p**3 - 1) > 1e-3)
     L = ct.tf([k], np.polymul([1, p], np.polymul([1, p], [1, p])))
-    gm, pm, _, wpc, wgc, _ = ct.stability_margins(L)
     m = loop_margins(*_ss(L))
-    if k / p**3 < 8:  # stable closed loop
+    stable = k / p**3 < 8
+    assert m.closed_loop_stable is stable
+    assert_allclose(m.phase_crossovers_w_rad_s, [p * np.sqrt(3)], rtol=1e-8)
+    if k > p**3:
+        wc = np.sqrt(k ** (2 / 3) - p**2)
+        assert_allclose(m.gain_crossovers_w_rad_s, [wc], rtol=1e-8)
+        assert_allclose(m.phase_margin_deg, 180 - 3 * np.degrees(np.arctan(wc / p)), rtol=1e-8, atol=1e-9)
+    else:
+        assert m.gain_crossovers_w_rad_s == []
+    if stable:
+        assert_allclose(m.gain_upper, 8 * p**3 / k, rtol=1e-8)
+        assert_allclose(m.gain_upper_w_rad_s, p * np.sqrt(3), rtol=1e-8)
+        assert m.gain_lower == 0.0
+        gm, pm, _, wpc, wgc, _ = ct.stability_margins(L)
         assert_allclose(m.gain_upper, gm, rtol=1e-6)
         assert_allclose(m.gain_upper_w_rad_s, wpc, rtol=1e-6)
-        if np.isfinite(pm) and k / p**3 > 1:
+        if k > p**3:
             assert_allclose(m.phase_margin_deg, pm, rtol=1e-6)
             assert_allclose(m.phase_margin_w_rad_s, wgc, rtol=1e-6)
+    else:
+        assert m.peak_sensitivity == np.inf and m.disk.alpha == 0.0
 
 
 @pytest.mark.parametrize(
