@@ -60,3 +60,17 @@ def rotor_sample_parts(diagram_json: dict):
     P = by["P"]
     return (np.array(P["A"], float), np.array(P["B"], float), np.array(P["C"], float),
             -np.array(by["K"]["K"], float), np.array(by["est"]["L"], float))
+
+
+def observer_controller(A, B, C, K_block, L, s: complex) -> np.ndarray:
+    """``G_c(s)`` of ``u = K_block xhat``, ``xhat' = A xhat + B u + L (y - C xhat)`` (y -> u)."""
+    A, B, C, Kb, L = (np.atleast_2d(np.asarray(M, dtype=float)) for M in (A, B, C, K_block, L))
+    return Kb @ np.linalg.solve(s * np.eye(A.shape[0]) - A - B @ Kb + L @ C, L)
+
+
+def state_space_at(A, B, C, D, s: complex) -> np.ndarray:
+    """``C (sI - A)^-1 B + D`` (``s`` may be a point ``z`` of a discrete model)."""
+    A, B, C, D = (np.atleast_2d(np.asarray(M, dtype=float)) for M in (A, B, C, D))
+    if A.size == 0:
+        return D.astype(complex)
+    return C @ np.linalg.solve(s * np.eye(A.shape[0]) - A, B) + D
