@@ -38,6 +38,8 @@ def test_quick_start_has_exactly_two_commands_and_the_caution():
 # token by token: words exactly, numbers to the precision the README prints them (half a
 # unit in its last digit). A line "..." in the README skips output lines (an excerpt).
 # Masked: the separation gap, a rounding-level number that depends on the BLAS kernels.
+# The README's numbers are regression values (the program's own output, written down so
+# the front page cannot drift), not references; the references are in tests/REFERENCES.md.
 # When an output format changes on purpose, regenerate the README block from the command.
 
 import os  # noqa: E402
