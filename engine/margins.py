@@ -1,7 +1,7 @@
 """Loop-break margins: gain-margin interval, phase and delay margins, peak sensitivity and
 disk margins, for a loop transfer ``L`` given as state space or as a sampled response.
 
-Conventions (see the shared reference cases): at a loop break ``L = -G(break -> signal)``
+Conventions (as in tests/REFERENCES.md): at a loop break ``L = -G(break -> signal)``
 with every source at zero; ``S = (I + L)^-1``, ``T = I - S``.
 
 * **Gain margin** is the interval ``(g_lower, g_upper)`` of real factors ``g > 0`` for
@@ -180,8 +180,8 @@ def _disk_dict(d: DiskMargin) -> dict:
 def disk_margin_from_alpha(alpha: float, *, skew: float = 0.0, w_rad_s: float = np.nan) -> DiskMargin:
     """Gain interval and phase margin implied by a disk of size ``alpha`` and skew ``sigma``.
 
-    Uses the ``arccos(g_lo)`` limit when the upper gain is unbounded (REFERENCES.md REF-04
-    note).
+    Uses the ``arccos(g_lo)`` limit when the upper gain is unbounded (the limit of the
+    disk-margin phase formula, tests/REFERENCES.md#reactor-lqr).
 
     Examples
     --------

@@ -9,6 +9,23 @@ os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 from pathlib import Path  # noqa: E402
 
 import pytest  # noqa: E402
+from hypothesis import HealthCheck, settings  # noqa: E402
+
+# CI runs the property tests derandomized (the same examples on every run, so a red build
+# is reproducible) with no deadline (a loaded shared runner must not fail a test for time).
+# Tests that ask for their own max_examples keep it; the rest get 50. Locally the default
+# profile draws fresh examples each run. Selected by LOOPWRIGHT_HYPOTHESIS_PROFILE=ci;
+# registered here, before any test module applies its @settings.
+settings.register_profile(
+    "ci",
+    derandomize=True,
+    max_examples=50,
+    deadline=None,
+    database=None,
+    print_blob=True,
+    suppress_health_check=[HealthCheck.too_slow],
+)
+settings.load_profile(os.environ.get("LOOPWRIGHT_HYPOTHESIS_PROFILE", "default"))
 
 SCREENSHOT_DIR = Path(__file__).parent / "_screenshots"
 

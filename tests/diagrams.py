@@ -1,4 +1,5 @@
-"""Diagrams shared by the engine tests: the bundled samples and the REF-03 stage loops."""
+"""Diagrams shared by the engine tests: the bundled samples and the observer-based stage loops of
+tests/REFERENCES.md#stage-observer."""
 from __future__ import annotations
 
 from importlib import resources
@@ -14,7 +15,7 @@ def sample_path(name: str) -> Path:
 
 
 def stage_loop_ref03() -> Diagram:
-    """REFERENCES.md REF-03: air-bearing stage, K = [8, 4], L = [11, 30], disturbance at the plant input."""
+    """tests/REFERENCES.md#stage-observer (separation principle, derived by hand): air-bearing stage, K = [8, 4], L = [11, 30], disturbance at the plant input."""
     d = Diagram()
     d.add_block("source", "d", {"role": "disturbance", "width": 1})
     d.add_block("plant", "P", {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
@@ -34,7 +35,7 @@ STAGE = {"A": [[0.0, 1.0], [0.0, 0.0]], "B": [[0.0], [1.0]], "C": [[1.0, 0.0]], 
 
 
 def stage_servo(k_recipe=None, l_recipe=None, *, plant=STAGE, disturbance=None, noise=None) -> Diagram:
-    """The observer-based loop of REFERENCES.md REF-03 (air-bearing stage, demo data)."""
+    """The observer-based loop of tests/REFERENCES.md#stage-observer (air-bearing stage, demo data)."""
     d = Diagram()
     d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0}})
     d.add_block("source", "dist", {"role": "disturbance", "width": 1,
@@ -62,7 +63,7 @@ def stage_servo(k_recipe=None, l_recipe=None, *, plant=STAGE, disturbance=None, 
 
 
 def stage_loop_named(*, linked: bool = True) -> Diagram:
-    """REFERENCES.md REF-03 with named wires (xhat, ufb, dist, plant_input, y) and a step
+    """tests/REFERENCES.md#stage-observer (separation principle, derived by hand) with named wires (xhat, ufb, dist, plant_input, y) and a step
     disturbance; ``linked=False`` gives the estimator its own copy of the plant model."""
     stage = {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]}
     d = Diagram()

@@ -33,7 +33,7 @@ def observer_loop(A, B, C, K, L) -> Diagram:
 
 
 def test_stage_separation_matches_reference():
-    # REFERENCES.md REF-03: eig(A - B K) = -2 +- 2j, eig(A - L C) = -5, -6
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand): eig(A - B K) = -2 +- 2j, eig(A - L C) = -5, -6
     rep = summarize(stage_loop())
     assert rep.stable and rep.rhp_poles == 0 and rep.states == 4
     sep = rep.separation
@@ -120,4 +120,8 @@ def test_unstable_loop_counts_right_half_plane_poles():
     d = stage_loop()
     d.set_params(d.block_by_name("Kx").id, {"K": [[8, 4]]})  # positive feedback
     rep = summarize(d)
-    assert not rep.stable and rep.rhp_poles >= 1
+    # closed form: eig(A + B [8, 4]) solves s^2 - 4 s - 8 = 0, s = 2 +- 2 sqrt 3 (one in the
+    # right half-plane); the observer keeps -5, -6 (tests/REFERENCES.md#stage-observer)
+    assert not rep.stable and rep.rhp_poles == 1
+    expected = [2 - 2 * np.sqrt(3), 2 + 2 * np.sqrt(3), -5.0, -6.0]
+    assert_allclose(np.sort(np.asarray(rep.poles).real), np.sort(expected), atol=1e-9)

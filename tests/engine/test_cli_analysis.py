@@ -26,7 +26,7 @@ def _path(name: str) -> str:
 
 
 def _oven_file(tmp_path, K: float = 4.0) -> str:
-    # REFERENCES.md REF-09 diagram
+    # tests/REFERENCES.md#oven-margins (closed forms by hand) diagram
     d = Diagram()
     d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0, "start": 0.0}})
     d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
@@ -47,7 +47,7 @@ def _json(capsys):
 
 
 def test_margins_json_of_the_oven_has_the_reference_values(tmp_path, capsys):
-    # REFERENCES.md REF-09: GM 2 (6.0206 dB) at sqrt(3), PM 27.1416306 deg, DM 0.3842501695 s, ||S|| 3
+    # tests/REFERENCES.md#oven-margins (closed forms by hand): GM 2 (6.0206 dB) at sqrt(3), PM 27.1416306 deg, DM 0.3842501695 s, ||S|| 3
     assert main(["margins", _oven_file(tmp_path), "--json"]) == 0
     out = _json(capsys)
     assert out["gain_margin_db"][0] == "-inf"
@@ -94,7 +94,7 @@ def test_freq_csv_and_vector_pairs(capsys):
 
 
 def test_time_step_json_reaches_the_reference_dc_gain(tmp_path, capsys):
-    # REF-09 closed loop r -> y settles at 4/(1+4) = 0.8 (common practice, no source)
+    # tests/REFERENCES.md#oven-margins closed loop r -> y settles at 4/(1+4) = 0.8 (common practice, no source)
     assert main(["time", _oven_file(tmp_path), "--step", "r", "--to", "y,u", "--t-end", "100", "--dt", "0.01", "--json"]) == 0
     out = _json(capsys)
     assert_allclose(out["t"][-1], 100.0)

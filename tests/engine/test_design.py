@@ -32,10 +32,10 @@ CONVEYOR_B = [[0.0], [0.0], [5.0]]
 
 # (A, B, poles, method, expected K, tolerance, source)
 PLACEMENT_CASES = [
-    (STAGE_A, STAGE_B, [[-2, 2], [-2, -2]], "place", [[8.0, 4.0]], 1e-9, "REFERENCES.md REF-01"),
-    (STAGE_A, STAGE_B, [[-2, 2], [-2, -2]], "ackermann", [[8.0, 4.0]], 1e-9, "REFERENCES.md REF-01"),
-    (CONVEYOR_A, CONVEYOR_B, [-4, -5, -6], "place", [[6.0, 2.2, 0.6]], 1e-9, "REFERENCES.md REF-02"),
-    (CONVEYOR_A, CONVEYOR_B, [-4, -5, -6], "ackermann", [[6.0, 2.2, 0.6]], 1e-9, "REFERENCES.md REF-02"),
+    (STAGE_A, STAGE_B, [[-2, 2], [-2, -2]], "place", [[8.0, 4.0]], 1e-9, "tests/REFERENCES.md#stage-place (hand computation, common practice)"),
+    (STAGE_A, STAGE_B, [[-2, 2], [-2, -2]], "ackermann", [[8.0, 4.0]], 1e-9, "tests/REFERENCES.md#stage-place (hand computation, common practice)"),
+    (CONVEYOR_A, CONVEYOR_B, [-4, -5, -6], "place", [[6.0, 2.2, 0.6]], 1e-9, "tests/REFERENCES.md#conveyor-ackermann (Ackermann 1972 formula)"),
+    (CONVEYOR_A, CONVEYOR_B, [-4, -5, -6], "ackermann", [[6.0, 2.2, 0.6]], 1e-9, "tests/REFERENCES.md#conveyor-ackermann (Ackermann 1972 formula)"),
 ]
 
 
@@ -62,7 +62,7 @@ def test_place_state_feedback_agrees_with_python_control_place_on_two_input_plan
 
 
 def test_ackermann_gain_agrees_with_python_control_acker():
-    # python-control 0.10.2 `acker` as reference, REFERENCES.md REF-02 system.
+    # python-control 0.10.2 `acker` as reference, tests/REFERENCES.md#conveyor-ackermann (Ackermann 1972 formula) system.
     K = ackermann_gain(np.array(CONVEYOR_A), np.array(CONVEYOR_B), np.array([-4.0, -5.0, -6.0]))
     assert_allclose(K, np.atleast_2d(ct.acker(CONVEYOR_A, CONVEYOR_B, [-4, -5, -6])), atol=1e-9)
 
@@ -119,7 +119,7 @@ def test_placed_estimator_poles_equal_the_request_on_random_observable_plants(ca
 
 # (A, B, Q, R, expected K, expected P, closed-loop pole, source)
 LQR_CASES = [
-    ([[1.0]], [[1.0]], [[3.0]], [[1.0]], [[3.0]], [[3.0]], [-2.0], "REFERENCES.md REF-04"),
+    ([[1.0]], [[1.0]], [[3.0]], [[1.0]], [[3.0]], [[3.0]], [-2.0], "tests/REFERENCES.md#reactor-lqr (scalar Riccati closed form; Safonov and Athans 1977)"),
 ]
 
 
@@ -152,7 +152,7 @@ def test_lqr_with_diagonal_given_as_flat_list_equals_full_matrix():
 
 
 def test_kalman_gain_matches_scalar_closed_form():
-    # REFERENCES.md REF-05: a = -1, c = 1, W = 8, V = 1 -> L = 2, P = 2, pole -3.
+    # tests/REFERENCES.md#tank-kalman (scalar filter Riccati closed form): a = -1, c = 1, W = 8, V = 1 -> L = 2, P = 2, pole -3.
     res = kalman_gain([[-1.0]], [[1.0]], [[8.0]], [[1.0]], G=[[1.0]])
     assert_allclose(res.gain, [[2.0]], rtol=1e-9)
     assert_allclose(res.riccati, [[2.0]], rtol=1e-9)
@@ -180,7 +180,7 @@ def test_kalman_gain_defaults_noise_input_to_plant_b():
 
 
 def test_place_estimator_on_stage_matches_hand_computation():
-    # REFERENCES.md REF-03: det(sI - A + L C) = (s + 5)(s + 6) gives L = [11, 30]'.
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand): det(sI - A + L C) = (s + 5)(s + 6) gives L = [11, 30]'.
     res = place_estimator(STAGE_A, [[1.0, 0.0]], [-5, -6])
     assert_allclose(res.gain, [[11.0], [30.0]], atol=1e-9)
 
@@ -279,7 +279,7 @@ def test_poles_to_json_writes_complex_as_pairs():
 
 
 def test_discrete_lqr_agrees_with_python_control_dlqr_on_sampled_conveyor():
-    # python-control 0.10.2 dlqr as reference, on the REF-02 conveyor sampled by ZOH at 10 ms.
+    # python-control 0.10.2 dlqr as reference, on the tests/REFERENCES.md#conveyor-ackermann conveyor sampled by ZOH at 10 ms.
     from loopwright.engine.design import discrete_lqr_gain
     from loopwright.engine.discretize import discretize
 
@@ -329,7 +329,7 @@ def test_pbh_test_is_invariant_to_time_scaling(scale):
 
 def test_estimator_ackermann_agrees_with_python_control_acker_on_dual():
     # python-control 0.10.2 acker on the dual pair (A', C') as reference; conveyor of
-    # REFERENCES.md REF-02 measuring belt position.
+    # tests/REFERENCES.md#conveyor-ackermann (Ackermann 1972 formula) measuring belt position.
     C = np.array([[1.0, 0.0, 0.0]])
     res = place_estimator(CONVEYOR_A, C, [-10, -11, -12], method="ackermann")
     L_ct = np.atleast_2d(ct.acker(np.array(CONVEYOR_A).T, C.T, [-10, -11, -12])).T

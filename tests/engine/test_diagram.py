@@ -48,9 +48,12 @@ def test_ports_are_checked_by_direction():
         d.connect("P.u", "G.in")
     with pytest.raises(ConnectionError_, match="not an input port"):
         d.connect("r.out", "G.out")
-    with pytest.raises(UnknownNameError) as info:
+    with pytest.raises(UnknownNameError, match="no block named 'Q'") as info:
         d.connect("r.out", "Q.u")
-    assert "P" in info.value.suggestions or info.value.suggestions == ()
+    assert info.value.suggestions == ()  # nothing resembles "Q"
+    with pytest.raises(UnknownNameError, match="no block named 'PP'") as info:
+        d.connect("r.out", "PP.u")
+    assert info.value.suggestions == ("P",)  # one letter too many
 
 
 def test_rename_carries_default_signal_names_and_links():

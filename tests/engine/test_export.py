@@ -52,7 +52,7 @@ def test_closed_loop_json_round_trip_keeps_matrices_names_and_caution(tmp_path):
 
 
 def test_path_export_has_the_path_dc_gain(tmp_path):
-    # REFERENCES.md REF-03: DC gain d -> y is 82/240.
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand): DC gain d -> y is 82/240.
     m = path_model(_stage(), "dist", "y")
     assert m.input_names == ("dist",) and m.output_names == ("y",)
     assert_allclose(ct.dcgain(ct.ss(m.A, m.B, m.C, m.D)), 82.0 / 240.0, rtol=1e-9)
@@ -123,9 +123,22 @@ def test_model_to_dict_is_plain_json():
 
 
 def test_exported_discrete_controller_equals_engine_discretisation():
+    # The stage controller of tests/REFERENCES.md#stage-observer is, by hand,
+    # u = -(208 s + 240)/(s^2 + 15 s + 82) y; its zero-order-hold equivalent from
+    # scipy 1.17.1 cont2discrete must equal the exported model on the unit circle, and the
+    # exported matrices must be those of the engine's own discretisation.
+    from scipy.signal import cont2discrete, freqz
+
     d = _stage()
     k = lumped_controller(d, measured=["y_meas"], actuator=["u"])
     m = controller_model(d, measured=["y_meas"], actuator=["u"], ts=0.02, method="zoh")
-    ref = discretize(k.A, k.B, k.C, k.D, 0.02, method="zoh")
-    assert_allclose(m.A, ref.A, rtol=0, atol=0)
+    num, den, _ = cont2discrete(([-208.0, -240.0], [1.0, 15.0, 82.0]), 0.02, method="zoh")
+    w = np.array([0.1, 1.0, 10.0, 100.0]) * 0.02
+    _, ref = freqz(np.ravel(num), den, worN=w)
+    z = np.exp(1j * w)
+    ours = [(m.C @ np.linalg.solve(zk * np.eye(2) - m.A, m.B) + m.D)[0, 0] for zk in z]
+    assert_allclose(ours, ref, rtol=1e-9)
+    ref_m = discretize(k.A, k.B, k.C, k.D, 0.02, method="zoh")
+    for name in "ABCD":
+        assert_allclose(getattr(m, name), getattr(ref_m, name), rtol=0, atol=0)
     assert m.state_names == ("est.xhat1", "est.xhat2")

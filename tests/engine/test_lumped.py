@@ -37,7 +37,7 @@ def _freq(A, B, C, D, s):
 
 
 def test_stage_controller_matches_hand_transfer_function():
-    # REFERENCES.md REF-03: u = -(208 s + 240)/(s^2 + 15 s + 82) y.
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand): u = -(208 s + 240)/(s^2 + 15 s + 82) y.
     k = lumped_controller(_designed_stage(), measured=["y_meas"], actuator=["u"])
     assert k.state_names == ("est.xhat1", "est.xhat2")
     tf = controller_transfer_function(k)
@@ -87,7 +87,7 @@ def test_plant_path_of_stage_is_the_plant():
 
 def test_loop_from_lumped_parts_equals_loop_break_at_actuator():
     # L = -G_c P must equal the diagram's own loop break at u (margins.loop_transfer); as in
-    # REFERENCES.md REF-03 the estimator reads the command u_c, so a break at u opens the
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand) the estimator reads the command u_c, so a break at u opens the
     # plant input only.
     d = _designed_stage()
     k = lumped_controller(d, measured=["y_meas"], actuator=["u"])
@@ -98,7 +98,7 @@ def test_loop_from_lumped_parts_equals_loop_break_at_actuator():
 
 
 def test_sampled_margins_of_stage_match_python_control_and_converge_to_continuous():
-    # Continuous margins: REFERENCES.md REF-03 (gm 4.665310651, pm 38.48828081 deg,
+    # Continuous margins: tests/REFERENCES.md#stage-observer (separation principle, derived by hand) (gm 4.665310651, pm 38.48828081 deg,
     # delay margin 0.2516967597 s). Sampled: python-control 0.10.2 sample_system +
     # stability_margins on the discrete loop as reference.
     d = _designed_stage()
@@ -118,7 +118,7 @@ def test_sampled_margins_of_stage_match_python_control_and_converge_to_continuou
 
 
 def test_sampled_plant_is_zoh_of_plant_path():
-    # REFERENCES.md REF-01 stage, ZOH of 1/s^2: Ad = [[1, T], [0, 1]], Bd = [T^2/2, T]
+    # tests/REFERENCES.md#stage-place (hand computation, common practice) stage, ZOH of 1/s^2: Ad = [[1, T], [0, 1]], Bd = [T^2/2, T]
     # (common practice, no source).
     res = sampled_loop_margins(_designed_stage(), measured=["y_meas"], actuator="u", ts=0.1)
     T = 0.1
@@ -130,10 +130,26 @@ def test_sampled_plant_is_zoh_of_plant_path():
 
 def test_levitated_rotor_sample_controller_is_stable_loop_with_two_sided_gain_margin():
     # Open-loop unstable plant (pole at +63 rad/s, demo data): finite lower gain margin.
-    d = load(str(resources.files("loopwright.samples") / "levitated_rotor_axis.lwd"))
+    # Independent values (tests/independent.py: eigenvalues of the loop scaled by g, scipy
+    # 1.17.1 brentq): gain factors 0.30249489825 (at 0 rad/s) and 2.4829646189 (306.22 rad/s),
+    # phase margin 26.97694618 deg at 124.2778107 rad/s.
+    import json
+
+    from independent import gain_margin_factor, phase_margin, rotor_sample_parts
+
+    path = resources.files("loopwright.samples") / "levitated_rotor_axis.lwd"
+    parts = rotor_sample_parts(json.loads(path.read_text(encoding="utf-8")))
+    d = load(str(path))
     res = sampled_loop_margins(d, measured=["y_meas"], actuator="u", ts=1e-4)
     assert res.continuous.closed_loop_stable and res.sampled.closed_loop_stable
-    assert 0 < res.continuous.gain_lower < 1 < res.continuous.gain_upper < np.inf
+    g_lo, _ = gain_margin_factor(*parts, 0.05, 0.99)
+    g_hi, w_hi = gain_margin_factor(*parts, 1.01, 20.0)
+    pm, wc = phase_margin(*parts, 50.0, 200.0)
+    assert_allclose(res.continuous.gain_lower, g_lo, rtol=1e-8)
+    assert_allclose(res.continuous.gain_upper, g_hi, rtol=1e-8)
+    assert_allclose(res.continuous.gain_upper_w_rad_s, w_hi, rtol=1e-7)
+    assert_allclose(res.continuous.phase_margin_deg, pm, rtol=1e-8)
+    assert_allclose(res.continuous.delay_margin_s, np.radians(pm) / wc, rtol=1e-8)
     assert abs(res.delta["phase_margin_deg"]) < 1.0
 
 

@@ -5,7 +5,7 @@ import control as ct
 import numpy as np
 import pytest
 import scipy.integrate as si
-from hypothesis import given, settings
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
@@ -35,7 +35,7 @@ def _ss(sys):
 
 
 def _unity_loop(plant: dict, K: float, *, controller: dict | None = None) -> Diagram:
-    """r -> e = r - y -> [gain K or controller] -> P -> y (REFERENCES.md REF-09 layout)."""
+    """r -> e = r - y -> [gain K or controller] -> P -> y (tests/REFERENCES.md#oven-margins (closed forms by hand) layout)."""
     d = Diagram()
     d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0, "start": 0.0}})
     d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
@@ -53,12 +53,12 @@ def _unity_loop(plant: dict, K: float, *, controller: dict | None = None) -> Dia
 
 
 def _stage_observer_loop() -> Diagram:
-    # REFERENCES.md REF-03: air-bearing stage, K = [8, 4], L = [11, 30]
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand): air-bearing stage, K = [8, 4], L = [11, 30]
     return stage_loop_named(linked=False)
 
 
 def _reactor_lqr_loop() -> Diagram:
-    # REFERENCES.md REF-04
+    # tests/REFERENCES.md#reactor-lqr (scalar Riccati closed form; Safonov and Athans 1977)
     d = Diagram()
     d.add_block("source", "d", {"role": "disturbance", "width": 1, "waveform": {"kind": "zero"}})
     d.add_block("plant", "P", {"A": [[1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]]})
@@ -82,31 +82,31 @@ CASES = [
         _stage_observer_loop,
         "plant_input",
         dict(lo=0.0, hi=4.665310651, hi_w=8.043152845, pm=38.48828081, pm_w=2.668875135, dm=0.2516967597),
-        "REFERENCES.md REF-03",
+        "tests/REFERENCES.md#stage-observer (separation principle, derived by hand)",
     ),
     (
         _reactor_lqr_loop,
         "plant_input",
         dict(lo=1 / 3, lo_w=0.0, hi=np.inf, pm=70.52877937, pm_w=2 * np.sqrt(2), dm=0.4352098757, s_peak=1.0),
-        "REFERENCES.md REF-04",
+        "tests/REFERENCES.md#reactor-lqr (scalar Riccati closed form; Safonov and Athans 1977)",
     ),
     (
         lambda: _unity_loop(OVEN, 4.0),
         "u",
         dict(lo=0.0, hi=2.0, hi_w=np.sqrt(3), pm=27.1416306, pm_w=1.232818762, dm=0.3842501695, s_peak=3.0, s_w=np.sqrt(2)),
-        "REFERENCES.md REF-09",
+        "tests/REFERENCES.md#oven-margins (closed forms by hand)",
     ),
     (
         lambda: _unity_loop(CAMERA, 2.0),
         "u",
         dict(lo=0.0, hi=np.inf, pm=38.66828249, pm_w=1.249621068, dm=0.5400747979),
-        "REFERENCES.md REF-10",
+        "tests/REFERENCES.md#camera-pan-delay (closed form PM/w_c)",
     ),
     (
         lambda: _unity_loop(ROTOR, 0.0, controller=LEAD),
         "u",
         dict(lo=0.5, lo_w=0.0, hi=np.inf, pm=48.94734683, pm_w=6.234008542, dm=0.1370374065, s_peak=1.489134766, s_w=9.581343554),
-        "REFERENCES.md REF-12",
+        "tests/REFERENCES.md#rotor-sensitivity-integral (Freudenberg and Looze 1985)",
     ),
 ]
 
@@ -131,7 +131,7 @@ def test_margins_of_reference_diagrams(build, at, expected, source):
 
 
 def test_disk_margins_of_the_triple_lag_oven():
-    # REFERENCES.md REF-09: alpha 0.3776579041, gain [0.6823278038, 1.465571232], phase 21.38638975 deg
+    # tests/REFERENCES.md#oven-margins (closed forms by hand): alpha 0.3776579041, gain [0.6823278038, 1.465571232], phase 21.38638975 deg
     m = margins_at(_unity_loop(OVEN, 4.0), "u")
     assert_allclose(m.disk.alpha, 0.3776579041, rtol=1e-7)
     assert_allclose([m.disk.gain_lower, m.disk.gain_upper], [0.6823278038, 1.465571232], rtol=1e-7)
@@ -142,8 +142,8 @@ def test_disk_margins_of_the_triple_lag_oven():
 @pytest.mark.parametrize(
     "skew, alpha, lo, hi, phase, source",
     [
-        (0.0, 1.0, 1 / 3, 3.0, 53.13010235, "REFERENCES.md REF-04 skew 0"),
-        (1.0, 1.0, 0.5, np.inf, 60.0, "REFERENCES.md REF-04 skew +1 (the LQR guarantee; arccos(g_lo) limit)"),
+        (0.0, 1.0, 1 / 3, 3.0, 53.13010235, "tests/REFERENCES.md#reactor-lqr (scalar Riccati closed form; Safonov and Athans 1977) skew 0"),
+        (1.0, 1.0, 0.5, np.inf, 60.0, "tests/REFERENCES.md#reactor-lqr (scalar Riccati closed form; Safonov and Athans 1977) skew +1 (the LQR guarantee; arccos(g_lo) limit)"),
     ],
 )
 def test_disk_margins_of_the_lqr_reactor(skew, alpha, lo, hi, phase, source):
@@ -155,14 +155,14 @@ def test_disk_margins_of_the_lqr_reactor(skew, alpha, lo, hi, phase, source):
 
 
 def test_disk_margin_formula_uses_the_arccos_limit_when_the_upper_gain_is_unbounded():
-    # REFERENCES.md REF-04 note: alpha = 1, skew 1 gives 60 deg, not 90
+    # tests/REFERENCES.md#reactor-lqr (scalar Riccati closed form; Safonov and Athans 1977) note: alpha = 1, skew 1 gives 60 deg, not 90
     d = disk_margin_from_alpha(1.0, skew=1.0)
     assert d.gain_upper == np.inf
     assert_allclose(d.phase_deg, 60.0, rtol=1e-12)
 
 
 def test_bode_sensitivity_integral_with_an_unstable_plant():
-    # REFERENCES.md REF-12: int_0^inf ln|S(jw)| dw = pi * sum Re(p_unstable) = 2 pi
+    # tests/REFERENCES.md#rotor-sensitivity-integral (Freudenberg and Looze 1985): int_0^inf ln|S(jw)| dw = pi * sum Re(p_unstable) = 2 pi
     A, B, C, D = loop_transfer(_unity_loop(ROTOR, 0.0, controller=LEAD), "u")
     ol = np.linalg.eigvals(A)
 
@@ -214,25 +214,44 @@ def test_open_loop_unstable_loop_interval_agrees_with_the_closed_loop_pole_count
 @settings(max_examples=20, deadline=None)
 @given(k=st.floats(0.2, 7.5), p=st.floats(0.3, 3.0))
 def test_margins_match_python_control_stability_margins(k, p):
-    # python-control 0.10.2 stability_margins on a stable triple lag k/(s+p)^3
+    # k/(s+p)^3, closed forms (common practice, no source): phase crossover at p sqrt 3 where
+    # |L| = k/(8 p^3), so the upper gain factor is 8 p^3/k and the closed loop is stable iff
+    # k/p^3 < 8 (Routh); gain crossover w_c = sqrt(k^(2/3) - p^2) when k > p^3, phase margin
+    # 180 - 3 atan(w_c/p) deg (negative when unstable). python-control 0.10.2
+    # stability_margins agrees on the stable draws.
+    assume(abs(k / p**3 - 8) > 0.05 and abs(k / p**3 - 1) > 1e-3)
     L = ct.tf([k], np.polymul([1, p], np.polymul([1, p], [1, p])))
-    gm, pm, _, wpc, wgc, _ = ct.stability_margins(L)
     m = loop_margins(*_ss(L))
-    if k / p**3 < 8:  # stable closed loop
+    stable = k / p**3 < 8
+    assert m.closed_loop_stable is stable
+    assert_allclose(m.phase_crossovers_w_rad_s, [p * np.sqrt(3)], rtol=1e-8)
+    if k > p**3:
+        wc = np.sqrt(k ** (2 / 3) - p**2)
+        assert_allclose(m.gain_crossovers_w_rad_s, [wc], rtol=1e-8)
+        assert_allclose(m.phase_margin_deg, 180 - 3 * np.degrees(np.arctan(wc / p)), rtol=1e-8, atol=1e-9)
+    else:
+        assert m.gain_crossovers_w_rad_s == []
+    if stable:
+        assert_allclose(m.gain_upper, 8 * p**3 / k, rtol=1e-8)
+        assert_allclose(m.gain_upper_w_rad_s, p * np.sqrt(3), rtol=1e-8)
+        assert m.gain_lower == 0.0
+        gm, pm, _, wpc, wgc, _ = ct.stability_margins(L)
         assert_allclose(m.gain_upper, gm, rtol=1e-6)
         assert_allclose(m.gain_upper_w_rad_s, wpc, rtol=1e-6)
-        if np.isfinite(pm) and k / p**3 > 1:
+        if k > p**3:
             assert_allclose(m.phase_margin_deg, pm, rtol=1e-6)
             assert_allclose(m.phase_margin_w_rad_s, wgc, rtol=1e-6)
+    else:
+        assert m.peak_sensitivity == np.inf and m.disk.alpha == 0.0
 
 
 @pytest.mark.parametrize(
     "tf, P, k, expected, source",
     [
-        (ct.tf(4, [1, 3, 3, 1]), 0, 0, dict(hi=2.0, pm=27.1416306, dm=0.3842501695, s_peak=3.0, alpha=0.3776579041), "REFERENCES.md REF-09"),
-        (ct.tf([80, 80], [1, 10, -4, -40]), 1, 0, dict(lo=0.5, hi=np.inf, pm=48.94734683, dm=0.1370374065, s_peak=1.489134766), "REFERENCES.md REF-12"),
-        (ct.tf(2, [1, 1, 0]), 0, 1, dict(hi=np.inf, pm=38.66828249, dm=0.5400747979), "REFERENCES.md REF-10"),
-        (ct.tf(3, [1, -1]), 1, 0, dict(lo=1 / 3, hi=np.inf, pm=70.52877937, dm=0.4352098757, s_peak=1.0, alpha=1.0), "REFERENCES.md REF-04"),
+        (ct.tf(4, [1, 3, 3, 1]), 0, 0, dict(hi=2.0, pm=27.1416306, dm=0.3842501695, s_peak=3.0, alpha=0.3776579041), "tests/REFERENCES.md#oven-margins (closed forms by hand)"),
+        (ct.tf([80, 80], [1, 10, -4, -40]), 1, 0, dict(lo=0.5, hi=np.inf, pm=48.94734683, dm=0.1370374065, s_peak=1.489134766), "tests/REFERENCES.md#rotor-sensitivity-integral (Freudenberg and Looze 1985)"),
+        (ct.tf(2, [1, 1, 0]), 0, 1, dict(hi=np.inf, pm=38.66828249, dm=0.5400747979), "tests/REFERENCES.md#camera-pan-delay (closed form PM/w_c)"),
+        (ct.tf(3, [1, -1]), 1, 0, dict(lo=1 / 3, hi=np.inf, pm=70.52877937, dm=0.4352098757, s_peak=1.0, alpha=1.0), "tests/REFERENCES.md#reactor-lqr (scalar Riccati closed form; Safonov and Athans 1977)"),
     ],
 )
 def test_margins_from_sampled_response(tf, P, k, expected, source):
@@ -332,12 +351,12 @@ def test_sensitivity_maps_around_the_oven_plant():
     expect = {"S": 1 / (1 + P * Cc), "T": P * Cc / (1 + P * Cc), "PS": P / (1 + P * Cc), "CS": Cc / (1 + P * Cc)}
     for key, val in expect.items():
         assert_allclose(frequency_response(*maps[key], w)[:, 0, 0], val, rtol=1e-10, err_msg=key)
-    assert_allclose(peak_gain(*maps["S"]).value, 3.0, rtol=1e-8)  # REFERENCES.md REF-09 ||S||_inf = 3
+    assert_allclose(peak_gain(*maps["S"]).value, 3.0, rtol=1e-8)  # tests/REFERENCES.md#oven-margins (closed forms by hand) ||S||_inf = 3
     assert (maps["u"], maps["y"]) == ("u", "y")
 
 
 def test_closed_loop_matrix_gives_the_reference_poles():
-    # REFERENCES.md REF-09 closed-loop poles -2.587401052, -0.206299474 +- 1.374729637j
+    # tests/REFERENCES.md#oven-margins (closed forms by hand) closed-loop poles -2.587401052, -0.206299474 +- 1.374729637j
     A, B, C, D = loop_transfer(_unity_loop(OVEN, 4.0), "u")
     ev = np.sort_complex(np.linalg.eigvals(closed_loop_matrix(A, B, C, D)))
     assert_allclose(ev, np.sort_complex([-2.587401052, -0.206299474 - 1.374729637j, -0.206299474 + 1.374729637j]), atol=1e-8)

@@ -18,7 +18,7 @@ def _white(W, seed=1, role="noise"):
 
 
 def _tank_diagram(*, linked: bool) -> Diagram:
-    # REFERENCES.md REF-05: x' = -x + w, y = x + v, W = 8, V = 1, Kalman L = 2
+    # tests/REFERENCES.md#tank-kalman (scalar filter Riccati closed form): x' = -x + w, y = x + v, W = 8, V = 1, Kalman L = 2
     d = Diagram()
     d.add_block("source", "w", _white([[8.0]], 1, "disturbance"))
     d.add_block("source", "v", _white([[1.0]], 2))
@@ -41,7 +41,7 @@ def _tank_diagram(*, linked: bool) -> Diagram:
 
 
 def test_estimation_error_rms_of_the_scalar_kalman_tank():
-    # REFERENCES.md REF-05: steady-state RMS of x - xhat is sqrt(2)
+    # tests/REFERENCES.md#tank-kalman (scalar filter Riccati closed form): steady-state RMS of x - xhat is sqrt(2)
     b = noise_budget(assemble(_tank_diagram(linked=False)))
     assert_allclose(b.line("err.out").rms, np.sqrt(2.0), rtol=1e-8)
     # the error e' = -3 e + w - 2 v: w contributes 8/6, v contributes 4/6 (by hand)
@@ -50,14 +50,14 @@ def test_estimation_error_rms_of_the_scalar_kalman_tank():
 
 
 def test_linked_estimator_error_is_budgeted_by_state():
-    # same tank with the estimator linked to the plant: error:est is x_P - xhat (REFERENCES.md REF-05)
+    # same tank with the estimator linked to the plant: error:est is x_P - xhat (tests/REFERENCES.md#tank-kalman)
     b = noise_budget(assemble(_tank_diagram(linked=True)))
     assert_allclose(b.line("error:est").rms, np.sqrt(2.0), rtol=1e-8)
     assert_allclose(b.line("error:est").rms, b.line("err.out").rms, rtol=1e-12)
 
 
 def test_greenhouse_variance():
-    # REFERENCES.md REF-08: x' = -0.5 x + w, W = 0.04: variance 0.04, RMS 0.2
+    # tests/REFERENCES.md#greenhouse-noise (closed form W/(2a)): x' = -0.5 x + w, W = 0.04: variance 0.04, RMS 0.2
     d = Diagram()
     d.add_block("source", "gust", _white([[0.04]], 3, "disturbance"))
     d.add_block("plant", "air", {"A": [[-0.5]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]]})

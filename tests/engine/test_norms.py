@@ -19,9 +19,9 @@ G2 = ([[0.0, 1.0], [-25.0, -2.0]], [[0.0], [1.0]], [[25.0, 0.0]], [[0.0]])
 @pytest.mark.parametrize(
     "system, expected, tol, source",
     [
-        (G1, 0.5, 1e-9, "REFERENCES.md REF-06 ||1/(s+2)||_2 = 1/sqrt(4)"),
-        (G2, 2.5, 1e-9, "REFERENCES.md REF-06 ||25/(s^2+2s+25)||_2 = sqrt(wn/(4 zeta))"),
-        (([[-0.5]], [[1.0]], [[1.0]], [[0.0]]), 1.0, 1e-9, "REFERENCES.md REF-08 ||1/(s+0.5)||_2 = 1"),
+        (G1, 0.5, 1e-9, "tests/REFERENCES.md#lag-and-resonator-h2 (closed form) ||1/(s+2)||_2 = 1/sqrt(4)"),
+        (G2, 2.5, 1e-9, "tests/REFERENCES.md#lag-and-resonator-h2 (closed form) ||25/(s^2+2s+25)||_2 = sqrt(wn/(4 zeta))"),
+        (([[-0.5]], [[1.0]], [[1.0]], [[0.0]]), 1.0, 1e-9, "tests/REFERENCES.md#greenhouse-noise (closed form W/(2a)) ||1/(s+0.5)||_2 = 1"),
     ],
 )
 def test_h2_norm_reference_values(system, expected, tol, source):
@@ -33,7 +33,7 @@ def test_h2_norm_reference_values(system, expected, tol, source):
 @pytest.mark.parametrize(
     "system, expected, w_expected, source",
     [
-        (G2, 1 / (0.4 * np.sqrt(0.96)), 5 * np.sqrt(0.92), "REFERENCES.md REF-07 resonant peak 2.551551815 at 4.795831523 rad/s"),
+        (G2, 1 / (0.4 * np.sqrt(0.96)), 5 * np.sqrt(0.92), "tests/REFERENCES.md#resonator-peak (closed form) resonant peak 2.551551815 at 4.795831523 rad/s"),
         (G1, 0.5, 0.0, "1/(s+2) peaks at DC, common practice, no source"),
         (([[-1.0]], [[1.0]], [[-1.0]], [[1.0]]), 1.0, np.inf, "s/(s+1) approaches 1 as w -> inf, common practice, no source"),
     ],
@@ -117,12 +117,12 @@ def test_h2_is_infinite_with_direct_feedthrough():
     "system, expected, source",
     [
         (
-            # d -> y of REF-03: (s^2 + 15 s + 82)/((s^2 + 4 s + 8)(s^2 + 11 s + 30))
+            # d -> y of tests/REFERENCES.md#stage-observer: (s^2 + 15 s + 82)/((s^2 + 4 s + 8)(s^2 + 11 s + 30))
             ct.tf([1, 15, 82], np.polymul([1, 4, 8], [1, 11, 30])),
             82 / 240,
-            "REFERENCES.md REF-03 DC gain d -> y = 82/240",
+            "tests/REFERENCES.md#stage-observer (separation principle, derived by hand) DC gain d -> y = 82/240",
         ),
-        (ct.tf([80, 80], [1, 10, 76, 40]), 2.0, "REFERENCES.md REF-12 T(0) = 2"),
+        (ct.tf([80, 80], [1, 10, 76, 40]), 2.0, "tests/REFERENCES.md#rotor-sensitivity-integral (Freudenberg and Looze 1985) T(0) = 2"),
     ],
 )
 def test_dc_gain_reference_values(system, expected, source):

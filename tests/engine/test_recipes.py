@@ -23,7 +23,7 @@ from loopwright.engine.recipes import design_block, noise_defaults, redesign, st
 
 
 def test_designed_stage_loop_matches_hand_gains_and_separation_principle():
-    # REFERENCES.md REF-01 (K = [8, 4]) and REF-03 (L = [11, 30]', closed-loop poles).
+    # tests/REFERENCES.md#stage-place (hand computation, common practice) (K = [8, 4]) and tests/REFERENCES.md#stage-observer (L = [11, 30]', closed-loop poles).
     d = stage_loop({"method": "place", "poles": [[-2, 2], [-2, -2]]}, {"method": "place", "poles": [-5, -6]})
     out, res = redesign(d)
     assert_allclose(out.block_by_name("Kx").params["K"], [[-8.0, -4.0]], atol=1e-9)  # sign -1 default
@@ -55,7 +55,7 @@ def _plants_and_poles(draw):
 @settings(max_examples=25, deadline=None)
 @given(_plants_and_poles())
 def test_separation_holds_in_assembled_loop_for_random_plants(case):
-    # Separation principle (REFERENCES.md REF-03 conventions): closed-loop poles of the
+    # Separation principle (tests/REFERENCES.md#stage-observer, common practice): closed-loop poles of the
     # drawn loop = eig(A - B K) U eig(A - L C).
     A, B, C, kp, lp = case
     for M in (ct.ctrb(A, B), ct.obsv(A, C)):
@@ -74,7 +74,7 @@ def test_separation_holds_in_assembled_loop_for_random_plants(case):
 
 
 def test_kalman_recipe_takes_intensities_from_the_diagram():
-    # REFERENCES.md REF-05: x' = -x + w, y = x + v, W = 8, V = 1 -> L = 2.
+    # tests/REFERENCES.md#tank-kalman (scalar filter Riccati closed form): x' = -x + w, y = x + v, W = 8, V = 1 -> L = 2.
     tank = {"A": [[-1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]]}
     d = stage_loop({"method": "place", "poles": [-2.0]}, {"method": "kalman"}, plant=tank,
                    disturbance={"kind": "white", "intensity": 8.0, "seed": 1},
@@ -92,8 +92,8 @@ def test_kalman_recipe_takes_intensities_from_the_diagram():
 
 
 def test_estimator_ackermann_recipe_equals_dual_hand_gain():
-    # REFERENCES.md REF-03: (s + 5)(s + 6) on the stage gives L = [11, 30]'; Ackermann on the
-    # dual pair (REFERENCES.md REF-02 formula).
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand): (s + 5)(s + 6) on the stage gives L = [11, 30]'; Ackermann on the
+    # dual pair (tests/REFERENCES.md#conveyor-ackermann (Ackermann 1972 formula) formula).
     d = stage_loop(None, {"method": "ackermann", "poles": [-5, -6]})
     assert_allclose(design_block(d, "est").matrix, [[11.0], [30.0]], atol=1e-9)
 
@@ -224,7 +224,7 @@ def test_oven_sample_gains_agree_with_python_control():
 
 
 def test_noise_dominance_warning_reports_rms_equal_to_h2_norm_times_sqrt_intensity():
-    # RMS of a white-noise-driven path = sqrt(W) * ||G||_2 (REFERENCES.md REF-08
+    # RMS of a white-noise-driven path = sqrt(W) * ||G||_2 (tests/REFERENCES.md#greenhouse-noise (closed form W/(2a))
     # conventions); ||G||_2 from Parseval's integral (closed form, tests/reference_norms.py).
     import re
 
@@ -241,7 +241,7 @@ def test_noise_dominance_warning_reports_rms_equal_to_h2_norm_times_sqrt_intensi
 
 
 def test_integral_recipe_designs_both_gains_and_the_loop_rejects_a_constant_load():
-    # Stage of REFERENCES.md REF-01 with integral action on the measured position; by hand
+    # Stage of tests/REFERENCES.md#stage-place (hand computation, common practice) with integral action on the measured position; by hand
     # (see test_tracking): poles {-2, -2 +- 2j} give K_x = [16, 6], K_i = -16. With the
     # estimator at {-5, -6} the drawn loop has exactly those poles (separation principle).
     from loopwright.engine.tracking import add_integral_action

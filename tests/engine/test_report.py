@@ -25,7 +25,7 @@ def test_report_on_every_sample(name, capsys):
 
 
 def test_report_margins_agree_with_the_margins_analysis():
-    # REFERENCES.md REF-03: margins at the plant input of the air-bearing stage
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand): margins at the plant input of the air-bearing stage
     d = stage_loop()
     d.settings["loop_break"] = "up.out"
     rep = loop_report(d)

@@ -61,7 +61,7 @@ def test_frequency_response_matches_python_control_on_random_stable_systems(seed
     "A, B, C, D, w, expected, source",
     [
         ([[-2.0]], [[1.0]], [[1.0]], [[0.0]], 2.0, 0.25 - 0.25j, "1/(s+2) at w=2 by hand, common practice, no source"),
-        ([[0.0, 1.0], [-25.0, -2.0]], [[0.0], [1.0]], [[25.0, 0.0]], [[0.0]], 5.0, -2.5j, "25/(s^2+2s+25) at w=wn is 1/(2 zeta j); REFERENCES.md REF-06 system"),
+        ([[0.0, 1.0], [-25.0, -2.0]], [[0.0], [1.0]], [[25.0, 0.0]], [[0.0]], 5.0, -2.5j, "25/(s^2+2s+25) at w=wn is 1/(2 zeta j); tests/REFERENCES.md#lag-and-resonator-h2 (closed form) system"),
         ([[-1.0]], [[1.0]], [[-1.0]], [[1.0]], 1.0, 0.5 + 0.5j, "s/(s+1) at w=1 by hand, common practice, no source"),
     ],
 )
@@ -113,7 +113,7 @@ def test_magnitude_db_and_unwrapped_phase_of_a_triple_lag():
 
 @pytest.mark.parametrize("zeta", [0.2, 0.01, 0.001, 1e-4])
 def test_auto_grid_never_misses_a_lightly_damped_peak(zeta):
-    # peak of wn^2/(s^2 + 2 zeta wn s + wn^2) is 1/(2 zeta sqrt(1 - zeta^2)) (REFERENCES.md REF-07 formula)
+    # peak of wn^2/(s^2 + 2 zeta wn s + wn^2) is 1/(2 zeta sqrt(1 - zeta^2)) (tests/REFERENCES.md#resonator-peak (closed form) formula)
     wn = 37.0
     A = np.array([[0.0, 1.0], [-wn * wn, -2 * zeta * wn]])
     B, C, D = np.array([[0.0], [1.0]]), np.array([[wn * wn, 0.0]]), np.zeros((1, 1))
@@ -135,17 +135,17 @@ def test_auto_grid_spans_two_decades_beyond_the_dynamics():
 
 
 def test_step_response_of_second_order_servo_matches_closed_form():
-    # REFERENCES.md REF-11: T(s) = 4/(s^2 + 2 s + 4)
+    # tests/REFERENCES.md#winder-step (second-order closed forms): T(s) = 4/(s^2 + 2 s + 4)
     A = [[0.0, 1.0], [-4.0, -2.0]]
     B, C, D = [[0.0], [4.0]], [[1.0, 0.0]], [[0.0]]
     t = np.linspace(0.0, 3.0, 3001)
     y = step_response(A, B, C, D, t).y[:, 0, 0]
     for tk, yk in [(0.5, 0.3402998466), (1.0, 0.8494256349), (2.0, 1.153122768), (3.0, 1.002289494)]:
-        assert_allclose(y[int(round(tk * 1000))], yk, atol=1e-8)  # REFERENCES.md REF-11
+        assert_allclose(y[int(round(tk * 1000))], yk, atol=1e-8)  # tests/REFERENCES.md#winder-step (second-order closed forms)
     t_long = np.linspace(0.0, 10.0, 200001)
     y_long = step_response(A, B, C, D, t_long).y[:, 0, 0]
-    assert_allclose(y_long.max(), 1.163033535, atol=1e-9)  # REF-11 peak value
-    assert_allclose(t_long[np.argmax(y_long)], 1.813799364, atol=1e-4)  # REF-11 peak time (grid 5e-5 s)
+    assert_allclose(y_long.max(), 1.163033535, atol=1e-9)  # tests/REFERENCES.md#winder-step peak value
+    assert_allclose(t_long[np.argmax(y_long)], 1.813799364, atol=1e-4)  # tests/REFERENCES.md#winder-step peak time (grid 5e-5 s)
 
 
 @settings(max_examples=15, deadline=None)
@@ -228,27 +228,35 @@ def test_white_noise_samples_have_variance_w_over_dt_and_are_reproducible():
 
 
 def test_white_noise_run_reaches_the_discrete_stationary_variance():
-    # REFERENCES.md REF-08 greenhouse: x' = -0.5 x + w, W = 0.04. Piecewise-constant noise of
-    # variance W/dt gives the discrete variance gamma^2 (W/dt)/(1 - phi^2) -> W/(2a) = 0.04 as dt -> 0.
+    # tests/REFERENCES.md#greenhouse-noise (closed form W/(2a)): x' = -0.5 x + w, W = 0.04.
+    # The run holds each noise sample over its step, so with the same samples the exact
+    # recursion x[k+1] = phi x[k] + gamma u[k], phi = exp(-a dt), gamma = (1 - phi)/a, gives
+    # the run sample by sample (closed form, scipy 1.17.1 lfilter); its stationary variance
+    # gamma^2 (W/dt)/(1 - phi^2) tends to W/(2a) = 0.04 as dt -> 0.
+    from scipy.signal import lfilter
+
     d = _white_lag_diagram(0.04, seed=11)
     model = assemble(d)
     dt = 0.05
     t = np.arange(400_001) * dt
     res = source_run(model, t, outputs=["P.y"])
+    u = source_inputs(model, t)[0][:, model.inputs["w"].start]
     phi = np.exp(-0.5 * dt)
     gamma = (1 - phi) / 0.5
+    x = np.concatenate([[0.0], lfilter([gamma], [1.0, -phi], u)[:-1]])
+    assert_allclose(res.y[:, 0], x, rtol=1e-9, atol=1e-12)
     expected = gamma**2 * (0.04 / dt) / (1 - phi**2)
-    assert_allclose(res.y[2000:, 0].var(), expected, rtol=0.05)
+    assert_allclose(res.y[2000:, 0].var(), expected, rtol=0.05)  # sampling error about 1 %
     assert_allclose(expected, 0.04, rtol=1e-3)
 
 
 def _observer_stage_diagram() -> Diagram:
-    # REFERENCES.md REF-03: air-bearing stage, K = [8, 4], L = [11, 30]
+    # tests/REFERENCES.md#stage-observer (separation principle, derived by hand): air-bearing stage, K = [8, 4], L = [11, 30]
     return stage_loop_named(linked=True)
 
 
 def test_initial_state_by_block_shows_the_estimation_error_transient():
-    # separation principle (REFERENCES.md REF-03): e = x - xhat obeys e' = (A - L C) e
+    # separation principle (tests/REFERENCES.md#stage-observer ): e = x - xhat obeys e' = (A - L C) e
     model = assemble(_observer_stage_diagram())
     x0 = initial_state(model, {"P": [1.0, -0.5]})
     t = np.linspace(0.0, 2.0, 201)
@@ -270,7 +278,7 @@ def test_initial_state_rejects_unknown_blocks_with_suggestions():
 
 
 def test_source_run_matches_python_control_for_a_step_disturbance():
-    # d -> y of REF-03 has DC gain 82/240 (REFERENCES.md REF-03)
+    # d -> y of the stage loop has DC gain 82/240 (tests/REFERENCES.md#stage-observer, derived by hand)
     model = assemble(_observer_stage_diagram())
     t = np.linspace(0.0, 12.0, 1201)
     res = source_run(model, t, outputs=["y"])

@@ -29,10 +29,10 @@ def _closed_loop_dc(A, B, C, D, K, N):
 
 # (plant, K, expected N, source)
 FEEDFORWARD_CASES = [
-    # Stage of REF-01 with K = [8, 4]: y/r = N/(s^2 + 4 s + 8), so N = 8 (hand computation).
-    (STAGE, [[8.0, 4.0]], [[8.0]], "REFERENCES.md REF-01, by hand"),
-    # Conveyor of REF-02, K = [6, 2.2, 0.6]: closed-loop DC gain 20 N/120 must be 1, N = 6.
-    (CONVEYOR, [[6.0, 2.2, 0.6]], [[6.0]], "REFERENCES.md REF-02, by hand"),
+    # Stage of tests/REFERENCES.md#stage-place with K = [8, 4]: y/r = N/(s^2 + 4 s + 8), so N = 8 (hand computation).
+    (STAGE, [[8.0, 4.0]], [[8.0]], "tests/REFERENCES.md#stage-place (hand computation, common practice)"),
+    # Conveyor of tests/REFERENCES.md#conveyor-ackermann, K = [6, 2.2, 0.6]: closed-loop DC gain 20 N/120 must be 1, N = 6.
+    (CONVEYOR, [[6.0, 2.2, 0.6]], [[6.0]], "tests/REFERENCES.md#conveyor-ackermann (Ackermann 1972 formula), by hand"),
 ]
 
 
@@ -73,7 +73,7 @@ def test_integral_augmentation_structure():
 
 
 def test_integral_action_places_augmented_poles_and_rejects_constant_load():
-    # Stage of REF-01 with integral action: closed-loop poles as requested, and a constant
+    # Stage of tests/REFERENCES.md#stage-place with integral action: closed-loop poles as requested, and a constant
     # force disturbance gives zero steady-state position error (common practice, no source).
     A, B, C, D = (np.asarray(M, dtype=float) for M in STAGE)
     poles = [-2.0, [-2.0, 2.0], [-2.0, -2.0]]
@@ -109,7 +109,7 @@ def test_add_integral_action_draws_the_pieces_and_the_loop_tracks_with_zero_erro
     from loopwright.engine.diagram import Diagram
     from loopwright.engine.interconnect import assemble
 
-    # Stage of REF-01 with both states measured (demo data), K_x = [16, 6], K_i = -16.
+    # Stage of tests/REFERENCES.md#stage-place with both states measured (demo data), K_x = [16, 6], K_i = -16.
     d = Diagram()
     d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0}})
     d.add_block("source", "load", {"role": "disturbance", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0}})

@@ -111,18 +111,41 @@ def test_a_matrix_of_the_wrong_size_is_refused_with_the_engine_reason_and_nothin
     assert "B has 1 row, expected 4" in insp.fields["B"].error.text()
 
 
-def test_transfer_function_fields_show_poles_and_zeros(qtbot):
+def _shown_roots(line: str) -> list[complex]:
+    """Numbers of a "poles: a, b ± cj" line, conjugate pairs expanded."""
+    out = []
+    for part in line.split(":", 1)[1].split(","):
+        part = part.strip()
+        if part == "none":
+            continue
+        if "±" in part:
+            re_, im = part.split("±")
+            out += [complex(float(re_), float(im.strip().rstrip("j"))), complex(float(re_), -float(im.strip().rstrip("j")))]
+        else:
+            out.append(complex(part.replace(" ", "")))
+    return out
+
+
+@pytest.mark.parametrize(
+    "num, den",
+    [("1, 3", "1, 3, 2"), ("2, 1", "1, 2, 5"), ("1, 0, 4", "1, 6, 11, 6.5")],
+    ids=["real-poles", "complex-pair", "zeros-on-the-axis"],
+)
+def test_transfer_function_fields_show_poles_and_zeros(qtbot, num, den):
+    # Reference: python-control 0.10.2 poles() and zeros() of num/den, compared with the
+    # numbers the inspector shows at their printed precision (4 significant digits).
     doc, insp, cmd = _inspect_new_block(qtbot, "dynamic")
-    _commit(insp.fields["num"], "1, 3")
-    _commit(insp.fields["den"], "1, 3, 2")
+    _commit(insp.fields["den"], den)  # the denominator first: the block stays proper
+    _commit(insp.fields["num"], num)
     blk = doc.diagram.blocks[cmd.block_id]
-    assert blk.params == {"num": [1.0, 3.0], "den": [1.0, 3.0, 2.0]}
-    text = insp.fields["poles_zeros"].text()
-    # Reference: python-control's poles and zeros of (s + 3) / (s^2 + 3 s + 2).
-    sys = ct.tf([1, 3], [1, 3, 2])
-    assert_allclose(sorted(sys.poles().real), [-2.0, -1.0])
-    assert "poles: -2, -1" in text or "poles: -1, -2" in text
-    assert f"zeros: {sys.zeros()[0].real:.4g}" in text
+    nums, dens = [float(v) for v in num.split(",")], [float(v) for v in den.split(",")]
+    assert blk.params == {"num": nums, "den": dens}
+    poles_line, zeros_line = insp.fields["poles_zeros"].text().splitlines()
+    assert poles_line.startswith("poles: ") and zeros_line.startswith("zeros: ")
+    sys = ct.tf(nums, dens)
+    for shown, ref in ((_shown_roots(poles_line), sys.poles()), (_shown_roots(zeros_line), sys.zeros())):
+        assert len(shown) == len(ref)
+        assert_allclose(np.sort_complex(np.array(shown)), np.sort_complex(ref), rtol=6e-4, atol=1e-12)
 
 
 def test_a_bad_coefficient_is_refused_next_to_the_field(qtbot):

@@ -87,7 +87,16 @@ def test_editing_while_the_worker_runs_ends_with_the_newest_revision(live, qtbot
         model.request_now()  # no debounce: requests overtake each other
     qtbot.waitUntil(model.is_current, timeout=10000)
     assert model.latest.revision == doc.revision
-    assert any("in" in p.message for p in model.latest.problems)
+    # five new gain blocks with nothing wired: each is one problem naming its unwired input
+    # (the sample itself has none), and the live result equals the engine's own check
+    from loopwright.engine.interconnect import collect_problems
+
+    new_names = sorted(b.name for b in doc.diagram.blocks.values() if b.layout.get("x", 0) >= 1000)
+    assert len(new_names) == 5
+    messages = [p.message for p in model.latest.problems]
+    assert messages == [p.message for p in collect_problems(doc.diagram)]
+    for name in new_names:
+        assert any(f"{name}.in" in m for m in messages), (name, messages)
 
 
 def test_compute_live_result_reports_widths_by_wire():
