@@ -74,13 +74,17 @@ def require_writable(path: str | os.PathLike) -> Path:
     OSError
         ``IsADirectoryError`` (a folder), ``FileNotFoundError`` (its folder is missing, or
         the link cannot be followed), ``PermissionError`` (the file or its folder is
-        read-only); ``strerror`` says which in one line.
+        read-only), plain ``OSError`` (a device, pipe or socket); ``strerror`` says which
+        in one line.
     """
     real = Path(os.path.realpath(path))
     if real.is_symlink():
         raise FileNotFoundError(errno.ELOOP, "it is a symbolic link that cannot be followed", os.fspath(path))
     if real.is_dir():
         raise IsADirectoryError(errno.EISDIR, "it is a folder", os.fspath(path))
+    if real.exists() and not real.is_file():
+        # a rename would put a regular file in place of a device, pipe or socket
+        raise OSError(errno.EINVAL, "it is not a regular file (a device, pipe or socket)", os.fspath(path))
     folder = real.parent
     if not folder.is_dir():
         raise FileNotFoundError(errno.ENOENT, f"folder {display_path(folder)} does not exist", os.fspath(path))

@@ -134,6 +134,16 @@ def test_c_export_whose_source_fails_removes_the_header_it_wrote(diagram, monkey
     assert _listing(diagram.parent) == before
 
 
+@needs_posix
+def test_export_onto_a_pipe_or_device_is_refused_not_replaced(diagram, capsys):
+    # a rename over a device or a named pipe would put a regular file in its place
+    fifo = diagram.parent / "pipe.json"
+    os.mkfifo(fifo)
+    code, err = _run_export(capsys, diagram, "--what", "closed-loop", "-o", str(fifo))
+    assert code == 2 and len(err) == 1 and "not a regular file" in err[0]
+    assert stat.S_ISFIFO(os.lstat(fifo).st_mode)
+
+
 def test_export_into_a_missing_folder_is_one_line(diagram, capsys):
     code, err = _run_export(capsys, diagram, "--what", "closed-loop", "-o", str(diagram.parent / "nowhere" / "x.json"))
     assert code == 2 and len(err) == 1 and "does not exist" in err[0]
