@@ -212,12 +212,12 @@ def _export(args: argparse.Namespace) -> int:
         raise DesignError("C output is for a discretised controller: use --what controller with --ts SECONDS")
     if args.prewarp is not None and args.method != "tustin":
         raise DesignError("--prewarp needs --method tustin")
-    targets = list(c_output_paths(out_path)) if fmt == "c" else [out_path]
+    targets = list(c_output_paths(args.output)) if fmt == "c" else [args.output]
     for target in targets:
         # every file is checked before any is computed or written, so a refusal leaves nothing behind
         check_export_output(target, reading=[args.file])
     if fmt == "c":
-        c_prefix_for(out_path, args.prefix)
+        c_prefix_for(args.output, args.prefix)
     summary: dict = {"file": args.file, "what": args.what, "format": fmt}
     if args.what == "closed-loop":
         model = closed_loop_model(diagram, source=args.file)
@@ -262,7 +262,7 @@ def _export(args: argparse.Namespace) -> int:
         write_npz(model, out_path)
         written = [str(out_path)]
     else:
-        write_c(model, out_path, precision=args.precision, prefix=args.prefix)
+        write_c(model, args.output, precision=args.precision, prefix=args.prefix)
         written = [str(t) for t in targets]
     summary.update(
         written=written, states=len(model.state_names), inputs=list(model.input_names), outputs=list(model.output_names),

@@ -34,7 +34,7 @@ from loopwright.engine.errors import DesignError, EngineError
 from loopwright.engine.interconnect import assemble
 from loopwright.engine.jsonable import to_jsonable
 from loopwright.engine.lumped import lumped_controller
-from loopwright.engine.output_paths import check_export_output, display_path
+from loopwright.engine.output_paths import OutputRefusedError, check_export_output, display_path
 from loopwright.engine.project import atomic_write
 
 __all__ = [
@@ -196,8 +196,16 @@ def c_output_paths(path: str | os.PathLike) -> tuple[Path, Path]:
     """The source and header a C export to ``path`` writes: ``<stem>.c`` and ``<stem>.h``.
 
     ``path`` may end in ``.c`` or ``.h`` or be a bare stem.
+
+    Raises
+    ------
+    OutputRefusedError
+        ``path`` names a folder (``/``, ``.``, ``..``, or a name ending in a separator).
     """
+    text = os.fspath(path)
     p = Path(path)
+    if p.name in ("", ".", "..") or text.endswith(("/", os.sep)):
+        raise OutputRefusedError(f"output {display_path(path)} names a folder; give a file name such as ctrl.c")
     if p.suffix in (".c", ".h"):
         p = p.with_suffix("")
     return p.with_name(f"{p.name}.c"), p.with_name(f"{p.name}.h")

@@ -140,6 +140,8 @@ def check_export_output(path: str | os.PathLike, *, reading: Iterable[str | os.P
     shown = display_path(path)
     if has_control_characters(os.fspath(path)):
         raise OutputRefusedError(f"output {shown}: the name holds a line break or another control character; choose another name")
+    if os.fspath(path).endswith(("/", os.sep)):
+        raise OutputRefusedError(f"output {shown} names a folder; give a file name")
     for source in reading:
         if _same_file(path, source):
             raise OutputRefusedError(f"output {shown} is the diagram being read; an export never replaces a diagram")

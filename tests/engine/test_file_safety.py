@@ -144,6 +144,22 @@ def test_export_onto_a_pipe_or_device_is_refused_not_replaced(diagram, capsys):
     assert stat.S_ISFIFO(os.lstat(fifo).st_mode)
 
 
+@pytest.mark.parametrize("out", ["", ".", "..", "sub/"])
+def test_c_export_to_a_folder_name_is_one_line(diagram, capsys, monkeypatch, out):
+    monkeypatch.chdir(diagram.parent)
+    (diagram.parent / "sub").mkdir()
+    before = _listing(diagram.parent.parent)
+    code, err = _run_export(capsys, diagram, *_CONTROLLER_C, "--format", "c", "--prefix", "ctrl", "-o", out)
+    assert code == 2 and len(err) == 1 and "folder" in err[0]
+    assert _listing(diagram.parent.parent) == before
+
+
+def test_json_export_to_a_name_ending_in_a_separator_is_refused(diagram, capsys):
+    code, err = _run_export(capsys, diagram, "--what", "closed-loop", "-o", str(diagram.parent / "loop.json") + os.sep)
+    assert code == 2 and len(err) == 1 and "names a folder" in err[0]
+    assert not (diagram.parent / "loop.json").exists()
+
+
 def test_export_into_a_missing_folder_is_one_line(diagram, capsys):
     code, err = _run_export(capsys, diagram, "--what", "closed-loop", "-o", str(diagram.parent / "nowhere" / "x.json"))
     assert code == 2 and len(err) == 1 and "does not exist" in err[0]
