@@ -8,10 +8,21 @@ does both. The scalar type is ``double`` or ``float``, chosen at export.
 
 Values are printed with 17 significant digits for ``double`` (round-trips exactly) and 9
 for ``float``.
+
+No text from a diagram or the command line reaches the code as it is. Every such text
+(title, file path, block and signal names) passes :func:`c_comment_text` and becomes one
+line of a comment, made of printable ASCII without backslash, with no ``/*``, ``*/`` or
+``??`` (a trigraph under ``-std=c99``): it can neither end the comment, nor splice the next
+line into it, nor start a preprocessor line. Identifiers come only from the prefix, which
+must be a C identifier; a header file name in ``#include`` must be plain (see
+:func:`c_include_line`).
 """
 from __future__ import annotations
 
+import math
 import re
+import textwrap
+import unicodedata
 from dataclasses import dataclass
 
 import numpy as np
@@ -20,10 +31,20 @@ from loopwright.engine import CAUTION
 from loopwright.engine.discretize import DiscreteModel
 from loopwright.engine.errors import DesignError
 
-__all__ = ["CSource", "controller_to_c", "C_PRECISIONS"]
+__all__ = [
+    "CSource", "controller_to_c", "C_PRECISIONS", "c_comment_text", "c_include_line", "check_c_prefix",
+    "is_c_identifier", "COMMENT_TEXT_LIMIT", "TRUNCATION_MARK",
+]
 
 C_PRECISIONS = ("double", "float")
-_IDENT = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+_IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")  # ASCII only; always used with fullmatch
+# printable ASCII except backslash (a line splice, and half of every escape)
+_COMMENT_SAFE = frozenset(chr(c) for c in range(0x20, 0x7F)) - {"\\"}
+# letters, digits and a few marks that mean nothing to the preprocessor inside "..."
+_INCLUDE_NAME = re.compile(r"[A-Za-z0-9_.+\- ]+")
+COMMENT_TEXT_LIMIT = 200
+TRUNCATION_MARK = " [...]"
+_COMMENT_WIDTH = 88
 
 
 @dataclass(frozen=True)
@@ -59,10 +80,90 @@ def _array(name: str, M: np.ndarray, precision: str, real: str) -> str:
     return "\n".join(lines) + "\n"
 
 
+def c_comment_text(text: object, *, limit: int | None = COMMENT_TEXT_LIMIT) -> str:
+    """Any text as one line that is safe inside a C block comment.
+
+    Parameters
+    ----------
+    text : object
+        Any text (``str()`` of it is taken).
+    limit : int or None
+        Longest result; a longer text is cut and ends in :data:`TRUNCATION_MARK`.
+
+    Returns
+    -------
+    str
+        One line of printable ASCII without backslash that holds no ``/*``, ``*/`` or
+        ``??``. Line breaks, tabs and other control characters become spaces; a backslash
+        becomes ``/`` (path separators stay readable); accented letters lose the accent;
+        other characters become ``_``.
+    """
+    out = []
+    for ch in unicodedata.normalize("NFKD", str(text)):
+        if ch in _COMMENT_SAFE:
+            out.append(ch)
+        elif ch == "\\":
+            out.append("/")
+        elif unicodedata.combining(ch):
+            continue
+        elif ch.isspace() or unicodedata.category(ch)[0] in "CZ":
+            out.append(" ")
+        else:
+            out.append("_")
+    line = "".join(out)
+    while True:
+        # one pass may form a new pair ("/*/" -> "/ */"), so repeat until none is left;
+        # each pass only inserts spaces, which end every such pair
+        safe = line.replace("/*", "/ *").replace("*/", "* /").replace("??", "? ?")
+        if safe == line:
+            break
+        line = safe
+    if limit is not None and len(line) > limit:
+        # a prefix of a safe line is safe, and the mark starts with a space
+        line = line[: max(limit - len(TRUNCATION_MARK), 0)] + TRUNCATION_MARK
+    return line
+
+
+def is_c_identifier(text: object) -> bool:
+    """True for ASCII letters, digits and ``_``, not starting with a digit."""
+    return isinstance(text, str) and _IDENT.fullmatch(text) is not None
+
+
+def check_c_prefix(prefix: object) -> str:
+    """``prefix`` if it is a C identifier (ASCII letters, digits, ``_``, not a digit first).
+
+    Raises
+    ------
+    DesignError
+        Anything else, named in escaped form so the message stays one line.
+    """
+    if not is_c_identifier(prefix):
+        raise DesignError(f"C prefix {prefix!r} is not a C identifier (ASCII letters, digits, '_', not starting with a digit)")
+    return prefix
+
+
+def c_include_line(header_name: str) -> str:
+    """``#include "<header_name>"``, for a plain file name only.
+
+    Raises
+    ------
+    DesignError
+        The name holds a character other than ASCII letters, digits, space, ``_ . + -``
+        (a quote, a backslash, ``/*`` or ``??`` would change what the line means).
+    """
+    if not _INCLUDE_NAME.fullmatch(header_name):
+        raise DesignError(
+            f"C header name {header_name!r}: use ASCII letters, digits, spaces and '_ . + -' only in the output file name"
+        )
+    return f'#include "{header_name}"'
+
+
 def _comment_block(lines: list[str]) -> str:
+    # every line passes the sanitiser again: a template joined to a text must not form a pair
     body = []
     for line in lines:
-        body.append(" * " + line.replace("*/", "* /") if line else " *")
+        safe = c_comment_text(line, limit=None)
+        body.append(" * " + safe if safe else " *")
     return "/*\n" + "\n".join(body) + "\n */\n"
 
 
@@ -102,33 +203,34 @@ def controller_to_c(
     DesignError
         Prefix not a C identifier, unknown precision, non-finite matrices.
     """
-    if not isinstance(prefix, str) or not _IDENT.match(prefix):
-        raise DesignError(f"C prefix {prefix!r} is not a C identifier (letters, digits, '_', not starting with a digit)")
+    check_c_prefix(prefix)
     if precision not in C_PRECISIONS:
         raise DesignError(f"precision {precision!r} is not one of {', '.join(C_PRECISIONS)}")
     A, B, C, D = (np.asarray(M, dtype=float) for M in (model.A, model.B, model.C, model.D))
     for nm, M in zip("ABCD", (A, B, C, D)):
         if not np.all(np.isfinite(M)):
             raise DesignError(f"controller matrix {nm} holds a value that is not finite; nothing to export")
+    if not (isinstance(model.ts, (int, float, np.floating)) and math.isfinite(model.ts) and model.ts > 0):
+        raise DesignError(f"sample period {model.ts!r} s must be a positive, finite number; nothing to export")
     n, m, p = A.shape[0], D.shape[1], D.shape[0]
     real = precision
     up = prefix.upper()
-    method = model.method + (f", pre-warped at {float(model.prewarp_rad_s)!r} rad/s" if model.prewarp_rad_s else "")
+    method = c_comment_text(model.method) + (f", pre-warped at {float(model.prewarp_rad_s)!r} rad/s" if model.prewarp_rad_s else "")
     info = [
         f"{prefix}: discrete controller generated by Loopwright.",
         "",
         f"Sample period: {float(model.ts)!r} s; discretisation: {method}.",
-        f"Model: {origin}" if origin else "Model: (not stated)",
+        f"Model: {c_comment_text(origin)}" if origin else "Model: (not stated)",
         f"States: {n}; inputs: {m}; outputs: {p}; scalar type: {real}.",
         "",
         "Per sample: out = C x + D in (call _output), apply out, then x = A x + B in (call _update),",
         "or call _step for both. Call _reset before the first sample.",
     ]
     if input_names:
-        info += ["", "Inputs in[i] (measured):"] + [f"  in[{i}] = {nm}" for i, nm in enumerate(input_names)]
+        info += ["", "Inputs in[i] (measured):"] + [f"  in[{i}] = {c_comment_text(nm)}" for i, nm in enumerate(input_names)]
     if output_names:
-        info += ["", "Outputs out[i] (commands):"] + [f"  out[{i}] = {nm}" for i, nm in enumerate(output_names)]
-    info += ["", CAUTION]
+        info += ["", "Outputs out[i] (commands):"] + [f"  out[{i}] = {c_comment_text(nm)}" for i, nm in enumerate(output_names)]
+    info += ["", *textwrap.wrap(CAUTION, _COMMENT_WIDTH)]
     head_comment = _comment_block(info)
     nstate = max(n, 1)  # C99 forbids zero-length arrays; a static controller keeps one unused slot
     header = (
@@ -145,7 +247,7 @@ def controller_to_c(
     )
     use_c, use_d = n > 0 and p > 0, bool(np.any(D))
     use_a, use_b = n > 0, n > 0 and m > 0
-    src = [head_comment, f'#include "{prefix}.h"\n\n']
+    src = [head_comment, c_include_line(f"{prefix}.h") + "\n\n"]
     for used, nm, M in ((use_a, "A", A), (use_b, "B", B), (use_c, "C", C), (use_d, "D", D)):
         if used:
             src.append(_array(f"{prefix}_{nm}", M, precision, real))

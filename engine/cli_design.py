@@ -21,8 +21,18 @@ from loopwright.engine.cli_common import fmt_complex, fmt_num, load_diagram, pri
 from loopwright.engine.design import poles_to_json
 from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.errors import DesignError, EngineError
-from loopwright.engine.export import closed_loop_model, controller_model, path_model, write_c, write_json, write_npz
+from loopwright.engine.export import (
+    c_output_paths,
+    c_prefix_for,
+    closed_loop_model,
+    controller_model,
+    path_model,
+    write_c,
+    write_json,
+    write_npz,
+)
 from loopwright.engine.lumped import controller_transfer_function, lumped_controller, sampled_loop_margins
+from loopwright.engine.output_paths import check_diagram_output, check_export_output
 from loopwright.engine.project import save
 from loopwright.engine.recipes import recipe_blocks, redesign, stale_blocks
 
@@ -98,6 +108,8 @@ def _matrix_text(M: np.ndarray) -> str:
 
 def _design(args: argparse.Namespace) -> int:
     diagram = load_diagram(args.file)
+    if args.write:
+        check_diagram_output(args.file)  # a read-only diagram is refused before any work
     recipes = [b.name for b in recipe_blocks(diagram)]
     if not recipes:
         raise DesignError(f"{args.file}: no block carries a recipe; add \"recipe\" to a gain or estimator block's params")
@@ -200,6 +212,12 @@ def _export(args: argparse.Namespace) -> int:
         raise DesignError("C output is for a discretised controller: use --what controller with --ts SECONDS")
     if args.prewarp is not None and args.method != "tustin":
         raise DesignError("--prewarp needs --method tustin")
+    targets = list(c_output_paths(args.output)) if fmt == "c" else [args.output]
+    for target in targets:
+        # every file is checked before any is computed or written, so a refusal leaves nothing behind
+        check_export_output(target, reading=[args.file])
+    if fmt == "c":
+        c_prefix_for(args.output, args.prefix)
     summary: dict = {"file": args.file, "what": args.what, "format": fmt}
     if args.what == "closed-loop":
         model = closed_loop_model(diagram, source=args.file)
@@ -244,9 +262,8 @@ def _export(args: argparse.Namespace) -> int:
         write_npz(model, out_path)
         written = [str(out_path)]
     else:
-        code = write_c(model, out_path, precision=args.precision, prefix=args.prefix)
-        stem = out_path.with_suffix("") if out_path.suffix in (".c", ".h") else out_path
-        written = [str(stem.with_name(code.source_name)), str(stem.with_name(code.header_name))]
+        write_c(model, args.output, precision=args.precision, prefix=args.prefix)
+        written = [str(t) for t in targets]
     summary.update(
         written=written, states=len(model.state_names), inputs=list(model.input_names), outputs=list(model.output_names),
         time="continuous" if model.sample_period_s is None else "discrete", sample_period_s=model.sample_period_s,

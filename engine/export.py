@@ -27,13 +27,14 @@ from typing import Any
 import numpy as np
 
 from loopwright.engine import CAUTION
-from loopwright.engine.ccode import CSource, controller_to_c
+from loopwright.engine.ccode import CSource, c_include_line, check_c_prefix, controller_to_c, is_c_identifier
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.discretize import DiscreteModel, discretize
-from loopwright.engine.errors import EngineError
+from loopwright.engine.errors import DesignError, EngineError
 from loopwright.engine.interconnect import assemble
 from loopwright.engine.jsonable import to_jsonable
 from loopwright.engine.lumped import lumped_controller
+from loopwright.engine.output_paths import OutputRefusedError, check_export_output, display_path
 from loopwright.engine.project import atomic_write
 
 __all__ = [
@@ -47,6 +48,8 @@ __all__ = [
     "write_json",
     "write_npz",
     "write_c",
+    "c_output_paths",
+    "c_prefix_for",
     "read_json",
 ]
 
@@ -161,16 +164,18 @@ def _write(path: str | os.PathLike, data: str | bytes) -> None:
     try:
         atomic_write(path, data)
     except OSError as err:
-        raise ExportError(f"{path}: cannot be written ({err.__class__.__name__}: {err})") from err
+        raise ExportError(f"{display_path(path)}: cannot be written ({err.strerror or err})") from err
 
 
 def write_json(model: ExportModel, path: str | os.PathLike) -> None:
-    """Write the model as JSON (atomically)."""
+    """Write the model as JSON (atomically); never over a diagram (see :func:`check_export_output`)."""
+    check_export_output(path)
     _write(path, json.dumps(model_to_dict(model), indent=2, allow_nan=False) + "\n")
 
 
 def write_npz(model: ExportModel, path: str | os.PathLike) -> None:
-    """Write the model as a NumPy ``.npz`` archive (atomically)."""
+    """Write the model as a NumPy ``.npz`` archive (atomically); never over a diagram."""
+    check_export_output(path)
     data = model_to_dict(model)
     meta = {k: v for k, v in data.items() if k not in ("A", "B", "C", "D")}
     arrays: dict[str, np.ndarray] = {}
@@ -187,27 +192,76 @@ def write_npz(model: ExportModel, path: str | os.PathLike) -> None:
     _write(path, buf.getvalue())
 
 
+def c_output_paths(path: str | os.PathLike) -> tuple[Path, Path]:
+    """The source and header a C export to ``path`` writes: ``<stem>.c`` and ``<stem>.h``.
+
+    ``path`` may end in ``.c`` or ``.h`` or be a bare stem.
+
+    Raises
+    ------
+    OutputRefusedError
+        ``path`` names a folder (``/``, ``.``, ``..``, or a name ending in a separator).
+    """
+    text = os.fspath(path)
+    p = Path(path)
+    if p.name in ("", ".", "..") or text.endswith(("/", os.sep)):
+        raise OutputRefusedError(f"output {display_path(path)} names a folder; give a file name such as ctrl.c")
+    if p.suffix in (".c", ".h"):
+        p = p.with_suffix("")
+    return p.with_name(f"{p.name}.c"), p.with_name(f"{p.name}.h")
+
+
+def c_prefix_for(path: str | os.PathLike, prefix: str | None = None) -> str:
+    """The C prefix of a C export to ``path``: ``prefix``, else the file stem.
+
+    Raises
+    ------
+    DesignError
+        The prefix is not a C identifier, or (with a prefix of its own) the header's file
+        name cannot be written in ``#include "..."``.
+    """
+    c_path, h_path = c_output_paths(path)
+    if prefix is None:
+        if not is_c_identifier(c_path.stem):
+            raise DesignError(f"the output name {c_path.stem!r} is not a C identifier, so it cannot be the C prefix; give --prefix NAME")
+        return c_path.stem
+    check_c_prefix(prefix)
+    c_include_line(h_path.name)
+    return prefix
+
+
 def write_c(model: ExportModel, path: str | os.PathLike, *, precision: str = "double", prefix: str | None = None) -> CSource:
     """Write a discrete controller as ``<stem>.c`` and ``<stem>.h`` beside ``path``.
 
-    ``path`` may end in ``.c`` or be a bare stem; the C prefix defaults to the stem.
-    Both files are written atomically (the header first).
+    ``path`` may end in ``.c`` or be a bare stem; the C prefix defaults to the stem. Both
+    files are checked before either is written (see :func:`check_export_output`), then
+    written atomically, the header first; if the source then fails, a header this call
+    created is removed again.
     """
-    p = Path(path)
-    if p.suffix in (".c", ".h"):
-        p = p.with_suffix("")
-    stem = p.name
+    c_path, h_path = c_output_paths(path)
+    for target in (c_path, h_path):
+        check_export_output(target)
+    prefix = c_prefix_for(path, prefix)
     code = controller_to_c(
-        model.discrete(), prefix=prefix or stem, precision=precision, origin=model.origin,
+        model.discrete(), prefix=prefix, precision=precision, origin=model.origin,
         input_names=list(model.input_names), output_names=list(model.output_names),
     )
-    header = code.header
-    if (prefix or stem) != stem:
+    if code.header_name != h_path.name:
         # the source includes "<prefix>.h"; keep the files named after the path the user gave
-        code = CSource(header, code.source.replace(f'#include "{code.header_name}"', f'#include "{stem}.h"'), f"{stem}.h", f"{stem}.c")
-    _write(p.with_name(f"{stem}.h"), header)
-    _write(p.with_name(f"{stem}.c"), code.source)
-    return CSource(header, code.source, f"{stem}.h", f"{stem}.c")
+        include = c_include_line(h_path.name)
+        code = CSource(code.header, code.source.replace(f'#include "{code.header_name}"', include), h_path.name, c_path.name)
+    header_existed = os.path.lexists(h_path)
+    _write(h_path, code.header)
+    try:
+        _write(c_path, code.source)
+    except BaseException:
+        if not header_existed:
+            try:
+                os.unlink(h_path)
+            except OSError:
+                pass
+        raise
+    return code
 
 
 def read_json(path: str | os.PathLike) -> dict[str, Any]:

@@ -10,14 +10,24 @@ wrong; :func:`loopwright.engine.validation.problems` reports it.
 """
 from __future__ import annotations
 
+import errno
 import json
 import os
+import re
+import stat
 import tempfile
+import time
 from pathlib import Path
 from typing import Any
 
 from loopwright.engine.diagram import BLOCK_KINDS, Diagram
 from loopwright.engine.errors import EngineError, FormatVersionError, ProjectFileError
+from loopwright.engine.output_paths import display_path, require_writable
+
+try:
+    import fcntl
+except ImportError:  # Windows: no advisory locks; see _remove_stale_temps
+    fcntl = None
 
 __all__ = ["FORMAT_NAME", "FORMAT_VERSION", "FILE_SUFFIX", "load", "loads", "save", "dumps", "to_dict", "from_dict", "atomic_write"]
 
@@ -173,48 +183,169 @@ def load(path: str | os.PathLike) -> Diagram:
     return loads(text, origin=str(p))
 
 
+# A save writes ".NAME.XXXXXXXX.tmp" beside NAME (``tempfile.mkstemp``: eight characters
+# from its alphabet), holds an exclusive lock on it until the rename, then renames it over
+# NAME. A process killed in between leaves that file behind; the next save removes it.
+_TEMP_RANDOM = r"[a-z0-9_]{8}"
+# Where file locks are not available, a temporary file untouched for this long belongs to
+# no running save (a save of even a very large diagram takes well under a second).
+_STALE_TEMP_AGE_S = 600.0
+
+
+def _temp_name_pattern(name: str) -> re.Pattern[str]:
+    return re.compile(r"\." + re.escape(name) + r"\." + _TEMP_RANDOM + r"\.tmp")
+
+
+def _try_lock(fd: int) -> bool | None:
+    """Exclusive, non-blocking lock: True got it, False another process holds it, None no locks here."""
+    if fcntl is None:
+        return None
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError as err:
+        if err.errno in (errno.EWOULDBLOCK, errno.EAGAIN, errno.EACCES):
+            return False
+        return None  # e.g. a network file system without flock
+    return True
+
+
+def _reserve_temp(target: Path) -> tuple[int, str]:
+    """Create and lock the temporary file of a save of ``target``; returns (fd, path)."""
+    for _ in range(8):
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+        # Between mkstemp and the lock another save's clean-up may have taken the new file
+        # for a leftover: then it is locked by that clean-up or already gone; take a new name.
+        if _try_lock(fd) is not False:
+            try:
+                if os.stat(tmp).st_ino == os.fstat(fd).st_ino:
+                    return fd, tmp
+            except FileNotFoundError:
+                pass
+        os.close(fd)
+    raise BlockingIOError(errno.EBUSY, "no temporary file could be reserved beside it", str(target))
+
+
+def _remove_stale_temps(target: Path) -> None:
+    """Remove what interrupted saves of ``target`` left beside it.
+
+    Safe because only names our own save makes for this very file name are looked at
+    (``.NAME.`` + mkstemp's eight characters + ``.tmp``), only regular files, and only
+    those no running save uses: every save holds an exclusive lock on its temporary file
+    until it has been renamed, and the system drops that lock when the process ends, even
+    when it is killed. A file we can lock is therefore a leftover. Where locks are not
+    available (some network file systems, Windows) a file must also be untouched for
+    ``_STALE_TEMP_AGE_S``; on Windows a file still open elsewhere cannot be removed anyway.
+    """
+    pattern = _temp_name_pattern(target.name)
+    try:
+        names = os.listdir(target.parent)
+    except OSError:
+        return
+    for name in names:
+        if not pattern.fullmatch(name):
+            continue
+        leftover = target.parent / name
+        try:
+            st = os.lstat(leftover)
+            if not stat.S_ISREG(st.st_mode):
+                continue
+            fd = os.open(leftover, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0))
+        except OSError:
+            continue
+        try:
+            locked = _try_lock(fd)
+            stale = os.fstat(fd).st_ino == st.st_ino and (
+                locked is True or (locked is None and time.time() - st.st_mtime >= _STALE_TEMP_AGE_S))
+        except OSError:
+            stale = False
+        finally:
+            os.close(fd)  # (Windows cannot remove a file that is open, even by us)
+        if stale:
+            # the name cannot be taken again while the file exists, so this is the file judged above
+            try:
+                os.unlink(leftover)
+            except OSError:
+                pass  # gone already, or still open elsewhere: the next save tries again
+
+
+def _fsync_folder(folder: Path) -> None:
+    """Make the rename itself durable (POSIX); a no-op where folders cannot be synced."""
+    if os.name != "posix":
+        return
+    try:
+        fd = os.open(folder, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0))
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass  # some file systems refuse fsync on a folder (EINVAL); the data itself is synced
+    finally:
+        os.close(fd)
+
+
 def atomic_write(path: str | os.PathLike, data: str | bytes) -> None:
     """Write ``data`` to ``path`` so that a crash leaves either the old file or the new one.
 
     The text goes to a temporary file in the same folder, is flushed to disk, then renamed
-    over the target (``os.replace`` is atomic on POSIX and Windows).
+    over the target (``os.replace`` is atomic on POSIX and Windows) and the folder is
+    synced. A symbolic link is followed: its target gets the new text and the link stays.
+    A read-only file, or a file in a read-only folder, is refused, not replaced. Temporary
+    files that interrupted saves of the same file left behind are removed.
+
+    Raises
+    ------
+    OSError
+        The file cannot be written; ``strerror`` says why in one line (see
+        :func:`loopwright.engine.output_paths.require_writable`).
     """
-    p = Path(path)
-    if not p.parent.is_dir():
-        raise FileNotFoundError(2, f"folder {p.parent} does not exist", str(p.parent))
-    mode = "wb" if isinstance(data, bytes) else "w"
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=p.parent if str(p.parent) else ".")
+    target = require_writable(path)
+    payload = data if isinstance(data, bytes) else data.encode("utf-8")
+    fd, tmp = _reserve_temp(target)
     try:
-        with os.fdopen(fd, mode, **({} if isinstance(data, bytes) else {"encoding": "utf-8", "newline": "\n"})) as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        if p.exists():
-            os.chmod(tmp, p.stat().st_mode & 0o777)
-        else:
-            os.chmod(tmp, 0o644)
-        os.replace(tmp, p)
+        try:
+            view = memoryview(payload)
+            while view:
+                view = view[os.write(fd, view):]
+            os.fsync(fd)
+            os.chmod(tmp, target.stat().st_mode & 0o777 if target.exists() else 0o644)
+            if fcntl is None:
+                # Windows cannot rename an open file; it has no lock to keep either
+                os.close(fd)
+                fd = -1
+            # renamed while still locked, so no clean-up of another save takes it first
+            os.replace(tmp, target)
+        finally:
+            if fd >= 0:
+                os.close(fd)
     except BaseException:
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
         raise
+    _remove_stale_temps(target)
+    _fsync_folder(target.parent)
 
 
 def save(diagram: Diagram, path: str | os.PathLike) -> None:
     """Write ``diagram`` to ``path`` atomically (see :func:`atomic_write`).
 
+    A symbolic link is followed (the file it points to is updated, the link stays); a
+    read-only file is refused, not replaced.
+
     Raises
     ------
     ProjectFileError
-        The folder is missing or not writable, or a parameter is not JSON-serialisable.
+        The folder is missing or not writable, the file is read-only or a folder, or a
+        parameter is not JSON-serialisable.
     """
+    shown = display_path(path)
     try:
         text = dumps(diagram)
     except (TypeError, ValueError) as err:
-        raise ProjectFileError(f"{path}: cannot be saved, a parameter is not plain numbers/text ({err})") from err
+        raise ProjectFileError(f"{shown}: cannot be saved, a parameter is not plain numbers/text ({err})") from err
     try:
         atomic_write(path, text)
     except OSError as err:
-        raise ProjectFileError(f"{path}: cannot be written ({err.strerror or err})") from err
+        raise ProjectFileError(f"{shown}: cannot be written ({err.strerror or err})") from err
