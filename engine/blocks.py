@@ -61,6 +61,9 @@ def _where(block: Block) -> str:
 # ---- transfer functions -------------------------------------------------------------
 def _coeffs(value: Any, *, where: str, field: str, block_id: str | None) -> np.ndarray:
     c = as_vector(value, where=where, field=field, block_id=block_id)
+    if not c.size:
+        raise ParameterError(f"{where}: {field} is empty; give at least one coefficient", field=field,
+                             block_ids=[block_id] if block_id else [])
     nz = np.flatnonzero(c)
     return c[nz[0]:] if nz.size else np.zeros(1)
 

@@ -13,7 +13,15 @@ import numpy as np
 
 from loopwright.engine.errors import ParameterError
 
-__all__ = ["as_matrix", "as_vector", "as_width", "parse_matrix_text", "problems"]
+__all__ = ["MAX_WIDTH", "MAX_TOTAL_WIDTH", "as_matrix", "as_vector", "as_width", "parse_matrix_text", "problems"]
+
+# Widths are typed by hand, so a typo (10000 for 100) must be refused before anything of
+# that size is allocated: a summing junction's matrix grows with width x width x inputs.
+# The schema (resources/diagram.schema.json, $defs/width) states the same maximum.
+MAX_WIDTH = 1000
+# The sum of declared widths over every port they size (a summing junction's inputs and
+# output, an integrator's input and output, a source's output): bounds the assembled model.
+MAX_TOTAL_WIDTH = 5000
 
 
 def as_matrix(
@@ -100,10 +108,14 @@ def as_vector(value: Any, *, where: str, field: str, length: int | None = None, 
 
 
 def as_width(value: Any, *, where: str, field: str = "width", block_id: str | None = None) -> int:
-    """A signal width: a whole number from 1 to 10000."""
+    """A signal width: a whole number from 1 to :data:`MAX_WIDTH`."""
     ids = [block_id] if block_id else []
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or value != int(value) or not 1 <= value <= 10000:
-        raise ParameterError(f"{where}: {field} is {value!r}, expected a whole number from 1 to 10000", field=field, block_ids=ids)
+    # the range test comes first: int() of NaN or infinity raises
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 1 <= value <= MAX_WIDTH or value != int(value):
+        shown = repr(value) if len(repr(value)) <= 40 else f"{repr(value)[:36]}..."
+        raise ParameterError(
+            f"{where}: {field} is {shown}, expected a whole number from 1 to {MAX_WIDTH}", field=field, block_ids=ids
+        )
     return int(value)
 
 
