@@ -75,15 +75,43 @@ def dumps(diagram: Diagram) -> str:
     return json.dumps(to_dict(diagram), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
 
 
-def _parse(text: str, origin: str) -> Any:
-    """JSON text -> Python data; refuses deep nesting before the decoder recurses into it."""
+def _parse(text: str, origin: str) -> tuple[Any, bool]:
+    """JSON text -> ``(data, odd)``; ``odd``: the text holds NaN, Infinity or an out-of-range number.
+
+    Deep nesting is refused before the decoder recurses into it.
+    """
     _refuse_deep_nesting(text, origin)
+    odd: list[_NonFinite] = []
+
+    def constant(token: str) -> _NonFinite:
+        odd.append(_NonFinite(token))
+        return odd[-1]
+
+    def real(token: str) -> float | _NonFinite:
+        value = float(token)
+        return value if math.isfinite(value) else constant(token)
+
+    def whole(token: str) -> int | _NonFinite:
+        try:
+            value = int(token)
+            float(value)  # a whole number the float range cannot hold is no use to the numerics
+        except (ValueError, OverflowError):  # ValueError: beyond Python's digit limit for int()
+            return constant(token)
+        return value
+
     try:
-        return json.loads(text, parse_constant=_NonFinite, parse_float=_parse_float, parse_int=_parse_int)
+        if not _OUT_OF_RANGE_HINT.search(text):  # the usual case: the C decoder reads every number itself
+            return json.loads(text, parse_constant=constant), bool(odd)
+        return json.loads(text, parse_constant=constant, parse_float=real, parse_int=whole), bool(odd)
     except json.JSONDecodeError as err:
         raise ProjectFileError(f"{origin}: not valid JSON (line {err.lineno}, column {err.colno}: {err.msg})") from err
     except RecursionError as err:  # unreachable after the nesting check; kept as the last guard
         raise ProjectFileError(f"{origin}: not a Loopwright diagram (nested too deeply to read)") from err
+
+
+# Text that may hold a number beyond the float range: 309 digits in a row, or an exponent
+# of 100 or more. Only then are the numbers parsed one by one to find it.
+_OUT_OF_RANGE_HINT = re.compile(r"\d{309}|[eE]\+?0*[1-9]\d\d")
 
 
 class _NonFinite:
@@ -96,20 +124,6 @@ class _NonFinite:
         self.token = token if len(token) <= 24 else f"{token[:12]}...{token[-6:]} ({len(token)} digits)"
 
 
-def _parse_float(token: str) -> float | _NonFinite:
-    value = float(token)
-    return value if math.isfinite(value) else _NonFinite(token)
-
-
-def _parse_int(token: str) -> int | _NonFinite:
-    try:
-        value = int(token)
-        float(value)  # a whole number the float range cannot hold is no use to the numerics
-    except (ValueError, OverflowError):  # ValueError: beyond Python's digit limit for int()
-        return _NonFinite(token)
-    return value
-
-
 # one JSON string, with its escapes; the unrolled form does not backtrack
 _JSON_STRING = re.compile(r'"[^"\\]*(?:\\.[^"\\]*)*"', re.S)
 
@@ -118,16 +132,15 @@ def _refuse_deep_nesting(text: str, origin: str) -> None:
     """Raise when ``[``/``{`` nest deeper than :data:`MAX_NESTING` (counted outside strings)."""
     if text.count("[") + text.count("{") <= MAX_NESTING:
         return
-    outside = _JSON_STRING.sub(lambda m: " " * len(m.group()), text)  # same offsets, no brackets in strings
+    # JSON strings hold no raw newline, so removing them keeps the line numbers
+    outside = _JSON_STRING.sub('""', text)
     codes = np.frombuffer(outside.encode("utf-32-le"), dtype=np.uint32)
     step = np.isin(codes, (ord("["), ord("{"))).astype(np.int32) - np.isin(codes, (ord("]"), ord("}")))
     depth = np.cumsum(step)
     if depth.size and depth.max() > MAX_NESTING:
-        at = int(np.argmax(depth > MAX_NESTING))
-        line = text.count("\n", 0, at) + 1
-        col = at - (text.rfind("\n", 0, at) + 1) + 1
+        line = outside.count("\n", 0, int(np.argmax(depth > MAX_NESTING))) + 1
         raise ProjectFileError(
-            f"{origin}: lists or objects nested more than {MAX_NESTING} levels deep (line {line}, column {col}); "
+            f"{origin}: lists or objects nested more than {MAX_NESTING} levels deep (line {line}); "
             "a Loopwright diagram needs fewer than ten"
         )
 
@@ -196,15 +209,46 @@ def _show(value: Any) -> str:
 
 @functools.cache
 def _validator():
-    import jsonschema  # imported on first load: it is not needed to save or to compute
+    """A validator for :func:`schema`, made faster without changing what it accepts.
 
-    schema = json.loads((resources.files("loopwright.resources") / "diagram.schema.json").read_text(encoding="utf-8"))
-    return jsonschema.Draft202012Validator(schema)
+    ``$ref`` s are resolved once here rather than at every value, and a list whose items
+    must be plain numbers is scanned in one loop, with the per-item machinery run only for
+    an item that fails (so its error reads as usual). Matrices hold most of a file's values.
+    """
+    import jsonschema
+    from jsonschema import validators
+
+    base = jsonschema.Draft202012Validator
+    plain_items = base.VALIDATORS["items"]
+
+    def items(validator, subschema, instance, parent):
+        if isinstance(instance, list) and subschema == {"type": "number"}:
+            for k, value in enumerate(instance):
+                if type(value) is not float and type(value) is not int:  # bool is not a number here
+                    yield from validator.descend(value, subschema, path=k)
+            return
+        yield from plain_items(validator, subschema, instance, parent)
+
+    text = (resources.files("loopwright.resources") / "diagram.schema.json").read_text(encoding="utf-8")
+    full = json.loads(text)
+    return validators.extend(base, validators={"items": items})(_inline_refs(full, full["$defs"])), full
+
+
+def _inline_refs(node: Any, defs: dict[str, Any]) -> Any:
+    """``node`` with every ``{"$ref": "#/$defs/x"}`` replaced by that definition (the schema has no cycles)."""
+    if isinstance(node, list):
+        return [_inline_refs(v, defs) for v in node]
+    if not isinstance(node, dict):
+        return node
+    out = {k: _inline_refs(v, defs) for k, v in node.items() if k not in ("$ref", "$defs")}
+    if "$ref" in node:
+        out = {**_inline_refs(defs[node["$ref"].removeprefix("#/$defs/")], defs), **out}
+    return out
 
 
 def schema() -> dict[str, Any]:
     """The JSON Schema every project file is validated against (``resources/diagram.schema.json``)."""
-    return _validator().schema
+    return _validator()[1]
 
 
 _TYPE_NAMES = {"object": "an object", "array": "a list", "string": "text", "number": "a number", "integer": "a whole number",
@@ -243,7 +287,7 @@ def _schema_message(err) -> tuple[tuple, str]:
 
 
 def _refuse_schema_errors(data: dict, origin: str) -> None:
-    errors = list(_validator().iter_errors(data))
+    errors = list(_validator()[0].iter_errors(data))
     if errors:
         err = _most_telling(min(errors, key=lambda e: _document_order(data, e.absolute_path)))
         path, what = _schema_message(err)
@@ -322,19 +366,25 @@ def from_dict(data: Any, *, origin: str = "project file") -> Diagram:
         Not our format, or a malformed field: one line naming the JSON path
         (``blocks[3].params.waveform.intensity``) and the block or wire it belongs to.
     """
+    return _build(data, origin, scan=True)
+
+
+def _build(data: Any, origin: str, *, scan: bool) -> Diagram:
+    """:func:`from_dict`; ``scan``: look for non-finite numbers and deep nesting (the parser may have done it)."""
     if not isinstance(data, dict):
         raise ProjectFileError(f"{origin}: not a Loopwright diagram (the top level must be a JSON object)")
     if data.get("format") != FORMAT_NAME:
         raise ProjectFileError(f"{origin}: not a Loopwright diagram (format is {_show(data.get('format'))}, expected {FORMAT_NAME!r})")
     version = data.get("version")
-    if not isinstance(version, int) or isinstance(version, bool) or version < 1:
+    if not (isinstance(version, int) and not isinstance(version, bool) or isinstance(version, float) and version.is_integer()) or version < 1:
         raise ProjectFileError(f"{origin}: version {_show(version)} is not a positive whole number")
     if version > FORMAT_VERSION:
         raise FormatVersionError(
-            f"{origin}: written by a newer Loopwright (file format {version}, this version reads up to {FORMAT_VERSION}); "
+            f"{origin}: written by a newer Loopwright (file format {int(version)}, this version reads up to {FORMAT_VERSION}); "
             "update Loopwright to open it"
         )
-    _refuse_odd_values(data, origin)
+    if scan:
+        _refuse_odd_values(data, origin)
     _refuse_schema_errors(data, origin)
     _refuse_oversized(data, origin)
     d = Diagram()
@@ -369,7 +419,8 @@ def from_dict(data: Any, *, origin: str = "project file") -> Diagram:
 
 def loads(text: str, *, origin: str = "project file") -> Diagram:
     """Parse project-file text; see :func:`from_dict` for the errors."""
-    return from_dict(_parse(text, origin), origin=origin)
+    data, odd = _parse(text, origin)
+    return _build(data, origin, scan=odd)
 
 
 def load(path: str | os.PathLike) -> Diagram:
