@@ -21,7 +21,7 @@ from hypothesis import strategies as st
 
 from diagrams import SAMPLES, sample_path
 from loopwright.engine import project
-from loopwright.engine.blocks import tf_to_ss
+from loopwright.engine.blocks import port_widths, source_intensity, tf_to_ss
 from loopwright.engine.cli import main
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import ParameterError, ProjectFileError
@@ -191,6 +191,25 @@ def test_names_are_matched_whole_by_the_engine_too():
 def test_an_empty_coefficient_list_is_not_a_zero():
     with pytest.raises(ParameterError, match="num is empty"):
         tf_to_ss([], [1.0, 1.0], where="block 'N'")
+
+
+@pytest.mark.parametrize("holder", ["waveform", "params"])
+@pytest.mark.parametrize("value", [None, "loud", {"W": 1}, [[1, "x"]]], ids=["null", "text", "object", "text-entry"])
+def test_a_malformed_intensity_built_in_code_is_a_parameter_error(holder, value):
+    params = {"role": "noise", "width": 1, "waveform": {"kind": "white", "intensity": value}}
+    if holder == "params":
+        params = {"role": "disturbance", "width": 1, "waveform": {"kind": "step"}, "intensity": value}
+    d = Diagram()
+    d.add_block("source", "n", params)
+    with pytest.raises(ParameterError, match="block 'n': intensity"):
+        source_intensity(d.block_by_name("n"))
+
+
+def test_a_wide_summing_junction_with_many_inputs_is_refused_before_its_matrix_is_built():
+    d = Diagram()
+    d.add_block("sum", "s", {"signs": ["+"] * 10, "width": MAX_WIDTH})
+    with pytest.raises(ParameterError, match=f"block 's': width {MAX_WIDTH} with 10 inputs .* at most {MAX_TOTAL_WIDTH}"):
+        port_widths(d.block_by_name("s"), d)
 
 
 def test_a_file_name_with_a_newline_stays_on_one_line(tmp_path):
