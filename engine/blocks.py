@@ -309,7 +309,9 @@ def source_intensity(block: Block) -> np.ndarray | None:
         W = as_matrix(arr, where=where, field="intensity", block_id=block.id, rows=w, cols=w, why_rows="the source width", why_cols="the source width")
     if not np.all(np.isfinite(W)) or not np.allclose(W, W.T, atol=1e-12 * max(1.0, np.abs(W).max())):
         raise ParameterError(f"{where}: intensity must be finite and symmetric", field="intensity", block_ids=[block.id])
-    if np.linalg.eigvalsh(W).min() < -1e-12 * max(1.0, np.abs(W).max()):
+    # a number or a list gives a diagonal W: its eigenvalues are its diagonal, no solver needed
+    lowest = np.linalg.eigvalsh(W).min() if arr.ndim == 2 else np.diag(W).min()
+    if lowest < -1e-12 * max(1.0, np.abs(W).max()):
         raise ParameterError(f"{where}: intensity must be positive semidefinite (it is a covariance density)", field="intensity", block_ids=[block.id])
     return W
 

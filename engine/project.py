@@ -23,11 +23,9 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import EngineError, FormatVersionError, ProjectFileError
-from loopwright.engine.validation import MAX_TOTAL_WIDTH
+from loopwright.engine.validation import MAX_TOTAL_WIDTH, declared_width
 
 __all__ = [
     "FORMAT_NAME", "FORMAT_VERSION", "FILE_SUFFIX", "MAX_NESTING", "load", "loads", "save", "dumps", "to_dict", "from_dict",
@@ -121,28 +119,32 @@ class _NonFinite:
     """
 
     def __init__(self, token: str):
-        self.token = token if len(token) <= 24 else f"{token[:12]}...{token[-6:]} ({len(token)} digits)"
+        digits = sum(c.isdigit() for c in token)
+        self.token = token if len(token) <= 24 else f"{token[:12]}...{token[-6:]} ({digits} digits)"
 
 
-# one JSON string, with its escapes; the unrolled form does not backtrack
-_JSON_STRING = re.compile(r'"[^"\\]*(?:\\.[^"\\]*)*"', re.S)
+_NESTING_TOKEN = re.compile(r'[\[\]{}"]')
 
 
 def _refuse_deep_nesting(text: str, origin: str) -> None:
     """Raise when ``[``/``{`` nest deeper than :data:`MAX_NESTING` (counted outside strings)."""
-    if text.count("[") + text.count("{") <= MAX_NESTING:
-        return
-    # JSON strings hold no raw newline, so removing them keeps the line numbers
-    outside = _JSON_STRING.sub('""', text)
-    codes = np.frombuffer(outside.encode("utf-32-le"), dtype=np.uint32)
-    step = np.isin(codes, (ord("["), ord("{"))).astype(np.int32) - np.isin(codes, (ord("]"), ord("}")))
-    depth = np.cumsum(step)
-    if depth.size and depth.max() > MAX_NESTING:
-        line = outside.count("\n", 0, int(np.argmax(depth > MAX_NESTING))) + 1
-        raise ProjectFileError(
-            f"{origin}: lists or objects nested more than {MAX_NESTING} levels deep (line {line}); "
-            "a Loopwright diagram needs fewer than ten"
-        )
+    depth, pos = 0, 0
+    while found := _NESTING_TOKEN.search(text, pos):
+        char, pos = found.group(), found.end()
+        if char == '"':
+            try:
+                pos = json.decoder.scanstring(text, pos)[1]  # the decoder's own string reader, in C
+            except ValueError:
+                return  # a broken string: the decoder stops there, before any deeper nesting
+        elif char in "[{":
+            depth += 1
+            if depth > MAX_NESTING:
+                raise ProjectFileError(
+                    f"{origin}: lists or objects nested more than {MAX_NESTING} levels deep "
+                    f"(line {text.count(chr(10), 0, found.start()) + 1}); a Loopwright diagram needs fewer than ten"
+                )
+        else:
+            depth -= 1
 
 
 def _refuse_odd_values(data: Any, origin: str) -> None:
@@ -328,29 +330,6 @@ def _most_telling(err):
     return err
 
 
-def _refuse_oversized(data: dict, origin: str) -> None:
-    """Total of declared widths against :data:`~loopwright.engine.validation.MAX_TOTAL_WIDTH`.
-
-    Checked before anything is allocated: a width typed with two zeros too many would
-    otherwise cost minutes and gigabytes before a width mismatch is reported.
-    """
-    total, largest = 0, (0, ())
-    for k, entry in enumerate(data["blocks"]):
-        params = entry["params"]
-        if entry["kind"] not in ("sum", "integrator", "source"):
-            continue
-        width = int(params.get("width", 1))
-        ports = {"sum": len(params.get("signs", ())) + 1, "integrator": 2, "source": 1}[entry["kind"]]
-        total += width * ports
-        largest = max(largest, (width * ports, ("blocks", k, "params", "width")))
-    if total > MAX_TOTAL_WIDTH:
-        path = largest[1]
-        raise ProjectFileError(
-            f"{origin}: the widths add up to {total} signal components, at most {MAX_TOTAL_WIDTH} "
-            f"(largest: {_json_path(path)}{_owner(data, path)}); is a width mistyped?"
-        )
-
-
 def from_dict(data: Any, *, origin: str = "project file") -> Diagram:
     """Build a :class:`Diagram` from the JSON-native form.
 
@@ -386,7 +365,6 @@ def _build(data: Any, origin: str, *, scan: bool) -> Diagram:
     if scan:
         _refuse_odd_values(data, origin)
     _refuse_schema_errors(data, origin)
-    _refuse_oversized(data, origin)
     d = Diagram()
     d.meta = data.get("meta", {})
     d.settings = data.get("settings", {})
@@ -398,6 +376,15 @@ def _build(data: Any, origin: str, *, scan: bool) -> Diagram:
             raise ProjectFileError(f"{origin}: {_json_path(('blocks', k))}{_owner(data, ('blocks', k))}: {err.message}") from err
         # keep the layout exactly as written, so load-then-save gives the same file
         d.blocks[bid].layout = layout
+    # Before anything of that size exists: a width typed with a zero too many would cost
+    # minutes and gigabytes before a width mismatch is reported.
+    total, largest = declared_width(d.blocks.values())
+    if total > MAX_TOTAL_WIDTH:
+        path = ("blocks", list(d.blocks).index(largest.id), "params", "width")
+        raise ProjectFileError(
+            f"{origin}: the widths add up to {total} signal components, at most {MAX_TOTAL_WIDTH} "
+            f"(largest: {_json_path(path)}{_owner(data, path)}); is a width mistyped?"
+        )
     for k, entry in enumerate(data["wires"]):
         signal, src = entry["signal"], entry["from"]
         wid = None

@@ -7,13 +7,16 @@ from __future__ import annotations
 
 import ast
 import re
+from collections.abc import Iterable
 from typing import Any
 
 import numpy as np
 
 from loopwright.engine.errors import ParameterError
 
-__all__ = ["MAX_WIDTH", "MAX_TOTAL_WIDTH", "as_matrix", "as_vector", "as_width", "parse_matrix_text", "problems"]
+__all__ = [
+    "MAX_WIDTH", "MAX_TOTAL_WIDTH", "as_matrix", "as_vector", "as_width", "declared_width", "parse_matrix_text", "problems",
+]
 
 # Widths are typed by hand, so a typo (10000 for 100) must be refused before anything of
 # that size is allocated: a summing junction's matrix grows with width x width x inputs.
@@ -117,6 +120,28 @@ def as_width(value: Any, *, where: str, field: str = "width", block_id: str | No
             f"{where}: {field} is {shown}, expected a whole number from 1 to {MAX_WIDTH}", field=field, block_ids=ids
         )
     return int(value)
+
+
+def declared_width(blocks: Iterable[Any]) -> tuple[int, Any]:
+    """``(total, largest)``: the signal components the blocks' ``width`` parameters size, and the block sizing most.
+
+    A summing junction sizes its inputs and its output, an integrator its input and
+    output, a source its output; other blocks take their widths from their matrices,
+    which the file spells out. Compare the total with :data:`MAX_TOTAL_WIDTH` before
+    building anything. Malformed widths count as 1 (their own error is reported elsewhere).
+    """
+    total, largest, most = 0, None, -1
+    for block in blocks:
+        ports = {"sum": None, "integrator": 2, "source": 1}.get(block.kind, 0)
+        if ports is None:
+            signs = block.params.get("signs")
+            ports = len(signs) + 1 if isinstance(signs, list) else 1
+        width = block.params.get("width", 1)
+        size = ports * (width if isinstance(width, int) and not isinstance(width, bool) and width > 0 else 1)
+        total += size
+        if ports and size > most:
+            largest, most = block, size
+    return total, largest
 
 
 def _count(k: int, noun: str) -> str:
