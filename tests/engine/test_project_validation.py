@@ -305,7 +305,7 @@ def scratch(tmp_path_factory) -> Path:
 
 
 @settings(
-    max_examples=int(os.environ.get("LOOPWRIGHT_MUTANTS", "250")),
+    max_examples=int(os.environ.get("LOOPWRIGHT_MUTANTS", "200")),
     deadline=None,
     suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large],
 )
