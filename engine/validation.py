@@ -136,8 +136,11 @@ def declared_width(blocks: Iterable[Any]) -> tuple[int, Any]:
         if ports is None:
             signs = block.params.get("signs")
             ports = len(signs) + 1 if isinstance(signs, list) else 1
-        width = block.params.get("width", 1)
-        size = ports * (width if isinstance(width, int) and not isinstance(width, bool) and width > 0 else 1)
+        try:
+            width = as_width(block.params.get("width", 1), where="")
+        except ParameterError:
+            width = 1
+        size = ports * width
         total += size
         if ports and size > most:
             largest, most = block, size
