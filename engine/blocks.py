@@ -20,7 +20,7 @@ import numpy as np
 from loopwright.engine.diagram import SOURCE_ROLES, Block, Diagram
 from loopwright.engine.errors import DiagramError, ParameterError
 from loopwright.engine.ports import input_ports, output_ports
-from loopwright.engine.validation import as_matrix, as_vector, as_width
+from loopwright.engine.validation import MAX_TOTAL_WIDTH, as_matrix, as_vector, as_width
 
 __all__ = [
     "Realization",
@@ -61,6 +61,9 @@ def _where(block: Block) -> str:
 # ---- transfer functions -------------------------------------------------------------
 def _coeffs(value: Any, *, where: str, field: str, block_id: str | None) -> np.ndarray:
     c = as_vector(value, where=where, field=field, block_id=block_id)
+    if not c.size:
+        raise ParameterError(f"{where}: {field} is empty; give at least one coefficient", field=field,
+                             block_ids=[block_id] if block_id else [])
     nz = np.flatnonzero(c)
     return c[nz[0]:] if nz.size else np.zeros(1)
 
@@ -287,11 +290,15 @@ def source_intensity(block: Block) -> np.ndarray | None:
         Wrong shape, not symmetric, or not positive semidefinite.
     """
     wf = block.params.get("waveform") or {}
-    raw = wf.get("intensity") if isinstance(wf, dict) and wf.get("kind") == "white" else block.params.get("intensity")
-    if raw is None:
+    holder = wf if isinstance(wf, dict) and wf.get("kind") == "white" else block.params
+    if "intensity" not in holder:
         return None
+    raw = holder["intensity"]
     w, where = source_width(block), _where(block)
-    arr = np.array(raw, dtype=float) if not isinstance(raw, dict) else None
+    try:  # null, text or a dict is a mistake, not "no intensity"
+        arr = np.array(raw, dtype=float) if raw is not None and not isinstance(raw, (dict, str)) else None
+    except (TypeError, ValueError):
+        arr = None
     if arr is None or arr.ndim > 2:
         raise ParameterError(f"{where}: intensity must be a number, a list or a matrix", field="intensity", block_ids=[block.id])
     if arr.ndim == 0:
@@ -302,7 +309,9 @@ def source_intensity(block: Block) -> np.ndarray | None:
         W = as_matrix(arr, where=where, field="intensity", block_id=block.id, rows=w, cols=w, why_rows="the source width", why_cols="the source width")
     if not np.all(np.isfinite(W)) or not np.allclose(W, W.T, atol=1e-12 * max(1.0, np.abs(W).max())):
         raise ParameterError(f"{where}: intensity must be finite and symmetric", field="intensity", block_ids=[block.id])
-    if np.linalg.eigvalsh(W).min() < -1e-12 * max(1.0, np.abs(W).max()):
+    # a number or a list gives a diagonal W: its eigenvalues are its diagonal, no solver needed
+    lowest = np.linalg.eigvalsh(W).min() if arr.ndim == 2 else np.diag(W).min()
+    if lowest < -1e-12 * max(1.0, np.abs(W).max()):
         raise ParameterError(f"{where}: intensity must be positive semidefinite (it is a covariance density)", field="intensity", block_ids=[block.id])
     return W
 
@@ -355,6 +364,11 @@ def realize(block: Block, diagram: Diagram) -> Realization:
         if not isinstance(signs, list) or not signs or any(s not in ("+", "-") for s in signs):
             raise ParameterError(f"{where}: signs must be a list of '+' or '-', one per input, got {signs!r}", field="signs", block_ids=[block.id])
         w = as_width(p.get("width", 1), where=where, block_id=block.id)
+        if w * (len(signs) + 1) > MAX_TOTAL_WIDTH:  # its matrix grows with width x width x inputs
+            raise ParameterError(
+                f"{where}: width {w} with {len(signs)} inputs makes {w * (len(signs) + 1)} signal components, at most {MAX_TOTAL_WIDTH}",
+                field="width", block_ids=[block.id],
+            )
         D = np.hstack([(1.0 if s == "+" else -1.0) * np.eye(w) for s in signs])
         return Realization(np.zeros((0, 0)), np.zeros((0, w * len(signs))), np.zeros((w, 0)), D,
                            tuple((f"in{k + 1}", w) for k in range(len(signs))), (("out", w),), ())
