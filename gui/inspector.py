@@ -380,7 +380,7 @@ class Inspector(QWidget):
             self.fields["designed_note"] = note
 
     def _gain_state_order(self, blk) -> str:
-        """What K's columns multiply, in order ("K multiplies: P.x1 y, P.x2 dy/dt")."""
+        """What K's columns multiply, in order ("... P's states: P.x1 = y, P.x2 = dy/dt")."""
         from loopwright.engine.diagram import PortRef
 
         d = self._doc.diagram

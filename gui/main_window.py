@@ -68,7 +68,15 @@ def status_text(result: LiveResult | None) -> str:
     sep = rep.separation
     if sep is not None:
         parts.append("separation: poles match eig(A−BK) ∪ eig(A−LC)" if sep.matches else "separation: poles DIFFER from eig(A−BK) ∪ eig(A−LC)")
+    if 0 < len(rep.poles) <= _POLES_SHOWN:
+        # A small loop's poles in plain sight: the designed ones, or not.
+        from loopwright.gui.inspector import format_complex_list
+
+        parts.append(f"poles: {format_complex_list(rep.poles)}")
     return " · ".join(parts)
+
+
+_POLES_SHOWN = 8
 
 
 class MainWindow(QMainWindow):

@@ -10,6 +10,7 @@ from PySide6.QtWidgets import (
     QHBoxLayout,
     QLabel,
     QPushButton,
+    QSizePolicy,
     QSpinBox,
     QTableWidget,
     QTableWidgetItem,
@@ -95,6 +96,8 @@ class MatrixEditor(QWidget):
         if read_only:
             self.paste_button.hide()
             self.table.setEditTriggers(QAbstractItemView.EditTrigger.NoEditTriggers)
+        # Never taller than its rows: spare room in a panel stays below the last field.
+        self.setSizePolicy(QSizePolicy.Policy.Preferred, QSizePolicy.Policy.Maximum)
         self.set_value(value)
         self.rows.valueChanged.connect(self._on_resize)
         self.cols.valueChanged.connect(self._on_resize)

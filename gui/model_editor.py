@@ -27,6 +27,7 @@ from PySide6.QtWidgets import (
     QLabel,
     QLineEdit,
     QPushButton,
+    QSizePolicy,
     QSpinBox,
     QVBoxLayout,
     QWidget,
@@ -62,7 +63,7 @@ def _is_siso_coeffs(value: Any) -> bool:
 def state_order(diagram, block_name: str) -> list[str]:
     """The states of a plant or dynamic block in the engine's order, described.
 
-    ``["P.x1 y", "P.x2 dy/dt"]`` for a transfer function (what each state is), or
+    ``["P.x1 = y", "P.x2 = dy/dt"]`` for a transfer function (what each state is), or
     ``["P.x1", "P.x2"]`` for a state-space model (the rows of its A, as typed).
     Raises EngineError when the block cannot be realised.
     """
@@ -72,12 +73,12 @@ def state_order(diagram, block_name: str) -> list[str]:
     A = plant_matrices(diagram, block_name)[0]
     names = [f"{block_name}.x{k + 1}" for k in range(A.shape[0])]
     if "num" in blk.params:
-        return [f"{n} {what}" for n, what in zip(names, tf_state_descriptions(blk.params["num"], blk.params["den"]))]
+        return [f"{n} = {what}" for n, what in zip(names, tf_state_descriptions(blk.params["num"], blk.params["den"]))]
     return names
 
 
 def describe_state_order(diagram, block_name: str) -> str:
-    """``"P.x1 y, P.x2 dy/dt"``, or why the order is unknown."""
+    """``"P.x1 = y, P.x2 = dy/dt"``, or why the order is unknown."""
     try:
         order = state_order(diagram, block_name)
     except (EngineError, KeyError, ValueError) as err:
@@ -109,6 +110,7 @@ class ModelEditor(QWidget):
                  state: dict | None = None, parent=None):
         super().__init__(parent)
         self.setObjectName("model_editor")
+        self.setSizePolicy(QSizePolicy.Policy.Preferred, QSizePolicy.Policy.Maximum)
         self._kind, self._stored, self._name = kind, copy.deepcopy(params), block_name
         self._diagram, self._check = diagram, check
         self._building = True
@@ -223,7 +225,7 @@ class ModelEditor(QWidget):
 
         # the draft's state and the one step that applies it
         self.status = QLabel("")
-        self.status.setObjectName("model_status")
+        self.status.setObjectName("model_draft_status")
         self.status.setWordWrap(True)
         self.apply_button = QPushButton("Apply model")
         self.apply_button.setObjectName("model_apply")

@@ -267,3 +267,14 @@ def test_history_panel_lists_each_edit_and_zoom_is_shown(window):
     window.view.zoom_reset()
     window.view.zoom_in()
     assert window._zoom_label.text() == "120 %"
+
+
+def test_status_text_shows_a_small_loops_poles(window, wait_live):
+    # REFERENCES.md REF-03: the stage loop's closed-loop poles are -2 +- 2j, -5, -6
+    # (separation principle: eig(A - B K) with K = [8, 4], eig(A - L C) with L = [11, 30]).
+    from diagrams import stage_loop_ref03
+
+    window.document.replace_diagram(stage_loop_ref03())
+    wait_live(window)
+    assert window._model_label.text().endswith("poles: -6, -5, -2 ± 2j")
+

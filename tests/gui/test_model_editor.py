@@ -113,9 +113,9 @@ def test_the_stage_plant_as_1_over_s2_keeps_the_designed_poles_and_states_its_or
     assert "P.x1 = y, P.x2 = dy/dt" in ed.realization_states.text()
     ed.apply_button.click()
     _link_estimator_and_set_gains(insp, ids)
-    assert "K multiplies the estimate of P's states: P.x1 y, P.x2 dy/dt" == insp.fields["k_order"].text()
+    assert "K multiplies the estimate of P's states: P.x1 = y, P.x2 = dy/dt" == insp.fields["k_order"].text()
     insp.show_block(ids["est"])
-    assert "P.x1 y, P.x2 dy/dt" in insp.model_editor.l_order.text()
+    assert "P.x1 = y, P.x2 = dy/dt" in insp.model_editor.l_order.text()
     assert_allclose(_sorted_poles(doc.diagram), STAGE_POLES, atol=1e-8)
 
 
