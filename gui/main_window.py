@@ -342,9 +342,12 @@ class MainWindow(QMainWindow):
     # ---- files ----------------------------------------------------------------------------------
     def _confirm_discard(self) -> bool:
         """True if it is fine to drop the current diagram (saved, or the user agreed)."""
-        if not self.document.is_dirty:
+        drafts = self.inspector.pending_drafts()
+        if not self.document.is_dirty and not drafts:
             return True
-        answer = self.dialogs.ask_save_changes(self.document.title())
+        # An unapplied model draft is never dropped silently: the question names it.
+        title = self.document.title() + (f" (unapplied model drafts: {', '.join(drafts)})" if drafts else "")
+        answer = self.dialogs.ask_save_changes(title)
         if answer == "save":
             return self.save()
         return answer == "discard"

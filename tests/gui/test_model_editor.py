@@ -224,3 +224,16 @@ def test_screenshots_of_a_three_state_plant_and_a_transfer_function(stage, scree
     insp.model_editor.apply_button.click()
     insp.grab().save(str(screenshot_dir / "inspector_transfer_function_realization.png"))
     assert (screenshot_dir / "inspector_transfer_function_realization.png").stat().st_size > 0
+
+
+def test_closing_with_an_unapplied_draft_asks_first(window, dialogs):
+    doc = window.document
+    cmd = AddBlock(doc, "plant", name="P")
+    doc.push(cmd)
+    doc.undo_stack.setClean()  # saved: only the draft is unsaved work
+    window.inspector.show_block(cmd.block_id)
+    ed = window.inspector.model_editor
+    ed.choice.setCurrentIndex(ed.choice.findData("ss"))
+    dialogs.save_answer = "cancel"
+    assert not window._confirm_discard()
+    assert dialogs.asked_save == 1
