@@ -491,9 +491,15 @@ class ModelEditor(QWidget):
                 params["plant"] = linked
             else:
                 for key in ("A", "B", "C", "D"):
-                    params[key] = self.matrices[key].value()
+                    value = self.matrices[key].value()
+                    value = value if value and value[0] else []  # 1×0 is as empty as 0×1
+                    if value or key == "D" or key in self._stored:
+                        # a block without states is D alone, as the file format writes it
+                        params[key] = value
                 if self._kind == "plant" and self.sizes["loads"].value() > 0:
                     params["E"], params["F"] = self.matrices["E"].value(), self.matrices["F"].value()
+                    if "F" not in self._stored and not any(v for row in params["F"] for v in row):
+                        del params["F"]  # F is optional (zero when left out): keep the file as written
         if self._kind == "estimator":
             params["L"] = self.matrices["L"].value()
             if params.get("L") != self._stored.get("L") or params.get("plant") != self._stored.get("plant"):

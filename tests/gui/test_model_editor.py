@@ -177,7 +177,10 @@ def test_load_inputs_follow_the_sizes(stage):
     _fill(ed.matrices["E"], [[0], [2]])
     ed.apply_button.click()
     params = doc.diagram.blocks[ids["P"]].params
-    assert params["E"] == [[0.0], [2.0]] and params["F"] == [[0.0]]
+    assert params["E"] == [[0.0], [2.0]] and "F" not in params  # a zero F is left out, as the engine reads it
+    from loopwright.engine.ports import input_ports
+
+    assert input_ports(doc.diagram.blocks[ids["P"]]) == ["u", "d"]
 
 
 def test_pasting_a_larger_a_resizes_every_matrix(stage):
@@ -237,3 +240,18 @@ def test_closing_with_an_unapplied_draft_asks_first(window, dialogs):
     dialogs.save_answer = "cancel"
     assert not window._confirm_discard()
     assert dialogs.asked_save == 1
+
+
+@pytest.mark.parametrize("path", __import__("gui_helpers").SAMPLES, ids=lambda p: p.stem)
+def test_a_stored_model_opens_as_it_is_not_as_a_draft(qtbot, path):
+    from loopwright.engine.project import load
+
+    doc = Document(load(path))
+    insp = Inspector(doc)
+    qtbot.addWidget(insp)
+    for blk in doc.diagram.blocks.values():
+        if blk.kind in ("plant", "dynamic", "estimator"):
+            insp.show_block(blk.id)
+            assert not insp.model_editor.is_draft(), blk.name
+            assert insp.model_editor.draft_params() == blk.params
+    assert insp.pending_drafts() == []
