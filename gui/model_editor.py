@@ -357,7 +357,10 @@ class ModelEditor(QWidget):
         self._set_row_visible(self.realization, tf)
 
     def _set_row_visible(self, widget: QWidget, visible: bool) -> None:
-        self._form.setRowVisible(widget, visible) if self._form.indexOf(widget) >= 0 else widget.setVisible(visible)
+        if self._form.indexOf(widget) >= 0:
+            self._form.setRowVisible(widget, visible)
+        else:
+            widget.setVisible(visible)
 
     # ---- reacting to the user ---------------------------------------------------------------
     def _on_choice(self) -> None:
