@@ -71,7 +71,15 @@ def status_text(result: LiveResult | None) -> str:
     sep = rep.separation
     if sep is not None:
         parts.append("separation: poles match eig(A−BK) ∪ eig(A−LC)" if sep.matches else "separation: poles DIFFER from eig(A−BK) ∪ eig(A−LC)")
+    if 0 < len(rep.poles) <= _POLES_SHOWN:
+        # A small loop's poles in plain sight: the designed ones, or not.
+        from loopwright.gui.inspector import format_complex_list
+
+        parts.append(f"poles: {format_complex_list(rep.poles)}")
     return " · ".join(parts)
+
+
+_POLES_SHOWN = 8
 
 
 class MainWindow(QMainWindow):
@@ -340,9 +348,12 @@ class MainWindow(QMainWindow):
     # ---- files ----------------------------------------------------------------------------------
     def _confirm_discard(self) -> bool:
         """True if it is fine to drop the current diagram (saved, or the user agreed)."""
-        if not self.document.is_dirty:
+        drafts = self.inspector.pending_drafts()
+        if not self.document.is_dirty and not drafts:
             return True
-        answer = self.dialogs.ask_save_changes(self.document.title())
+        # An unapplied model draft is never dropped silently: the question names it.
+        title = self.document.title() + (f" (unapplied model drafts: {', '.join(drafts)})" if drafts else "")
+        answer = self.dialogs.ask_save_changes(title)
         if answer == "save":
             return self.save()
         return answer == "discard"
