@@ -162,7 +162,7 @@ def test_nesting_is_bounded_also_for_data_given_directly():
         (lambda d: d["blocks"][0].update(name="P\n"), r"blocks\[0\]\.name \(block 'P\\n'\): 'P\\n' is not a name"),
         (lambda d: d["blocks"][0]["params"].update(Kx=1), r"blocks\[0\]\.params \(block '\w+'\): unknown field 'Kx' \(known: "),
         (lambda d: d["blocks"][0].pop("params"), r"blocks\[0\] \(block '\w+'\): missing field 'params'"),
-        (lambda d: d["settings"].update(loop_brake="u"), r"settings: unknown field 'loop_brake' \(known: loop_break, time\)"),
+        (lambda d: d["settings"].update(loop_brake="u"), r"settings: unknown field 'loop_brake' \(known: loop_break, pairs, time\)"),
         (lambda d: d["settings"]["time"].update(dt=-1), r"settings\.time\.dt: -1 is not more than 0"),
         (lambda d: d["wires"][0].update(to=[]), r"wires\[0\]\.to \(wire '\w+'\): has 0 entries, expected at least 1"),
         (lambda d: d.update(version=2), r"newer Loopwright"),
