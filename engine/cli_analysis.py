@@ -338,27 +338,61 @@ def _margins(args: argparse.Namespace) -> int:
 
 def _print_scalar_margins(m, *, indent: str) -> None:
     lo_db, hi_db = m.gain_margin_db
+    ol = m.open_loop_poles.phrase() if m.open_loop_poles is not None else f"{m.open_loop_unstable_poles} in the right half-plane"
+    dm_at = f"at {fmt_num(m.delay_margin_w_rad_s)} rad/s" if np.isfinite(m.delay_margin_w_rad_s) else ""
     rows = [
         ["closed loop", "stable" if m.closed_loop_stable else "UNSTABLE", ""],
-        ["open-loop RHP poles", str(m.open_loop_unstable_poles), ""],
+        ["open-loop poles", ol, ""],
         ["gain margin, lower", f"{fmt_num(m.gain_lower)} ({fmt_num(lo_db, digits=5)} dB)", f"at {fmt_num(m.gain_lower_w_rad_s)} rad/s"],
         ["gain margin, upper", f"{fmt_num(m.gain_upper)} ({fmt_num(hi_db, digits=5)} dB)", f"at {fmt_num(m.gain_upper_w_rad_s)} rad/s"],
         ["phase margin", f"{fmt_num(m.phase_margin_deg, digits=6)} deg", f"at {fmt_num(m.phase_margin_w_rad_s)} rad/s"],
-        ["delay margin", f"{fmt_num(m.delay_margin_s)} s", ""],
+        ["delay margin", f"{fmt_num(m.delay_margin_s)} s", dm_at],
         ["peak sensitivity", f"{fmt_num(m.peak_sensitivity)} (modulus margin {fmt_num(m.modulus_margin, digits=4)})", f"at {fmt_num(m.peak_sensitivity_w_rad_s)} rad/s"],
         [
             f"disk margin (skew {fmt_num(m.disk.skew, digits=3)})",
             f"alpha {fmt_num(m.disk.alpha)}: gain [{fmt_num(m.disk.gain_lower, digits=5)}, {fmt_num(m.disk.gain_upper, digits=5)}], phase +-{fmt_num(m.disk.phase_deg, digits=5)} deg",
             f"at {fmt_num(m.disk.w_rad_s)} rad/s",
         ],
-        ["gain crossovers", ", ".join(fmt_num(x) for x in m.gain_crossovers_w_rad_s) or "none", "rad/s"],
-        ["phase crossovers", ", ".join(fmt_num(x) for x in m.phase_crossovers_w_rad_s) or "none", "rad/s"],
     ]
     width = max(len(r[0]) for r in rows)
     for a, b, c in rows:
         print(f"{indent}{a.ljust(width)}  {b}  {c}".rstrip())
+    if m.crossovers:
+        print(f"{indent}gain crossovers (|L| = 1):")
+        _table(
+            ["w (rad/s)", "phase margin (deg)", "delay margin (s)", ""],
+            [
+                [fmt_num(c.w_rad_s), fmt_num(c.phase_margin_deg, digits=6), fmt_num(c.delay_margin_s), _sets(c.sets_phase_margin and "phase margin", c.sets_delay_margin and "delay margin")]
+                for c in m.crossovers
+            ],
+            indent=indent + "  ",
+        )
+    else:
+        print(f"{indent}gain crossovers (|L| = 1): none")
+    if m.phase_crossings:
+        print(f"{indent}phase crossovers (L real and negative; the gain factor 1/|L| puts g L on -1):")
+        _table(
+            ["w (rad/s)", "gain factor", "(dB)", ""],
+            [
+                [fmt_num(c.w_rad_s), fmt_num(c.gain_factor), fmt_num(c.gain_factor_db, digits=5), _sets(c.sets_lower and "lower gain margin", c.sets_upper and "upper gain margin")]
+                for c in m.phase_crossings
+            ],
+            indent=indent + "  ",
+        )
+    else:
+        print(f"{indent}phase crossovers (L real and negative): none")
     if m.message:
         print(f"{indent}note: {m.message}")
+    for note in m.notes:
+        print(f"{indent}note: {note}")
+    if m.limits is not None:
+        for line in m.limits.lines():
+            print(f"{indent}{line}")
+
+
+def _sets(*what) -> str:
+    named = [w for w in what if w]
+    return ("<- sets the " + " and the ".join(named)) if named else ""
 
 
 # ---------------------------------------------------------------------------------------

@@ -267,3 +267,18 @@ def test_history_panel_lists_each_edit_and_zoom_is_shown(window):
     window.view.zoom_reset()
     window.view.zoom_in()
     assert window._zoom_label.text() == "120 %"
+
+
+def test_status_bar_counts_poles_at_the_origin_apart(window, wait_live):
+    # a plant 1/s^2 (num/den) driven by a source alone: two poles at the origin, none in the right
+    # half-plane (closed form)
+    doc = window.document
+    r = AddBlock(doc, "source", layout={"x": 0, "y": 0})
+    p = AddBlock(doc, "plant", layout={"x": 150, "y": 0})
+    doc.push(r)
+    doc.push(p)
+    doc.push(SetParams(doc, p.block_id, {"num": [1.0], "den": [1.0, 0.0, 0.0]}))
+    doc.push(Connect(doc, PortRef(r.block_id, "out"), PortRef(p.block_id, "u")))
+    result = wait_live(window)
+    assert result.report.rhp_poles == 0 and result.report.pole_classes.origin == 2
+    assert "not stable: 2 at the origin, 0 in the right half-plane" in window._model_label.text()
