@@ -416,10 +416,10 @@ def _audit(args: argparse.Namespace) -> int:
     if args.csv:
         write_csv(
             (
-                [r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.stable, " ".join(r.blocks), " ".join(r.wires)]
+                [r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.dc_gain_kind, r.stable, " ".join(r.blocks), " ".join(r.wires)]
                 for r in rows
             ),
-            ["rank", "source", "signal", "peak_gain", "peak_freq_rad_s", "h2", "dc_gain", "stable", "blocks", "wires"],
+            ["rank", "source", "signal", "peak_gain", "peak_freq_rad_s", "h2", "dc_gain", "dc_gain_kind", "stable", "blocks", "wires"],
         )
         return 0
     shown = f"top {len(rows)} of {total} paths" if len(rows) < total else f"{total} paths"
@@ -428,12 +428,16 @@ def _audit(args: argparse.Namespace) -> int:
         ["#", "source", "signal", "peak gain", "at (rad/s)", "H2", "DC gain", "stable", "blocks on the path"],
         [
             [
-                str(r.rank), r.source, r.signal, fmt_num(r.peak_gain), fmt_num(r.peak_freq_rad_s), fmt_num(r.h2), fmt_num(r.dc_gain),
+                str(r.rank), r.source, r.signal, fmt_num(r.peak_gain), fmt_num(r.peak_freq_rad_s), fmt_num(r.h2),
+                fmt_num(r.dc_gain) + ("*" if r.dc_gain_kind != "signed value" else ""),
                 "yes" if r.stable else "NO", " ".join(r.blocks),
             ]
             for r in rows
         ],
     )
+    print("\n  DC gain: signed value of a scalar path" + (
+        "; * a vector path: the largest singular value of its DC gain matrix (its peak gain is the peak of the largest singular value)"
+        if any(r.dc_gain_kind != "signed value" for r in rows) else ""))
     print(f"\n  {CAUTION}")
     return 0
 

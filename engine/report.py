@@ -222,8 +222,10 @@ def format_report(rep: LoopReport, *, origin: str = "") -> str:
     for r in rep.audit:
         out.append(
             f"  {r.source:<8} {r.signal:<12} {fmt_num(r.peak_gain, digits=4):>11} {fmt_num(r.peak_freq_rad_s, digits=4):>10} "
-            f"{fmt_num(r.dc_gain, digits=4):>11}  {' '.join(r.blocks)}"
+            f"{fmt_num(r.dc_gain, digits=4) + ('*' if r.dc_gain_kind != 'signed value' else ''):>11}  {' '.join(r.blocks)}"
         )
+    if any(r.dc_gain_kind != "signed value" for r in rep.audit):
+        out.append("  (DC gain: signed for a scalar path; * largest singular value of a vector path's DC gain matrix)")
     if chk.warnings or rep.notes:
         out.append("")
         out.extend(f"warning: {w}" for w in chk.warnings)
