@@ -31,6 +31,8 @@ def add_commands(subparsers) -> None:
     p.add_argument("--w-min", type=float, default=None, help="lowest frequency, rad/s")
     p.add_argument("--w-max", type=float, default=None, help="highest frequency, rad/s")
     p.add_argument("--points", type=int, default=None, help="number of log-spaced frequencies (default: automatic grid)")
+    p.add_argument("--w", dest="w_list", default=None, metavar="W[,W...]",
+                   help="evaluate at exactly these frequencies, rad/s (0 is the DC point); overrides the grid options")
     _format_flags(p)
     p.set_defaults(run=_freq)
 
@@ -110,14 +112,20 @@ def _freq(args: argparse.Namespace) -> int:
         with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
             return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C)
 
+    dc_point = args.w_min == 0.0  # a grid from DC: the DC point, then the log grid above it
+    if dc_point:
+        args.w_min = None
     for name, v in (("--w-min", args.w_min), ("--w-max", args.w_max)):
-        if v is not None and not v > 0:
-            raise ParameterError(f"{name} must be a positive frequency in rad/s; got {v}", field=name)
+        if v is not None and not (v > 0 and np.isfinite(v)):
+            raise ParameterError(f"{name} must be a positive finite frequency in rad/s (or --w-min 0 for a grid from DC); got {v}", field=name)
     if args.points is not None and not 2 <= args.points <= _MAX_POINTS:
         raise ParameterError(f"--points must be from 2 to {_MAX_POINTS}; got {args.points}", field="--points")
     if args.w_min is not None and args.w_max is not None and not args.w_max > args.w_min:
         raise ParameterError(f"--w-max ({args.w_max}) must exceed --w-min ({args.w_min})", field="--w-max")
-    if args.points is not None:
+    if args.w_list is not None:
+        w = _frequency_list(args.w_list)
+        G = evaluate(w)
+    elif args.points is not None:
         auto = auto_frequency_grid(red.poles)
         lo = args.w_min if args.w_min is not None else auto[0]
         hi = args.w_max if args.w_max is not None else auto[-1]
@@ -130,6 +138,9 @@ def _freq(args: argparse.Namespace) -> int:
         G = evaluate(w)
         w, _ = refine_grid_at_peaks(lambda x: sigma_max(evaluate(x)), w, sigma_max(G))
         G = evaluate(w)
+    if dc_point and args.w_list is None:
+        w = np.concatenate([[0.0], w])
+        G = np.concatenate([evaluate([0.0]), G])
     mag = magnitude_db(G)
     ph = phase_deg(G)
     in_names = [model.input_names[i] for i in range(model.input_slice(grp).start, model.input_slice(grp).stop)]
@@ -186,6 +197,17 @@ def _freq(args: argparse.Namespace) -> int:
         print(f"  (every {step}th point shown, plus the peak; --csv or --json gives all)")
     print(f"\n  {CAUTION}")
     return 0
+
+
+def _frequency_list(text: str) -> np.ndarray:
+    """``--w 0,1,10`` -> the frequencies in rad/s (finite, >= 0, at most ``_MAX_POINTS``)."""
+    try:
+        w = np.array([float(v) for v in text.split(",") if v.strip()], dtype=float)
+    except ValueError as err:
+        raise ParameterError(f"--w {text!r}: give frequencies in rad/s separated by commas, e.g. --w 0,1,10", field="--w") from err
+    if w.size == 0 or w.size > _MAX_POINTS or not np.all(np.isfinite(w)) or np.any(w < 0):
+        raise ParameterError(f"--w {text!r}: give 1 to {_MAX_POINTS} finite frequencies >= 0 rad/s", field="--w")
+    return w
 
 
 # ---------------------------------------------------------------------------------------

@@ -260,3 +260,98 @@ def test_free_response_from_a_plant_initial_state_shows_the_estimation_error(cap
         assert_allclose(out["y"]["y"][k], z[m.signals["y"]][0], rtol=1e-9, atol=1e-15)
         assert_allclose(out["y"]["xhat[1]"][k], z[m.signals["xhat"]][0], rtol=1e-9, atol=1e-15)
     assert out["y"]["xhat[1]"][0] == 0.0 and abs(out["y"]["y"][-1] - out["y"]["xhat[1]"][-1]) < 1e-7
+
+
+# ---- answers read right: origin poles, crossover tables, unbounded disks, DC points -----------
+
+
+def _rotor_lead_file(tmp_path) -> str:
+    # REFERENCES.md REF-12: P = 1/(s^2 - 4), C = 80 (s + 1)/(s + 10), unity feedback, break at the plant input
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    d.add_block("plant", "Cl", {"A": [[-10.0]], "B": [[1.0]], "C": [[-720.0]], "D": [[80.0]]})
+    d.add_block("plant", "P", {"A": [[0.0, 1.0], [4.0, 0.0]], "B": [[0.0], [1.0]], "C": [[1.0, 0.0]], "D": [[0.0]]})
+    d.connect("r.out", "e.in1", name="ref")
+    d.connect("e.out", "Cl.u", name="err")
+    d.connect("Cl.y", "P.u", name="u")
+    d.connect("P.y", "e.in2", name="y")
+    d.settings["loop_break"] = "u"
+    path = tmp_path / "rotor.lwd"
+    save(d, str(path))
+    return str(path)
+
+
+def test_freq_accepts_the_dc_point(tmp_path, capsys):
+    # closed form (REF-12 case): S(0) = 1/(1 + L(0)) = 1/(1 - 2) = -1: 0 dB and a phase of +-180 deg
+    assert main(["freq", _rotor_lead_file(tmp_path), "--from", "r", "--to", "err", "--w", "0,1e6", "--json"]) == 0
+    out = _json(capsys)
+    assert out["w"] == [0.0, 1e6]
+    assert_allclose(out["re"][0], -1.0, rtol=1e-12)
+    assert_allclose(out["mag_db"][0], 0.0, atol=1e-9)
+    assert_allclose(abs(out["phase_deg"][0]), 180.0, rtol=1e-12)
+    assert main(["freq", _rotor_lead_file(tmp_path), "--from", "r", "--to", "err", "--w-min", "0", "--csv"]) == 0
+    rows = list(csv.reader(io.StringIO(capsys.readouterr().out)))
+    assert float(rows[1][0]) == 0.0 and abs(float(rows[1][2])) == pytest.approx(180.0)
+
+
+@pytest.mark.parametrize("bad", ["-1", "abc", "nan", ""])
+def test_freq_rejects_a_bad_frequency_list_in_one_line(bad, tmp_path, capsys):
+    assert main(["freq", _rotor_lead_file(tmp_path), "--from", "r", "--to", "err", "--w", bad]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.count("\n") == 0 and "--w" in err
+
+
+def test_margins_text_lists_each_crossover_and_marks_what_sets_the_margins(tmp_path, capsys):
+    # REFERENCES.md REF-12 (python-control 0.10.2 stability_margins): PM 48.94734683 deg at 6.234008542 rad/s,
+    # DM 0.1370374065 s, lower gain margin 0.5 at w = 0, one open-loop pole in the right half-plane (+2)
+    assert main(["margins", _rotor_lead_file(tmp_path)]) == 0
+    text = capsys.readouterr().out
+    assert "open-loop poles       1 in the right half-plane" in text
+    assert "gain crossovers (|L| = 1):" in text and "phase crossovers (L real and negative" in text
+    (gc_line,) = [ln for ln in text.splitlines() if "sets the phase margin" in ln]
+    w, pm, dm = (float(x) for x in gc_line.split()[:3])
+    assert_allclose([w, pm, dm], [6.234008542, 48.94734683, 0.1370374065], rtol=1e-5)
+    (pc_line,) = [ln for ln in text.splitlines() if "sets the lower gain margin" in ln]
+    assert_allclose([float(x) for x in pc_line.split()[:2]], [0.0, 0.5], atol=1e-9)
+    assert main(["margins", _rotor_lead_file(tmp_path), "--json"]) == 0
+    out = _json(capsys)
+    (gc,) = out["gain_crossovers"]
+    assert gc["sets_phase_margin"] and gc["sets_delay_margin"]
+    assert out["open_loop_poles"] == {"open_rhp": 1, "origin": 0, "imaginary_axis": 0, "open_lhp": 2}
+
+
+def test_an_unbounded_disk_prints_zero_and_inf(tmp_path, capsys):
+    # L = 1/s (an integrating plant under unity feedback): S - 1/2 is all-pass of gain 1/2, alpha = 2, the balanced
+    # disk gives gains [0, inf) (closed form; Seiler, Packard & Gahinet 2020, from memory)
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    d.add_block("integrator", "I", {"width": 1})
+    d.connect("r.out", "e.in1", name="ref")
+    d.connect("e.out", "I.in", name="u")
+    d.connect("I.out", "e.in2", name="y")
+    path = tmp_path / "int.lwd"
+    save(d, str(path))
+    assert main(["margins", str(path), "--at", "u"]) == 0
+    text = capsys.readouterr().out
+    assert "gain [0, inf]" in text and "open-loop poles       1 at the origin, 0 in the right half-plane" in text
+    assert main(["margins", str(path), "--at", "u", "--json"]) == 0
+    disk = _json(capsys)["disk_margin"]
+    assert disk["gain"] == [0.0, "inf"] and disk["gain_unbounded"] == [True, True]
+
+
+def test_check_on_the_ill_conditioned_chain_separates_and_flags(capsys):
+    # tests/engine/data: 10 integrators with placed K, L (poles -1 .. -3.25 and about -3 .. -7.5, all real)
+    import pathlib
+
+    path = pathlib.Path(__file__).parent / "data" / "integrator_chain_10_placed_gains.lwd"
+    assert main(["check", str(path)]) == 0
+    text = capsys.readouterr().out
+    assert "from the separation coordinates" in text
+    assert "j " not in text.split("verdict")[0]  # no complex pairs among the poles
+    assert "yes, by structure" in text
+    assert main(["check", str(path), "--json"]) == 0
+    out = _json(capsys)
+    assert out["pole_source"] == "separation" and out["separation"]["verdict"] == "holds" and out["poles_trusted"]
+    assert out["worst_condition"] > 1e10
