@@ -28,6 +28,7 @@ __all__ = [
     "PoleClasses",
     "EigenSensitivity",
     "classify_poles",
+    "pole_regions",
     "matrix_scale",
     "eigen_sensitivity",
     "trustworthy_digits",
@@ -113,6 +114,18 @@ def classify_poles(poles, *, scale: float) -> PoleClasses:
     and its mean is within ``1e-3`` of its radius of zero (a perturbed Jordan block
     splits symmetrically; real poles near zero do not).
     """
+    labels = pole_regions(poles, scale=scale)
+    return PoleClasses(
+        open_rhp=int(np.sum(labels == "rhp")),
+        origin=int(np.sum(labels == "origin")),
+        imaginary_axis=int(np.sum(labels == "axis")),
+        open_lhp=int(np.sum(labels == "lhp")),
+    )
+
+
+def pole_regions(poles, *, scale: float) -> np.ndarray:
+    """Where each pole lies: ``"origin"``, ``"axis"``, ``"rhp"`` or ``"lhp"`` (same order as
+    ``poles``; the rules of :func:`classify_poles`)."""
     p = np.asarray(poles, dtype=complex).ravel()
     n = p.size
     s = max(float(scale), 0.0)
@@ -126,11 +139,13 @@ def classify_poles(poles, *, scale: float) -> PoleClasses:
         ):
             origin = k
             break
-    rest = p[order[origin:]]
-    tol = _AXIS_ULPS * _EPS * np.maximum(s, np.abs(rest))
-    axis = int(np.sum(np.abs(rest.real) <= tol))
-    rhp = int(np.sum(rest.real > tol))
-    return PoleClasses(open_rhp=rhp, origin=origin, imaginary_axis=axis, open_lhp=int(rest.size - axis - rhp))
+    labels = np.empty(n, dtype=object)
+    labels[order[:origin]] = "origin"
+    rest = order[origin:]
+    tol = _AXIS_ULPS * _EPS * np.maximum(s, np.abs(p[rest]))
+    re = p[rest].real
+    labels[rest] = np.where(np.abs(re) <= tol, "axis", np.where(re > tol, "rhp", "lhp"))
+    return labels.astype(str)
 
 
 @dataclass(frozen=True)

@@ -783,21 +783,61 @@ def loop_transfer(diagram, signal: str):
     return A, B, -C, -D
 
 
-def margins_at(diagram, signal: str, *, skew: float = 0.0):
+def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True):
     """Margins of the loop broken at ``signal``: :class:`LoopMargins` for a scalar signal,
-    :class:`VectorLoopMargins` for a vector one."""
+    :class:`VectorLoopMargins` for a vector one.
+
+    ``signal`` may name one component of a vector signal or port, ``"P.u[2]"``: that
+    channel is opened and the other components stay closed (the loop-at-a-time margin of
+    that channel), and the result is a :class:`LoopMargins`. With ``limits`` the scalar
+    results carry :class:`~loopwright.engine.limits.PerformanceLimits` (Bode's sensitivity
+    integral, the right-half-plane pole and zero bounds).
+    """
     if not np.isfinite(skew):
         raise AnalysisError(f"disk-margin skew must be a finite number; got {skew}")
-    A, B, C, D = loop_transfer(diagram, signal)
+    base, component = _split_component(diagram, signal)
+    A, B, C, D = loop_transfer(diagram, base)
     A, B, C, D = _trim_for_margins(A, B, C, D)
     if not np.any(D) and (A.shape[0] == 0 or not np.any(B) or not np.any(C)):
         raise AnalysisError(
             f"no feedback loop passes through {signal!r}: a signal injected there never comes back, so there are no margins to compute"
         )
+    if component is not None:
+        q = D.shape[0]
+        if not 1 <= component <= q:
+            raise AnalysisError(f"{signal!r}: {base!r} has {q} component{'s' if q != 1 else ''}; pick [1] to [{q}]")
+        if D.shape[1] != q:
+            raise AnalysisError(f"a loop transfer must be square; got {D.shape[0]}x{D.shape[1]}")
+        A, B, C, D = _close_channels(A, B, C, D, component - 1)
     if D.shape[0] == 1:
-        return loop_margins(A, B, C, D, skew=skew)
+        m = loop_margins(A, B, C, D, skew=skew)
+        if limits:
+            _attach_limits(m, A, B, C, D)
+        return m
     names = [f"{signal}[{i + 1}]" for i in range(D.shape[0])]
     return vector_loop_margins(A, B, C, D, skew=skew, channel_names=names)
+
+
+def _attach_limits(m: LoopMargins, A, B, C, D) -> None:
+    from loopwright.engine.limits import performance_limits
+
+    try:
+        m.limits = performance_limits(A, B, C, D, closed_loop_stable=m.closed_loop_stable, gain_crossovers=m.gain_crossovers_w_rad_s)
+    except (np.linalg.LinAlgError, ValueError):
+        m.limits = None  # the margins stand on their own; the limits are an extra
+
+
+def _split_component(diagram, signal: str) -> tuple[str, int | None]:
+    """``"P.u[2]"`` -> ``("P.u", 2)`` when ``P.u`` is a break point and the text is not itself one."""
+    import re
+
+    match = re.fullmatch(r"(.+)\[(\d+)\]", signal)
+    if not match:
+        return signal, None
+    wires = {w.name for w in diagram.wires.values()}
+    if signal in wires:
+        return signal, None
+    return match.group(1), int(match.group(2))
 
 
 def _trim_for_margins(A, B, C, D):

@@ -464,3 +464,72 @@ def test_every_crossover_of_the_conveyor_sample_matches_python_control():
     assert_allclose([c.gain_factor for c in m.phase_crossings], [g for _, g in neg], rtol=1e-6)
     assert [c.sets_delay_margin for c in m.crossovers].count(True) == 1
     assert sum(c.sets_upper for c in m.phase_crossings) == 1
+
+
+# ---- one component of a vector break; limits of performance -------------------------------
+
+
+def test_breaking_one_component_closes_the_others():
+    # closed form: with channel 2 closed, the loop seen at channel 1 is L11 - L12 (1 + L22)^-1 L21;
+    # python-control 0.10.2 builds it (feedback, series) and stability_margins gives its margins
+    from diagrams import sample_path
+    from loopwright.engine.project import load
+
+    d = load(str(sample_path("two_zone_oven.lwd")))
+    A, B, C, D = loop_transfer(d, "P.u")
+    Lss = ct.ss(A, B, C, D)
+    L11, L12, L21, L22 = Lss[0, 0], Lss[0, 1], Lss[1, 0], Lss[1, 1]
+    L1 = L11 - L12 * ct.feedback(ct.ss([], [], [], [[1.0]]), L22) * L21
+    gm, pm, _, _, wgc, _ = ct.stability_margins(L1)
+    m = margins_at(d, "P.u[1]")
+    assert isinstance(m.phase_margin_deg, float) and m.closed_loop_stable
+    assert_allclose(m.phase_margin_deg, pm, rtol=1e-6)
+    assert_allclose(m.phase_margin_w_rad_s, wgc, rtol=1e-6)
+    assert m.gain_upper == np.inf and gm > 1e12  # python-control reports a rounding-level phase crossover as 2.9e14
+    with pytest.raises(AnalysisError, match=r"pick \[1\] to \[2\]"):
+        margins_at(d, "P.u[3]")
+
+
+def test_bode_sensitivity_integral_of_the_unstable_rotor():
+    # REFERENCES.md REF-12: int_0^inf ln|S| dw = pi * sum Re p = 2 pi for L = 80 (s + 1)/(s^3 + 10 s^2 - 4 s - 40)
+    # (Freudenberg & Looze, IEEE TAC AC-30(6), 1985, from memory)
+    from loopwright.engine.limits import performance_limits
+
+    lim = performance_limits(*_ss(ct.tf([80, 80], [1, 10, -4, -40])))
+    assert lim.relative_degree == 2
+    assert_allclose(lim.bode_integral, 2 * np.pi, rtol=1e-8)
+    assert_allclose(lim.bode_integral_theory, 2 * np.pi, rtol=1e-12)
+    assert_allclose(lim.rhp_poles, [2.0], rtol=1e-12) and lim.rhp_zeros.size == 0
+    assert lim.crossover_above_rad_s == pytest.approx(4.0)
+
+
+def test_a_right_half_plane_zero_and_pole_bound_the_peak_sensitivity():
+    # L = (20 - 4 s)/((s - 1)(s + 10)): zero z = 5, pole p = 1 in the right half-plane; closed form
+    # ||S||_inf >= |z + p| / |z - p| = 6/4 = 1.5 (maximum modulus principle: S(z) = 1, S(p) = 0;
+    # Skogestad & Postlethwaite 2005, ch. 5, from memory); the peak on a python-control 0.10.2 frequency grid
+    # must not be below it
+    tf = ct.tf([-4, 20], [1, 9, -10])
+    assert np.all(ct.poles(ct.feedback(tf, 1)).real < 0)
+    m = loop_margins(*_ss(tf))
+    from loopwright.engine.limits import performance_limits
+
+    lim = performance_limits(*_ss(tf), closed_loop_stable=m.closed_loop_stable)
+    assert_allclose(lim.rhp_zeros, [5.0], rtol=1e-9)
+    assert_allclose(lim.peak_sensitivity_bound, 1.5, rtol=1e-9)
+    w = np.logspace(-3, 3, 20001)
+    grid_peak = np.max(np.abs(1.0 / (1.0 + tf(1j * w))))
+    assert grid_peak >= 1.5 and m.peak_sensitivity >= 1.5
+    assert lim.crossover_below_rad_s == pytest.approx(2.5) and lim.crossover_above_rad_s == pytest.approx(2.0)
+    assert any("cannot be below 1.5" in ln for ln in lim.lines())
+
+
+def test_margins_at_a_scalar_break_carry_the_limits():
+    from diagrams import sample_path
+    from loopwright.engine.project import load
+
+    m = margins_at(load(str(sample_path("levitated_rotor_axis.lwd"))), "P.u")
+    # Bode's integral with one unstable pole (Freudenberg & Looze 1985, from memory): the quadrature of
+    # ln|S| must equal pi * Re p for the sample's open-loop unstable pole (+63 rad/s in its description)
+    assert m.limits is not None and m.limits.rhp_poles.size == 1
+    assert_allclose(m.limits.bode_integral, m.limits.bode_integral_theory, rtol=1e-6)
+    assert m.as_dict()["limits"]["crossover_above_rad_s"] == pytest.approx(2 * m.limits.rhp_poles[0].real)
