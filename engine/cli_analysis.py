@@ -47,6 +47,9 @@ def add_commands(subparsers) -> None:
                    help="initial state of one block's states (repeat per block); e.g. --initial P=0.001,0,0 "
                         "with the estimator left at zero shows the estimation-error transient")
     p.add_argument("--to", dest="signals", required=True, metavar="SIGNAL[,SIGNAL]", help="signals to report, comma-separated")
+    p.add_argument("--metrics", action="store_true",
+                   help="with --step: rise time (10-90 %%), settling time, overshoot, undershoot, peak, steady-state value")
+    p.add_argument("--settle", type=float, default=0.02, metavar="FRACTION", help="settling band for --metrics (default 0.02 = 2 %%)")
     p.add_argument("--t-end", type=float, default=None, help="end time, s")
     p.add_argument("--dt", type=float, default=None, help="time step, s")
     _format_flags(p)
@@ -265,8 +268,13 @@ def _time(args: argparse.Namespace) -> int:
     rows = [i for s in sigs for i in range(model.signal_slice(s).start, model.signal_slice(s).stop)]
     out_names = [model.output_names[i] for i in rows]
     x0 = _initial_state(model, args.initial)
+    metrics = None
     if x0 is not None and (args.step or args.impulse):
         raise ParameterError("--initial goes with --run or --free, not with --step or --impulse", field="--initial")
+    if args.metrics and not args.step:
+        raise ParameterError("--metrics goes with --step INPUT (the metrics are those of a unit step)", field="--metrics")
+    if not (0.0 < args.settle < 1.0):
+        raise ParameterError(f"--settle must be a fraction between 0 and 1 (0.02 is 2 %); got {args.settle}", field="--settle")
     if args.free:
         from loopwright.engine.responses import initial_response
 
@@ -288,13 +296,17 @@ def _time(args: argparse.Namespace) -> int:
             names = [f"{o} <- {i}" for o in out_names for i in in_names]
             Y = res.y.reshape(res.y.shape[0], -1)
         kind = ("step" if args.step else "impulse") + f" on {grp}"
+        if args.metrics:
+            metrics = _step_metrics_for(model, cols, rows, names, Y, res.t, args.settle)
     else:
         res = source_run(model, t, outputs=sigs, x0=x0)
         names, Y = res.output_names, res.y
         kind = "run driven by the sources' waveforms" + (" from the initial state" if x0 is not None else "")
     if args.json:
+        extra = {} if metrics is None else {"metrics": {nm: m.as_dict() for nm, m in metrics.items()}, "metric_definitions": _metric_definitions()}
         print_json(
             {
+                **extra,
                 "file": args.file,
                 "kind": kind,
                 "t": res.t,
@@ -317,8 +329,40 @@ def _time(args: argparse.Namespace) -> int:
     _table(["t (s)"] + names, [[fmt_num(res.t[k], digits=5)] + [fmt_num(v, digits=6) for v in Y[k]] for k in idx])
     if res.diverged:
         print(f"\n  WARNING: {res.message}")
+    if metrics is not None:
+        print(f"\n  step metrics (rise 10-90 %, settling band {100 * args.settle:g} %; definitions: 'time --json' or the README):")
+        _table(
+            ["signal", "steady state", "rise (s)", "settling (s)", "overshoot %", "undershoot %", "peak", "at (s)"],
+            [
+                [nm, fmt_num(m.steady_state), fmt_num(m.rise_time_s, digits=5),
+                 fmt_num(m.settling_time_s, digits=5) if m.settled else "not settled", fmt_num(m.overshoot_pct, digits=5),
+                 fmt_num(m.undershoot_pct, digits=5), fmt_num(m.peak, digits=6), fmt_num(m.peak_time_s, digits=5)]
+                for nm, m in metrics.items()
+            ],
+            indent="    ",
+        )
     print(f"\n  {CAUTION}")
     return 0
+
+
+def _metric_definitions() -> dict:
+    from loopwright.engine.step_metrics import DEFINITIONS
+
+    return DEFINITIONS
+
+
+def _step_metrics_for(model, cols, rows, names, Y, t, settle) -> dict:
+    """Step metrics of every (output, input) column of a step run; the steady state is the
+    path's exact DC gain (``nan`` for an unstable or integrating path)."""
+    from loopwright.engine.norms import dc_gain, is_stable_matrix
+    from loopwright.engine.step_metrics import step_metrics
+
+    B = model.B[:, cols]
+    D = model.D[np.ix_(rows, range(cols.start, cols.stop))]
+    with np.errstate(all="ignore"):
+        G0 = dc_gain(model.A, B, model.C[rows], D) if is_stable_matrix(model.A) else np.full(D.shape, np.nan)
+    flat = G0.reshape(-1)  # same order as the columns of Y: output-major, then input
+    return {nm: step_metrics(t, Y[:, k], float(flat[k]) if np.isfinite(flat[k]) else np.nan, settle=settle) for k, nm in enumerate(names)}
 
 
 # ---------------------------------------------------------------------------------------

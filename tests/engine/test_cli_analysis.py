@@ -355,3 +355,62 @@ def test_check_on_the_ill_conditioned_chain_separates_and_flags(capsys):
     out = _json(capsys)
     assert out["pole_source"] == "separation" and out["separation"]["verdict"] == "holds" and out["poles_trusted"]
     assert out["worst_condition"] > 1e10
+
+
+def _servo_file(tmp_path) -> str:
+    # REFERENCES.md REF-11: L = 4/(s (s + 2)), unity feedback, T = 4/(s^2 + 2 s + 4): wn = 2, zeta = 0.5
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    d.add_block("gain", "Kp", {"K": [[4.0]]})
+    d.add_block("plant", "P", {"A": [[0, 1], [0, -2]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
+    d.connect("r.out", "e.in1", name="ref")
+    d.connect("e.out", "Kp.in", name="err")
+    d.connect("Kp.out", "P.u", name="u")
+    d.connect("P.y", "e.in2", name="y")
+    path = tmp_path / "servo.lwd"
+    save(d, str(path))
+    return str(path)
+
+
+def test_step_metrics_of_the_second_order_servo(tmp_path, capsys):
+    # closed forms (common practice): overshoot exp(-zeta pi / sqrt(1 - zeta^2)) = 16.30335348 %,
+    # peak time pi / (wn sqrt(1 - zeta^2)) = 1.813799364 s, peak 1.163033535, final value 1;
+    # rise and settling times against python-control 0.10.2 step_info on a fine grid
+    import control as ct
+
+    path = _servo_file(tmp_path)
+    assert main(["time", path, "--step", "r", "--to", "y", "--metrics", "--t-end", "10", "--dt", "0.0005", "--json"]) == 0
+    out = _json(capsys)
+    m = out["metrics"]["y"]
+    assert_allclose(m["steady_state"], 1.0, rtol=1e-12)
+    assert_allclose(m["overshoot_pct"], 16.30335348, atol=1e-4)
+    assert_allclose(m["peak"], 1.163033535, atol=1e-7)
+    assert_allclose(m["peak_time_s"], np.pi / np.sqrt(3.0), rtol=1e-4)
+    assert m["undershoot_pct"] == 0.0 and m["settled"]
+    info = ct.step_info(ct.tf(4, [1, 2, 4]), T=np.linspace(0, 10, 200001))
+    assert_allclose(m["rise_time_s"], info["RiseTime"], atol=1e-3)
+    assert_allclose(m["settling_time_s"], info["SettlingTime"], atol=1e-3)
+    assert "rise_time" in out["metric_definitions"]
+    assert main(["time", path, "--step", "r", "--to", "y", "--metrics"]) == 0
+    assert "step metrics" in capsys.readouterr().out
+
+
+def test_step_metrics_see_the_dip_of_a_right_half_plane_zero(tmp_path, capsys):
+    # closed form: G = (1 - s)/(s + 1)^2 has y(t) = 1 - e^-t - 2 t e^-t, whose minimum is at t = 0.5 (dy/dt = 0):
+    # y(0.5) = 1 - 2 e^-0.5 = -0.2130613, an undershoot of 21.30613 % of the final value 1
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("plant", "G", {"num": [-1.0, 1.0], "den": [1.0, 2.0, 1.0]})
+    d.connect("r.out", "G.u", name="u")
+    path = tmp_path / "nmp.lwd"
+    save(d, str(path))
+    assert main(["time", str(path), "--step", "r", "--to", "G.y", "--metrics", "--t-end", "20", "--dt", "0.0005", "--json"]) == 0
+    m = _json(capsys)["metrics"]["G.y"]
+    assert_allclose(m["undershoot_pct"], 100 * (2 * np.exp(-0.5) - 1), atol=1e-5)
+    assert_allclose(m["steady_state"], 1.0, rtol=1e-12)
+
+
+def test_metrics_need_a_step(tmp_path, capsys):
+    assert main(["time", _servo_file(tmp_path), "--to", "y", "--metrics"]) == 2
+    assert "--metrics goes with --step" in capsys.readouterr().err
