@@ -159,7 +159,7 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-COMMANDS = ("check", "report", "freq", "time", "margins", "audit", "noise", "design", "export")
+COMMANDS = ("check", "report", "freq", "tf", "time", "margins", "audit", "noise", "design", "export")
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -36,6 +36,13 @@ def add_commands(subparsers) -> None:
     _format_flags(p)
     p.set_defaults(run=_freq)
 
+    p = subparsers.add_parser("tf", help="transfer function of one path: order, poles, zeros, DC and high-frequency gain")
+    p.add_argument("file", help="diagram file (.lwd)")
+    p.add_argument("--from", dest="source", required=True, metavar="INPUT", help="a source name, or a signal name (its injection)")
+    p.add_argument("--to", dest="signal", required=True, metavar="SIGNAL", help="signal name")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(run=_tf)
+
     p = subparsers.add_parser("time", help="step, impulse or source-driven time response")
     p.add_argument("file", help="diagram file (.lwd)")
     mode = p.add_mutually_exclusive_group()
@@ -211,6 +218,41 @@ def _frequency_list(text: str) -> np.ndarray:
     if w.size == 0 or w.size > _MAX_POINTS or not np.all(np.isfinite(w)) or np.any(w < 0):
         raise ParameterError(f"--w {text!r}: give 1 to {_MAX_POINTS} finite frequencies >= 0 rad/s", field="--w")
     return w
+
+
+# ---------------------------------------------------------------------------------------
+# tf
+
+
+def _tf(args: argparse.Namespace) -> int:
+    from loopwright.engine.cli_common import fmt_complex
+    from loopwright.engine.path_tf import path_transfer
+
+    diagram = load_diagram(args.file)
+    model = assemble(diagram)
+    tf = path_transfer(model, args.source, args.signal)
+    if args.json:
+        print_json({"file": args.file, **tf.as_dict(), "caution": CAUTION})
+        return 0
+    print(f"{args.file}: transfer function {tf.source} -> {tf.signal}")
+    print(f"  minimal order       {tf.order}")
+    print(f"  poles               {', '.join(fmt_complex(p) for p in tf.poles) or 'none'}")
+    zs = [fmt_complex(z) + ("  (RIGHT HALF-PLANE)" if np.any(tf.rhp_zeros == z) else "") for z in tf.zeros]
+    print(f"  zeros               {', '.join(zs) or 'none'}")
+    scalar = tf.num is not None
+    print(f"  DC gain             {fmt_num(tf.dc_gain[0, 0]) if scalar else _matrix_line(tf.dc_gain)}")
+    print(f"  high-frequency gain {fmt_num(tf.hf_gain[0, 0]) if scalar else _matrix_line(tf.hf_gain)}")
+    if scalar:
+        print(f"  num                 [{', '.join(fmt_num(v, digits=10) for v in tf.num)}]")
+        print(f"  den                 [{', '.join(fmt_num(v, digits=10) for v in tf.den)}]  (descending powers of s)")
+    if tf.rhp_zeros.size:
+        print("  note: a right-half-plane zero makes the response start the wrong way and limits how fast the loop can act on this path")
+    print(f"\n  {CAUTION}")
+    return 0
+
+
+def _matrix_line(M) -> str:
+    return "[" + ", ".join("[" + ", ".join(fmt_num(v) for v in row) + "]" for row in np.atleast_2d(M)) + "]"
 
 
 # ---------------------------------------------------------------------------------------

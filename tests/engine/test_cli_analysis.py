@@ -414,3 +414,37 @@ def test_step_metrics_see_the_dip_of_a_right_half_plane_zero(tmp_path, capsys):
 def test_metrics_need_a_step(tmp_path, capsys):
     assert main(["time", _servo_file(tmp_path), "--to", "y", "--metrics"]) == 2
     assert "--metrics goes with --step" in capsys.readouterr().err
+
+
+def test_tf_of_the_rotor_loop_matches_the_closed_form(tmp_path, capsys):
+    # REFERENCES.md REF-12: T = r -> y = (80 s + 80)/(s^3 + 10 s^2 + 76 s + 40) (closed form), DC gain 2,
+    # poles -0.5660950408 and -4.71695248 +- 6.957720352j; python-control 0.10.2 ss2tf agrees
+    import control as ct
+
+    assert main(["tf", _rotor_lead_file(tmp_path), "--from", "r", "--to", "y", "--json"]) == 0
+    out = _json(capsys)
+    assert out["order"] == 3
+    assert_allclose(out["den"], [1, 10, 76, 40], rtol=1e-10)
+    assert_allclose(out["num"], [80, 80], rtol=1e-10)
+    assert_allclose(out["dc_gain"], [[2.0]], rtol=1e-10)
+    assert_allclose(out["hf_gain"], [[0.0]], atol=0)
+    poles = np.array([complex(*p) for p in out["poles"]])
+    assert_allclose(np.sort_complex(poles), np.sort_complex(np.array([-0.5660950408, -4.71695248 - 6.957720352j, -4.71695248 + 6.957720352j])), atol=1e-8)
+    assert_allclose([complex(*z) for z in out["zeros"]], [-1.0], rtol=1e-9) and out["rhp_zeros"] == []
+    model = assemble(load(_rotor_lead_file(tmp_path)))
+    ref = ct.tf(ct.ss(*model.pair("r", "y")))  # non-minimal: compare values, not coefficients
+    s_pts = np.array([0.5j, 3j, 10j, 1 + 2j])
+    assert_allclose(np.polyval(out["num"], s_pts) / np.polyval(out["den"], s_pts), ref(s_pts), rtol=1e-9)
+
+
+def test_tf_flags_a_right_half_plane_zero(tmp_path, capsys):
+    # closed form: G = (1 - s)/(s + 1)^2 has its zero at s = +1
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("plant", "G", {"num": [-1.0, 1.0], "den": [1.0, 2.0, 1.0]})
+    d.connect("r.out", "G.u", name="u")
+    path = tmp_path / "nmp.lwd"
+    save(d, str(path))
+    assert main(["tf", str(path), "--from", "r", "--to", "G.y"]) == 0
+    text = capsys.readouterr().out
+    assert "1  (RIGHT HALF-PLANE)" in text and "num                 [-1, 1]" in text
