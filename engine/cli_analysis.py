@@ -78,6 +78,8 @@ def add_commands(subparsers) -> None:
 
     p = subparsers.add_parser("noise", help="noise budget: steady-state RMS of every signal, split by source")
     p.add_argument("file", help="diagram file (.lwd)")
+    p.add_argument("--covariance", metavar="SIGNAL[,SIGNAL]", default=None,
+                   help="also print the full steady-state covariance of these signals (JSON carries every vector signal's)")
     _format_flags(p)
     p.set_defaults(run=_noise)
 
@@ -561,9 +563,13 @@ def _noise(args: argparse.Namespace) -> int:
     model = assemble(diagram)
     b = noise_budget(model)
     srcs = list(b.sources)
+    covs = _covariances(model, b, args.covariance)
     if args.json:
         body = b.as_dict()
         body.update({"file": args.file, "caution": CAUTION})
+        if covs is not None:
+            body["covariance"] = {k: v.as_dict() for k, v in covs.items()}
+            body["covariance_note"] = "steady state E[z z^T] from A X + X A^T + sum B W B^T = 0; inf rows/columns: white components"
         print_json(body)
         return 0
     if args.csv:
@@ -584,5 +590,24 @@ def _noise(args: argparse.Namespace) -> int:
             for ln in b.lines
         ],
     )
+    if args.covariance and covs:
+        for sig, cv in covs.items():
+            print(f"\n  steady-state covariance of {sig} (E[z z^T]):")
+            _table(["", *cv.components], [[c, *(fmt_num(v, digits=5) for v in row)] for c, row in zip(cv.components, cv.matrix)], indent="    ")
     print(f"\n  {CAUTION}")
     return 0
+
+
+def _covariances(model, budget, wanted: str | None):
+    """Covariances for ``--covariance`` (the named signals) or, by default, every vector signal;
+    ``None`` when the budget has none to give (unstable loop or no white source)."""
+    from loopwright.engine.noise_covariance import signal_covariances
+
+    names = [x.strip() for x in wanted.split(",") if x.strip()] if wanted else None
+    if not budget.sources or not budget.stable:
+        if names:
+            from loopwright.engine.errors import AnalysisError
+
+            raise AnalysisError(f"no covariance: {budget.message or 'no white-noise source'}")
+        return None
+    return signal_covariances(model, names)

@@ -448,3 +448,24 @@ def test_tf_flags_a_right_half_plane_zero(tmp_path, capsys):
     assert main(["tf", str(path), "--from", "r", "--to", "G.y"]) == 0
     text = capsys.readouterr().out
     assert "1  (RIGHT HALF-PLANE)" in text and "num                 [-1, 1]" in text
+
+
+def test_noise_covariance_of_a_vector_signal_matches_python_control(capsys):
+    # python-control 0.10.2 lyap (scipy method) on the same realisation: X = lyap(A, sum B W B^T), cov = C X C^T;
+    # the diagonal must be the squares of the budget's RMS values (closed form: variance = RMS^2)
+    import control as ct
+
+    from loopwright.engine.noise import white_sources
+
+    assert main(["noise", _path("two_zone_oven.lwd"), "--covariance", "y", "--json"]) == 0
+    out = _json(capsys)
+    cov = np.array(out["covariance"]["y"]["matrix"], dtype=float)
+    model = assemble(load(_path("two_zone_oven.lwd")))
+    Q = sum(model.B[:, model.inputs[s]] @ W @ model.B[:, model.inputs[s]].T for s, W in white_sources(model).items())
+    X = ct.lyap(model.A, Q, method="scipy")
+    Cy = model.C[model.signals["y"]]
+    assert_allclose(cov, Cy @ X @ Cy.T, rtol=1e-9)
+    assert_allclose(np.sqrt(np.diag(cov)), [out["signals"]["y[1]"]["rms"], out["signals"]["y[2]"]["rms"]], rtol=1e-9)
+    assert out["covariance"]["y"]["components"] == ["y[1]", "y[2]"]
+    assert main(["noise", _path("two_zone_oven.lwd"), "--covariance", "y"]) == 0
+    assert "steady-state covariance of y" in capsys.readouterr().out
