@@ -815,7 +815,11 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True):
             _attach_limits(m, A, B, C, D)
         return m
     names = [f"{signal}[{i + 1}]" for i in range(D.shape[0])]
-    return vector_loop_margins(A, B, C, D, skew=skew, channel_names=names)
+    vm = vector_loop_margins(A, B, C, D, skew=skew, channel_names=names)
+    if limits and D.shape[1] == D.shape[0]:
+        for i, m in enumerate(vm.per_channel):
+            _attach_limits(m, *_close_channels(A, B, C, D, i))
+    return vm
 
 
 def _attach_limits(m: LoopMargins, A, B, C, D) -> None:
