@@ -379,7 +379,7 @@ def _time(args: argparse.Namespace) -> int:
             ["signal", "steady state", "rise (s)", "settling (s)", "overshoot %", "undershoot %", "peak", "at (s)"],
             [
                 [nm, fmt_num(m.steady_state), fmt_num(m.rise_time_s, digits=5),
-                 fmt_num(m.settling_time_s, digits=5) if m.settled else "not settled", fmt_num(m.overshoot_pct, digits=5),
+                 fmt_num(m.settling_time_s, digits=5) if (m.settled or not m.steady_state or not np.isfinite(m.steady_state)) else "not settled", fmt_num(m.overshoot_pct, digits=5),
                  fmt_num(m.undershoot_pct, digits=5), fmt_num(m.peak, digits=6), fmt_num(m.peak_time_s, digits=5)]
                 for nm, m in metrics.items()
             ],
@@ -405,7 +405,9 @@ def _step_metrics_for(model, cols, rows, names, Y, t, settle) -> dict:
     D = model.D[np.ix_(rows, range(cols.start, cols.stop))]
     with np.errstate(all="ignore"):
         G0 = dc_gain(model.A, B, model.C[rows], D) if is_stable_matrix(model.A) else np.full(D.shape, np.nan)
-    flat = G0.reshape(-1)  # same order as the columns of Y: output-major, then input
+    flat = G0.reshape(-1).astype(float)  # same order as the columns of Y: output-major, then input
+    scale = max(float(np.nanmax(np.abs(Y))) if Y.size else 0.0, float(np.nanmax(np.abs(flat[np.isfinite(flat)]), initial=0.0)))
+    flat = np.where(np.abs(flat) <= 1e-12 * scale, 0.0, flat)  # rounding of an exact zero: no metrics to give
     return {nm: step_metrics(t, Y[:, k], float(flat[k]) if np.isfinite(flat[k]) else np.nan, settle=settle) for k, nm in enumerate(names)}
 
 
