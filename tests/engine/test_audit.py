@@ -8,6 +8,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
+from diagrams import rotor_lead_loop
 from loopwright.engine.audit import RANKING_RULE, path_audit, path_between
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.interconnect import assemble
@@ -147,24 +148,10 @@ def test_feedthrough_peaks_are_at_infinity_and_rounding_zeros_are_zero():
     assert rows["H.y"].peak_gain == pytest.approx(3.0, rel=1e-9) and rows["H.y"].peak_freq_rad_s == np.inf
 
 
-def _rotor_lead_loop() -> Diagram:
-    """REFERENCES.md REF-12: P = 1/(s^2 - 4), C = 80 (s + 1)/(s + 10) = 80 - 720/(s + 10), unity feedback."""
-    d = Diagram()
-    d.add_block("source", "r", {"role": "reference", "width": 1})
-    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
-    d.add_block("plant", "Cl", {"A": [[-10.0]], "B": [[1.0]], "C": [[-720.0]], "D": [[80.0]]})
-    d.add_block("plant", "P", {"A": [[0.0, 1.0], [4.0, 0.0]], "B": [[0.0], [1.0]], "C": [[1.0, 0.0]], "D": [[0.0]]})
-    d.connect("r.out", "e.in1", name="ref")
-    d.connect("e.out", "Cl.u", name="err")
-    d.connect("Cl.y", "P.u", name="u")
-    d.connect("P.y", "e.in2", name="y")
-    return d
-
-
 def test_scalar_dc_gains_keep_their_sign():
     # closed form: L(0) = C(0) P(0) = 8 * (-1/4) = -2, so S(0) = 1/(1 + L(0)) = -1 (r -> err) and
     # T(0) = L(0)/(1 + L(0)) = 2 (r -> y); the case of REFERENCES.md REF-12
-    rows = {(r.source, r.signal): r for r in path_audit(assemble(_rotor_lead_loop()))}
+    rows = {(r.source, r.signal): r for r in path_audit(assemble(rotor_lead_loop()))}
     assert_allclose(rows["r", "err"].dc_gain, -1.0, rtol=1e-9)
     assert_allclose(rows["r", "y"].dc_gain, 2.0, rtol=1e-9)
     assert rows["r", "err"].dc_gain_kind == "signed value"

@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
+from diagrams import nonminimum_phase_lag, rotor_lead_loop
 from loopwright.engine import CAUTION
 from loopwright.engine.cli import main
 from loopwright.engine.diagram import Diagram
@@ -266,19 +267,15 @@ def test_free_response_from_a_plant_initial_state_shows_the_estimation_error(cap
 
 
 def _rotor_lead_file(tmp_path) -> str:
-    # REFERENCES.md REF-12: P = 1/(s^2 - 4), C = 80 (s + 1)/(s + 10), unity feedback, break at the plant input
-    d = Diagram()
-    d.add_block("source", "r", {"role": "reference", "width": 1})
-    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
-    d.add_block("plant", "Cl", {"A": [[-10.0]], "B": [[1.0]], "C": [[-720.0]], "D": [[80.0]]})
-    d.add_block("plant", "P", {"A": [[0.0, 1.0], [4.0, 0.0]], "B": [[0.0], [1.0]], "C": [[1.0, 0.0]], "D": [[0.0]]})
-    d.connect("r.out", "e.in1", name="ref")
-    d.connect("e.out", "Cl.u", name="err")
-    d.connect("Cl.y", "P.u", name="u")
-    d.connect("P.y", "e.in2", name="y")
-    d.settings["loop_break"] = "u"
+    # REFERENCES.md REF-12 diagram, loop break at the plant input
     path = tmp_path / "rotor.lwd"
-    save(d, str(path))
+    save(rotor_lead_loop(), str(path))
+    return str(path)
+
+
+def _nmp_file(tmp_path) -> str:
+    path = tmp_path / "nmp.lwd"
+    save(nonminimum_phase_lag(), str(path))
     return str(path)
 
 
@@ -399,13 +396,8 @@ def test_step_metrics_of_the_second_order_servo(tmp_path, capsys):
 def test_step_metrics_see_the_dip_of_a_right_half_plane_zero(tmp_path, capsys):
     # closed form: G = (1 - s)/(s + 1)^2 has y(t) = 1 - e^-t - 2 t e^-t, whose minimum is at t = 0.5 (dy/dt = 0):
     # y(0.5) = 1 - 2 e^-0.5 = -0.2130613, an undershoot of 21.30613 % of the final value 1
-    d = Diagram()
-    d.add_block("source", "r", {"role": "reference", "width": 1})
-    d.add_block("plant", "G", {"num": [-1.0, 1.0], "den": [1.0, 2.0, 1.0]})
-    d.connect("r.out", "G.u", name="u")
-    path = tmp_path / "nmp.lwd"
-    save(d, str(path))
-    assert main(["time", str(path), "--step", "r", "--to", "G.y", "--metrics", "--t-end", "20", "--dt", "0.0005", "--json"]) == 0
+    path = _nmp_file(tmp_path)
+    assert main(["time", path, "--step", "r", "--to", "G.y", "--metrics", "--t-end", "20", "--dt", "0.0005", "--json"]) == 0
     m = _json(capsys)["metrics"]["G.y"]
     assert_allclose(m["undershoot_pct"], 100 * (2 * np.exp(-0.5) - 1), atol=1e-5)
     assert_allclose(m["steady_state"], 1.0, rtol=1e-12)
@@ -439,13 +431,8 @@ def test_tf_of_the_rotor_loop_matches_the_closed_form(tmp_path, capsys):
 
 def test_tf_flags_a_right_half_plane_zero(tmp_path, capsys):
     # closed form: G = (1 - s)/(s + 1)^2 has its zero at s = +1
-    d = Diagram()
-    d.add_block("source", "r", {"role": "reference", "width": 1})
-    d.add_block("plant", "G", {"num": [-1.0, 1.0], "den": [1.0, 2.0, 1.0]})
-    d.connect("r.out", "G.u", name="u")
-    path = tmp_path / "nmp.lwd"
-    save(d, str(path))
-    assert main(["tf", str(path), "--from", "r", "--to", "G.y"]) == 0
+    path = _nmp_file(tmp_path)
+    assert main(["tf", path, "--from", "r", "--to", "G.y"]) == 0
     text = capsys.readouterr().out
     assert "1  (RIGHT HALF-PLANE)" in text and "num                 [-1, 1]" in text
 
