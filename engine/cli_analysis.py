@@ -469,30 +469,24 @@ def _print_scalar_margins(m, *, indent: str) -> None:
     width = max(len(r[0]) for r in rows)
     for a, b, c in rows:
         print(f"{indent}{a.ljust(width)}  {b}  {c}".rstrip())
-    if m.crossovers:
-        print(f"{indent}gain crossovers (|L| = 1):")
-        _table(
-            ["w (rad/s)", "phase margin (deg)", "delay margin (s)", ""],
-            [
-                [fmt_num(c.w_rad_s), fmt_num(c.phase_margin_deg, digits=6), fmt_num(c.delay_margin_s), _sets(c.sets_phase_margin and "phase margin", c.sets_delay_margin and "delay margin")]
-                for c in m.crossovers
-            ],
-            indent=indent + "  ",
-        )
-    else:
-        print(f"{indent}gain crossovers (|L| = 1): none")
-    if m.phase_crossings:
-        print(f"{indent}phase crossovers (L real and negative; the gain factor 1/|L| puts g L on -1):")
-        _table(
-            ["w (rad/s)", "gain factor", "(dB)", ""],
-            [
-                [fmt_num(c.w_rad_s), fmt_num(c.gain_factor), fmt_num(c.gain_factor_db, digits=5), _sets(c.sets_lower and "lower gain margin", c.sets_upper and "upper gain margin")]
-                for c in m.phase_crossings
-            ],
-            indent=indent + "  ",
-        )
-    else:
-        print(f"{indent}phase crossovers (L real and negative): none")
+    _listing(
+        f"{indent}gain crossovers (|L| = 1)",
+        ["w (rad/s)", "phase margin (deg)", "delay margin (s)", ""],
+        [
+            [fmt_num(c.w_rad_s), fmt_num(c.phase_margin_deg, digits=6), fmt_num(c.delay_margin_s),
+             _sets(c.sets_phase_margin and "phase margin", c.sets_delay_margin and "delay margin")]
+            for c in m.crossovers
+        ],
+    )
+    _listing(
+        f"{indent}phase crossovers (L real and negative" + ("; the gain factor 1/|L| puts g L on -1)" if m.phase_crossings else ")"),
+        ["w (rad/s)", "gain factor", "(dB)", ""],
+        [
+            [fmt_num(c.w_rad_s), fmt_num(c.gain_factor), fmt_num(c.gain_factor_db, digits=5),
+             _sets(c.sets_lower and "lower gain margin", c.sets_upper and "upper gain margin")]
+            for c in m.phase_crossings
+        ],
+    )
     if m.message:
         print(f"{indent}note: {m.message}")
     for note in m.notes:
@@ -500,6 +494,15 @@ def _print_scalar_margins(m, *, indent: str) -> None:
     if m.limits is not None:
         for line in m.limits.lines():
             print(f"{indent}{line}")
+
+
+def _listing(title: str, header: list[str], rows: list[list[str]]) -> None:
+    """A titled table indented under its title, or ``title: none``."""
+    if not rows:
+        print(f"{title}: none")
+        return
+    print(f"{title}:")
+    _table(header, rows, indent=" " * (len(title) - len(title.lstrip())) + "  ")
 
 
 def _sets(*what) -> str:
