@@ -93,7 +93,7 @@ class PerformanceLimits:
         """Readable sentences ("this loop cannot do better than ...")."""
         out = ["limits of performance:"]
         if np.isfinite(self.bode_integral):
-            shaky = self.bode_integral_theory_error > 1e-6 * max(1.0, abs(self.bode_integral_theory))
+            shaky = self.bode_integral_theory_error > 1e-3 * max(1.0, abs(self.bode_integral_theory))
             what = (
                 f"pi * sum Re p = {self.bode_integral_theory:.5g}"
                 + (f" +- {self.bode_integral_theory_error:.2g} (ill-conditioned poles)" if shaky else "")
