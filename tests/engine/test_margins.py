@@ -459,7 +459,10 @@ def test_every_crossover_of_the_conveyor_sample_matches_python_control():
     assert_allclose([c.phase_margin_deg for c in m.crossovers], np.asarray(pm)[order], rtol=1e-6)
     lag = np.mod(np.asarray(pm)[order], 360.0)
     assert_allclose([c.delay_margin_s for c in m.crossovers], np.radians(lag) / np.sort(wgc), rtol=1e-6)
-    neg = [(w, g) for w, g in sorted(zip(wpc, gm)) if g > 0]
+    # python-control's phase crossovers far outside the loop's band (w -> 0 where the two integrators make |L|
+    # huge, w beyond 1e4 rad/s where |L| is tiny) move with rounding (they differ between BLAS kernels):
+    # compared only where its answer is well conditioned
+    neg = [(w, g) for w, g in sorted(zip(wpc, gm)) if g > 0 and 1e-3 < w < 1e4]
     assert_allclose([c.w_rad_s for c in m.phase_crossings], [w for w, _ in neg], rtol=1e-6)
     assert_allclose([c.gain_factor for c in m.phase_crossings], [g for _, g in neg], rtol=1e-6)
     assert [c.sets_delay_margin for c in m.crossovers].count(True) == 1
