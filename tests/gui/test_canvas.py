@@ -262,8 +262,9 @@ def test_dropping_a_shelf_entry_on_the_canvas_places_it_there(shown, qtbot):
     pos = P(at)
     action = Qt.DropAction.CopyAction
     btn, mod = Qt.MouseButton.LeftButton, Qt.KeyboardModifier.NoModifier
-    QApplication.sendEvent(vp, QDragEnterEvent(pos, action, md, btn, mod))
-    QApplication.sendEvent(vp, QDragMoveEvent(pos, action, md, btn, mod))
+    # the enter and move events take a QPoint (Qt's own signature; PySide6 6.11 insists on it)
+    QApplication.sendEvent(vp, QDragEnterEvent(at, action, md, btn, mod))
+    QApplication.sendEvent(vp, QDragMoveEvent(at, action, md, btn, mod))
     QApplication.sendEvent(vp, QDropEvent(pos, action, md, btn, mod))
     (blk,) = shown.document.diagram.blocks.values()
     assert blk.kind == "plant"
