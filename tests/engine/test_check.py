@@ -217,3 +217,35 @@ def test_a_recipe_never_designed_is_not_called_stale():
     assert rep.recipe_states["Kx"] == "not designed yet"
     assert any("'Kx' is not designed yet" in w for w in rep.warnings)
     assert not any("'Kx' is stale" in w for w in rep.warnings)
+
+
+def test_a_real_coupling_is_blamed_on_the_wiring_even_in_an_ill_conditioned_loop():
+    # the chain of 10 integrators with the estimator's input scaled by 1 + 1e-11 (and 1.0001): the error
+    # coordinates are no longer block triangular, and the assembled poles move from eig(A - B K), eig(A - L C)
+    # by more than the first-order rounding bound kappa eps ||A|| allows (Wilkinson 1965): the estimator
+    # really does not see the plant's input, and the check says so rather than "too ill-conditioned"
+    from loopwright.engine.diagram import PortRef
+
+    d = load(str(DATA / "integrator_chain_10_placed_gains.lwd"))
+    est = d.block_by_name("est")
+    w = d.wire_into(PortRef(est.id, "u"))
+    d.disconnect(w.id, PortRef(est.id, "u"))
+    d.add_block("gain", "Ke", {"K": [[1.0 + 1e-11]]})
+    d.connect(f"{d.blocks[w.source.block].name}.{w.source.port}", "Ke.in")
+    d.connect("Ke.out", "est.u")
+    for k in (1.0 + 1e-11, 1.0001):
+        d.set_params(d.block_by_name("Ke").id, {"K": [[k]]})
+        rep = summarize(d)
+        assert not rep.separation.decoupled and rep.separation.verdict == "not_separated"
+        assert any("does not see the plant's own input" in x for x in rep.warnings)
+        assert not any("too ill-conditioned to confirm" in x for x in rep.warnings)
+
+
+def test_pole_sets_within_rounding_are_told_apart_from_real_gaps():
+    # closed form: {-1, -2} against {-1.3, -1.7} with rounding bounds 0.05 each (allowed gap 10 x 0.1 = 1) can
+    # be paired within rounding; with bounds 1e-3 they cannot (gap 0.3 > 0.02)
+    from loopwright.engine.check import _within_bounds
+
+    a, b = np.array([-1.0, -2.0], complex), np.array([-1.3, -1.7], complex)
+    assert _within_bounds(a, np.full(2, 0.05), b, np.full(2, 0.05))
+    assert not _within_bounds(a, np.full(2, 1e-3), b, np.full(2, 1e-3))
