@@ -35,18 +35,26 @@ def test_each_sample_opens_checks_and_is_photographed(make_window, wait_live, sc
     assert (screenshot_dir / f"{path.stem}.png").stat().st_size > 20000
 
 
-def test_status_bar_counts_right_half_plane_poles(window, wait_live):
+@pytest.mark.parametrize(
+    "den, rhp, origin, text",
+    [
+        # an open-loop plant 1/((s - 1)(s - 2)) has two poles in the right half-plane (by hand)
+        ([1.0, -3.0, 2.0], 2, 0, "UNSTABLE: 2 right-half-plane poles"),
+        # 1/s^2: two poles at the origin, none in the right half-plane (closed form)
+        ([1.0, 0.0, 0.0], 0, 2, "not stable: 2 at the origin, 0 in the right half-plane"),
+    ],
+)
+def test_status_bar_counts_right_half_plane_poles(window, wait_live, den, rhp, origin, text):
     doc = window.document
     r = AddBlock(doc, "source", layout={"x": 0, "y": 0})
     p = AddBlock(doc, "plant", layout={"x": 150, "y": 0})
     doc.push(r)
     doc.push(p)
-    # An open-loop plant 1/((s - 1)(s - 2)) has two poles in the right half-plane (by hand).
-    doc.push(SetParams(doc, p.block_id, {"num": [1.0], "den": [1.0, -3.0, 2.0]}))
+    doc.push(SetParams(doc, p.block_id, {"num": [1.0], "den": den}))
     doc.push(Connect(doc, PortRef(r.block_id, "out"), PortRef(p.block_id, "u")))
     result = wait_live(window)
-    assert result.report.rhp_poles == 2
-    assert "UNSTABLE: 2 right-half-plane poles" in window._model_label.text()
+    assert result.report.rhp_poles == rhp and result.report.pole_classes.origin == origin
+    assert text in window._model_label.text()
 
 
 def test_problems_are_marked_on_the_canvas_and_listed_and_a_click_selects_the_culprit(window, wait_live, qtbot):
@@ -271,7 +279,7 @@ def test_history_panel_lists_each_edit_and_zoom_is_shown(window):
 
 
 def test_status_text_shows_a_small_loops_poles(window, wait_live):
-    # REFERENCES.md REF-03: the stage loop's closed-loop poles are -2 +- 2j, -5, -6
+    # tests/REFERENCES.md#stage-observer: the stage loop's closed-loop poles are -2 +- 2j, -5, -6
     # (separation principle: eig(A - B K) with K = [8, 4], eig(A - L C) with L = [11, 30]).
     from diagrams import stage_loop_ref03
 
