@@ -165,13 +165,15 @@ def _freq(args: argparse.Namespace) -> int:
 
 
 def _frequency_list(text: str) -> np.ndarray:
-    """``--w 0,1,10`` -> the frequencies in rad/s (finite, >= 0, at most ``_MAX_POINTS``)."""
+    from loopwright.engine.views_data import MAX_POINTS
+
+    """``--w 0,1,10`` -> the frequencies in rad/s (finite, >= 0, at most ``MAX_POINTS``)."""
     try:
         w = np.array([float(v) for v in text.split(",") if v.strip()], dtype=float)
     except ValueError as err:
         raise ParameterError(f"--w {text!r}: give frequencies in rad/s separated by commas, e.g. --w 0,1,10", field="--w") from err
-    if w.size == 0 or w.size > _MAX_POINTS or not np.all(np.isfinite(w)) or np.any(w < 0):
-        raise ParameterError(f"--w {text!r}: give 1 to {_MAX_POINTS} finite frequencies >= 0 rad/s", field="--w")
+    if w.size == 0 or w.size > MAX_POINTS or not np.all(np.isfinite(w)) or np.any(w < 0):
+        raise ParameterError(f"--w {text!r}: give 1 to {MAX_POINTS} finite frequencies >= 0 rad/s", field="--w")
     return w
 
 

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import importlib.resources as ir
+import control as ct
 
 import numpy as np
 import pytest
