@@ -13,6 +13,7 @@ import numpy as np
 
 from loopwright.engine import CAUTION
 from loopwright.engine.cli_common import fmt_num, load_diagram, print_json, write_csv
+from loopwright.engine.cli_options import FREQUENCY_RANGE_RAD_S, SKEW_RANGE, TIME_RANGE_S, bounded_float, bounded_int
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.interconnect import assemble
 
@@ -20,6 +21,10 @@ __all__ = ["add_commands"]
 
 # A frequency grid beyond this many points is a typing slip, not a wish (memory grows with it).
 _MAX_POINTS = 200_000
+# --top beyond this is a slip of the keyboard.
+_MAX_ROWS = 1_000_000
+_FREQ = bounded_float(*FREQUENCY_RANGE_RAD_S, unit="rad/s")
+_TIME = bounded_float(*TIME_RANGE_S, unit="s")
 
 
 def add_commands(subparsers) -> None:
@@ -28,9 +33,10 @@ def add_commands(subparsers) -> None:
     p.add_argument("file", help="diagram file (.lwd)")
     p.add_argument("--from", dest="source", required=True, metavar="INPUT", help="a source name, or a signal name (its injection)")
     p.add_argument("--to", dest="signal", required=True, metavar="SIGNAL", help="signal name")
-    p.add_argument("--w-min", type=float, default=None, help="lowest frequency, rad/s")
-    p.add_argument("--w-max", type=float, default=None, help="highest frequency, rad/s")
-    p.add_argument("--points", type=int, default=None, help="number of log-spaced frequencies (default: automatic grid)")
+    p.add_argument("--w-min", type=_FREQ, default=None, help="lowest frequency, rad/s")
+    p.add_argument("--w-max", type=_FREQ, default=None, help="highest frequency, rad/s")
+    p.add_argument("--points", type=bounded_int(2, _MAX_POINTS), default=None,
+                   help="number of log-spaced frequencies (default: automatic grid)")
     _format_flags(p)
     p.set_defaults(run=_freq)
 
@@ -45,22 +51,22 @@ def add_commands(subparsers) -> None:
                    help="initial state of one block's states (repeat per block); e.g. --initial P=0.001,0,0 "
                         "with the estimator left at zero shows the estimation-error transient")
     p.add_argument("--to", dest="signals", required=True, metavar="SIGNAL[,SIGNAL]", help="signals to report, comma-separated")
-    p.add_argument("--t-end", type=float, default=None, help="end time, s")
-    p.add_argument("--dt", type=float, default=None, help="time step, s")
+    p.add_argument("--t-end", type=_TIME, default=None, help="end time, s")
+    p.add_argument("--dt", type=_TIME, default=None, help="time step, s")
     _format_flags(p)
     p.set_defaults(run=_time)
 
     p = subparsers.add_parser("margins", help="gain, phase, delay and disk margins at a loop break")
     p.add_argument("file", help="diagram file (.lwd)")
     p.add_argument("--at", dest="signal", default=None, metavar="SIGNAL", help="signal where the loop is broken (default: the diagram's loop break)")
-    p.add_argument("--skew", type=float, default=0.0, help="disk-margin skew (0 balanced, 1 for [1/2, inf)-type guarantees)")
+    p.add_argument("--skew", type=bounded_float(*SKEW_RANGE), default=0.0, help="disk-margin skew (0 balanced, 1 for [1/2, inf)-type guarantees)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=_margins)
 
     p = subparsers.add_parser("audit", help="rank every source-to-signal path (peak gain, H2, DC gain, stability)")
     p.add_argument("file", help="diagram file (.lwd)")
     p.add_argument("--injections", action="store_true", help="also audit the injection on every signal")
-    p.add_argument("--top", type=int, default=None, help="show only the first N rows")
+    p.add_argument("--top", type=bounded_int(1, _MAX_ROWS), default=None, help="show only the first N rows")
     _format_flags(p)
     p.set_defaults(run=_audit)
 
@@ -110,11 +116,6 @@ def _freq(args: argparse.Namespace) -> int:
         with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
             return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C)
 
-    for name, v in (("--w-min", args.w_min), ("--w-max", args.w_max)):
-        if v is not None and not v > 0:
-            raise ParameterError(f"{name} must be a positive frequency in rad/s; got {v}", field=name)
-    if args.points is not None and not 2 <= args.points <= _MAX_POINTS:
-        raise ParameterError(f"--points must be from 2 to {_MAX_POINTS}; got {args.points}", field="--points")
     if args.w_min is not None and args.w_max is not None and not args.w_max > args.w_min:
         raise ParameterError(f"--w-max ({args.w_max}) must exceed --w-min ({args.w_min})", field="--w-max")
     if args.points is not None:
@@ -373,8 +374,6 @@ def _audit(args: argparse.Namespace) -> int:
     rows = path_audit(model, injections=args.injections)
     total = len(rows)
     if args.top is not None:
-        if args.top < 1:
-            raise ParameterError(f"--top must be at least 1; got {args.top}", field="--top")
         rows = rows[: args.top]
     if args.json:
         print_json({"file": args.file, "ranking": RANKING_RULE, "units": {"peak_freq": "rad/s"}, "rows": [r.as_dict() for r in rows], "caution": CAUTION})
