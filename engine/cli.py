@@ -146,7 +146,10 @@ COMMANDS = ("check", "report", "freq", "time", "margins", "audit", "noise", "des
 def main(argv: list[str] | None = None) -> int:
     """Run one command; returns the exit status (0 ok, 2 user error)."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as stop:  # a bad option (one line already printed), --help or --version
+        return stop.code if isinstance(stop.code, int) else 2
     if not getattr(args, "run", None):
         parser.print_help()
         return 2

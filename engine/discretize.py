@@ -95,6 +95,8 @@ def discretize(A, B, C, D, ts: float, *, method: str = "zoh", prewarp_rad_s: flo
     if method not in DISCRETIZE_METHODS:
         raise DesignError(f"discretisation method {method!r} is not one of {', '.join(DISCRETIZE_METHODS)}")
     n, m = B.shape
+    with np.errstate(over="ignore", invalid="ignore"):
+        _require_finite(A, ts, A * ts)
     if method == "zoh":
         if prewarp_rad_s is not None:
             raise DesignError("pre-warping applies to the Tustin method only, not to zero-order hold")

@@ -450,8 +450,8 @@ def auto_frequency_grid(
     # extreme poles (a badly scaled model that is still finite) must not stretch the grid
     # over hundreds of decades: the span an automatic end may reach is bounded, and so is
     # the number of log-spaced points
-    lo_e = max(lo_e, _AUTO_EXPONENTS[0]) if w_min is None else lo_e
-    hi_e = min(hi_e, _AUTO_EXPONENTS[1]) if w_max is None else hi_e
+    lo_e = float(np.clip(lo_e, _AUTO_EXPONENTS[0], _AUTO_EXPONENTS[1] - 1.0)) if w_min is None else lo_e
+    hi_e = float(np.clip(hi_e, _AUTO_EXPONENTS[0] + 1.0, _AUTO_EXPONENTS[1])) if w_max is None else hi_e
     if not hi_e > lo_e:
         hi_e = lo_e + 1.0
     npts = min(_AUTO_MAX_POINTS, max(10, int(np.ceil((hi_e - lo_e) * points_per_decade)) + 1))
