@@ -23,6 +23,9 @@ __all__ = ["add_commands"]
 _MAX_POINTS = 200_000
 # --top beyond this is a slip of the keyboard.
 _MAX_ROWS = 1_000_000
+# An initial state stays far below the level at which a time run reports divergence
+# (responses.DIVERGENCE_LIMIT, 1e100), leaving 50 decades for the transient itself.
+_MAX_INITIAL = 1e50
 _FREQ = bounded_float(*FREQUENCY_RANGE_RAD_S, unit="rad/s")
 _TIME = bounded_float(*TIME_RANGE_S, unit="s")
 
@@ -227,8 +230,9 @@ def _initial_state(model, specs: list[str]):
             values[name.strip()] = [float(v) for v in text.split(",") if v.strip()]
         except ValueError as err:
             raise ParameterError(f"--initial {spec!r}: the values must be numbers separated by commas", field="--initial") from err
-        if not values[name.strip()] or not np.all(np.isfinite(values[name.strip()])):
-            raise ParameterError(f"--initial {spec!r}: give finite numbers", field="--initial")
+        v = np.asarray(values[name.strip()])
+        if not v.size or not np.all(np.isfinite(v)) or np.abs(v).max() > _MAX_INITIAL:
+            raise ParameterError(f"--initial {spec!r}: give finite numbers from {-_MAX_INITIAL:g} to {_MAX_INITIAL:g}", field="--initial")
     return initial_state(model, values)
 
 

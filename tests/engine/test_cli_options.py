@@ -40,6 +40,8 @@ OUT_OF_RANGE = [
     (["time", "--to", "y", "--dt", "nan"], "argument --dt: must be a number from 1e-12"),
     (["margins", "--skew", "1e308"], "argument --skew: must be a number from -1e+06 to 1e+06; got '1e308'"),
     (["margins", "--skew=-inf"], "argument --skew: must be a number from -1e+06 to 1e+06"),
+    (["time", "--to", "y", "--free", "--initial", "P=1e300,0,0"], "--initial 'P=1e300,0,0': give finite numbers from -1e+50 to 1e+50"),
+    (["time", "--to", "y", "--free", "--initial", "P=nan,0,0"], "--initial 'P=nan,0,0': give finite numbers"),
     (["audit", "--top", "0"], "argument --top: must be a whole number from 1 to 1000000"),
     (["report", "--top", "-3"], "argument --top: must be a whole number from 1 to 1000000"),
     (["export", "--what", "controller", "--ts", "1e300", "-o", "{out}/c.c"], "argument --ts: must be a number from 1e-09 to 1e+06 s; got '1e300'"),
