@@ -62,6 +62,8 @@ _MAX_ENTRIES = 4_000_000
 # thins a grid stretched by a badly scaled model).
 _AUTO_EXPONENTS = (-30.0, 30.0)
 _AUTO_MAX_POINTS = 20_000
+# Peaks polished per pass of refine_grid_at_peaks (each adds a few points).
+_MAX_REFINED_PEAKS = 64
 
 
 def _as_system(A, B, C, D) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -502,9 +504,16 @@ def refine_grid_at_peaks(evaluate, w_rad_s: np.ndarray, gain: np.ndarray, *, pas
         if w.size < 3:
             break
         gi = np.where(np.isfinite(g), g, -np.inf)
-        peaks = np.nonzero((gi[1:-1] >= gi[:-2]) & (gi[1:-1] >= gi[2:]) & np.isfinite(g[1:-1]))[0] + 1
+        mid, left, right = gi[1:-1], gi[:-2], gi[2:]
+        # a peak rises strictly on at least one side: on a flat stretch (a constant gain, an
+        # exactly zero path, or values lost to underflow) every point would otherwise be a
+        # "peak", and the grid would grow tenfold per pass
+        is_peak = (mid >= left) & (mid >= right) & ((mid > left) | (mid > right)) & np.isfinite(g[1:-1])
+        peaks = np.nonzero(is_peak)[0] + 1
         if peaks.size == 0:
             break
+        if peaks.size > _MAX_REFINED_PEAKS:  # a ripple of rounding noise: polish the highest only
+            peaks = np.sort(peaks[np.argsort(gi[peaks])[-_MAX_REFINED_PEAKS:]])
         new = np.concatenate([np.linspace(w[i - 1], w[i + 1], points + 2)[1:-1] for i in peaks])
         new = np.setdiff1d(new, w)
         if new.size == 0:
