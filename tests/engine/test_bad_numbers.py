@@ -16,7 +16,7 @@ from loopwright.engine.diagram import Diagram
 from loopwright.engine.discretize import discretize
 from loopwright.engine.errors import DesignError, ParameterError
 from loopwright.engine.interconnect import assemble, collect_problems
-from loopwright.engine.responses import auto_frequency_grid
+from loopwright.engine.responses import auto_frequency_grid, refine_grid_at_peaks
 from loopwright.engine.scaling import SCALE_LIMIT
 
 DATA = Path(__file__).parent / "data" / "numerics"
@@ -197,3 +197,42 @@ def test_the_automatic_grid_stays_bounded_for_extreme_poles(poles):
 def test_the_automatic_grid_refuses_a_bad_end(bad):
     with pytest.raises(ParameterError, match="w_max must be a positive, finite frequency"):
         auto_frequency_grid(np.array([-1.0]), w_max=bad)
+
+
+def test_a_flat_response_does_not_grow_the_grid():
+    # every point of a constant gain used to count as a peak: the grid grew tenfold per pass
+    calls = []
+
+    def evaluate(w):
+        calls.append(w.size)
+        return np.full(w.size, 3.0)
+
+    w0 = np.logspace(-2, 4, 361)
+    w, g = refine_grid_at_peaks(evaluate, w0, np.full(w0.size, 3.0))
+    assert w.size == w0.size and calls == []
+
+
+def test_a_path_through_a_subnormal_gain_answers_on_a_bounded_grid(tmp_path, capsys):
+    # The reference passes the prefilter N before reaching u, so G(r -> u) is linear in N:
+    # closed form G(N = 1e-320) = 1e-20 G(N = 1e-300), about 1e-321. Subnormal doubles
+    # carry no relative precision at that size, so the check is absolute (a few 1e-320,
+    # the size of the number typed); before the fix this command never returned.
+    rotor = json.loads(sample_path("levitated_rotor_axis.lwd").read_text(encoding="utf-8"))
+    curves, sizes = {}, {}
+    for k in (1e-300, 1e-320):
+        for b in rotor["blocks"]:
+            if b["name"] == "N":
+                b["params"]["K"] = [[k]]
+        path = tmp_path / f"n{k}.lwd"
+        path.write_text(json.dumps(rotor), encoding="utf-8")
+        code, err, out = _run(["freq", str(path), "--from", "r", "--to", "u", "--w-min", "1", "--w-max", "1000",
+                               "--points", "50", "--json"], capsys)
+        assert code == 0 and err == []
+        body = json.loads(out)
+        curves[k] = np.array(body["re"]) + 1j * np.array(body["im"])
+        code, err, out = _run(["freq", str(path), "--from", "r", "--to", "u", "--json"], capsys)
+        assert code == 0 and err == []
+        sizes[k] = len(json.loads(out)["w"])
+    assert_allclose(curves[1e-320], 1e-20 * curves[1e-300], rtol=0, atol=5e-320)
+    assert np.abs(curves[1e-300]).min() > 1e-302  # the reference curve itself is not zero
+    assert sizes[1e-320] <= 2 * sizes[1e-300] + 100
