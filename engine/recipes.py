@@ -61,7 +61,7 @@ from typing import Any
 import numpy as np
 import scipy.linalg as sla
 
-from loopwright.engine.blocks import plant_fingerprint, plant_matrices, realize, source_intensity
+from loopwright.engine.blocks import plant_fingerprint, realize, source_intensity
 from loopwright.engine.design import (
     GainDesign,
     estimator_speed_warning,

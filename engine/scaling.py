@@ -154,26 +154,34 @@ def check_realization(block: Block, mats: dict[str, np.ndarray]) -> None:
     ------
     ParameterError
     """
+    hit = _first_out_of_range(mats)
+    if hit is None:
+        return
+    msg = _negligible_leading_coefficient(block)
+    if msg is not None:
+        raise ParameterError(msg, field="den", block_ids=[block.id])
+    name, i, j, value = hit
+    fields = [k for k in ("A", "B", "C", "D", "E", "F", "num", "den", "K", "L") if k in (block.params or {})]
+    raise ParameterError(
+        f"badly scaled: block {block.name!r}: its realisation has {name}[{i}][{j}] = {_fmt(value)}, beyond "
+        f"+-{_fmt(SCALE_LIMIT)} (products of its fields {', '.join(fields) or 'parameters'}); check the units or the numbers",
+        field=fields[0] if fields else None,
+        block_ids=[block.id],
+    )
+
+
+def _first_out_of_range(mats: dict[str, np.ndarray]) -> tuple[str, int, int, float] | None:
+    """``(matrix name, row, column, value)`` of the first entry not finite or beyond the limit."""
     for name, M in mats.items():
         M = np.asarray(M, dtype=float)
         if not M.size:
             continue
         with np.errstate(invalid="ignore"):
             bad = ~(np.abs(M) <= SCALE_LIMIT)
-        if not bad.any():
-            continue
-        msg = _negligible_leading_coefficient(block)
-        if msg is not None:
-            raise ParameterError(msg, field="den", block_ids=[block.id])
-        i, j = (int(k) for k in np.argwhere(bad)[0])
-        value = M[i, j]
-        fields = [k for k in ("A", "B", "C", "D", "E", "F", "num", "den", "K", "L") if k in (block.params or {})]
-        raise ParameterError(
-            f"badly scaled: block {block.name!r}: its realisation has {name}[{i}][{j}] = {_fmt(value)}, beyond "
-            f"+-{_fmt(SCALE_LIMIT)} (products of its fields {', '.join(fields) or 'parameters'}); check the units or the numbers",
-            field=fields[0] if fields else None,
-            block_ids=[block.id],
-        )
+        if bad.any():
+            i, j = (int(k) for k in np.argwhere(bad)[0])
+            return name, i, j, float(M[i, j])
+    return None
 
 
 def check_model(model) -> None:
@@ -187,32 +195,25 @@ def check_model(model) -> None:
     ------
     DiagramError
     """
+    hit = _first_out_of_range({"A": model.A, "B": model.B, "C": model.C, "D": model.D})
+    if hit is None:
+        return
+    name, i, j, value = hit
     state_block = [""] * model.A.shape[0]
-    for name, sl in model.states.items():
-        for k in range(sl.start, sl.stop):
-            state_block[k] = name
+    for block_name, sl in model.states.items():
+        state_block[sl] = [block_name] * (sl.stop - sl.start)
     rows = {"A": model.state_names, "B": model.state_names, "C": model.output_names, "D": model.output_names}
     cols = {"A": model.state_names, "B": model.input_names, "C": model.state_names, "D": model.input_names}
-    for name in ("A", "B", "C", "D"):
-        M = getattr(model, name)
-        if not M.size:
-            continue
-        with np.errstate(invalid="ignore"):
-            bad = ~(np.abs(M) <= SCALE_LIMIT)
-        if not bad.any():
-            continue
-        i, j = (int(k) for k in np.argwhere(bad)[0])
-        blocks = sorted({state_block[k] for k in (i, j) if name in ("A",) and k < len(state_block)}
-                        | ({state_block[i]} if name == "B" else set()) | ({state_block[j]} if name == "C" else set()))
-        blocks = [b for b in blocks if b]
-        by_name = {b.name: b.id for b in model.diagram.blocks.values()}
-        raise DiagramError(
-            f"badly scaled: the assembled model has {_fmt(M[i, j])} from {cols[name][j]!r} to {rows[name][i]!r} "
-            f"({name} entry), beyond +-{_fmt(SCALE_LIMIT)}: gains multiply along the wiring"
-            + (f" through block {', '.join(repr(b) for b in blocks)}" if blocks else "")
-            + "; check the units or the numbers",
-            block_ids=[by_name[b] for b in blocks if b in by_name],
-        )
+    states = {"A": (i, j), "B": (i,), "C": (j,), "D": ()}[name]
+    blocks = sorted({state_block[k] for k in states} - {""})
+    by_name = {b.name: b.id for b in model.diagram.blocks.values()}
+    raise DiagramError(
+        f"badly scaled: the assembled model has {_fmt(value)} from {cols[name][j]!r} to {rows[name][i]!r} "
+        f"({name} entry), beyond +-{_fmt(SCALE_LIMIT)}: gains multiply along the wiring"
+        + (f" into block {', '.join(repr(b) for b in blocks)}" if blocks else "")
+        + "; check the units or the numbers",
+        block_ids=[by_name[b] for b in blocks if b in by_name],
+    )
 
 
 def checked_plant_matrices(diagram: Diagram, name: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:

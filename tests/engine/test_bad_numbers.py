@@ -16,6 +16,7 @@ from loopwright.engine.diagram import Diagram
 from loopwright.engine.discretize import discretize
 from loopwright.engine.errors import DesignError, ParameterError
 from loopwright.engine.interconnect import assemble, collect_problems
+from loopwright.engine.project import load
 from loopwright.engine.responses import auto_frequency_grid, refine_grid_at_peaks
 from loopwright.engine.scaling import SCALE_LIMIT
 
@@ -167,7 +168,7 @@ def test_seed_and_width_are_not_model_numbers():
 @pytest.mark.parametrize("name", SAMPLES)
 def test_every_sample_passes_the_guard_with_room_to_spare(name):
     # the limit must be far from real models: the samples' largest entry is many decades below
-    model = assemble(__import__("loopwright.engine.project", fromlist=["load"]).load(str(sample_path(name))))
+    model = assemble(load(str(sample_path(name))))
     largest = max(np.abs(M).max() for M in (model.A, model.B, model.C, model.D) if M.size)
     assert largest < SCALE_LIMIT * 1e-80
 
