@@ -9,22 +9,35 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import warnings
+
+import numpy as np
 
 from loopwright.engine import CAUTION, __version__
 from loopwright.engine.check import pole_table, summarize
 from loopwright.engine.cli_common import fmt_complex, fmt_num, load_diagram, print_json
 from loopwright.engine.eigen import format_pole, trustworthy_digits
+from loopwright.engine.cli_options import bounded_int
 from loopwright.engine.errors import EngineError
 
-__all__ = ["main", "build_parser", "COMMANDS"]
+__all__ = ["main", "build_parser", "COMMANDS", "one_line"]
+
+# --top beyond this is a slip of the keyboard (no diagram has a million paths worth listing).
+_MAX_ROWS = 1_000_000
 
 # Command modules that add their own sub-commands (``add_commands(subparsers)``).
 _COMMAND_MODULES = ("loopwright.engine.cli_analysis", "loopwright.engine.cli_design")
 
 
+def one_line(text: str) -> str:
+    """``text`` with every control character escaped (``\\n``, ``\\x1b``), so a block name or a
+    path with a newline cannot split a message over several lines."""
+    return "".join(ch if ch.isprintable() else repr(ch)[1:-1] for ch in str(text))
+
+
 class _Parser(argparse.ArgumentParser):
     def error(self, message: str):  # one line and exit 2, like every other user error
-        self.exit(2, f"{self.prog}: {message} (see '{self.prog} --help')\n")
+        self.exit(2, one_line(f"{self.prog}: {message} (see '{self.prog} --help')") + "\n")
 
 
 def _check(args: argparse.Namespace) -> int:
@@ -119,9 +132,6 @@ def check_verdict(rep) -> str:
 def _report(args: argparse.Namespace) -> int:
     from loopwright.engine.report import format_report, loop_report
 
-    if args.top < 1:
-        print(f"loopwright report: --top must be at least 1, got {args.top}", file=sys.stderr)
-        return 2
     rep = loop_report(load_diagram(args.file), top=args.top)
     if args.json:
         print_json({"file": args.file, **rep.as_dict()})
@@ -145,7 +155,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(run=_check)
     p = sub.add_parser("report", help="the first look at a loop: poles, separation, margins, noise budget, worst paths")
     p.add_argument("file", help="diagram file (.lwd)")
-    p.add_argument("--top", type=int, default=5, help="how many paths of the audit to show (default 5)")
+    p.add_argument("--top", type=bounded_int(1, _MAX_ROWS), default=5, help="how many paths of the audit to show (default 5)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=_report)
     for mod in _COMMAND_MODULES:
@@ -165,17 +175,42 @@ COMMANDS = ("check", "report", "freq", "tf", "time", "margins", "audit", "noise"
 def main(argv: list[str] | None = None) -> int:
     """Run one command; returns the exit status (0 ok, 2 user error)."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as stop:  # a bad option (one line already printed), --help or --version
+        return stop.code if isinstance(stop.code, int) else 2
     if not getattr(args, "run", None):
         parser.print_help()
         return 2
-    try:
-        return int(args.run(args) or 0)
-    except EngineError as err:
-        print(f"loopwright {args.command}: {err}", file=sys.stderr)
-        return 2
-    except BrokenPipeError:
-        return 0
+    # Overflow inside numpy is not news for the user: the engine's guards name the bad
+    # number, and a result that is not finite is reported as such; a warning printed in
+    # the middle of the output would only add lines.
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        try:
+            return int(args.run(args) or 0)
+        except EngineError as err:
+            print(one_line(f"loopwright {args.command}: {err}"), file=sys.stderr)
+            return 2
+        except (np.linalg.LinAlgError, ValueError, OverflowError, FloatingPointError) as err:
+            # the safety net behind the scaling guard (engine/scaling.py): a numerical
+            # breakdown that slipped past it is one line, not a traceback
+            if not _numerical_breakdown(err):
+                raise
+            print(one_line(f"loopwright {args.command}: the computation broke down numerically "
+                           f"({type(err).__name__}: {err}); the model is probably badly scaled or nearly singular: "
+                           "check the magnitudes of its numbers"), file=sys.stderr)
+            return 2
+        except BrokenPipeError:
+            return 0
+
+
+def _numerical_breakdown(err: Exception) -> bool:
+    """True for LAPACK failures and for errors about infinities or NaN met in the numerics."""
+    if isinstance(err, (np.linalg.LinAlgError, FloatingPointError)):
+        return True
+    text = str(err).lower()
+    return any(word in text for word in ("inf", "nan", "overflow", "did not converge"))
 
 
 if __name__ == "__main__":

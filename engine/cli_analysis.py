@@ -13,10 +13,24 @@ import numpy as np
 
 from loopwright.engine import CAUTION
 from loopwright.engine.cli_common import fmt_num, load_diagram, print_json, write_csv
+from loopwright.engine.cli_options import FREQUENCY_RANGE_RAD_S, SKEW_RANGE, TIME_RANGE_S, bounded_float, bounded_int
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.interconnect import assemble
+from loopwright.engine.views_data import MAX_POINTS
 
 __all__ = ["add_commands"]
+
+# --top beyond this is a slip of the keyboard.
+_MAX_ROWS = 1_000_000
+# An initial state stays far below the level at which a time run reports divergence
+# (responses.DIVERGENCE_LIMIT, 1e100), leaving 50 decades for the transient itself.
+_MAX_INITIAL = 1e50
+_FREQ = bounded_float(*FREQUENCY_RANGE_RAD_S, unit="rad/s")
+_FREQ_OR_DC = bounded_float(0.0, FREQUENCY_RANGE_RAD_S[1], unit="rad/s (0: a grid from DC)")
+# a settling band is a fraction of the final value: 1e-6 is already beyond any sensor
+_SETTLE = bounded_float(1e-6, 0.5)
+_TIME = bounded_float(*TIME_RANGE_S, unit="s")
+
 
 def add_commands(subparsers) -> None:
     """Add the analysis sub-commands to the ``loopwright`` parser."""
@@ -24,9 +38,10 @@ def add_commands(subparsers) -> None:
     p.add_argument("file", help="diagram file (.lwd)")
     p.add_argument("--from", dest="source", required=True, metavar="INPUT", help="a source name, or a signal name (its injection)")
     p.add_argument("--to", dest="signal", required=True, metavar="SIGNAL", help="signal name")
-    p.add_argument("--w-min", type=float, default=None, help="lowest frequency, rad/s")
-    p.add_argument("--w-max", type=float, default=None, help="highest frequency, rad/s")
-    p.add_argument("--points", type=int, default=None, help="number of log-spaced frequencies (default: automatic grid)")
+    p.add_argument("--w-min", type=_FREQ_OR_DC, default=None, help="lowest frequency, rad/s (0: the DC point, then a log grid)")
+    p.add_argument("--w-max", type=_FREQ, default=None, help="highest frequency, rad/s")
+    p.add_argument("--points", type=bounded_int(2, MAX_POINTS), default=None,
+                   help="number of log-spaced frequencies (default: automatic grid)")
     p.add_argument("--w", dest="w_list", default=None, metavar="W[,W...]",
                    help="evaluate at exactly these frequencies, rad/s (0 is the DC point); overrides the grid options")
     _format_flags(p)
@@ -52,23 +67,23 @@ def add_commands(subparsers) -> None:
     p.add_argument("--to", dest="signals", required=True, metavar="SIGNAL[,SIGNAL]", help="signals to report, comma-separated")
     p.add_argument("--metrics", action="store_true",
                    help="with --step: rise time (10-90 %%), settling time, overshoot, undershoot, peak, steady-state value")
-    p.add_argument("--settle", type=float, default=0.02, metavar="FRACTION", help="settling band for --metrics (default 0.02 = 2 %%)")
-    p.add_argument("--t-end", type=float, default=None, help="end time, s")
-    p.add_argument("--dt", type=float, default=None, help="time step, s")
+    p.add_argument("--settle", type=_SETTLE, default=0.02, metavar="FRACTION", help="settling band for --metrics (default 0.02 = 2 %%)")
+    p.add_argument("--t-end", type=_TIME, default=None, help="end time, s")
+    p.add_argument("--dt", type=_TIME, default=None, help="time step, s")
     _format_flags(p)
     p.set_defaults(run=_time)
 
     p = subparsers.add_parser("margins", help="gain, phase, delay and disk margins at a loop break")
     p.add_argument("file", help="diagram file (.lwd)")
     p.add_argument("--at", dest="signal", default=None, metavar="SIGNAL", help="signal where the loop is broken (default: the diagram's loop break)")
-    p.add_argument("--skew", type=float, default=0.0, help="disk-margin skew (0 balanced, 1 for [1/2, inf)-type guarantees)")
+    p.add_argument("--skew", type=bounded_float(*SKEW_RANGE), default=0.0, help="disk-margin skew (0 balanced, 1 for [1/2, inf)-type guarantees)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=_margins)
 
     p = subparsers.add_parser("audit", help="rank every source-to-signal path (peak gain, H2, DC gain, stability)")
     p.add_argument("file", help="diagram file (.lwd)")
     p.add_argument("--injections", action="store_true", help="also audit the injection on every signal")
-    p.add_argument("--top", type=int, default=None, help="show only the first N rows")
+    p.add_argument("--top", type=bounded_int(1, _MAX_ROWS), default=None, help="show only the first N rows")
     _format_flags(p)
     p.set_defaults(run=_audit)
 
@@ -165,8 +180,6 @@ def _freq(args: argparse.Namespace) -> int:
 
 
 def _frequency_list(text: str) -> np.ndarray:
-    from loopwright.engine.views_data import MAX_POINTS
-
     """``--w 0,1,10`` -> the frequencies in rad/s (finite, >= 0, at most ``MAX_POINTS``)."""
     try:
         w = np.array([float(v) for v in text.split(",") if v.strip()], dtype=float)
@@ -231,8 +244,9 @@ def _initial_state(model, specs: list[str]):
             values[name.strip()] = [float(v) for v in text.split(",") if v.strip()]
         except ValueError as err:
             raise ParameterError(f"--initial {spec!r}: the values must be numbers separated by commas", field="--initial") from err
-        if not values[name.strip()] or not np.all(np.isfinite(values[name.strip()])):
-            raise ParameterError(f"--initial {spec!r}: give finite numbers", field="--initial")
+        v = np.asarray(values[name.strip()])
+        if not v.size or not np.all(np.isfinite(v)) or np.abs(v).max() > _MAX_INITIAL:
+            raise ParameterError(f"--initial {spec!r}: give finite numbers from {-_MAX_INITIAL:g} to {_MAX_INITIAL:g}", field="--initial")
     return initial_state(model, values)
 
 
@@ -459,8 +473,6 @@ def _audit(args: argparse.Namespace) -> int:
     rows = path_audit(model, injections=args.injections)
     total = len(rows)
     if args.top is not None:
-        if args.top < 1:
-            raise ParameterError(f"--top must be at least 1; got {args.top}", field="--top")
         rows = rows[: args.top]
     if args.json:
         print_json({"file": args.file, "ranking": RANKING_RULE, "units": {"peak_freq": "rad/s"}, "rows": [r.as_dict() for r in rows], "caution": CAUTION})

@@ -18,6 +18,7 @@ import numpy as np
 
 from loopwright.engine import CAUTION
 from loopwright.engine.cli_common import fmt_complex, fmt_num, load_diagram, print_json
+from loopwright.engine.cli_options import FREQUENCY_RANGE_RAD_S, SAMPLE_PERIOD_RANGE_S, bounded_float
 from loopwright.engine.design import poles_to_json
 from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.errors import DesignError, EngineError
@@ -86,9 +87,10 @@ def add_commands(subparsers) -> None:
     p.add_argument("--to", dest="signal", metavar="SIGNAL", default=None, help="path: the signal it reaches")
     p.add_argument("--measured", metavar="SIG[,SIG]", default=None, help="controller: signals it reads, comma-separated")
     p.add_argument("--actuator", metavar="SIG[,SIG]", default=None, help="controller: signals it drives, comma-separated")
-    p.add_argument("--ts", type=float, default=None, metavar="SECONDS", help="controller: sample period; discretises it")
+    p.add_argument("--ts", type=bounded_float(*SAMPLE_PERIOD_RANGE_S, unit="s"), default=None, metavar="SECONDS",
+                   help="controller: sample period; discretises it")
     p.add_argument("--method", choices=["zoh", "tustin"], default="zoh", help="discretisation (default zoh)")
-    p.add_argument("--prewarp", type=float, default=None, metavar="RAD_S", help="tustin: frequency matched exactly, rad/s")
+    p.add_argument("--prewarp", type=bounded_float(*FREQUENCY_RANGE_RAD_S, unit="rad/s"), default=None, metavar="RAD_S", help="tustin: frequency matched exactly, rad/s")
     p.add_argument("--format", choices=["json", "npz", "c"], default=None,
                    help="output format (default: from the suffix of OUT, else json)")
     p.add_argument("--precision", choices=["double", "float"], default="double", help="C scalar type (default double)")

@@ -95,13 +95,20 @@ def discretize(A, B, C, D, ts: float, *, method: str = "zoh", prewarp_rad_s: flo
     if method not in DISCRETIZE_METHODS:
         raise DesignError(f"discretisation method {method!r} is not one of {', '.join(DISCRETIZE_METHODS)}")
     n, m = B.shape
+    with np.errstate(over="ignore", invalid="ignore"):
+        _require_finite(A, ts, A * ts)
     if method == "zoh":
         if prewarp_rad_s is not None:
             raise DesignError("pre-warping applies to the Tustin method only, not to zero-order hold")
         big = np.zeros((n + m, n + m))
         big[:n, :n] = A * ts
         big[:n, n:] = B * ts
-        E = sla.expm(big)
+        with np.errstate(all="ignore"):  # overflow is reported by _require_finite, with the period
+            try:
+                E = sla.expm(big)
+            except (ValueError, np.linalg.LinAlgError):
+                E = np.full_like(big, np.nan)
+        _require_finite(A, ts, E)
         return DiscreteModel(E[:n, :n], E[:n, n:], C.copy(), D.copy(), ts, "zoh")
     t_eff = ts
     if prewarp_rad_s is not None:
@@ -122,7 +129,21 @@ def discretize(A, B, C, D, ts: float, *, method: str = "zoh", prewarp_rad_s: flo
     Bd = sla.lu_solve(lu, B * t_eff) if n else B.copy()
     Cd = sla.lu_solve(lu, C.T, trans=1).T if n else C.copy()
     Dd = D + C @ Bd / 2.0 if n else D.copy()
+    _require_finite(A, ts, Ad, Bd, Cd, Dd)
     return DiscreteModel(Ad, Bd, Cd, Dd, ts, "tustin", None if prewarp_rad_s is None else float(prewarp_rad_s))
+
+
+def _require_finite(A: np.ndarray, ts: float, *mats: np.ndarray) -> None:
+    """Refuse a discretisation that overflowed: ``e^(A ts)`` of an unstable or very fast
+    pole grows like ``e^(|p| ts)``, which passes the largest double once ``|p| ts > 709``."""
+    if all(np.all(np.isfinite(M)) for M in mats):
+        return
+    with np.errstate(all="ignore"):
+        fastest = float(np.max(np.abs(np.linalg.eigvals(A)))) if A.size and np.all(np.isfinite(A)) else float("nan")
+    raise DesignError(
+        f"sample period {ts:g} s is too long for this model: the discrete matrices overflow "
+        f"(fastest pole {fastest:.3g} rad/s, |p| ts = {fastest * ts:.3g}); use a shorter period"
+    )
 
 
 def simulate_discrete(model: DiscreteModel, u, *, x0=None) -> np.ndarray:

@@ -43,6 +43,7 @@ from loopwright.engine.errors import (
     UnknownNameError,
 )
 from loopwright.engine.ports import input_ports, output_ports
+from loopwright.engine.scaling import check_block_params, check_model, check_realization
 
 __all__ = ["AssembledModel", "assemble", "signal_names", "Problem", "collect_problems"]
 
@@ -208,7 +209,9 @@ def collect_problems(diagram: Diagram) -> list[Problem]:
     widths: dict[str, tuple[dict[str, int], dict[str, int]]] = {}
     for b in diagram.blocks.values():
         try:
-            widths[b.id] = port_widths(b, diagram)
+            check_block_params(b)
+            with np.errstate(all="ignore"):  # a bad number is named by the guard below, not by a warning
+                widths[b.id] = port_widths(b, diagram)
         except EngineError as err:
             found.append(Problem(err.message, tuple(err.block_ids) or (b.id,), tuple(err.wire_ids)))
     found += _wiring_problems(diagram, widths)
@@ -322,17 +325,22 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     reals: dict[str, Realization] = {}
     problems: list[Problem] = []
     for b in blocks:
-        if b.kind == "source":
-            continue
         try:
-            reals[b.id] = realize(b, snap)
+            check_block_params(b)
+            if b.kind == "source":
+                continue
+            with np.errstate(all="ignore"):  # overflow is caught by the scaling check, with the field named
+                r = realize(b, snap)
+            check_realization(b, {"A": r.A, "B": r.B, "C": r.C, "D": r.D})
+            reals[b.id] = r
         except EngineError as err:
             problems.append(Problem(err.message, tuple(err.block_ids) or (b.id,), error=err))
     _raise_first(problems)
     widths = {bid: (dict(r.inputs), dict(r.outputs)) for bid, r in reals.items()}
     for b in blocks:
         if b.kind == "source":
-            widths[b.id] = port_widths(b, snap)
+            with np.errstate(all="ignore"):
+                widths[b.id] = port_widths(b, snap)
     _raise_first(_wiring_problems(snap, widths))
 
     # ---- signals: every output port; sources contribute exogenous inputs ------------
@@ -431,15 +439,17 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     DM = (Db @ M).tocsr()
     F = (sp.identity(ns, format="csr") - DM).tocsc()
     acyclic = _check_well_posed(DM, F, sig_names, sig_ports, snap, port_rows)
-    Finv = _inverse_of_feedthrough(DM, F, acyclic)
-    DbMb = (Db @ Mb).tocsr()
-    Gx, Ge, Gb = Finv @ Cb, Finv @ E, Finv @ DbMb
-    BM = (Bb @ M).tocsr()
-    BMF = BM @ Finv
-    A = _dense(Ab + BM @ Gx)
-    B = np.hstack([_dense(BMF @ E), _dense(BMF), _dense(BMF @ DbMb + Bb @ Mb)])
-    C = _dense(Gx)
-    D = np.hstack([_dense(Ge), _dense(Finv), _dense(Gb)])
+    # gains in series may overflow; check_model below names where, so no warning here
+    with np.errstate(all="ignore"):
+        Finv = _inverse_of_feedthrough(DM, F, acyclic)
+        DbMb = (Db @ Mb).tocsr()
+        Gx, Ge, Gb = Finv @ Cb, Finv @ E, Finv @ DbMb
+        BM = (Bb @ M).tocsr()
+        BMF = BM @ Finv
+        A = _dense(Ab + BM @ Gx)
+        B = np.hstack([_dense(BMF @ E), _dense(BMF), _dense(BMF @ DbMb + Bb @ Mb)])
+        C = _dense(Gx)
+        D = np.hstack([_dense(Ge), _dense(Finv), _dense(Gb)])
 
     inputs: dict[str, slice] = dict(src_cols)
     input_names: list[str] = []
@@ -451,7 +461,7 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     if broken is not None:
         inputs[f"break:{break_at}"] = slice(ne + ns, ne + ns + nb)
         input_names.extend(_comp_names(f"break:{break_at}", nb))
-    return AssembledModel(
+    model = AssembledModel(
         A=np.ascontiguousarray(A),
         B=np.ascontiguousarray(B),
         C=np.ascontiguousarray(C),
@@ -468,6 +478,8 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         break_at=break_at,
         break_return=broken,
     )
+    check_model(model)
+    return model
 
 
 def _resolve_break(diagram: Diagram, where: str, sig_slices, sig_of_port) -> tuple[str, PortRef | None]:

@@ -61,7 +61,7 @@ from typing import Any
 import numpy as np
 import scipy.linalg as sla
 
-from loopwright.engine.blocks import plant_fingerprint, plant_matrices, realize, source_intensity
+from loopwright.engine.blocks import plant_fingerprint, realize, source_intensity
 from loopwright.engine.design import (
     GainDesign,
     estimator_speed_warning,
@@ -74,6 +74,7 @@ from loopwright.engine.design import (
 from loopwright.engine.diagram import Block, Diagram, PortRef
 from loopwright.engine.errors import DesignError, EngineError
 from loopwright.engine.interconnect import AssembledModel, assemble
+from loopwright.engine.scaling import check_block_params, checked_plant_matrices
 from loopwright.engine.tracking import design_integral_action, feedforward_gain
 
 __all__ = [
@@ -394,7 +395,8 @@ def design_block(diagram: Diagram, name: str) -> BlockDesign:
     rec = _recipe(block)
     where = f"block {name!r}"
     plant = recipe_plant(diagram, block)
-    A, B, C, D = plant_matrices(diagram, plant)
+    check_block_params(block, only=("recipe",))  # a 1e300 typo is named, not met as "uncontrollable"
+    A, B, C, D = checked_plant_matrices(diagram, plant)
     method = rec["method"]
     warns: list[str] = []
     design: GainDesign | None = None

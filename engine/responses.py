@@ -57,6 +57,13 @@ DIVERGENCE_LIMIT = 1e100
 _BLOCK = 48
 # Bound on the complex entries (n x columns) held at once while solving.
 _MAX_ENTRIES = 4_000_000
+# An automatic frequency grid ends within 1e-30 .. 1e30 rad/s (decade exponents) and has at
+# most this many log-spaced points (60 per decade over 40 decades is 2400; the cap only
+# thins a grid stretched by a badly scaled model).
+_AUTO_EXPONENTS = (-30.0, 30.0)
+_AUTO_MAX_POINTS = 20_000
+# Peaks polished per pass of refine_grid_at_peaks (each adds a few points).
+_MAX_REFINED_PEAKS = 64
 
 
 def _as_system(A, B, C, D) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -431,6 +438,9 @@ def auto_frequency_grid(
     (k,) ndarray
         Sorted, unique, positive frequencies in rad/s.
     """
+    for name, v in (("w_min", w_min), ("w_max", w_max)):
+        if v is not None and not (np.isfinite(v) and v > 0):
+            raise ParameterError(f"{name} must be a positive, finite frequency in rad/s; got {v}", field=name)
     roots = np.concatenate([np.atleast_1d(np.asarray(poles, dtype=complex)), np.atleast_1d(np.asarray(zeros, dtype=complex))])
     roots = roots[np.isfinite(roots)]
     mags = np.abs(roots)
@@ -439,9 +449,14 @@ def auto_frequency_grid(
     hi = nz.max() if nz.size else 1.0
     lo_e = np.log10(lo) - decades_beyond if w_min is None else np.log10(w_min)
     hi_e = np.log10(hi) + decades_beyond if w_max is None else np.log10(w_max)
+    # extreme poles (a badly scaled model that is still finite) must not stretch the grid
+    # over hundreds of decades: the span an automatic end may reach is bounded, and so is
+    # the number of log-spaced points
+    lo_e = float(np.clip(lo_e, _AUTO_EXPONENTS[0], _AUTO_EXPONENTS[1] - 1.0)) if w_min is None else lo_e
+    hi_e = float(np.clip(hi_e, _AUTO_EXPONENTS[0] + 1.0, _AUTO_EXPONENTS[1])) if w_max is None else hi_e
     if not hi_e > lo_e:
         hi_e = lo_e + 1.0
-    npts = max(10, int(np.ceil((hi_e - lo_e) * points_per_decade)) + 1)
+    npts = min(_AUTO_MAX_POINTS, max(10, int(np.ceil((hi_e - lo_e) * points_per_decade)) + 1))
     parts = [np.logspace(lo_e, hi_e, npts)]
     w_lo, w_hi = 10.0**lo_e, 10.0**hi_e
     for r in roots:
@@ -489,9 +504,16 @@ def refine_grid_at_peaks(evaluate, w_rad_s: np.ndarray, gain: np.ndarray, *, pas
         if w.size < 3:
             break
         gi = np.where(np.isfinite(g), g, -np.inf)
-        peaks = np.nonzero((gi[1:-1] >= gi[:-2]) & (gi[1:-1] >= gi[2:]) & np.isfinite(g[1:-1]))[0] + 1
+        mid, left, right = gi[1:-1], gi[:-2], gi[2:]
+        # a peak rises strictly on at least one side: on a flat stretch (a constant gain, an
+        # exactly zero path, or values lost to underflow) every point would otherwise be a
+        # "peak", and the grid would grow tenfold per pass
+        is_peak = (mid >= left) & (mid >= right) & ((mid > left) | (mid > right)) & np.isfinite(g[1:-1])
+        peaks = np.nonzero(is_peak)[0] + 1
         if peaks.size == 0:
             break
+        if peaks.size > _MAX_REFINED_PEAKS:  # a ripple of rounding noise: polish the highest only
+            peaks = np.sort(peaks[np.argsort(gi[peaks])[-_MAX_REFINED_PEAKS:]])
         new = np.concatenate([np.linspace(w[i - 1], w[i + 1], points + 2)[1:-1] for i in peaks])
         new = np.setdiff1d(new, w)
         if new.size == 0:

@@ -6,9 +6,38 @@ Engine commands (``check``, ``freq``, ...) run headless and never import Qt; any
 from __future__ import annotations
 
 import argparse
+import difflib
+import os
+import re
 import sys
 
 __all__ = ["main"]
+
+# What a mistyped command looks like: one bare word, no folder and no file suffix.
+_COMMAND_LIKE = re.compile(r"^[A-Za-z][A-Za-z0-9_-]*$")
+
+
+def _unknown_command(argv: list[str], commands: tuple[str, ...]) -> str | None:
+    """The one-line message for a mistyped command, or None when ``argv`` is meant for the app.
+
+    A first word that is not an existing file and looks like a command (``chek``,
+    ``frobnicate``: a bare word, no folder, no suffix) is a command the user mistyped, with
+    or without a file after it; opening the app on a new diagram called ``chek`` would
+    hide the slip.
+    """
+    word = argv[0]
+    if not _COMMAND_LIKE.match(word) or os.path.exists(word):
+        return None
+    close = difflib.get_close_matches(word, commands, n=1, cutoff=0.6)
+    hint = f"did you mean {close[0]}?" if close else f"commands are {', '.join(commands)}"
+    return f"loopwright: unknown command {word!r}; {hint}"
+
+
+class _AppParser(argparse.ArgumentParser):
+    def error(self, message: str):  # one line and exit 2, like the commands' parsers
+        from loopwright.engine.cli import one_line
+
+        self.exit(2, one_line(f"{self.prog}: {message} (see '{self.prog} --help')") + "\n")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -21,13 +50,18 @@ def main(argv: list[str] | None = None) -> int:
             print("\nWithout a command: 'loopwright [FILE] [--screenshot OUT.png]' opens the desktop app.")
             return code
         return cli_main(argv)
-    parser = argparse.ArgumentParser(prog="loopwright", description="Open the Loopwright desktop app.")
+    if argv:
+        message = _unknown_command(argv, COMMANDS)
+        if message is not None:
+            from loopwright.engine.cli import one_line
+
+            print(one_line(message), file=sys.stderr)
+            return 2
+    parser = _AppParser(prog="loopwright", description="Open the Loopwright desktop app.")
     parser.add_argument("file", nargs="?", help="diagram file (.lwd) to open")
     parser.add_argument("--screenshot", metavar="OUT.png", help="render the window offscreen to a PNG and exit")
     args = parser.parse_args(argv)
     if args.screenshot:
-        import os
-
         os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
     from loopwright.gui.app import run_app
 

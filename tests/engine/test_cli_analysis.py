@@ -221,10 +221,10 @@ def test_margins_on_a_vector_break_reports_each_loop_and_all_at_once(tmp_path, c
     "args, message",
     [
         (["freq", "--from", "dl", "--to", "y", "--w-min", "10", "--w-max", "1"], "--w-max (1.0) must exceed --w-min (10.0)"),
-        (["freq", "--from", "dl", "--to", "y", "--points", "100000000"], "--points must be from 2 to"),
-        (["audit", "--top", "0"], "--top must be at least 1"),
+        (["freq", "--from", "dl", "--to", "y", "--points", "100000000"], "argument --points: must be a whole number from 2 to 200000"),
+        (["audit", "--top", "0"], "argument --top: must be a whole number from 1 to"),
         (["margins", "--at", "r"], "no feedback loop passes through 'r'"),
-        (["margins", "--skew", "nan"], "skew must be a finite number"),
+        (["margins", "--skew", "nan"], "argument --skew: must be a number from -1e+06 to 1e+06"),
     ],
 )
 def test_nonsense_options_get_one_line_and_exit_2(args, message, capsys):

@@ -139,7 +139,7 @@ def test_export_controller_as_c_runs_like_the_engine(sample_copy, tmp_path, caps
         (["--what", "path", "--from", "dl"], "needs --from INPUT and --to SIGNAL"),
         (["--what", "controller", "--format", "c"], "C output is for a discretised controller"),
         (["--what", "controller", "--measured", "y_mes"], "no signal called 'y_mes'; did you mean y_meas"),
-        (["--what", "controller", "--ts", "-1"], "sample period -1.0 s must be a positive"),
+        (["--what", "controller", "--ts", "-1"], "argument --ts: must be a number from 1e-09 to 1e+06 s"),
         (["--what", "controller", "--ts", "0.01", "--prewarp", "5"], "--prewarp needs --method tustin"),
         (["--what", "closed-loop", "--ts", "0.01"], "belong to --what controller"),
         (["--what", "bogus"], "invalid choice"),
@@ -159,8 +159,7 @@ def test_export_user_errors_exit_2_with_one_line(sample_copy, tmp_path, capsys, 
 
 
 def test_export_help_documents_options(capsys):
-    with pytest.raises(SystemExit):
-        main(["export", "--help"])
+    assert main(["export", "--help"]) == 0
     out = capsys.readouterr().out
     for opt in ("--what", "--measured", "--actuator", "--ts", "--method", "--prewarp", "--format", "--precision", "--prefix"):
         assert opt in out
