@@ -43,6 +43,7 @@ from loopwright.engine.errors import (
     UnknownNameError,
 )
 from loopwright.engine.ports import input_ports, output_ports
+from loopwright.engine.static_chains import solve_acyclic_feedthrough
 
 __all__ = ["AssembledModel", "assemble", "signal_names", "Problem", "collect_problems"]
 
@@ -498,22 +499,15 @@ def _dense(m) -> np.ndarray:
 
 
 def _inverse_of_feedthrough(DM, F, acyclic: bool):
-    """``(I - D M)^-1``, sparse when the feedthrough graph has no loops.
+    """``(I - D M)^-1`` as a dense array.
 
-    Without algebraic loops ``D M`` is nilpotent, so the inverse is the finite sum
-    ``I + DM + DM^2 + ...`` (as long as the longest chain of direct feedthrough), and it
-    stays as sparse as the wiring. With loops, a sparse LU factorisation solves for it.
+    Without algebraic loops the static blocks are eliminated in graph order (see
+    :mod:`loopwright.engine.static_chains`), linear in the number of blocks. With loops, a
+    sparse LU factorisation solves for it.
     """
     ns = DM.shape[0]
     if acyclic:
-        total = sp.identity(ns, format="csr")
-        term = total
-        for _ in range(ns + 1):
-            term = (DM @ term).tocsr()
-            term.eliminate_zeros()
-            if term.nnz == 0:
-                return total
-            total = total + term
+        return solve_acyclic_feedthrough(DM)
     try:
         return spla.splu(F.tocsc()).solve(np.eye(ns))
     except RuntimeError as err:  # exactly singular: the structural check missed a cancellation
