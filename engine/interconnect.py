@@ -106,6 +106,9 @@ class AssembledModel:
     diagram: Diagram = field(repr=False)
     break_at: str | None = None
     break_return: str | None = None
+    # block id -> its realisation, kept so that block-by-block evaluations need not
+    # realise the blocks again
+    realizations: dict[str, Realization] = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def n_states(self) -> int:
@@ -468,6 +471,7 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         diagram=snap,
         break_at=break_at,
         break_return=broken,
+        realizations=reals,
     )
 
 
