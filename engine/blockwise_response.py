@@ -38,7 +38,7 @@ from scipy.sparse.csgraph import connected_components
 from loopwright.engine.blocks import realize
 from loopwright.engine.responses import ReducedModel, reduce_model, reduced_response
 
-__all__ = ["BlockwiseModel", "PathEvaluator", "path_evaluator", "whole_model_cost"]
+__all__ = ["BlockwiseModel", "GroupResponder", "PathEvaluator", "path_evaluator", "whole_model_cost"]
 
 # Flop-count constants: a dense real Schur form with vectors costs about 25 n^3; a solve
 # with a triangular matrix of size n for one right-hand side and one frequency costs 4 n^2
@@ -370,3 +370,45 @@ def path_evaluator(model, input_group: str, signal: str, *, points: int = 1000, 
             return reduced_response(red, Bt, Ct, D, 1j * np.atleast_1d(np.asarray(w, dtype=float)), B=B, C=C)
 
     return PathEvaluator("whole model", evaluate, red.poles)
+
+
+class GroupResponder:
+    """Responses of one input group to every signal, on the cheaper route, for the audit.
+
+    :meth:`solve` evaluates at a set of frequencies and returns an opaque result;
+    :meth:`outputs` reads some rows of it. On the whole-model route the result is the state
+    response in Schur coordinates (outputs are formed only for the rows asked for); block
+    by block it is the full output response.
+    """
+
+    def __init__(self, model, red: ReducedModel, cols: slice, *, points: int, blockwise: BlockwiseModel | None = None, Ct=None):
+        self.model, self.red, self.cols = model, red, cols
+        self.Dg = model.D[:, cols]
+        m, p = cols.stop - cols.start, model.C.shape[0]
+        self.blockwise = None
+        if blockwise is not None and blockwise.cost(m, p, points) < points * _TRI * red.n**2 * m:
+            self.blockwise = blockwise
+        self.Bt = red.input_matrix(model.B[:, cols]) if red.n else np.zeros((0, m), dtype=complex)
+        if Ct is None:
+            Ct = red.output_matrix(model.C) if red.n else np.zeros((p, 0), dtype=complex)
+        self.Ct = Ct
+
+    @property
+    def route(self) -> str:
+        return "whole model" if self.blockwise is None else "block by block"
+
+    def solve(self, w_rad_s):
+        s = 1j * np.atleast_1d(np.asarray(w_rad_s, dtype=float))
+        if self.blockwise is not None:
+            return self.blockwise.response(self.cols, slice(0, self.model.C.shape[0]), s)
+        from loopwright.engine.responses import _shifted_solve
+
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            return _shifted_solve(self.red.T, s, self.Bt)
+
+    def outputs(self, solved, rows: slice, points: slice = slice(None)) -> np.ndarray:
+        """``(k, p_rows, m)`` response of ``rows`` at the ``points`` of a :meth:`solve` result."""
+        if self.blockwise is not None:
+            return solved[points, rows, :]
+        with np.errstate(invalid="ignore", over="ignore"):
+            return np.einsum("pn,nkm->kpm", self.Ct[rows], solved[:, points, :]) + self.Dg[rows][None, :, :]

@@ -88,12 +88,11 @@ def _table(header: list[str], rows: list[list[str]], *, indent: str = "  ") -> N
 
 
 def _freq(args: argparse.Namespace) -> int:
+    from loopwright.engine.blockwise_response import path_evaluator
     from loopwright.engine.responses import (
         auto_frequency_grid,
         magnitude_db,
         phase_deg,
-        reduce_model,
-        reduced_response,
         refine_grid_at_peaks,
     )
     from loopwright.engine.norms import sigma_max
@@ -102,13 +101,7 @@ def _freq(args: argparse.Namespace) -> int:
     model = assemble(diagram)
     grp = model.resolve_input(args.source)
     sig = model.resolve_signal(args.signal)
-    A, B, C, D = model.pair(grp, sig)
-    red = reduce_model(A)
-    Bt, Ct = red.input_matrix(B), red.output_matrix(C)
-
-    def evaluate(w):
-        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-            return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C)
+    evaluate = path_evaluator(model, grp, sig, points=args.points or 1000)
 
     for name, v in (("--w-min", args.w_min), ("--w-max", args.w_max)):
         if v is not None and not v > 0:
@@ -118,7 +111,7 @@ def _freq(args: argparse.Namespace) -> int:
     if args.w_min is not None and args.w_max is not None and not args.w_max > args.w_min:
         raise ParameterError(f"--w-max ({args.w_max}) must exceed --w-min ({args.w_min})", field="--w-max")
     if args.points is not None:
-        auto = auto_frequency_grid(red.poles)
+        auto = auto_frequency_grid(evaluate.poles)
         lo = args.w_min if args.w_min is not None else auto[0]
         hi = args.w_max if args.w_max is not None else auto[-1]
         if not hi > lo:
@@ -126,7 +119,7 @@ def _freq(args: argparse.Namespace) -> int:
         w = np.logspace(np.log10(lo), np.log10(hi), args.points)
         G = evaluate(w)
     else:
-        w = auto_frequency_grid(red.poles, w_min=args.w_min, w_max=args.w_max)
+        w = auto_frequency_grid(evaluate.poles, w_min=args.w_min, w_max=args.w_max)
         G = evaluate(w)
         w, _ = refine_grid_at_peaks(lambda x: sigma_max(evaluate(x)), w, sigma_max(G))
         G = evaluate(w)
