@@ -56,14 +56,13 @@ def main(argv=None) -> int:
     est = t_ct / args.ct_points * grid.size * len(model.sources)
     print(f"  python-control: one frequency response per source on the audit grid, estimated from {args.ct_points} points: "
           f"wall {est:.0f} s (~{est / 3600:.1f} h); ratio {est / total:.0f}x (without its H2 norms and peak refinement)")
-    worst = 0.0
-    for row in rows[: args.peak_checks]:
-        if not (np.isfinite(row.peak_freq_rad_s) and row.peak_freq_rad_s > 0):
-            continue
+    worst, checked = 0.0, 0
+    for row in [r for r in rows if np.isfinite(r.peak_freq_rad_s) and r.peak_freq_rad_s > 0][: args.peak_checks]:
+        checked += 1
         A, B, C, D = model.pair(row.source, row.signal)
         G = C @ np.linalg.solve(1j * row.peak_freq_rad_s * np.eye(n) - A, B) + D
         worst = max(worst, abs(np.linalg.norm(G, 2) - row.peak_gain) / row.peak_gain)
-    print(f"  peak gains vs direct LU at the reported frequencies (top {args.peak_checks} rows): rel {worst:.1e}")
+    print(f"  peak gains vs direct LU at the reported frequencies ({checked} rows with a finite nonzero peak frequency): rel {worst:.1e}")
     return 0
 
 
