@@ -11,15 +11,20 @@ Run: ``python bench/bench_freqresp.py [--sizes 200 400 800] [--points 1000]``
 from __future__ import annotations
 
 import argparse
-import time
+import os
+import sys
 
 import control as ct
 import numpy as np
 import scipy.signal as ss
 
-from loopwright.engine.diagram import Diagram
-from loopwright.engine.interconnect import assemble
-from loopwright.engine.responses import frequency_response
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+
+from scale_diagrams import timed as _time  # noqa: E402
+
+from loopwright.engine.diagram import Diagram  # noqa: E402
+from loopwright.engine.interconnect import assemble  # noqa: E402
+from loopwright.engine.responses import frequency_response  # noqa: E402
 
 
 def conveyor_chain(sections: int, *, seed: int = 0) -> Diagram:
@@ -69,21 +74,6 @@ def conveyor_chain(sections: int, *, seed: int = 0) -> Diagram:
             d.connect(f"P{i}.y", f"est{i}.y", name=f"y{i}")
         prev = f"P{i}.y"
     return d
-
-
-def _time(fn, repeat: int = 1):
-    """Best wall-clock and best process-CPU time over ``repeat`` runs, and the last result.
-
-    CPU time (all threads of this process) is printed too: on a shared laptop other jobs
-    inflate wall time unevenly between the two tools.
-    """
-    best, best_cpu, out = np.inf, np.inf, None
-    for _ in range(repeat):
-        t0, c0 = time.perf_counter(), time.process_time()
-        out = fn()
-        best = min(best, time.perf_counter() - t0)
-        best_cpu = min(best_cpu, time.process_time() - c0)
-    return best, best_cpu, out
 
 
 def _compare(label: str, A, B, C, D, w, *, ct_repeat: int = 1) -> dict:

@@ -23,7 +23,9 @@ evaluated for all signals at once on one frequency grid, peaks are refined joint
 grid densification (up to 8 passes of 5 points inside each signal's bracket around its
 peak, each pass one batched solve shared by all signals; a peak at either end of the grid
 extends the grid outward first), and H2 norms reuse the same real Schur form for one Lyapunov solve per input
-group. Stability per pair uses the left and right eigenvectors of each non-stable mode
+group. Where an operation count says it is cheaper (big blocks with few ports, such as a
+plant in modal form), the grid and the refinement are evaluated block by block instead
+(:mod:`loopwright.engine.blockwise_response`); the answers are the same. Stability per pair uses the left and right eigenvectors of each non-stable mode
 taken from the triangular form. Peak gains are therefore grid-and-refine values (relative
 error about 1e-8 or better around a smooth peak), not Hamiltonian certificates; use
 :func:`norms.peak_gain` on a single path for a certified value.
@@ -36,8 +38,9 @@ import networkx as nx
 import numpy as np
 import scipy.linalg as sla
 
+from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
 from loopwright.engine.norms import dc_gain, h2_norm, lyapunov_from_schur, sigma_max
-from loopwright.engine.responses import ReducedModel, auto_frequency_grid, reduce_model, reduced_response
+from loopwright.engine.responses import ReducedModel, auto_frequency_grid, reduce_model
 
 __all__ = ["AuditRow", "path_audit", "path_between", "RANKING_RULE"]
 
@@ -179,7 +182,7 @@ def path_between(model, group: str, signal: str, graph=None, *, cache: dict | No
     return order, wire_ids
 
 
-def _refine_peaks(red, Bt, Ct_all, Dg, grid, Y, sig_items, passes: int) -> dict:
+def _refine_peaks(responder, grid, Y, sig_items, passes: int) -> dict:
     """Peak gain and its frequency for every signal of one input group.
 
     Each signal keeps a bracket of samples around its best point; each pass puts 5 new
@@ -231,18 +234,14 @@ def _refine_peaks(red, Bt, Ct_all, Dg, grid, Y, sig_items, passes: int) -> dict:
         if not plans:
             break
         w_new = np.concatenate([pts for pts, _ in plans.values()])
-        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-            X = _solve_for(red, Bt, w_new)  # (n, k, m)
+        solved = responder.solve(w_new)
         col = 0
         rows = dict(sig_items)
         for pts, sigs in plans.values():
-            Xk = X[:, col : col + pts.size, :]
+            at = slice(col, col + pts.size)
             col += pts.size
             for sig in sigs:
-                sl = rows[sig]
-                with np.errstate(invalid="ignore", over="ignore"):
-                    Yk = np.einsum("pn,nkm->kpm", Ct_all[sl], Xk) + Dg[sl][None, :, :]
-                gk = sigma_max(Yk)
+                gk = sigma_max(responder.outputs(solved, rows[sig], at))
                 w, g = local[sig]
                 w2 = np.concatenate([w, pts])
                 g2 = np.concatenate([g, gk])
@@ -252,12 +251,6 @@ def _refine_peaks(red, Bt, Ct_all, Dg, grid, Y, sig_items, passes: int) -> dict:
         i = int(np.argmax(np.where(np.isfinite(g), g, -np.inf)))
         best[sig] = (float(g[i]), float(w[i]))
     return best
-
-
-def _solve_for(red, Bt, w_rad_s):
-    from loopwright.engine.responses import _shifted_solve
-
-    return _shifted_solve(red.T, 1j * np.asarray(w_rad_s, dtype=float), Bt)
 
 
 def path_audit(
@@ -302,6 +295,7 @@ def path_audit(
     groups = [g for g in model.inputs if g in model.sources]
     if injections:
         groups += [g for g in model.inputs if g.startswith("inject:")]
+    blockwise = BlockwiseModel.from_model(model) if n else None
     graph = model.diagram.graph()
     reach_cache: dict = {}
     rows: list[AuditRow] = []
@@ -310,9 +304,9 @@ def path_audit(
         cols = model.inputs[grp]
         Bg = B[:, cols]
         Dg = D[:, cols]
-        Bt = red.input_matrix(Bg) if n else np.zeros((0, Bg.shape[1]), dtype=complex)
-        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-            Y = reduced_response(red, Bt, Ct_all, Dg, 1j * grid)  # (k, p, m)
+        responder = GroupResponder(model, red, cols, points=grid.size, blockwise=blockwise, Ct=Ct_all)
+        Bt = responder.Bt
+        Y = responder.outputs(responder.solve(grid), slice(None)) if n else np.broadcast_to(Dg, (grid.size, *Dg.shape)).astype(complex)
         # per-mode couplings
         reach = []
         for v, u in vecs:
@@ -323,7 +317,7 @@ def path_audit(
             S = red.scale
             Bw = Bg / S[:, None]
             X = lyapunov_from_schur(red.T_real, red.Z_real, Bw @ Bw.T)
-        best = _refine_peaks(red, Bt, Ct_all, Dg, grid, Y, sig_items, refine_passes if n else 0)
+        best = _refine_peaks(responder, grid, Y, sig_items, refine_passes if n else 0)
         finite_y = np.abs(Y[np.isfinite(Y)])
         scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
         for sig, sl in sig_items:

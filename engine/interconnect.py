@@ -44,6 +44,7 @@ from loopwright.engine.errors import (
 )
 from loopwright.engine.ports import input_ports, output_ports
 from loopwright.engine.scaling import check_block_params, check_model, check_realization
+from loopwright.engine.static_chains import solve_acyclic_feedthrough
 
 __all__ = ["AssembledModel", "assemble", "signal_names", "Problem", "collect_problems"]
 
@@ -106,6 +107,9 @@ class AssembledModel:
     diagram: Diagram = field(repr=False)
     break_at: str | None = None
     break_return: str | None = None
+    # block id -> its realisation, kept so that block-by-block evaluations need not
+    # realise the blocks again
+    realizations: dict[str, Realization] = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def n_states(self) -> int:
@@ -400,10 +404,10 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         raise DiagramError("two signals share a name; rename one of the wires")
 
     # ---- stacked block matrices, with output rows placed among the source rows -------
-    Ab = sp.block_diag(A_parts, format="csr") if A_parts else sp.csr_matrix((0, 0))
-    Bb = sp.block_diag(B_parts, format="csr") if B_parts else sp.csr_matrix((0, 0))
-    Cb_blk = sp.block_diag(C_parts, format="coo") if C_parts else sp.coo_matrix((0, nx_))
-    Db_blk = sp.block_diag(D_parts, format="coo") if D_parts else sp.coo_matrix((0, nu))
+    Ab = _block_diag(A_parts).tocsr()
+    Bb = _block_diag(B_parts).tocsr()
+    Cb_blk = _block_diag(C_parts)
+    Db_blk = _block_diag(D_parts)
     Ab = sp.csr_matrix(Ab, shape=(nx_, nx_))
     Bb = sp.csr_matrix(Bb, shape=(nx_, nu))
     # map stacked block-output rows to signal rows (sources interleave in diagram order)
@@ -477,6 +481,7 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         diagram=snap,
         break_at=break_at,
         break_return=broken,
+        realizations=reals,
     )
     check_model(model)
     return model
@@ -505,27 +510,36 @@ def _resolve_break(diagram: Diagram, where: str, sig_slices, sig_of_port) -> tup
     )
 
 
+def _block_diag(parts: list[np.ndarray]) -> sp.coo_matrix:
+    """Sparse block-diagonal stack of dense blocks (empty blocks keep their shape), in one
+    pass: cheaper than ``scipy.sparse.block_diag`` on thousands of tiny blocks."""
+    rows, cols, vals = [np.zeros(0, dtype=np.int64)], [np.zeros(0, dtype=np.int64)], [np.zeros(0)]
+    r0 = c0 = 0
+    for part in parts:
+        if part.size:
+            i, j = np.nonzero(part)
+            rows.append(i + r0)
+            cols.append(j + c0)
+            vals.append(part[i, j])
+        r0 += part.shape[0]
+        c0 += part.shape[1]
+    return sp.coo_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(r0, c0))
+
+
 def _dense(m) -> np.ndarray:
     return m.toarray() if sp.issparse(m) else np.asarray(m)
 
 
 def _inverse_of_feedthrough(DM, F, acyclic: bool):
-    """``(I - D M)^-1``, sparse when the feedthrough graph has no loops.
+    """``(I - D M)^-1`` as a dense array.
 
-    Without algebraic loops ``D M`` is nilpotent, so the inverse is the finite sum
-    ``I + DM + DM^2 + ...`` (as long as the longest chain of direct feedthrough), and it
-    stays as sparse as the wiring. With loops, a sparse LU factorisation solves for it.
+    Without algebraic loops the static blocks are eliminated in graph order (see
+    :mod:`loopwright.engine.static_chains`), linear in the number of blocks. With loops, a
+    sparse LU factorisation solves for it.
     """
     ns = DM.shape[0]
     if acyclic:
-        total = sp.identity(ns, format="csr")
-        term = total
-        for _ in range(ns + 1):
-            term = (DM @ term).tocsr()
-            term.eliminate_zeros()
-            if term.nnz == 0:
-                return total
-            total = total + term
+        return solve_acyclic_feedthrough(DM)
     try:
         return spla.splu(F.tocsc()).solve(np.eye(ns))
     except RuntimeError as err:  # exactly singular: the structural check missed a cancellation

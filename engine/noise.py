@@ -10,7 +10,9 @@ infinite variance (white noise itself), reported as ``inf`` with a reason.
 Where an estimator is linked to a plant (``{"plant": name}``), the estimation error
 ``e = x_plant - xhat`` is budgeted too, component by component.
 
-One real Schur reduction of ``A`` serves every source (:func:`norms.lyapunov_from_schur`).
+One real Schur reduction of ``A`` serves every source and every signal; each source's
+Lyapunov equation is solved in Schur coordinates on the part of the state it reaches
+(:mod:`loopwright.engine.noise_shares` states the method).
 """
 from __future__ import annotations
 
@@ -18,7 +20,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from loopwright.engine.norms import is_stable_matrix, lyapunov_from_schur
+from loopwright.engine.noise_shares import variances_by_source
+from loopwright.engine.norms import is_stable_matrix
 from loopwright.engine.responses import ReducedModel, reduce_model
 
 __all__ = ["NoiseLine", "NoiseBudget", "noise_budget", "white_sources"]
@@ -156,15 +159,11 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
         red = reduce_model(model.A) if reduced is None else reduced
         S = red.scale
         Cs = np.array([r[2] for r in rows]) * S[None, :]  # rows in the reduction's (possibly balanced) coordinates
-        for name, W in srcs.items():
-            cols = model.inputs[name]
-            Bw = model.B[:, cols] / S[:, None]
-            X = lyapunov_from_schur(red.T_real, red.Z_real, Bw @ W @ Bw.T)
-            var[name] = np.maximum(np.einsum("ij,jk,ik->i", Cs, X, Cs), 0.0)
+        var = variances_by_source(red.T_real, red.Z_real, Cs, {name: (model.B[:, model.inputs[name]] / S[:, None], W) for name, W in srcs.items()})
+    D_rows = np.array([np.zeros(model.D.shape[1]) if r[3] is None else r[3] for r in rows]).reshape(len(rows), model.D.shape[1])
     for name, W in srcs.items():
-        cols = model.inputs[name]
-        dd = np.array([0.0 if r[3] is None else float(r[3][cols] @ W @ r[3][cols]) for r in rows])
-        direct[name] = dd
+        Dw = D_rows[:, model.inputs[name]]
+        direct[name] = np.einsum("ij,jk,ik->i", Dw, W, Dw)
     for k, (cname, sig, _, _) in enumerate(rows):
         vb: dict[str, float] = {}
         reason = ""

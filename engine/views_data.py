@@ -118,7 +118,8 @@ def pair_frequency_response(
         A bad span or point count.
     """
     from loopwright.engine.norms import sigma_max
-    from loopwright.engine.responses import auto_frequency_grid, reduce_model, reduced_response, refine_grid_at_peaks
+    from loopwright.engine.blockwise_response import path_evaluator
+    from loopwright.engine.responses import auto_frequency_grid, refine_grid_at_peaks
 
     grp = model.resolve_input(source)
     sig = model.resolve_signal(signal)
@@ -132,25 +133,20 @@ def pair_frequency_response(
         raise ParameterError(f"--points must be from 2 to {MAX_POINTS}; got {points}", field="--points")
     if w_min is not None and w_max is not None and not w_max > w_min:
         raise ParameterError(f"--w-max ({w_max}) must exceed --w-min ({w_min})", field="--w-max")
-    A, B, C, D = model.pair(grp, sig)
-    red = reduce_model(A)
-    Bt, Ct = red.input_matrix(B), red.output_matrix(C)
-
-    def evaluate(w):
-        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-            return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C)
+    # block by block or on the whole model, whichever an operation count says is cheaper
+    evaluate = path_evaluator(model, grp, sig, points=points or 1000)
 
     if w is not None:
         w = np.asarray(w, dtype=float).ravel()
     elif points is not None:
-        auto = auto_frequency_grid(red.poles)
+        auto = auto_frequency_grid(evaluate.poles)
         lo = w_min if w_min is not None else auto[0]
         hi = w_max if w_max is not None else auto[-1]
         if not hi > lo:
             raise ParameterError(f"--w-max ({hi}) must exceed --w-min ({lo})", field="--w-max")
         w = np.logspace(np.log10(lo), np.log10(hi), points)
     else:
-        w = auto_frequency_grid(red.poles, w_min=w_min, w_max=w_max)
+        w = auto_frequency_grid(evaluate.poles, w_min=w_min, w_max=w_max)
         w, _ = refine_grid_at_peaks(lambda x: sigma_max(evaluate(x)), w, sigma_max(evaluate(w)))
     if dc_point:
         w = np.concatenate([[0.0], w])

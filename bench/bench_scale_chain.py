@@ -1,0 +1,82 @@
+"""Scale row 3: 2,000 unit gains in series inside a loop: every command's engine work.
+
+The diagram is ``scale_diagrams.gain_chain_loop`` (demo data). Timed from the in-memory
+diagram: assembly, and each command's analysis (check summary, frequency response of one
+path, noise budget, margins at the command signal, path audit of the sources, up to ``--audit-max`` gains). python-
+control 0.10.2 assembles the same loop with ``interconnect`` (timed at ``--ct-gains``
+gains, where it finishes). Cost should grow linearly: the script runs ``--sizes``.
+
+Agreement: the closed loop is ``x' = -(1 + 2 g) x``, ``u = g (r - y)`` with ``g`` the
+product of the gains (closed form), checked on the assembled model.
+
+Run: ``python bench/bench_scale_chain.py [--sizes 500 1000 2000] [--ct-gains 200]``
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+
+import control as ct
+import numpy as np
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+
+from scale_diagrams import gain_chain_loop, timed  # noqa: E402
+
+from loopwright.engine.audit import path_audit  # noqa: E402
+from loopwright.engine.check import summarize  # noqa: E402
+from loopwright.engine.blockwise_response import path_evaluator  # noqa: E402
+from loopwright.engine.interconnect import assemble  # noqa: E402
+from loopwright.engine.margins import margins_at  # noqa: E402
+from loopwright.engine.noise import noise_budget  # noqa: E402
+
+
+def _ct_chain(gains: int):
+    blocks = [ct.summing_junction(inputs=["r", "-ym"], output="e", name="e")]
+    prev = "e"
+    for k in range(gains):
+        blocks.append(ct.ss([], [], [], [[1.0]], inputs=prev, outputs=f"s{k}", name=f"g{k}"))
+        prev = f"s{k}"
+    blocks.append(ct.ss(ct.tf([2.0], [1.0, 1.0]), inputs=prev, outputs="y", name="P"))
+    blocks.append(ct.summing_junction(inputs=["y", "n"], output="ym", name="ym"))
+    return ct.interconnect(blocks, inputs=["r", "n"], outputs=["y"])
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--sizes", type=int, nargs="+", default=[500, 1000, 2000])
+    ap.add_argument("--ct-gains", type=int, default=200)
+    ap.add_argument("--audit-max", type=int, default=1000, help="largest chain to audit (the audit's output is quadratic)")
+    args = ap.parse_args(argv)
+    print(f"python-control {ct.__version__}")
+    w = np.logspace(-2, 2, 1000)
+    for gains in args.sizes:
+        d = gain_chain_loop(gains)
+        t_a, c_a, model = timed(lambda: assemble(d), repeat=3)
+        assert np.allclose(model.A, [[-3.0]]) and np.allclose(model.pair("r", "u")[3], [[1.0]])
+        steps = {
+            "check": lambda: summarize(d),
+            "freq (1000 points)": lambda: path_evaluator(assemble(d), "r", "y")(w),
+            "noise": lambda: noise_budget(assemble(d)),
+            "margins at u": lambda: margins_at(d, "u"),
+        }
+        if gains <= args.audit_max:
+            # every row lists the blocks on its path: on a chain the output itself grows
+            # with the square of the number of blocks
+            steps["audit"] = lambda: path_audit(assemble(d))
+        print(f"\n{len(d.blocks)} blocks, {gains} gains in series: assemble wall {t_a:.3f} s, cpu {c_a:.3f} s")
+        for label, fn in steps.items():
+            t, c, _ = timed(fn, repeat=2)
+            print(f"  {label:<20} wall {t:7.3f} s  cpu {c:7.3f} s  (assembly included)")
+        if gains == args.sizes[-1] and args.ct_gains:
+            t_ct, c_ct, _ = timed(lambda: _ct_chain(args.ct_gains))
+            dd = gain_chain_loop(args.ct_gains)
+            t_small, c_small, _ = timed(lambda: assemble(dd), repeat=3)
+            print(f"  python-control interconnect at {args.ct_gains} gains: wall {t_ct:.2f} s, cpu {c_ct:.2f} s; ours at "
+                  f"{args.ct_gains} gains wall {t_small:.3f} s: ratio wall {t_ct / t_small:.0f}x, cpu {c_ct / c_small:.0f}x")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,267 @@
+"""The fast routes agree with the whole-model routes: static-chain elimination, block-by-block
+frequency responses, per-source noise shares from one Schur form.
+
+References: closed forms (stated beside each check) and scipy's dense solvers
+(``numpy.linalg.solve`` per frequency, ``scipy.linalg.solve_continuous_lyapunov`` per
+source) on the same matrices.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.linalg as sla
+import scipy.sparse as sp
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from loopwright.engine.audit import path_audit
+from loopwright.engine.blockwise_response import BlockwiseModel, path_evaluator
+from loopwright.engine.diagram import Diagram
+from loopwright.engine.interconnect import assemble
+from loopwright.engine.noise import noise_budget
+from loopwright.engine.noise_shares import variances_by_source
+from loopwright.engine.responses import frequency_response, reduce_model
+from loopwright.engine.static_chains import feedthrough_order, solve_acyclic_feedthrough
+from tests.strategies import loop_diagrams
+
+SETTINGS = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+
+
+def _direct_response(A, B, C, D, w):
+    """``C (jw I - A)^-1 B + D`` by one LU solve per frequency (the reference)."""
+    n = A.shape[0]
+    return np.array([C @ np.linalg.solve(1j * wk * np.eye(n) - A, B) + D for wk in w])
+
+
+# ---------------------------------------------------------------------------------------
+# static chains
+
+
+@SETTINGS
+@given(st.integers(1, 30), st.integers(0, 2**31 - 1), st.floats(0.05, 0.6))
+def test_acyclic_feedthrough_solve_equals_the_dense_inverse(ns, seed, density):
+    # closed form: (I - DM)^-1 for a random acyclic DM (strictly lower triangular in a
+    # random order of the signals)
+    rng = np.random.default_rng(seed)
+    L = np.tril(rng.uniform(-2, 2, (ns, ns)) * (rng.random((ns, ns)) < density), -1)
+    perm = rng.permutation(ns)
+    DM = np.zeros((ns, ns))
+    DM[np.ix_(perm, perm)] = L
+    order = feedthrough_order(sp.csr_matrix(DM))
+    pos = np.empty(ns, int)
+    pos[order] = np.arange(ns)
+    i, j = np.nonzero(DM)
+    assert np.all(pos[j] < pos[i])  # every signal comes after the signals feeding it
+    X = solve_acyclic_feedthrough(sp.csr_matrix(DM))
+    np.testing.assert_allclose(X, np.linalg.inv(np.eye(ns) - DM), rtol=1e-12, atol=1e-12)
+
+
+def test_a_feedthrough_cycle_is_refused():
+    DM = sp.csr_matrix(np.array([[0.0, 1.0], [1.0, 0.0]]))
+    with pytest.raises(ValueError, match="cycle"):
+        feedthrough_order(DM)
+
+
+@SETTINGS
+@given(st.lists(st.floats(0.5, 2.0), min_size=1, max_size=60))
+def test_a_chain_of_gains_inside_a_loop_assembles_to_its_product(gains):
+    # closed form: P = 2/(s+1) under u = (prod g) (r - y): A = -1 - 2 prod(g), B_r = prod(g)
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step"}})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    d.add_block("plant", "P", {"num": [2.0], "den": [1.0, 1.0]})
+    d.connect("r.out", "e.in1")
+    prev = "e.out"
+    for k, g in enumerate(gains):
+        d.add_block("gain", f"g{k}", {"K": [[g]]})
+        d.connect(prev, f"g{k}.in")
+        prev = f"g{k}.out"
+    d.connect(prev, "P.u", name="u")
+    d.connect("P.y", "e.in2", name="y")
+    m = assemble(d)
+    g = float(np.prod(gains))
+    np.testing.assert_allclose(m.A, [[-1.0 - 2.0 * g]], rtol=1e-12)
+    np.testing.assert_allclose(m.pair("r", "u")[1], [[g]], rtol=1e-12)
+    np.testing.assert_allclose(m.pair("r", "u")[3], [[g]], rtol=1e-12)
+
+
+# ---------------------------------------------------------------------------------------
+# block-by-block frequency responses
+
+
+def _modal_loop(modes: int, design: int, seed: int, *, linked: bool = False) -> Diagram:
+    """A flexible plant in modal form under an observer-based loop (demo data)."""
+    rng = np.random.default_rng(seed)
+    n = 2 * modes
+    A = np.zeros((n, n))
+    B = np.zeros((n, 1))
+    C = np.zeros((1, n))
+    for i in range(modes):
+        wn, z = (i + 1) * rng.uniform(0.8, 1.2), rng.uniform(0.01, 0.1)
+        A[2 * i, 2 * i + 1] = 1.0
+        A[2 * i + 1, 2 * i] = -wn * wn
+        A[2 * i + 1, 2 * i + 1] = -2 * z * wn
+        B[2 * i + 1, 0] = rng.uniform(0.5, 1.0)
+        C[0, 2 * i] = rng.uniform(0.5, 1.0)
+    nd = n if linked else 2 * design
+    Ad, Bd, Cd = A[:nd, :nd], B[:nd], C[:, :nd]
+    P = sla.solve_continuous_are(Ad, Bd, np.eye(nd), np.eye(1))
+    K = Bd.T @ P
+    S = sla.solve_continuous_are(Ad.T, Cd.T, np.eye(nd), 0.1 * np.eye(1))
+    L = S @ Cd.T / 0.1
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step"}})
+    d.add_block("source", "dist", {"role": "disturbance", "width": 1, "waveform": {"kind": "white", "intensity": 0.1}})
+    d.add_block("sum", "us", {"signs": ["+", "+", "+"], "width": 1})
+    d.add_block("plant", "P", {"A": A.tolist(), "B": B.tolist(), "C": C.tolist(), "D": [[0.0]]})
+    est = {"plant": "P"} if linked else {"A": Ad.tolist(), "B": Bd.tolist(), "C": Cd.tolist(), "D": [[0.0]]}
+    d.add_block("estimator", "E", {**est, "L": L.tolist()})
+    d.add_block("gain", "K", {"K": (-K).tolist()})
+    d.connect("r.out", "us.in1")
+    d.connect("K.out", "us.in2", name="ufb")
+    d.connect("dist.out", "us.in3")
+    d.connect("us.out", "P.u", name="u")
+    d.connect("us.out", "E.u")
+    d.connect("P.y", "E.y", name="y")
+    d.connect("E.xhat", "K.in", name="xhat")
+    return d
+
+
+def _check_all_paths(model, w):
+    bw = BlockwiseModel.from_model(model)
+    assert bw is not None
+    for grp in list(model.sources) + [f"inject:{s}" for s in list(model.signals)[:3]]:
+        for sig in model.signals:
+            A, B, C, D = model.pair(grp, sig)
+            ref = _direct_response(A, B, C, D, w)
+            got = bw.response(model.input_slice(grp), model.signal_slice(sig), 1j * w)
+            scale = max(1.0, float(np.abs(ref).max()))
+            np.testing.assert_allclose(got, ref, rtol=1e-8, atol=1e-10 * scale, err_msg=f"{grp} -> {sig}")
+
+
+@SETTINGS
+@given(loop_diagrams(), st.lists(st.floats(0.05, 30.0), min_size=1, max_size=5, unique=True))
+def test_block_by_block_equals_the_direct_solve_on_random_loops(diagram, w):
+    model = assemble(diagram)
+    w = np.array(w)
+    poles = np.linalg.eigvals(model.A) if model.A.size else np.zeros(0)
+    # stay clear of poles on or next to the imaginary axis (the response itself is then
+    # ill-conditioned, whatever the route)
+    if poles.size and np.min(np.abs(1j * w[:, None] - poles[None, :])) < 1e-2:
+        return
+    _check_all_paths(model, w)
+
+
+@pytest.mark.parametrize("linked", [False, True], ids=["reduced-order estimator", "estimator linked to the plant"])
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_block_by_block_equals_the_direct_solve_on_modal_loops(seed, linked):
+    model = assemble(_modal_loop(12, 2, seed, linked=linked))
+    _check_all_paths(model, np.array([0.3, 1.0, 2.05, 5.5, 11.9, 40.0]))
+
+
+def test_the_operation_count_picks_the_route():
+    big = assemble(_modal_loop(150, 2, 0))
+    small = assemble(_modal_loop(2, 2, 0, linked=True))
+    assert path_evaluator(big, "r", "y").route == "block by block"
+    assert path_evaluator(small, "r", "y").route == "whole model"
+    w = np.logspace(-1, 2.5, 200)
+    A, B, C, D = big.pair("r", "y")
+    ref = _direct_response(A, B, C, D, w)
+    got = path_evaluator(big, "r", "y")(w)
+    np.testing.assert_allclose(got, ref, rtol=1e-9, atol=1e-12 * np.abs(ref).max())
+    # the whole-model route (one Schur form of the closed loop) agrees to its own accuracy
+    np.testing.assert_allclose(frequency_response(A, B, C, D, w), ref, rtol=1e-7, atol=1e-9 * np.abs(ref).max())
+
+
+def test_audit_on_the_block_route_finds_the_same_peaks():
+    model = assemble(_modal_loop(60, 2, 3))
+    rows = path_audit(model, refine_passes=3)
+    assert rows
+    for row in rows[:6]:
+        if not np.isfinite(row.peak_freq_rad_s) or row.peak_freq_rad_s <= 0:
+            continue
+        A, B, C, D = model.pair(row.source, row.signal)
+        ref = _direct_response(A, B, C, D, np.array([row.peak_freq_rad_s]))
+        assert row.peak_gain == pytest.approx(np.linalg.norm(ref[0], 2), rel=1e-8)
+
+
+# ---------------------------------------------------------------------------------------
+# noise shares
+
+
+@SETTINGS
+@given(st.integers(2, 9), st.integers(0, 2**31 - 1), st.booleans())
+def test_per_source_variances_equal_one_lyapunov_solve_per_source(parts, seed, cascade):
+    # reference: scipy's Bartels-Stewart solve of A X + X A^T + B W B^T = 0 per source
+    rng = np.random.default_rng(seed)
+    sizes = rng.integers(1, 4, parts)
+    n = int(sizes.sum())
+    A = np.zeros((n, n))
+    starts = np.concatenate([[0], np.cumsum(sizes)])
+    for a, b in zip(starts[:-1], starts[1:]):
+        A[a:b, a:b] = rng.standard_normal((b - a, b - a)) - 3.0 * np.eye(b - a)
+    for a, b, c in zip(starts[:-2], starts[1:-1], starts[2:]):
+        if cascade or rng.random() < 0.5:
+            A[b:c, a:b] = rng.standard_normal((c - b, b - a))  # part k drives part k+1
+    if not cascade:
+        A[: starts[1], starts[-2] :] = 0.3 * rng.standard_normal((starts[1], n - starts[-2]))  # close a ring
+    if np.linalg.eigvals(A).real.max() >= -1e-3:
+        return
+    C = rng.standard_normal((5, n)) * (rng.random((5, n)) < 0.5)
+    inputs = {}
+    for k in range(3):
+        Bs = np.zeros((n, 1))
+        Bs[rng.integers(n), 0] = rng.uniform(0.5, 2.0)
+        inputs[f"s{k}"] = (Bs, np.array([[rng.uniform(0.1, 2.0)]]))
+    red = reduce_model(A)
+    got = variances_by_source(red.T_real, red.Z_real, C, inputs)
+    for name, (Bs, W) in inputs.items():
+        X = sla.solve_continuous_lyapunov(A, -Bs @ W @ Bs.T)
+        ref = np.einsum("ij,jk,ik->i", C, X, C)
+        np.testing.assert_allclose(got[name], ref, rtol=1e-8, atol=1e-12 * max(1.0, np.abs(ref).max()))
+
+
+def _zones(count: int, *, ring: bool) -> Diagram:
+    """Observer-based loops in a line (or a ring), each with white load and sensor noise (demo data)."""
+    rng = np.random.default_rng(7)
+    d = Diagram()
+    for k in range(count):
+        A = np.array([[-rng.uniform(0.5, 2.0), 0.4], [rng.uniform(0.2, 1.0), -0.8]])
+        B, C = np.array([[1.0], [0.0]]), np.array([[0.0, 1.0]])
+        K = B.T @ sla.solve_continuous_are(A, B, np.eye(2), np.eye(1))
+        L = sla.solve_continuous_are(A.T, C.T, np.eye(2), 0.1 * np.eye(1)) @ C.T / 0.1
+        d.add_block("source", f"d{k}", {"role": "disturbance", "width": 1, "waveform": {"kind": "white", "intensity": 0.05}})
+        d.add_block("source", f"n{k}", {"role": "noise", "width": 1, "waveform": {"kind": "white", "intensity": 1e-3}})
+        d.add_block("sum", f"u{k}", {"signs": ["+", "+", "+"], "width": 1})
+        d.add_block("plant", f"Z{k}", {"A": A.tolist(), "B": B.tolist(), "C": C.tolist(), "D": [[0.0]]})
+        d.add_block("estimator", f"E{k}", {"plant": f"Z{k}", "L": L.tolist()})
+        d.add_block("gain", f"K{k}", {"K": (-K).tolist()})
+        d.add_block("sum", f"m{k}", {"signs": ["+", "+"], "width": 1})
+        d.connect(f"K{k}.out", f"u{k}.in1")
+        d.connect(f"d{k}.out", f"u{k}.in2")
+        d.connect(f"u{k}.out", f"Z{k}.u", name=f"u{k}_cmd")
+        d.connect(f"u{k}.out", f"E{k}.u")
+        d.connect(f"Z{k}.y", f"m{k}.in1", name=f"T{k}")
+        d.connect(f"n{k}.out", f"m{k}.in2")
+        d.connect(f"m{k}.out", f"E{k}.y")
+        d.connect(f"E{k}.xhat", f"K{k}.in")
+    for k in range(1, count):
+        d.connect(f"Z{k - 1}.y", f"u{k}.in3")
+    d.add_block("source", "still", {"role": "disturbance", "width": 1, "waveform": {"kind": "zero"}})
+    d.connect(f"Z{count - 1}.y" if ring else "still.out", "u0.in3")
+    return d
+
+
+@pytest.mark.parametrize("ring", [False, True], ids=["cascade", "ring"])
+def test_noise_budget_of_a_line_of_loops_matches_per_source_solves(ring):
+    model = assemble(_zones(6, ring=ring))
+    budget = noise_budget(model)
+    assert len(budget.sources) == 12
+    for name, W in budget.sources.items():
+        Bs = model.B[:, model.inputs[name]]
+        X = sla.solve_continuous_lyapunov(model.A, -Bs @ W @ Bs.T)
+        ref = np.einsum("ij,jk,ik->i", model.C, X, model.C)
+        got = np.array([budget.lines[i].variance_by_source[name] for i in range(model.C.shape[0])])
+        finite = np.isfinite(got)
+        assert finite.sum() > model.C.shape[0] // 2
+        np.testing.assert_allclose(got[finite], ref[finite], rtol=1e-8, atol=1e-12 * np.abs(ref[finite]).max())
