@@ -29,10 +29,10 @@ def _run(argv) -> tuple[int, list[str]]:
 
 OUT_OF_RANGE = [
     (["freq", "--from", "dl", "--to", "y", "--w-max", "inf"], "argument --w-max: must be a number from 1e-12 to 1e+12 rad/s; got 'inf'"),
-    (["freq", "--from", "dl", "--to", "y", "--w-min", "inf"], "argument --w-min: must be a number from 1e-12 to 1e+12 rad/s; got 'inf'"),
-    (["freq", "--from", "dl", "--to", "y", "--w-min", "nan"], "argument --w-min: must be a number from 1e-12 to 1e+12 rad/s"),
+    (["freq", "--from", "dl", "--to", "y", "--w-min", "inf"], "argument --w-min: must be a number from 0 to 1e+12 rad/s (0: a grid from DC); got 'inf'"),
+    (["freq", "--from", "dl", "--to", "y", "--w-min", "nan"], "argument --w-min: must be a number from 0 to 1e+12 rad/s"),
     (["freq", "--from", "dl", "--to", "y", "--w-max", "1e400"], "argument --w-max: must be a number from 1e-12"),
-    (["freq", "--from", "dl", "--to", "y", "--w-min", "0"], "argument --w-min: must be a number from 1e-12"),
+    (["freq", "--from", "dl", "--to", "y", "--w-min", "-1"], "argument --w-min: must be a number from 0"),
     (["freq", "--from", "dl", "--to", "y", "--points", "1"], "argument --points: must be a whole number from 2 to 200000"),
     (["freq", "--from", "dl", "--to", "y", "--points", "1e3"], "argument --points: must be a whole number from 2"),
     (["time", "--to", "y", "--t-end", "1e300"], "argument --t-end: must be a number from 1e-12 to 1e+12 s"),
@@ -143,10 +143,10 @@ def test_export_sample_period_and_prewarp_answer_or_refuse_in_one_line(sample, t
 
 # --- messages stay on one line ----------------------------------------------------------
 def test_a_block_name_with_a_newline_is_shown_escaped():
-    # the file names a source "P\n"; the message lists the sources
+    # the file names a source "P\n": the loader refuses the name, shown escaped on one line
     code, err = _run(["freq", str(DATA / "source_name_with_newline.lwd"), "--from", "dl", "--to", "y", "--json"])
     assert code == 2 and len(err) == 1
-    assert "(r, P\\n, n)" in err[0]
+    assert "(block 'P\\n'): 'P\\n' is not a name" in err[0]
 
 
 def test_a_path_with_a_newline_is_shown_escaped(tmp_path):
