@@ -65,7 +65,8 @@ def test_a_feedthrough_cycle_is_refused():
 @SETTINGS
 @given(st.lists(st.floats(0.5, 2.0), min_size=1, max_size=60))
 def test_a_chain_of_gains_inside_a_loop_assembles_to_its_product(gains):
-    # closed form: P = 2/(s+1) under u = (prod g) (r - y): A = -1 - 2 prod(g), B_r = prod(g)
+    # closed form: P = 2/(s+1) under u = (prod g) (r - y): A = -1 - 2 prod(g), the first Markov
+    # parameter of r -> y is C B_r = 2 prod(g) (whatever the realization), and r -> u has D = prod(g)
     d = Diagram()
     d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step"}})
     d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
@@ -81,7 +82,8 @@ def test_a_chain_of_gains_inside_a_loop_assembles_to_its_product(gains):
     m = assemble(d)
     g = float(np.prod(gains))
     np.testing.assert_allclose(m.A, [[-1.0 - 2.0 * g]], rtol=1e-12)
-    np.testing.assert_allclose(m.pair("r", "u")[1], [[g]], rtol=1e-12)
+    _, B_r, C_y, _ = m.pair("r", "y")
+    np.testing.assert_allclose(C_y @ B_r, [[2.0 * g]], rtol=1e-12)
     np.testing.assert_allclose(m.pair("r", "u")[3], [[g]], rtol=1e-12)
 
 
