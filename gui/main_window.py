@@ -134,6 +134,7 @@ class MainWindow(QMainWindow):
         self._build_menus()
         self._build_toolbar()
         install_views(self)
+        self._install_design_entries()
         self.scene.selectionChanged.connect(self._on_selection_changed)
         self.scene.edit_refused.connect(self._show_refusal)
         self.shelf.place_requested.connect(self._place_from_shelf)
@@ -450,8 +451,25 @@ class MainWindow(QMainWindow):
         # Do not wait for a check still running on the worker: its result is dropped.
         self.live.shutdown(wait=False)
         self.views.shutdown()
+        self.report_writer.shutdown()
         self.autosaver.clear()
         event.accept()
+
+    def _install_design_entries(self) -> None:
+        """File ▸ Write report (HTML)…, placed above Close window."""
+        from loopwright.gui.report_action import ReportWriter
+
+        self.report_writer = ReportWriter(self)
+        self.report_writer.failed.connect(lambda text: self.dialogs.error("Report not written", text))
+        file_menu = next(a.menu() for a in self.menuBar().actions() if a.text().replace("&", "") == "File")
+        before = self.actions_["close"]
+        act = QAction("Write &report (HTML)…", self)
+        act.setObjectName("write_report")
+        act.setStatusTip("Write a self-contained HTML report of this diagram: model, margins, audit, noise, open views, designs")
+        act.triggered.connect(lambda _c=False: self.report_writer.choose_and_write())
+        file_menu.insertAction(before, act)
+        self.actions_["write_report"] = act
+        file_menu.insertSeparator(before)
 
     def _quit(self) -> None:
         from PySide6.QtWidgets import QApplication
