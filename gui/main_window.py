@@ -456,7 +456,7 @@ class MainWindow(QMainWindow):
         event.accept()
 
     def _install_design_entries(self) -> None:
-        """File ▸ Write report (HTML)…, placed above Close window."""
+        """File ▸ Write report (HTML)… and Hand over the controller…, placed above Close window."""
         from loopwright.gui.report_action import ReportWriter
 
         self.report_writer = ReportWriter(self)
@@ -469,7 +469,25 @@ class MainWindow(QMainWindow):
         act.triggered.connect(lambda _c=False: self.report_writer.choose_and_write())
         file_menu.insertAction(before, act)
         self.actions_["write_report"] = act
+        act = QAction("&Hand over the controller (C, JSON, NPZ)…", self)
+        act.setObjectName("handover")
+        act.setStatusTip("Discretise the lumped controller, compare its sampled margins and write it for implementation")
+        act.triggered.connect(lambda _c=False: self.open_handover())
+        file_menu.insertAction(before, act)
+        self.actions_["handover"] = act
         file_menu.insertSeparator(before)
+        self.handover_dialog = None
+
+    def open_handover(self):
+        """Open the hand-over dialog on the diagram as it is now (one at a time)."""
+        from loopwright.gui.handover_dialog import HandoverDialog
+
+        if self.handover_dialog is not None:
+            self.handover_dialog.close()
+        self.handover_dialog = HandoverDialog(self.document, self)
+        self.handover_dialog.written.connect(lambda files: self.statusBar().showMessage("handed over: " + ", ".join(files), 15000))
+        self.handover_dialog.show()
+        return self.handover_dialog
 
     def _quit(self) -> None:
         from PySide6.QtWidgets import QApplication
