@@ -452,6 +452,7 @@ class MainWindow(QMainWindow):
         self.live.shutdown(wait=False)
         self.views.shutdown()
         self.report_writer.shutdown()
+        self.pole_dragger.shutdown()
         self.autosaver.clear()
         event.accept()
 
@@ -477,6 +478,10 @@ class MainWindow(QMainWindow):
         self.actions_["handover"] = act
         file_menu.insertSeparator(before)
         self.handover_dialog = None
+        from loopwright.gui.docks.pole_map_drag import PoleDragger
+
+        self.pole_dragger = PoleDragger(self.panels["poles"], self.document, refresh=self.views.refresh_visible, parent=self)
+        self.pole_dragger.retuned.connect(lambda name: self.statusBar().showMessage(f"{name} redesigned from the dragged pole", 5000))
 
     def open_handover(self):
         """Open the hand-over dialog on the diagram as it is now (one at a time)."""
