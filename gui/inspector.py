@@ -30,6 +30,7 @@ from PySide6.QtWidgets import (
 from loopwright.engine.errors import EngineError, ParameterError
 from loopwright.engine.validation import parse_matrix_text
 from loopwright.gui.commands import RenameBlock, RenameWire, SetCaption, SetParams
+from loopwright.gui.recipe_editor import embed_recipe_editor
 
 __all__ = ["Inspector", "MatrixEditor", "format_complex_list"]
 
@@ -416,6 +417,7 @@ class Inspector(QWidget):
         self._add(form, "caption", "caption", cap)
         builder = getattr(self, f"_build_{blk.kind}")
         builder(form, blk)
+        embed_recipe_editor(self, form, blk)  # gui/recipe_editor.py: recipe, Design button, checks
         size = QLabel(self._size_text(blk))
         size.setObjectName("block_size")
         size.setWordWrap(True)

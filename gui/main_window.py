@@ -453,6 +453,9 @@ class MainWindow(QMainWindow):
         self.views.shutdown()
         self.report_writer.shutdown()
         self.pole_dragger.shutdown()
+        self.design_marks.shutdown()
+        if getattr(self.inspector, "recipe_session", None) is not None:
+            self.inspector.recipe_session.shutdown()
         self.autosaver.clear()
         event.accept()
 
@@ -481,6 +484,9 @@ class MainWindow(QMainWindow):
         from loopwright.gui.docks.pole_map_drag import PoleDragger
 
         self.pole_dragger = PoleDragger(self.panels["poles"], self.document, refresh=self.views.refresh_visible, parent=self)
+        from loopwright.gui.recipe_editor import DesignMarks
+
+        self.design_marks = DesignMarks(self.document, self.scene, debounce_ms=self.prefs.debounce_ms, parent=self)
         self.pole_dragger.retuned.connect(lambda name: self.statusBar().showMessage(f"{name} redesigned from the dragged pole", 5000))
 
     def open_handover(self):
