@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from PySide6.QtCore import QBuffer, QByteArray, QIODevice, QObject, QPoint, QRect, QRectF, Signal
+from PySide6.QtCore import QBuffer, QByteArray, QIODevice, QObject, QRect, QRectF, Signal
 from PySide6.QtGui import QColor, QPainter
 from PySide6.QtSvg import QSvgGenerator
 from PySide6.QtWidgets import QFileDialog, QGraphicsItem, QWidget
@@ -19,7 +19,7 @@ from loopwright.engine.output_paths import check_export_output
 from loopwright.engine.report_html import Picture, report_html, write_report_html
 from loopwright.gui.workers import Tasks
 
-__all__ = ["scene_svg", "diagram_svg", "widget_svg", "open_view_pictures", "ReportWriter"]
+__all__ = ["scene_svg", "diagram_svg", "widget_png", "open_view_pictures", "ReportWriter"]
 
 
 def _svg_text(paint, width: int, height: int, title: str) -> str:
@@ -77,14 +77,21 @@ def diagram_svg(diagram) -> str:
         doc.deleteLater()
 
 
-def widget_svg(widget: QWidget, title: str) -> str:
-    """A widget (a plot panel's plot area) painted into SVG."""
-    w, h = max(1, widget.width()), max(1, widget.height())
+def widget_png(widget: QWidget) -> bytes:
+    """A widget (a plot panel's plot area) as PNG bytes, as it looks on screen.
 
-    def paint(p):
-        QWidget.render(widget, p, QPoint(0, 0))
+    PNG rather than SVG: pyqtgraph draws markers from a pixmap atlas, which Qt's SVG
+    painter embeds as tiny images that browsers show badly.
+    """
+    buf = QBuffer()
+    buf.open(QIODevice.OpenModeFlag.WriteOnly)
+    widget.grab().save(buf, "PNG")
+    data = bytes(QByteArray(buf.data()))
+    buf.close()
+    return data
 
-    return _svg_text(paint, w, h, title)
+
+_PAIR_VIEWS = ("frequency", "time", "singular_values")  # views that show the kept pairs
 
 
 def open_view_pictures(window) -> tuple[list[Picture], list[str]]:
@@ -105,11 +112,13 @@ def open_view_pictures(window) -> tuple[list[Picture], list[str]]:
             continue
         panel = window.panels[key]
         title = PANEL_TITLES[key]
+        if key in _PAIR_VIEWS and not panel.pairs:
+            continue  # open but asked nothing yet: an empty plot says nothing to a reviewer
         if window.views._fresh.get(key) != revision or getattr(panel, "data", True) is None:
             skipped.append(title)
             continue
         note = panel.message.text() if panel.message.isVisible() else ""
-        pictures.append(Picture(f"{title} (as open in the app)", svg=widget_svg(panel.picture_widget(), title), note=note))
+        pictures.append(Picture(f"{title} (as open in the app)", png=widget_png(panel.picture_widget()), note=note))
     return pictures, skipped
 
 

@@ -58,7 +58,10 @@ def test_report_from_the_app_holds_the_canvas_and_the_open_views(window, qtbot, 
     assert "The diagram as drawn" in parsed.captions
     assert "Pole map (as open in the app)" in parsed.captions
     assert "Noise budget (as open in the app)" in parsed.captions
+    assert not any(c.startswith("Frequency view") for c in parsed.captions)  # open, but no pair asked yet
     text = out.read_text(encoding="utf-8")
+    shown = [c for c in parsed.captions if c.endswith("(as open in the app)")]
+    assert text.count('src="data:image/png;base64,') == len(shown) >= 2  # each open, current view as on screen
     # the canvas's SVG (vectors and text, not pixmaps) names every block the canvas labels
     diagram_part = text[text.index('<section id="diagram">'):text.index('<section id="model">')]
     assert "<image" not in diagram_part
