@@ -89,7 +89,8 @@ class PairResponse:
 
 
 def pair_frequency_response(
-    model, source: str, signal: str, *, w_min: float | None = None, w_max: float | None = None, points: int | None = None
+    model, source: str, signal: str, *, w_min: float | None = None, w_max: float | None = None, points: int | None = None,
+    w=None,
 ) -> PairResponse:
     """Frequency response of the path ``source -> signal`` of an assembled model.
 
@@ -101,10 +102,13 @@ def pair_frequency_response(
     signal : str
         A signal name (or one component, ``name[k]``).
     w_min, w_max : float, optional
-        Frequency span in rad/s (default: two decades beyond the model's poles).
+        Frequency span in rad/s (default: two decades beyond the model's poles). ``w_min = 0``
+        asks for a grid from DC: the DC point, then the log grid above it.
     points : int, optional
         A plain log-spaced grid of this many points; without it the grid is automatic
         (dense at lightly damped poles) and refined at the response's peaks.
+    w : (k,) array_like, optional
+        Exact frequencies in rad/s (DC allowed); the span and point count are then unused.
 
     Raises
     ------
@@ -118,9 +122,12 @@ def pair_frequency_response(
 
     grp = model.resolve_input(source)
     sig = model.resolve_signal(signal)
+    dc_point = w_min == 0.0 and w is None
+    if dc_point:
+        w_min = None
     for name, v in (("--w-min", w_min), ("--w-max", w_max)):
-        if v is not None and not v > 0:
-            raise ParameterError(f"{name} must be a positive frequency in rad/s; got {v}", field=name)
+        if v is not None and not (v > 0 and np.isfinite(v)):
+            raise ParameterError(f"{name} must be a positive finite frequency in rad/s (or --w-min 0 for a grid from DC); got {v}", field=name)
     if points is not None and not 2 <= points <= MAX_POINTS:
         raise ParameterError(f"--points must be from 2 to {MAX_POINTS}; got {points}", field="--points")
     if w_min is not None and w_max is not None and not w_max > w_min:
@@ -133,7 +140,9 @@ def pair_frequency_response(
         with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
             return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C)
 
-    if points is not None:
+    if w is not None:
+        w = np.asarray(w, dtype=float).ravel()
+    elif points is not None:
         auto = auto_frequency_grid(red.poles)
         lo = w_min if w_min is not None else auto[0]
         hi = w_max if w_max is not None else auto[-1]
@@ -143,6 +152,8 @@ def pair_frequency_response(
     else:
         w = auto_frequency_grid(red.poles, w_min=w_min, w_max=w_max)
         w, _ = refine_grid_at_peaks(lambda x: sigma_max(evaluate(x)), w, sigma_max(evaluate(w)))
+    if dc_point:
+        w = np.concatenate([[0.0], w])
     G = evaluate(w)
     cols, rows = model.input_slice(grp), model.signal_slice(sig)
     return PairResponse(grp, sig, w, G, list(model.input_names[cols]), list(model.output_names[rows]))
