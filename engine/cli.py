@@ -19,6 +19,7 @@ from loopwright.engine.cli_common import fmt_complex, fmt_num, load_diagram, pri
 from loopwright.engine.eigen import format_pole, trustworthy_digits
 from loopwright.engine.cli_options import bounded_int
 from loopwright.engine.errors import EngineError
+from loopwright.engine.output_paths import check_export_output
 
 __all__ = ["main", "build_parser", "COMMANDS", "one_line"]
 
@@ -132,7 +133,24 @@ def check_verdict(rep) -> str:
 def _report(args: argparse.Namespace) -> int:
     from loopwright.engine.report import format_report, loop_report
 
-    rep = loop_report(load_diagram(args.file), top=args.top)
+    diagram = load_diagram(args.file)
+    if args.html:
+        from loopwright.engine.report_html import Picture, report_html, write_report_html
+
+        check_export_output(args.html, reading=[args.file])  # refused before any work
+        rep = loop_report(diagram, top=args.top)
+        picture, how = None, "a block sketch drawn by the engine (the canvas renderer needs PySide6)"
+        render = getattr(args, "diagram_renderer", None)
+        if render is not None:
+            svg = render(diagram)
+            if svg:
+                picture, how = Picture("The diagram as drawn on the canvas", svg=svg), "the canvas, rendered offscreen"
+        write_report_html(args.html, report_html(diagram, origin=args.file, top=args.top, rep=rep, diagram_picture=picture),
+                          reading=[args.file])
+        print(f"wrote {args.html}  (diagram picture: {how})")
+        print(f"\n{CAUTION}")
+        return 0
+    rep = loop_report(diagram, top=args.top)
     if args.json:
         print_json({"file": args.file, **rep.as_dict()})
     else:
@@ -156,7 +174,10 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("report", help="the first look at a loop: poles, separation, margins, noise budget, worst paths")
     p.add_argument("file", help="diagram file (.lwd)")
     p.add_argument("--top", type=bounded_int(1, _MAX_ROWS), default=5, help="how many paths of the audit to show (default 5)")
-    p.add_argument("--json", action="store_true", help="print one JSON object")
+    out = p.add_mutually_exclusive_group()
+    out.add_argument("--json", action="store_true", help="print one JSON object")
+    out.add_argument("--html", metavar="OUT.html", default=None,
+                     help="write the self-contained HTML report (pictures inline, no network) instead of printing")
     p.set_defaults(run=_report)
     for mod in _COMMAND_MODULES:
         try:
@@ -172,13 +193,18 @@ def build_parser() -> argparse.ArgumentParser:
 COMMANDS = ("check", "report", "freq", "tf", "time", "margins", "audit", "noise", "design", "export")
 
 
-def main(argv: list[str] | None = None) -> int:
-    """Run one command; returns the exit status (0 ok, 2 user error)."""
+def main(argv: list[str] | None = None, *, diagram_renderer=None) -> int:
+    """Run one command; returns the exit status (0 ok, 2 user error).
+
+    ``diagram_renderer(diagram) -> str | None`` draws the diagram as SVG for
+    ``report --html``; the launcher passes the canvas's renderer when Qt is installed.
+    """
     parser = build_parser()
     try:
         args = parser.parse_args(argv)
     except SystemExit as stop:  # a bad option (one line already printed), --help or --version
         return stop.code if isinstance(stop.code, int) else 2
+    args.diagram_renderer = diagram_renderer
     if not getattr(args, "run", None):
         parser.print_help()
         return 2

@@ -28,6 +28,7 @@ from loopwright.engine.validation import parse_matrix_text
 from loopwright.gui.commands import RenameBlock, RenameWire, SetCaption, SetParams
 from loopwright.gui.matrix_table import MatrixEditor, error_label, number_text, show_error
 from loopwright.gui.model_editor import ModelEditor, describe_state_order
+from loopwright.gui.recipe_editor import embed_recipe_editor
 
 __all__ = ["Inspector", "MatrixEditor", "format_complex_list"]
 
@@ -242,6 +243,7 @@ class Inspector(QWidget):
         self._add(form, "caption", "caption", cap)
         builder = getattr(self, f"_build_{blk.kind}")
         builder(form, blk)
+        embed_recipe_editor(self, form, blk)  # gui/recipe_editor.py: recipe, Design button, checks
         size = QLabel(self._size_text(blk))
         size.setObjectName("block_size")
         size.setWordWrap(True)

@@ -40,6 +40,34 @@ class _AppParser(argparse.ArgumentParser):
         self.exit(2, one_line(f"{self.prog}: {message} (see '{self.prog} --help')") + "\n")
 
 
+def _offscreen_diagram_renderer():
+    """The canvas renderer for ``report --html``, offscreen; None when PySide6 is not installed.
+
+    The engine then draws a plain block sketch and the report says which picture it holds.
+    """
+    import importlib.util
+
+    if importlib.util.find_spec("PySide6") is None:
+        return None
+
+    def render(diagram) -> str | None:
+        import os
+
+        # No window is shown: the offscreen platform needs no display, also on a desktop.
+        os.environ["QT_QPA_PLATFORM"] = "offscreen"
+        try:
+            from PySide6.QtWidgets import QApplication
+
+            from loopwright.gui.report_action import diagram_svg
+
+            app = QApplication.instance() or QApplication(sys.argv[:1])  # noqa: F841 - kept alive while drawing
+            return diagram_svg(diagram)
+        except ImportError:
+            return None  # Qt present but its libraries are not: the engine's sketch will do
+
+    return render
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     from loopwright.engine.cli import COMMANDS, main as cli_main
@@ -49,6 +77,8 @@ def main(argv: list[str] | None = None) -> int:
             code = cli_main(argv)
             print("\nWithout a command: 'loopwright [FILE] [--screenshot OUT.png]' opens the desktop app.")
             return code
+        if argv[0] == "report" and any(a == "--html" or a.startswith("--html=") for a in argv):
+            return cli_main(argv, diagram_renderer=_offscreen_diagram_renderer())
         return cli_main(argv)
     if argv:
         message = _unknown_command(argv, COMMANDS)

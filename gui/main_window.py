@@ -152,6 +152,7 @@ class MainWindow(QMainWindow):
         self._build_menus()
         self._build_toolbar()
         install_views(self)
+        self._install_design_entries()
         self.scene.selectionChanged.connect(self._on_selection_changed)
         self.scene.edit_refused.connect(self._show_refusal)
         self.shelf.place_requested.connect(self._place_from_shelf)
@@ -471,8 +472,54 @@ class MainWindow(QMainWindow):
         # Do not wait for a check still running on the worker: its result is dropped.
         self.live.shutdown(wait=False)
         self.views.shutdown()
+        self.report_writer.shutdown()
+        self.pole_dragger.shutdown()
+        self.design_marks.shutdown()
+        if getattr(self.inspector, "recipe_session", None) is not None:
+            self.inspector.recipe_session.shutdown()
         self.autosaver.clear()
         event.accept()
+
+    def _install_design_entries(self) -> None:
+        """File ▸ Write report (HTML)… and Hand over the controller…, placed above Close window."""
+        from loopwright.gui.report_action import ReportWriter
+
+        self.report_writer = ReportWriter(self)
+        self.report_writer.failed.connect(lambda text: self.dialogs.error("Report not written", text))
+        file_menu = next(a.menu() for a in self.menuBar().actions() if a.text().replace("&", "") == "File")
+        before = self.actions_["close"]
+        act = QAction("Write &report (HTML)…", self)
+        act.setObjectName("write_report")
+        act.setStatusTip("Write a self-contained HTML report of this diagram: model, margins, audit, noise, open views, designs")
+        act.triggered.connect(lambda _c=False: self.report_writer.choose_and_write())
+        file_menu.insertAction(before, act)
+        self.actions_["write_report"] = act
+        act = QAction("&Hand over the controller (C, JSON, NPZ)…", self)
+        act.setObjectName("handover")
+        act.setStatusTip("Discretise the lumped controller, compare its sampled margins and write it for implementation")
+        act.triggered.connect(lambda _c=False: self.open_handover())
+        file_menu.insertAction(before, act)
+        self.actions_["handover"] = act
+        file_menu.insertSeparator(before)
+        self.handover_dialog = None
+        from loopwright.gui.docks.pole_map_drag import PoleDragger
+
+        self.pole_dragger = PoleDragger(self.panels["poles"], self.document, refresh=self.views.refresh_visible, parent=self)
+        from loopwright.gui.recipe_editor import DesignMarks
+
+        self.design_marks = DesignMarks(self.document, self.scene, debounce_ms=self.prefs.debounce_ms, parent=self)
+        self.pole_dragger.retuned.connect(lambda name: self.statusBar().showMessage(f"{name} redesigned from the dragged pole", 5000))
+
+    def open_handover(self):
+        """Open the hand-over dialog on the diagram as it is now (one at a time)."""
+        from loopwright.gui.handover_dialog import HandoverDialog
+
+        if self.handover_dialog is not None:
+            self.handover_dialog.close()
+        self.handover_dialog = HandoverDialog(self.document, self)
+        self.handover_dialog.written.connect(lambda files: self.statusBar().showMessage("handed over: " + ", ".join(files), 15000))
+        self.handover_dialog.show()
+        return self.handover_dialog
 
     def _quit(self) -> None:
         from PySide6.QtWidgets import QApplication

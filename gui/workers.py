@@ -17,7 +17,7 @@ from PySide6.QtCore import QObject, QTimer, Signal
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import EngineError
 
-__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs"]
+__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs", "TaskResult", "Tasks"]
 
 
 @dataclass(frozen=True)
@@ -257,6 +257,78 @@ class ViewJobs(QObject):
                 fut.result()
             except Exception:  # noqa: BLE001 - cancelled or failed: nothing to wait for
                 pass
+
+    def shutdown(self, *, wait: bool = True) -> None:
+        self._closed = True
+        self._executor.shutdown(wait=wait, cancel_futures=True)
+
+
+@dataclass(frozen=True)
+class TaskResult:
+    """The outcome of one user-started task (a report, a hand-over): ``value`` or ``error``."""
+
+    key: str
+    token: int
+    value: object = None
+    error: str | None = None
+
+
+class Tasks(QObject):
+    """Runs user-started engine work (write the report, compute or write a hand-over) off the
+    GUI thread, one at a time. Unlike the views, a task's answer does not depend on later
+    edits (it works on the snapshot it was given), so it is delivered whatever the revision;
+    only a newer task of the same key replaces an older one.
+
+    Signals
+    -------
+    finished(TaskResult)
+        GUI thread.
+    """
+
+    finished = Signal(object)
+    _done = Signal(object)  # emitted on the worker thread; queued to the GUI thread
+
+    def __init__(self, parent: QObject | None = None):
+        super().__init__(parent)
+        self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-tasks")
+        self._latest: dict[str, int] = {}
+        self._futures: dict[str, Future] = {}
+        self._token = 0
+        self._closed = False
+        self._done.connect(self._on_done)
+
+    def submit(self, key: str, fn, *args, **kwargs) -> int:
+        """Run ``fn(*args, **kwargs)`` (arguments must be snapshots); returns the task's token."""
+        if self._closed:
+            return 0
+        old = self._futures.get(key)
+        if old is not None:
+            old.cancel()
+        self._token += 1
+        token = self._token
+        self._latest[key] = token
+        fut = self._executor.submit(_run_view_job, fn, args, kwargs)
+        self._futures[key] = fut
+        fut.add_done_callback(lambda f, k=key, tk=token: self._deliver(f, k, tk))
+        return token
+
+    def is_busy(self, key: str) -> bool:
+        return key in self._futures
+
+    def _deliver(self, fut: Future, key: str, token: int) -> None:
+        if fut.cancelled() or self._closed:
+            return
+        value, error = fut.result()
+        try:
+            self._done.emit(TaskResult(key, token, value, error))
+        except RuntimeError:
+            pass  # the window was closed while the worker ran
+
+    def _on_done(self, result: TaskResult) -> None:
+        if self._latest.get(result.key) != result.token:
+            return
+        self._futures.pop(result.key, None)
+        self.finished.emit(result)
 
     def shutdown(self, *, wait: bool = True) -> None:
         self._closed = True

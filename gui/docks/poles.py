@@ -55,6 +55,7 @@ class PoleMapPanel(PlotPanel):
         self.guides: list = []
         self.guide_labels: list = []
         self.data: dict | None = None
+        self.hold_range = False  # set while a pole is dragged (gui/docks/pole_map_drag.py)
         self.plot.scene().sigMouseMoved.connect(self._on_mouse)
         self.plot.addItem(pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen("#5b6573", width=1)), ignoreBounds=True)
 
@@ -98,7 +99,8 @@ class PoleMapPanel(PlotPanel):
         elif value["matches"] is False:
             msg += "; they DIFFER from eig(A − BK) ∪ eig(A − LC)"
         self.set_message(msg)
-        self.plot.enableAutoRange()
+        if not self.hold_range:
+            self.plot.enableAutoRange()
 
     def _on_mouse(self, pos) -> None:
         if not self.data or not self.data["table"]:
