@@ -490,8 +490,12 @@ def design_block(diagram: Diagram, name: str) -> BlockDesign:
     if design is not None:
         warns.extend(design.warnings)
     old = block.params.get("K" if block.kind == "gain" else "L")
-    if old is not None and np.shape(old) != matrix.shape:
-        warns.append(f"the block's matrix changes shape from {np.shape(old)} to {matrix.shape}; check its wiring")
+    try:
+        old_shape = None if old is None else np.shape(old)
+    except ValueError:  # a ragged stored matrix: the design replaces it
+        old_shape = "a ragged list"
+    if old_shape is not None and old_shape != matrix.shape:
+        warns.append(f"the block's matrix changes shape from {old_shape} to {matrix.shape}; check its wiring")
     params = json.loads(json.dumps(block.params))
     params["K" if block.kind == "gain" else "L"] = matrix.tolist()
     probe = Block(block.id, block.kind, block.name, params)

@@ -318,3 +318,21 @@ def test_every_sample_is_valid_against_the_schema_the_loader_uses():
     for name in SAMPLES:
         assert PLAIN_VALIDATOR.is_valid(sample_data(name)), name
         project.load(sample_path(name))
+
+
+def test_a_designed_gain_with_a_ragged_row_is_redesigned_not_a_traceback(tmp_path):
+    # found by a fuzz run (common practice, no source): the oven's LQR gain K lost one entry of
+    # a row; `check` names the field, and `design --write` replaces the matrix by its design
+    src = Path(__file__).parent / "data" / "fuzz" / "oven_gain_with_a_ragged_row.lwd"
+    work = tmp_path / "oven.lwd"
+    shutil.copy(src, work)
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main(["design", str(work), "--write", "--json"])
+    assert code == 0, err.getvalue()
+    assert "changes shape from a ragged list" in out.getvalue()
+    d = project.load(work)
+    for b in d.blocks.values():
+        if b.kind == "gain" and "recipe" in b.params:
+            rows = b.params["K"]
+            assert len({len(r) for r in rows}) == 1  # every row as long as the others again
