@@ -2,7 +2,10 @@
 
 ``realize(block, diagram)`` turns a block's JSON-native parameters into matrices
 ``x' = A x + B u``, ``y = C x + D u`` over its stacked input and output ports. Sources have
-no realisation: the assembly treats their outputs as the model's exogenous inputs.
+no realisation: the assembly treats their outputs as the model's exogenous inputs. A
+plant's optional performance output ``z = Cz x + Dz u + Fz d`` is stacked under ``y`` as a
+second output port; models of the plant used for design (:func:`plant_matrices`, an
+estimator's linked plant) keep reading ``y`` only.
 
 Transfer functions are realised element by element in phase-variable form and stacked
 (a matrix of transfer functions therefore gets the sum of its elements' orders, not a
@@ -30,6 +33,8 @@ __all__ = [
     "realize",
     "port_widths",
     "plant_matrices",
+    "performance_matrices",
+    "PLANT_FIELDS",
     "plant_fingerprint",
     "source_intensity",
     "source_width",
@@ -40,6 +45,9 @@ __all__ = [
 ]
 
 WAVEFORM_KINDS = ("zero", "step", "ramp", "sine", "white")
+#: every parameter a plant may have (resources/diagram.schema.json, $defs/plant_params, lists the same)
+PLANT_FIELDS = ("A", "B", "C", "D", "E", "F", "Cz", "Dz", "Fz", "num", "den")
+_PERFORMANCE_FIELDS = ("Cz", "Dz", "Fz")
 
 
 @dataclass(frozen=True)
@@ -315,6 +323,63 @@ def _disturbance_matrices(block: Block, n: int, p: int) -> tuple[np.ndarray, np.
     return E, F
 
 
+def _performance_output(block: Block, n: int, m: int, q: int | None) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """Optional performance output ``z = Cz x + Dz u + Fz d`` of a state-space plant.
+
+    ``Cz`` (pz x n) makes the port; ``Dz`` (pz x m) and ``Fz`` (pz x q, only with a load
+    input ``E``) are zero when left out. ``q`` is the load input's width, None without ``E``.
+    Returns ``(Cz, Dz, Fz)``, or None when the plant has no performance output.
+    """
+    p, where, ids = block.params, _where(block), [block.id]
+    if block.kind != "plant":
+        extra = next((k for k in _PERFORMANCE_FIELDS if k in p), None)
+        if extra is not None:
+            raise ParameterError(f"{where}: {extra} belongs to a plant's performance output; a {block.kind} block has none",
+                                 field=extra, block_ids=ids)
+        return None
+    if "Cz" not in p:
+        extra = next((k for k in ("Dz", "Fz") if k in p), None)
+        if extra is not None:
+            raise ParameterError(f"{where}: {extra} (performance feedthrough) needs Cz, the performance output's state matrix",
+                                 field=extra, block_ids=ids)
+        return None
+    if "num" in p or "den" in p:
+        raise ParameterError(f"{where}: a performance output (Cz) needs the state-space form", field="Cz", block_ids=ids)
+    Cz = as_matrix(p["Cz"], where=where, field="Cz", block_id=block.id, cols=n, why_cols="the columns of A")
+    pz = Cz.shape[0]
+    Dz = (
+        as_matrix(p["Dz"], where=where, field="Dz", block_id=block.id, rows=pz, cols=m,
+                  why_rows="the rows of Cz", why_cols="the columns of B")
+        if "Dz" in p
+        else np.zeros((pz, m))
+    )
+    if "Fz" in p and q is None:
+        raise ParameterError(f"{where}: Fz (load feedthrough to z) needs E, the load input", field="Fz", block_ids=ids)
+    Fz = (
+        as_matrix(p["Fz"], where=where, field="Fz", block_id=block.id, rows=pz, cols=q,
+                  why_rows="the rows of Cz", why_cols="the columns of E")
+        if "Fz" in p
+        else np.zeros((pz, q or 0))
+    )
+    return Cz, Dz, Fz
+
+
+def performance_matrices(diagram: Diagram, name: str) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """``(Cz, Dz, Fz)`` of the plant called ``name``, or None when it has no performance output.
+
+    ``Fz`` has as many columns as the load input ``d`` (none without ``E``).
+
+    Raises
+    ------
+    ParameterError
+        Malformed or mis-shaped fields, named by block and field.
+    """
+    blk = diagram.block_by_name(name)
+    A, B, C, D = _lti_matrices(blk)
+    dist = _disturbance_matrices(blk, A.shape[0], C.shape[0]) if blk.kind == "plant" else None
+    return _performance_output(blk, A.shape[0], D.shape[1], None if dist is None else dist[0].shape[1])
+
+
 def source_width(block: Block) -> int:
     return as_width(block.params.get("width", 1), where=_where(block), block_id=block.id)
 
@@ -418,7 +483,14 @@ def realize(block: Block, diagram: Diagram) -> Realization:
             E, F = dist
             B, D = np.hstack([B, E]), np.hstack([D, F])
             ins = (("u", m), ("d", E.shape[1]))
-        return Realization(A, B, C, D, ins, (("y", q),), tuple(f"{name}.x{k + 1}" for k in range(n)))
+        outs: tuple[tuple[str, int], ...] = (("y", q),)
+        perf = _performance_output(block, n, m, None if dist is None else dist[0].shape[1])
+        if perf is not None:
+            # z is stacked under y over the same inputs (u, then d): z = Cz x + Dz u + Fz d
+            Cz, Dz, Fz = perf
+            C, D = np.vstack([C, Cz]), np.vstack([D, np.hstack([Dz, Fz])])
+            outs = (("y", q), ("z", Cz.shape[0]))
+        return Realization(A, B, C, D, ins, outs, tuple(f"{name}.x{k + 1}" for k in range(n)))
     if kind == "gain":
         if "K" not in p:
             raise ParameterError(f"{where}: gain needs K", field="K", block_ids=[block.id])

@@ -28,7 +28,10 @@ def input_ports(block: Block) -> list[str]:
 def output_ports(block: Block) -> list[str]:
     """Output port names of ``block``, in stacking order."""
     kind = block.kind
-    if kind in ("plant", "dynamic"):
+    if kind == "plant":
+        # a performance output z = Cz x + Dz u + Fz d is there only when Cz is given
+        return ["y", "z"] if "Cz" in block.params else ["y"]
+    if kind == "dynamic":
         return ["y"]
     if kind == "estimator":
         return ["xhat", "yhat"]

@@ -304,7 +304,7 @@ def noise_defaults(diagram: Diagram, estimator: str, *, model: AssembledModel | 
         probe = diagram.copy()
         pe = probe.block_by_name(estimator)
         if pe.params.get("plant") == plant_name:
-            pe.params["L"] = np.zeros((real.A.shape[0], real.C.shape[0])).tolist()
+            pe.params["L"] = np.zeros((real.A.shape[0], dict(real.outputs)["y"])).tolist()  # y only: never z
         model = assemble(probe)
     widths = dict(real.inputs)
     m = widths["u"]

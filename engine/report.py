@@ -83,11 +83,13 @@ def _key_signal_lines(diagram: Diagram, budget: NoiseBudget) -> list[str]:
     for b in diagram.blocks.values():
         if b.kind != "plant":
             continue
-        for port, outgoing in (("u", False), ("y", True)):
+        for port, outgoing in (("u", False), ("y", True), ("z", True)):
             ref = PortRef(b.id, port)
             w = diagram.wire_from(ref) if outgoing else diagram.wire_into(ref)
             if w is not None:
                 wanted.append(w.name)
+            elif port == "z" and "Cz" in b.params:
+                wanted.append(f"{b.name}.z")  # what must stay small is rarely wired on
     names = []
     for ln in budget.lines:
         if ln.signal in wanted or ln.signal.startswith("error:"):

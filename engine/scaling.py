@@ -161,7 +161,7 @@ def check_realization(block: Block, mats: dict[str, np.ndarray]) -> None:
     if msg is not None:
         raise ParameterError(msg, field="den", block_ids=[block.id])
     name, i, j, value = hit
-    fields = [k for k in ("A", "B", "C", "D", "E", "F", "num", "den", "K", "L") if k in (block.params or {})]
+    fields = [k for k in ("A", "B", "C", "D", "E", "F", "Cz", "Dz", "Fz", "num", "den", "K", "L") if k in (block.params or {})]
     raise ParameterError(
         f"badly scaled: block {block.name!r}: its realisation has {name}[{i}][{j}] = {_fmt(value)}, beyond "
         f"+-{_fmt(SCALE_LIMIT)} (products of its fields {', '.join(fields) or 'parameters'}); check the units or the numbers",

@@ -1,7 +1,7 @@
 """A block's model edited as one thing: the model part of the inspector.
 
 Plant, dynamic block and estimator keep their model in several matrices that must agree
-in size. Here the sizes (states, inputs, outputs, load inputs) are set once and every
+in size. Here the sizes (states, inputs, outputs, load inputs, performance outputs) are set once and every
 matrix follows them; what the user types is a *draft* until it is consistent, and
 **Apply** hands it to the inspector as one parameter set (one undoable step). A draft
 that is not applied is never dropped behind the user's back: the inspector keeps it per
@@ -40,9 +40,10 @@ from loopwright.gui.matrix_table import MatrixEditor, number_text
 __all__ = ["ModelEditor", "MODEL_KEYS", "state_order", "describe_state_order"]
 
 #: parameters that make up a block's model (everything else, e.g. a recipe, is kept)
-MODEL_KEYS = ("A", "B", "C", "D", "E", "F", "num", "den", "plant", "L")
+MODEL_KEYS = ("A", "B", "C", "D", "E", "F", "Cz", "Dz", "Fz", "num", "den", "plant", "L")
 
-_SIZES = ("states", "inputs", "outputs", "loads")
+_SIZES = ("states", "inputs", "outputs", "loads", "perf")
+_PLANT_ONLY = ("loads", "perf")
 # matrix -> (rows, columns) as size names
 _SHAPES = {
     "A": ("states", "states"),
@@ -51,9 +52,13 @@ _SHAPES = {
     "D": ("outputs", "inputs"),
     "E": ("states", "loads"),
     "F": ("outputs", "loads"),
+    "Cz": ("perf", "states"),
+    "Dz": ("perf", "inputs"),
+    "Fz": ("perf", "loads"),
     "L": ("states", "outputs"),
 }
-_SIZE_LABELS = {"states": "states", "inputs": "inputs u", "outputs": "outputs y", "loads": "load inputs d"}
+_SIZE_LABELS = {"states": "states", "inputs": "inputs u", "outputs": "outputs y", "loads": "load inputs d",
+                "perf": "performance outputs z"}
 
 
 def _is_siso_coeffs(value: Any) -> bool:
@@ -148,10 +153,10 @@ class ModelEditor(QWidget):
         size_row = QWidget()
         srow = QGridLayout(size_row)
         srow.setContentsMargins(0, 0, 0, 0)
-        for k, key in enumerate(k for k in _SIZES if k != "loads" or kind == "plant"):
+        for k, key in enumerate(k for k in _SIZES if k not in _PLANT_ONLY or kind == "plant"):
             spin = QSpinBox()
             spin.setObjectName(f"size_{key}")
-            spin.setRange(0 if key in ("loads", "states") else 1, 200)
+            spin.setRange(0 if key in ("states", *_PLANT_ONLY) else 1, 200)
             spin.setToolTip(_SIZE_LABELS[key])
             srow.addWidget(QLabel(_SIZE_LABELS[key]), k // 2, 2 * (k % 2))
             srow.addWidget(spin, k // 2, 2 * (k % 2) + 1)
@@ -164,10 +169,16 @@ class ModelEditor(QWidget):
         self.linked_info.setWordWrap(True)
         self._form.addRow("", self.linked_info)
 
-        for key in ("A", "B", "C", "D", "E", "F"):
-            if key in ("E", "F") and kind != "plant":
+        for key in ("A", "B", "C", "D", "E", "F", "Cz", "Dz", "Fz"):
+            if key in ("E", "F", "Cz", "Dz", "Fz") and kind != "plant":
                 continue
             self._add_matrix(key, key)
+        if kind == "plant":
+            self.performance_note = QLabel("z = Cz x + Dz u + Fz d: what must stay small but is not measured; "
+                                           "estimators and designs read y only")
+            self.performance_note.setObjectName("performance_note")
+            self.performance_note.setWordWrap(True)
+            self._form.addRow("", self.performance_note)
         self.states_note = QLabel("")
         self.states_note.setObjectName("states_note")
         self.states_note.setWordWrap(True)
@@ -287,7 +298,7 @@ class ModelEditor(QWidget):
         m = shape("D")[1] or shape("B")[1]
         p = shape("D")[0] or shape("C")[0]
         q = shape("E")[1]
-        return {"states": n, "inputs": max(m, 1), "outputs": max(p, 1), "loads": q}
+        return {"states": n, "inputs": max(m, 1), "outputs": max(p, 1), "loads": q, "perf": shape("Cz")[0]}
 
     def _load(self, st: dict) -> None:
         self._building = True
@@ -345,11 +356,15 @@ class ModelEditor(QWidget):
             visible = ss_own
             if key in ("E", "F"):
                 visible = ss_own and self.sizes["loads"].value() > 0
+            if key in ("Cz", "Dz", "Fz"):
+                visible = ss_own and self.sizes["perf"].value() > 0 and (key != "Fz" or self.sizes["loads"].value() > 0)
             if key == "L":
                 visible = True
             self._set_row_visible(ed, visible)
         self._set_row_visible(self.linked_info, linked is not None)
         self._set_row_visible(self.states_note, ss_own)
+        if self._kind == "plant":
+            self._set_row_visible(self.performance_note, ss_own and self.sizes["perf"].value() > 0)
         siso = self._tf_is_siso()
         for w in (self.num, self.den, self.poles_zeros):
             self._set_row_visible(w, tf and siso)
@@ -439,8 +454,8 @@ class ModelEditor(QWidget):
         self._show_parts()
         self._redraft()
 
-    def _model_sizes(self) -> tuple[int, int, int, int] | None:
-        """(states, inputs, outputs, loads) the matrices must have, or None if unknown."""
+    def _model_sizes(self) -> tuple[int, int, int, int, int] | None:
+        """(states, inputs, outputs, loads, performance outputs) the matrices must have, or None if unknown."""
         linked = self._linked()
         if linked is not None:
             from loopwright.engine.blocks import plant_matrices
@@ -449,7 +464,7 @@ class ModelEditor(QWidget):
                 A, B, C, D = plant_matrices(self._diagram, linked)
             except (EngineError, KeyError, ValueError):
                 return None
-            return A.shape[0], D.shape[1], D.shape[0], 0
+            return A.shape[0], D.shape[1], D.shape[0], 0, 0
         return tuple(self.sizes[k].value() if k in self.sizes else 0 for k in _SIZES)
 
     def _follow_sizes(self) -> None:
@@ -503,6 +518,14 @@ class ModelEditor(QWidget):
                     params["E"], params["F"] = self.matrices["E"].value(), self.matrices["F"].value()
                     if "F" not in self._stored and not any(v for row in params["F"] for v in row):
                         del params["F"]  # F is optional (zero when left out): keep the file as written
+                if self._kind == "plant" and self.sizes["perf"].value() > 0:
+                    params["Cz"] = self.matrices["Cz"].value()
+                    # Dz and Fz are optional like F: written when not zero or when the file had them
+                    optional = [("Dz", True), ("Fz", self.sizes["loads"].value() > 0)]
+                    for key, possible in optional:
+                        value = self.matrices[key].value()
+                        if possible and (key in self._stored or any(v for row in value for v in row)):
+                            params[key] = value
         if self._kind == "estimator":
             params["L"] = self.matrices["L"].value()
             if params.get("L") != self._stored.get("L") or params.get("plant") != self._stored.get("plant"):

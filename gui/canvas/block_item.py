@@ -13,7 +13,7 @@ from PySide6.QtWidgets import QGraphicsItem
 
 from loopwright.engine.diagram import Block, PortRef
 from loopwright.gui.canvas.geometry import SOURCE_RADIUS, SUM_RADIUS, port_spots
-from loopwright.gui.canvas.glyphs import body_rect, caption_rect, paint_block
+from loopwright.gui.canvas.glyphs import body_rect, caption_rect, is_performance_port, paint_block
 from loopwright.gui.canvas.port_item import PortItem
 from loopwright.gui.canvas.marking import Markable
 
@@ -74,6 +74,8 @@ class BlockItem(Markable, QGraphicsItem):
             port = self.ports[key]
             port.normal = s.normal
             port.setPos(s.x, s.y)
+            if is_performance_port(block, s.name, is_input=s.is_input):
+                port.setToolTip("output z: performance output (z = Cz x + Dz u + Fz d, not measured): drag to connect")
         self._refresh_tooltip()
         self.update()
 

@@ -11,7 +11,7 @@ from PySide6.QtGui import QBrush, QFont, QFontMetricsF, QPainterPath, QPen, QTra
 from loopwright.engine.diagram import Block
 from loopwright.gui.canvas.geometry import SOURCE_RADIUS, SUM_RADIUS, block_size, port_spots
 
-__all__ = ["symbol_text", "paint_block", "body_rect", "caption_rect", "format_poly"]
+__all__ = ["symbol_text", "paint_block", "body_rect", "caption_rect", "format_poly", "is_performance_port"]
 
 
 def _fmt(v: float) -> str:
@@ -95,8 +95,31 @@ def paint_block(painter, block: Block, theme, *, selected: bool, problem: bool, 
     painter.setPen(Qt.PenStyle.NoPen)
     painter.setBrush(QBrush(theme.port))
     for s in port_spots(block):
-        if not s.is_input:
+        if is_performance_port(block, s.name, is_input=s.is_input):
+            _paint_performance_mark(painter, s, theme)
+        elif not s.is_input:
             painter.drawEllipse(QPointF(s.x, s.y), 2.2, 2.2)
+
+
+def is_performance_port(block: Block, port: str, *, is_input: bool) -> bool:
+    """True for a plant's performance output ``z`` (what must stay small, not measured)."""
+    return block.kind == "plant" and port == "z" and not is_input
+
+
+def _paint_performance_mark(painter, spot, theme) -> None:
+    # An open diamond instead of the filled dot: a signal one watches, not one a sensor gives.
+    painter.save()
+    painter.setPen(QPen(theme.port, 1.3))
+    painter.setBrush(QBrush(theme.block_fill))
+    r = 3.6
+    path = QPainterPath()
+    path.moveTo(spot.x, spot.y - r)
+    path.lineTo(spot.x + r, spot.y)
+    path.lineTo(spot.x, spot.y + r)
+    path.lineTo(spot.x - r, spot.y)
+    path.closeSubpath()
+    painter.drawPath(path)
+    painter.restore()
 
 
 def _paint_box(painter, block, theme, border, pen_w, font) -> None:

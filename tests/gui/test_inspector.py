@@ -111,7 +111,8 @@ def test_sizes_are_set_once_and_every_matrix_follows_then_one_apply_is_one_step(
     before, steps = doc.snapshot(), doc.undo_stack.count()
     ed.sizes["states"].setValue(5)
     shapes = {k: (m.table.rowCount(), m.table.columnCount()) for k, m in ed.matrices.items()}
-    assert shapes == {"A": (5, 5), "B": (5, 1), "C": (1, 5), "D": (1, 1), "E": (5, 1), "F": (1, 1)}
+    assert shapes == {"A": (5, 5), "B": (5, 1), "C": (1, 5), "D": (1, 1), "E": (5, 1), "F": (1, 1),
+                      "Cz": (1, 5), "Dz": (1, 1), "Fz": (1, 1)}
     assert doc.diagram == before  # a draft until applied
     assert "not applied" in ed.status.text() and ed.apply_button.isEnabled()
     ed.apply_button.click()
@@ -285,8 +286,8 @@ def test_the_block_page_states_the_size_the_engine_reads(doc_and_inspector):
     doc, insp = doc_and_inspector
     p = doc.diagram.block_by_name("P")
     insp.show_block(p.id)
-    # The conveyor plant: 4 states, torque input u and load input d, one measured angle.
-    assert insp.fields["block_size"].text() == "4 states; inputs u: 1, d: 1; outputs y: 1"
+    # The conveyor plant: 4 states, torque input u and load input d, one measured angle, the shaft twist.
+    assert insp.fields["block_size"].text() == "4 states; inputs u: 1, d: 1; outputs y: 1, z: 1"
     est = doc.diagram.block_by_name("est")
     insp.show_block(est.id)
     assert insp.fields["block_size"].text().startswith("4 states; inputs u: 1, y: 1; outputs xhat: 4, yhat: 1")
