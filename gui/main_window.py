@@ -81,6 +81,9 @@ def status_text(result: LiveResult | None) -> str:
                 "not_separated": "separation: poles DIFFER from eig(A−BK) ∪ eig(A−LC)",
             }[sep.verdict]
         )
+    for gap in getattr(rep, "input_gaps", ()) or ():
+        # Separation can hold while the estimate is biased: say so where the verdict is.
+        parts.append(f"estimate biased: {gap.estimator}.u misses {', '.join(gap.missing + gap.extra + gap.differing)}")
     if 0 < len(rep.poles) <= _POLES_SHOWN:
         # A small loop's poles in plain sight: the designed ones, or not.
         from loopwright.gui.inspector import format_complex_list
@@ -90,6 +93,40 @@ def status_text(result: LiveResult | None) -> str:
 
 
 _POLES_SHOWN = 8
+
+
+def _design_states(result: LiveResult, diagram: Diagram) -> dict[str, str]:
+    """Block id -> why its designed matrix cannot be vouched for ("stale", "not designed yet", ...)."""
+    states = getattr(result.report, "recipe_states", None)
+    if states is None:
+        # Not assembled: the marks still say which designs no longer fit (fingerprints only, cheap).
+        from loopwright.engine.recipes import recipe_status
+
+        states = recipe_status(diagram)
+    ids = {b.name: b.id for b in diagram.blocks.values()}
+    return {ids[name]: state for name, state in states.items() if state and name in ids}
+
+
+def _problems_with_culprits(result: LiveResult, diagram: Diagram) -> tuple[list, tuple[str, ...]]:
+    """The engine's problems plus the check's warnings that have a culprit (an estimator's
+    input gap, a stale design) as problems, so picking one selects it; the other warnings
+    (about the loop as a whole) as plain text."""
+    from loopwright.engine.estimator_inputs import gap_problems
+    from loopwright.engine.interconnect import Problem
+
+    rep = result.report
+    found = list(result.problems)
+    warnings = list(getattr(rep, "warnings", ()) or ())
+    gaps = list(getattr(rep, "input_gaps", ()) or ())
+    extra = gap_problems(gaps)
+    ids = {b.name: b.id for b in diagram.blocks.values()}
+    for name in (getattr(rep, "recipe_states", None) or {}):
+        prefix = f"block {name!r}"
+        for w in warnings:
+            if w.startswith(prefix) and name in ids:
+                extra.append(Problem(w, (ids[name],), (), severity="warning"))
+    taken = {p.message for p in extra}
+    return found + extra, tuple(w for w in warnings if w not in taken)
 
 
 class MainWindow(QMainWindow):
@@ -329,12 +366,13 @@ class MainWindow(QMainWindow):
         text = status_text(result)
         self._model_label.setText(text)
         self._model_label.setToolTip("\n".join(getattr(result.report, "warnings", ()) or ()) or text)
-        self.scene.set_problems(result.problems)
+        found, warnings = _problems_with_culprits(result, self.document.diagram)
+        self.scene.set_problems(found)
+        self.scene.set_design_states(_design_states(result, self.document.diagram))
         self.scene.set_widths(result.widths)
         self.inspector.set_live_widths(result.widths)
-        warnings = tuple(getattr(result.report, "warnings", ()) or ())
-        self.problems.set_problems(result.problems, warnings=warnings)
-        count = len(result.problems) + len(warnings)
+        self.problems.set_problems(found, warnings=warnings)
+        count = len(found) + len(warnings)
         self.problems_dock.setWindowTitle(f"Problems ({count})" if count else "Problems")
         self.live_updated.emit(result)
 
@@ -349,6 +387,8 @@ class MainWindow(QMainWindow):
         self.view.fit_to_view()
 
     def select_culprits(self, block_ids, wire_ids) -> None:
+        if not block_ids and not wire_ids:
+            return  # a warning about the whole loop keeps the selection as it is
         self.scene.select_ids(block_ids, wire_ids)
         items = [self.scene.block_items[b] for b in block_ids if b in self.scene.block_items]
         items += [self.scene.wire_items[w] for w in wire_ids if w in self.scene.wire_items]

@@ -181,15 +181,27 @@ class DiagramScene(QGraphicsScene):
         """Mark the culprits of ``problems`` (objects with message, block_ids, wire_ids)."""
         by_block: dict[str, list[str]] = {}
         by_wire: dict[str, list[str]] = {}
+        errors: set[str] = set()
         for p in problems:
+            is_error = getattr(p, "severity", "error") == "error"
             for b in getattr(p, "block_ids", ()) or ():
                 by_block.setdefault(b, []).append(p.message)
+                if is_error:
+                    errors.add(b)
             for w in getattr(p, "wire_ids", ()) or ():
                 by_wire.setdefault(w, []).append(p.message)
+                if is_error:
+                    errors.add(w)
         for bid, item in self.block_items.items():
-            item.set_problems(by_block.get(bid, []))
+            item.set_problems(by_block.get(bid, []), warnings_only=bid not in errors)
         for wid, item in self.wire_items.items():
-            item.set_problems(by_wire.get(wid, []))
+            item.set_problems(by_wire.get(wid, []), warnings_only=wid not in errors)
+
+    def set_design_states(self, states: dict[str, str]) -> None:
+        """Mark designed blocks whose matrix cannot be vouched for, ``{block id: state}``
+        (``"stale"``, ``"not designed yet"``, ...); other blocks lose their mark."""
+        for bid, item in self.block_items.items():
+            item.set_design_state(states.get(bid, ""))
 
     def set_widths(self, widths: dict[str, int]) -> None:
         """Signal widths by wire id (vectors are drawn heavier, with their width)."""

@@ -165,7 +165,9 @@ class WireItem(Markable, QGraphicsItem):
         colour = t.problem if self._problems else (t.selection if self.isSelected() else (t.highlight if self._highlighted else t.wire))
         vector = bool(self._width and self._width > 1)
         painter.setRenderHint(painter.RenderHint.Antialiasing, True)
-        painter.setPen(QPen(colour, 3.2 if vector else 1.5, Qt.PenStyle.SolidLine, Qt.PenCapStyle.FlatCap, Qt.PenJoinStyle.MiterJoin))
+        # A warning (the loop still assembles) is dashed; an error solid.
+        style = Qt.PenStyle.DashLine if self._problems and not self.has_error else Qt.PenStyle.SolidLine
+        painter.setPen(QPen(colour, 3.2 if vector else 1.5, style, Qt.PenCapStyle.FlatCap, Qt.PenJoinStyle.MiterJoin))
         painter.setBrush(Qt.BrushStyle.NoBrush)
         painter.drawPath(self._path)
         painter.setPen(Qt.PenStyle.NoPen)
