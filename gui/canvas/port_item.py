@@ -45,6 +45,11 @@ class PortItem(QGraphicsItem):
 
     def set_target_state(self, state: int) -> None:
         if state != self._target_state:
+            # Invalidate the ring's area before the item stops drawing: with no contents
+            # Qt no longer repaints it, and the ring of an aborted wire would stay behind.
+            self.update()
+            if self.scene() is not None:
+                self.scene().update(self.sceneBoundingRect())
             self._target_state = state
             self.setFlag(QGraphicsItem.GraphicsItemFlag.ItemHasNoContents, state == 0)
             self.update()

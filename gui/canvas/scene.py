@@ -256,6 +256,29 @@ class DiagramScene(QGraphicsScene):
             return False
         return True
 
+    def free_offset(self, rects: list[QRectF], start: tuple[float, float] = (0.0, 0.0), *, margin: float = 16.0) -> tuple[float, float]:
+        """The first shift, from ``start`` rightwards then row by row, that puts ``rects``
+        (scene rectangles of new blocks) clear of every block on the canvas, so nothing new
+        lands on top of what is there."""
+        bodies = [it.body_scene_rect().adjusted(-margin, -margin, margin, margin) for it in self.block_items.values()]
+        step = max(self.grid_size, 1.0) * 4
+        for row in range(40):
+            for col in range(40):
+                dx, dy = start[0] + col * step, start[1] + row * step
+                moved = [r.translated(dx, dy) for r in rects]
+                if not any(m.intersects(b) for m in moved for b in bodies):
+                    return dx, dy
+        return start
+
+    def free_spot(self, kind: str, pos: QPointF, params: dict | None = None) -> QPointF:
+        """Where a new ``kind`` block near ``pos`` sits clear of the others (beside them)."""
+        from loopwright.engine.diagram import Block, default_params
+        from loopwright.gui.canvas.glyphs import body_rect
+
+        probe = Block("probe", kind, "probe", params or default_params(kind), {"x": 0, "y": 0, "rotation": 0, "flip": False})
+        dx, dy = self.free_offset([body_rect(probe).translated(pos)])
+        return QPointF(pos.x() + dx, pos.y() + dy)
+
     def place_block(self, kind: str, pos: QPointF, params: dict | None = None) -> str | None:
         g = self.grid_size or 1.0
         layout = {"x": round(pos.x() / g) * g, "y": round(pos.y() / g) * g, "rotation": 0, "flip": False}
