@@ -394,6 +394,7 @@ class MainWindow(QMainWindow):
         compact = w < self.COMPACT_SIZE[0] or h < self.COMPACT_SIZE[1]
         if compact and self._hidden_for_room is None:
             docks = [dk for dk in self.findChildren(QDockWidget) if not dk.isHidden() and not dk.isFloating()]
+            self._front_docks = [dk for dk in docks if dk.isVisible()] or [self.problems_dock, self.inspector_dock]
             self._hidden_for_room = docks
             for dk in docks:
                 dk.hide()
@@ -403,6 +404,8 @@ class MainWindow(QMainWindow):
             docks, self._hidden_for_room = self._hidden_for_room, None
             for dk in docks:
                 dk.show()
+            for dk in self._front_docks:  # the same tabs in front as before
+                dk.raise_()
 
     def showEvent(self, event) -> None:
         super().showEvent(event)

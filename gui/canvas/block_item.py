@@ -8,7 +8,7 @@ the problem marking changes), which keeps panning a large diagram smooth.
 from __future__ import annotations
 
 from PySide6.QtCore import QPointF, QRectF, Qt
-from PySide6.QtGui import QFont, QPainterPath, QPen
+from PySide6.QtGui import QBrush, QFont, QPainterPath, QPen
 from PySide6.QtWidgets import QGraphicsItem
 
 from loopwright.engine.diagram import Block, PortRef
@@ -105,6 +105,20 @@ class BlockItem(Markable, QGraphicsItem):
             self._refresh_tooltip()
             self.update()
 
+    @property
+    def open_inputs(self) -> frozenset[str]:
+        return self._open_inputs
+
+    def set_open_inputs(self, names) -> None:
+        """The input ports no wire feeds: drawn as small open rings, named on hover."""
+        names = frozenset(names)
+        if names != self._open_inputs:
+            self._open_inputs = names
+            for (name, is_input), port in self.ports.items():
+                if is_input:
+                    port.set_open(name in names)
+            self.update()
+
     def design_badge_rect(self) -> QRectF:
         """Where the design mark sits: on the body's top-right corner (item coordinates)."""
         r = body_rect(self._block)
@@ -153,6 +167,12 @@ class BlockItem(Markable, QGraphicsItem):
             painter.setPen(QPen(self._theme.problem, 1.2, Qt.PenStyle.DashLine))
             painter.setBrush(Qt.BrushStyle.NoBrush)
             painter.drawRoundedRect(self.shape().boundingRect().adjusted(-3, -3, 3, 3), 5, 5)
+        if self._open_inputs:
+            painter.setPen(QPen(self._theme.port, 1.2))
+            painter.setBrush(QBrush(self._theme.background))
+            for spot in port_spots(self._block):
+                if spot.is_input and spot.name in self._open_inputs:
+                    painter.drawEllipse(QPointF(spot.x, spot.y), 3.2, 3.2)
         if self._design_state:
             paint_design_badge(painter, self.design_badge_rect(), self._design_state, self._theme, self._font)
         if self._block.caption:
