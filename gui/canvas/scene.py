@@ -194,6 +194,9 @@ class DiagramScene(QGraphicsScene):
         recorded as where ``wire_id``'s name goes (the first one if none is free)."""
         others = [r for wid, r in self._label_rects.items() if wid != wire_id and not r.isNull()]
         bodies = [it.body_scene_rect() for it in self.block_items.values()]
+        # Other wires' lines too: a name written across another wire reads as its label.
+        bodies += [QRectF(QPointF(min(a[0], b[0]), min(a[1], b[1])), QPointF(max(a[0], b[0]), max(a[1], b[1]))).adjusted(-1, -1, 1, 1)
+                   for wid, segs in self._segments.items() if wid != wire_id for a, b in segs]
         chosen = candidates[0] if candidates else QRectF()
         for r in candidates:
             if not any(r.intersects(o) for o in others) and not any(r.intersects(b) for b in bodies):

@@ -121,18 +121,13 @@ def _assert_names_apart(window):
 
 
 def _two_feedback_loops() -> Diagram:
-    """Two wires that both run back under the same row: K.out and s2.out, named by default."""
+    """Two wires running back under one row of gains (G4 to G1, G3 to G2): routed alone, both
+    take the lane just below the row and their default names sit at the same spot."""
     d = Diagram()
-    d.add_block("sum", "s1", {"signs": ["+", "-"], "width": 1}, layout={"x": 0, "y": 0})
-    d.add_block("gain", "K", {"K": [[2.0]]}, layout={"x": 120, "y": 0})
-    d.add_block("sum", "s2", {"signs": ["+", "-"], "width": 1}, layout={"x": 240, "y": 0})
-    d.add_block("integrator", "I", {"width": 1}, layout={"x": 360, "y": 0})
-    d.connect("s1.out", "K.in")
-    d.connect("K.out", "s2.in1")
-    d.connect("s2.out", "I.in")
-    d.connect("I.out", "s1.in2")  # back to the first junction
-    d.connect("I.out", "s2.in2")  # and to the second: the same lane below the row
-    d.connect("K.out", "s1.in1")  # a second feedback from K, under the same row
+    for k in range(4):
+        d.add_block("gain", f"G{k + 1}", {"K": [[1.0]]}, layout={"x": 150 * k, "y": 0})
+    d.connect("G4.out", "G1.in")
+    d.connect("G3.out", "G2.in")
     return d
 
 
