@@ -42,6 +42,7 @@ from scipy.optimize import linear_sum_assignment
 from loopwright.engine.blocks import plant_matrices, realize
 from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.eigen import PoleClasses, classify_poles, eigen_sensitivity, matrix_scale
+from loopwright.engine.estimator_inputs import InputGap, estimator_input_gaps
 from loopwright.engine.interconnect import AssembledModel, assemble
 from loopwright.engine.recipes import recipe_status
 
@@ -113,6 +114,7 @@ class CheckReport:
     pole_source: str = "full"  # "full": eig of the assembled A; "separation": eig of the two diagonal blocks
     worst_condition: float = 1.0  # largest eigenvalue condition number of the assembled A
     recipe_states: dict[str, str] = field(default_factory=dict)  # block -> "not designed yet" / "stale" / ...
+    input_gaps: tuple[InputGap, ...] = ()  # estimators whose command input misses known signals the plant gets
 
     @property
     def poles_trusted(self) -> bool:
@@ -310,6 +312,10 @@ def summarize(diagram: Diagram) -> CheckReport:
         warnings.append(f"{m} pole{'s' if m > 1 else ''} on the imaginary axis ({classes.phrase()}): the loop is at best marginally stable")
     if sep is not None and sep.message:
         warnings.append(sep.message)
+    # Separation can hold while the estimate is biased: a known signal added after the
+    # estimator's tap drives the error without moving any pole.
+    gaps = tuple(estimator_input_gaps(diagram))
+    warnings.extend(gap.message for gap in gaps)
     from loopwright.engine.eigen import trustworthy_digits
 
     digits = [trustworthy_digits(p, b) for p, b in zip(poles, bounds)]
@@ -343,4 +349,5 @@ def summarize(diagram: Diagram) -> CheckReport:
         pole_source=source,
         worst_condition=sens.worst_condition,
         recipe_states=states,
+        input_gaps=gaps,
     )

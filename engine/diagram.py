@@ -78,8 +78,15 @@ class Wire:
 
 
 def default_params(kind: str) -> dict[str, Any]:
-    """Parameters a freshly placed block of ``kind`` starts with (a valid SISO block)."""
-    if kind in ("plant", "dynamic"):
+    """Parameters a freshly placed block of ``kind`` starts with (a valid SISO block).
+
+    A dynamic block starts as a second-order low-pass filter with unit DC gain, natural
+    frequency 10 rad/s and damping ratio 0.7, ``100 / (s^2 + 14 s + 100)``: a typical
+    measurement filter, well damped (about 5 % overshoot), to be retuned to the loop.
+    """
+    if kind == "dynamic":
+        return {"num": [100.0], "den": [1.0, 14.0, 100.0]}
+    if kind == "plant":
         return {"num": [1.0], "den": [1.0, 1.0]}
     if kind == "gain":
         return {"K": [[1.0]]}

@@ -93,9 +93,72 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if args.screenshot:
         os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+    missing = missing_xcb_packages()
+    if missing:
+        print(xcb_message(missing), file=sys.stderr)
+        return 1
     from loopwright.gui.app import run_app
 
     return run_app(args.file, args.screenshot)
+
+
+# Libraries Qt's X11 (xcb) platform plugin loads, by soname, with the Debian/Ubuntu package
+# that ships each (read from the plugin's dependencies with ldd, PySide6 6.11). The first
+# three are the ones a fresh desktop install most often lacks.
+XCB_LIBRARIES = {
+    "libxcb-cursor.so.0": "libxcb-cursor0",
+    "libxcb-icccm.so.4": "libxcb-icccm4",
+    "libxcb-keysyms.so.1": "libxcb-keysyms1",
+    "libxcb-image.so.0": "libxcb-image0",
+    "libxcb-render-util.so.0": "libxcb-render-util0",
+    "libxcb-randr.so.0": "libxcb-randr0",
+    "libxcb-shape.so.0": "libxcb-shape0",
+    "libxcb-xkb.so.1": "libxcb-xkb1",
+    "libxcb-util.so.1": "libxcb-util1",
+    "libxkbcommon-x11.so.0": "libxkbcommon-x11-0",
+}
+
+
+def _platform_is_xcb(env) -> bool:
+    """Whether Qt will open its X11 platform: on Linux, asked for by name, or by default
+    outside a Wayland session."""
+    if not sys.platform.startswith("linux"):
+        return False
+    asked = env.get("QT_QPA_PLATFORM", "")
+    if asked:
+        return asked.split(";")[0].split(":")[0].strip() == "xcb"
+    return not (env.get("WAYLAND_DISPLAY") and env.get("XDG_SESSION_TYPE") == "wayland")
+
+
+def _loads(soname: str) -> bool:
+    import ctypes
+
+    try:
+        ctypes.CDLL(soname)
+    except OSError:
+        return False
+    return True
+
+
+def missing_xcb_packages(env=None, *, loads=_loads) -> list[str]:
+    """The system packages Qt's X11 platform needs and cannot find (empty when it needs none).
+
+    Runs before any Qt import: without these, Qt aborts with a page of plugin errors instead
+    of one line. ``loads(soname)`` says whether the dynamic loader finds a library (tests
+    pass their own to simulate a missing one).
+    """
+    env = os.environ if env is None else env
+    if not _platform_is_xcb(env):
+        return []
+    return [pkg for soname, pkg in XCB_LIBRARIES.items() if not loads(soname)]
+
+
+def xcb_message(packages: list[str]) -> str:
+    """The one line printed instead of Qt's abort."""
+    return (
+        f"loopwright: the desktop app needs Qt's X11 libraries, missing here: {', '.join(packages)} "
+        f"(install them, e.g. 'sudo apt-get install {' '.join(packages)}'; the commands such as 'loopwright check FILE' need none)"
+    )
 
 
 if __name__ == "__main__":

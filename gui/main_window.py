@@ -11,7 +11,7 @@ from __future__ import annotations
 import importlib.resources
 from pathlib import Path
 
-from PySide6.QtCore import QEvent, QPointF, QSettings, Qt, QTimer, Signal
+from PySide6.QtCore import QEvent, QSettings, Qt, QTimer, Signal
 from PySide6.QtGui import QAction, QActionGroup, QGuiApplication, QKeySequence
 from PySide6.QtWidgets import QDockWidget, QLabel, QMainWindow, QStyle, QUndoView
 
@@ -29,7 +29,7 @@ from loopwright.gui.docks.install import install_views
 from loopwright.gui.document import Document
 from loopwright.gui.inspector import Inspector
 from loopwright.gui.problems import ProblemsList
-from loopwright.gui.settings import Preferences, RecentFiles
+from loopwright.gui.settings import Preferences, RecentFiles, save_canvas_colours
 from loopwright.gui.shelf import Shelf
 from loopwright.gui.theme import theme_from_palette
 from loopwright.gui.workers import LiveModel, LiveResult
@@ -81,6 +81,9 @@ def status_text(result: LiveResult | None) -> str:
                 "not_separated": "separation: poles DIFFER from eig(A−BK) ∪ eig(A−LC)",
             }[sep.verdict]
         )
+    for gap in getattr(rep, "input_gaps", ()) or ():
+        # Separation can hold while the estimate is biased: say so where the verdict is.
+        parts.append(f"estimate biased: {gap.estimator}.u misses {', '.join(gap.missing + gap.extra + gap.differing)}")
     if 0 < len(rep.poles) <= _POLES_SHOWN:
         # A small loop's poles in plain sight: the designed ones, or not.
         from loopwright.gui.inspector import format_complex_list
@@ -90,6 +93,81 @@ def status_text(result: LiveResult | None) -> str:
 
 
 _POLES_SHOWN = 8
+
+
+def undo_redo_icon(which: str):
+    """The platform's undo or redo icon (the desktop theme's edit-undo / edit-redo); where
+    the platform has no icon theme, a hooked arrow of our own, never a back/forward arrow."""
+    from PySide6.QtCore import QPointF as _P
+    from PySide6.QtGui import QColor, QIcon, QPainter, QPainterPath, QPen, QPixmap
+
+    named = getattr(QIcon, "ThemeIcon", None)  # Qt 6.7+: also the native icons of Windows and macOS
+    if named is not None:
+        themed = QIcon.fromTheme(named.EditUndo if which == "undo" else named.EditRedo)
+    else:
+        themed = QIcon.fromTheme(f"edit-{which}")
+    if not themed.isNull():
+        return themed
+    icon = QIcon()
+    for size in (16, 24, 32):
+        pm = QPixmap(size, size)
+        pm.fill(QColor(0, 0, 0, 0))
+        p = QPainter(pm)
+        p.setRenderHint(QPainter.RenderHint.Antialiasing, True)
+        s = size / 24.0
+        if which == "redo":
+            p.translate(size, 0)
+            p.scale(-1, 1)
+        pen = QPen(QColor("#3b4a5a"), 2.2 * s)
+        pen.setCapStyle(pen.capStyle().RoundCap)
+        p.setPen(pen)
+        path = QPainterPath(_P(6 * s, 10 * s))
+        # Back along the top, then a U-turn down and to the right: the "take back" hook.
+        path.cubicTo(_P(11 * s, 5 * s), _P(21 * s, 6 * s), _P(20 * s, 14 * s))
+        path.cubicTo(_P(19.5 * s, 18 * s), _P(16 * s, 20 * s), _P(12 * s, 20 * s))
+        p.drawPath(path)
+        head = QPainterPath(_P(4 * s, 4 * s))
+        head.lineTo(_P(5 * s, 11.5 * s))
+        head.lineTo(_P(12 * s, 10 * s))
+        p.setBrush(QColor("#3b4a5a"))
+        p.drawPath(head)
+        p.end()
+        icon.addPixmap(pm)
+    return icon
+
+
+def _design_states(result: LiveResult, diagram: Diagram) -> dict[str, str]:
+    """Block id -> why its designed matrix cannot be vouched for ("stale", "not designed yet", ...)."""
+    states = getattr(result.report, "recipe_states", None)
+    if states is None:
+        # Not assembled: the marks still say which designs no longer fit (fingerprints only, cheap).
+        from loopwright.engine.recipes import recipe_status
+
+        states = recipe_status(diagram)
+    ids = {b.name: b.id for b in diagram.blocks.values()}
+    return {ids[name]: state for name, state in states.items() if state and name in ids}
+
+
+def _problems_with_culprits(result: LiveResult, diagram: Diagram) -> tuple[list, tuple[str, ...]]:
+    """The engine's problems plus the check's warnings that have a culprit (an estimator's
+    input gap, a stale design) as problems, so picking one selects it; the other warnings
+    (about the loop as a whole) as plain text."""
+    from loopwright.engine.estimator_inputs import gap_problems
+    from loopwright.engine.interconnect import Problem
+
+    rep = result.report
+    found = list(result.problems)
+    warnings = list(getattr(rep, "warnings", ()) or ())
+    gaps = list(getattr(rep, "input_gaps", ()) or ())
+    extra = gap_problems(gaps)
+    ids = {b.name: b.id for b in diagram.blocks.values()}
+    for name in (getattr(rep, "recipe_states", None) or {}):
+        prefix = f"block {name!r}"
+        for w in warnings:
+            if w.startswith(prefix) and name in ids:
+                extra.append(Problem(w, (ids[name],), (), severity="warning"))
+    taken = {p.message for p in extra}
+    return found + extra, tuple(w for w in warnings if w not in taken)
 
 
 class MainWindow(QMainWindow):
@@ -165,6 +243,9 @@ class MainWindow(QMainWindow):
         self.document.path_changed.connect(self._update_title)
         self.document.diagram_replaced.connect(self._on_diagram_replaced)
         self._closing_ok = False
+        self._hidden_for_room: list | None = None  # docks hidden while the window is small
+        self._copy_title: str | None = None  # an opened sample's title, until it is saved
+        self._copy_name: str | None = None
         self._update_title()
         self.resize(1400, 900)
         self._docks_sized = False
@@ -209,11 +290,16 @@ class MainWindow(QMainWindow):
         a["quit"] = self._action("&Quit", self._quit, shortcut=SK.Quit)
         undo = self.document.undo_stack.createUndoAction(self, "&Undo")
         undo.setShortcuts(SK.Undo)
-        undo.setIcon(self.style().standardIcon(SP.SP_ArrowBack))
+        undo.setIcon(undo_redo_icon("undo"))
         undo.setObjectName("undo")
         redo = self.document.undo_stack.createRedoAction(self, "&Redo")
-        redo.setShortcuts(SK.Redo)
-        redo.setIcon(self.style().standardIcon(SP.SP_ArrowForward))
+        # Both desktop habits: Ctrl+Shift+Z and Ctrl+Y (whatever the platform's own key is).
+        keys = list(QKeySequence.keyBindings(SK.Redo))
+        for extra in (QKeySequence("Ctrl+Y"), QKeySequence("Ctrl+Shift+Z")):
+            if extra not in keys:
+                keys.append(extra)
+        redo.setShortcuts(keys)
+        redo.setIcon(undo_redo_icon("redo"))
         redo.setObjectName("redo")
         a["undo"], a["redo"] = undo, redo
         a["cut"] = self._action("Cu&t", self.cut, shortcut=SK.Cut)
@@ -300,6 +386,28 @@ class MainWindow(QMainWindow):
         for k in ("new", "open", "save", None, "undo", "redo", None, "rotate", "flip", None, "zoom_fit"):
             tb.addSeparator() if k is None else tb.addAction(a[k])
 
+    # Below this window size the panels give way to the canvas (View menu brings them back).
+    COMPACT_SIZE = (900, 600)
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        w, h = event.size().width(), event.size().height()
+        compact = w < self.COMPACT_SIZE[0] or h < self.COMPACT_SIZE[1]
+        if compact and self._hidden_for_room is None:
+            docks = [dk for dk in self.findChildren(QDockWidget) if not dk.isHidden() and not dk.isFloating()]
+            self._front_docks = [dk for dk in docks if dk.isVisible()] or [self.problems_dock, self.inspector_dock]
+            self._hidden_for_room = docks
+            for dk in docks:
+                dk.hide()
+            if docks:
+                self.statusBar().showMessage("Small window: the panels make room for the canvas (View menu shows them)", 6000)
+        elif not compact and self._hidden_for_room is not None:
+            docks, self._hidden_for_room = self._hidden_for_room, None
+            for dk in docks:
+                dk.show()
+            for dk in self._front_docks:  # the same tabs in front as before
+                dk.raise_()
+
     def showEvent(self, event) -> None:
         super().showEvent(event)
         if not self._docks_sized and self.settings.value("window/state") is None:
@@ -319,7 +427,10 @@ class MainWindow(QMainWindow):
 
     def _update_title(self, *_args) -> None:
         d = self.document
-        self.setWindowTitle(f"{d.title()}[*] — Loopwright")
+        if d.path:
+            self._copy_title = None
+        title = self._copy_title if (self._copy_title and not d.path) else d.title()
+        self.setWindowTitle(f"{title}[*] — Loopwright")
         self.setWindowModified(d.is_dirty)
 
     def _on_busy(self, busy: bool) -> None:
@@ -330,12 +441,13 @@ class MainWindow(QMainWindow):
         text = status_text(result)
         self._model_label.setText(text)
         self._model_label.setToolTip("\n".join(getattr(result.report, "warnings", ()) or ()) or text)
-        self.scene.set_problems(result.problems)
+        found, warnings = _problems_with_culprits(result, self.document.diagram)
+        self.scene.set_problems(found)
+        self.scene.set_design_states(_design_states(result, self.document.diagram))
         self.scene.set_widths(result.widths)
         self.inspector.set_live_widths(result.widths)
-        warnings = tuple(getattr(result.report, "warnings", ()) or ())
-        self.problems.set_problems(result.problems, warnings=warnings)
-        count = len(result.problems) + len(warnings)
+        self.problems.set_problems(found, warnings=warnings)
+        count = len(found) + len(warnings)
         self.problems_dock.setWindowTitle(f"Problems ({count})" if count else "Problems")
         self.live_updated.emit(result)
 
@@ -350,6 +462,8 @@ class MainWindow(QMainWindow):
         self.view.fit_to_view()
 
     def select_culprits(self, block_ids, wire_ids) -> None:
+        if not block_ids and not wire_ids:
+            return  # a warning about the whole loop keeps the selection as it is
         self.scene.select_ids(block_ids, wire_ids)
         items = [self.scene.block_items[b] for b in block_ids if b in self.scene.block_items]
         items += [self.scene.wire_items[w] for w in wire_ids if w in self.scene.wire_items]
@@ -371,6 +485,7 @@ class MainWindow(QMainWindow):
 
     def new_diagram(self) -> None:
         if self._confirm_discard():
+            self._copy_title = None
             self.document.replace_diagram(Diagram())
             self.autosaver.clear()
 
@@ -389,6 +504,7 @@ class MainWindow(QMainWindow):
             return False
         if not self._confirm_discard():
             return False
+        self._copy_title = None
         self.document.replace_diagram(diagram, path=None if as_untitled else str(Path(path).resolve()))
         self.autosaver.clear()
         if not as_untitled:
@@ -396,8 +512,13 @@ class MainWindow(QMainWindow):
         return True
 
     def open_sample(self, path: str) -> bool:
-        """Open a bundled sample as an untitled copy (saving asks where)."""
-        return self.open_path(path, as_untitled=True)
+        """Open a bundled sample as a copy under its own title (saving asks where)."""
+        if not self.open_path(path, as_untitled=True):
+            return False
+        self._copy_title = f"{_sample_title(Path(path))} (copy)"
+        self._copy_name = Path(path).name
+        self._update_title()
+        return True
 
     def _fill_recent(self) -> None:
         self.recent_menu.clear()
@@ -418,7 +539,8 @@ class MainWindow(QMainWindow):
         return self.save_to(self.document.path)
 
     def save_as(self) -> bool:
-        path = self.dialogs.save_path(self.document.path or f"untitled{FILE_SUFFIX}")
+        suggestion = self.document.path or (self._copy_name if self._copy_title else None) or f"untitled{FILE_SUFFIX}"
+        path = self.dialogs.save_path(suggestion)
         return self.save_to(path) if path else False
 
     def save_to(self, path: str) -> bool:
@@ -467,6 +589,11 @@ class MainWindow(QMainWindow):
         if not self._closing_ok and not self._confirm_discard():
             event.ignore()
             return
+        if self._hidden_for_room:
+            # The layout saved is the full one, not the one squeezed for a small window.
+            self.setUpdatesEnabled(False)
+            for dk in self._hidden_for_room:
+                dk.show()
         self.settings.setValue("window/state", self.saveState())
         self._autosave_timer.stop()
         # Do not wait for a check still running on the worker: its result is dropped.
@@ -529,8 +656,7 @@ class MainWindow(QMainWindow):
     # ---- editing ----------------------------------------------------------------------------------
     def _place_from_shelf(self, kind: str, params) -> None:
         centre = self.view.mapToScene(self.view.viewport().rect().center())
-        offset = 10.0 * (len(self.document.diagram.blocks) % 5)
-        self.scene.place_block(kind, QPointF(centre.x() + offset, centre.y() + offset), params)
+        self.scene.place_block(kind, self.scene.free_spot(kind, centre, params), params)
 
     def _push(self, command) -> bool:
         try:
@@ -571,7 +697,11 @@ class MainWindow(QMainWindow):
         if fragment is None or not fragment.blocks:
             self.statusBar().showMessage("The clipboard holds no blocks", 4000)
             return []
-        cmd = PasteFragment(self.document, fragment, offset=(40.0, 40.0))
+        # Beside what is there (the originals, an earlier paste), never on top of it.
+        from loopwright.gui.canvas.glyphs import body_rect
+
+        rects = [body_rect(b).translated(float(b.layout.get("x", 0.0)), float(b.layout.get("y", 0.0))) for b in fragment.blocks.values()]
+        cmd = PasteFragment(self.document, fragment, offset=self.scene.free_offset(rects, (40.0, 40.0)))
         if not self._push(cmd):
             return []
         self.scene.select_ids(cmd.block_ids)
@@ -647,6 +777,8 @@ class MainWindow(QMainWindow):
 
     # ---- theme, about ---------------------------------------------------------------------------
     def set_theme_choice(self, dark: bool | None) -> None:
+        if dark != self._theme_choice:
+            save_canvas_colours(self.settings, dark)
         self._theme_choice = dark
         self.theme = theme_from_palette(dark=dark)
         self.scene.set_theme(self.theme)

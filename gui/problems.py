@@ -29,6 +29,9 @@ class ProblemsList(QListWidget):
         self.setWordWrap(True)
         self.itemClicked.connect(self._on_clicked)
         self.itemActivated.connect(self._on_clicked)
+        # Activation is a single or a double click depending on the platform's style: a
+        # double click always selects the culprit.
+        self.itemDoubleClicked.connect(self._on_clicked)
 
     def set_problems(self, problems, *, warnings=()) -> None:
         """Errors first (each selects its culprits), then the check report's warnings."""

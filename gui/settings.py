@@ -11,7 +11,7 @@ from pathlib import Path
 
 from PySide6.QtCore import QSettings, QStandardPaths
 
-__all__ = ["Preferences", "load_preferences", "RecentFiles", "default_autosave_dir", "MAX_RECENT"]
+__all__ = ["Preferences", "load_preferences", "save_canvas_colours", "RecentFiles", "default_autosave_dir", "MAX_RECENT"]
 
 MAX_RECENT = 8
 
@@ -61,6 +61,12 @@ def load_preferences(settings: QSettings, **overrides) -> Preferences:
     values["dark"] = None if dark in ("", None) else str(dark).lower() in ("1", "true", "yes")
     values.update(overrides)
     return Preferences(**values)
+
+
+def save_canvas_colours(settings: QSettings, dark: bool | None) -> None:
+    """Remember the canvas colour choice (None: follow the system) for the next start."""
+    settings.setValue("canvas/dark", "" if dark is None else ("true" if dark else "false"))
+    settings.sync()
 
 
 class RecentFiles:

@@ -51,7 +51,7 @@ def _icon(kind: str, params: dict | None, theme, font: QFont) -> QIcon:
     w, h = block_size(blk)
     scale = min(0.6, (64.0 - 8.0) / (w + 2 * _PORT_ROOM), (40.0 - 4.0) / (h + 2 * _PORT_ROOM))
     p.scale(scale, scale)
-    if kind in ("source", "dynamic", "integrator"):
+    if kind in ("source", "integrator"):
         # These draw their name outside the body, where the icon would cut it off.
         blk.name = ""
     paint_block(p, blk, theme, selected=False, problem=False, highlighted=False, font=font)

@@ -8,12 +8,14 @@ the problem marking changes), which keeps panning a large diagram smooth.
 from __future__ import annotations
 
 from PySide6.QtCore import QPointF, QRectF, Qt
-from PySide6.QtGui import QFont, QPainterPath, QPen
+from PySide6.QtGui import QBrush, QFont, QPainterPath, QPen
 from PySide6.QtWidgets import QGraphicsItem
 
 from loopwright.engine.diagram import Block, PortRef
 from loopwright.gui.canvas.geometry import SOURCE_RADIUS, SUM_RADIUS, port_spots
-from loopwright.gui.canvas.glyphs import body_rect, caption_rect, is_performance_port, paint_block
+from loopwright.gui.canvas.glyphs import (
+    body_rect, caption_rect, design_state_text, is_performance_port, paint_block, paint_design_badge,
+)
 from loopwright.gui.canvas.port_item import PortItem
 from loopwright.gui.canvas.marking import Markable
 
@@ -33,6 +35,8 @@ class BlockItem(Markable, QGraphicsItem):
         self._font = font
         self._grid = grid
         self._init_marks()
+        self._design_state = ""
+        self._open_inputs: frozenset[str] = frozenset()
         self._syncing = False
         self.ports: dict[tuple[str, bool], PortItem] = {}
         self.setFlags(
@@ -88,8 +92,42 @@ class BlockItem(Markable, QGraphicsItem):
     def _refresh_tooltip(self) -> None:
         b = self._block
         tip = f"{b.kind} {b.name}" + (f" — {b.caption}" if b.caption else "")
+        if self._design_state:
+            tip += "\n" + design_state_text(b.name, self._design_state)
         tip += self._problem_lines()
         self.setToolTip(tip)
+
+    # ---- marks from the live model -------------------------------------------------------
+    @property
+    def design_state(self) -> str:
+        return self._design_state
+
+    def set_design_state(self, state: str) -> None:
+        """``"stale"``, ``"not designed yet"``, another reason the design cannot be vouched for, or ``""``."""
+        if state != self._design_state:
+            self._design_state = state
+            self._refresh_tooltip()
+            self.update()
+
+    @property
+    def open_inputs(self) -> frozenset[str]:
+        return self._open_inputs
+
+    def set_open_inputs(self, names) -> None:
+        """The input ports no wire feeds: drawn as small open rings, named on hover."""
+        names = frozenset(names)
+        if names != self._open_inputs:
+            self._open_inputs = names
+            for (name, is_input), port in self.ports.items():
+                if is_input:
+                    port.set_open(name in names)
+            self.update()
+
+    def design_badge_rect(self) -> QRectF:
+        """Where the design mark sits: on the body's top-right corner (item coordinates)."""
+        r = body_rect(self._block)
+        w = 44.0 if self._design_state == "stale" else 72.0
+        return QRectF(r.right() - w + 6, r.top() - 8, w, 14)
 
     # ---- geometry ----------------------------------------------------------------------
     def port(self, name: str, *, is_input: bool) -> PortItem | None:
@@ -126,8 +164,21 @@ class BlockItem(Markable, QGraphicsItem):
     def paint(self, painter, option, widget=None) -> None:
         paint_block(
             painter, self._block, self._theme,
-            selected=self.isSelected(), problem=bool(self._problems), highlighted=self._highlighted, font=self._font,
+            selected=self.isSelected(), problem=self.has_error, highlighted=self._highlighted, font=self._font,
         )
+        if self._problems and not self.has_error:
+            # A warning (the loop assembles): a dashed outline in the problem colour.
+            painter.setPen(QPen(self._theme.problem, 1.2, Qt.PenStyle.DashLine))
+            painter.setBrush(Qt.BrushStyle.NoBrush)
+            painter.drawRoundedRect(self.shape().boundingRect().adjusted(-3, -3, 3, 3), 5, 5)
+        if self._open_inputs:
+            painter.setPen(QPen(self._theme.port, 1.2))
+            painter.setBrush(QBrush(self._theme.background))
+            for spot in port_spots(self._block):
+                if spot.is_input and spot.name in self._open_inputs:
+                    painter.drawEllipse(QPointF(spot.x, spot.y), 3.2, 3.2)
+        if self._design_state:
+            paint_design_badge(painter, self.design_badge_rect(), self._design_state, self._theme, self._font)
         if self._block.caption:
             f = QFont(self._font)
             f.setPointSizeF(self._font.pointSizeF() * 0.85)

@@ -24,6 +24,8 @@ __all__ = [
     "route",
     "orthogonalize",
     "simplify",
+    "separate_segments",
+    "segments_overlap",
     "STUB",
     "SUM_RADIUS",
     "SOURCE_RADIUS",
@@ -228,3 +230,67 @@ def _route_parallel(a, b, da: float, db: float, *, detour: float | None, gap: fl
         return [a, (xe, a[1]), (xe, b[1]), b]
     lane = gap if gap is not None else (detour if detour is not None else max(a[1], b[1]) + 40.0)
     return [a, (a[0], lane), (b[0], lane), b]
+
+
+Segment = tuple[tuple[float, float], tuple[float, float]]
+
+
+def segments_overlap(a: Segment, b: Segment, *, tol: float = 1.0) -> bool:
+    """Whether two axis-parallel segments lie on one line and share more than a point."""
+    (ax0, ay0), (ax1, ay1) = a
+    (bx0, by0), (bx1, by1) = b
+    a_h, b_h = abs(ay0 - ay1) < 1e-9, abs(by0 - by1) < 1e-9
+    a_v, b_v = abs(ax0 - ax1) < 1e-9, abs(bx0 - bx1) < 1e-9
+    if a_h and b_h and abs(ay0 - by0) < tol:
+        lo, hi = max(min(ax0, ax1), min(bx0, bx1)), min(max(ax0, ax1), max(bx0, bx1))
+        return hi - lo > tol
+    if a_v and b_v and abs(ax0 - bx0) < tol:
+        lo, hi = max(min(ay0, ay1), min(by0, by1)), min(max(ay0, ay1), max(by0, by1))
+        return hi - lo > tol
+    return False
+
+
+def _ends_keep_direction(old: list, new: list) -> bool:
+    """The stubs at both ports still leave and enter the way they did (no spike at a port)."""
+    for (p0, p1), (q0, q1) in (((old[0], old[1]), (new[0], new[1])), ((old[-2], old[-1]), (new[-2], new[-1]))):
+        for i in (0, 1):
+            d_old, d_new = p1[i] - p0[i], q1[i] - q0[i]
+            if _sgn(d_old) != _sgn(d_new) or (abs(d_old) > 1e-9 and abs(d_new) < 4.0):
+                return False
+    return True
+
+
+def separate_segments(routes: list[list[tuple[float, float]]], taken: list[Segment], *, step: float = 10.0, tries: int = 6):
+    """Shift the inner segments of ``routes`` that would lie on a ``taken`` segment (another
+    wire's) sideways, by ``step`` at a time, so no two wires are drawn on top of each other.
+
+    The segments that end at a port stay put; a shifted segment drags the ends of its two
+    neighbours along, so the route stays orthogonal. A segment with no free lane within
+    ``tries`` steps either way is left where it was.
+    """
+    out = []
+    for pts in routes:
+        pts = [tuple(p) for p in pts]
+        for k in range(1, len(pts) - 2):
+            seg = (pts[k], pts[k + 1])
+            if not any(segments_overlap(seg, t) for t in taken):
+                continue
+            horizontal = abs(seg[0][1] - seg[1][1]) < 1e-9
+            for n in range(1, tries + 1):
+                done = False
+                for d in (n * step, -n * step):
+                    moved = list(pts)
+                    if horizontal:
+                        moved[k] = (pts[k][0], pts[k][1] + d)
+                        moved[k + 1] = (pts[k + 1][0], pts[k + 1][1] + d)
+                    else:
+                        moved[k] = (pts[k][0] + d, pts[k][1])
+                        moved[k + 1] = (pts[k + 1][0] + d, pts[k + 1][1])
+                    new_seg = (moved[k], moved[k + 1])
+                    if _ends_keep_direction(pts, moved) and not any(segments_overlap(new_seg, t) for t in taken):
+                        pts, done = moved, True
+                        break
+                if done:
+                    break
+        out.append(pts)
+    return out

@@ -5,45 +5,18 @@ drawn upright so a mirrored feedback block stays readable.
 """
 from __future__ import annotations
 
+import functools
+import json
+
+import numpy as np
 from PySide6.QtCore import QPointF, QRectF, Qt
-from PySide6.QtGui import QBrush, QFont, QFontMetricsF, QPainterPath, QPen, QTransform
+from PySide6.QtGui import QBrush, QColor, QFont, QFontMetricsF, QPainterPath, QPen, QTransform
 
 from loopwright.engine.diagram import Block
 from loopwright.gui.canvas.geometry import SOURCE_RADIUS, SUM_RADIUS, block_size, port_spots
 
-__all__ = ["symbol_text", "paint_block", "body_rect", "caption_rect", "format_poly", "is_performance_port"]
-
-
-def _fmt(v: float) -> str:
-    if float(v).is_integer() and abs(v) < 1e6:
-        return str(int(v))
-    return f"{v:.3g}"
-
-
-def format_poly(coeffs) -> str:
-    """``[1, 3, 2]`` -> ``s² + 3s + 2`` (short form for drawing only)."""
-    try:
-        cs = [float(c) for c in coeffs]
-    except (TypeError, ValueError):
-        return "?"
-    n = len(cs) - 1
-    sup = {2: "²", 3: "³", 4: "⁴", 5: "⁵", 6: "⁶", 7: "⁷", 8: "⁸", 9: "⁹"}
-    terms = []
-    for k, c in enumerate(cs):
-        p = n - k
-        if c == 0:
-            continue
-        mag = abs(c)
-        var = "" if p == 0 else ("s" if p == 1 else f"s{sup.get(p, '^' + str(p))}")
-        coef = _fmt(mag) if (mag != 1 or p == 0) else ""
-        sign = "-" if c < 0 else "+"
-        terms.append((sign, f"{coef}{var}"))
-    if not terms:
-        return "0"
-    text = ("-" if terms[0][0] == "-" else "") + terms[0][1]
-    for sign, t in terms[1:]:
-        text += f" {sign} {t}"
-    return text
+__all__ = ["symbol_text", "paint_block", "body_rect", "caption_rect", "paint_design_badge", "design_state_text",
+           "is_performance_port"]
 
 
 def symbol_text(block: Block) -> tuple[str, str | None]:
@@ -51,18 +24,7 @@ def symbol_text(block: Block) -> tuple[str, str | None]:
     p = block.params
     if block.kind == "integrator":
         return "1", "s"
-    if block.kind == "dynamic":
-        if "num" in p and "den" in p and _is_siso(p["num"]) and _is_siso(p["den"]):
-            num, den = format_poly(p["num"]), format_poly(p["den"])
-            if len(num) <= 16 and len(den) <= 16:
-                return num, den
-            return "tf", None
-        return "ss", None
     return block.name, None
-
-
-def _is_siso(v) -> bool:
-    return isinstance(v, (list, tuple)) and all(isinstance(c, (int, float)) for c in v)
 
 
 def body_rect(block: Block) -> QRectF:
@@ -150,6 +112,9 @@ def _paint_box(painter, block, theme, border, pen_w, font) -> None:
                          f"estimator of {link}" if link else "estimator")
         _paint_port_labels(painter, block, theme, f2)
         return
+    if block.kind == "dynamic":
+        _paint_dynamic(painter, block, theme, r, font)
+        return
     if len(port_spots(block)) > 2:
         # More than one input or output (a plant with a load input): name the ports.
         small = QFont(font)
@@ -180,12 +145,73 @@ def _paint_box(painter, block, theme, border, pen_w, font) -> None:
         painter.drawText(QRectF(r.left(), cy - fm.height() - 1, r.width(), fm.height()), Qt.AlignmentFlag.AlignCenter, main)
         painter.drawText(QRectF(r.left(), cy + 2, r.width(), fm.height()), Qt.AlignmentFlag.AlignCenter, den)
         painter.drawLine(QPointF(-bar / 2, cy + 0.5), QPointF(bar / 2, cy + 0.5))
-    if block.kind in ("dynamic", "integrator"):
+    if block.kind == "integrator":
         f = QFont(font)
         f.setPointSizeF(font.pointSizeF() * 0.85)
         painter.setFont(f)
         painter.setPen(QPen(theme.caption))
         painter.drawText(QRectF(r.left() - 40, r.top() - 18, r.width() + 80, 16), Qt.AlignmentFlag.AlignCenter, block.name)
+
+
+def _ordinal(n: int) -> str:
+    return f"{n}{'th' if 10 <= n % 100 <= 20 else {1: 'st', 2: 'nd', 3: 'rd'}.get(n % 10, 'th')}"
+
+
+@functools.lru_cache(maxsize=256)
+def _sketch_points(params_json: str) -> tuple[int, tuple[tuple[float, float], ...]] | None:
+    """(order, curve points in a unit box: x = log frequency, y = 0 at the top) from the engine."""
+    from loopwright.engine.block_sketch import block_sketch
+    from loopwright.engine.errors import EngineError
+
+    try:
+        sk = block_sketch(Block("sketch", "dynamic", "sketch", json.loads(params_json)))
+    except (EngineError, ValueError, TypeError):
+        return None
+    db = 20.0 * np.log10(np.clip(sk.magnitude, 1e-12, 1e12))
+    top = float(np.max(db[np.isfinite(db)])) if np.isfinite(db).any() else 0.0
+    # 60 dB below the peak fill the box; anything lower sits on its floor.
+    y = np.clip((top - db) / 60.0, 0.0, 1.0)
+    x = np.linspace(0.0, 1.0, y.size)
+    return sk.order, tuple(zip(x.tolist(), y.tolist()))
+
+
+def _paint_dynamic(painter, block, theme, r: QRectF, font: QFont) -> None:
+    """Our face for a dynamic block: its name over a thumbnail of its gain curve, with its order."""
+    try:
+        sketch = _sketch_points(json.dumps(block.params, sort_keys=True))
+    except (TypeError, ValueError):
+        sketch = None
+    f = QFont(font)
+    f.setBold(True)
+    fm = QFontMetricsF(f)
+    while fm.horizontalAdvance(block.name) > r.width() - 8 and f.pointSizeF() > 6:
+        f.setPointSizeF(f.pointSizeF() - 0.5)
+        fm = QFontMetricsF(f)
+    painter.setFont(f)
+    painter.setPen(QPen(theme.text))
+    painter.drawText(QRectF(r.left(), r.top() + 2, r.width(), fm.height() + 2), Qt.AlignmentFlag.AlignCenter, block.name)
+    box = QRectF(r.left() + 10, r.top() + fm.height() + 6, r.width() - 38, r.height() - fm.height() - 12)
+    small = QFont(font)
+    small.setPointSizeF(font.pointSizeF() * 0.75)
+    painter.setFont(small)
+    painter.setPen(QPen(theme.caption))
+    if sketch is None:
+        painter.drawText(box, Qt.AlignmentFlag.AlignCenter, "model?")
+        return
+    order, pts = sketch
+    painter.drawText(QRectF(box.right() + 2, box.top(), r.right() - box.right() - 4, box.height()),
+                     Qt.AlignmentFlag.AlignCenter, _ordinal(order) if order else "static")
+    # Axes: gain up, frequency along (log), the way a magnitude plot reads.
+    painter.setPen(QPen(theme.grid.darker(115) if not theme.dark else theme.grid.lighter(160), 1.0))
+    painter.drawLine(QPointF(box.left(), box.top()), QPointF(box.left(), box.bottom()))
+    painter.drawLine(QPointF(box.left(), box.bottom()), QPointF(box.right(), box.bottom()))
+    path = QPainterPath()
+    for k, (x, y) in enumerate(pts):
+        p = QPointF(box.left() + x * box.width(), box.top() + y * box.height())
+        path.moveTo(p) if k == 0 else path.lineTo(p)
+    painter.setPen(QPen(theme.wire, 1.6, Qt.PenStyle.SolidLine, Qt.PenCapStyle.RoundCap, Qt.PenJoinStyle.RoundJoin))
+    painter.setBrush(Qt.BrushStyle.NoBrush)
+    painter.drawPath(path)
 
 
 def _paint_port_labels(painter, block, theme, font) -> None:
@@ -287,3 +313,26 @@ def caption_rect(block: Block, caption_height: float = 16.0) -> QRectF:
     r = body_rect(block)
     return QRectF(r.left() - 40, r.bottom() + 3, r.width() + 80, caption_height)
 
+
+
+def design_state_text(name: str, state: str) -> str:
+    """The tooltip line of a design mark."""
+    if state == "stale":
+        return f"stale: the plant or recipe of {name} changed since it was designed; its matrix no longer follows the recipe"
+    if state == "not designed yet":
+        return f"not designed yet: the recipe of {name} has never been run; its matrix is a placeholder"
+    return f"design not vouched for: {state}"
+
+
+def paint_design_badge(painter, rect: QRectF, state: str, theme, font: QFont) -> None:
+    """A small tab on the block's corner saying its design cannot be vouched for."""
+    colour = QColor("#e0a100") if theme.dark else QColor("#a86b00")
+    painter.setPen(QPen(colour.darker(130), 1.0))
+    painter.setBrush(QBrush(colour))
+    painter.drawRoundedRect(rect, 4, 4)
+    f = QFont(font)
+    f.setPointSizeF(max(6.0, font.pointSizeF() * 0.75))
+    f.setBold(True)
+    painter.setFont(f)
+    painter.setPen(QPen(QColor("#ffffff") if not theme.dark else QColor("#1d2126")))
+    painter.drawText(rect, Qt.AlignmentFlag.AlignCenter, "stale" if state == "stale" else "not designed" if state == "not designed yet" else "check design")

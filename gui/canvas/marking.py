@@ -12,6 +12,7 @@ class Markable:
 
     def _init_marks(self) -> None:
         self._problems: list[str] = []
+        self._warnings_only = False
         self._highlighted = False
         self._tags: list = []
 
@@ -52,11 +53,18 @@ class Markable:
             t.setPos(x, y)
             x += t.width + 3
 
-    def set_problems(self, messages: list[str]) -> None:
-        if messages != self._problems:
+    def set_problems(self, messages: list[str], *, warnings_only: bool = False) -> None:
+        """Mark the item with ``messages``; ``warnings_only``: none of them keeps the loop
+        from assembling (drawn dashed instead of in the error colour)."""
+        if messages != self._problems or warnings_only != self._warnings_only:
             self._problems = list(messages)
+            self._warnings_only = warnings_only
             self._refresh_tooltip()
             self.update()
+
+    @property
+    def has_error(self) -> bool:
+        return bool(self._problems) and not self._warnings_only
 
     @property
     def problems(self) -> list[str]:

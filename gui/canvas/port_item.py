@@ -34,7 +34,23 @@ class PortItem(QGraphicsItem):
         # Idle ports draw nothing (the block paints its output dots in its cached pixmap),
         # so a large diagram does not pay one paint call per port on every frame.
         self.setFlag(QGraphicsItem.GraphicsItemFlag.ItemHasNoContents, True)
-        self.setToolTip(f"{'input' if is_input else 'output'} {ref.port}: drag to connect")
+        self._open = False
+        self._refresh_tip()
+
+    def _refresh_tip(self) -> None:
+        kind = "input" if self.is_input else "output"
+        state = " (not connected)" if self._open else ""
+        self.setToolTip(f"{kind} {self.ref.port}{state}: drag to connect")
+
+    @property
+    def is_open(self) -> bool:
+        """An input no wire feeds."""
+        return self._open
+
+    def set_open(self, is_open: bool) -> None:
+        if is_open != self._open:
+            self._open = is_open
+            self._refresh_tip()
 
     def type(self) -> int:
         return self.Type
@@ -45,6 +61,11 @@ class PortItem(QGraphicsItem):
 
     def set_target_state(self, state: int) -> None:
         if state != self._target_state:
+            # Invalidate the ring's area before the item stops drawing: with no contents
+            # Qt no longer repaints it, and the ring of an aborted wire would stay behind.
+            self.update()
+            if self.scene() is not None:
+                self.scene().update(self.sceneBoundingRect())
             self._target_state = state
             self.setFlag(QGraphicsItem.GraphicsItemFlag.ItemHasNoContents, state == 0)
             self.update()

@@ -18,6 +18,7 @@ from PySide6.QtWidgets import QGraphicsPathItem, QGraphicsScene
 from loopwright.engine.diagram import PortRef
 from loopwright.engine.errors import EngineError
 from loopwright.gui.canvas.block_item import BlockItem
+from loopwright.gui.canvas.geometry import separate_segments
 from loopwright.gui.canvas.port_item import PortItem
 from loopwright.gui.canvas.wire_item import WireItem
 from loopwright.gui.commands import AddBlock, Connect, Disconnect, MoveBlocks, SetWireLayout
@@ -54,6 +55,8 @@ class DiagramScene(QGraphicsScene):
         self._link: dict | None = None
         self._pending_branch: tuple[str, QPointF] | None = None
         self._widths: dict[str, int] = {}
+        self._segments: dict[str, list] = {}  # wire id -> its drawn segments (lanes taken)
+        self._label_rects: dict[str, QRectF] = {}  # wire id -> where its name is written
         self._rect_pending = False
         self.setItemIndexMethod(QGraphicsScene.ItemIndexMethod.BspTreeIndex)
         self.setBackgroundBrush(theme.background)
@@ -77,6 +80,8 @@ class DiagramScene(QGraphicsScene):
         self._link = None
         self._pending_branch = None
         self.clear()
+        self._segments.clear()
+        self._label_rects.clear()
         self.block_items.clear()
         self.wire_items.clear()
         self._wires_of.clear()
@@ -85,6 +90,7 @@ class DiagramScene(QGraphicsScene):
             self._add_block_item(bid)
         for wid in self.document.diagram.wires:
             self._add_wire_item(wid)
+        self._mark_open_inputs()
         self._refit_scene_rect()
 
     def _add_block_item(self, bid: str) -> BlockItem:
@@ -93,6 +99,15 @@ class DiagramScene(QGraphicsScene):
         self._wires_of.setdefault(bid, set())
         self.addItem(item)
         return item
+
+    def _mark_open_inputs(self, block_ids=None) -> None:
+        """Tell blocks which of their inputs no wire feeds (all blocks when None)."""
+        d = self.document.diagram
+        fed = {(t.block, t.port) for w in d.wires.values() for t in w.targets}
+        for bid in (self.block_items if block_ids is None else block_ids):
+            item = self.block_items.get(bid)
+            if item is not None:
+                item.set_open_inputs(p.ref.port for (name, is_in), p in item.ports.items() if is_in and (bid, name) not in fed)
 
     def _add_wire_item(self, wid: str) -> WireItem:
         item = WireItem(wid, self, self.theme, font=self.font_)
@@ -119,6 +134,7 @@ class DiagramScene(QGraphicsScene):
 
     def _on_block_added(self, bid: str) -> None:
         self._add_block_item(bid)
+        self._mark_open_inputs([bid])
         self._fit_scene_rect()
 
     def _on_block_removed(self, bid: str) -> None:
@@ -133,18 +149,23 @@ class DiagramScene(QGraphicsScene):
         if item is None:
             return
         item.sync(self.document.diagram.blocks[bid])
+        self._mark_open_inputs([bid])
         self._reroute_block(bid)
         self._fit_scene_rect()
 
     def _on_wire_added(self, wid: str) -> None:
         self._add_wire_item(wid)
+        self._mark_open_inputs()
 
     def _on_wire_removed(self, wid: str) -> None:
+        self._segments.pop(wid, None)
+        self._label_rects.pop(wid, None)
         item = self.wire_items.pop(wid, None)
         self._unindex_wire(wid)
         if item is not None:
             item._drop_tags()
             self.removeItem(item)
+        self._mark_open_inputs()
 
     def _on_wire_changed(self, wid: str) -> None:
         item = self.wire_items.get(wid)
@@ -152,12 +173,37 @@ class DiagramScene(QGraphicsScene):
             return
         self._index_wire(wid)
         item.recompute()
+        self._mark_open_inputs()
 
     def _reroute_block(self, bid: str) -> None:
         for wid in self._wires_of.get(bid, ()):
             item = self.wire_items.get(wid)
             if item is not None:
                 item.recompute()
+
+    def claim_lanes(self, wire_id: str, routes: list) -> list:
+        """``routes`` of ``wire_id`` with inner segments moved off other wires' segments;
+        the result is recorded as that wire's lanes."""
+        taken = [seg for wid, segs in self._segments.items() if wid != wire_id for seg in segs]
+        routes = separate_segments(routes, taken) if taken else routes
+        self._segments[wire_id] = [(a, b) for pts in routes for a, b in zip(pts, pts[1:])]
+        return routes
+
+    def claim_label(self, wire_id: str, candidates: list[QRectF]) -> QRectF:
+        """The first of ``candidates`` that overlaps no other wire's name and no block,
+        recorded as where ``wire_id``'s name goes (the first one if none is free)."""
+        others = [r for wid, r in self._label_rects.items() if wid != wire_id and not r.isNull()]
+        bodies = [it.body_scene_rect() for it in self.block_items.values()]
+        # Other wires' lines too: a name written across another wire reads as its label.
+        bodies += [QRectF(QPointF(min(a[0], b[0]), min(a[1], b[1])), QPointF(max(a[0], b[0]), max(a[1], b[1]))).adjusted(-1, -1, 1, 1)
+                   for wid, segs in self._segments.items() if wid != wire_id for a, b in segs]
+        chosen = candidates[0] if candidates else QRectF()
+        for r in candidates:
+            if not any(r.intersects(o) for o in others) and not any(r.intersects(b) for b in bodies):
+                chosen = r
+                break
+        self._label_rects[wire_id] = chosen
+        return chosen
 
     def block_item_moved(self, item: BlockItem) -> None:
         """Called by a block item while it is dragged: its wires follow at once."""
@@ -181,15 +227,27 @@ class DiagramScene(QGraphicsScene):
         """Mark the culprits of ``problems`` (objects with message, block_ids, wire_ids)."""
         by_block: dict[str, list[str]] = {}
         by_wire: dict[str, list[str]] = {}
+        errors: set[str] = set()
         for p in problems:
+            is_error = getattr(p, "severity", "error") == "error"
             for b in getattr(p, "block_ids", ()) or ():
                 by_block.setdefault(b, []).append(p.message)
+                if is_error:
+                    errors.add(b)
             for w in getattr(p, "wire_ids", ()) or ():
                 by_wire.setdefault(w, []).append(p.message)
+                if is_error:
+                    errors.add(w)
         for bid, item in self.block_items.items():
-            item.set_problems(by_block.get(bid, []))
+            item.set_problems(by_block.get(bid, []), warnings_only=bid not in errors)
         for wid, item in self.wire_items.items():
-            item.set_problems(by_wire.get(wid, []))
+            item.set_problems(by_wire.get(wid, []), warnings_only=wid not in errors)
+
+    def set_design_states(self, states: dict[str, str]) -> None:
+        """Mark designed blocks whose matrix cannot be vouched for, ``{block id: state}``
+        (``"stale"``, ``"not designed yet"``, ...); other blocks lose their mark."""
+        for bid, item in self.block_items.items():
+            item.set_design_state(states.get(bid, ""))
 
     def set_widths(self, widths: dict[str, int]) -> None:
         """Signal widths by wire id (vectors are drawn heavier, with their width)."""
@@ -243,6 +301,34 @@ class DiagramScene(QGraphicsScene):
             self.edit_refused.emit(str(err))
             return False
         return True
+
+    def free_offset(self, rects: list[QRectF], start: tuple[float, float] = (0.0, 0.0), *, margin: float = 16.0,
+                    avoid_wires: bool = True) -> tuple[float, float]:
+        """The first shift, from ``start`` rightwards then row by row, that puts ``rects``
+        (scene rectangles of new blocks) clear of every block on the canvas, so nothing new
+        lands on top of what is there."""
+        bodies = [it.body_scene_rect().adjusted(-margin, -margin, margin, margin) for it in self.block_items.values()]
+        if avoid_wires:
+            # A block on a wire would hide it: the wires' segments count as taken too.
+            bodies += [QRectF(QPointF(min(a[0], b[0]), min(a[1], b[1])), QPointF(max(a[0], b[0]), max(a[1], b[1]))).adjusted(-4, -4, 4, 4)
+                       for segs in self._segments.values() for a, b in segs]
+        step = max(self.grid_size, 1.0) * 4
+        for row in range(40):
+            for col in range(40):
+                dx, dy = start[0] + col * step, start[1] + row * step
+                moved = [r.translated(dx, dy) for r in rects]
+                if not any(m.intersects(b) for m in moved for b in bodies):
+                    return dx, dy
+        return start
+
+    def free_spot(self, kind: str, pos: QPointF, params: dict | None = None) -> QPointF:
+        """Where a new ``kind`` block near ``pos`` sits clear of the others (beside them)."""
+        from loopwright.engine.diagram import Block, default_params
+        from loopwright.gui.canvas.glyphs import body_rect
+
+        probe = Block("probe", kind, "probe", params or default_params(kind), {"x": 0, "y": 0, "rotation": 0, "flip": False})
+        dx, dy = self.free_offset([body_rect(probe).translated(pos)])
+        return QPointF(pos.x() + dx, pos.y() + dy)
 
     def place_block(self, kind: str, pos: QPointF, params: dict | None = None) -> str | None:
         g = self.grid_size or 1.0
@@ -428,7 +514,8 @@ class DiagramScene(QGraphicsScene):
             super().dropEvent(event)
             return
         spec = json.loads(bytes(md.data(BLOCK_MIME)).decode("utf-8"))
-        self.place_block(spec["kind"], event.scenePos(), spec.get("params"))
+        # Dropped onto a wire or another block: it lands beside, so nothing is hidden.
+        self.place_block(spec["kind"], self.free_spot(spec["kind"], event.scenePos(), spec.get("params")), spec.get("params"))
         event.acceptProposedAction()
 
     # ---- grid ------------------------------------------------------------------------------------

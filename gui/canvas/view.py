@@ -50,6 +50,16 @@ class DiagramView(QGraphicsView):
         # Set by the window: ``provider(kind, id, branch_target) -> [(text, slot), ...]``, the
         # analysis picks ("look here", ...) offered in a block's or wire's menu.
         self.pick_provider = None
+        # The empty-canvas hint is drawn in the foreground, which item updates do not
+        # repaint: the whole viewport is redrawn when the first block comes or the last goes.
+        doc = scene.document
+        doc.block_added.connect(self._on_block_count_changed)
+        doc.block_removed.connect(self._on_block_count_changed)
+        doc.diagram_replaced.connect(self._on_block_count_changed)
+        self.setFocusPolicy(Qt.FocusPolicy.StrongFocus)
+
+    def _on_block_count_changed(self, *_args) -> None:
+        self.viewport().update()
 
     # ---- zoom and pan ----------------------------------------------------------------------
     def scale_factor(self) -> float:
@@ -127,6 +137,10 @@ class DiagramView(QGraphicsView):
         super().keyReleaseEvent(event)
 
     def mousePressEvent(self, event) -> None:
+        # A click on the canvas takes the keyboard from the inspector: Ctrl+Z then undoes
+        # the last diagram change instead of the text in the field edited last.
+        if not self.hasFocus() and self._editor is None:
+            self.setFocus(Qt.FocusReason.MouseFocusReason)
         if event.button() == Qt.MouseButton.MiddleButton:
             self._pan_from = event.position()
             self.viewport().setCursor(Qt.CursorShape.ClosedHandCursor)

@@ -111,6 +111,8 @@ class WireItem(Markable, QGraphicsItem):
                 gap = (rd.bottom() + rs.top()) / 2.0
             routes.append(route((p.x(), p.y()), dp, (q.x(), q.y()), dq, bends=bends.get(str(j)), detour_y=lane, gap_y=gap,
                                 early_turn=len(wire.targets) > 1))
+        if hasattr(sc, "claim_lanes"):
+            routes = sc.claim_lanes(self.wire_id, routes)
         self.prepareGeometryChange()
         self.routes = routes
         self._rebuild_shape()
@@ -139,15 +141,9 @@ class WireItem(Markable, QGraphicsItem):
         fm = QFontMetricsF(self._font)
         self._label_rect = QRectF()
         if self.routes:
-            pts = self.routes[0]
-            seg = _label_segment(pts)
-            (x0, y0), (x1, y1) = pts[seg], pts[seg + 1]
-            w = fm.horizontalAdvance(self._label) + 6
-            mx, my = (x0 + x1) / 2, (y0 + y1) / 2
-            if abs(y0 - y1) < 1e-9:
-                self._label_rect = QRectF(mx - w / 2, my - fm.height() - 3, w, fm.height())
-            else:
-                self._label_rect = QRectF(mx + 5, my - fm.height() / 2, w, fm.height())
+            candidates = _label_candidates(self.routes[0], fm.horizontalAdvance(self._label) + 6, fm.height())
+            claim = getattr(self._scene_ref, "claim_label", None)
+            self._label_rect = claim(self.wire_id, candidates) if claim is not None else candidates[0]
             shape.addRect(self._label_rect)
         self._shape = shape
         # Room for arrowheads, branch dots and the width number beside a vector's slash.
@@ -165,7 +161,9 @@ class WireItem(Markable, QGraphicsItem):
         colour = t.problem if self._problems else (t.selection if self.isSelected() else (t.highlight if self._highlighted else t.wire))
         vector = bool(self._width and self._width > 1)
         painter.setRenderHint(painter.RenderHint.Antialiasing, True)
-        painter.setPen(QPen(colour, 3.2 if vector else 1.5, Qt.PenStyle.SolidLine, Qt.PenCapStyle.FlatCap, Qt.PenJoinStyle.MiterJoin))
+        # A warning (the loop still assembles) is dashed; an error solid.
+        style = Qt.PenStyle.DashLine if self._problems and not self.has_error else Qt.PenStyle.SolidLine
+        painter.setPen(QPen(colour, 3.2 if vector else 1.5, style, Qt.PenCapStyle.FlatCap, Qt.PenJoinStyle.MiterJoin))
         painter.setBrush(Qt.BrushStyle.NoBrush)
         painter.drawPath(self._path)
         painter.setPen(Qt.PenStyle.NoPen)
@@ -303,6 +301,30 @@ def _label_segment(pts) -> int:
         if length > best_len:
             best, best_len = k, length
     return best
+
+
+def _label_candidates(pts, w: float, h: float) -> list[QRectF]:
+    """Places for the signal name along a route, best first: above the middle of the
+    segment :func:`_label_segment` picks, then along it, below it, then on the other segments."""
+    first = _label_segment(pts)
+    order = [first] + sorted((k for k in range(len(pts) - 1) if k != first),
+                             key=lambda k: -(abs(pts[k + 1][0] - pts[k][0]) + abs(pts[k + 1][1] - pts[k][1])))
+    out = []
+    for k in order:
+        (x0, y0), (x1, y1) = pts[k], pts[k + 1]
+        if abs(y0 - y1) < 1e-9:
+            left, right = min(x0, x1), max(x0, x1)
+            for f in (0.5, 0.25, 0.75):
+                mx = left + (right - left) * f
+                out.append(QRectF(mx - w / 2, y0 - h - 3, w, h))
+            out.append(QRectF((left + right) / 2 - w / 2, y0 + 3, w, h))
+        else:
+            top, bottom = min(y0, y1), max(y0, y1)
+            for f in (0.5, 0.25, 0.75):
+                my = top + (bottom - top) * f
+                out.append(QRectF(x0 + 5, my - h / 2, w, h))
+                out.append(QRectF(x0 - 5 - w, my - h / 2, w, h))
+    return out
 
 
 def _branch_points(routes) -> list[tuple[float, float]]:
