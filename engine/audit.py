@@ -34,12 +34,22 @@ import networkx as nx
 import numpy as np
 import scipy.linalg as sla
 
+from loopwright.engine.errors import EngineError
 from loopwright.engine.norms import dc_gain, h2_norm, lyapunov_from_schur, sigma_max
 from loopwright.engine.responses import ReducedModel, auto_frequency_grid, reduce_model, reduced_response
 
-__all__ = ["AuditRow", "path_audit", "path_between", "RANKING_RULE"]
+__all__ = ["AuditRow", "AuditCancelled", "path_audit", "path_between", "RANKING_RULE"]
 
 RANKING_RULE = "unstable paths first, then peak gain (largest first), then H2 norm, then names"
+
+# Frequencies evaluated between two progress reports: about this many multiply-adds each,
+# so a report comes every few tens of milliseconds even on a large loop.
+_WORK_PER_REPORT = 40_000_000
+
+
+class AuditCancelled(EngineError, RuntimeError):
+    """Raised by a ``progress`` callable to stop an audit; :func:`path_audit` lets it through."""
+
 
 # A mode counts as reached/seen when its normalised coupling exceeds this.
 _COUPLING_TOL = 1e-8
@@ -250,6 +260,18 @@ def _refine_peaks(red, Bt, Ct_all, Dg, grid, Y, sig_items, passes: int) -> dict:
     return best
 
 
+def _grid_response(red, Bt, Ct_all, Dg, grid, report) -> np.ndarray:
+    """The (k, p, m) response on ``grid``, in slices with ``report(fraction)`` between them."""
+    n, m, p = red.n, Bt.shape[1], Ct_all.shape[0]
+    chunk = max(8, int(_WORK_PER_REPORT // max(1, n * n * m + p * n * m)))
+    parts = []
+    for a in range(0, grid.size, chunk):
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            parts.append(reduced_response(red, Bt, Ct_all, Dg, 1j * grid[a : a + chunk]))
+        report(min(1.0, (a + chunk) / grid.size))
+    return np.concatenate(parts) if parts else np.zeros((0, p, m), dtype=complex)
+
+
 def _solve_for(red, Bt, w_rad_s):
     from loopwright.engine.responses import _shifted_solve
 
@@ -263,6 +285,7 @@ def path_audit(
     reduced: ReducedModel | None = None,
     points_per_decade: int = 40,
     refine_passes: int = 8,
+    progress=None,
 ) -> list[AuditRow]:
     """Rank every (source, signal) path of the assembled model (see the module docstring
     for the rule).
@@ -278,6 +301,11 @@ def path_audit(
         Density of the base frequency grid (resonances get extra points regardless).
     refine_passes : int
         Joint refinement passes around each pair's peak.
+    progress : callable, optional
+        ``progress(fraction)`` is called with the fraction done (0 to 1) every few tens of
+        milliseconds. It may raise (e.g. :class:`AuditCancelled`) to stop the audit: the
+        exception propagates and no rows are returned. This is how a window stops a long
+        audit without waiting for it.
 
     Returns
     -------
@@ -302,13 +330,14 @@ def path_audit(
     reach_cache: dict = {}
     rows: list[AuditRow] = []
     sig_items = list(model.signals.items())
-    for grp in groups:
+    report = progress if progress is not None else (lambda _fraction: None)
+    for gi, grp in enumerate(groups):
+        report(gi / max(1, len(groups)))
         cols = model.inputs[grp]
         Bg = B[:, cols]
         Dg = D[:, cols]
         Bt = red.input_matrix(Bg) if n else np.zeros((0, Bg.shape[1]), dtype=complex)
-        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-            Y = reduced_response(red, Bt, Ct_all, Dg, 1j * grid)  # (k, p, m)
+        Y = _grid_response(red, Bt, Ct_all, Dg, grid, lambda f, gi=gi: report((gi + 0.8 * f) / max(1, len(groups))))  # (k, p, m)
         # per-mode couplings
         reach = []
         for v, u in vecs:
@@ -319,7 +348,9 @@ def path_audit(
             S = red.scale
             Bw = Bg / S[:, None]
             X = lyapunov_from_schur(red.T_real, red.Z_real, Bw @ Bw.T)
+        report((gi + 0.8) / max(1, len(groups)))
         best = _refine_peaks(red, Bt, Ct_all, Dg, grid, Y, sig_items, refine_passes if n else 0)
+        report((gi + 0.9) / max(1, len(groups)))
         finite_y = np.abs(Y[np.isfinite(Y)])
         scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
         for sig, sl in sig_items:
@@ -369,6 +400,7 @@ def path_audit(
             names_b = [model.diagram.blocks[b].name for b in bids]
             names_w = [model.diagram.wires[w].name for w in wids]
             rows.append(AuditRow(grp, sig, peak, wpk, h2, dc, not unstable, names_b, names_w, bids, wids, note=note))
+    report(1.0)
     rows.sort(key=lambda r: (r.stable, -r.peak_gain if np.isfinite(r.peak_gain) else -np.inf, -r.h2 if np.isfinite(r.h2) else -np.inf, r.source, r.signal))
     for i, r in enumerate(rows, 1):
         r.rank = i

@@ -19,6 +19,7 @@ from loopwright.engine.errors import AnalysisError, EngineError, ParameterError
 __all__ = [
     "PairResponse",
     "pair_frequency_response",
+    "drawing_frequency_grid",
     "frequency_views",
     "singular_values",
     "singular_value_views",
@@ -89,7 +90,15 @@ class PairResponse:
 
 
 def pair_frequency_response(
-    model, source: str, signal: str, *, w_min: float | None = None, w_max: float | None = None, points: int | None = None
+    model,
+    source: str,
+    signal: str,
+    *,
+    w_min: float | None = None,
+    w_max: float | None = None,
+    points: int | None = None,
+    drawing: bool = False,
+    reduced=None,
 ) -> PairResponse:
     """Frequency response of the path ``source -> signal`` of an assembled model.
 
@@ -105,6 +114,11 @@ def pair_frequency_response(
     points : int, optional
         A plain log-spaced grid of this many points; without it the grid is automatic
         (dense at lightly damped poles) and refined at the response's peaks.
+    drawing : bool
+        Use :func:`drawing_frequency_grid` (fewer points per resonance: what the app draws)
+        instead of the command line's automatic grid.
+    reduced : ReducedModel, optional
+        A reduction of ``model.A`` to reuse (every pair of one model shares it).
 
     Raises
     ------
@@ -113,8 +127,7 @@ def pair_frequency_response(
     ParameterError
         A bad span or point count.
     """
-    from loopwright.engine.norms import sigma_max
-    from loopwright.engine.responses import auto_frequency_grid, reduce_model, reduced_response, refine_grid_at_peaks
+    from loopwright.engine.responses import auto_frequency_grid, reduce_model, reduced_response
 
     grp = model.resolve_input(source)
     sig = model.resolve_signal(signal)
@@ -126,7 +139,7 @@ def pair_frequency_response(
     if w_min is not None and w_max is not None and not w_max > w_min:
         raise ParameterError(f"--w-max ({w_max}) must exceed --w-min ({w_min})", field="--w-max")
     A, B, C, D = model.pair(grp, sig)
-    red = reduce_model(A)
+    red = reduce_model(A) if reduced is None else reduced
     Bt, Ct = red.input_matrix(B), red.output_matrix(C)
 
     def evaluate(w):
@@ -140,15 +153,100 @@ def pair_frequency_response(
         if not hi > lo:
             raise ParameterError(f"--w-max ({hi}) must exceed --w-min ({lo})", field="--w-max")
         w = np.logspace(np.log10(lo), np.log10(hi), points)
+        G = evaluate(w)
+    elif drawing:
+        # a plot shows no more than this: fewer points per resonance, fewer peaks refined
+        w = drawing_frequency_grid(red.poles, w_min=w_min, w_max=w_max)
+        w, G = _refine_at_main_peaks(evaluate, w, evaluate(w), points=5, most=12)
     else:
         w = auto_frequency_grid(red.poles, w_min=w_min, w_max=w_max)
-        w, _ = refine_grid_at_peaks(lambda x: sigma_max(evaluate(x)), w, sigma_max(evaluate(w)))
-    G = evaluate(w)
+        w, G = _refine_at_main_peaks(evaluate, w, evaluate(w))
     cols, rows = model.input_slice(grp), model.signal_slice(sig)
     return PairResponse(grp, sig, w, G, list(model.input_names[cols]), list(model.output_names[rows]))
 
 
-def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float | None = None) -> list:
+#: Peaks lower than this fraction of the highest are drawn on the grid as they fall.
+_PEAK_FLOOR = 1e-3
+#: At most this many peaks are refined in a pass (the highest).
+_MAX_REFINED_PEAKS = 40
+
+
+def _refine_at_main_peaks(evaluate, w: np.ndarray, G: np.ndarray, *, passes: int = 4, points: int = 9,
+                          most: int = _MAX_REFINED_PEAKS) -> tuple[np.ndarray, np.ndarray]:
+    """The grid ``w`` and response ``G`` (k, p, m) with points added around the highest peaks.
+
+    A peak is a sample of the largest singular value higher than both neighbours by more
+    than rounding (a flat stretch, or rounding ripple far down a roll-off, is no peak) and
+    within :data:`_PEAK_FLOOR` of the highest sample; the ``most`` highest are refined.
+    Each pass puts ``points`` frequencies between the neighbours of every such peak and
+    evaluates them all in one call of ``evaluate(w) -> G``. Refining every local maximum
+    instead lets rounding ripple multiply the grid on large loops (tens of thousands of
+    points) and adds nothing a plot or the marked peak can show.
+    """
+    from loopwright.engine.norms import sigma_max
+
+    w = np.asarray(w, dtype=float)
+    g = sigma_max(G)
+    for _ in range(passes):
+        gi = np.where(np.isfinite(g), g, -np.inf)
+        if w.size < 3 or not np.isfinite(gi.max()):
+            break
+        mid = gi[1:-1]
+        strict = (mid > gi[:-2] * (1 + 1e-9)) & (mid > gi[2:] * (1 + 1e-9)) & (mid >= _PEAK_FLOOR * gi.max())
+        peaks = np.nonzero(strict)[0] + 1
+        if peaks.size == 0:
+            break
+        peaks = peaks[np.argsort(-gi[peaks])][:most]
+        new = np.unique(np.concatenate([np.linspace(w[i - 1], w[i + 1], points + 2)[1:-1] for i in peaks]))
+        # drop points that coincide with samples already taken, up to rounding: they would
+        # be their own neighbours in the next pass
+        pos = np.clip(np.searchsorted(w, new), 1, w.size - 1)
+        gap = np.minimum(np.abs(new - w[pos - 1]), np.abs(new - w[pos]))
+        new = new[gap > 1e-12 * new]
+        if new.size == 0:
+            break
+        Gn = evaluate(new)
+        w = np.concatenate([w, new])
+        G = np.concatenate([G, Gn])
+        g = np.concatenate([g, sigma_max(Gn)])
+        order = np.argsort(w, kind="stable")
+        w, G, g = w[order], G[order], g[order]
+    return w, G
+
+
+#: Points across each lightly damped resonance on the drawing grid, in half-widths from its peak.
+_DRAWING_OFFSETS = np.array([-4.0, -2.0, -1.0, -0.5, 0.0, 0.5, 1.0, 2.0, 4.0])
+
+
+def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | None = None, points_per_decade: int = 80) -> np.ndarray:
+    """A frequency grid (rad/s) for drawing a response: log-spaced over the span of
+    :func:`responses.auto_frequency_grid`, plus nine points across each lightly damped
+    resonance (damping ratio below 0.5) from four half-widths below to four above.
+
+    The automatic grid of the command line puts 65 points on every resonance, which a
+    large loop multiplies into thousands of frequencies; a plot a thousand pixels wide
+    shows no more with them. The highest peaks are refined afterwards anyway.
+    """
+    from loopwright.engine.responses import auto_frequency_grid
+
+    span = auto_frequency_grid(poles, w_min=w_min, w_max=w_max, points_per_decade=4)
+    lo, hi = float(span[0]), float(span[-1])
+    parts = [np.logspace(np.log10(lo), np.log10(hi), max(10, int(np.ceil(np.log10(hi / lo) * points_per_decade)) + 1))]
+    roots = np.asarray(poles, dtype=complex)
+    roots = roots[np.isfinite(roots) & (roots.imag >= 0)]
+    wn = np.abs(roots)
+    keep = (wn > 0) & (wn >= lo) & (wn <= hi)
+    zeta = np.where(keep, -roots.real / np.where(wn > 0, wn, 1.0), 1.0)
+    light = keep & (np.abs(zeta) < 0.5)
+    if np.any(light):
+        half = np.maximum(np.abs(zeta[light]), 1e-9) * wn[light]
+        parts.append((np.abs(roots.imag[light])[:, None] + half[:, None] * _DRAWING_OFFSETS[None, :]).ravel())
+    w = np.concatenate(parts)
+    w = np.unique(w[(w >= lo) & (w <= hi) & (w > 0)])
+    return w[np.concatenate([[True], np.diff(w) > 1e-12 * w[1:]])] if w.size else w
+
+
+def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float | None = None, drawing: bool = False) -> list:
     """One :class:`PairResponse` per pair, or the engine's message (a str) for a pair that
     cannot be computed; the diagram is assembled once.
 
@@ -164,11 +262,14 @@ def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float 
     """
     from loopwright.engine.interconnect import assemble
 
+    from loopwright.engine.responses import reduce_model
+
     model = assemble(diagram)
+    red = reduce_model(model.A) if pairs else None  # one reduction for every pair
     out = []
     for src, sig in pairs:
         try:
-            out.append(pair_frequency_response(model, src, sig, w_min=w_min, w_max=w_max))
+            out.append(pair_frequency_response(model, src, sig, w_min=w_min, w_max=w_max, drawing=drawing, reduced=red))
         except EngineError as err:
             out.append(str(err))
     return out
@@ -184,11 +285,11 @@ def singular_values(response: np.ndarray) -> np.ndarray:
     return s
 
 
-def singular_value_views(diagram, pairs) -> list:
+def singular_value_views(diagram, pairs, *, drawing: bool = False) -> list:
     """Per pair: ``(w_rad_s (k,), sigma_db (k, r))``, the singular values in dB largest
     first, or the engine's message (a str) for a pair that cannot be computed."""
     out = []
-    for resp in frequency_views(diagram, pairs):
+    for resp in frequency_views(diagram, pairs, drawing=drawing):
         if isinstance(resp, str):
             out.append(resp)
             continue

@@ -74,7 +74,7 @@ class FrequencyPanel(PlotPanel):
         shown = self.shown_pairs()
         if not shown:
             return None
-        return frequency_views, (diagram, shown), {}
+        return frequency_views, (diagram, shown), {"drawing": True}
 
     def set_audit_pair(self, pair: tuple[str, str] | None) -> None:
         if pair != self.audit_pair:

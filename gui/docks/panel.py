@@ -78,13 +78,15 @@ class PlotPanel(QWidget):
         self.waiting = QWidget()
         row = QHBoxLayout(self.waiting)
         row.setContentsMargins(0, 0, 0, 0)
-        bar = QProgressBar()
-        bar.setRange(0, 0)  # busy: the engine gives no fraction done
-        bar.setMaximumHeight(12)
-        bar.setMinimumWidth(30)
-        bar.setTextVisible(False)
-        row.addWidget(QLabel("computing…"))
-        row.addWidget(bar, 1)
+        self.progress = QProgressBar()
+        self.progress.setObjectName(f"{self.key}_progress")
+        self.progress.setRange(0, 0)  # busy, until the engine reports a fraction done
+        self.progress.setMaximumHeight(12)
+        self.progress.setMinimumWidth(30)
+        self.progress.setTextVisible(False)
+        self.waiting_label = QLabel("computing…")
+        row.addWidget(self.waiting_label)
+        row.addWidget(self.progress, 1)
         self.stop_button = QPushButton("Stop")
         self.stop_button.setObjectName(f"{self.key}_stop")
         self.stop_button.clicked.connect(self.stop_requested.emit)
@@ -119,7 +121,20 @@ class PlotPanel(QWidget):
 
     def set_waiting(self, on: bool) -> None:
         """Show (after half a second of waiting) or hide the busy line with its Stop button."""
+        if not on:
+            self.progress.setRange(0, 0)
+            self.waiting_label.setText("computing…")
         self.waiting.setVisible(on)
+
+    def set_progress(self, fraction: float) -> None:
+        """Show the fraction done of the running computation (0 to 1)."""
+        self.progress.setRange(0, 1000)
+        self.progress.setValue(int(round(1000 * min(max(fraction, 0.0), 1.0))))
+        self.waiting_label.setText(f"computing… {100 * fraction:.0f} %")
+
+    def progress_text(self) -> str:
+        """What the busy line says (``computing… 40 %``)."""
+        return self.waiting_label.text()
 
     def show_error(self, text: str) -> None:
         self.set_message(text, error=True)

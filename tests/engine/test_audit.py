@@ -150,3 +150,26 @@ def test_feedthrough_peaks_are_at_infinity_and_rounding_zeros_are_zero():
     assert rows["N.out"].peak_freq_rad_s == 0.0 and rows["N.out"].peak_gain == pytest.approx(5.0)
     assert rows["F.y"].dc_gain == 0.0 and rows["F.y"].peak_freq_rad_s == np.inf
     assert rows["H.y"].peak_gain == pytest.approx(3.0, rel=1e-9) and rows["H.y"].peak_freq_rad_s == np.inf
+
+
+def test_audit_reports_its_progress_and_stops_when_the_report_raises():
+    # the progress callable sees 0 first and 1 last, never going back; the rows do not
+    # depend on it; raising from it ends the audit with that exception
+    from loopwright.engine.audit import AuditCancelled
+
+    model = _sample("two_zone_oven.lwd")
+    seen = []
+    rows = path_audit(model, progress=seen.append)
+    assert seen[0] == 0.0 and seen[-1] == 1.0
+    assert all(b >= a for a, b in zip(seen, seen[1:]))
+    assert [(r.source, r.signal, r.peak_gain) for r in rows] == [(r.source, r.signal, r.peak_gain) for r in path_audit(model)]
+    calls = []
+
+    def stop_at_third(fraction):
+        calls.append(fraction)
+        if len(calls) == 3:
+            raise AuditCancelled("stopped by the caller")
+
+    with pytest.raises(AuditCancelled, match="stopped by the caller"):
+        path_audit(model, progress=stop_at_third)
+    assert len(calls) == 3  # nothing ran on after the report that raised

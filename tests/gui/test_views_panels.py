@@ -118,7 +118,7 @@ def test_singular_value_view_equals_the_engine_for_a_vector_pair(window, wait_vi
     path = next(p for p in SAMPLES if p.stem == "two_zone_oven")
     _open_with_pairs(window, path, [("r", "y")])
     panel = _show(window, "singular_values", wait_views)
-    w, sv = singular_value_views(load(path), [("r", "y")])[0]
+    w, sv = singular_value_views(load(path), [("r", "y")], drawing=True)[0]
     for i in range(2):
         x, y = panel.curves[(("r", "y"), i)].getOriginalDataset()
         assert_allclose(x, w)
@@ -202,3 +202,51 @@ def test_a_pole_warning_in_the_problems_list_opens_the_pole_map(window, wait_vie
     assert "pole map" in item.text()
     window.problems._on_clicked(item)
     assert not window.view_docks["poles"].visibleRegion().isEmpty()
+
+
+def test_stop_ends_a_running_job_at_its_next_progress_report(qtbot):
+    # a job that reports progress is ended by Stop (its report raises), not left running
+    # with its answer dropped: the worker is free again without the job finishing
+    import threading
+
+    from loopwright.gui.document import Document
+    from loopwright.gui.workers import JobStopped, ViewJobs
+
+    jobs = ViewJobs(Document(load(SAMPLES[0])))
+    ended, release = [], threading.Event()
+
+    def endless(*, progress):
+        try:
+            k = 0
+            while True:
+                progress(min(k / 1000.0, 0.99))
+                k += 1
+                release.wait(0.001)  # the worker waits a little between reports, like real work
+        except JobStopped:
+            ended.append("stopped")
+            raise
+
+    fractions = []
+    jobs.progress_changed.connect(lambda key, f: fractions.append((key, f)))
+    jobs.submit("audit", endless, progress=True)
+    qtbot.waitUntil(lambda: len(fractions) >= 2, timeout=10000)
+    assert not jobs.worker_idle()
+    jobs.cancel("audit")
+    qtbot.waitUntil(jobs.worker_idle, timeout=10000)
+    assert ended == ["stopped"] and not jobs.is_busy("audit")
+    assert {k for k, _ in fractions} == {"audit"} and all(0.0 <= f < 1.0 for _, f in fractions)
+    jobs.shutdown()
+
+
+def test_the_audit_panel_reports_progress_to_the_end(window, wait_views):
+    path = next(p for p in SAMPLES if p.stem == "two_zone_oven")
+    _open_with_pairs(window, path, [])
+    seen = []
+    window.views.jobs.progress_changed.connect(lambda key, f: seen.append((key, f)))
+    panel = _show(window, "audit", wait_views)
+    assert [f for k, f in seen if k == "audit"][-1] == 1.0
+    assert len(panel.rows) == len(path_audit(assemble(load(path))))
+    panel.set_waiting(True)
+    panel.set_progress(0.4)
+    assert panel.progress_text() == "computing… 40 %" and panel.progress.value() == 400
+    panel.set_waiting(False)
