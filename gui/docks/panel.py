@@ -17,11 +17,13 @@ from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QAction, QColor
 from PySide6.QtWidgets import QSplitter, QFileDialog, QHBoxLayout, QLabel, QMenu, QProgressBar, QPushButton, QSizePolicy, QVBoxLayout, QWidget
 
-__all__ = ["PlotPanel", "PAIR_COLOURS", "pair_colour", "write_table_csv", "pen_for", "themed_plot", "new_layout_widget", "elastic", "AdaptiveSplitter"]
+from loopwright.engine.svg_plot import PAIR_COLOURS
 
-# One colour per kept pair, the same in every panel and on the canvas; our own set,
-# chosen to stay apart from each other on light and dark backgrounds.
-PAIR_COLOURS = ("#2f7fd0", "#e0662b", "#2aa05a", "#b0419e", "#c9a21a", "#17a3b8", "#7b5cd6", "#8a6d3b")
+__all__ = ["PlotPanel", "PAIR_COLOURS", "pair_colour", "shade_of", "write_table_csv", "pen_for", "themed_plot", "new_layout_widget",
+           "legend_row", "elastic", "AdaptiveSplitter"]
+
+# PAIR_COLOURS: one colour per kept pair, the same in every panel, on the canvas and in the
+# command line's SVG plots; our own set, chosen to stay apart on light and dark backgrounds.
 
 _DASHES = (Qt.PenStyle.SolidLine, Qt.PenStyle.DashLine, Qt.PenStyle.DotLine, Qt.PenStyle.DashDotLine)
 
@@ -29,6 +31,26 @@ _DASHES = (Qt.PenStyle.SolidLine, Qt.PenStyle.DashLine, Qt.PenStyle.DotLine, Qt.
 def pair_colour(index: int) -> QColor:
     """Colour of the pair at ``index`` in the diagram's kept pairs."""
     return QColor(PAIR_COLOURS[index % len(PAIR_COLOURS)])
+
+
+def shade_of(colour: QColor, element: int, elements: int) -> QColor:
+    """The colour of element ``element`` of a vector pair with ``elements`` elements: the
+    pair's colour itself for the first, then lighter shades of it (one pair, one hue)."""
+    if elements <= 1 or element == 0:
+        return QColor(colour)
+    k = element / max(1, elements - 1)  # 0 .. 1
+    c = QColor(colour)
+    white = 0.62 * k  # mixed with white, never so far that it fades into the background
+    return QColor(int(c.red() + (255 - c.red()) * white), int(c.green() + (255 - c.green()) * white), int(c.blue() + (255 - c.blue()) * white))
+
+
+def legend_row(layout_widget: pg.GraphicsLayoutWidget, row: int = 0, *, columns: int = 3) -> pg.LegendItem:
+    """A legend in its own row above the plots, never over the data; entries are added
+    with ``legend.addItem(item, name)``, several to a line."""
+    legend = pg.LegendItem(labelTextColor="#1f2933", brush=(255, 255, 255, 0), pen=None, colCount=columns, horSpacing=14)
+    layout_widget.addItem(legend, row=row, col=0)
+    layout_widget.ci.layout.setRowStretchFactor(row, 0)
+    return legend
 
 
 def pen_for(colour: QColor, element: int = 0, *, width: float = 2.0):
