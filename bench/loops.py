@@ -62,7 +62,7 @@ def chain_of_loops(blocks: int, *, plant_order: int = 12, seed: int = 1) -> Diag
         if k:
             d.connect(f"P{k - 1}.y", f"u{k}.in3")
             d.connect(f"r{k}.out", f"ym{k}.in2")
-    d.connect(f"r0.out", "ym0.in2")
+    d.connect("r0.out", "ym0.in2")
     d.connect(f"P{cells - 1}.y", "u0.in3")  # close the chain into a ring: one big feedback loop
     return d
 

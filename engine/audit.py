@@ -2,8 +2,10 @@
 
 For each pair the audit reports peak gain and its frequency, H2 norm, DC gain and
 stability, plus the blocks and wires between the two on the diagram so the canvas can
-highlight them. Vector paths use the largest singular value (peak gain, DC gain) and the
-Frobenius-type H2 norm.
+highlight them. A scalar path's DC gain keeps its sign (``r -> e`` of a loop with integral
+action can be -2); a vector path's DC gain is the largest singular value of the DC gain
+matrix (``dc_gain_kind`` says which), its peak gain the peak of the largest singular
+value, and its H2 norm the Frobenius-type one.
 
 **Ranking rule** (most troublesome first):
 
@@ -78,12 +80,13 @@ class AuditRow:
     wire_ids: list[str] = field(default_factory=list)
     rank: int = 0
     note: str = ""
+    dc_gain_kind: str = "signed value"  # or "largest singular value" (vector paths)
 
     @property
     def peak_over_dc(self) -> float:
         if not np.isfinite(self.peak_gain) or self.dc_gain == 0 or not np.isfinite(self.dc_gain):
             return np.nan
-        return self.peak_gain / self.dc_gain
+        return self.peak_gain / abs(self.dc_gain)
 
     def as_dict(self) -> dict:
         return {
@@ -94,6 +97,7 @@ class AuditRow:
             "peak_freq": self.peak_freq_rad_s,
             "h2": self.h2,
             "dc_gain": self.dc_gain,
+            "dc_gain_kind": self.dc_gain_kind,
             "peak_over_dc": self.peak_over_dc,
             "stable": self.stable,
             "path": {"blocks": self.blocks, "wires": self.wires, "block_ids": self.block_ids, "wire_ids": self.wire_ids},
@@ -386,20 +390,32 @@ def path_audit(
                 else:
                     h2 = h2_norm(A, Bg, C[sl], Dg[sl]).value
             g0 = Y[0, sl, :]
-            if np.all(np.isfinite(g0)):
-                dc = float(np.linalg.norm(g0, 2)) if g0.size else 0.0
+            if not np.all(np.isfinite(g0)):
+                g0 = dc_gain(A, Bg, C[sl], Dg[sl])
+            scalar = g0.size == 1
+            if not np.all(np.isfinite(g0)):
+                # an integrator on the path: unbounded at DC; a scalar path keeps the sign it tends to
+                dc = float(np.sign(np.nan_to_num(np.real(g0).ravel()[0]))) * np.inf if scalar else np.inf
+                if scalar and dc == 0:
+                    dc = np.inf
+            elif scalar:
+                dc = float(np.real(g0.ravel()[0]))  # a real system's DC gain is real
             else:
-                dcm = dc_gain(A, Bg, C[sl], Dg[sl])
-                dc = float(np.linalg.norm(dcm, 2)) if np.all(np.isfinite(dcm)) else np.inf
-            if wpk == np.inf and np.isfinite(dc) and abs(dc - peak) <= 1e-9 * peak:
+                dc = float(np.linalg.norm(g0, 2)) if g0.size else 0.0
+            if wpk == np.inf and np.isfinite(dc) and abs(abs(dc) - peak) <= 1e-9 * peak:
                 wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
-            if np.isfinite(dc) and np.isfinite(peak) and dc <= _ROUNDING_ZERO * peak:
+            if np.isfinite(dc) and np.isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
                 dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
             if not bids and not unstable and peak <= 1e-13 * scale_ref:
                 continue
             names_b = [model.diagram.blocks[b].name for b in bids]
             names_w = [model.diagram.wires[w].name for w in wids]
-            rows.append(AuditRow(grp, sig, peak, wpk, h2, dc, not unstable, names_b, names_w, bids, wids, note=note))
+            rows.append(
+                AuditRow(
+                    grp, sig, peak, wpk, h2, dc, not unstable, names_b, names_w, bids, wids, note=note,
+                    dc_gain_kind="signed value" if scalar else "largest singular value",
+                )
+            )
     report(1.0)
     rows.sort(key=lambda r: (r.stable, -r.peak_gain if np.isfinite(r.peak_gain) else -np.inf, -r.h2 if np.isfinite(r.h2) else -np.inf, r.source, r.signal))
     for i, r in enumerate(rows, 1):

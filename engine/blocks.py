@@ -4,9 +4,12 @@
 ``x' = A x + B u``, ``y = C x + D u`` over its stacked input and output ports. Sources have
 no realisation: the assembly treats their outputs as the model's exogenous inputs.
 
-Transfer functions are realised element by element in controllable canonical form and
-stacked (a matrix of transfer functions therefore gets the sum of its elements' orders,
-not a minimal order; the realisation is exact, and ``structure.minimal`` trims it).
+Transfer functions are realised element by element in phase-variable form and stacked
+(a matrix of transfer functions therefore gets the sum of its elements' orders, not a
+minimal order; the realisation is exact, and ``structure.minimal`` trims it). The state
+order is physical and documented (see :func:`tf_state_descriptions`): for a numerator
+without zeros the states are y, dy/dt, d²y/dt², ... (for 1/s² position first, then
+velocity); otherwise they are z, dz/dt, ... with den(s) z = u and y = num(s) z + D u.
 """
 from __future__ import annotations
 
@@ -20,7 +23,7 @@ import numpy as np
 from loopwright.engine.diagram import SOURCE_ROLES, Block, Diagram
 from loopwright.engine.errors import DiagramError, ParameterError
 from loopwright.engine.ports import input_ports, output_ports
-from loopwright.engine.validation import as_matrix, as_vector, as_width
+from loopwright.engine.validation import MAX_TOTAL_WIDTH, as_matrix, as_vector, as_width
 
 __all__ = [
     "Realization",
@@ -32,6 +35,7 @@ __all__ = [
     "source_width",
     "tf_to_ss",
     "tf_poles_zeros",
+    "tf_state_descriptions",
     "WAVEFORM_KINDS",
 ]
 
@@ -61,11 +65,26 @@ def _where(block: Block) -> str:
 # ---- transfer functions -------------------------------------------------------------
 def _coeffs(value: Any, *, where: str, field: str, block_id: str | None) -> np.ndarray:
     c = as_vector(value, where=where, field=field, block_id=block_id)
+    if not c.size:
+        raise ParameterError(f"{where}: {field} is empty; give at least one coefficient", field=field,
+                             block_ids=[block_id] if block_id else [])
     nz = np.flatnonzero(c)
     return c[nz[0]:] if nz.size else np.zeros(1)
 
 
 def _siso_tf_to_ss(num: np.ndarray, den: np.ndarray, *, where: str, field: str, block_id: str | None):
+    A, B, C, D, _ = _siso_phase_variable(num, den, where=where, field=field, block_id=block_id)
+    return A, B, C, D
+
+
+def _siso_phase_variable(num: np.ndarray, den: np.ndarray, *, where: str, field: str, block_id: str | None):
+    """Phase-variable realisation of one SISO element and whether its states are y, y', ...
+
+    With den(s) z = u the states are z, dz/dt, ..., (the companion matrix with ones above
+    the diagonal) and y = num(s) z + D u. When the strictly proper part has a constant
+    numerator b and D = 0, z is scaled by b so the states are y, dy/dt, ...: the order a
+    mechanical or thermal model is usually written in (position before velocity).
+    """
     if not np.any(den):
         raise ParameterError(f"{where}: denominator {field} is all zeros", field="den", block_ids=[block_id] if block_id else [])
     n = den.size - 1
@@ -80,18 +99,68 @@ def _siso_tf_to_ss(num: np.ndarray, den: np.ndarray, *, where: str, field: str, 
     den = den / lead
     num = np.concatenate([np.zeros(n + 1 - num.size), num]) / lead if num.size <= n + 1 else num[-(n + 1):] / lead
     d = num[0]
-    # controllable canonical form of (num - d*den)/den
+    # (num - d*den)/den, coefficients of s^(n-1) .. s^0
     rem = num[1:] - d * den[1:]
     A = np.zeros((n, n))
-    if n:
-        A[0, :] = -den[1:]
-        A[1:, :-1] = np.eye(n - 1)
     B = np.zeros((n, 1))
+    C = rem[::-1].reshape(1, n).copy()
     if n:
-        B[0, 0] = 1.0
-    C = rem.reshape(1, n)
-    D = np.array([[d]])
-    return A, B, C, D
+        A[:-1, 1:] = np.eye(n - 1)
+        A[-1, :] = 0.0 - den[1:][::-1]  # no negative zeros on display
+        B[-1, 0] = 1.0
+    output_states = bool(n) and d == 0.0 and rem[-1] != 0.0 and not np.any(rem[:-1])
+    if output_states:
+        # x = rem[-1] * (z, z', ...) = (y, y', ...)
+        B[-1, 0] = rem[-1]
+        C = np.zeros((1, n))
+        C[0, 0] = 1.0
+    return A, B, C, np.array([[d]]), output_states
+
+
+def _derivative_names(base: str, n: int) -> list[str]:
+    names = []
+    for k in range(n):
+        if k == 0:
+            names.append(base)
+        elif k == 1:
+            names.append(f"d{base}/dt")
+        else:
+            names.append(f"d{_superscript(k)}{base}/dt{_superscript(k)}")
+    return names
+
+
+def _superscript(k: int) -> str:
+    return str(k).translate(str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹"))
+
+
+def tf_state_descriptions(num: Any, den: Any) -> tuple[str, ...]:
+    """What each state of :func:`tf_to_ss`'s realisation is, in order.
+
+    For a SISO element without zeros and without feedthrough: ``y, dy/dt, d²y/dt², ...``;
+    otherwise ``z, dz/dt, ...`` where den(s) z = u and y = num(s) z + D u. Elements of a
+    transfer-function matrix are prefixed with their place, ``(i,j) y``, for output i and
+    input j.
+
+    Raises
+    ------
+    ParameterError
+        As :func:`tf_to_ss`.
+    """
+    def describe(nm, dn, field, prefix=""):
+        ne = _coeffs(nm, where="transfer function", field=field, block_id=None)
+        de = _coeffs(dn, where="transfer function", field=field, block_id=None)
+        A, _, _, _, output_states = _siso_phase_variable(ne, de, where="transfer function", field=field, block_id=None)
+        return [prefix + s for s in _derivative_names("y" if output_states else "z", A.shape[0])]
+
+    if not (isinstance(num, list) and num and isinstance(num[0], list) and num[0] and isinstance(num[0][0], list)):
+        return tuple(describe(num, den, "num/den"))
+    tf_to_ss(num, den)  # the shapes are checked there
+    common = not (isinstance(den, list) and den and isinstance(den[0], list) and den[0] and isinstance(den[0][0], list))
+    out: list[str] = []
+    for i, row in enumerate(num):
+        for j, nij in enumerate(row):
+            out += describe(nij, den if common else den[i][j], f"element ({i + 1}, {j + 1})", f"({i + 1},{j + 1}) ")
+    return tuple(out)
 
 
 def tf_to_ss(num: Any, den: Any, *, where: str = "transfer function", block_id: str | None = None):
@@ -287,11 +356,15 @@ def source_intensity(block: Block) -> np.ndarray | None:
         Wrong shape, not symmetric, or not positive semidefinite.
     """
     wf = block.params.get("waveform") or {}
-    raw = wf.get("intensity") if isinstance(wf, dict) and wf.get("kind") == "white" else block.params.get("intensity")
-    if raw is None:
+    holder = wf if isinstance(wf, dict) and wf.get("kind") == "white" else block.params
+    if "intensity" not in holder:
         return None
+    raw = holder["intensity"]
     w, where = source_width(block), _where(block)
-    arr = np.array(raw, dtype=float) if not isinstance(raw, dict) else None
+    try:  # null, text or a dict is a mistake, not "no intensity"
+        arr = np.array(raw, dtype=float) if raw is not None and not isinstance(raw, (dict, str)) else None
+    except (TypeError, ValueError):
+        arr = None
     if arr is None or arr.ndim > 2:
         raise ParameterError(f"{where}: intensity must be a number, a list or a matrix", field="intensity", block_ids=[block.id])
     if arr.ndim == 0:
@@ -302,7 +375,9 @@ def source_intensity(block: Block) -> np.ndarray | None:
         W = as_matrix(arr, where=where, field="intensity", block_id=block.id, rows=w, cols=w, why_rows="the source width", why_cols="the source width")
     if not np.all(np.isfinite(W)) or not np.allclose(W, W.T, atol=1e-12 * max(1.0, np.abs(W).max())):
         raise ParameterError(f"{where}: intensity must be finite and symmetric", field="intensity", block_ids=[block.id])
-    if np.linalg.eigvalsh(W).min() < -1e-12 * max(1.0, np.abs(W).max()):
+    # a number or a list gives a diagonal W: its eigenvalues are its diagonal, no solver needed
+    lowest = np.linalg.eigvalsh(W).min() if arr.ndim == 2 else np.diag(W).min()
+    if lowest < -1e-12 * max(1.0, np.abs(W).max()):
         raise ParameterError(f"{where}: intensity must be positive semidefinite (it is a covariance density)", field="intensity", block_ids=[block.id])
     return W
 
@@ -355,6 +430,11 @@ def realize(block: Block, diagram: Diagram) -> Realization:
         if not isinstance(signs, list) or not signs or any(s not in ("+", "-") for s in signs):
             raise ParameterError(f"{where}: signs must be a list of '+' or '-', one per input, got {signs!r}", field="signs", block_ids=[block.id])
         w = as_width(p.get("width", 1), where=where, block_id=block.id)
+        if w * (len(signs) + 1) > MAX_TOTAL_WIDTH:  # its matrix grows with width x width x inputs
+            raise ParameterError(
+                f"{where}: width {w} with {len(signs)} inputs makes {w * (len(signs) + 1)} signal components, at most {MAX_TOTAL_WIDTH}",
+                field="width", block_ids=[block.id],
+            )
         D = np.hstack([(1.0 if s == "+" else -1.0) * np.eye(w) for s in signs])
         return Realization(np.zeros((0, 0)), np.zeros((0, w * len(signs))), np.zeros((w, 0)), D,
                            tuple((f"in{k + 1}", w) for k in range(len(signs))), (("out", w),), ())

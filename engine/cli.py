@@ -13,6 +13,7 @@ import sys
 from loopwright.engine import CAUTION, __version__
 from loopwright.engine.check import pole_table, summarize
 from loopwright.engine.cli_common import fmt_complex, fmt_num, load_diagram, print_json
+from loopwright.engine.eigen import format_pole, trustworthy_digits
 from loopwright.engine.errors import EngineError
 
 __all__ = ["main", "build_parser", "COMMANDS"]
@@ -38,8 +39,15 @@ def _check(args: argparse.Namespace) -> int:
                 "state_names": list(rep.model.state_names),
                 "poles": [[p.real, p.imag] for p in rep.poles],
                 "pole_table": pole_table(rep.poles),
+                "pole_bounds": list(rep.pole_bounds),
+                "pole_source": rep.pole_source,
+                "pole_source_text": rep.pole_source_text,
+                "poles_trusted": rep.poles_trusted,
+                "worst_condition": rep.worst_condition,
                 "stable": rep.stable,
                 "rhp_poles": rep.rhp_poles,
+                "pole_classes": rep.pole_classes.as_dict(),
+                "recipe_states": rep.recipe_states,
                 "signals": list(rep.signals),
                 "sources": list(rep.sources),
                 "source_roles": rep.sources,
@@ -53,6 +61,10 @@ def _check(args: argparse.Namespace) -> int:
                     "estimator_poles": [[p.real, p.imag] for p in sep.estimator_poles],
                     "matches": sep.matches,
                     "max_relative_gap": sep.max_mismatch,
+                    "verdict": sep.verdict,
+                    "coupling": sep.coupling,
+                    "decoupled": sep.decoupled,
+                    "message": sep.message,
                     "pairs": [list(p) for p in sep.pairs],
                     "static_gains": {k: v for k, v in sep.gains.items()},
                 },
@@ -67,11 +79,13 @@ def _check(args: argparse.Namespace) -> int:
     print(f"  sources  {len(rep.sources)}: {', '.join(f'{k} ({v})' for k, v in rep.sources.items()) or 'none'}")
     print(f"  inputs   {len(rep.model.input_names)} (sources and an injection on every signal component)")
     print()
-    print("  closed-loop poles            damping   natural freq (rad/s)")
-    for row, p in zip(pole_table(rep.poles), rep.poles):
-        print(f"    {fmt_complex(p):<26} {fmt_num(row['damping'], digits=4):>8}   {fmt_num(row['wn_rad_s'], digits=6)}")
-    verdict = "stable" if rep.stable else (f"UNSTABLE: {rep.rhp_poles} pole(s) in the right half-plane" if rep.rhp_poles else "NOT asymptotically stable (poles on the imaginary axis)")
-    print(f"\n  verdict  {verdict}")
+    print(f"  closed-loop poles ({rep.pole_source_text})")
+    print("    pole                         damping   natural freq (rad/s)")
+    for row, p, b in zip(pole_table(rep.poles), rep.poles, rep.pole_bounds):
+        d = min(trustworthy_digits(p, b), 6)
+        txt = format_pole(p, b)
+        print(f"    {txt:<28} {fmt_num(row['damping'], digits=max(d, 1) if d < 4 else 4):>8}   {fmt_num(row['wn_rad_s'], digits=max(d, 1))}")
+    print(f"\n  verdict  {check_verdict(rep)}")
     if sep is not None:
         print()
         for plant, est in sep.pairs:
@@ -80,11 +94,26 @@ def _check(args: argparse.Namespace) -> int:
             print(f"  separation check: estimator {est!r} on plant {plant!r}{ktxt}")
         print(f"    state feedback  eig(A - B K): {', '.join(fmt_complex(p, digits=5) for p in sep.state_feedback_poles)}")
         print(f"    estimator       eig(A - L C): {', '.join(fmt_complex(p, digits=5) for p in sep.estimator_poles)}")
-        print(f"    closed loop = union of both: {'yes' if sep.matches else 'NO'} (worst relative gap {sep.max_mismatch:.1e})")
+        if sep.decoupled:
+            print(f"    closed loop = union of both: yes, by structure (the estimation error is not driven by the rest of the loop; "
+                  f"poles of the assembled matrix differ by {sep.max_mismatch:.1e} relative)")
+        else:
+            answer = {"holds": "yes", "unconfirmed": "cannot be confirmed (ill-conditioned)", "not_separated": "NO"}[sep.verdict]
+            print(f"    closed loop = union of both: {answer} (worst relative gap {sep.max_mismatch:.1e})")
     for w in rep.warnings:
         print(f"  warning: {w}")
     print(f"\n  {CAUTION}")
     return 0
+
+
+def check_verdict(rep) -> str:
+    """The stability verdict of a :class:`CheckReport`, naming where the offending poles lie."""
+    classes = rep.pole_classes
+    if rep.stable:
+        return "stable (0 in the right half-plane, 0 on the imaginary axis)"
+    if rep.rhp_poles:
+        return f"UNSTABLE: {classes.phrase()}"
+    return f"NOT asymptotically stable: {classes.phrase()}"
 
 
 def _report(args: argparse.Namespace) -> int:
@@ -130,7 +159,7 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-COMMANDS = ("check", "report", "freq", "time", "margins", "audit", "noise", "design", "export")
+COMMANDS = ("check", "report", "freq", "tf", "time", "margins", "audit", "noise", "design", "export")
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -27,9 +27,18 @@ def add_commands(subparsers) -> None:
     p.add_argument("--w-min", type=float, default=None, help="lowest frequency, rad/s")
     p.add_argument("--w-max", type=float, default=None, help="highest frequency, rad/s")
     p.add_argument("--points", type=int, default=None, help="number of log-spaced frequencies (default: automatic grid)")
+    p.add_argument("--w", dest="w_list", default=None, metavar="W[,W...]",
+                   help="evaluate at exactly these frequencies, rad/s (0 is the DC point); overrides the grid options")
     _format_flags(p)
     _plot_flag(p)
     p.set_defaults(run=_freq)
+
+    p = subparsers.add_parser("tf", help="transfer function of one path: order, poles, zeros, DC and high-frequency gain")
+    p.add_argument("file", help="diagram file (.lwd)")
+    p.add_argument("--from", dest="source", required=True, metavar="INPUT", help="a source name, or a signal name (its injection)")
+    p.add_argument("--to", dest="signal", required=True, metavar="SIGNAL", help="signal name")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(run=_tf)
 
     p = subparsers.add_parser("time", help="step, impulse or source-driven time response")
     p.add_argument("file", help="diagram file (.lwd)")
@@ -42,6 +51,9 @@ def add_commands(subparsers) -> None:
                    help="initial state of one block's states (repeat per block); e.g. --initial P=0.001,0,0 "
                         "with the estimator left at zero shows the estimation-error transient")
     p.add_argument("--to", dest="signals", required=True, metavar="SIGNAL[,SIGNAL]", help="signals to report, comma-separated")
+    p.add_argument("--metrics", action="store_true",
+                   help="with --step: rise time (10-90 %%), settling time, overshoot, undershoot, peak, steady-state value")
+    p.add_argument("--settle", type=float, default=0.02, metavar="FRACTION", help="settling band for --metrics (default 0.02 = 2 %%)")
     p.add_argument("--t-end", type=float, default=None, help="end time, s")
     p.add_argument("--dt", type=float, default=None, help="time step, s")
     _format_flags(p)
@@ -65,6 +77,8 @@ def add_commands(subparsers) -> None:
 
     p = subparsers.add_parser("noise", help="noise budget: steady-state RMS of every signal, split by source")
     p.add_argument("file", help="diagram file (.lwd)")
+    p.add_argument("--covariance", metavar="SIGNAL[,SIGNAL]", default=None,
+                   help="also print the full steady-state covariance of these signals (JSON carries every vector signal's)")
     _format_flags(p)
     p.set_defaults(run=_noise)
 
@@ -117,7 +131,9 @@ def _freq(args: argparse.Namespace) -> int:
     _check_plot(args)
     diagram = load_diagram(args.file)
     model = assemble(diagram)
-    resp = pair_frequency_response(model, args.source, args.signal, w_min=args.w_min, w_max=args.w_max, points=args.points)
+    w_list = _frequency_list(args.w_list) if args.w_list is not None else None
+    resp = pair_frequency_response(model, args.source, args.signal, w_min=args.w_min, w_max=args.w_max,
+                                   points=args.points, w=w_list)
     if args.plot:
         from loopwright.engine.svg_plot import frequency_figure
 
@@ -180,6 +196,54 @@ def _freq(args: argparse.Namespace) -> int:
     return 0
 
 
+def _frequency_list(text: str) -> np.ndarray:
+    from loopwright.engine.views_data import MAX_POINTS
+
+    """``--w 0,1,10`` -> the frequencies in rad/s (finite, >= 0, at most ``MAX_POINTS``)."""
+    try:
+        w = np.array([float(v) for v in text.split(",") if v.strip()], dtype=float)
+    except ValueError as err:
+        raise ParameterError(f"--w {text!r}: give frequencies in rad/s separated by commas, e.g. --w 0,1,10", field="--w") from err
+    if w.size == 0 or w.size > MAX_POINTS or not np.all(np.isfinite(w)) or np.any(w < 0):
+        raise ParameterError(f"--w {text!r}: give 1 to {MAX_POINTS} finite frequencies >= 0 rad/s", field="--w")
+    return w
+
+
+# ---------------------------------------------------------------------------------------
+# tf
+
+
+def _tf(args: argparse.Namespace) -> int:
+    from loopwright.engine.cli_common import fmt_complex
+    from loopwright.engine.path_tf import path_transfer
+
+    diagram = load_diagram(args.file)
+    model = assemble(diagram)
+    tf = path_transfer(model, args.source, args.signal)
+    if args.json:
+        print_json({"file": args.file, **tf.as_dict(), "caution": CAUTION})
+        return 0
+    print(f"{args.file}: transfer function {tf.source} -> {tf.signal}")
+    print(f"  minimal order       {tf.order}")
+    print(f"  poles               {', '.join(fmt_complex(p) for p in tf.poles) or 'none'}")
+    zs = [fmt_complex(z) + ("  (RIGHT HALF-PLANE)" if np.any(tf.rhp_zeros == z) else "") for z in tf.zeros]
+    print(f"  zeros               {', '.join(zs) or 'none'}")
+    scalar = tf.num is not None
+    print(f"  DC gain             {fmt_num(tf.dc_gain[0, 0]) if scalar else _matrix_line(tf.dc_gain)}")
+    print(f"  high-frequency gain {fmt_num(tf.hf_gain[0, 0]) if scalar else _matrix_line(tf.hf_gain)}")
+    if scalar:
+        print(f"  num                 [{', '.join(fmt_num(v, digits=10) for v in tf.num)}]")
+        print(f"  den                 [{', '.join(fmt_num(v, digits=10) for v in tf.den)}]  (descending powers of s)")
+    if tf.rhp_zeros.size:
+        print("  note: a right-half-plane zero makes the response start the wrong way and limits how fast the loop can act on this path")
+    print(f"\n  {CAUTION}")
+    return 0
+
+
+def _matrix_line(M) -> str:
+    return "[" + ", ".join("[" + ", ".join(fmt_num(v) for v in row) + "]" for row in np.atleast_2d(M)) + "]"
+
+
 # ---------------------------------------------------------------------------------------
 # time
 
@@ -218,8 +282,13 @@ def _time(args: argparse.Namespace) -> int:
     rows = [i for s in sigs for i in range(model.signal_slice(s).start, model.signal_slice(s).stop)]
     out_names = [model.output_names[i] for i in rows]
     x0 = _initial_state(model, args.initial)
+    metrics = None
     if x0 is not None and (args.step or args.impulse):
         raise ParameterError("--initial goes with --run or --free, not with --step or --impulse", field="--initial")
+    if args.metrics and not args.step:
+        raise ParameterError("--metrics goes with --step INPUT (the metrics are those of a unit step)", field="--metrics")
+    if not (0.0 < args.settle < 1.0):
+        raise ParameterError(f"--settle must be a fraction between 0 and 1 (0.02 is 2 %); got {args.settle}", field="--settle")
     if args.free:
         from loopwright.engine.responses import initial_response
 
@@ -241,6 +310,8 @@ def _time(args: argparse.Namespace) -> int:
             names = [f"{o} <- {i}" for o in out_names for i in in_names]
             Y = res.y.reshape(res.y.shape[0], -1)
         kind = ("step" if args.step else "impulse") + f" on {grp}"
+        if args.metrics:
+            metrics = _step_metrics_for(model, cols, rows, names, Y, res.t, args.settle)
     else:
         res = source_run(model, t, outputs=sigs, x0=x0)
         names, Y = res.output_names, res.y
@@ -250,8 +321,10 @@ def _time(args: argparse.Namespace) -> int:
 
         _write_plot(args, lambda: time_figure(res.t, Y, names, title=f"{args.file}: {kind}"))
     if args.json:
+        extra = {} if metrics is None else {"metrics": {nm: m.as_dict() for nm, m in metrics.items()}, "metric_definitions": _metric_definitions()}
         print_json(
             {
+                **extra,
                 "file": args.file,
                 "kind": kind,
                 "t": res.t,
@@ -274,8 +347,42 @@ def _time(args: argparse.Namespace) -> int:
     _table(["t (s)"] + names, [[fmt_num(res.t[k], digits=5)] + [fmt_num(v, digits=6) for v in Y[k]] for k in idx])
     if res.diverged:
         print(f"\n  WARNING: {res.message}")
+    if metrics is not None:
+        print(f"\n  step metrics (rise 10-90 %, settling band {100 * args.settle:g} %; definitions: 'time --json' or the README):")
+        _table(
+            ["signal", "steady state", "rise (s)", "settling (s)", "overshoot %", "undershoot %", "peak", "at (s)"],
+            [
+                [nm, fmt_num(m.steady_state), fmt_num(m.rise_time_s, digits=5),
+                 fmt_num(m.settling_time_s, digits=5) if (m.settled or not m.steady_state or not np.isfinite(m.steady_state)) else "not settled", fmt_num(m.overshoot_pct, digits=5),
+                 fmt_num(m.undershoot_pct, digits=5), fmt_num(m.peak, digits=6), fmt_num(m.peak_time_s, digits=5)]
+                for nm, m in metrics.items()
+            ],
+            indent="    ",
+        )
     print(f"\n  {CAUTION}")
     return 0
+
+
+def _metric_definitions() -> dict:
+    from loopwright.engine.step_metrics import DEFINITIONS
+
+    return DEFINITIONS
+
+
+def _step_metrics_for(model, cols, rows, names, Y, t, settle) -> dict:
+    """Step metrics of every (output, input) column of a step run; the steady state is the
+    path's exact DC gain (``nan`` for an unstable or integrating path)."""
+    from loopwright.engine.norms import dc_gain, is_stable_matrix
+    from loopwright.engine.step_metrics import step_metrics
+
+    B = model.B[:, cols]
+    D = model.D[np.ix_(rows, range(cols.start, cols.stop))]
+    with np.errstate(all="ignore"):
+        G0 = dc_gain(model.A, B, model.C[rows], D) if is_stable_matrix(model.A) else np.full(D.shape, np.nan)
+    flat = G0.reshape(-1).astype(float)  # same order as the columns of Y: output-major, then input
+    scale = max(float(np.nanmax(np.abs(Y))) if Y.size else 0.0, float(np.nanmax(np.abs(flat[np.isfinite(flat)]), initial=0.0)))
+    flat = np.where(np.abs(flat) <= 1e-12 * scale, 0.0, flat)  # rounding of an exact zero: no metrics to give
+    return {nm: step_metrics(t, Y[:, k], float(flat[k]) if np.isfinite(flat[k]) else np.nan, settle=settle) for k, nm in enumerate(names)}
 
 
 # ---------------------------------------------------------------------------------------
@@ -326,27 +433,64 @@ def _margins(args: argparse.Namespace) -> int:
 
 def _print_scalar_margins(m, *, indent: str) -> None:
     lo_db, hi_db = m.gain_margin_db
+    ol = m.open_loop_poles.phrase() if m.open_loop_poles is not None else f"{m.open_loop_unstable_poles} in the right half-plane"
+    dm_at = f"at {fmt_num(m.delay_margin_w_rad_s)} rad/s" if np.isfinite(m.delay_margin_w_rad_s) else ""
     rows = [
         ["closed loop", "stable" if m.closed_loop_stable else "UNSTABLE", ""],
-        ["open-loop RHP poles", str(m.open_loop_unstable_poles), ""],
+        ["open-loop poles", ol, ""],
         ["gain margin, lower", f"{fmt_num(m.gain_lower)} ({fmt_num(lo_db, digits=5)} dB)", f"at {fmt_num(m.gain_lower_w_rad_s)} rad/s"],
         ["gain margin, upper", f"{fmt_num(m.gain_upper)} ({fmt_num(hi_db, digits=5)} dB)", f"at {fmt_num(m.gain_upper_w_rad_s)} rad/s"],
         ["phase margin", f"{fmt_num(m.phase_margin_deg, digits=6)} deg", f"at {fmt_num(m.phase_margin_w_rad_s)} rad/s"],
-        ["delay margin", f"{fmt_num(m.delay_margin_s)} s", ""],
+        ["delay margin", f"{fmt_num(m.delay_margin_s)} s", dm_at],
         ["peak sensitivity", f"{fmt_num(m.peak_sensitivity)} (modulus margin {fmt_num(m.modulus_margin, digits=4)})", f"at {fmt_num(m.peak_sensitivity_w_rad_s)} rad/s"],
         [
             f"disk margin (skew {fmt_num(m.disk.skew, digits=3)})",
             f"alpha {fmt_num(m.disk.alpha)}: gain [{fmt_num(m.disk.gain_lower, digits=5)}, {fmt_num(m.disk.gain_upper, digits=5)}], phase +-{fmt_num(m.disk.phase_deg, digits=5)} deg",
             f"at {fmt_num(m.disk.w_rad_s)} rad/s",
         ],
-        ["gain crossovers", ", ".join(fmt_num(x) for x in m.gain_crossovers_w_rad_s) or "none", "rad/s"],
-        ["phase crossovers", ", ".join(fmt_num(x) for x in m.phase_crossovers_w_rad_s) or "none", "rad/s"],
     ]
     width = max(len(r[0]) for r in rows)
     for a, b, c in rows:
         print(f"{indent}{a.ljust(width)}  {b}  {c}".rstrip())
+    _listing(
+        f"{indent}gain crossovers (|L| = 1)",
+        ["w (rad/s)", "phase margin (deg)", "delay margin (s)", ""],
+        [
+            [fmt_num(c.w_rad_s), fmt_num(c.phase_margin_deg, digits=6), fmt_num(c.delay_margin_s),
+             _sets(c.sets_phase_margin and "phase margin", c.sets_delay_margin and "delay margin")]
+            for c in m.crossovers
+        ],
+    )
+    _listing(
+        f"{indent}phase crossovers (L real and negative" + ("; the gain factor 1/|L| puts g L on -1)" if m.phase_crossings else ")"),
+        ["w (rad/s)", "gain factor", "(dB)", ""],
+        [
+            [fmt_num(c.w_rad_s), fmt_num(c.gain_factor), fmt_num(c.gain_factor_db, digits=5),
+             _sets(c.sets_lower and "lower gain margin", c.sets_upper and "upper gain margin")]
+            for c in m.phase_crossings
+        ],
+    )
     if m.message:
         print(f"{indent}note: {m.message}")
+    for note in m.notes:
+        print(f"{indent}note: {note}")
+    if m.limits is not None:
+        for line in m.limits.lines():
+            print(f"{indent}{line}")
+
+
+def _listing(title: str, header: list[str], rows: list[list[str]]) -> None:
+    """A titled table indented under its title, or ``title: none``."""
+    if not rows:
+        print(f"{title}: none")
+        return
+    print(f"{title}:")
+    _table(header, rows, indent=" " * (len(title) - len(title.lstrip())) + "  ")
+
+
+def _sets(*what) -> str:
+    named = [w for w in what if w]
+    return ("<- sets the " + " and the ".join(named)) if named else ""
 
 
 # ---------------------------------------------------------------------------------------
@@ -370,10 +514,10 @@ def _audit(args: argparse.Namespace) -> int:
     if args.csv:
         write_csv(
             (
-                [r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.stable, " ".join(r.blocks), " ".join(r.wires)]
+                [r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.dc_gain_kind, r.stable, " ".join(r.blocks), " ".join(r.wires)]
                 for r in rows
             ),
-            ["rank", "source", "signal", "peak_gain", "peak_freq_rad_s", "h2", "dc_gain", "stable", "blocks", "wires"],
+            ["rank", "source", "signal", "peak_gain", "peak_freq_rad_s", "h2", "dc_gain", "dc_gain_kind", "stable", "blocks", "wires"],
         )
         return 0
     shown = f"top {len(rows)} of {total} paths" if len(rows) < total else f"{total} paths"
@@ -382,12 +526,16 @@ def _audit(args: argparse.Namespace) -> int:
         ["#", "source", "signal", "peak gain", "at (rad/s)", "H2", "DC gain", "stable", "blocks on the path"],
         [
             [
-                str(r.rank), r.source, r.signal, fmt_num(r.peak_gain), fmt_num(r.peak_freq_rad_s), fmt_num(r.h2), fmt_num(r.dc_gain),
+                str(r.rank), r.source, r.signal, fmt_num(r.peak_gain), fmt_num(r.peak_freq_rad_s), fmt_num(r.h2),
+                fmt_num(r.dc_gain) + ("*" if r.dc_gain_kind != "signed value" else ""),
                 "yes" if r.stable else "NO", " ".join(r.blocks),
             ]
             for r in rows
         ],
     )
+    print("\n  DC gain: signed value of a scalar path" + (
+        "; * a vector path: the largest singular value of its DC gain matrix (its peak gain is the peak of the largest singular value)"
+        if any(r.dc_gain_kind != "signed value" for r in rows) else ""))
     print(f"\n  {CAUTION}")
     return 0
 
@@ -403,9 +551,13 @@ def _noise(args: argparse.Namespace) -> int:
     model = assemble(diagram)
     b = noise_budget(model)
     srcs = list(b.sources)
+    covs = _covariances(model, b, args.covariance)
     if args.json:
         body = b.as_dict()
         body.update({"file": args.file, "caution": CAUTION})
+        if covs is not None:
+            body["covariance"] = {k: v.as_dict() for k, v in covs.items()}
+            body["covariance_note"] = "steady state E[z z^T] from A X + X A^T + sum B W B^T = 0; inf rows/columns: white components"
         print_json(body)
         return 0
     if args.csv:
@@ -426,5 +578,24 @@ def _noise(args: argparse.Namespace) -> int:
             for ln in b.lines
         ],
     )
+    if args.covariance and covs:
+        for sig, cv in covs.items():
+            print(f"\n  steady-state covariance of {sig} (E[z z^T]):")
+            _table(["", *cv.components], [[c, *(fmt_num(v, digits=5) for v in row)] for c, row in zip(cv.components, cv.matrix)], indent="    ")
     print(f"\n  {CAUTION}")
     return 0
+
+
+def _covariances(model, budget, wanted: str | None):
+    """Covariances for ``--covariance`` (the named signals) or, by default, every vector signal;
+    ``None`` when the budget has none to give (unstable loop or no white source)."""
+    from loopwright.engine.noise_covariance import signal_covariances
+
+    names = [x.strip() for x in wanted.split(",") if x.strip()] if wanted else None
+    if not budget.sources or not budget.stable:
+        if names:
+            from loopwright.engine.errors import AnalysisError
+
+            raise AnalysisError(f"no covariance: {budget.message or 'no white-noise source'}")
+        return None
+    return signal_covariances(model, names)

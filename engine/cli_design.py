@@ -34,7 +34,7 @@ from loopwright.engine.export import (
 from loopwright.engine.lumped import controller_transfer_function, lumped_controller, sampled_loop_margins
 from loopwright.engine.output_paths import check_diagram_output, check_export_output
 from loopwright.engine.project import save
-from loopwright.engine.recipes import recipe_blocks, redesign, stale_blocks
+from loopwright.engine.recipes import recipe_blocks, recipe_status, redesign, stale_blocks
 
 __all__ = ["add_commands"]
 
@@ -139,6 +139,7 @@ def _design(args: argparse.Namespace) -> int:
                     "poles": poles_to_json(r.poles), "gain_norm": r.gain_norm,
                     "designed_for": r.fingerprint, "warnings": list(r.warnings),
                     "also_sets": {name: params.get("K") for name, params in r.linked.items()},
+                    **_by_products(r),
                 }
                 for r in results
             ],
@@ -147,7 +148,13 @@ def _design(args: argparse.Namespace) -> int:
         return 0
     print(f"{args.file}: {len(results)} block(s) designed" + (" and written" if args.write and results else ""))
     if stale_before:
-        print(f"  stale before: {', '.join(stale_before)}")
+        states = recipe_status(diagram)
+        never = [n for n in stale_before if states.get(n) == "not designed yet"]
+        changed = [n for n in stale_before if n not in never]
+        if never:
+            print(f"  not designed yet: {', '.join(never)}")
+        if changed:
+            print(f"  stale before (plant or recipe changed since designed): {', '.join(changed)}")
     for r in results:
         key = "K" if r.kind == "gain" else "L"
         label = "feedforward" if r.method == "feedforward" else r.method
@@ -163,12 +170,37 @@ def _design(args: argparse.Namespace) -> int:
             "eig(A - B K)" if r.kind == "gain" else "eig(A - L C)")
         print(f"    {what}: {', '.join(fmt_complex(p, digits=6) for p in r.poles)}")
         print(f"    gain size (largest singular value): {fmt_num(r.gain_norm, digits=6)}")
+        extra = _by_products(r)
+        if "riccati_P" in extra:
+            print(f"    Riccati solution P = {_matrix_text(extra['riccati_P'])}")
+            print(f"      cost-to-go from x0: J = x0' P x0 = int (x' Q x + u' R u) dt; trace(P) = {fmt_num(extra['cost_trace'], digits=6)} "
+                  "(the expected cost from a random x0 with unit covariance)")
+        if "error_covariance_P" in extra:
+            print(f"    error covariance P = {_matrix_text(extra['error_covariance_P'])}")
+            print(f"      steady-state RMS estimation error per state: {', '.join(fmt_num(v, digits=5) for v in extra['error_rms'])}")
         for w in r.warnings:
             print(f"    warning: {w}")
     if not args.write and results:
         print("\n  (printed only; run with --write to store these gains in the file)")
     print(f"\n  {CAUTION}")
     return 0
+
+
+def _by_products(r) -> dict:
+    """What the Riccati equation behind an LQR or Kalman design also tells the engineer.
+
+    LQR: ``P`` of ``A'P + PA - (PB + N) R^-1 (B'P + N') + Q = 0``; the optimal cost from
+    ``x0`` is ``x0' P x0`` (Anderson & Moore, Optimal Control: Linear Quadratic Methods,
+    1990, from memory). Kalman filter: ``P = E[e e']`` in steady state, ``e = x - xhat``.
+    """
+    d = getattr(r, "design", None)
+    P = getattr(d, "riccati", None) if d is not None else None
+    if P is None:
+        return {}
+    P = np.asarray(P, dtype=float)
+    if d.method in ("lqr", "dlqr") or (r.kind == "gain" and r.method != "feedforward"):
+        return {"riccati_P": P, "cost_trace": float(np.trace(P)), "cost_note": "J(x0) = x0' P x0"}
+    return {"error_covariance_P": P, "error_rms": np.sqrt(np.maximum(np.diag(P), 0.0))}
 
 
 # ---------------------------------------------------------------------------------------

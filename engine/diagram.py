@@ -22,7 +22,9 @@ __all__ = ["BLOCK_KINDS", "SOURCE_ROLES", "PortRef", "Block", "Wire", "Diagram",
 BLOCK_KINDS = ("plant", "dynamic", "gain", "sum", "integrator", "estimator", "source")
 SOURCE_ROLES = ("reference", "disturbance", "noise")
 
-_NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+# matched with fullmatch: "$" would also let a name end in a newline
+_NAME_RE = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
+_SIGNAL_RE = re.compile(r"[A-Za-z_][A-Za-z0-9_.]*")
 
 
 @dataclass(frozen=True)
@@ -207,7 +209,7 @@ class Diagram:
 
     def check_block_name(self, name: str, *, ignore: str | None = None) -> None:
         """Raise unless ``name`` is a valid, free block name (``ignore``: the block being renamed)."""
-        if not isinstance(name, str) or not _NAME_RE.match(name):
+        if not isinstance(name, str) or not _NAME_RE.fullmatch(name):
             raise ParameterError(
                 f"block name {name!r} is not valid: use letters, digits and '_', starting with a letter", field="name"
             )
@@ -331,7 +333,7 @@ class Diagram:
 
     def check_signal_name(self, name: str, *, ignore: str | None = None) -> None:
         """Raise unless ``name`` is a valid signal name not carried by another wire."""
-        if not isinstance(name, str) or not re.match(r"^[A-Za-z_][A-Za-z0-9_.]*$", name):
+        if not isinstance(name, str) or not _SIGNAL_RE.fullmatch(name):
             raise ParameterError(f"signal name {name!r} is not valid: use letters, digits, '_' and '.'", field="name")
         for w in self.wires.values():
             if w.name == name and w.id != ignore:

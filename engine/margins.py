@@ -34,6 +34,7 @@ import numpy as np
 import scipy.linalg as sla
 import scipy.optimize as sopt
 
+from loopwright.engine.eigen import PoleClasses, classify_poles, matrix_scale
 from loopwright.engine.errors import AnalysisError
 from loopwright.engine.norms import is_stable_matrix, peak_gain
 from loopwright.engine.responses import _as_system, auto_frequency_grid, reduce_model, reduced_response
@@ -41,6 +42,8 @@ from loopwright.engine.structure import minimal_realization, structural_trim, tr
 
 __all__ = [
     "DiskMargin",
+    "GainCrossover",
+    "PhaseCrossover",
     "LoopMargins",
     "VectorLoopMargins",
     "disk_margin_from_alpha",
@@ -60,6 +63,9 @@ class DiskMargin:
     """A disk margin: size ``alpha``, skew, the gain interval it implies and the phase.
 
     ``w_rad_s`` is where ``|S + (sigma - 1)/2|`` peaks (the critical frequency).
+    ``gain_lower`` is exactly ``0`` and ``gain_upper`` exactly ``inf`` when the disk
+    leaves that side unbounded within the accuracy of ``alpha`` (``lower_unbounded`` /
+    ``upper_unbounded`` say so; JSON carries ``0`` / ``"inf"`` and the flags).
     """
 
     alpha: float
@@ -70,8 +76,83 @@ class DiskMargin:
     w_rad_s: float
 
     @property
+    def lower_unbounded(self) -> bool:
+        return self.gain_lower == 0.0
+
+    @property
+    def upper_unbounded(self) -> bool:
+        return bool(np.isinf(self.gain_upper))
+
+    @property
     def gain_db(self) -> tuple[float, float]:
         return _db(self.gain_lower), _db(self.gain_upper)
+
+
+@dataclass(frozen=True)
+class GainCrossover:
+    """One gain crossover ``|L(jw)| = 1``.
+
+    Attributes
+    ----------
+    w_rad_s : float
+        Crossover frequency.
+    phase_margin_deg : float
+        ``angle L(jw) + 180`` wrapped into (-180, 180]: the phase *lag* that would put
+        ``L`` on -1 there (negative: a phase *lead* of that size would).
+    delay_margin_s : float
+        ``((angle L(jw) + 180) mod 360) * pi/180 / w``: the smallest delay that puts
+        ``L e^{-jw tau}`` on -1 at this crossover (``inf`` at ``w = 0``).
+    sets_phase_margin, sets_delay_margin : bool
+        This crossover gives the reported phase margin / delay margin.
+    """
+
+    w_rad_s: float
+    phase_margin_deg: float
+    delay_margin_s: float
+    sets_phase_margin: bool = False
+    sets_delay_margin: bool = False
+
+    def as_dict(self) -> dict:
+        return {
+            "w_rad_s": self.w_rad_s,
+            "phase_margin_deg": self.phase_margin_deg,
+            "delay_margin_s": self.delay_margin_s,
+            "sets_phase_margin": self.sets_phase_margin,
+            "sets_delay_margin": self.sets_delay_margin,
+        }
+
+
+@dataclass(frozen=True)
+class PhaseCrossover:
+    """One phase crossover: ``L(jw)`` real and negative (``w`` may be 0 or ``inf``).
+
+    Attributes
+    ----------
+    w_rad_s : float
+    gain_factor : float
+        ``1/|L(jw)|``: the factor ``g`` that puts ``g L(jw)`` on -1 (the closed loop
+        changes stability there).
+    sets_lower, sets_upper : bool
+        This crossover bounds the gain margin from below / from above.
+    """
+
+    w_rad_s: float
+    gain_factor: float
+    sets_lower: bool = False
+    sets_upper: bool = False
+
+    @property
+    def gain_factor_db(self) -> float:
+        return _db(self.gain_factor)
+
+    def as_dict(self) -> dict:
+        return {
+            "w_rad_s": self.w_rad_s,
+            "gain_factor": self.gain_factor,
+            "gain_factor_db": self.gain_factor_db,
+            "sets_lower": self.sets_lower,
+            "sets_upper": self.sets_upper,
+        }
 
 
 @dataclass
@@ -81,6 +162,15 @@ class LoopMargins:
     ``gain_lower``/``gain_upper`` are absolute factors (``0``/``inf`` when unbounded on
     that side, ``nan`` when the nominal closed loop is unstable). ``*_w_rad_s`` give the
     frequency at which each bound is reached.
+
+    ``open_loop_unstable_poles`` counts poles of ``L`` in the *open* right half-plane
+    (the ``P`` of the Nyquist criterion); poles on the imaginary axis are counted apart
+    (``open_loop_poles``: origin, rest of the axis). ``crossovers`` lists every gain
+    crossover with its phase and delay margin, ``phase_crossings`` every phase crossover
+    with its gain factor, each marked when it sets a margin. ``notes`` are the sentences
+    an engineer needs to read the numbers (e.g. a stable loop with a negative phase
+    margin). ``limits`` holds the performance limits of the loop (Bode's sensitivity
+    integral, bandwidth bounds from right-half-plane poles and zeros) when computed.
     """
 
     closed_loop_stable: bool
@@ -99,6 +189,12 @@ class LoopMargins:
     peak_sensitivity_w_rad_s: float
     disk: DiskMargin
     message: str = ""
+    open_loop_poles: PoleClasses | None = None
+    crossovers: list[GainCrossover] = field(default_factory=list)
+    phase_crossings: list[PhaseCrossover] = field(default_factory=list)
+    delay_margin_w_rad_s: float = np.nan
+    notes: list[str] = field(default_factory=list)
+    limits: object | None = None  # PerformanceLimits (loopwright.engine.limits), when computed
 
     @property
     def gain_margin_db(self) -> tuple[float, float]:
@@ -128,6 +224,12 @@ class LoopMargins:
             "modulus_margin": self.modulus_margin,
             "disk_margin": _disk_dict(self.disk),
             "message": self.message,
+            "open_loop_poles": None if self.open_loop_poles is None else self.open_loop_poles.as_dict(),
+            "delay_margin_w_rad_s": self.delay_margin_w_rad_s,
+            "gain_crossovers": [c.as_dict() for c in self.crossovers],
+            "phase_crossovers": [c.as_dict() for c in self.phase_crossings],
+            "notes": list(self.notes),
+            "limits": None if self.limits is None else self.limits.as_dict(),
         }
 
 
@@ -172,9 +274,14 @@ def _disk_dict(d: DiskMargin) -> dict:
         "skew": d.skew,
         "gain": [d.gain_lower, d.gain_upper],
         "gain_db": list(d.gain_db),
+        "gain_unbounded": [d.lower_unbounded, d.upper_unbounded],
         "phase_deg": d.phase_deg,
         "w_rad_s": d.w_rad_s,
     }
+
+
+# Relative accuracy of alpha (peak_gain's tolerance is 1e-10; one order of slack).
+_ALPHA_RTOL = 1e-9
 
 
 def disk_margin_from_alpha(alpha: float, *, skew: float = 0.0, w_rad_s: float = np.nan) -> DiskMargin:
@@ -192,10 +299,12 @@ def disk_margin_from_alpha(alpha: float, *, skew: float = 0.0, w_rad_s: float = 
     a, s = float(alpha), float(skew)
     if not np.isfinite(a) or a <= 0:
         return DiskMargin(max(a, 0.0) if np.isfinite(a) else np.inf, s, 1.0, 1.0, 0.0, w_rad_s) if a <= 0 or np.isnan(a) else DiskMargin(np.inf, s, 0.0, np.inf, 180.0, w_rad_s)
-    lo = (1.0 - a * (1.0 - s) / 2.0) / (1.0 + a * (1.0 + s) / 2.0)
+    num_lo = 1.0 - a * (1.0 - s) / 2.0
     den = 1.0 - a * (1.0 + s) / 2.0
-    hi = (1.0 + a * (1.0 - s) / 2.0) / den if den > 0 else np.inf
-    lo = max(lo, 0.0)
+    # alpha is known to about _ALPHA_RTOL (a peak-gain computation); a bound whose
+    # numerator or denominator is zero within that is unbounded, not a huge number
+    lo = 0.0 if num_lo <= _ALPHA_RTOL * (1.0 + a) else num_lo / (1.0 + a * (1.0 + s) / 2.0)
+    hi = (1.0 + a * (1.0 - s) / 2.0) / den if den > _ALPHA_RTOL * (1.0 + a) else np.inf
     if np.isinf(hi):
         c = lo
     else:
@@ -276,7 +385,8 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
     def Ljw(w):
         return reduced_response(red, Bt, Ct, D, 1j * np.atleast_1d(np.asarray(w, dtype=float)), B=B, C=C)[:, 0, 0]
 
-    ol_unstable = int(np.sum(red.poles.real >= 0)) if n else 0
+    ol_classes = classify_poles(red.poles, scale=matrix_scale(A)) if n else PoleClasses(0, 0, 0, 0)
+    ol_unstable = ol_classes.open_rhp
     grid = _grid_for(A, B, C, D)
     L = Ljw(grid)
     finite = np.isfinite(L)
@@ -296,6 +406,7 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         dm = float(np.min(delays))
     else:
         pm, pm_w, dm = np.inf, np.nan, np.inf
+        delays = np.zeros(0)
 
     # --- critical gains: L(jw) real and negative ----------------------------------------
     crit: list[tuple[float, float]] = []  # (gain, w)
@@ -350,7 +461,7 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         s_peak, s_w = np.inf, np.nan
         disk = DiskMargin(0.0, skew, 1.0, 1.0, 0.0, np.nan)
         dm = np.nan if not nominal else dm
-    return LoopMargins(
+    out = LoopMargins(
         closed_loop_stable=bool(nominal),
         open_loop_unstable_poles=ol_unstable,
         gain_lower=float(lo_g),
@@ -367,7 +478,55 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         peak_sensitivity_w_rad_s=float(s_w),
         disk=disk,
         message=msg,
+        open_loop_poles=ol_classes,
     )
+    return _with_tables(out, delays, crit)
+
+
+def _with_tables(m: LoopMargins, delays, crit) -> LoopMargins:
+    """Fill ``crossovers``, ``phase_crossings``, ``delay_margin_w_rad_s`` and ``notes``."""
+    wc, pms = np.asarray(m.gain_crossovers_w_rad_s, float), np.asarray(m.phase_margins_deg, float)
+    delays = np.asarray(delays, float)
+    i_pm = int(np.argmin(np.abs(pms))) if pms.size else -1
+    i_dm = int(np.argmin(delays)) if delays.size and np.isfinite(m.delay_margin_s) else -1
+    m.crossovers = [
+        GainCrossover(float(w), float(p), float(d), k == i_pm, k == i_dm) for k, (w, p, d) in enumerate(zip(wc, pms, delays))
+    ]
+    m.delay_margin_w_rad_s = float(wc[i_dm]) if i_dm >= 0 else np.nan
+    stable = m.closed_loop_stable
+    m.phase_crossings = sorted(
+        (
+            PhaseCrossover(
+                float(w), float(g),
+                sets_lower=bool(stable and g == m.gain_lower and m.gain_lower > 0),
+                sets_upper=bool(stable and g == m.gain_upper and np.isfinite(m.gain_upper)),
+            )
+            for g, w in crit
+        ),
+        key=lambda c: c.w_rad_s,
+    )
+    m.notes = _reading_notes(m)
+    return m
+
+
+def _reading_notes(m: LoopMargins) -> list[str]:
+    """Sentences that keep signed or unusual margins from being misread."""
+    notes = []
+    P = m.open_loop_unstable_poles
+    if m.closed_loop_stable and np.isfinite(m.phase_margin_deg) and m.phase_margin_deg < 0:
+        notes.append(
+            f"the closed loop is stable although the phase margin is negative: L has {P} open-loop pole"
+            f"{'s' if P != 1 else ''} in the right half-plane and its Nyquist plot encircles -1 {P} time"
+            f"{'s' if P != 1 else ''} counter-clockwise, as stability requires; the minus sign means a phase lead (not a lag) of "
+            f"{abs(m.phase_margin_deg):.3g} deg at {m.phase_margin_w_rad_s:.4g} rad/s would put L on -1 (a lag needs "
+            f"{360 + m.phase_margin_deg:.4g} deg there, which is what the delay margin counts)"
+        )
+    if m.closed_loop_stable and P and m.gain_lower > 0:
+        notes.append(
+            f"L has {P} open-loop pole{'s' if P != 1 else ''} in the right half-plane: lowering the loop gain below "
+            f"x{m.gain_lower:.4g} loses stability"
+        )
+    return notes
 
 
 def _nearest_critical_gains(crit) -> tuple[float, float, float, float]:
@@ -557,11 +716,15 @@ def margins_from_response(
     else:
         disk = DiskMargin(0.0, skew, 1.0, 1.0, 0.0, np.nan)
         s_peak, s_w, dm = np.inf, np.nan, np.nan
-    return LoopMargins(
+    out = LoopMargins(
         bool(nominal), int(open_loop_unstable_poles), float(lo_g), float(hi_g), float(lo_w), float(hi_w),
         pm, pm_w, dm, [float(x) for x in wc_a], [float(x) for x in pms], sorted({wx for _, wx in crit}),
         float(s_peak), float(s_w), disk, msg,
+        open_loop_poles=PoleClasses(int(open_loop_unstable_poles), int(poles_at_origin), 0, 0),
     )
+    with np.errstate(divide="ignore", invalid="ignore"):
+        delays = np.radians(np.mod(phc_a + 180.0, 360.0)) / np.where(wc_a > 0, wc_a, np.nan) if wc else np.zeros(0)
+    return _with_tables(out, np.where(np.isnan(delays), np.inf, delays), crit)
 
 
 def _grid_peak(w: np.ndarray, g: np.ndarray) -> tuple[float, float]:
@@ -620,21 +783,65 @@ def loop_transfer(diagram, signal: str):
     return A, B, -C, -D
 
 
-def margins_at(diagram, signal: str, *, skew: float = 0.0):
+def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True):
     """Margins of the loop broken at ``signal``: :class:`LoopMargins` for a scalar signal,
-    :class:`VectorLoopMargins` for a vector one."""
+    :class:`VectorLoopMargins` for a vector one.
+
+    ``signal`` may name one component of a vector signal or port, ``"P.u[2]"``: that
+    channel is opened and the other components stay closed (the loop-at-a-time margin of
+    that channel), and the result is a :class:`LoopMargins`. With ``limits`` the scalar
+    results carry :class:`~loopwright.engine.limits.PerformanceLimits` (Bode's sensitivity
+    integral, the right-half-plane pole and zero bounds).
+    """
     if not np.isfinite(skew):
         raise AnalysisError(f"disk-margin skew must be a finite number; got {skew}")
-    A, B, C, D = loop_transfer(diagram, signal)
+    base, component = _split_component(diagram, signal)
+    A, B, C, D = loop_transfer(diagram, base)
     A, B, C, D = _trim_for_margins(A, B, C, D)
     if not np.any(D) and (A.shape[0] == 0 or not np.any(B) or not np.any(C)):
         raise AnalysisError(
             f"no feedback loop passes through {signal!r}: a signal injected there never comes back, so there are no margins to compute"
         )
+    if component is not None:
+        q = D.shape[0]
+        if not 1 <= component <= q:
+            raise AnalysisError(f"{signal!r}: {base!r} has {q} component{'s' if q != 1 else ''}; pick [1] to [{q}]")
+        if D.shape[1] != q:
+            raise AnalysisError(f"a loop transfer must be square; got {D.shape[0]}x{D.shape[1]}")
+        A, B, C, D = _close_channels(A, B, C, D, component - 1)
     if D.shape[0] == 1:
-        return loop_margins(A, B, C, D, skew=skew)
+        m = loop_margins(A, B, C, D, skew=skew)
+        if limits:
+            _attach_limits(m, A, B, C, D)
+        return m
     names = [f"{signal}[{i + 1}]" for i in range(D.shape[0])]
-    return vector_loop_margins(A, B, C, D, skew=skew, channel_names=names)
+    vm = vector_loop_margins(A, B, C, D, skew=skew, channel_names=names)
+    if limits and D.shape[1] == D.shape[0]:
+        for i, m in enumerate(vm.per_channel):
+            _attach_limits(m, *_close_channels(A, B, C, D, i))
+    return vm
+
+
+def _attach_limits(m: LoopMargins, A, B, C, D) -> None:
+    from loopwright.engine.limits import performance_limits
+
+    try:
+        m.limits = performance_limits(A, B, C, D, closed_loop_stable=m.closed_loop_stable, gain_crossovers=m.gain_crossovers_w_rad_s)
+    except (np.linalg.LinAlgError, ValueError):
+        m.limits = None  # the margins stand on their own; the limits are an extra
+
+
+def _split_component(diagram, signal: str) -> tuple[str, int | None]:
+    """``"P.u[2]"`` -> ``("P.u", 2)`` when ``P.u`` is a break point and the text is not itself one."""
+    import re
+
+    match = re.fullmatch(r"(.+)\[(\d+)\]", signal)
+    if not match:
+        return signal, None
+    wires = {w.name for w in diagram.wires.values()}
+    if signal in wires:
+        return signal, None
+    return match.group(1), int(match.group(2))
 
 
 def _trim_for_margins(A, B, C, D):

@@ -4,36 +4,49 @@ Blocks are listed with their names; wires refer to ports as ``"block.port"``, so
 stays readable and hand-editable. Internal ids are given in file order when loading.
 The structure is described by ``resources/diagram.schema.json``.
 
-Loading checks structure only (JSON, our format, known kinds, wires between existing
-ports). A diagram whose parameters are wrong still opens, so the app can show what is
-wrong; :func:`loopwright.engine.validation.problems` reports it.
+Loading refuses a file that breaks the schema (types, names, known fields, widths) or the
+rules around it (finite numbers, bounded nesting and size, unique names, wires between
+existing ports), with one line naming the JSON path. A diagram whose parameters are well
+typed but do not fit together (shapes, widths of connected ports) still opens, so the app
+can show what is wrong; :func:`loopwright.engine.validation.problems` reports it.
 """
 from __future__ import annotations
 
 import errno
+import functools
 import json
+import math
 import os
 import re
 import stat
 import tempfile
 import time
+from collections.abc import Sequence
+from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from loopwright.engine.diagram import BLOCK_KINDS, Diagram
+from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import EngineError, FormatVersionError, ProjectFileError
 from loopwright.engine.output_paths import display_path, require_writable
+from loopwright.engine.validation import MAX_TOTAL_WIDTH, declared_width
 
 try:
     import fcntl
 except ImportError:  # Windows: no advisory locks; see _remove_stale_temps
     fcntl = None
 
-__all__ = ["FORMAT_NAME", "FORMAT_VERSION", "FILE_SUFFIX", "load", "loads", "save", "dumps", "to_dict", "from_dict", "atomic_write"]
+__all__ = [
+    "FORMAT_NAME", "FORMAT_VERSION", "FILE_SUFFIX", "MAX_NESTING", "load", "loads", "save", "dumps", "to_dict", "from_dict",
+    "schema", "atomic_write",
+]
 
 FORMAT_NAME = "loopwright-diagram"
 FORMAT_VERSION = 1
 FILE_SUFFIX = ".lwd"
+# A diagram nests at most eight levels (a transfer-function matrix inside a block); the
+# bound keeps the JSON decoder and everything after it far from Python's recursion limit.
+MAX_NESTING = 40
 
 
 def to_dict(diagram: Diagram) -> dict[str, Any]:
@@ -69,98 +82,341 @@ def dumps(diagram: Diagram) -> str:
     return json.dumps(to_dict(diagram), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
 
 
-def _field(obj: dict, key: str, kind: type | tuple, where: str, *, default: Any = ...) -> Any:
-    if key not in obj:
-        if default is not ...:
-            return default
-        raise ProjectFileError(f"{where}: missing field {key!r}")
-    val = obj[key]
-    if not isinstance(val, kind) or isinstance(val, bool) and kind is not bool:
-        names = kind.__name__ if isinstance(kind, type) else " or ".join(k.__name__ for k in kind)
-        raise ProjectFileError(f"{where}: field {key!r} must be {_article(names)}, got {type(val).__name__}")
-    return val
+def _parse(text: str, origin: str) -> tuple[Any, bool]:
+    """JSON text -> ``(data, odd)``; ``odd``: the text holds NaN, Infinity or an out-of-range number.
+
+    Deep nesting is refused before the decoder recurses into it.
+    """
+    _refuse_deep_nesting(text, origin)
+    odd: list[_NonFinite] = []
+
+    def constant(token: str) -> _NonFinite:
+        odd.append(_NonFinite(token))
+        return odd[-1]
+
+    def real(token: str) -> float | _NonFinite:
+        value = float(token)
+        return value if math.isfinite(value) else constant(token)
+
+    def whole(token: str) -> int | _NonFinite:
+        try:
+            value = int(token)
+            float(value)  # a whole number the float range cannot hold is no use to the numerics
+        except (ValueError, OverflowError):  # ValueError: beyond Python's digit limit for int()
+            return constant(token)
+        return value
+
+    try:
+        if not _OUT_OF_RANGE_HINT.search(text):  # the usual case: the C decoder reads every number itself
+            return json.loads(text, parse_constant=constant), bool(odd)
+        return json.loads(text, parse_constant=constant, parse_float=real, parse_int=whole), bool(odd)
+    except json.JSONDecodeError as err:
+        raise ProjectFileError(f"{origin}: not valid JSON (line {err.lineno}, column {err.colno}: {err.msg})") from err
+    except RecursionError as err:  # unreachable after the nesting check; kept as the last guard
+        raise ProjectFileError(f"{origin}: not a Loopwright diagram (nested too deeply to read)") from err
 
 
-def _article(name: str) -> str:
-    return {"dict": "an object", "list": "a list", "str": "a string", "int": "a whole number"}.get(name, name)
+# Text that may hold a number beyond the float range: 309 digits in a row, or an exponent
+# of 100 or more. Only then are the numbers parsed one by one to find it.
+_OUT_OF_RANGE_HINT = re.compile(r"\d{309}|[eE]\+?0*[1-9]\d\d")
+
+
+class _NonFinite:
+    """What the parser makes of ``NaN``, ``Infinity`` and numbers beyond the float range.
+
+    Kept as a marker (not a float) so the checks after parsing can name where it stands.
+    """
+
+    def __init__(self, token: str):
+        digits = sum(c.isdigit() for c in token)
+        self.token = token if len(token) <= 24 else f"{token[:12]}...{token[-6:]} ({digits} digits)"
+
+
+_NESTING_TOKEN = re.compile(r'[\[\]{}"]')
+
+
+def _refuse_deep_nesting(text: str, origin: str) -> None:
+    """Raise when ``[``/``{`` nest deeper than :data:`MAX_NESTING` (counted outside strings)."""
+    depth, pos = 0, 0
+    while found := _NESTING_TOKEN.search(text, pos):
+        char, pos = found.group(), found.end()
+        if char == '"':
+            try:
+                pos = json.decoder.scanstring(text, pos)[1]  # the decoder's own string reader, in C
+            except ValueError:
+                return  # a broken string: the decoder stops there, before any deeper nesting
+        elif char in "[{":
+            depth += 1
+            if depth > MAX_NESTING:
+                raise ProjectFileError(
+                    f"{origin}: lists or objects nested more than {MAX_NESTING} levels deep "
+                    f"(line {text.count(chr(10), 0, found.start()) + 1}); a Loopwright diagram needs fewer than ten"
+                )
+        else:
+            depth -= 1
+
+
+def _refuse_odd_values(data: Any, origin: str) -> None:
+    """Non-finite numbers and over-deep nesting, named by JSON path (also for dicts given directly)."""
+    stack: list[tuple[Any, tuple]] = [(data, ())]
+    while stack:
+        value, path = stack.pop()
+        if len(path) > MAX_NESTING:
+            raise ProjectFileError(f"{origin}: {_json_path(path)}{_owner(data, path)}: nested more than {MAX_NESTING} levels deep")
+        if isinstance(value, dict):
+            stack.extend((v, (*path, k)) for k, v in reversed(value.items()))
+        elif isinstance(value, list):
+            stack.extend((v, (*path, k)) for k, v in reversed(list(enumerate(value))))
+        elif isinstance(value, _NonFinite) or isinstance(value, float) and not math.isfinite(value):
+            token = value.token if isinstance(value, _NonFinite) else repr(value)
+            raise ProjectFileError(
+                f"{origin}: {_json_path(path)}{_owner(data, path)}: {token} is not a finite number "
+                "(a diagram holds finite numbers only, at most about 1.8e308 in size)"
+            )
+
+
+def _json_path(path: Sequence[Any]) -> str:
+    """``("blocks", 3, "params", "A")`` -> ``blocks[3].params.A``."""
+    out = ""
+    for part in path:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        elif _PLAIN_KEY.fullmatch(part):
+            out += f".{part}" if out else part
+        else:
+            out += f"[{_show(part)}]"
+    return out or "the top level"
+
+
+_PLAIN_KEY = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
+
+
+def _owner(data: Any, path: Sequence[Any]) -> str:
+    """`` (block 'P')`` or `` (wire 'u')`` for a path inside one, else ``""``."""
+    if len(path) < 2 or path[0] not in ("blocks", "wires") or not isinstance(path[1], int):
+        return ""
+    try:
+        entry = data[path[0]][path[1]]
+    except (LookupError, TypeError):
+        return ""
+    key, noun = ("name", "block") if path[0] == "blocks" else ("signal", "wire")
+    name = entry.get(key) if isinstance(entry, dict) else None
+    return f" ({noun} {_show(name)})" if isinstance(name, str) else ""
+
+
+def _show(value: Any) -> str:
+    """A value as the message shows it: short, on one line."""
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, dict):
+        return "an object"
+    if isinstance(value, list):
+        return "an empty list" if not value else "a list"
+    text = repr(value)
+    return text if len(text) <= 42 else f"{text[:30]}...{text[-8:]}"
+
+
+@functools.cache
+def _validator():
+    """A validator for :func:`schema`, made faster without changing what it accepts.
+
+    ``$ref`` s are resolved once here rather than at every value, and a list whose items
+    must be plain numbers is scanned in one loop, with the per-item machinery run only for
+    an item that fails (so its error reads as usual). Matrices hold most of a file's values.
+    """
+    import jsonschema
+    from jsonschema import validators
+
+    base = jsonschema.Draft202012Validator
+    plain_items = base.VALIDATORS["items"]
+
+    def items(validator, subschema, instance, parent):
+        if isinstance(instance, list) and subschema == {"type": "number"}:
+            for k, value in enumerate(instance):
+                if type(value) is not float and type(value) is not int:  # bool is not a number here
+                    yield from validator.descend(value, subschema, path=k)
+            return
+        yield from plain_items(validator, subschema, instance, parent)
+
+    text = (resources.files("loopwright.resources") / "diagram.schema.json").read_text(encoding="utf-8")
+    full = json.loads(text)
+    return validators.extend(base, validators={"items": items})(_inline_refs(full, full["$defs"])), full
+
+
+def _inline_refs(node: Any, defs: dict[str, Any]) -> Any:
+    """``node`` with every ``{"$ref": "#/$defs/x"}`` replaced by that definition (the schema has no cycles)."""
+    if isinstance(node, list):
+        return [_inline_refs(v, defs) for v in node]
+    if not isinstance(node, dict):
+        return node
+    out = {k: _inline_refs(v, defs) for k, v in node.items() if k not in ("$ref", "$defs")}
+    if "$ref" in node:
+        out = {**_inline_refs(defs[node["$ref"].removeprefix("#/$defs/")], defs), **out}
+    return out
+
+
+def schema() -> dict[str, Any]:
+    """The JSON Schema every project file is validated against (``resources/diagram.schema.json``)."""
+    return _validator()[1]
+
+
+_TYPE_NAMES = {"object": "an object", "array": "a list", "string": "text", "number": "a number", "integer": "a whole number",
+               "boolean": "true or false", "null": "null"}
+
+
+def _schema_message(err) -> tuple[tuple, str]:
+    """``(path, what is wrong)`` for one jsonschema error, in words an engineer reads."""
+    path, kw, val, inst = tuple(err.absolute_path), err.validator, err.validator_value, err.instance
+    title = err.schema.get("title") if isinstance(err.schema, dict) else None
+    if kw == "required":
+        missing = [k for k in val if k not in inst]
+        return path, f"missing field {_show(missing[0])}"
+    if kw == "additionalProperties":
+        known = list(err.schema.get("properties", {}))
+        extra = sorted(set(inst) - set(known))
+        return path, f"unknown field {_show(extra[0])}" + (f" (known: {', '.join(known)})" if known else "")
+    if kw == "propertyNames":
+        return path, f"{err.message.splitlines()[0]}"
+    if kw in ("enum", "const"):
+        choices = val if kw == "enum" else [val]
+        return path, f"{_show(inst)} is not one of {', '.join(c if isinstance(c, str) else _show(c) for c in choices)}"
+    if kw == "pattern":
+        return path, f"{_show(inst)} is not {title or 'in the expected form'}"
+    if kw in ("minimum", "maximum", "exclusiveMinimum", "exclusiveMaximum"):
+        words = {"minimum": "less than", "maximum": "more than", "exclusiveMinimum": "not more than",
+                 "exclusiveMaximum": "not less than"}[kw]
+        return path, f"{_show(inst)} is {words} {_show(val)}; expected {title or _TYPE_NAMES.get(err.schema.get('type'), 'a number')}"
+    if kw in ("minItems", "maxItems"):
+        count = f"{len(inst)} entr{'y' if len(inst) == 1 else 'ies'}"
+        return path, f"has {count}, expected {'at least' if kw == 'minItems' else 'at most'} {val}" + (f" ({title})" if title else "")
+    if kw == "type" or kw in ("anyOf", "oneOf"):
+        expected = title or (" or ".join(_TYPE_NAMES.get(t, t) for t in ([val] if isinstance(val, str) else val)) if kw == "type" else "another form")
+        return path, f"expected {expected}, got {_show(inst)}"
+    return path, err.message.splitlines()[0][:120]
+
+
+def _refuse_schema_errors(data: dict, origin: str) -> None:
+    errors = list(_validator()[0].iter_errors(data))
+    if errors:
+        err = _most_telling(min(errors, key=lambda e: _document_order(data, e.absolute_path)))
+        path, what = _schema_message(err)
+        raise ProjectFileError(f"{origin}: {_json_path(path)}{_owner(data, path)}: {what}")
+
+
+def _document_order(data: Any, path: Sequence[Any]) -> tuple:
+    """Sort key: where ``path`` stands in the file (the first fault is the one reported)."""
+    key, node = [], data
+    for part in path:
+        if isinstance(node, dict):
+            key.append(list(node).index(part) if part in node else len(node))
+        else:
+            key.append(part if isinstance(part, int) else 0)
+        try:
+            node = node[part]
+        except (LookupError, TypeError):
+            break
+    return tuple(key)
+
+
+def _most_telling(err):
+    """Inside ``anyOf`` (a matrix: number, list or rows): follow the form the value came closest to.
+
+    That is the alternative with the fewest errors below the value itself (the deepest on
+    a tie); when every alternative fails at the value itself (``null`` for a matrix), the
+    ``anyOf`` stands and its title says what was expected.
+    """
+    while err.validator in ("anyOf", "oneOf") and err.context:
+        branches: dict[Any, list] = {}
+        for sub in err.context:
+            branches.setdefault(sub.relative_schema_path[0], []).append(sub)
+        inside = [subs for subs in branches.values() if all(len(e.relative_path) for e in subs)]
+        if not inside:
+            break
+        chosen = min(inside, key=lambda subs: (len(subs), -max(len(e.relative_path) for e in subs)))
+        err = min(chosen, key=lambda e: tuple(e.relative_path))
+    return err
 
 
 def from_dict(data: Any, *, origin: str = "project file") -> Diagram:
     """Build a :class:`Diagram` from the JSON-native form.
+
+    The data are validated against :func:`schema` first, then the rules a schema cannot
+    state: finite numbers, bounded nesting and total width, unique names, wires between
+    existing ports.
 
     Raises
     ------
     FormatVersionError
         Written by a newer Loopwright.
     ProjectFileError
-        Not our format, or a malformed field (named, with the block or wire it belongs to).
+        Not our format, or a malformed field: one line naming the JSON path
+        (``blocks[3].params.waveform.intensity``) and the block or wire it belongs to.
     """
+    return _build(data, origin, scan=True)
+
+
+def _build(data: Any, origin: str, *, scan: bool) -> Diagram:
+    """:func:`from_dict`; ``scan``: look for non-finite numbers and deep nesting (the parser may have done it)."""
     if not isinstance(data, dict):
         raise ProjectFileError(f"{origin}: not a Loopwright diagram (the top level must be a JSON object)")
     if data.get("format") != FORMAT_NAME:
-        raise ProjectFileError(f"{origin}: not a Loopwright diagram (format is {data.get('format')!r}, expected {FORMAT_NAME!r})")
+        raise ProjectFileError(f"{origin}: not a Loopwright diagram (format is {_show(data.get('format'))}, expected {FORMAT_NAME!r})")
     version = data.get("version")
-    if not isinstance(version, int) or isinstance(version, bool) or version < 1:
-        raise ProjectFileError(f"{origin}: version {version!r} is not a positive whole number")
+    if not (isinstance(version, int) and not isinstance(version, bool) or isinstance(version, float) and version.is_integer()) or version < 1:
+        raise ProjectFileError(f"{origin}: version {_show(version)} is not a positive whole number")
     if version > FORMAT_VERSION:
         raise FormatVersionError(
-            f"{origin}: written by a newer Loopwright (file format {version}, this version reads up to {FORMAT_VERSION}); "
+            f"{origin}: written by a newer Loopwright (file format {int(version)}, this version reads up to {FORMAT_VERSION}); "
             "update Loopwright to open it"
         )
+    if scan:
+        _refuse_odd_values(data, origin)
+    _refuse_schema_errors(data, origin)
     d = Diagram()
-    d.meta = _field(data, "meta", dict, origin, default={})
-    d.settings = _field(data, "settings", dict, origin, default={})
-    for k, entry in enumerate(_field(data, "blocks", list, origin), 1):
-        where = f"{origin}: block #{k}"
-        if not isinstance(entry, dict):
-            raise ProjectFileError(f"{where} must be an object")
-        name = _field(entry, "name", str, where)
-        where = f"{origin}: block {name!r}"
-        kind = _field(entry, "kind", str, where)
-        if kind not in BLOCK_KINDS:
-            raise ProjectFileError(f"{where}: unknown block kind {kind!r} (known: {', '.join(BLOCK_KINDS)})")
-        params = _field(entry, "params", dict, where)
-        layout = _field(entry, "layout", dict, where, default={})
-        caption = _field(entry, "caption", str, where, default="")
+    d.meta = data.get("meta", {})
+    d.settings = data.get("settings", {})
+    for k, entry in enumerate(data["blocks"]):
+        layout = entry.get("layout", {})
         try:
-            d.add_block(kind, name, params, layout=layout, caption=caption)
+            bid = d.add_block(entry["kind"], entry["name"], entry["params"], layout=layout, caption=entry.get("caption", ""))
         except EngineError as err:
-            raise ProjectFileError(f"{where}: {err.message}") from err
+            raise ProjectFileError(f"{origin}: {_json_path(('blocks', k))}{_owner(data, ('blocks', k))}: {err.message}") from err
         # keep the layout exactly as written, so load-then-save gives the same file
-        d.blocks[next(reversed(d.blocks))].layout = layout
-    for k, entry in enumerate(_field(data, "wires", list, origin), 1):
-        where = f"{origin}: wire #{k}"
-        if not isinstance(entry, dict):
-            raise ProjectFileError(f"{where} must be an object")
-        signal = _field(entry, "signal", str, where)
-        where = f"{origin}: wire {signal!r}"
-        src = _field(entry, "from", str, where)
-        targets = _field(entry, "to", list, where)
-        if not targets:
-            raise ProjectFileError(f"{where}: 'to' lists no input port")
+        d.blocks[bid].layout = layout
+    # Before anything of that size exists: a width typed with a zero too many would cost
+    # minutes and gigabytes before a width mismatch is reported.
+    total, largest = declared_width(d.blocks.values())
+    if total > MAX_TOTAL_WIDTH:
+        path = ("blocks", list(d.blocks).index(largest.id), "params", "width")
+        raise ProjectFileError(
+            f"{origin}: the widths add up to {total} signal components, at most {MAX_TOTAL_WIDTH} "
+            f"(largest: {_json_path(path)}{_owner(data, path)}); is a width mistyped?"
+        )
+    for k, entry in enumerate(data["wires"]):
+        signal, src = entry["signal"], entry["from"]
         wid = None
-        for t in targets:
-            if not isinstance(t, str):
-                raise ProjectFileError(f"{where}: each entry of 'to' must be 'block.port'")
+        for j, target in enumerate(entry["to"]):
             try:
-                wid = d.connect(src, t, name=signal)
+                wid = d.connect(src, target, name=signal)
             except EngineError as err:
-                raise ProjectFileError(f"{where}: {err.message}") from err
+                path = ("wires", k, "to", j)
+                raise ProjectFileError(f"{origin}: {_json_path(path)}{_owner(data, path)}: {err.message}") from err
         if d.wires[wid].name != signal:
-            raise ProjectFileError(f"{where}: a second wire leaves {src}; one output port carries one wire (list every target in 'to')")
-        layout = _field(entry, "layout", dict, where, default=None)
-        if layout is not None:
-            d.wires[wid].layout = layout
+            raise ProjectFileError(
+                f"{origin}: {_json_path(('wires', k))}{_owner(data, ('wires', k))}: a second wire leaves {src} "
+                f"(wire {d.wires[wid].name!r} does already); one output port carries one wire (list every target in 'to')"
+            )
+        if "layout" in entry:
+            d.wires[wid].layout = entry["layout"]
     return d
 
 
 def loads(text: str, *, origin: str = "project file") -> Diagram:
     """Parse project-file text; see :func:`from_dict` for the errors."""
-    try:
-        data = json.loads(text)
-    except json.JSONDecodeError as err:
-        raise ProjectFileError(f"{origin}: not valid JSON (line {err.lineno}, column {err.colno}: {err.msg})") from err
-    return from_dict(data, origin=origin)
+    data, odd = _parse(text, origin)
+    return _build(data, origin, scan=odd)
 
 
 def load(path: str | os.PathLike) -> Diagram:
@@ -172,15 +428,21 @@ def load(path: str | os.PathLike) -> Diagram:
         Missing, unreadable, not JSON, not ours, malformed (see :func:`from_dict`).
     """
     p = Path(path)
+    shown = _printable(str(p))
     try:
         text = p.read_text(encoding="utf-8")
     except FileNotFoundError as err:
-        raise ProjectFileError(f"{p}: no such file") from err
+        raise ProjectFileError(f"{shown}: no such file") from err
     except IsADirectoryError as err:
-        raise ProjectFileError(f"{p}: is a folder, not a diagram file") from err
+        raise ProjectFileError(f"{shown}: is a folder, not a diagram file") from err
     except (OSError, UnicodeDecodeError) as err:
-        raise ProjectFileError(f"{p}: cannot be read ({err.__class__.__name__}: {err})") from err
-    return loads(text, origin=str(p))
+        raise ProjectFileError(f"{shown}: cannot be read ({err.__class__.__name__}: {_printable(str(err))})") from err
+    return loads(text, origin=shown)
+
+
+def _printable(text: str) -> str:
+    """``text`` with control characters escaped, so a message stays on one line."""
+    return text if text.isprintable() else "".join(c if c.isprintable() else repr(c)[1:-1] for c in text)
 
 
 # A save writes ".NAME.XXXXXXXX.tmp" beside NAME (``tempfile.mkstemp``: eight characters

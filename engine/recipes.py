@@ -86,6 +86,7 @@ __all__ = [
     "recipe_plant",
     "recipe_fingerprint",
     "stale_blocks",
+    "recipe_status",
     "noise_defaults",
     "design_block",
     "redesign",
@@ -235,16 +236,31 @@ def stale_blocks(diagram: Diagram) -> list[str]:
     from :func:`recipe_fingerprint` -- the plant's matrices, the recipe, or (feedforward)
     the feedback gain changed. A recipe that cannot even be read (missing plant, bad
     method) also counts as stale: the block's matrix cannot be vouched for.
+    :func:`recipe_status` tells these cases apart.
     """
-    out = []
+    return [name for name, state in recipe_status(diagram).items() if state]
+
+
+def recipe_status(diagram: Diagram) -> dict[str, str]:
+    """Each block with a recipe and why its matrix cannot be vouched for.
+
+    Returns
+    -------
+    dict
+        block name -> ``""`` (designed for the current plant and recipe),
+        ``"not designed yet"`` (no ``designed_for``: the recipe was never run),
+        ``"stale"`` (the plant, the recipe or the feedback gain changed since), or
+        ``"recipe cannot be read: <reason>"``.
+    """
+    out: dict[str, str] = {}
     for b in recipe_blocks(diagram):
         try:
             current = recipe_fingerprint(diagram, b)
-        except EngineError:
-            out.append(b.name)
+        except EngineError as err:
+            out[b.name] = f"recipe cannot be read: {err}"
             continue
-        if b.params["recipe"].get("designed_for") != current:
-            out.append(b.name)
+        stored = b.params["recipe"].get("designed_for")
+        out[b.name] = "not designed yet" if not stored else ("stale" if stored != current else "")
     return out
 
 

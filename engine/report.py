@@ -15,8 +15,9 @@ import numpy as np
 from loopwright.engine import CAUTION
 from loopwright.engine.audit import AuditRow, path_audit
 from loopwright.engine.check import CheckReport, pole_table, summarize
-from loopwright.engine.cli_common import fmt_complex, fmt_num
+from loopwright.engine.cli_common import fmt_num
 from loopwright.engine.diagram import Diagram, PortRef
+from loopwright.engine.eigen import format_pole, trustworthy_digits
 from loopwright.engine.errors import EngineError
 from loopwright.engine.margins import LoopMargins, VectorLoopMargins, margins_at
 from loopwright.engine.noise import NoiseBudget, noise_budget, white_sources
@@ -49,9 +50,14 @@ class LoopReport:
             "states": chk.states,
             "stable": chk.stable,
             "rhp_poles": chk.rhp_poles,
+            "pole_classes": None if chk.pole_classes is None else chk.pole_classes.as_dict(),
+            "pole_bounds": list(chk.pole_bounds),
+            "pole_source": chk.pole_source,
             "poles": [[p.real, p.imag] for p in chk.poles],
             "pole_table": pole_table(chk.poles),
-            "separation": None if sep is None else {"matches": sep.matches, "expected": [[p.real, p.imag] for p in sep.expected]},
+            "separation": None
+            if sep is None
+            else {"matches": sep.matches, "verdict": sep.verdict, "decoupled": sep.decoupled, "expected": [[p.real, p.imag] for p in sep.expected]},
             "loop_break": self.loop_break,
             "margins": None if self.margins is None else self.margins.as_dict(),
             "margins_error": self.margins_error or None,
@@ -141,15 +147,23 @@ def loop_report(diagram: Diagram, *, top: int = 5) -> LoopReport:
 
 def _margin_lines(m: LoopMargins, indent: str) -> list[str]:
     lo, hi = m.gain_margin_db
-    return [
+    ol = m.open_loop_poles.phrase() if m.open_loop_poles is not None else f"{m.open_loop_unstable_poles} in the right half-plane"
+    dm_at = f" (set by the crossover at {fmt_num(m.delay_margin_w_rad_s, digits=4)} rad/s)" if np.isfinite(m.delay_margin_w_rad_s) else ""
+    lines = [
+        f"{indent}open-loop poles  {ol}",
         f"{indent}gain margin      x{fmt_num(m.gain_lower, digits=4)} .. x{fmt_num(m.gain_upper, digits=4)} "
         f"({fmt_num(lo, digits=4)} dB .. {fmt_num(hi, digits=4)} dB)",
-        f"{indent}phase margin     {fmt_num(m.phase_margin_deg, digits=4)} deg at {fmt_num(m.phase_margin_w_rad_s, digits=4)} rad/s",
-        f"{indent}delay margin     {fmt_num(m.delay_margin_s, digits=4)} s",
+        f"{indent}phase margin     {fmt_num(m.phase_margin_deg, digits=4)} deg at {fmt_num(m.phase_margin_w_rad_s, digits=4)} rad/s"
+        + (f" ({len(m.crossovers)} gain crossovers; 'loopwright margins' lists each)" if len(m.crossovers) > 1 else ""),
+        f"{indent}delay margin     {fmt_num(m.delay_margin_s, digits=4)} s{dm_at}",
         f"{indent}peak |S|         {fmt_num(m.peak_sensitivity, digits=4)} at {fmt_num(m.peak_sensitivity_w_rad_s, digits=4)} rad/s",
         f"{indent}disk margin      alpha {fmt_num(m.disk.alpha, digits=4)}: gain x{fmt_num(m.disk.gain_lower, digits=4)} .. "
         f"x{fmt_num(m.disk.gain_upper, digits=4)}, phase +-{fmt_num(m.disk.phase_deg, digits=4)} deg",
     ]
+    lines += [f"{indent}note: {n}" for n in m.notes]
+    if m.limits is not None:
+        lines += [f"{indent}{line}" for line in m.limits.lines()]
+    return lines
 
 
 def format_report(rep: LoopReport, *, origin: str = "") -> str:
@@ -162,19 +176,24 @@ def format_report(rep: LoopReport, *, origin: str = "") -> str:
         out.append(f"  {rep.description}")
     out.append("")
     out.append(f"Assembled model: {chk.states} states, {len(chk.signals)} signals, {len(chk.sources)} sources")
-    out.append("  closed-loop poles (damping, natural frequency rad/s):")
-    for row, p in zip(pole_table(chk.poles), chk.poles):
-        out.append(f"    {fmt_complex(p, digits=5):<24} {fmt_num(row['damping'], digits=3):>6}  {fmt_num(row['wn_rad_s'], digits=5)}")
-    verdict = "stable" if chk.stable else f"NOT stable ({chk.rhp_poles} right-half-plane poles)"
+    out.append(f"  closed-loop poles (damping, natural frequency rad/s; {chk.pole_source_text}):")
+    for row, p, b in zip(pole_table(chk.poles), chk.poles, chk.pole_bounds):
+        d = trustworthy_digits(p, b, max_digits=5)
+        out.append(f"    {format_pole(p, b, max_digits=5):<24} {fmt_num(row['damping'], digits=max(1, min(d, 3))):>6}  {fmt_num(row['wn_rad_s'], digits=max(1, d))}")
+    classes = chk.pole_classes
+    verdict = "stable" if chk.stable else f"NOT stable ({classes.phrase() if classes is not None else chk.rhp_poles})"
     out.append(f"  verdict: {verdict}")
     sep = chk.separation
     if sep is not None:
-        out.append(
-            "  separation: closed-loop poles "
-            + ("=" if sep.matches else "differ from")
-            + " eig(A - B K) together with eig(A - L C)"
-            + (f" (gap {sep.max_mismatch:.1e})" if sep.matches else "")
-        )
+        if sep.decoupled:
+            out.append("  separation: closed-loop poles = eig(A - B K) together with eig(A - L C) (by structure: the estimation error is not driven by the loop)")
+        else:
+            out.append(
+                "  separation: closed-loop poles "
+                + {"holds": "=", "unconfirmed": "cannot be confirmed to equal (ill-conditioned)", "not_separated": "differ from"}[sep.verdict]
+                + " eig(A - B K) together with eig(A - L C)"
+                + (f" (gap {sep.max_mismatch:.1e})" if sep.matches else "")
+            )
     out.append("")
     if rep.margins is not None:
         out.append(f"Margins with the loop broken at {rep.loop_break}:")
@@ -203,8 +222,10 @@ def format_report(rep: LoopReport, *, origin: str = "") -> str:
     for r in rep.audit:
         out.append(
             f"  {r.source:<8} {r.signal:<12} {fmt_num(r.peak_gain, digits=4):>11} {fmt_num(r.peak_freq_rad_s, digits=4):>10} "
-            f"{fmt_num(r.dc_gain, digits=4):>11}  {' '.join(r.blocks)}"
+            f"{fmt_num(r.dc_gain, digits=4) + ('*' if r.dc_gain_kind != 'signed value' else ''):>11}  {' '.join(r.blocks)}"
         )
+    if any(r.dc_gain_kind != "signed value" for r in rep.audit):
+        out.append("  (DC gain: signed for a scalar path; * largest singular value of a vector path's DC gain matrix)")
     if chk.warnings or rep.notes:
         out.append("")
         out.extend(f"warning: {w}" for w in chk.warnings)

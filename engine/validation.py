@@ -7,13 +7,24 @@ from __future__ import annotations
 
 import ast
 import re
+from collections.abc import Iterable
 from typing import Any
 
 import numpy as np
 
 from loopwright.engine.errors import ParameterError
 
-__all__ = ["as_matrix", "as_vector", "as_width", "parse_matrix_text", "problems"]
+__all__ = [
+    "MAX_WIDTH", "MAX_TOTAL_WIDTH", "as_matrix", "as_vector", "as_width", "declared_width", "parse_matrix_text", "problems",
+]
+
+# Widths are typed by hand, so a typo (10000 for 100) must be refused before anything of
+# that size is allocated: a summing junction's matrix grows with width x width x inputs.
+# The schema (resources/diagram.schema.json, $defs/width) states the same maximum.
+MAX_WIDTH = 1000
+# The sum of declared widths over every port they size (a summing junction's inputs and
+# output, an integrator's input and output, a source's output): bounds the assembled model.
+MAX_TOTAL_WIDTH = 5000
 
 
 def as_matrix(
@@ -100,11 +111,40 @@ def as_vector(value: Any, *, where: str, field: str, length: int | None = None, 
 
 
 def as_width(value: Any, *, where: str, field: str = "width", block_id: str | None = None) -> int:
-    """A signal width: a whole number from 1 to 10000."""
+    """A signal width: a whole number from 1 to :data:`MAX_WIDTH`."""
     ids = [block_id] if block_id else []
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or value != int(value) or not 1 <= value <= 10000:
-        raise ParameterError(f"{where}: {field} is {value!r}, expected a whole number from 1 to 10000", field=field, block_ids=ids)
+    # the range test comes first: int() of NaN or infinity raises
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 1 <= value <= MAX_WIDTH or value != int(value):
+        shown = repr(value) if len(repr(value)) <= 40 else f"{repr(value)[:36]}..."
+        raise ParameterError(
+            f"{where}: {field} is {shown}, expected a whole number from 1 to {MAX_WIDTH}", field=field, block_ids=ids
+        )
     return int(value)
+
+
+def declared_width(blocks: Iterable[Any]) -> tuple[int, Any]:
+    """``(total, largest)``: the signal components the blocks' ``width`` parameters size, and the block sizing most.
+
+    A summing junction sizes its inputs and its output, an integrator its input and
+    output, a source its output; other blocks take their widths from their matrices,
+    which the file spells out. Compare the total with :data:`MAX_TOTAL_WIDTH` before
+    building anything. Malformed widths count as 1 (their own error is reported elsewhere).
+    """
+    total, largest, most = 0, None, -1
+    for block in blocks:
+        ports = {"sum": None, "integrator": 2, "source": 1}.get(block.kind, 0)
+        if ports is None:
+            signs = block.params.get("signs")
+            ports = len(signs) + 1 if isinstance(signs, list) else 1
+        try:
+            width = as_width(block.params.get("width", 1), where="")
+        except ParameterError:
+            width = 1
+        size = ports * width
+        total += size
+        if ports and size > most:
+            largest, most = block, size
+    return total, largest
 
 
 def _count(k: int, noun: str) -> str:

@@ -99,6 +99,7 @@ def pair_frequency_response(
     points: int | None = None,
     drawing: bool = False,
     reduced=None,
+    w=None,
 ) -> PairResponse:
     """Frequency response of the path ``source -> signal`` of an assembled model.
 
@@ -110,7 +111,8 @@ def pair_frequency_response(
     signal : str
         A signal name (or one component, ``name[k]``).
     w_min, w_max : float, optional
-        Frequency span in rad/s (default: two decades beyond the model's poles).
+        Frequency span in rad/s (default: two decades beyond the model's poles). ``w_min = 0``
+        asks for a grid from DC: the DC point, then the log grid above it.
     points : int, optional
         A plain log-spaced grid of this many points; without it the grid is automatic
         (dense at lightly damped poles) and refined at the response's peaks.
@@ -119,6 +121,8 @@ def pair_frequency_response(
         instead of the command line's automatic grid.
     reduced : ReducedModel, optional
         A reduction of ``model.A`` to reuse (every pair of one model shares it).
+    w : (k,) array_like, optional
+        Exact frequencies in rad/s (DC allowed); the span and point count are then unused.
 
     Raises
     ------
@@ -131,9 +135,12 @@ def pair_frequency_response(
 
     grp = model.resolve_input(source)
     sig = model.resolve_signal(signal)
+    dc_point = w_min == 0.0 and w is None
+    if dc_point:
+        w_min = None
     for name, v in (("--w-min", w_min), ("--w-max", w_max)):
-        if v is not None and not v > 0:
-            raise ParameterError(f"{name} must be a positive frequency in rad/s; got {v}", field=name)
+        if v is not None and not (v > 0 and np.isfinite(v)):
+            raise ParameterError(f"{name} must be a positive finite frequency in rad/s (or --w-min 0 for a grid from DC); got {v}", field=name)
     if points is not None and not 2 <= points <= MAX_POINTS:
         raise ParameterError(f"--points must be from 2 to {MAX_POINTS}; got {points}", field="--points")
     if w_min is not None and w_max is not None and not w_max > w_min:
@@ -146,7 +153,10 @@ def pair_frequency_response(
         with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
             return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C)
 
-    if points is not None:
+    if w is not None:
+        w = np.asarray(w, dtype=float).ravel()
+        G = evaluate(w)
+    elif points is not None:
         auto = auto_frequency_grid(red.poles)
         lo = w_min if w_min is not None else auto[0]
         hi = w_max if w_max is not None else auto[-1]
@@ -161,6 +171,9 @@ def pair_frequency_response(
     else:
         w = auto_frequency_grid(red.poles, w_min=w_min, w_max=w_max)
         w, G = _refine_at_main_peaks(evaluate, w, evaluate(w))
+    if dc_point:
+        w = np.concatenate([[0.0], w])
+        G = np.concatenate([evaluate(w[:1]), G])
     cols, rows = model.input_slice(grp), model.signal_slice(sig)
     return PairResponse(grp, sig, w, G, list(model.input_names[cols]), list(model.output_names[rows]))
 

@@ -29,8 +29,8 @@ def _application() -> QApplication:
 def _release_clipboard() -> None:
     """Let go of a copied fragment before Qt shuts down.
 
-    With PySide6 6.12 the process crashes at exit while the clipboard still holds a
-    QMimeData made in Python; a fragment is only useful while Loopwright runs anyway.
+    With PySide6 (6.11.3 and 6.12 alike) the process crashes at exit while the clipboard
+    still holds a QMimeData made in Python; a fragment is only useful while Loopwright runs.
     """
     from loopwright.gui.canvas.clipboard import FRAGMENT_MIME
 

@@ -9,10 +9,8 @@ from __future__ import annotations
 
 import copy
 
-from PySide6.QtCore import Qt, Signal
-from PySide6.QtGui import QGuiApplication, QKeySequence
+from PySide6.QtCore import Qt
 from PySide6.QtWidgets import (
-    QCheckBox,
     QComboBox,
     QFormLayout,
     QHBoxLayout,
@@ -21,8 +19,6 @@ from PySide6.QtWidgets import (
     QPushButton,
     QScrollArea,
     QSpinBox,
-    QTableWidget,
-    QTableWidgetItem,
     QVBoxLayout,
     QWidget,
 )
@@ -30,6 +26,8 @@ from PySide6.QtWidgets import (
 from loopwright.engine.errors import EngineError, ParameterError
 from loopwright.engine.validation import parse_matrix_text
 from loopwright.gui.commands import RenameBlock, RenameWire, SetCaption, SetParams
+from loopwright.gui.matrix_table import MatrixEditor, error_label, number_text, show_error
+from loopwright.gui.model_editor import ModelEditor, describe_state_order
 
 __all__ = ["Inspector", "MatrixEditor", "format_complex_list"]
 
@@ -71,188 +69,11 @@ def format_complex_list(values) -> str:
     return ", ".join(out) if out else "none"
 
 
-def _error_label() -> QLabel:
-    lab = QLabel("")
-    lab.setObjectName("field_error")
-    lab.setWordWrap(True)
-    lab.setStyleSheet("color: #d62839;")
-    lab.hide()
-    return lab
-
-
-def _show_error(label: QLabel, message: str | None) -> None:
-    label.setText(message or "")
-    label.setVisible(bool(message))
-
-
-class MatrixEditor(QWidget):
-    """A table that grows and shrinks with the row and column counts.
-
-    Paste (the button, or the platform's paste shortcut in the table) accepts spreadsheet
-    cells and Python/numpy literals and sets the size from what was pasted. ``edited``
-    carries the nested list when every cell is a finite number; otherwise the bad cell
-    is named in the error label and nothing is emitted.
-    """
-
-    edited = Signal(object)
-
-    def __init__(self, value, *, name: str, parent=None):
-        super().__init__(parent)
-        self.setObjectName(f"matrix_{name}")
-        self._name = name
-        self.rows = QSpinBox()
-        self.cols = QSpinBox()
-        for s in (self.rows, self.cols):
-            s.setRange(0, 10000)
-            s.setMaximumWidth(64)
-        self.table = QTableWidget()
-        self.table.setObjectName(f"table_{name}")
-        self.table.horizontalHeader().setDefaultSectionSize(62)
-        self.table.setMinimumWidth(60)  # wide matrices scroll inside the table, not the page
-        self.table.verticalHeader().setDefaultSectionSize(24)
-        self.paste_button = QPushButton("Paste")
-        self.paste_button.setToolTip("Paste numbers from a spreadsheet, or a Python/numpy literal such as [[1, 2], [3, 4]]")
-        self.error = _error_label()
-        self.rows.setToolTip("rows")
-        self.cols.setToolTip("columns")
-        top = QHBoxLayout()
-        top.addWidget(QLabel("size"))
-        top.addWidget(self.rows)
-        top.addWidget(QLabel("×"))
-        top.addWidget(self.cols)
-        top.addStretch(1)
-        top.addWidget(self.paste_button)
-        lay = QVBoxLayout(self)
-        lay.setContentsMargins(0, 0, 0, 0)
-        lay.addLayout(top)
-        lay.addWidget(self.table)
-        lay.addWidget(self.error)
-        self.set_value(value)
-        self.rows.valueChanged.connect(self._on_resize)
-        self.cols.valueChanged.connect(self._on_resize)
-        self.table.itemChanged.connect(lambda _item: self._emit())
-        self.paste_button.clicked.connect(lambda: self.paste_text(QGuiApplication.clipboard().text()))
-        self.table.installEventFilter(self)
-
-    def set_value(self, value) -> None:
-        rows = value if isinstance(value, list) else [[value]]
-        rows = [r if isinstance(r, list) else [r] for r in rows]
-        if rows == [[]]:
-            rows = []
-        n, m = len(rows), (len(rows[0]) if rows else 0)
-        for w in (self.rows, self.cols, self.table):
-            w.blockSignals(True)
-        self.rows.setValue(n)
-        self.cols.setValue(m)
-        self.table.setRowCount(n)
-        self.table.setColumnCount(m)
-        for i, r in enumerate(rows):
-            for j, v in enumerate(r):
-                self.table.setItem(i, j, _cell(v))
-        for w in (self.rows, self.cols, self.table):
-            w.blockSignals(False)
-        self.table.resizeColumnsToContents()
-        self._fit_height()
-
-    def _fit_height(self) -> None:
-        # Rows, header, and room for the horizontal scroll bar that wide numbers may need.
-        h = (self.table.horizontalHeader().sizeHint().height() + 6 + self.table.horizontalScrollBar().sizeHint().height()
-             + sum(self.table.rowHeight(i) for i in range(self.table.rowCount())))
-        self.table.setFixedHeight(min(max(h, 40), 260))
-
-    def _on_resize(self) -> None:
-        n, m = self.rows.value(), self.cols.value()
-        self.table.blockSignals(True)
-        self.table.setRowCount(n)
-        self.table.setColumnCount(m)
-        for i in range(n):
-            for j in range(m):
-                if self.table.item(i, j) is None:
-                    self.table.setItem(i, j, QTableWidgetItem("0"))
-        self.table.blockSignals(False)
-        self._fit_height()
-        self._emit()
-
-    def value(self) -> list[list[float]]:
-        """The table as a nested list; ParameterError naming the first bad cell."""
-        out = []
-        for i in range(self.table.rowCount()):
-            row = []
-            for j in range(self.table.columnCount()):
-                item = self.table.item(i, j)
-                text = item.text().strip() if item is not None else ""
-                exact = item.data(_EXACT_ROLE) if item is not None else None
-                if exact is not None and text == _short_num(exact):
-                    # An untouched cell keeps the stored value, not its rounded display.
-                    row.append(float(exact))
-                    continue
-                try:
-                    v = float(text)
-                except ValueError:
-                    raise ParameterError(f"{self._name}: row {i + 1}, column {j + 1}: {text!r} is not a number", field=self._name) from None
-                if v != v or v in (float("inf"), float("-inf")):
-                    raise ParameterError(f"{self._name}: row {i + 1}, column {j + 1}: {text!r} is not finite", field=self._name)
-                row.append(v)
-            out.append(row)
-        return out
-
-    def _emit(self) -> None:
-        try:
-            val = self.value()
-        except ParameterError as err:
-            self.set_error(str(err))
-            return
-        self.set_error(None)
-        self.edited.emit(val)
-
-    def set_error(self, message: str | None) -> None:
-        _show_error(self.error, message)
-
-    def paste_text(self, text: str) -> bool:
-        try:
-            val = parse_matrix_text(text)
-        except ParameterError as err:
-            self.set_error(f"{self._name}: cannot paste: {err}")
-            return False
-        self.set_value(val)
-        self._emit()
-        return True
-
-    def eventFilter(self, obj, event) -> bool:
-        if obj is self.table and event.type() == event.Type.KeyPress and event.matches(QKeySequence.StandardKey.Paste):
-            self.paste_text(QGuiApplication.clipboard().text())
-            return True
-        return super().eventFilter(obj, event)
-
-
-_EXACT_ROLE = Qt.ItemDataRole.UserRole + 1
-
-
-def _short_num(v) -> str:
-    """A matrix entry as shown: 10 significant digits, so a designed gain reads 1010,
-    not 1009.999999994998 (the full value stays in the cell and in its tooltip)."""
-    f = float(v)
-    return str(int(f)) if f.is_integer() and abs(f) < 1e15 else f"{f:.10g}"
-
-
-def _cell(v) -> QTableWidgetItem:
-    try:
-        f = float(v)
-    except (TypeError, ValueError):
-        return QTableWidgetItem(str(v))
-    item = QTableWidgetItem(_short_num(f))
-    item.setData(_EXACT_ROLE, f)
-    if _short_num(f) != _num(f):
-        item.setToolTip(_num(f))
-    return item
-
-
-def _num(v) -> str:
-    try:
-        f = float(v)
-    except (TypeError, ValueError):
-        return str(v)
-    return str(int(f)) if f.is_integer() and abs(f) < 1e15 else repr(f)
+def _hand_edit(params: dict, key: str, value) -> None:
+    """Set ``key`` by hand; a recipe no longer describing the block goes with it (undo brings it back)."""
+    if params.get(key) != value:
+        params.pop("recipe", None)
+    params[key] = value
 
 
 def _parse_number_or_list(text: str, *, field: str):
@@ -284,6 +105,9 @@ class Inspector(QWidget):
         outer.setContentsMargins(2, 2, 2, 2)
         outer.addWidget(self._scroll)
         self._live_widths: dict[str, int] = {}
+        # Unapplied model drafts by block id: kept across selection changes and redraws.
+        self._drafts: dict[str, dict] = {}
+        self.model_editor: ModelEditor | None = None
         document.params_changed.connect(self._on_block_event)
         document.renamed.connect(self._on_block_event)
         document.caption_changed.connect(self._on_block_event)
@@ -316,6 +140,7 @@ class Inspector(QWidget):
         self._set_page(w)
 
     def _on_diagram_replaced(self) -> None:
+        self._drafts.clear()
         self.show_nothing()
 
     def set_live_widths(self, widths: dict[str, int]) -> None:
@@ -388,7 +213,7 @@ class Inspector(QWidget):
     def _set_field_error(self, key: str, message: str | None) -> None:
         lab = self.errors.get(key)
         if lab is not None:
-            _show_error(lab, message)
+            show_error(lab, message)
         w = self.fields.get(key)
         if isinstance(w, MatrixEditor) and message:
             w.set_error(message)
@@ -401,6 +226,7 @@ class Inspector(QWidget):
             return
         self._block_id, self._wire_id = bid, None
         self.fields, self.errors = {}, {}
+        self.model_editor = None
         page = QWidget()
         form = QFormLayout(page)
         form.setRowWrapPolicy(QFormLayout.RowWrapPolicy.WrapLongRows)
@@ -444,7 +270,7 @@ class Inspector(QWidget):
         return f"{n} state{'s' if n != 1 else ''}; inputs {ins}; outputs {outs}"
 
     def _add(self, form: QFormLayout, key: str, label: str, widget: QWidget) -> None:
-        err = _error_label()
+        err = error_label()
         err.setObjectName(f"error_{key}")
         box = QWidget()
         lay = QVBoxLayout(box)
@@ -481,105 +307,100 @@ class Inspector(QWidget):
         self._add(form, key, label or key, ed)
         return ed
 
-    def _lti(self, form, blk, *, allow_load: bool) -> None:
-        p = blk.params
-        is_tf = "num" in p or "den" in p
-        form_choice = QComboBox()
-        form_choice.setObjectName("field_form")
-        form_choice.addItems(["state space (A, B, C, D)", "transfer function (num, den)"])
-        form_choice.setCurrentIndex(1 if is_tf else 0)
-        form_choice.currentIndexChanged.connect(lambda idx: self._switch_form(idx == 1))
-        self._add(form, "form", "model", form_choice)
-        if is_tf:
-            siso = all(isinstance(c, (int, float)) for c in p.get("num", [])) and all(isinstance(c, (int, float)) for c in p.get("den", []))
-            if siso:
-                for key, label in (("num", "numerator"), ("den", "denominator")):
-                    edit = QLineEdit(", ".join(_num(c) for c in p.get(key, [])))
-                    edit.setObjectName(f"field_{key}")
-                    edit.setToolTip("coefficients, highest power of s first, e.g. 1, 3, 2 for s² + 3s + 2")
-                    edit.editingFinished.connect(lambda k=key, e=edit: self._commit_coeffs(k, e.text()))
-                    self._add(form, key, label, edit)
-                pz = QLabel(self._poles_zeros_text(p.get("num"), p.get("den")))
-                pz.setObjectName("poles_zeros")
-                pz.setWordWrap(True)
-                pz.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
-                form.addRow("", pz)
-                self.fields["poles_zeros"] = pz
-            else:
-                note = QLabel("a transfer-function matrix: one (num, den) pair per output and input, kept as written in the file")
-                note.setWordWrap(True)
-                form.addRow("", note)
+    def _model(self, form, blk) -> None:
+        """The block's model as one draft (sizes once, every matrix follows, one Apply)."""
+        editor = ModelEditor(blk.kind, blk.params, block_name=blk.name, diagram=self._doc.diagram,
+                             check=lambda params, bid=blk.id: self._doc.check_params(bid, params),
+                             state=self._drafts.get(blk.id))
+        editor.draft_changed.connect(lambda bid=blk.id, ed=editor: self._keep_draft(bid, ed))
+        editor.applied.connect(lambda params, bid=blk.id: self._apply_model(bid, params))
+        form.addRow(editor)
+        self.model_editor = editor
+        self.fields.update({k: w for k, w in editor.fields.items() if k not in self.fields})
+
+    def _keep_draft(self, bid: str, editor) -> None:
+        """An unapplied draft stays with its block until applied or reverted."""
+        if editor.is_draft():
+            self._drafts[bid] = editor.state()
         else:
-            for key in ("A", "B", "C", "D"):
-                self._matrix(form, blk, key)
-            if allow_load:
-                has = "E" in p
-                box = QCheckBox("load input d (x' = … + E d, y = … + F d)")
-                box.setObjectName("field_load")
-                box.setChecked(has)
-                box.toggled.connect(self._toggle_load)
-                form.addRow("", box)
-                if has:
-                    self._matrix(form, blk, "E")
-                    self._matrix(form, blk, "F")
+            self._drafts.pop(bid, None)
 
-    def _poles_zeros_text(self, num, den) -> str:
-        from loopwright.engine.blocks import tf_poles_zeros
-
-        try:
-            poles, zeros = tf_poles_zeros(num, den)
-        except EngineError as err:
-            return f"poles and zeros unknown: {err}"
-        return f"poles: {format_complex_list(poles)}\nzeros: {format_complex_list(zeros)}"
-
-    def _commit_coeffs(self, key: str, text: str) -> None:
-        try:
-            rows = parse_matrix_text(text)
-            if len(rows) != 1:
-                raise ParameterError(f"{key}: expected one row of coefficients, got {len(rows)} rows", field=key)
-        except ParameterError as err:
-            self._set_field_error(key, f"{key}: {err}")
+    def _apply_model(self, bid: str, params: dict) -> None:
+        blk = self._doc.diagram.blocks.get(bid)
+        if blk is None:
             return
-        if self._commit_params(key, lambda p: p.__setitem__(key, rows[0]), rebuild=False):
-            self._refresh_size()
-            blk = self._doc.diagram.blocks.get(self._block_id)
-            label = self.fields.get("poles_zeros")
-            if blk is not None and label is not None:
-                label.setText(self._poles_zeros_text(blk.params.get("num"), blk.params.get("den")))
+        draft = self._drafts.pop(bid, None)
+        try:
+            self._doc.push(SetParams(self._doc, bid, params, text=f"Edit {blk.name} model"))
+        except EngineError as err:
+            if draft is not None:
+                self._drafts[bid] = draft
+            if self.model_editor is not None:
+                self.model_editor.status.setText(f"Draft, not applied: {err}")
 
-    def _switch_form(self, to_tf: bool) -> None:
-        """Switch between state space and transfer function; keeps the block SISO-valid."""
-        def mutate(p):
-            for k in ("A", "B", "C", "D", "num", "den", "E", "F"):
-                p.pop(k, None)
-            if to_tf:
-                p.update({"num": [1.0], "den": [1.0, 1.0]})
-            else:
-                p.update({"A": [[-1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]]})
-        self._commit_params("form", mutate)
-
-    def _toggle_load(self, on: bool) -> None:
-        def mutate(p):
-            if on:
-                n = len(p.get("A", []))
-                rows_c = len(p.get("C", []))
-                p["E"] = [[0.0] for _ in range(n)] or [[0.0]]
-                p["F"] = [[0.0] for _ in range(rows_c)] or [[0.0]]
-            else:
-                p.pop("E", None)
-                p.pop("F", None)
-        self._commit_params("load", mutate)
+    def pending_drafts(self) -> list[str]:
+        """Names of blocks with a model draft not applied yet."""
+        d = self._doc.diagram
+        return sorted(d.blocks[b].name for b in self._drafts if b in d.blocks)
 
     def _build_plant(self, form, blk) -> None:
-        self._lti(form, blk, allow_load=True)
+        self._model(form, blk)
 
     def _build_dynamic(self, form, blk) -> None:
-        self._lti(form, blk, allow_load=False)
+        self._model(form, blk)
 
     def _build_gain(self, form, blk) -> None:
-        self._matrix(form, blk, "K", "K (out = K in)")
+        ed = MatrixEditor(blk.params.get("K", []), name="K")
+        ed.edited.connect(lambda val: self._commit_params("K", lambda p: _hand_edit(p, "K", val), rebuild=False)
+                          and self._after_gain_edit())
+        self._add(form, "K", "K (out = K in)", ed)
+        order = QLabel(self._gain_state_order(blk))
+        order.setObjectName("k_order")
+        order.setWordWrap(True)
+        order.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
+        form.addRow("", order)
+        self.fields["k_order"] = order
+        self._designed_note(form, blk)
+
+    def _after_gain_edit(self) -> bool:
+        """A hand edit of K ends its recipe: the note saying it was designed goes."""
+        blk = self._doc.diagram.blocks.get(self._block_id)
+        note = self.fields.get("designed_note")
+        if blk is not None and note is not None and not isinstance(blk.params.get("recipe"), dict):
+            note.hide()
+        return self._refresh_size()
+
+    def _designed_note(self, form, blk) -> None:
         if isinstance(blk.params.get("recipe"), dict):
-            form.addRow("", QLabel(f"designed from plant {blk.params['recipe'].get('plant', '?')}"))
+            note = QLabel(f"designed from plant {blk.params['recipe'].get('plant') or blk.params.get('plant', '?')}; "
+                          "a hand edit replaces the design")
+            note.setObjectName("designed_note")
+            note.setWordWrap(True)
+            form.addRow("", note)
+            self.fields["designed_note"] = note
+
+    def _gain_state_order(self, blk) -> str:
+        """What K's columns multiply, in order ("... P's states: P.x1 = y, P.x2 = dy/dt")."""
+        from loopwright.engine.diagram import PortRef
+
+        d = self._doc.diagram
+        wire = d.wire_into(PortRef(blk.id, "in"))
+        if wire is not None:
+            src = d.blocks[wire.source.block]
+            if src.kind == "estimator" and wire.source.port == "xhat":
+                link = src.params.get("plant")
+                if isinstance(link, str):
+                    return f"K multiplies the estimate of {link}'s states: {describe_state_order(d, link)}"
+                n = len(src.params.get("A") or [])
+                states = ", ".join(f"{src.name}.x{k + 1}" for k in range(n)) or "none"
+                return f"K multiplies the estimate of {src.name}'s own model states (rows of its A): {states}"
+            if src.kind in ("plant", "dynamic"):
+                return f"K multiplies the signal {wire.name} ({src.name}'s output y)"
+            return f"K multiplies the signal {wire.name}"
+        rec = blk.params.get("recipe")
+        if isinstance(rec, dict) and isinstance(rec.get("plant"), str):
+            return f"K was designed for {rec['plant']}'s states: {describe_state_order(d, rec['plant'])}"
+        return "K multiplies whatever is wired to its input (nothing yet)"
 
     def _build_integrator(self, form, blk) -> None:
         self._width_field(form, blk)
@@ -625,41 +446,8 @@ class Inspector(QWidget):
         self._commit_params("signs", mutate)
 
     def _build_estimator(self, form, blk) -> None:
-        link = QComboBox()
-        link.setObjectName("field_plant")
-        link.addItem("own model (A, B, C, D)", None)
-        plants = sorted(b.name for b in self._doc.diagram.blocks.values() if b.kind == "plant")
-        for name in plants:
-            link.addItem(f"plant {name}", name)
-        cur = blk.params.get("plant")
-        if cur is not None and cur not in plants:
-            link.addItem(f"plant {cur} (missing)", cur)
-        link.setCurrentIndex(max(0, link.findData(cur)) if cur is not None else 0)
-        link.currentIndexChanged.connect(lambda _i: self._relink(link.currentData()))
-        self._add(form, "plant", "model of", link)
-        if cur is None:
-            for key in ("A", "B", "C", "D"):
-                self._matrix(form, blk, key)
-        self._matrix(form, blk, "L", "L (estimator gain)")
-        if isinstance(blk.params.get("recipe"), dict):
-            form.addRow("", QLabel(f"designed from plant {blk.params['recipe'].get('plant', '?')}"))
-
-    def _relink(self, plant: str | None) -> None:
-        def mutate(p):
-            if plant is None:
-                p.pop("plant", None)
-                try:
-                    from loopwright.engine.blocks import plant_matrices
-
-                    A, B, C, D = plant_matrices(self._doc.diagram, self._doc.diagram.blocks[self._block_id].params["plant"])
-                    p.update({"A": A.tolist(), "B": B.tolist(), "C": C.tolist(), "D": D.tolist()})
-                except (EngineError, KeyError):
-                    p.update({"A": [[-1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]]})
-            else:
-                for k in ("A", "B", "C", "D"):
-                    p.pop(k, None)
-                p["plant"] = plant
-        self._commit_params("plant", mutate)
+        self._model(form, blk)
+        self._designed_note(form, blk)
 
     def _build_source(self, form, blk) -> None:
         p = blk.params
@@ -679,14 +467,14 @@ class Inspector(QWidget):
         self._add(form, "waveform", "waveform", kind)
         for key in _WAVEFORMS.get(wf.get("kind", "step"), ()):
             val = wf.get(key, "")
-            text = _num(val) if not isinstance(val, list) else repr(val)
+            text = number_text(val) if not isinstance(val, list) else repr(val)
             edit = QLineEdit(text)
             edit.setObjectName(f"field_{key}")
             edit.editingFinished.connect(lambda k=key, e=edit: self._commit_waveform_field(k, e.text()))
             self._add(form, key, _FIELD_LABELS.get(key, key), edit)
         if wf.get("kind") != "white":
             val = p.get("intensity", "")
-            edit = QLineEdit(_num(val) if not isinstance(val, list) else repr(val))
+            edit = QLineEdit(number_text(val) if not isinstance(val, list) else repr(val))
             edit.setObjectName("field_intensity")
             edit.setPlaceholderText("none")
             edit.setToolTip("intensity W of a random part riding on this waveform (used by the noise budget); leave empty for none")

@@ -62,16 +62,34 @@ def status_text(result: LiveResult | None) -> str:
     if rep is None:
         return f"not assembled — {result.error}" if result.error else "not assembled"
     parts = [f"{rep.states} state{'s' if rep.states != 1 else ''}"]
+    where = rep.pole_classes.phrase() if rep.pole_classes is not None else f"{rep.rhp_poles} in the right half-plane"
     if rep.stable:
         parts.append("stable (0 right-half-plane poles)")
     elif rep.rhp_poles:
-        parts.append(f"UNSTABLE: {rep.rhp_poles} right-half-plane pole{'s' if rep.rhp_poles != 1 else ''}")
+        axis = rep.pole_classes.on_axis if rep.pole_classes is not None else 0
+        parts.append(f"UNSTABLE: {rep.rhp_poles} right-half-plane pole{'s' if rep.rhp_poles != 1 else ''}" + (f" ({where})" if axis else ""))
     else:
-        parts.append(f"not stable: {getattr(rep, 'marginal_poles', 0)} pole(s) on the imaginary axis")
+        parts.append(f"not stable: {where}")
+    if not rep.poles_trusted:
+        parts.append(f"poles ill-conditioned (condition up to {rep.worst_condition:.0e})")
     sep = rep.separation
     if sep is not None:
-        parts.append("separation: poles match eig(A−BK) ∪ eig(A−LC)" if sep.matches else "separation: poles DIFFER from eig(A−BK) ∪ eig(A−LC)")
+        parts.append(
+            {
+                "holds": "separation: poles match eig(A−BK) ∪ eig(A−LC)",
+                "unconfirmed": "separation: too ill-conditioned to confirm",
+                "not_separated": "separation: poles DIFFER from eig(A−BK) ∪ eig(A−LC)",
+            }[sep.verdict]
+        )
+    if 0 < len(rep.poles) <= _POLES_SHOWN:
+        # A small loop's poles in plain sight: the designed ones, or not.
+        from loopwright.gui.inspector import format_complex_list
+
+        parts.append(f"poles: {format_complex_list(rep.poles)}")
     return " · ".join(parts)
+
+
+_POLES_SHOWN = 8
 
 
 class MainWindow(QMainWindow):
@@ -340,9 +358,12 @@ class MainWindow(QMainWindow):
     # ---- files ----------------------------------------------------------------------------------
     def _confirm_discard(self) -> bool:
         """True if it is fine to drop the current diagram (saved, or the user agreed)."""
-        if not self.document.is_dirty:
+        drafts = self.inspector.pending_drafts()
+        if not self.document.is_dirty and not drafts:
             return True
-        answer = self.dialogs.ask_save_changes(self.document.title())
+        # An unapplied model draft is never dropped silently: the question names it.
+        title = self.document.title() + (f" (unapplied model drafts: {', '.join(drafts)})" if drafts else "")
+        answer = self.dialogs.ask_save_changes(title)
         if answer == "save":
             return self.save()
         return answer == "discard"

@@ -45,9 +45,10 @@ def pytest_collection_modifyitems(config, items):
 def _release_clipboard_at_exit():
     """Empty the clipboard before the process ends.
 
-    With PySide6 6.12, a QMimeData made in Python and handed to the clipboard makes the
-    interpreter crash at exit unless the clipboard lets go of it first (the app does the
-    same on quit, see gui/app.py). Qt is looked up lazily: the headless job has none.
+    With PySide6 (6.11.3 and 6.12 alike), a QMimeData made in Python and handed to the
+    clipboard makes the interpreter crash at exit unless the clipboard lets go of it first
+    (the app does the same on quit, see gui/app.py); without this the GUI session
+    segfaults at exit. Qt is looked up lazily: the headless job has none.
     """
     yield
     import sys
@@ -61,7 +62,8 @@ def _release_clipboard_at_exit():
 @pytest.fixture(autouse=True)
 def _collect_garbage_on_the_gui_thread(request):
     """GUI tests run the live model on a worker thread: keep Python's cyclic collector on
-    the GUI thread (see gui/collector.py), and collect once after each test there."""
+    the GUI thread (see gui/collector.py), and collect once after each test there.
+    Still needed with PySide6 6.11.3: without it the GUI session segfaults at exit."""
     if "qapp" not in request.fixturenames and "qtbot" not in request.fixturenames:
         yield
         return

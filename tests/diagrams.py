@@ -79,3 +79,28 @@ def stage_loop_named(*, linked: bool = True) -> Diagram:
     d.connect("up.out", "P.u", name="plant_input")
     d.connect("P.y", "est.y", name="y")
     return d
+
+
+def rotor_lead_loop() -> Diagram:
+    """REFERENCES.md REF-12: P = 1/(s^2 - 4), C = 80 (s + 1)/(s + 10) = 80 - 720/(s + 10), unity
+    feedback; signals ref, err, u (the plant input, also settings.loop_break), y."""
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    d.add_block("plant", "Cl", {"A": [[-10.0]], "B": [[1.0]], "C": [[-720.0]], "D": [[80.0]]})
+    d.add_block("plant", "P", {"A": [[0.0, 1.0], [4.0, 0.0]], "B": [[0.0], [1.0]], "C": [[1.0, 0.0]], "D": [[0.0]]})
+    d.connect("r.out", "e.in1", name="ref")
+    d.connect("e.out", "Cl.u", name="err")
+    d.connect("Cl.y", "P.u", name="u")
+    d.connect("P.y", "e.in2", name="y")
+    d.settings["loop_break"] = "u"
+    return d
+
+
+def nonminimum_phase_lag() -> Diagram:
+    """G = (1 - s)/(s + 1)^2 driven by a reference (closed form: a zero at s = +1); output signal G.y."""
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("plant", "G", {"num": [-1.0, 1.0], "den": [1.0, 2.0, 1.0]})
+    d.connect("r.out", "G.u", name="u")
+    return d

@@ -24,7 +24,6 @@ from PySide6.QtWidgets import (
 )
 
 from loopwright.engine.diagram import PortRef
-from loopwright.engine.errors import EngineError
 from loopwright.gui.docks.panel import pair_colour
 from loopwright.gui.view_commands import add_pair, input_label, pairs_of, remove_pair, set_loop_break
 

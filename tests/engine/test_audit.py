@@ -2,11 +2,13 @@
 from __future__ import annotations
 
 import importlib.resources as ir
+import control as ct
 
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
+from diagrams import rotor_lead_loop
 from loopwright.engine.audit import RANKING_RULE, path_audit, path_between
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.interconnect import assemble
@@ -40,7 +42,8 @@ def test_audit_rows_agree_with_single_path_norms(name):
         else:
             assert r.h2 == np.inf
         dc = dc_gain(A, B, C, D)
-        assert_allclose(r.dc_gain, np.linalg.norm(dc, 2), rtol=1e-7, atol=1e-9 * max(1.0, r.peak_gain))
+        expected = dc[0, 0] if dc.size == 1 else np.linalg.norm(dc, 2)  # scalar paths keep their sign
+        assert_allclose(r.dc_gain, expected, rtol=1e-7, atol=1e-9 * max(1.0, r.peak_gain))
 
 
 def test_audit_h2_matches_the_frequency_domain_definition_on_a_sample():
@@ -150,6 +153,27 @@ def test_feedthrough_peaks_are_at_infinity_and_rounding_zeros_are_zero():
     assert rows["N.out"].peak_freq_rad_s == 0.0 and rows["N.out"].peak_gain == pytest.approx(5.0)
     assert rows["F.y"].dc_gain == 0.0 and rows["F.y"].peak_freq_rad_s == np.inf
     assert rows["H.y"].peak_gain == pytest.approx(3.0, rel=1e-9) and rows["H.y"].peak_freq_rad_s == np.inf
+
+
+def test_scalar_dc_gains_keep_their_sign():
+    # closed form: L(0) = C(0) P(0) = 8 * (-1/4) = -2, so S(0) = 1/(1 + L(0)) = -1 (r -> err) and
+    # T(0) = L(0)/(1 + L(0)) = 2 (r -> y); the case of REFERENCES.md REF-12
+    rows = {(r.source, r.signal): r for r in path_audit(assemble(rotor_lead_loop()))}
+    assert_allclose(rows["r", "err"].dc_gain, -1.0, rtol=1e-9)
+    assert_allclose(rows["r", "y"].dc_gain, 2.0, rtol=1e-9)
+    assert rows["r", "err"].dc_gain_kind == "signed value"
+    assert rows["r", "err"].as_dict()["dc_gain"] < 0
+
+
+def test_vector_dc_gains_are_the_largest_singular_value_and_say_so():
+    # python-control 0.10.2 dcgain of the same path, then its largest singular value
+    model = _sample("two_zone_oven.lwd")
+    rows = {(r.source, r.signal): r for r in path_audit(model)}
+    r = rows["r", "y"]
+    A, B, C, D = model.pair("r", "y")
+    ref = np.linalg.norm(ct.ss(A, B, C, D).dcgain(), 2)
+    assert r.dc_gain_kind == "largest singular value"
+    assert_allclose(r.dc_gain, ref, rtol=1e-9)
 
 
 def test_audit_reports_its_progress_and_stops_when_the_report_raises():

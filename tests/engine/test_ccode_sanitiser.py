@@ -135,7 +135,7 @@ def test_payload_title_cannot_change_the_compiled_controller(tmp_path, payload):
 
 @_needs_cc
 def test_payload_in_the_folder_names_of_the_diagram_path_cannot_change_the_controller(tmp_path):
-    # The path itself supplies the "/" after each folder name: ".../x*\<LF>/<LF>#define double float<LF>/*/..."
+    # The path itself supplies the "/" after each folder name: "<tmp>/x*\<LF>/<LF>#define double float<LF>/*/<file>"
     folder = tmp_path / "x*\\\n" / "\n#define double float\n" / "*"
     folder.mkdir(parents=True)
     diagram = folder / "rotor.lwd"

@@ -1,6 +1,9 @@
 """The check report: poles, stability verdict and the separation check."""
 from __future__ import annotations
 
+from fractions import Fraction
+from pathlib import Path
+
 import numpy as np
 import pytest
 import scipy.signal as sig
@@ -10,9 +13,12 @@ from numpy.testing import assert_allclose
 
 from loopwright.engine.check import poles_match, summarize
 from loopwright.engine.diagram import Diagram
+from loopwright.engine.eigen import classify_poles, eigen_sensitivity, format_pole, matrix_scale
 from loopwright.engine.project import load
 from diagrams import stage_loop_ref03 as stage_loop
 from diagrams import SAMPLES, sample_path
+
+DATA = Path(__file__).parent / "data"
 
 
 def observer_loop(A, B, C, K, L) -> Diagram:
@@ -125,3 +131,126 @@ def test_unstable_loop_counts_right_half_plane_poles():
     assert not rep.stable and rep.rhp_poles == 1
     expected = [2 - 2 * np.sqrt(3), 2 + 2 * np.sqrt(3), -5.0, -6.0]
     assert_allclose(np.sort(np.asarray(rep.poles).real), np.sort(expected), atol=1e-9)
+
+
+
+# ---- honest poles: origin poles, ill-conditioned loops, recipes never designed -----------
+
+
+def _poly_at(coeffs, x) -> Fraction:
+    """Exact value of the monic polynomial s^n + c1 s^(n-1) + ... + cn at a float x (Horner in rationals)."""
+    v, X = Fraction(1), Fraction(x)
+    for c in coeffs:
+        v = v * X + Fraction(c)
+    return v
+
+
+def test_ill_conditioned_integrator_chain_reports_its_poles_from_the_separation_coordinates():
+    # Closed form: for the chain of 10 integrators (shift matrix A, B = e10, C = e1^T),
+    # det(sI - A + B K) = s^10 + k10 s^9 + ... + k1 (controllable companion form) and
+    # det(sI - A + L C) = s^10 + l1 s^9 + ... + l10 (observer companion form). Evaluated exactly in rationals,
+    # each polynomial changes sign across every reported pole +- its rounding bound, so a real root lies there.
+    d = load(str(DATA / "integrator_chain_10_placed_gains.lwd"))
+    rep = summarize(d)
+    K = -np.asarray(d.block_by_name("K").params["K"], float).ravel()
+    L = np.asarray(d.block_by_name("est").params["L"], float).ravel()
+    char_k, char_l = list(K[::-1]), list(L)
+    assert rep.pole_source == "separation" and rep.separation.decoupled and rep.separation.matches
+    assert rep.stable and rep.poles_trusted
+    assert np.all(rep.poles.imag == 0)  # real poles, not complex pairs
+    bracketed = 0
+    for p, b in zip(rep.poles.real, rep.pole_bounds):
+        lo, hi = p - 10 * b - 1e-12 * abs(p), p + 10 * b + 1e-12 * abs(p)
+        for c in (char_k, char_l):
+            if _poly_at(c, lo) * _poly_at(c, hi) <= 0:
+                bracketed += 1
+                break
+    assert bracketed == 20
+    # the full closed-loop matrix is too ill-conditioned to confirm this from its own poles, and says so;
+    # this is a different message from a wiring fault
+    assert rep.worst_condition > 1e10
+    assert any("too ill-conditioned to confirm it from its own poles" in w for w in rep.warnings)
+    assert not any("does not see the plant's own input" in w for w in rep.warnings)
+
+
+def test_condition_numbers_match_the_closed_form_of_a_triangular_matrix():
+    # closed form (Wilkinson 1965): A = [[1, t], [0, 2]] has left/right eigenvectors (1, -t)/sqrt(1 + t^2)
+    # and (1, 0) for lambda = 1, so kappa = sqrt(1 + t^2); the same for lambda = 2
+    t = 1e4
+    s = eigen_sensitivity([[1.0, t], [0.0, 2.0]])
+    assert_allclose(s.condition, [np.sqrt(1 + t * t)] * 2, rtol=1e-8)
+
+
+def test_untrustworthy_digits_are_not_printed():
+    # common practice, no source: print only the digits an error bound leaves intact
+    assert format_pole(-4.355710 + 0.20986j, 8.2) == "-4 (+-8.2, not trustworthy)"
+    assert format_pole(-5.99310770 + 0j, 8.6e-6).startswith("-5.9931 ")
+    assert format_pole(-80 + 60j, 1e-13) == "-80 + 60j"
+
+
+@pytest.mark.parametrize(
+    "poles, scale, expected",
+    [
+        pytest.param([0.0, -1.8e-17], 1.0, (0, 2, 0, 0), id="double integrator as eig returns it (closed form: 0, 0)"),
+        pytest.param([1e-8, -1e-8, -3.0], 3.0, (0, 2, 0, 1), id="a split double pole at 0: radius ~ sqrt(eps) (closed form)"),
+        pytest.param([1e-6, -2.0], 2.0, (1, 0, 0, 1), id="a slow unstable pole stays in the right half-plane"),
+        pytest.param([-1e-15 + 5j, -1e-15 - 5j, 0.5], 5.0, (1, 0, 2, 0), id="undamped pair on the axis (closed form +-5j)"),
+    ],
+)
+def test_poles_are_classified_with_a_scaled_tolerance(poles, scale, expected):
+    c = classify_poles(np.asarray(poles, complex), scale=scale)
+    assert (c.open_rhp, c.origin, c.imaginary_axis, c.open_lhp) == expected
+
+
+def test_check_counts_a_double_integrator_at_the_origin_not_in_the_right_half_plane():
+    # an open plant 1/s^2 driven by a source: both poles at s = 0 (closed form)
+    d = Diagram()
+    d.add_block("source", "f", {"role": "disturbance", "width": 1})
+    d.add_block("plant", "P", {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
+    d.connect("f.out", "P.u")
+    rep = summarize(d)
+    assert rep.rhp_poles == 0 and rep.pole_classes.origin == 2 and not rep.stable
+    assert any("2 at the origin, 0 in the right half-plane" in w for w in rep.warnings)
+    assert matrix_scale([[0, 1], [0, 0]]) > 0
+
+
+def test_a_recipe_never_designed_is_not_called_stale():
+    from diagrams import stage_servo
+
+    d = stage_servo(k_recipe={"method": "place", "poles": [-2, -3]})
+    rep = summarize(d)
+    assert rep.recipe_states["Kx"] == "not designed yet"
+    assert any("'Kx' is not designed yet" in w for w in rep.warnings)
+    assert not any("'Kx' is stale" in w for w in rep.warnings)
+
+
+def test_a_real_coupling_is_blamed_on_the_wiring_even_in_an_ill_conditioned_loop():
+    # the chain of 10 integrators with the estimator's input scaled by 1 + 1e-11 (and 1.0001): the error
+    # coordinates are no longer block triangular, and the assembled poles move from eig(A - B K), eig(A - L C)
+    # by more than the first-order rounding bound kappa eps ||A|| allows (Wilkinson 1965): the estimator
+    # really does not see the plant's input, and the check says so rather than "too ill-conditioned"
+    from loopwright.engine.diagram import PortRef
+
+    d = load(str(DATA / "integrator_chain_10_placed_gains.lwd"))
+    est = d.block_by_name("est")
+    w = d.wire_into(PortRef(est.id, "u"))
+    d.disconnect(w.id, PortRef(est.id, "u"))
+    d.add_block("gain", "Ke", {"K": [[1.0 + 1e-11]]})
+    d.connect(f"{d.blocks[w.source.block].name}.{w.source.port}", "Ke.in")
+    d.connect("Ke.out", "est.u")
+    for k in (1.0 + 1e-11, 1.0001):
+        d.set_params(d.block_by_name("Ke").id, {"K": [[k]]})
+        rep = summarize(d)
+        assert not rep.separation.decoupled and rep.separation.verdict == "not_separated"
+        assert any("does not see the plant's own input" in x for x in rep.warnings)
+        assert not any("too ill-conditioned to confirm" in x for x in rep.warnings)
+
+
+def test_pole_sets_within_rounding_are_told_apart_from_real_gaps():
+    # closed form: {-1, -2} against {-1.3, -1.7} with rounding bounds 0.05 each (allowed gap 10 x 0.1 = 1) can
+    # be paired within rounding; with bounds 1e-3 they cannot (gap 0.3 > 0.02)
+    from loopwright.engine.check import _within_bounds
+
+    a, b = np.array([-1.0, -2.0], complex), np.array([-1.3, -1.7], complex)
+    assert _within_bounds(a, np.full(2, 0.05), b, np.full(2, 0.05))
+    assert not _within_bounds(a, np.full(2, 1e-3), b, np.full(2, 1e-3))

@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
+from diagrams import nonminimum_phase_lag, rotor_lead_loop
 from loopwright.engine import CAUTION
 from loopwright.engine.cli import main
 from loopwright.engine.diagram import Diagram
@@ -260,3 +261,198 @@ def test_free_response_from_a_plant_initial_state_shows_the_estimation_error(cap
         assert_allclose(out["y"]["y"][k], z[m.signals["y"]][0], rtol=1e-9, atol=1e-15)
         assert_allclose(out["y"]["xhat[1]"][k], z[m.signals["xhat"]][0], rtol=1e-9, atol=1e-15)
     assert out["y"]["xhat[1]"][0] == 0.0 and abs(out["y"]["y"][-1] - out["y"]["xhat[1]"][-1]) < 1e-7
+
+
+# ---- answers read right: origin poles, crossover tables, unbounded disks, DC points -----------
+
+
+def _rotor_lead_file(tmp_path) -> str:
+    # REFERENCES.md REF-12 diagram, loop break at the plant input
+    path = tmp_path / "rotor.lwd"
+    save(rotor_lead_loop(), str(path))
+    return str(path)
+
+
+def _nmp_file(tmp_path) -> str:
+    path = tmp_path / "nmp.lwd"
+    save(nonminimum_phase_lag(), str(path))
+    return str(path)
+
+
+def test_freq_accepts_the_dc_point(tmp_path, capsys):
+    # closed form (REF-12 case): S(0) = 1/(1 + L(0)) = 1/(1 - 2) = -1: 0 dB and a phase of +-180 deg
+    assert main(["freq", _rotor_lead_file(tmp_path), "--from", "r", "--to", "err", "--w", "0,1e6", "--json"]) == 0
+    out = _json(capsys)
+    assert out["w"] == [0.0, 1e6]
+    assert_allclose(out["re"][0], -1.0, rtol=1e-12)
+    assert_allclose(out["mag_db"][0], 0.0, atol=1e-9)
+    assert_allclose(abs(out["phase_deg"][0]), 180.0, rtol=1e-12)
+    assert main(["freq", _rotor_lead_file(tmp_path), "--from", "r", "--to", "err", "--w-min", "0", "--csv"]) == 0
+    rows = list(csv.reader(io.StringIO(capsys.readouterr().out)))
+    assert float(rows[1][0]) == 0.0 and abs(float(rows[1][2])) == pytest.approx(180.0)
+
+
+@pytest.mark.parametrize("bad", ["-1", "abc", "nan", ""])
+def test_freq_rejects_a_bad_frequency_list_in_one_line(bad, tmp_path, capsys):
+    assert main(["freq", _rotor_lead_file(tmp_path), "--from", "r", "--to", "err", "--w", bad]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.count("\n") == 0 and "--w" in err
+
+
+def test_margins_text_lists_each_crossover_and_marks_what_sets_the_margins(tmp_path, capsys):
+    # REFERENCES.md REF-12 (python-control 0.10.2 stability_margins): PM 48.94734683 deg at 6.234008542 rad/s,
+    # DM 0.1370374065 s, lower gain margin 0.5 at w = 0, one open-loop pole in the right half-plane (+2)
+    assert main(["margins", _rotor_lead_file(tmp_path)]) == 0
+    text = capsys.readouterr().out
+    assert "open-loop poles       1 in the right half-plane" in text
+    assert "gain crossovers (|L| = 1):" in text and "phase crossovers (L real and negative" in text
+    (gc_line,) = [ln for ln in text.splitlines() if "sets the phase margin" in ln]
+    w, pm, dm = (float(x) for x in gc_line.split()[:3])
+    assert_allclose([w, pm, dm], [6.234008542, 48.94734683, 0.1370374065], rtol=1e-5)
+    (pc_line,) = [ln for ln in text.splitlines() if "sets the lower gain margin" in ln]
+    assert_allclose([float(x) for x in pc_line.split()[:2]], [0.0, 0.5], atol=1e-9)
+    assert main(["margins", _rotor_lead_file(tmp_path), "--json"]) == 0
+    out = _json(capsys)
+    (gc,) = out["gain_crossovers"]
+    assert gc["sets_phase_margin"] and gc["sets_delay_margin"]
+    assert out["open_loop_poles"] == {"open_rhp": 1, "origin": 0, "imaginary_axis": 0, "open_lhp": 2}
+
+
+def test_an_unbounded_disk_prints_zero_and_inf(tmp_path, capsys):
+    # L = 1/s (an integrating plant under unity feedback): S - 1/2 is all-pass of gain 1/2, alpha = 2, the balanced
+    # disk gives gains [0, inf) (closed form; Seiler, Packard & Gahinet 2020, from memory)
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    d.add_block("integrator", "I", {"width": 1})
+    d.connect("r.out", "e.in1", name="ref")
+    d.connect("e.out", "I.in", name="u")
+    d.connect("I.out", "e.in2", name="y")
+    path = tmp_path / "int.lwd"
+    save(d, str(path))
+    assert main(["margins", str(path), "--at", "u"]) == 0
+    text = capsys.readouterr().out
+    assert "gain [0, inf]" in text and "open-loop poles       1 at the origin, 0 in the right half-plane" in text
+    assert main(["margins", str(path), "--at", "u", "--json"]) == 0
+    disk = _json(capsys)["disk_margin"]
+    assert disk["gain"] == [0.0, "inf"] and disk["gain_unbounded"] == [True, True]
+
+
+def test_check_on_the_ill_conditioned_chain_separates_and_flags(capsys):
+    # tests/engine/data: 10 integrators with placed K, L (poles -1 .. -3.25 and about -3 .. -7.5, all real)
+    import pathlib
+
+    path = pathlib.Path(__file__).parent / "data" / "integrator_chain_10_placed_gains.lwd"
+    assert main(["check", str(path)]) == 0
+    text = capsys.readouterr().out
+    assert "from the separation coordinates" in text
+    assert "j " not in text.split("verdict")[0]  # no complex pairs among the poles
+    assert "yes, by structure" in text
+    assert main(["check", str(path), "--json"]) == 0
+    out = _json(capsys)
+    assert out["pole_source"] == "separation" and out["separation"]["verdict"] == "holds" and out["poles_trusted"]
+    assert out["worst_condition"] > 1e10
+
+
+def _servo_file(tmp_path) -> str:
+    # REFERENCES.md REF-11: L = 4/(s (s + 2)), unity feedback, T = 4/(s^2 + 2 s + 4): wn = 2, zeta = 0.5
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    d.add_block("gain", "Kp", {"K": [[4.0]]})
+    d.add_block("plant", "P", {"A": [[0, 1], [0, -2]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
+    d.connect("r.out", "e.in1", name="ref")
+    d.connect("e.out", "Kp.in", name="err")
+    d.connect("Kp.out", "P.u", name="u")
+    d.connect("P.y", "e.in2", name="y")
+    path = tmp_path / "servo.lwd"
+    save(d, str(path))
+    return str(path)
+
+
+def test_step_metrics_of_the_second_order_servo(tmp_path, capsys):
+    # closed forms (common practice): overshoot exp(-zeta pi / sqrt(1 - zeta^2)) = 16.30335348 %,
+    # peak time pi / (wn sqrt(1 - zeta^2)) = 1.813799364 s, peak 1.163033535, final value 1;
+    # rise and settling times against python-control 0.10.2 step_info on a fine grid
+    import control as ct
+
+    path = _servo_file(tmp_path)
+    assert main(["time", path, "--step", "r", "--to", "y", "--metrics", "--t-end", "10", "--dt", "0.0005", "--json"]) == 0
+    out = _json(capsys)
+    m = out["metrics"]["y"]
+    assert_allclose(m["steady_state"], 1.0, rtol=1e-12)
+    assert_allclose(m["overshoot_pct"], 16.30335348, atol=1e-4)
+    assert_allclose(m["peak"], 1.163033535, atol=1e-7)
+    assert_allclose(m["peak_time_s"], np.pi / np.sqrt(3.0), rtol=1e-4)
+    assert m["undershoot_pct"] == 0.0 and m["settled"]
+    info = ct.step_info(ct.tf(4, [1, 2, 4]), T=np.linspace(0, 10, 200001))
+    assert_allclose(m["rise_time_s"], info["RiseTime"], atol=1e-3)
+    assert_allclose(m["settling_time_s"], info["SettlingTime"], atol=1e-3)
+    assert "rise_time" in out["metric_definitions"]
+    assert main(["time", path, "--step", "r", "--to", "y", "--metrics"]) == 0
+    assert "step metrics" in capsys.readouterr().out
+
+
+def test_step_metrics_see_the_dip_of_a_right_half_plane_zero(tmp_path, capsys):
+    # closed form: G = (1 - s)/(s + 1)^2 has y(t) = 1 - e^-t - 2 t e^-t, whose minimum is at t = 0.5 (dy/dt = 0):
+    # y(0.5) = 1 - 2 e^-0.5 = -0.2130613, an undershoot of 21.30613 % of the final value 1
+    path = _nmp_file(tmp_path)
+    assert main(["time", path, "--step", "r", "--to", "G.y", "--metrics", "--t-end", "20", "--dt", "0.0005", "--json"]) == 0
+    m = _json(capsys)["metrics"]["G.y"]
+    assert_allclose(m["undershoot_pct"], 100 * (2 * np.exp(-0.5) - 1), atol=1e-5)
+    assert_allclose(m["steady_state"], 1.0, rtol=1e-12)
+
+
+def test_metrics_need_a_step(tmp_path, capsys):
+    assert main(["time", _servo_file(tmp_path), "--to", "y", "--metrics"]) == 2
+    assert "--metrics goes with --step" in capsys.readouterr().err
+
+
+def test_tf_of_the_rotor_loop_matches_the_closed_form(tmp_path, capsys):
+    # REFERENCES.md REF-12: T = r -> y = (80 s + 80)/(s^3 + 10 s^2 + 76 s + 40) (closed form), DC gain 2,
+    # poles -0.5660950408 and -4.71695248 +- 6.957720352j; python-control 0.10.2 ss2tf agrees
+    import control as ct
+
+    assert main(["tf", _rotor_lead_file(tmp_path), "--from", "r", "--to", "y", "--json"]) == 0
+    out = _json(capsys)
+    assert out["order"] == 3
+    assert_allclose(out["den"], [1, 10, 76, 40], rtol=1e-10)
+    assert_allclose(out["num"], [80, 80], rtol=1e-10)
+    assert_allclose(out["dc_gain"], [[2.0]], rtol=1e-10)
+    assert_allclose(out["hf_gain"], [[0.0]], atol=0)
+    poles = np.array([complex(*p) for p in out["poles"]])
+    assert_allclose(np.sort_complex(poles), np.sort_complex(np.array([-0.5660950408, -4.71695248 - 6.957720352j, -4.71695248 + 6.957720352j])), atol=1e-8)
+    assert_allclose([complex(*z) for z in out["zeros"]], [-1.0], rtol=1e-9) and out["rhp_zeros"] == []
+    model = assemble(load(_rotor_lead_file(tmp_path)))
+    ref = ct.tf(ct.ss(*model.pair("r", "y")))  # non-minimal: compare values, not coefficients
+    s_pts = np.array([0.5j, 3j, 10j, 1 + 2j])
+    assert_allclose(np.polyval(out["num"], s_pts) / np.polyval(out["den"], s_pts), ref(s_pts), rtol=1e-9)
+
+
+def test_tf_flags_a_right_half_plane_zero(tmp_path, capsys):
+    # closed form: G = (1 - s)/(s + 1)^2 has its zero at s = +1
+    path = _nmp_file(tmp_path)
+    assert main(["tf", path, "--from", "r", "--to", "G.y"]) == 0
+    text = capsys.readouterr().out
+    assert "1  (RIGHT HALF-PLANE)" in text and "num                 [-1, 1]" in text
+
+
+def test_noise_covariance_of_a_vector_signal_matches_python_control(capsys):
+    # python-control 0.10.2 lyap (scipy method) on the same realisation: X = lyap(A, sum B W B^T), cov = C X C^T;
+    # the diagonal must be the squares of the budget's RMS values (closed form: variance = RMS^2)
+    import control as ct
+
+    from loopwright.engine.noise import white_sources
+
+    assert main(["noise", _path("two_zone_oven.lwd"), "--covariance", "y", "--json"]) == 0
+    out = _json(capsys)
+    cov = np.array(out["covariance"]["y"]["matrix"], dtype=float)
+    model = assemble(load(_path("two_zone_oven.lwd")))
+    Q = sum(model.B[:, model.inputs[s]] @ W @ model.B[:, model.inputs[s]].T for s, W in white_sources(model).items())
+    X = ct.lyap(model.A, Q, method="scipy")
+    Cy = model.C[model.signals["y"]]
+    assert_allclose(cov, Cy @ X @ Cy.T, rtol=1e-9)
+    assert_allclose(np.sqrt(np.diag(cov)), [out["signals"]["y[1]"]["rms"], out["signals"]["y[2]"]["rms"]], rtol=1e-9)
+    assert out["covariance"]["y"]["components"] == ["y[1]", "y[2]"]
+    assert main(["noise", _path("two_zone_oven.lwd"), "--covariance", "y"]) == 0
+    assert "steady-state covariance of y" in capsys.readouterr().out

@@ -164,3 +164,38 @@ def test_export_help_documents_options(capsys):
     out = capsys.readouterr().out
     for opt in ("--what", "--measured", "--actuator", "--ts", "--method", "--prewarp", "--format", "--precision", "--prefix"):
         assert opt in out
+
+
+def test_design_json_carries_the_riccati_solutions(tmp_path, capsys):
+    # REFERENCES.md REF-04 (scalar LQR, closed form P = r (a + sqrt(a^2 + b^2 q / r)) / b^2 = 3) and
+    # REF-05 (scalar Kalman filter, closed form P = V (a + sqrt(a^2 + c^2 W / V)) / c^2 = 2, here with a = 1:
+    # P = 1 + sqrt(1 + 8) = 4)
+    from loopwright.engine.diagram import Diagram
+
+    d = Diagram()
+    d.add_block("source", "w", {"role": "disturbance", "width": 1})
+    d.add_block("source", "v", {"role": "noise", "width": 1})
+    d.add_block("plant", "P", {"A": [[1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]]})
+    d.add_block("estimator", "est", {"plant": "P", "L": [[0.0]], "recipe": {"method": "kalman", "plant": "P", "W": [[8.0]], "V": [[1.0]], "G": [[1.0]]}})
+    d.add_block("gain", "Kx", {"K": [[0.0]], "recipe": {"method": "lqr", "plant": "P", "Q": [3.0], "R": 1.0, "sign": -1}})
+    d.add_block("sum", "up", {"signs": ["+", "+"], "width": 1})
+    d.add_block("sum", "ym", {"signs": ["+", "+"], "width": 1})
+    d.connect("est.xhat", "Kx.in")
+    d.connect("Kx.out", "up.in1")
+    d.connect("w.out", "up.in2")
+    d.connect("up.out", "P.u")
+    d.connect("Kx.out", "est.u")
+    d.connect("P.y", "ym.in1")
+    d.connect("v.out", "ym.in2")
+    d.connect("ym.out", "est.y")
+    path = tmp_path / "reactor.lwd"
+    save(d, str(path))
+    assert main(["design", str(path)]) == 0
+    text = capsys.readouterr().out
+    assert "not designed yet: " in text and "Riccati solution P = [[3]]" in text and "error covariance P = [[4]]" in text
+    assert main(["design", str(path), "--json"]) == 0
+    blocks = {b["block"]: b for b in json.loads(capsys.readouterr().out)["blocks"]}
+    assert_allclose(blocks["Kx"]["riccati_P"], [[3.0]], rtol=1e-9)
+    assert_allclose(blocks["Kx"]["cost_trace"], 3.0, rtol=1e-9)
+    assert_allclose(blocks["est"]["error_covariance_P"], [[4.0]], rtol=1e-9)
+    assert_allclose(blocks["est"]["error_rms"], [2.0], rtol=1e-9)

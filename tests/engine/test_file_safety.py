@@ -7,7 +7,6 @@ save clears the temporary files a killed save left.
 """
 from __future__ import annotations
 
-import json
 import os
 import shutil
 import signal

@@ -1,6 +1,8 @@
 """Tests of engine/margins.py: gain-margin intervals, phase/delay/disk margins, vector loops."""
 from __future__ import annotations
 
+from pathlib import Path
+
 import control as ct
 import numpy as np
 import pytest
@@ -24,6 +26,8 @@ from loopwright.engine.margins import (
 )
 from loopwright.engine.norms import peak_gain
 from loopwright.engine.responses import frequency_response
+
+DATA = Path(__file__).parent / "data"
 
 
 def _ss(sys):
@@ -360,3 +364,194 @@ def test_closed_loop_matrix_gives_the_reference_poles():
     A, B, C, D = loop_transfer(_unity_loop(OVEN, 4.0), "u")
     ev = np.sort_complex(np.linalg.eigvals(closed_loop_matrix(A, B, C, D)))
     assert_allclose(ev, np.sort_complex([-2.587401052, -0.206299474 - 1.374729637j, -0.206299474 + 1.374729637j]), atol=1e-8)
+
+
+# ---- poles at the origin, unbounded disks, signed phase margins, crossover tables -------
+
+
+def test_poles_at_the_origin_are_not_counted_in_the_right_half_plane():
+    # REFERENCES.md REF-03 stage loop broken at the plant input: L = K (sI - A + B K + L C)^-1 L P(s) with
+    # P = 1/s^2 (two poles at the origin, closed form) and the estimator block A - B K - L C =
+    # [[-11, 1], [-38, -4]] (trace -15, determinant 82: both poles in the open left half-plane, closed form)
+    from diagrams import stage_loop_ref03
+
+    m = margins_at(stage_loop_ref03(), "P.u")
+    assert m.open_loop_poles.origin == 2
+    assert m.open_loop_poles.open_rhp == 0 and m.open_loop_unstable_poles == 0
+    assert m.open_loop_poles.phrase() == "2 at the origin, 0 in the right half-plane"
+
+
+@pytest.mark.parametrize(
+    "tf, origin",
+    [
+        pytest.param(ct.tf(2, [1, 1, 0]), 1, id="REF-10 camera pan 2/(s(s+1)): one integrator (closed form)"),
+        pytest.param(ct.tf([10, 10], [1, 10, 0, 0]), 2, id="10(s+1)/(s^2(s+10)): double integrator with lead (closed form)"),
+        pytest.param(ct.tf([1, 3, 3, 1], [1, 0, 0, 0, 0]), 4, id="(s+1)^3/s^4: a 4-fold pole at the origin (closed form)"),
+    ],
+)
+def test_integrators_in_the_loop_are_counted_at_the_origin_and_the_margins_agree_with_python_control(tf, origin):
+    A, B, C, D = _ss(tf)
+    m = loop_margins(A, B, C, D)
+    assert (m.open_loop_poles.origin, m.open_loop_poles.open_rhp) == (origin, 0)
+    if origin < 4:  # python-control 0.10.2 stability_margins as the reference (well conditioned here)
+        gm, pm, _, _, wgc, _ = ct.stability_margins(tf)
+        assert_allclose(m.phase_margin_deg, pm, rtol=1e-7)
+        assert_allclose(m.phase_margin_w_rad_s, wgc, rtol=1e-7)
+
+
+def test_a_ten_fold_integrator_chain_is_ten_poles_at_the_origin():
+    # the chain of 10 integrators (tests/engine/data) broken at the plant input: the plant is a 10x10 shift
+    # matrix, 10 poles at s = 0 (closed form); the estimator block A - B K - L C is counted by its own eigenvalues
+    from loopwright.engine.blocks import plant_matrices
+    from loopwright.engine.project import load
+
+    d = load(str(DATA / "integrator_chain_10_placed_gains.lwd"))
+    m = margins_at(d, "P.u")
+    A, B, C, _ = plant_matrices(d, "P")
+    K = -np.asarray(d.block_by_name("K").params["K"], float)
+    Lg = np.asarray(d.block_by_name("est").params["L"], float)
+    rhp = int(np.sum(np.linalg.eigvals(A - B @ K - Lg @ C).real > 0))
+    assert m.open_loop_poles.origin == 10
+    assert m.open_loop_poles.open_rhp == rhp
+
+
+def test_an_integrator_loop_has_an_unbounded_disk_gain_interval():
+    # L = 1/s: S - 1/2 = (s - 1)/(2 (s + 1)) is all-pass with gain 1/2, so alpha = 2 and the balanced disk
+    # gives the gain interval [0, inf) exactly (closed form; Seiler, Packard & Gahinet 2020, from memory)
+    m = loop_margins([[0.0]], [[1.0]], [[1.0]], [[0.0]])
+    assert_allclose(m.disk.alpha, 2.0, rtol=1e-9)
+    assert m.disk.gain_lower == 0.0 and m.disk.gain_upper == np.inf
+    assert m.disk.lower_unbounded and m.disk.upper_unbounded
+    assert m.as_dict()["disk_margin"]["gain_unbounded"] == [True, True]
+
+
+@pytest.mark.parametrize("alpha", [2.0, 2.0 - 4e-16, 2.0 * (1 - 1e-12)], ids=lambda a: f"alpha={a!r} (closed form: 1 - alpha/2 = 0)")
+def test_disk_gains_unbounded_within_rounding_are_zero_and_infinity(alpha):
+    d = disk_margin_from_alpha(alpha)
+    assert d.gain_lower == 0.0 and d.gain_upper == np.inf
+    # a clearly bounded disk keeps its finite interval: alpha = 1 gives [1/3, 3] (closed form (1 -+ a/2)/(1 +- a/2))
+    d1 = disk_margin_from_alpha(1.0)
+    assert_allclose([d1.gain_lower, d1.gain_upper], [1 / 3, 3.0], rtol=1e-12)
+
+
+def test_a_stable_loop_with_a_negative_phase_margin_says_why():
+    # L = 50 (s + 5)(s + 0.3) / ((s - 2)(s - 4)(s + 20)): two open-loop unstable poles; python-control 0.10.2
+    # stability_margins gives PM -86.175 deg at 0.6004 rad/s and GM 0.4428, and the closed loop is stable
+    L = ct.zpk([-5, -0.3], [2, 4, -20], 50)
+    assert np.all(ct.poles(ct.feedback(L, 1)).real < 0)
+    gm, pm, _, _, wgc, _ = ct.stability_margins(L)
+    m = loop_margins(*_ss(L))
+    assert m.closed_loop_stable and m.open_loop_unstable_poles == 2
+    assert_allclose(m.phase_margin_deg, pm, rtol=1e-7)
+    assert_allclose(m.phase_margin_w_rad_s, wgc, rtol=1e-7)
+    assert_allclose(m.gain_lower, gm, rtol=1e-7)
+    assert pm < 0
+    (note,) = [n for n in m.notes if "negative" in n]
+    assert "stable although the phase margin is negative" in note and "2 open-loop poles" in note
+    assert "encircles -1 2 times counter-clockwise" in note
+
+
+def test_crossover_tables_of_the_triple_lag_mark_the_margins_they_set():
+    # REFERENCES.md REF-09 (closed forms): one gain crossover at sqrt(4^(2/3) - 1) with PM 27.1416306 deg and
+    # delay margin 0.3842501695 s; one phase crossover at sqrt(3) where 1/|L| = 2
+    m = loop_margins(*_ss(ct.tf(4, [1, 3, 3, 1])))
+    (gc,) = m.crossovers
+    assert_allclose([gc.w_rad_s, gc.phase_margin_deg, gc.delay_margin_s], [np.sqrt(4 ** (2 / 3) - 1), 27.1416306, 0.3842501695], rtol=1e-8)
+    assert gc.sets_phase_margin and gc.sets_delay_margin
+    assert_allclose(m.delay_margin_w_rad_s, gc.w_rad_s)
+    (pc,) = m.phase_crossings
+    assert_allclose([pc.w_rad_s, pc.gain_factor], [np.sqrt(3.0), 2.0], rtol=1e-9)
+    assert pc.sets_upper and not pc.sets_lower
+
+
+def test_every_crossover_of_the_conveyor_sample_matches_python_control():
+    # python-control 0.10.2 stability_margins(returnall=True) on the same realisation of L at P.u
+    from diagrams import sample_path
+    from loopwright.engine.project import load
+
+    d = load(str(sample_path("conveyor_flexible_drive.lwd")))
+    A, B, C, D = loop_transfer(d, "P.u")
+    m = margins_at(d, "P.u")
+    gm, pm, _, wpc, wgc, _ = ct.stability_margins(ct.ss(A, B, C, D), returnall=True)
+    assert_allclose([c.w_rad_s for c in m.crossovers], np.sort(wgc), rtol=1e-6)
+    order = np.argsort(wgc)
+    assert_allclose([c.phase_margin_deg for c in m.crossovers], np.asarray(pm)[order], rtol=1e-6)
+    lag = np.mod(np.asarray(pm)[order], 360.0)
+    assert_allclose([c.delay_margin_s for c in m.crossovers], np.radians(lag) / np.sort(wgc), rtol=1e-6)
+    # python-control's phase crossovers far outside the loop's band (w -> 0 where the two integrators make |L|
+    # huge, w beyond 1e4 rad/s where |L| is tiny) move with rounding (they differ between BLAS kernels):
+    # compared only where its answer is well conditioned
+    neg = [(w, g) for w, g in sorted(zip(wpc, gm)) if g > 0 and 1e-3 < w < 1e4]
+    assert_allclose([c.w_rad_s for c in m.phase_crossings], [w for w, _ in neg], rtol=1e-6)
+    assert_allclose([c.gain_factor for c in m.phase_crossings], [g for _, g in neg], rtol=1e-6)
+    assert [c.sets_delay_margin for c in m.crossovers].count(True) == 1
+    assert sum(c.sets_upper for c in m.phase_crossings) == 1
+
+
+# ---- one component of a vector break; limits of performance -------------------------------
+
+
+def test_breaking_one_component_closes_the_others():
+    # closed form: with channel 2 closed, the loop seen at channel 1 is L11 - L12 (1 + L22)^-1 L21;
+    # python-control 0.10.2 builds it (feedback, series) and stability_margins gives its margins
+    from diagrams import sample_path
+    from loopwright.engine.project import load
+
+    d = load(str(sample_path("two_zone_oven.lwd")))
+    A, B, C, D = loop_transfer(d, "P.u")
+    Lss = ct.ss(A, B, C, D)
+    L11, L12, L21, L22 = Lss[0, 0], Lss[0, 1], Lss[1, 0], Lss[1, 1]
+    L1 = L11 - L12 * ct.feedback(ct.ss([], [], [], [[1.0]]), L22) * L21
+    gm, pm, _, _, wgc, _ = ct.stability_margins(L1)
+    m = margins_at(d, "P.u[1]")
+    assert isinstance(m.phase_margin_deg, float) and m.closed_loop_stable
+    assert_allclose(m.phase_margin_deg, pm, rtol=1e-6)
+    assert_allclose(m.phase_margin_w_rad_s, wgc, rtol=1e-6)
+    assert m.gain_upper == np.inf and gm > 1e12  # python-control reports a rounding-level phase crossover as 2.9e14
+    with pytest.raises(AnalysisError, match=r"pick \[1\] to \[2\]"):
+        margins_at(d, "P.u[3]")
+
+
+def test_bode_sensitivity_integral_of_the_unstable_rotor():
+    # REFERENCES.md REF-12: int_0^inf ln|S| dw = pi * sum Re p = 2 pi for L = 80 (s + 1)/(s^3 + 10 s^2 - 4 s - 40)
+    # (Freudenberg & Looze, IEEE TAC AC-30(6), 1985, from memory)
+    from loopwright.engine.limits import performance_limits
+
+    lim = performance_limits(*_ss(ct.tf([80, 80], [1, 10, -4, -40])))
+    assert lim.relative_degree == 2
+    assert_allclose(lim.bode_integral, 2 * np.pi, rtol=1e-8)
+    assert_allclose(lim.bode_integral_theory, 2 * np.pi, rtol=1e-12)
+    assert_allclose(lim.rhp_poles, [2.0], rtol=1e-12) and lim.rhp_zeros.size == 0
+    assert lim.crossover_above_rad_s == pytest.approx(4.0)
+
+
+def test_a_right_half_plane_zero_and_pole_bound_the_peak_sensitivity():
+    # L = (20 - 4 s)/((s - 1)(s + 10)): zero z = 5, pole p = 1 in the right half-plane; closed form
+    # ||S||_inf >= |z + p| / |z - p| = 6/4 = 1.5 (maximum modulus principle: S(z) = 1, S(p) = 0;
+    # Skogestad & Postlethwaite 2005, ch. 5, from memory); the peak on a python-control 0.10.2 frequency grid
+    # must not be below it
+    tf = ct.tf([-4, 20], [1, 9, -10])
+    assert np.all(ct.poles(ct.feedback(tf, 1)).real < 0)
+    m = loop_margins(*_ss(tf))
+    from loopwright.engine.limits import performance_limits
+
+    lim = performance_limits(*_ss(tf), closed_loop_stable=m.closed_loop_stable)
+    assert_allclose(lim.rhp_zeros, [5.0], rtol=1e-9)
+    assert_allclose(lim.peak_sensitivity_bound, 1.5, rtol=1e-9)
+    w = np.logspace(-3, 3, 20001)
+    grid_peak = np.max(np.abs(1.0 / (1.0 + tf(1j * w))))
+    assert grid_peak >= 1.5 and m.peak_sensitivity >= 1.5
+    assert lim.crossover_below_rad_s == pytest.approx(2.5) and lim.crossover_above_rad_s == pytest.approx(2.0)
+    assert any("cannot be below 1.5" in ln for ln in lim.lines())
+
+
+def test_margins_at_a_scalar_break_carry_the_limits():
+    from diagrams import sample_path
+    from loopwright.engine.project import load
+
+    m = margins_at(load(str(sample_path("levitated_rotor_axis.lwd"))), "P.u")
+    # Bode's integral with one unstable pole (Freudenberg & Looze 1985, from memory): the quadrature of
+    # ln|S| must equal pi * Re p for the sample's open-loop unstable pole (+63 rad/s in its description)
+    assert m.limits is not None and m.limits.rhp_poles.size == 1
+    assert_allclose(m.limits.bode_integral, m.limits.bode_integral_theory, rtol=1e-6)
+    assert m.as_dict()["limits"]["crossover_above_rad_s"] == pytest.approx(2 * m.limits.rhp_poles[0].real)

@@ -42,7 +42,6 @@ def test_quick_start_has_exactly_two_commands_and_the_caution():
 # the front page cannot drift), not references; the references are in tests/REFERENCES.md.
 # When an output format changes on purpose, regenerate the README block from the command.
 
-import os  # noqa: E402
 import shlex  # noqa: E402
 import shutil  # noqa: E402
 

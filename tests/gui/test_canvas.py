@@ -250,6 +250,15 @@ def test_arrow_keys_nudge_the_selection_by_one_grid_step(shown, qtbot):
     assert doc.diagram.blocks[a.block_id].layout["y"] == 0.0
 
 
+def _drag_event(event_class, pos, *args):
+    """A drag event at ``pos`` (QPointF): PySide6 6.12 takes a QPointF (its QPoint form is
+    deprecated); 6.11 takes only a QPoint for the enter and move events."""
+    try:
+        return event_class(pos, *args)
+    except TypeError:
+        return event_class(pos.toPoint(), *args)
+
+
 def test_dropping_a_shelf_entry_on_the_canvas_places_it_there(shown, qtbot):
     from PySide6.QtCore import QPointF as P
     from PySide6.QtGui import QDragEnterEvent, QDragMoveEvent, QDropEvent
@@ -262,9 +271,8 @@ def test_dropping_a_shelf_entry_on_the_canvas_places_it_there(shown, qtbot):
     pos = P(at)
     action = Qt.DropAction.CopyAction
     btn, mod = Qt.MouseButton.LeftButton, Qt.KeyboardModifier.NoModifier
-    QApplication.sendEvent(vp, QDragEnterEvent(pos, action, md, btn, mod))
-    QApplication.sendEvent(vp, QDragMoveEvent(pos, action, md, btn, mod))
-    QApplication.sendEvent(vp, QDropEvent(pos, action, md, btn, mod))
+    for event_class in (QDragEnterEvent, QDragMoveEvent, QDropEvent):
+        QApplication.sendEvent(vp, _drag_event(event_class, pos, action, md, btn, mod))
     (blk,) = shown.document.diagram.blocks.values()
     assert blk.kind == "plant"
     assert (blk.layout["x"], blk.layout["y"]) == (200, 100)

@@ -101,14 +101,33 @@ def test_editing_a_gain_in_the_table_pushes_one_command_and_undo_restores(doc_an
     assert doc.diagram.blocks[k.id].params["K"] == old
 
 
-def test_a_matrix_of_the_wrong_size_is_refused_with_the_engine_reason_and_nothing_changes(doc_and_inspector):
+def test_sizes_are_set_once_and_every_matrix_follows_then_one_apply_is_one_step(doc_and_inspector):
+    # Before: each matrix was checked against the stored others, so a new state count was
+    # refused matrix by matrix with contradicting messages and never reached the history.
     doc, insp = doc_and_inspector
     p = doc.diagram.block_by_name("P")
     insp.show_block(p.id)
-    before = doc.snapshot()
-    insp.fields["B"].rows.setValue(1)  # B must have as many rows as A
+    ed = insp.model_editor
+    before, steps = doc.snapshot(), doc.undo_stack.count()
+    ed.sizes["states"].setValue(5)
+    shapes = {k: (m.table.rowCount(), m.table.columnCount()) for k, m in ed.matrices.items()}
+    assert shapes == {"A": (5, 5), "B": (5, 1), "C": (1, 5), "D": (1, 1), "E": (5, 1), "F": (1, 1)}
+    assert doc.diagram == before  # a draft until applied
+    assert "not applied" in ed.status.text() and ed.apply_button.isEnabled()
+    ed.apply_button.click()
+    params = doc.diagram.blocks[p.id].params
+    assert np.shape(params["A"]) == (5, 5) and np.shape(params["E"]) == (5, 1)
+    assert doc.undo_stack.count() == steps + 1
+    doc.undo_stack.undo()
     assert doc.diagram == before
-    assert "B has 1 row, expected 4" in insp.fields["B"].error.text()
+
+
+def _type(edit: QLineEdit, text: str) -> None:
+    """Replace a line edit's text by typing it, as a user does."""
+    from PySide6.QtTest import QTest
+
+    edit.selectAll()
+    QTest.keyClicks(edit, text)
 
 
 def _shown_roots(line: str) -> list[complex]:
@@ -135,8 +154,10 @@ def test_transfer_function_fields_show_poles_and_zeros(qtbot, num, den):
     # Reference: python-control 0.10.2 poles() and zeros() of num/den, compared with the
     # numbers the inspector shows at their printed precision (4 significant digits).
     doc, insp, cmd = _inspect_new_block(qtbot, "dynamic")
-    _commit(insp.fields["den"], den)  # the denominator first: the block stays proper
-    _commit(insp.fields["num"], num)
+    ed = insp.model_editor
+    _type(insp.fields["num"], num)
+    _type(insp.fields["den"], den)
+    ed.apply_button.click()
     blk = doc.diagram.blocks[cmd.block_id]
     nums, dens = [float(v) for v in num.split(",")], [float(v) for v in den.split(",")]
     assert blk.params == {"num": nums, "den": dens}
@@ -148,15 +169,17 @@ def test_transfer_function_fields_show_poles_and_zeros(qtbot, num, den):
         assert_allclose(np.sort_complex(np.array(shown)), np.sort_complex(ref), rtol=6e-4, atol=1e-12)
 
 
-def test_a_bad_coefficient_is_refused_next_to_the_field(qtbot):
+def test_a_bad_coefficient_is_named_in_the_draft_and_nothing_changes(qtbot):
     doc, insp, cmd = _inspect_new_block(qtbot, "dynamic")
-    _commit(insp.fields["den"], "1, x")
-    assert doc.diagram.blocks[cmd.block_id].params["den"] == [1.0, 1.0]
-    err = insp.errors["den"]
-    assert not err.isHidden() and "'x' is not a finite number" in err.text()
-    _commit(insp.fields["den"], "0, 0")
-    assert doc.diagram.blocks[cmd.block_id].params["den"] == [1.0, 1.0]
-    assert "den" in insp.errors["den"].text()
+    stored = dict(doc.diagram.blocks[cmd.block_id].params)
+    ed = insp.model_editor
+    _type(insp.fields["den"], "1, x")
+    assert "'x' is not a finite number" in ed.status.text()
+    assert not ed.apply_button.isEnabled()
+    _type(insp.fields["den"], "0, 0")
+    assert "den" in ed.status.text() and not ed.apply_button.isEnabled()
+    ed.apply()
+    assert doc.diagram.blocks[cmd.block_id].params == stored
 
 
 def test_complex_lists_are_written_as_conjugate_pairs():
@@ -186,10 +209,12 @@ def test_estimator_link_can_switch_to_an_own_model_and_back(doc_and_inspector):
     insp.show_block(est.id)
     link: QComboBox = insp.fields["plant"]
     link.setCurrentIndex(0)  # own model: the plant's matrices are copied in
+    insp.model_editor.apply_button.click()
     params = doc.diagram.blocks[est.id].params
     assert "plant" not in params
     assert_allclose(params["A"], doc.diagram.block_by_name("P").params["A"])
     insp.fields["plant"].setCurrentIndex(insp.fields["plant"].findData("P"))
+    insp.model_editor.apply_button.click()
     assert doc.diagram.blocks[est.id].params.get("plant") == "P"
 
 
