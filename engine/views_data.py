@@ -353,7 +353,9 @@ class PairRun:
     """One time run for one pair.
 
     ``y`` is (N, q) with one column per name in ``names`` (``"out <- in"`` for a vector
-    input). ``kind`` is one of :data:`RUN_KINDS`.
+    input). ``kind`` is one of :data:`RUN_KINDS`. A step run also carries ``metrics``:
+    name -> :class:`step_metrics.StepMetrics` (steady state from the path's exact DC gain;
+    none for an unstable model).
     """
 
     kind: str
@@ -362,6 +364,7 @@ class PairRun:
     names: list[str]
     diverged: bool = False
     message: str = ""
+    metrics: dict = field(default_factory=dict)
 
 
 def estimation_error_names(model) -> dict[str, np.ndarray]:
@@ -430,9 +433,27 @@ def pair_time_response(model, kind: str, source: str, signal: str, t, *, x0=None
     res = fn(model.A, model.B[:, cols], C, D[:, cols], t)
     in_names = list(model.input_names[cols])
     if len(in_names) == 1:
-        return PairRun(kind, res.t, res.y[:, :, 0], out_names, res.diverged, res.message)
-    names = [f"{o} <- {i}" for o in out_names for i in in_names]
-    return PairRun(kind, res.t, res.y.reshape(res.y.shape[0], -1), names, res.diverged, res.message)
+        names, Y = out_names, res.y[:, :, 0]
+    else:
+        names = [f"{o} <- {i}" for o in out_names for i in in_names]
+        Y = res.y.reshape(res.y.shape[0], -1)
+    metrics = _step_run_metrics(model, cols, C, D, names, Y, res.t) if kind == "step" and not res.diverged else {}
+    return PairRun(kind, res.t, Y, names, res.diverged, res.message, metrics)
+
+
+def _step_run_metrics(model, cols, C, D, names, Y, t) -> dict:
+    """Step metrics of each column of a step run (none when the model is not stable: no
+    steady state to measure against)."""
+    from loopwright.engine.norms import dc_gain, is_stable_matrix
+    from loopwright.engine.step_metrics import step_metrics
+
+    if not is_stable_matrix(model.A):
+        return {}
+    with np.errstate(all="ignore"):
+        G0 = np.asarray(dc_gain(model.A, model.B[:, cols], C, D[:, cols]), dtype=float).reshape(-1)  # output-major, like Y
+    scale = max(float(np.nanmax(np.abs(Y))) if Y.size else 0.0, float(np.nanmax(np.abs(G0), initial=0.0)))
+    G0 = np.where(np.abs(G0) <= 1e-12 * scale, 0.0, G0)  # rounding of an exact zero
+    return {nm: step_metrics(t, Y[:, k], float(G0[k])) for k, nm in enumerate(names) if np.isfinite(G0[k]) and G0[k] != 0.0}
 
 
 def time_views(diagram, pairs, kind: str, *, initial: dict | None = None, t_end: float | None = None, dt: float | None = None) -> list:

@@ -9,8 +9,9 @@ estimator shows the estimation error's transient.
 from __future__ import annotations
 
 import numpy as np
+from PySide6.QtCore import Qt
 from PySide6.QtGui import QColor
-from PySide6.QtWidgets import QCheckBox, QComboBox, QHBoxLayout, QLabel, QLineEdit
+from PySide6.QtWidgets import QCheckBox, QComboBox, QHBoxLayout, QLabel, QLineEdit, QSizePolicy
 
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.views_data import time_views
@@ -79,7 +80,21 @@ class TimePanel(PlotPanel):
         self.canvas = new_layout_widget()
         self.plot = themed_plot(self.canvas, 0, left="response", bottom="time (s)")
         self.legend = self.plot.addLegend(offset=(-10, 10), labelTextColor="#1f2933", brush=(255, 255, 255, 210))
-        self._layout.addWidget(self.canvas, 1)
+        row = QHBoxLayout()
+        row.addWidget(self.canvas, 1)
+        # step metrics of each pair, beside the plot, in the pair's colour (step runs only)
+        self.metrics_label = QLabel("")
+        self.metrics_label.setObjectName("time_metrics")
+        self.metrics_label.setTextFormat(Qt.TextFormat.RichText)
+        self.metrics_label.setAlignment(Qt.AlignmentFlag.AlignTop | Qt.AlignmentFlag.AlignLeft)
+        self.metrics_label.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
+        self.metrics_label.setSizePolicy(QSizePolicy.Policy.Maximum, QSizePolicy.Policy.Preferred)
+        self.metrics_label.setMaximumWidth(190)
+        self.metrics_label.setToolTip("Rise time 10 % to 90 % of the steady state; settling into ±2 %; overshoot and undershoot "
+                                      "in % of the steady state, which is the path's exact DC gain.")
+        self.metrics_label.setVisible(False)
+        row.addWidget(self.metrics_label)
+        self._layout.addLayout(row, 1)
         self.note = QLabel("")
         self.note.setObjectName("time_note")
         self.note.setWordWrap(True)
@@ -156,12 +171,30 @@ class TimePanel(PlotPanel):
             item = self.curves.pop(key)
             self.plot.removeItem(item)
             self.legend.removeItem(item)
+        self._show_metrics()
         if errors:
             self.show_error("\n".join(errors))
         else:
             self.set_message("" if self.runs else "No pair yet: right-click a wire and choose “look here”.")
         self.plot.setTitle(f"response to {RUN_LABELS[self.run_kind()]}", color="#1f2933", size="9pt")
         self.plot.enableAutoRange()
+
+    def step_metrics(self) -> dict:
+        """(pair, name) -> StepMetrics of the runs on show (step runs of kept pairs only)."""
+        return {(pair, nm): m for pair, run in self.runs.items() if pair in self.pairs for nm, m in run.metrics.items()}
+
+    def _show_metrics(self) -> None:
+        metrics = self.step_metrics()
+        blocks = []
+        for (pair, name), m in metrics.items():
+            colour = pair_colour(self.pairs.index(pair)).name()
+            settling = f"{m.settling_time_s:.3g} s" if m.settled else "not settled"
+            blocks.append(f"<div style='color:{colour}'><b>{name} ← {input_label(pair[0])}</b><br>"
+                          f"rise {m.rise_time_s:.3g} s · settling {settling}<br>"
+                          f"overshoot {m.overshoot_pct:.3g} % · undershoot {m.undershoot_pct:.3g} %<br>"
+                          f"peak {m.peak:.4g} at {m.peak_time_s:.3g} s · steady {m.steady_state:.4g}</div>")
+        self.metrics_label.setText("<br>".join(blocks))
+        self.metrics_label.setVisible(bool(blocks))
 
     def clear_value(self) -> None:
         for item in self.curves.values():

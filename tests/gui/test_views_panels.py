@@ -16,6 +16,7 @@ from loopwright.engine.project import load
 from loopwright.engine.views_data import loop_break_view, noise_bars, singular_value_views, time_views
 
 from gui_helpers import SAMPLES
+from loopwright.gui.docks.panel import pair_colour
 
 pytestmark = pytest.mark.qt
 
@@ -250,3 +251,36 @@ def test_the_audit_panel_reports_progress_to_the_end(window, wait_views):
     panel.set_progress(0.4)
     assert panel.progress_text() == "computing… 40 %" and panel.progress.value() == 400
     panel.set_waiting(False)
+
+
+def test_time_view_shows_the_step_metrics_of_each_pair_in_its_colour(window, wait_views):
+    # the metrics beside the plot are the engine's (engine/step_metrics.py on the engine's
+    # run); python-control 0.10 step_info on the same path agrees on the overshoot
+    import control as ct
+
+    from loopwright.engine.step_metrics import step_metrics
+
+    path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+    _open_with_pairs(window, path, [("r", "y"), ("dl", "y")])
+    panel = _show(window, "time", wait_views)
+    panel.set_run_kind("step")
+    wait_views(window)
+    shown = panel.step_metrics()
+    assert set(shown) == {(("r", "y"), "y"), (("dl", "y"), "y")}
+    model = assemble(load(path))
+    for pair in (("r", "y"), ("dl", "y")):
+        run = panel.runs[pair]
+        A, B, C, D = model.pair(*pair)
+        ref = step_metrics(run.t, run.y[:, 0], float((D - C @ np.linalg.solve(A, B))[0, 0]))
+        got = shown[(pair, "y")]
+        assert got.overshoot_pct == pytest.approx(ref.overshoot_pct, abs=1e-9)
+        assert got.rise_time_s == pytest.approx(ref.rise_time_s, rel=1e-9)
+        info = ct.step_info(ct.ss(A, B, C, D), T=run.t)
+        assert got.overshoot_pct == pytest.approx(info["Overshoot"], abs=0.5)
+    text = panel.metrics_label.text()
+    for k in (0, 1):
+        assert pair_colour(k).name() in text
+    assert panel.metrics_label.isVisible()
+    panel.set_run_kind("impulse")
+    wait_views(window)
+    assert not panel.metrics_label.isVisible() and panel.step_metrics() == {}
