@@ -79,6 +79,7 @@ def measure_edits(app, states: int, edits: int, debounce_ms: int, tmp: Path) -> 
     save(view_loop(states), path)
     win = _window(app, tmp, debounce_ms)
     drawn: dict[str, int] = {}
+    errors: dict[str, str] = {}
     doc = win.document
     for key in VIEWS:
         panel = win.panels[key]
@@ -89,6 +90,14 @@ def measure_edits(app, states: int, edits: int, debounce_ms: int, tmp: Path) -> 
             drawn[_key] = doc.revision
 
         panel.show_value = recorder
+        original_error = panel.show_error
+
+        def error_recorder(text, _orig=original_error, _key=key):
+            _orig(text)
+            errors[_key] = text
+            drawn[_key] = doc.revision
+
+        panel.show_error = error_recorder
     win.open_path(str(path))
     _wait(app, lambda: all(drawn.get(k) == doc.revision for k in VIEWS) and win.views.is_idle())
     kid = doc.diagram.block_by_name("K0").id
@@ -111,7 +120,7 @@ def measure_edits(app, states: int, edits: int, debounce_ms: int, tmp: Path) -> 
     win.views.shutdown()
     win.close()
     app.processEvents()
-    return {"latency": latencies, "until_drawn": computes}
+    return {"latency": latencies, "until_drawn": computes, "errors": errors}
 
 
 def time_engine_parts(states: int) -> dict:
@@ -224,6 +233,8 @@ def main(argv=None) -> int:
             target = targets.get(n)
             verdict = "" if target is None else (f"  target {target * 1000:.0f} ms: " + ("met" if statistics.median(lat) <= target else "MISSED"))
             print(f"\n{n} states, four views open, {len(lat)} edits of K0 (debounce preference {args.debounce_ms} ms):")
+            for key, text in res["errors"].items():
+                print(f"  note: the {key} view answered with a message: {text}")
             print(f"  edit -> every view redrawn: median {statistics.median(lat) * 1000:.0f} ms, "
                   f"min {min(lat) * 1000:.0f} ms, max {max(lat) * 1000:.0f} ms{verdict}")
             parts = time_engine_parts(n)

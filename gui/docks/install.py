@@ -80,7 +80,13 @@ def install_views(window) -> None:
     window.problems_dock.raise_()
     audit = window.panels["audit"]
     audit.path_selected.connect(lambda row: _show_audit_path(window, row))
-    audit.summary_changed.connect(lambda text: window.statusBar().showMessage(text))
+    # a label of its own: a passing status message would be squeezed out by the live model's line
+    from PySide6.QtWidgets import QLabel
+
+    window.audit_status = QLabel("")
+    window.audit_status.setObjectName("audit_status")
+    window.statusBar().addPermanentWidget(window.audit_status)
+    audit.summary_changed.connect(window.audit_status.setText)
     window.problems.view_requested.connect(lambda key: (window.view_docks[key].show(), window.view_docks[key].raise_()))
     _build_menus(window)
 

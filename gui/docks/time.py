@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 from PySide6.QtCore import Qt
 from PySide6.QtGui import QColor
-from PySide6.QtWidgets import QCheckBox, QComboBox, QHBoxLayout, QLabel, QLineEdit, QSizePolicy
+from PySide6.QtWidgets import QCheckBox, QComboBox, QFrame, QHBoxLayout, QLabel, QLineEdit, QScrollArea, QSizePolicy
 
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.views_data import time_views
@@ -88,12 +88,21 @@ class TimePanel(PlotPanel):
         self.metrics_label.setTextFormat(Qt.TextFormat.RichText)
         self.metrics_label.setAlignment(Qt.AlignmentFlag.AlignTop | Qt.AlignmentFlag.AlignLeft)
         self.metrics_label.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
-        self.metrics_label.setSizePolicy(QSizePolicy.Policy.Maximum, QSizePolicy.Policy.Preferred)
+        self.metrics_label.setWordWrap(True)
         self.metrics_label.setMaximumWidth(190)
         self.metrics_label.setToolTip("Rise time 10 % to 90 % of the steady state; settling into ±2 %; overshoot and undershoot "
                                       "in % of the steady state, which is the path's exact DC gain.")
-        self.metrics_label.setVisible(False)
-        row.addWidget(self.metrics_label)
+        # in a scroll area: many pairs (or a vector pair) never make the panel taller
+        self.metrics_area = QScrollArea()
+        self.metrics_area.setObjectName("time_metrics_area")
+        self.metrics_area.setWidget(self.metrics_label)
+        self.metrics_area.setWidgetResizable(True)
+        self.metrics_area.setFrameShape(QFrame.Shape.NoFrame)
+        self.metrics_area.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+        self.metrics_area.setSizePolicy(QSizePolicy.Policy.Maximum, QSizePolicy.Policy.Ignored)
+        self.metrics_area.setFixedWidth(200)
+        self.metrics_area.setVisible(False)
+        row.addWidget(self.metrics_area)
         self._layout.addLayout(row, 1)
         self.note = QLabel("")
         self.note.setObjectName("time_note")
@@ -194,7 +203,7 @@ class TimePanel(PlotPanel):
                           f"overshoot {m.overshoot_pct:.3g} % · undershoot {m.undershoot_pct:.3g} %<br>"
                           f"peak {m.peak:.4g} at {m.peak_time_s:.3g} s · steady {m.steady_state:.4g}</div>")
         self.metrics_label.setText("<br>".join(blocks))
-        self.metrics_label.setVisible(bool(blocks))
+        self.metrics_area.setVisible(bool(blocks))
 
     def clear_value(self) -> None:
         for item in self.curves.values():

@@ -144,7 +144,7 @@ def test_audit_row_lights_exactly_its_path_and_shows_it_in_the_frequency_view(wi
     panel = _show(window, "audit", wait_views)
     rows = path_audit(assemble(load(path)))
     assert [(r.source, r.signal, r.peak_gain) for r in panel.rows] == [(r.source, r.signal, r.peak_gain) for r in rows]
-    assert "worst stable path" in window.statusBar().currentMessage()
+    assert "worst stable path" in window.audit_status.text()
     k = 2
     panel.select_row(k)
     lit_b = {b for b, it in window.scene.block_items.items() if it._highlighted}
@@ -280,7 +280,7 @@ def test_time_view_shows_the_step_metrics_of_each_pair_in_its_colour(window, wai
     text = panel.metrics_label.text()
     for k in (0, 1):
         assert pair_colour(k).name() in text
-    assert panel.metrics_label.isVisible()
+    assert panel.metrics_area.isVisible()
     panel.set_run_kind("impulse")
     wait_views(window)
-    assert not panel.metrics_label.isVisible() and panel.step_metrics() == {}
+    assert not panel.metrics_area.isVisible() and panel.step_metrics() == {}
