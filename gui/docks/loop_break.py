@@ -70,7 +70,7 @@ class LoopBreakPanel(PlotPanel):
         elastic(self.summary)
         self.summary.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
         self._layout.addWidget(self.summary)
-        split = AdaptiveSplitter(across_from=460)  # the table beside the plot leaves the Nyquist plot its height
+        split = AdaptiveSplitter()
         self.canvas = new_layout_widget()
         self.plot = themed_plot(self.canvas, 0, left="imaginary", bottom="real")
         self.plot.setAspectLocked(True)

@@ -178,7 +178,11 @@ class PlotPanel(QWidget):
         SVG goes through Qt's own SVG painter (vector output); pyqtgraph's SVG exporter
         fails on the closed paths of a filled legend box.
         """
+        from loopwright.engine import CAUTION
+        from loopwright.engine.output_paths import check_export_output
+
         path = str(path)
+        check_export_output(path)  # never over a diagram, a folder or a read-only file
         widget = self.picture_widget()
         if path.lower().endswith(".svg"):
             from PySide6.QtCore import QPoint, QRect
@@ -190,6 +194,7 @@ class PlotPanel(QWidget):
             gen.setSize(widget.size())
             gen.setViewBox(QRect(0, 0, widget.width(), widget.height()))
             gen.setTitle(f"Loopwright {self.title}")
+            gen.setDescription(CAUTION)
             painter = QPainter(gen)
             QWidget.render(widget, painter, QPoint(0, 0))  # the widget overload, also for a QGraphicsView
             painter.end()
@@ -209,6 +214,9 @@ class PlotPanel(QWidget):
         return self.canvas
 
     def save_data(self, path: str | Path) -> None:
+        from loopwright.engine.output_paths import check_export_output
+
+        check_export_output(path)
         header, rows = self.table()
         write_table_csv(path, header, rows)
 
@@ -216,12 +224,23 @@ class PlotPanel(QWidget):
         path, _ = QFileDialog.getSaveFileName(self, f"Save the {self.title} as a picture", f"{self.key}.svg",
                                               "SVG picture (*.svg);;PNG picture (*.png)")
         if path:
-            self.save_picture(path)
+            self._refusable(self.save_picture, path)
 
     def save_data_dialog(self) -> None:
         path, _ = QFileDialog.getSaveFileName(self, f"Save the {self.title} data", f"{self.key}.csv", "CSV (*.csv)")
         if path:
-            self.save_data(path)
+            self._refusable(self.save_data, path)
+
+    def _refusable(self, write, path) -> None:
+        """Write, or say in one line why not (a diagram is never replaced by a picture)."""
+        from loopwright.engine.errors import EngineError
+
+        try:
+            write(path)
+        except (EngineError, OSError) as err:
+            from PySide6.QtWidgets import QMessageBox
+
+            QMessageBox.warning(self, f"Cannot save the {self.title}", str(err))
 
 
 def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, bottom: str | None, log_x: bool = False) -> pg.PlotItem:

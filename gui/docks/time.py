@@ -15,7 +15,7 @@ from PySide6.QtWidgets import QCheckBox, QComboBox, QFrame, QHBoxLayout, QLabel,
 
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.views_data import time_views
-from loopwright.gui.docks.panel import PlotPanel, elastic, new_layout_widget, pair_colour, pen_for, themed_plot
+from loopwright.gui.docks.panel import PlotPanel, elastic, legend_row, new_layout_widget, pair_colour, pen_for, themed_plot
 from loopwright.gui.view_commands import input_label
 
 __all__ = ["TimePanel", "RUN_LABELS", "parse_initial"]
@@ -78,8 +78,9 @@ class TimePanel(PlotPanel):
         bar.addWidget(self.show_error_box)
         self._layout.addLayout(bar)
         self.canvas = new_layout_widget()
-        self.plot = themed_plot(self.canvas, 0, left="response", bottom="time (s)")
-        self.legend = self.plot.addLegend(offset=(-10, 10), labelTextColor="#1f2933", brush=(255, 255, 255, 210))
+        # the legend has a row of its own above the plot: it never covers a settled response
+        self.legend = legend_row(self.canvas, 0, columns=2)
+        self.plot = themed_plot(self.canvas, 1, left="response", bottom="time (s)")
         row = QHBoxLayout()
         row.addWidget(self.canvas, 1)
         # step metrics of each pair, beside the plot, in the pair's colour (step runs only)
@@ -171,7 +172,8 @@ class TimePanel(PlotPanel):
                 wanted.add(key)
                 if key not in self.curves:
                     label = f"{name} ← {input_label(pair[0])}" if pair in self.pairs and self.run_kind() in ("step", "impulse") else name
-                    self.curves[key] = self.plot.plot(name=label)
+                    self.curves[key] = self.plot.plot()
+                    self.legend.addItem(self.curves[key], label)
                 self.curves[key].setPen(pen_for(colour, c if pair in self.pairs else c + 1))
                 self.curves[key].setData(run.t, run.y[:, c])
             if run.diverged:

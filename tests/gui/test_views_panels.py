@@ -284,3 +284,20 @@ def test_time_view_shows_the_step_metrics_of_each_pair_in_its_colour(window, wai
     panel.set_run_kind("impulse")
     wait_views(window)
     assert not panel.metrics_area.isVisible() and panel.step_metrics() == {}
+
+
+def test_a_view_picture_never_replaces_a_diagram_and_carries_the_caution(window, wait_views, tmp_path):
+    from loopwright.engine import CAUTION
+    from loopwright.engine.output_paths import OutputRefusedError
+
+    path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+    _open_with_pairs(window, path, [("r", "y")])
+    panel = _show(window, "frequency", wait_views)
+    diagram = tmp_path / "mine.lwd"
+    diagram.write_bytes(path.read_bytes())
+    for write in (panel.save_picture, panel.save_data):
+        with pytest.raises(OutputRefusedError, match="never replaces a diagram"):
+            write(diagram)
+    assert diagram.read_bytes() == path.read_bytes()
+    panel.save_picture(tmp_path / "f.svg")
+    assert CAUTION in (tmp_path / "f.svg").read_text(encoding="utf-8")
