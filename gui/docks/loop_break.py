@@ -70,7 +70,7 @@ class LoopBreakPanel(PlotPanel):
         elastic(self.summary)
         self.summary.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
         self._layout.addWidget(self.summary)
-        split = AdaptiveSplitter()
+        split = AdaptiveSplitter(first_share=0.72)  # the main margins are in the line above: the plot gets the room
         self.canvas = new_layout_widget()
         self.plot = themed_plot(self.canvas, 0, left="imaginary", bottom="real")
         self.plot.setAspectLocked(True)
@@ -196,6 +196,20 @@ class LoopBreakPanel(PlotPanel):
         pad = 0.1 * max(np.ptp(xs), np.ptp(ys), 1.0)
         self.plot.setXRange(xs.min() - pad, xs.max() + pad, padding=0)
         self.plot.setYRange(ys.min() - pad, ys.max() + pad, padding=0)
+
+    def resizeEvent(self, event) -> None:
+        # with the aspect locked, a frame set while the panel was still being laid out
+        # (hidden tab, first show) is stretched along one axis: frame it again at its size
+        super().resizeEvent(event)
+        if self.data is not None:
+            k = self.channel_index()
+            self._frame(self.data, k, k >= len(self.data.curves))
+
+    def showEvent(self, event) -> None:
+        super().showEvent(event)
+        if self.data is not None:
+            k = self.channel_index()
+            self._frame(self.data, k, k >= len(self.data.curves))
 
     def listed_margins(self) -> dict[str, str]:
         return {self.margins.item(i, 0).text(): self.margins.item(i, 1).text() for i in range(self.margins.rowCount())}

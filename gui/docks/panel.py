@@ -277,9 +277,10 @@ def elastic(label):
 class AdaptiveSplitter(QSplitter):
     """Plot and table side by side when there is room, one above the other when narrow."""
 
-    def __init__(self, *, across_from: int = 720, parent=None):
+    def __init__(self, *, across_from: int = 720, first_share: float = 0.6, parent=None):
         super().__init__(Qt.Orientation.Horizontal, parent)
         self._across_from = across_from
+        self._first_share = first_share
         self.setChildrenCollapsible(False)
 
     def resizeEvent(self, event) -> None:
@@ -287,6 +288,6 @@ class AdaptiveSplitter(QSplitter):
         if want != self.orientation():
             self.setOrientation(want)
             total = event.size().width() if want == Qt.Orientation.Horizontal else event.size().height()
-            self.setSizes([int(total * 0.6), int(total * 0.4)])
+            self.setSizes([int(total * self._first_share), int(total * (1.0 - self._first_share))])
         super().resizeEvent(event)
 
