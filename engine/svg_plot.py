@@ -382,13 +382,10 @@ def write_svg(path: str | os.PathLike, text: str, *, reading=()) -> None:
 # the command line's figures, from the data of engine/views_data.py
 
 
-def _fmt(v: float, digits: int = 4) -> str:
-    v = float(v)
-    if math.isnan(v):
-        return "-"
-    if math.isinf(v):
-        return "inf" if v > 0 else "-inf"
-    return f"{v:.{digits}g}"
+def _fmt(v: float) -> str:
+    from loopwright.engine.cli_common import fmt_num
+
+    return fmt_num(v, digits=4)
 
 
 def frequency_figure(resp, *, title: str) -> str:

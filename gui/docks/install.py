@@ -6,7 +6,7 @@ layout is saved with the window state (``window/state``), never in the diagram.
 """
 from __future__ import annotations
 
-from PySide6.QtCore import Qt
+from PySide6.QtCore import QEvent, QObject, Qt
 from PySide6.QtWidgets import QDockWidget
 
 from loopwright.gui.docks.audit import AuditPanel
@@ -79,6 +79,7 @@ def install_views(window) -> None:
     vd["time"].raise_()
     window.problems_dock.raise_()
     _drop_leftover_tab_bars(window)
+    window._tab_bar_sweeper = _TabBarSweeper(window)
     audit = window.panels["audit"]
     audit.path_selected.connect(lambda row: _show_audit_path(window, row))
     # a label of its own: a passing status message would be squeezed out by the live model's line
@@ -107,6 +108,21 @@ def _drop_leftover_tab_bars(window) -> None:
     for tb, names in tabs.items():
         if any(other is not tb and len(other_names) > len(names) and set(names) <= set(other_names) for other, other_names in tabs.items()):
             tb.hide()
+
+
+class _TabBarSweeper(QObject):
+    """Hides leftover tab bars again whenever the main window is shown or lays itself out
+    (the main window may show them again when it rebuilds its dock areas)."""
+
+    def __init__(self, window):
+        super().__init__(window)
+        self._window = window
+        window.installEventFilter(self)
+
+    def eventFilter(self, obj, event) -> bool:
+        if obj is self._window and event.type() in (QEvent.Type.Show, QEvent.Type.LayoutRequest):
+            _drop_leftover_tab_bars(self._window)
+        return False
 
 
 def _show_audit_path(window, row) -> None:

@@ -2,9 +2,9 @@
 
 After an edit each visible panel builds its job from a fresh snapshot and the kept pairs;
 :class:`~loopwright.gui.workers.ViewJobs` runs it off the GUI thread and drops answers an
-edit has overtaken. An edit made while the views are idle is computed at once (on the
-next turn of the event loop, so the steps of one command count once); edits that follow
-while the views are still busy are coalesced and computed once after a quiet spell (the
+edit has overtaken. An edit made while the worker is idle is computed at once (on the
+next turn of the event loop, so the steps of one command count once); edits that arrive
+while it still computes are coalesced and computed once after a quiet spell (the
 debounce), so dragging a value never queues a backlog. A hidden panel is marked stale and
 catches up when it is shown. A panel whose answer takes longer than half a second says
 so, with its progress where the engine reports it and a Stop that ends the computation.
@@ -54,7 +54,9 @@ class ViewsController(QObject):
             panel.stop_requested.connect(lambda k=key: self.stop(k))
 
     def _on_changed(self, _revision: int) -> None:
-        busy = self._timer.isActive() or any(self.jobs.is_busy(k) for k in self.panels)
+        # idle worker: compute now (with any edit still waiting for its debounce); busy
+        # worker: wait for a quiet spell, so a burst of edits is computed once
+        busy = any(self.jobs.is_busy(k) for k in self.panels)
         self._timer.start(self._debounce_ms if busy else 0)
 
     def _on_visibility(self, key: str, visible: bool) -> None:

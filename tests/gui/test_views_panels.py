@@ -301,3 +301,40 @@ def test_a_view_picture_never_replaces_a_diagram_and_carries_the_caution(window,
     assert diagram.read_bytes() == path.read_bytes()
     panel.save_picture(tmp_path / "f.svg")
     assert CAUTION in (tmp_path / "f.svg").read_text(encoding="utf-8")
+
+
+def test_no_leftover_tab_bar_shows_beside_the_dock_groups(window):
+    # building the tab groups leaves the main window earlier tab bars of each group; none of
+    # them may stay visible (one used to peek out at the left edge of the canvas)
+    from PySide6.QtWidgets import QTabBar
+
+    window.show()
+    bars = [tb for tb in window.findChildren(QTabBar) if tb.parentWidget() is window and tb.isVisible()]
+    names = [{tb.tabText(i) for i in range(tb.count())} for tb in bars]
+    assert not any(a < b for a in names for b in names), names
+    assert {"Frequency view", "Singular-value view", "Pole map"} in names
+
+
+def test_an_edit_made_while_the_views_are_idle_is_computed_without_the_debounce(make_window, prefs, wait_views, qtbot):
+    # a debounce preference of ten minutes: an edit made while the views are idle still
+    # reaches them at once (the debounce only coalesces edits arriving while views compute)
+    import dataclasses
+
+    from loopwright.engine.views_data import pair_frequency_response
+    from loopwright.gui.commands import SetParams
+
+    win = make_window(prefs=dataclasses.replace(prefs, debounce_ms=600_000))
+    path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+    _open_with_pairs(win, path, [("r", "y")])
+    win.views.refresh_visible()
+    qtbot.waitUntil(lambda: not any(win.views.jobs.is_busy(k) for k in win.panels), timeout=30000)
+    freq = win.panels["frequency"]
+    n = win.document.diagram.block_by_name("N")
+    win.document.push(SetParams(win.document, n.id, dict(n.params, K=[[2.0 * float(np.asarray(n.params["K"]).ravel()[0])]])))
+    want = pair_frequency_response(assemble(win.document.snapshot()), "r", "y", drawing=True).mag_db[:, 0, 0]
+
+    def shows_new():
+        _x, mag = freq.curves[(("r", "y"), 0, 0)][0].getOriginalDataset()
+        return mag is not None and mag.shape == want.shape and np.allclose(mag, want, rtol=1e-9)
+
+    qtbot.waitUntil(shows_new, timeout=30000)
