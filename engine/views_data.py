@@ -564,8 +564,12 @@ class LoopBreakView:
     critical_w_rad_s: list[float] = field(default_factory=list)
 
 
-def loop_break_view(diagram, at: str, *, skew: float = 0.0) -> LoopBreakView:
+def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True) -> LoopBreakView:
     """Nyquist curves, exclusion disks and margins of the loop broken at ``at``.
+
+    ``limits=False`` leaves out the performance limits (Bode's sensitivity integral and
+    the like, see :func:`margins.margins_at`): most of the cost of a large loop, and the
+    app's loop-break view does not show them.
 
     Raises
     ------
@@ -575,7 +579,7 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0) -> LoopBreakView:
     from loopwright.engine.margins import LoopMargins, _close_channels, _trim_for_margins, loop_transfer, margins_at
     from loopwright.engine.responses import auto_frequency_grid, frequency_response
 
-    margins = margins_at(diagram, at, skew=skew)
+    margins = margins_at(diagram, at, skew=skew, limits=limits)
     A, B, C, D = _trim_for_margins(*loop_transfer(diagram, at))
     q = D.shape[0]
     per = [margins] if isinstance(margins, LoopMargins) else list(margins.per_channel)

@@ -104,7 +104,7 @@ class LoopBreakPanel(PlotPanel):
         if not isinstance(at, str) or not at:
             self.set_message("No loop break: right-click a wire and choose “break the loop here”.")
             return None
-        return loop_break_view, (diagram, at), {}
+        return loop_break_view, (diagram, at), {"limits": False}  # only what this view shows
 
     def show_value(self, value) -> None:
         self.data = value
