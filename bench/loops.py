@@ -65,3 +65,32 @@ def chain_of_loops(blocks: int, *, plant_order: int = 12, seed: int = 1) -> Diag
     d.connect("r0.out", "ym0.in2")
     d.connect(f"P{cells - 1}.y", "u0.in3")  # close the chain into a ring: one big feedback loop
     return d
+
+
+#: Where each block of a cell sits on the canvas, relative to the cell's corner (scene units).
+_CELL_LAYOUT = {"r": (0, 0), "u": (140, 0), "P": (280, 0), "ym": (420, 0), "E": (280, 140), "K": (140, 140)}
+
+
+def view_loop(states: int, *, plant_order: int = 5, seed: int = 1) -> Diagram:
+    """A chain of observer-based loops with ``states`` states (a multiple of ``2 * plant_order``),
+    laid out on the canvas, with two kept pairs and a loop break: what the views bench opens.
+
+    Pairs: the reference of the first cell to its plant output, and the reference of the
+    second cell (of the first when there is one cell) to the first plant output. Loop
+    break: the first plant's input port ``P0.u``.
+    """
+    per_cell = 2 * plant_order
+    if states % per_cell:
+        raise ValueError(f"states must be a multiple of {per_cell}; got {states}")
+    cells = states // per_cell
+    d = chain_of_loops(cells * BLOCKS_PER_CELL, plant_order=plant_order, seed=seed)
+    cols = max(1, int(round(cells**0.5)))
+    for b in d.blocks.values():
+        k = int("".join(ch for ch in b.name if ch.isdigit()))
+        stem = b.name.rstrip("0123456789")
+        dx, dy = _CELL_LAYOUT[stem]
+        b.layout = dict(b.layout, x=float((k % cols) * 600 + dx), y=float((k // cols) * 300 + dy))
+    other = "r1" if cells > 1 else "r0"
+    d.settings["pairs"] = [{"input": "r0", "output": "P0.y"}, {"input": other, "output": "P0.y" if cells > 1 else "u0.out"}]
+    d.settings["loop_break"] = "P0.u"
+    return d

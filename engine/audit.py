@@ -39,12 +39,21 @@ import numpy as np
 import scipy.linalg as sla
 
 from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
+from loopwright.engine.errors import EngineError
 from loopwright.engine.norms import dc_gain, h2_norm, lyapunov_from_schur, sigma_max
 from loopwright.engine.responses import ReducedModel, auto_frequency_grid, reduce_model
 
-__all__ = ["AuditRow", "path_audit", "path_between", "RANKING_RULE"]
+__all__ = ["AuditRow", "AuditCancelled", "path_audit", "path_between", "RANKING_RULE"]
 
 RANKING_RULE = "unstable paths first, then peak gain (largest first), then H2 norm, then names"
+
+# Frequencies evaluated between two progress reports: about this many multiply-adds each,
+# so a report comes every few tens of milliseconds even on a large loop.
+
+
+class AuditCancelled(EngineError, RuntimeError):
+    """Raised by a ``progress`` callable to stop an audit; :func:`path_audit` lets it through."""
+
 
 # A mode counts as reached/seen when its normalised coupling exceeds this.
 _COUPLING_TOL = 1e-8
@@ -260,6 +269,7 @@ def path_audit(
     reduced: ReducedModel | None = None,
     points_per_decade: int = 40,
     refine_passes: int = 8,
+    progress=None,
 ) -> list[AuditRow]:
     """Rank every (source, signal) path of the assembled model (see the module docstring
     for the rule).
@@ -275,6 +285,11 @@ def path_audit(
         Density of the base frequency grid (resonances get extra points regardless).
     refine_passes : int
         Joint refinement passes around each pair's peak.
+    progress : callable, optional
+        ``progress(fraction)`` is called with the fraction done (0 to 1) every few tens of
+        milliseconds. It may raise (e.g. :class:`AuditCancelled`) to stop the audit: the
+        exception propagates and no rows are returned. This is how a window stops a long
+        audit without waiting for it.
 
     Returns
     -------
@@ -300,13 +315,16 @@ def path_audit(
     reach_cache: dict = {}
     rows: list[AuditRow] = []
     sig_items = list(model.signals.items())
-    for grp in groups:
+    report = progress if progress is not None else (lambda _fraction: None)
+    for gi, grp in enumerate(groups):
+        report(gi / max(1, len(groups)))
         cols = model.inputs[grp]
         Bg = B[:, cols]
         Dg = D[:, cols]
         responder = GroupResponder(model, red, cols, points=grid.size, blockwise=blockwise, Ct=Ct_all)
         Bt = responder.Bt
         Y = responder.outputs(responder.solve(grid), slice(None)) if n else np.broadcast_to(Dg, (grid.size, *Dg.shape)).astype(complex)
+        report((gi + 0.8) / max(1, len(groups)))
         # per-mode couplings
         reach = []
         for v, u in vecs:
@@ -318,6 +336,7 @@ def path_audit(
             Bw = Bg / S[:, None]
             X = lyapunov_from_schur(red.T_real, red.Z_real, Bw @ Bw.T)
         best = _refine_peaks(responder, grid, Y, sig_items, refine_passes if n else 0)
+        report((gi + 0.9) / max(1, len(groups)))
         finite_y = np.abs(Y[np.isfinite(Y)])
         scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
         for sig, sl in sig_items:
@@ -379,6 +398,7 @@ def path_audit(
                     dc_gain_kind="signed value" if scalar else "largest singular value",
                 )
             )
+    report(1.0)
     rows.sort(key=lambda r: (r.stable, -r.peak_gain if np.isfinite(r.peak_gain) else -np.inf, -r.h2 if np.isfinite(r.h2) else -np.inf, r.source, r.signal))
     for i, r in enumerate(rows, 1):
         r.rank = i

@@ -45,6 +45,7 @@ def add_commands(subparsers) -> None:
     p.add_argument("--w", dest="w_list", default=None, metavar="W[,W...]",
                    help="evaluate at exactly these frequencies, rad/s (0 is the DC point); overrides the grid options")
     _format_flags(p)
+    _plot_flag(p)
     p.set_defaults(run=_freq)
 
     p = subparsers.add_parser("tf", help="transfer function of one path: order, poles, zeros, DC and high-frequency gain")
@@ -71,6 +72,7 @@ def add_commands(subparsers) -> None:
     p.add_argument("--t-end", type=_TIME, default=None, help="end time, s")
     p.add_argument("--dt", type=_TIME, default=None, help="time step, s")
     _format_flags(p)
+    _plot_flag(p)
     p.set_defaults(run=_time)
 
     p = subparsers.add_parser("margins", help="gain, phase, delay and disk margins at a loop break")
@@ -78,6 +80,7 @@ def add_commands(subparsers) -> None:
     p.add_argument("--at", dest="signal", default=None, metavar="SIGNAL", help="signal where the loop is broken (default: the diagram's loop break)")
     p.add_argument("--skew", type=bounded_float(*SKEW_RANGE), default=0.0, help="disk-margin skew (0 balanced, 1 for [1/2, inf)-type guarantees)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    _plot_flag(p)
     p.set_defaults(run=_margins)
 
     p = subparsers.add_parser("audit", help="rank every source-to-signal path (peak gain, H2, DC gain, stability)")
@@ -101,6 +104,30 @@ def _format_flags(p) -> None:
     fmt.add_argument("--csv", action="store_true", help="print CSV")
 
 
+def _plot_flag(p) -> None:
+    p.add_argument("--plot", metavar="OUT.svg", default=None,
+                   help="also draw the result to an SVG file (SVG only: no PNG without a window system); never replaces a diagram")
+
+
+def _write_plot(args: argparse.Namespace, make_svg) -> None:
+    """Check ``--plot`` first (nothing is computed for a refused name), then write it."""
+    import sys
+
+    from loopwright.engine.svg_plot import write_svg
+
+    write_svg(args.plot, make_svg(), reading=[args.file])
+    print(f"wrote {args.plot}", file=sys.stderr)
+
+
+def _check_plot(args: argparse.Namespace) -> None:
+    if getattr(args, "plot", None):
+        from loopwright.engine.output_paths import OutputRefusedError, check_export_output, display_path
+
+        check_export_output(args.plot, reading=[args.file])
+        if not str(args.plot).lower().endswith(".svg"):
+            raise OutputRefusedError(f"--plot {display_path(args.plot)}: plots are written as SVG only; name the file *.svg")
+
+
 def _table(header: list[str], rows: list[list[str]], *, indent: str = "  ") -> None:
     widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)]
     print((indent + "  ".join(h.rjust(w) if i else h.ljust(w) for i, (h, w) in enumerate(zip(header, widths)))).rstrip())
@@ -116,11 +143,16 @@ def _freq(args: argparse.Namespace) -> int:
     from loopwright.engine.norms import sigma_max
     from loopwright.engine.views_data import pair_frequency_response
 
+    _check_plot(args)
     diagram = load_diagram(args.file)
     model = assemble(diagram)
     w_list = _frequency_list(args.w_list) if args.w_list is not None else None
     resp = pair_frequency_response(model, args.source, args.signal, w_min=args.w_min, w_max=args.w_max,
                                    points=args.points, w=w_list)
+    if args.plot:
+        from loopwright.engine.svg_plot import frequency_figure
+
+        _write_plot(args, lambda: frequency_figure(resp, title=f"{args.file}: frequency response {resp.input_group} -> {resp.signal}"))
     grp, sig, w, G = resp.input_group, resp.signal, resp.w_rad_s, resp.response
     mag = resp.mag_db
     ph = resp.phase_deg
@@ -254,6 +286,7 @@ def _time(args: argparse.Namespace) -> int:
     from loopwright.engine.responses import impulse_response, source_run, step_response
     from loopwright.engine.views_data import time_grid
 
+    _check_plot(args)
     diagram = load_diagram(args.file)
     model = assemble(diagram)
     sigs = [model.resolve_signal(s.strip()) for s in args.signals.split(",") if s.strip()]
@@ -297,6 +330,10 @@ def _time(args: argparse.Namespace) -> int:
         res = source_run(model, t, outputs=sigs, x0=x0)
         names, Y = res.output_names, res.y
         kind = "run driven by the sources' waveforms" + (" from the initial state" if x0 is not None else "")
+    if args.plot:
+        from loopwright.engine.svg_plot import time_figure
+
+        _write_plot(args, lambda: time_figure(res.t, Y, names, title=f"{args.file}: {kind}"))
     if args.json:
         extra = {} if metrics is None else {"metrics": {nm: m.as_dict() for nm, m in metrics.items()}, "metric_definitions": _metric_definitions()}
         print_json(
@@ -370,11 +407,20 @@ def _margins(args: argparse.Namespace) -> int:
     from loopwright.engine.errors import AnalysisError
     from loopwright.engine.margins import LoopMargins, margins_at
 
+    _check_plot(args)
     diagram = load_diagram(args.file)
     at = args.signal or diagram.settings.get("loop_break")
     if not at:
         raise AnalysisError("no loop break given: use --at SIGNAL (the diagram has no settings.loop_break)")
-    res = margins_at(diagram, at, skew=args.skew)
+    if args.plot:
+        from loopwright.engine.svg_plot import loop_break_figure
+        from loopwright.engine.views_data import loop_break_view
+
+        view = loop_break_view(diagram, at, skew=args.skew)
+        res = view.margins
+        _write_plot(args, lambda: loop_break_figure(view, title=f"{args.file}: loop broken at {at}"))
+    else:
+        res = margins_at(diagram, at, skew=args.skew)
     if args.json:
         body = res.as_dict()
         body.update({"file": args.file, "at": at, "caution": CAUTION})

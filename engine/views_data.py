@@ -19,6 +19,7 @@ from loopwright.engine.errors import AnalysisError, EngineError, ParameterError
 __all__ = [
     "PairResponse",
     "pair_frequency_response",
+    "drawing_frequency_grid",
     "frequency_views",
     "singular_values",
     "singular_value_views",
@@ -89,7 +90,15 @@ class PairResponse:
 
 
 def pair_frequency_response(
-    model, source: str, signal: str, *, w_min: float | None = None, w_max: float | None = None, points: int | None = None,
+    model,
+    source: str,
+    signal: str,
+    *,
+    w_min: float | None = None,
+    w_max: float | None = None,
+    points: int | None = None,
+    drawing: bool = False,
+    reduced=None,
     w=None,
 ) -> PairResponse:
     """Frequency response of the path ``source -> signal`` of an assembled model.
@@ -107,6 +116,11 @@ def pair_frequency_response(
     points : int, optional
         A plain log-spaced grid of this many points; without it the grid is automatic
         (dense at lightly damped poles) and refined at the response's peaks.
+    drawing : bool
+        Use :func:`drawing_frequency_grid` (fewer points per resonance: what the app draws)
+        instead of the command line's automatic grid.
+    reduced : ReducedModel, optional
+        A reduction of ``model.A`` to reuse (every pair of one model shares it).
     w : (k,) array_like, optional
         Exact frequencies in rad/s (DC allowed); the span and point count are then unused.
 
@@ -117,9 +131,8 @@ def pair_frequency_response(
     ParameterError
         A bad span or point count.
     """
-    from loopwright.engine.norms import sigma_max
     from loopwright.engine.blockwise_response import path_evaluator
-    from loopwright.engine.responses import auto_frequency_grid, refine_grid_at_peaks
+    from loopwright.engine.responses import auto_frequency_grid, reduced_response
 
     grp = model.resolve_input(source)
     sig = model.resolve_signal(signal)
@@ -133,11 +146,23 @@ def pair_frequency_response(
         raise ParameterError(f"--points must be from 2 to {MAX_POINTS}; got {points}", field="--points")
     if w_min is not None and w_max is not None and not w_max > w_min:
         raise ParameterError(f"--w-max ({w_max}) must exceed --w-min ({w_min})", field="--w-max")
-    # block by block or on the whole model, whichever an operation count says is cheaper
-    evaluate = path_evaluator(model, grp, sig, points=points or 1000)
+    if reduced is None:
+        # block by block or on the whole model, whichever an operation count says is cheaper
+        evaluate = path_evaluator(model, grp, sig, points=points or 1000)
+    else:  # the views share one Schur reduction of the closed loop
+        A, B, C, D = model.pair(grp, sig)
+        red = reduced
+        Bt, Ct = red.input_matrix(B), red.output_matrix(C)
+
+        def evaluate(w):
+            with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+                return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C)
+
+        evaluate.poles = red.poles
 
     if w is not None:
         w = np.asarray(w, dtype=float).ravel()
+        G = evaluate(w)
     elif points is not None:
         auto = auto_frequency_grid(evaluate.poles)
         lo = w_min if w_min is not None else auto[0]
@@ -145,17 +170,103 @@ def pair_frequency_response(
         if not hi > lo:
             raise ParameterError(f"--w-max ({hi}) must exceed --w-min ({lo})", field="--w-max")
         w = np.logspace(np.log10(lo), np.log10(hi), points)
+        G = evaluate(w)
+    elif drawing:
+        # a plot shows no more than this: fewer points per resonance, fewer peaks refined
+        w = drawing_frequency_grid(evaluate.poles, w_min=w_min, w_max=w_max)
+        w, G = _refine_at_main_peaks(evaluate, w, evaluate(w), points=5, most=12)
     else:
         w = auto_frequency_grid(evaluate.poles, w_min=w_min, w_max=w_max)
-        w, _ = refine_grid_at_peaks(lambda x: sigma_max(evaluate(x)), w, sigma_max(evaluate(w)))
+        w, G = _refine_at_main_peaks(evaluate, w, evaluate(w))
     if dc_point:
         w = np.concatenate([[0.0], w])
-    G = evaluate(w)
+        G = np.concatenate([evaluate(w[:1]), G])
     cols, rows = model.input_slice(grp), model.signal_slice(sig)
     return PairResponse(grp, sig, w, G, list(model.input_names[cols]), list(model.output_names[rows]))
 
 
-def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float | None = None) -> list:
+#: Peaks lower than this fraction of the highest are drawn on the grid as they fall.
+_PEAK_FLOOR = 1e-3
+#: At most this many peaks are refined in a pass (the highest).
+_MAX_REFINED_PEAKS = 40
+
+
+def _refine_at_main_peaks(evaluate, w: np.ndarray, G: np.ndarray, *, passes: int = 4, points: int = 9,
+                          most: int = _MAX_REFINED_PEAKS) -> tuple[np.ndarray, np.ndarray]:
+    """The grid ``w`` and response ``G`` (k, p, m) with points added around the highest peaks.
+
+    A peak is a sample of the largest singular value higher than both neighbours by more
+    than rounding (a flat stretch, or rounding ripple far down a roll-off, is no peak) and
+    within :data:`_PEAK_FLOOR` of the highest sample; the ``most`` highest are refined.
+    Each pass puts ``points`` frequencies between the neighbours of every such peak and
+    evaluates them all in one call of ``evaluate(w) -> G``. Refining every local maximum
+    instead lets rounding ripple multiply the grid on large loops (tens of thousands of
+    points) and adds nothing a plot or the marked peak can show.
+    """
+    from loopwright.engine.norms import sigma_max
+
+    w = np.asarray(w, dtype=float)
+    g = sigma_max(G)
+    for _ in range(passes):
+        gi = np.where(np.isfinite(g), g, -np.inf)
+        if w.size < 3 or not np.isfinite(gi.max()):
+            break
+        mid = gi[1:-1]
+        strict = (mid > gi[:-2] * (1 + 1e-9)) & (mid > gi[2:] * (1 + 1e-9)) & (mid >= _PEAK_FLOOR * gi.max())
+        peaks = np.nonzero(strict)[0] + 1
+        if peaks.size == 0:
+            break
+        peaks = peaks[np.argsort(-gi[peaks])][:most]
+        new = np.unique(np.concatenate([np.linspace(w[i - 1], w[i + 1], points + 2)[1:-1] for i in peaks]))
+        # drop points that coincide with samples already taken, up to rounding: they would
+        # be their own neighbours in the next pass
+        pos = np.clip(np.searchsorted(w, new), 1, w.size - 1)
+        gap = np.minimum(np.abs(new - w[pos - 1]), np.abs(new - w[pos]))
+        new = new[gap > 1e-12 * new]
+        if new.size == 0:
+            break
+        Gn = evaluate(new)
+        w = np.concatenate([w, new])
+        G = np.concatenate([G, Gn])
+        g = np.concatenate([g, sigma_max(Gn)])
+        order = np.argsort(w, kind="stable")
+        w, G, g = w[order], G[order], g[order]
+    return w, G
+
+
+#: Points across each lightly damped resonance on the drawing grid, in half-widths from its peak.
+_DRAWING_OFFSETS = np.array([-4.0, -2.0, -1.0, -0.5, 0.0, 0.5, 1.0, 2.0, 4.0])
+
+
+def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | None = None, points_per_decade: int = 80) -> np.ndarray:
+    """A frequency grid (rad/s) for drawing a response: log-spaced over the span of
+    :func:`responses.auto_frequency_grid`, plus nine points across each lightly damped
+    resonance (damping ratio below 0.5) from four half-widths below to four above.
+
+    The automatic grid of the command line puts 65 points on every resonance, which a
+    large loop multiplies into thousands of frequencies; a plot a thousand pixels wide
+    shows no more with them. The highest peaks are refined afterwards anyway.
+    """
+    from loopwright.engine.responses import auto_frequency_grid
+
+    span = auto_frequency_grid(poles, w_min=w_min, w_max=w_max, points_per_decade=4)
+    lo, hi = float(span[0]), float(span[-1])
+    parts = [np.logspace(np.log10(lo), np.log10(hi), max(10, int(np.ceil(np.log10(hi / lo) * points_per_decade)) + 1))]
+    roots = np.asarray(poles, dtype=complex)
+    roots = roots[np.isfinite(roots) & (roots.imag >= 0)]
+    wn = np.abs(roots)
+    keep = (wn > 0) & (wn >= lo) & (wn <= hi)
+    zeta = np.where(keep, -roots.real / np.where(wn > 0, wn, 1.0), 1.0)
+    light = keep & (np.abs(zeta) < 0.5)
+    if np.any(light):
+        half = np.maximum(np.abs(zeta[light]), 1e-9) * wn[light]
+        parts.append((np.abs(roots.imag[light])[:, None] + half[:, None] * _DRAWING_OFFSETS[None, :]).ravel())
+    w = np.concatenate(parts)
+    w = np.unique(w[(w >= lo) & (w <= hi) & (w > 0)])
+    return w[np.concatenate([[True], np.diff(w) > 1e-12 * w[1:]])] if w.size else w
+
+
+def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float | None = None, drawing: bool = False) -> list:
     """One :class:`PairResponse` per pair, or the engine's message (a str) for a pair that
     cannot be computed; the diagram is assembled once.
 
@@ -171,11 +282,14 @@ def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float 
     """
     from loopwright.engine.interconnect import assemble
 
+    from loopwright.engine.responses import reduce_model
+
     model = assemble(diagram)
+    red = reduce_model(model.A) if pairs else None  # one reduction for every pair
     out = []
     for src, sig in pairs:
         try:
-            out.append(pair_frequency_response(model, src, sig, w_min=w_min, w_max=w_max))
+            out.append(pair_frequency_response(model, src, sig, w_min=w_min, w_max=w_max, drawing=drawing, reduced=red))
         except EngineError as err:
             out.append(str(err))
     return out
@@ -191,11 +305,11 @@ def singular_values(response: np.ndarray) -> np.ndarray:
     return s
 
 
-def singular_value_views(diagram, pairs) -> list:
+def singular_value_views(diagram, pairs, *, drawing: bool = False) -> list:
     """Per pair: ``(w_rad_s (k,), sigma_db (k, r))``, the singular values in dB largest
     first, or the engine's message (a str) for a pair that cannot be computed."""
     out = []
-    for resp in frequency_views(diagram, pairs):
+    for resp in frequency_views(diagram, pairs, drawing=drawing):
         if isinstance(resp, str):
             out.append(resp)
             continue
@@ -246,7 +360,9 @@ class PairRun:
     """One time run for one pair.
 
     ``y`` is (N, q) with one column per name in ``names`` (``"out <- in"`` for a vector
-    input). ``kind`` is one of :data:`RUN_KINDS`.
+    input). ``kind`` is one of :data:`RUN_KINDS`. A step run also carries ``metrics``:
+    name -> :class:`step_metrics.StepMetrics` (steady state from the path's exact DC gain;
+    none for an unstable model).
     """
 
     kind: str
@@ -255,6 +371,7 @@ class PairRun:
     names: list[str]
     diverged: bool = False
     message: str = ""
+    metrics: dict = field(default_factory=dict)
 
 
 def estimation_error_names(model) -> dict[str, np.ndarray]:
@@ -323,9 +440,27 @@ def pair_time_response(model, kind: str, source: str, signal: str, t, *, x0=None
     res = fn(model.A, model.B[:, cols], C, D[:, cols], t)
     in_names = list(model.input_names[cols])
     if len(in_names) == 1:
-        return PairRun(kind, res.t, res.y[:, :, 0], out_names, res.diverged, res.message)
-    names = [f"{o} <- {i}" for o in out_names for i in in_names]
-    return PairRun(kind, res.t, res.y.reshape(res.y.shape[0], -1), names, res.diverged, res.message)
+        names, Y = out_names, res.y[:, :, 0]
+    else:
+        names = [f"{o} <- {i}" for o in out_names for i in in_names]
+        Y = res.y.reshape(res.y.shape[0], -1)
+    metrics = _step_run_metrics(model, cols, C, D, names, Y, res.t) if kind == "step" and not res.diverged else {}
+    return PairRun(kind, res.t, Y, names, res.diverged, res.message, metrics)
+
+
+def _step_run_metrics(model, cols, C, D, names, Y, t) -> dict:
+    """Step metrics of each column of a step run (none when the model is not stable: no
+    steady state to measure against)."""
+    from loopwright.engine.norms import dc_gain, is_stable_matrix
+    from loopwright.engine.step_metrics import step_metrics
+
+    if not is_stable_matrix(model.A):
+        return {}
+    with np.errstate(all="ignore"):
+        G0 = np.asarray(dc_gain(model.A, model.B[:, cols], C, D[:, cols]), dtype=float).reshape(-1)  # output-major, like Y
+    scale = max(float(np.nanmax(np.abs(Y))) if Y.size else 0.0, float(np.nanmax(np.abs(G0), initial=0.0)))
+    G0 = np.where(np.abs(G0) <= 1e-12 * scale, 0.0, G0)  # rounding of an exact zero
+    return {nm: step_metrics(t, Y[:, k], float(G0[k])) for k, nm in enumerate(names) if np.isfinite(G0[k]) and G0[k] != 0.0}
 
 
 def time_views(diagram, pairs, kind: str, *, initial: dict | None = None, t_end: float | None = None, dt: float | None = None) -> list:
@@ -436,8 +571,12 @@ class LoopBreakView:
     critical_w_rad_s: list[float] = field(default_factory=list)
 
 
-def loop_break_view(diagram, at: str, *, skew: float = 0.0) -> LoopBreakView:
+def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True) -> LoopBreakView:
     """Nyquist curves, exclusion disks and margins of the loop broken at ``at``.
+
+    ``limits=False`` leaves out the performance limits (Bode's sensitivity integral and
+    the like, see :func:`margins.margins_at`): most of the cost of a large loop, and the
+    app's loop-break view does not show them.
 
     Raises
     ------
@@ -447,7 +586,7 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0) -> LoopBreakView:
     from loopwright.engine.margins import LoopMargins, _close_channels, _trim_for_margins, loop_transfer, margins_at
     from loopwright.engine.responses import auto_frequency_grid, frequency_response
 
-    margins = margins_at(diagram, at, skew=skew)
+    margins = margins_at(diagram, at, skew=skew, limits=limits)
     A, B, C, D = _trim_for_margins(*loop_transfer(diagram, at))
     q = D.shape[0]
     per = [margins] if isinstance(margins, LoopMargins) else list(margins.per_channel)

@@ -9,6 +9,7 @@ queues the delivery; a result whose revision is no longer the document's is drop
 """
 from __future__ import annotations
 
+import threading
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 
@@ -17,7 +18,7 @@ from PySide6.QtCore import QObject, QTimer, Signal
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import EngineError
 
-__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs", "TaskResult", "Tasks"]
+__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs", "JobStopped", "TaskResult", "Tasks"]
 
 
 @dataclass(frozen=True)
@@ -178,12 +179,45 @@ class ViewResult:
     error: str | None = None
 
 
+class JobStopped(EngineError, RuntimeError):
+    """Raised inside a job's progress report once the job has been stopped or replaced."""
+
+
+class _JobControl:
+    """A running job's link back to the window: its progress, and whether to stop.
+
+    ``report(fraction)`` is handed to the engine as its ``progress`` callable; it raises
+    :class:`JobStopped` once :meth:`stop` was called, which ends the engine's work at its
+    next report instead of letting it run to the end for nothing.
+    """
+
+    def __init__(self, key: str, emit):
+        self.key = key
+        self._emit = emit
+        self._stopped = threading.Event()
+        self._last = -1.0
+
+    def stop(self) -> None:
+        self._stopped.set()
+
+    def report(self, fraction: float) -> None:
+        if self._stopped.is_set():
+            raise JobStopped(f"{self.key}: stopped")
+        if fraction - self._last >= 0.01 or fraction >= 1.0:
+            self._last = fraction
+            try:
+                self._emit(self.key, float(fraction))
+            except RuntimeError:
+                pass  # the window was closed while the worker ran
+
+
 class ViewJobs(QObject):
     """Runs the plot panels' engine calls off the GUI thread, one at a time.
 
     Each request carries a key (the panel) and the document revision it was built at. A
-    newer request for the same key cancels the older one while it waits, and drops its
-    result if it was already running; a result for an older revision is dropped too.
+    newer request for the same key cancels the older one while it waits, and stops it
+    (through its progress report, when the job takes one) or drops its result if it was
+    already running; a result for an older revision is dropped too.
 
     Signals
     -------
@@ -191,45 +225,72 @@ class ViewJobs(QObject):
         A current result (GUI thread).
     busy_changed(str, bool)
         A panel's request started waiting or running (True), or ended (False).
+    progress_changed(str, float)
+        A running job's fraction done (only jobs submitted with ``progress=True``).
     """
 
     result_ready = Signal(object)
     busy_changed = Signal(str, bool)
+    progress_changed = Signal(str, float)
     _finished = Signal(object)  # emitted on the worker thread; queued to the GUI thread
+    _progress = Signal(str, float)  # likewise
 
     def __init__(self, document, parent: QObject | None = None):
         super().__init__(parent)
         self._doc = document
         self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views")
-        self._latest: dict[str, tuple[int, Future]] = {}
+        self._latest: dict[str, tuple[int, Future, _JobControl]] = {}
+        self._submitted: list[Future] = []
         self._token = 0
         self._closed = False
         self.discarded = 0
         self._finished.connect(self._on_finished)
+        self._progress.connect(self._on_progress)
 
-    def submit(self, key: str, fn, *args, **kwargs) -> None:
-        """Run ``fn(*args, **kwargs)`` on the worker for panel ``key`` (args must be snapshots)."""
+    def submit(self, key: str, fn, *args, progress: bool = False, **kwargs) -> None:
+        """Run ``fn(*args, **kwargs)`` on the worker for panel ``key`` (args must be snapshots).
+
+        With ``progress=True`` the job also gets ``progress=<callable>`` (see
+        :class:`_JobControl`): its reports reach :attr:`progress_changed`, and
+        :meth:`cancel` stops it at its next report.
+        """
         if self._closed:
             return
         old = self._latest.get(key)
         if old is not None:
             old[1].cancel()
+            old[2].stop()
         self._token += 1
         token, revision = self._token, self._doc.revision
+        control = _JobControl(key, self._progress.emit)
+        if progress:
+            kwargs = dict(kwargs, progress=control.report)
         fut = self._executor.submit(_run_view_job, fn, args, kwargs)
-        self._latest[key] = (token, fut)
+        self._latest[key] = (token, fut, control)
+        self._submitted = [f for f in self._submitted if not f.done()] + [fut]
         fut.add_done_callback(lambda f, k=key, tk=token, rev=revision: self._deliver(f, k, tk, rev))
         self.busy_changed.emit(key, True)
 
     def cancel(self, key: str) -> None:
-        """Forget the panel's request: a waiting one is cancelled, a running one dropped."""
+        """Forget the panel's request: a waiting one is cancelled, a running one stopped at
+        its next progress report (or, without reports, its result dropped)."""
         old = self._latest.pop(key, None)
         if old is not None:
             old[1].cancel()
+            old[2].stop()
             self.busy_changed.emit(key, False)
 
     def is_busy(self, key: str) -> bool:
         return key in self._latest
+
+    def worker_idle(self) -> bool:
+        """True when nothing runs or waits on the worker (stopped jobs included)."""
+        self._submitted = [f for f in self._submitted if not f.done()]
+        return not self._submitted
+
+    def _on_progress(self, key: str, fraction: float) -> None:
+        if key in self._latest:
+            self.progress_changed.emit(key, fraction)
 
     def _deliver(self, fut: Future, key: str, token: int, revision: int) -> None:
         if fut.cancelled() or self._closed:
@@ -252,7 +313,7 @@ class ViewJobs(QObject):
 
     def wait_idle(self) -> None:
         """Block until every submitted job has run (tests and benches only)."""
-        for _token, fut in list(self._latest.values()):
+        for _token, fut, _control in list(self._latest.values()):
             try:
                 fut.result()
             except Exception:  # noqa: BLE001 - cancelled or failed: nothing to wait for
@@ -260,6 +321,8 @@ class ViewJobs(QObject):
 
     def shutdown(self, *, wait: bool = True) -> None:
         self._closed = True
+        for _token, fut, control in self._latest.values():
+            control.stop()
         self._executor.shutdown(wait=wait, cancel_futures=True)
 
 
@@ -339,6 +402,8 @@ def _run_view_job(fn, args, kwargs):
     """(value, None) or (None, message); never raises, so the worker never loses a reply."""
     try:
         return fn(*args, **kwargs), None
+    except JobStopped:
+        return None, "stopped"
     except EngineError as err:
         return None, str(err)
     except Exception as err:  # noqa: BLE001 - an engine bug is shown in the panel, not a crash

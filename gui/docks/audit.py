@@ -16,9 +16,9 @@ __all__ = ["AuditPanel", "audit_rows", "audit_summary"]
 _HEADER = ["#", "source", "signal", "peak gain", "at (rad/s)", "H2", "DC gain", "stable", "blocks on the path"]
 
 
-def audit_rows(diagram, *, injections: bool = False) -> list:
-    """The ranked rows (worker thread)."""
-    return path_audit(assemble(diagram), injections=injections)
+def audit_rows(diagram, *, injections: bool = False, progress=None) -> list:
+    """The ranked rows (worker thread); ``progress`` as in :func:`path_audit` (may stop it)."""
+    return path_audit(assemble(diagram), injections=injections, progress=progress)
 
 
 def _num(x: float) -> str:
@@ -44,6 +44,7 @@ class AuditPanel(PlotPanel):
 
     key = "audit"
     title = "path audit"
+    reports_progress = True
     path_selected = Signal(object)
     summary_changed = Signal(str)
 

@@ -12,7 +12,7 @@ from PySide6.QtGui import QColor
 from PySide6.QtWidgets import QComboBox, QHBoxLayout, QLabel
 
 from loopwright.engine.views_data import frequency_views
-from loopwright.gui.docks.panel import PlotPanel, elastic, new_layout_widget, pair_colour, pen_for, themed_plot
+from loopwright.gui.docks.panel import PlotPanel, elastic, legend_row, new_layout_widget, pair_colour, pen_for, shade_of, themed_plot
 from loopwright.gui.view_commands import input_label
 
 __all__ = ["FrequencyPanel", "AUDIT_COLOUR"]
@@ -46,10 +46,11 @@ class FrequencyPanel(PlotPanel):
         bar.addWidget(self.readout, 3)
         self._layout.addLayout(bar)
         self.canvas = new_layout_widget()
-        self.mag = themed_plot(self.canvas, 0, left="magnitude (dB)", bottom=None, log_x=True)
-        self.phase = themed_plot(self.canvas, 1, left="phase (deg)", bottom="frequency (rad/s)", log_x=True)
+        # the legend has its own row above the plots: one entry per pair, never over a curve
+        self.legend = legend_row(self.canvas, 0, columns=2)
+        self.mag = themed_plot(self.canvas, 1, left="magnitude (dB)", bottom=None, log_x=True)
+        self.phase = themed_plot(self.canvas, 2, left="phase (deg)", bottom="frequency (rad/s)", log_x=True)
         self.phase.setXLink(self.mag)
-        self.legend = self.mag.addLegend(offset=(-10, 10), labelTextColor="#1f2933", brush=(255, 255, 255, 210))
         self._layout.addWidget(self.canvas, 1)
         self.cursor_mag = pg.InfiniteLine(angle=90, movable=True, pen=pg.mkPen("#5b6573", width=1, style=Qt.PenStyle.DashLine))
         self.cursor_phase = pg.InfiniteLine(angle=90, movable=True, pen=pg.mkPen("#5b6573", width=1, style=Qt.PenStyle.DashLine))
@@ -74,7 +75,7 @@ class FrequencyPanel(PlotPanel):
         shown = self.shown_pairs()
         if not shown:
             return None
-        return frequency_views, (diagram, shown), {}
+        return frequency_views, (diagram, shown), {"drawing": True}
 
     def set_audit_pair(self, pair: tuple[str, str] | None) -> None:
         if pair != self.audit_pair:
@@ -88,11 +89,14 @@ class FrequencyPanel(PlotPanel):
     def _colour(self, pair) -> QColor:
         return pair_colour(self.pairs.index(pair)) if pair in self.pairs else AUDIT_COLOUR
 
-    def _label(self, pair, resp, i, j) -> str:
+    def _label(self, pair, resp) -> str:
+        """The pair's one legend entry; a vector pair names its element count (its elements
+        are drawn in shades of the pair's colour, the cursor read-out lists each)."""
         src, sig = pair
         base = f"{sig} ← {input_label(src)}" + ("" if pair in self.pairs else "  (audit path)")
-        if len(resp.output_names) * len(resp.input_names) > 1:
-            base += f"  [{resp.output_names[i]} ← {resp.input_names[j]}]"
+        count = len(resp.output_names) * len(resp.input_names)
+        if count > 1:
+            base += f"  ({count} elements, in shades)"
         return base
 
     def show_value(self, value) -> None:
@@ -114,12 +118,13 @@ class FrequencyPanel(PlotPanel):
                     key = (pair, i, j)
                     wanted.add(key)
                     if key not in self.curves:
-                        label = self._label(pair, resp, i, j)
-                        cm = self.mag.plot(name=label)
+                        cm = self.mag.plot()
                         cp = self.phase.plot()
                         self.curves[key] = (cm, cp)
+                        if i == 0 and j == 0:
+                            self.legend.addItem(cm, self._label(pair, resp))
                     cm, cp = self.curves[key]
-                    pen = pen_for(colour, i * m + j, width=2.4 if pair not in self.pairs else 2.0)
+                    pen = pen_for(shade_of(colour, i * m + j, p * m), 0, width=2.4 if pair not in self.pairs else 2.0)
                     cm.setPen(pen)
                     cp.setPen(pen)
                     w_pk, db_pk = resp.peak(i, j)

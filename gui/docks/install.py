@@ -6,7 +6,7 @@ layout is saved with the window state (``window/state``), never in the diagram.
 """
 from __future__ import annotations
 
-from PySide6.QtCore import Qt
+from PySide6.QtCore import QEvent, QObject, Qt
 from PySide6.QtWidgets import QDockWidget
 
 from loopwright.gui.docks.audit import AuditPanel
@@ -78,11 +78,51 @@ def install_views(window) -> None:
     vd["frequency"].raise_()
     vd["time"].raise_()
     window.problems_dock.raise_()
+    _drop_leftover_tab_bars(window)
+    window._tab_bar_sweeper = _TabBarSweeper(window)
     audit = window.panels["audit"]
     audit.path_selected.connect(lambda row: _show_audit_path(window, row))
-    audit.summary_changed.connect(lambda text: window.statusBar().showMessage(text))
+    # a label of its own: a passing status message would be squeezed out by the live model's line
+    from PySide6.QtWidgets import QLabel
+
+    window.audit_status = QLabel("")
+    window.audit_status.setObjectName("audit_status")
+    window.statusBar().addPermanentWidget(window.audit_status)
+    audit.summary_changed.connect(window.audit_status.setText)
     window.problems.view_requested.connect(lambda key: (window.view_docks[key].show(), window.view_docks[key].raise_()))
     _build_menus(window)
+
+
+def _drop_leftover_tab_bars(window) -> None:
+    """Hide the tab bars the tab groups went through while they were built.
+
+    Each ``tabifyDockWidget`` gives its group a new tab bar; the main window keeps the
+    previous one as a visible child with a stale tab list until its next full layout, and
+    one of them peeks out at the edge of the canvas. A tab bar in use lists exactly the
+    docks of one group; a leftover lists fewer than some other tab bar that holds them all.
+    """
+    from PySide6.QtWidgets import QTabBar
+
+    bars = [tb for tb in window.findChildren(QTabBar) if tb.parentWidget() is window]
+    tabs = {tb: [tb.tabText(i) for i in range(tb.count())] for tb in bars}
+    for tb, names in tabs.items():
+        if any(other is not tb and len(other_names) > len(names) and set(names) <= set(other_names) for other, other_names in tabs.items()):
+            tb.hide()
+
+
+class _TabBarSweeper(QObject):
+    """Hides leftover tab bars again whenever the main window is shown or lays itself out
+    (the main window may show them again when it rebuilds its dock areas)."""
+
+    def __init__(self, window):
+        super().__init__(window)
+        self._window = window
+        window.installEventFilter(self)
+
+    def eventFilter(self, obj, event) -> bool:
+        if obj is self._window and event.type() in (QEvent.Type.Show, QEvent.Type.LayoutRequest):
+            _drop_leftover_tab_bars(self._window)
+        return False
 
 
 def _show_audit_path(window, row) -> None:

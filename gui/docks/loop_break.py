@@ -11,7 +11,7 @@ from PySide6.QtWidgets import QComboBox, QHBoxLayout, QLabel, QTableWidget, QTab
 
 from loopwright.engine.margins import LoopMargins
 from loopwright.engine.views_data import loop_break_view
-from loopwright.gui.docks.panel import AdaptiveSplitter, PlotPanel, elastic, new_layout_widget, themed_plot
+from loopwright.gui.docks.panel import AdaptiveSplitter, PlotPanel, elastic, legend_row, new_layout_widget, themed_plot
 
 __all__ = ["LoopBreakPanel", "margin_rows"]
 
@@ -53,9 +53,9 @@ class LoopBreakPanel(PlotPanel):
         self.where.setObjectName("loop_break_where")
         elastic(self.where)
         self.where.setMinimumWidth(90)
-        bar.addWidget(self.where)
-        bar.addStretch(1)
-        bar.addWidget(QLabel("Show"))
+        bar.addWidget(self.where, 1)
+        self.show_label = QLabel("Show")
+        bar.addWidget(self.show_label)
         self.channel = QComboBox()
         self.channel.setObjectName("loop_break_channel")
         self.channel.setSizeAdjustPolicy(QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
@@ -63,17 +63,29 @@ class LoopBreakPanel(PlotPanel):
         self.channel.currentIndexChanged.connect(self._draw)
         bar.addWidget(self.channel)
         self._layout.addLayout(bar)
-        split = AdaptiveSplitter()
+        # the margins that matter, in one line above the plot (the full list is in the table)
+        self.summary = QLabel("")
+        self.summary.setObjectName("loop_break_summary")
+        self.summary.setWordWrap(True)
+        elastic(self.summary)
+        self.summary.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
+        self._layout.addWidget(self.summary)
+        split = AdaptiveSplitter(first_share=0.72)  # the main margins are in the line above: the plot gets the room
         self.canvas = new_layout_widget()
         self.plot = themed_plot(self.canvas, 0, left="imaginary", bottom="real")
         self.plot.setAspectLocked(True)
-        self.legend = self.plot.addLegend(offset=(10, 10), labelTextColor="#1f2933", brush=(255, 255, 255, 210))
-        self.curve = self.plot.plot(pen=pg.mkPen(_CURVE, width=2), name="L(jω), ω positive")
-        self.mirror = self.plot.plot(pen=pg.mkPen(_CURVE, width=1, style=Qt.PenStyle.DashLine), name="ω negative")
+        self.curve = self.plot.plot(pen=pg.mkPen(_CURVE, width=2))
+        self.mirror = self.plot.plot(pen=pg.mkPen(_CURVE, width=1, style=Qt.PenStyle.DashLine))
         self.loci: list = []
-        self.disk = self.plot.plot(pen=pg.mkPen("#c0392b", width=1.5, style=Qt.PenStyle.DashLine), name="disk-margin disk")
-        self.critical = self.plot.plot([-1.0], [0.0], pen=None, symbol="+", symbolSize=16,
-                                       symbolPen=pg.mkPen("#c0392b", width=2.5), name="critical point −1")
+        self.disk = self.plot.plot(pen=pg.mkPen("#c0392b", width=1.5, style=Qt.PenStyle.DashLine))
+        self.critical = self.plot.plot([-1.0], [0.0], pen=None, symbol="+", symbolSize=16, symbolPen=pg.mkPen("#c0392b", width=2.5))
+        # the legend has a row of its own above the plot: it never covers the curve
+        self.canvas.ci.removeItem(self.plot)
+        self.legend = legend_row(self.canvas, 0, columns=4)
+        self.canvas.addItem(self.plot, row=1, col=0)
+        for item, name in ((self.curve, "L(jω), ω positive"), (self.mirror, "ω negative"), (self.disk, "disk-margin disk"),
+                           (self.critical, "critical point −1")):
+            self.legend.addItem(item, name)
         split.addWidget(self.canvas)
         self.margins = QTableWidget(0, 2)
         self.margins.setObjectName("loop_break_margins")
@@ -92,7 +104,7 @@ class LoopBreakPanel(PlotPanel):
         if not isinstance(at, str) or not at:
             self.set_message("No loop break: right-click a wire and choose “break the loop here”.")
             return None
-        return loop_break_view, (diagram, at), {}
+        return loop_break_view, (diagram, at), {"limits": False}  # only what this view shows
 
     def show_value(self, value) -> None:
         self.data = value
@@ -101,6 +113,7 @@ class LoopBreakPanel(PlotPanel):
                 c.setData([], [])
             self.margins.setRowCount(0)
             self.where.setText("")
+            self.summary.setText("")
             return
         names = list(value.channel_names)
         choices = [f"{n} (the others closed)" for n in names] + (["all loops at once"] if len(names) > 1 else [])
@@ -110,6 +123,7 @@ class LoopBreakPanel(PlotPanel):
             self.channel.addItems(choices)
             self.channel.blockSignals(False)
         self.channel.setVisible(len(choices) > 1)
+        self.show_label.setVisible(len(choices) > 1)
         self.where.setText(f"loop broken at <b>{value.at}</b>")
         self.set_message("")
         self._draw()
@@ -134,6 +148,8 @@ class LoopBreakPanel(PlotPanel):
             for i in range(v.loci.shape[1]):
                 self.loci[i].setData(v.loci[:, i].real, v.loci[:, i].imag)
             d = v.margins.all_at_once
+            self.summary.setText(f"all loops at once: disk margin α {_num(d.alpha)}, gain [{_num(d.gain_lower)}, {_num(d.gain_upper)}], "
+                                 f"phase ±{_num(d.phase_deg)}°")
             rows = [("closed loop", "stable" if v.margins.closed_loop_stable else "UNSTABLE"),
                     ("curves", "eigenvalues of L(jω) for positive ω"),
                     ("disk margin α (all loops at once)", f"{_num(d.alpha)}: gain [{_num(d.gain_lower)}, {_num(d.gain_upper)}], phase ±{_num(d.phase_deg)}°"),
@@ -151,6 +167,10 @@ class LoopBreakPanel(PlotPanel):
                 self.disk.setData([], [])
             m = v.margins if isinstance(v.margins, LoopMargins) else v.margins.per_channel[k]
             rows = margin_rows(m)
+            lo_db, hi_db = m.gain_margin_db
+            self.summary.setText(f"phase margin {_num(m.phase_margin_deg)}° · gain margin {_num(lo_db)} / +{_num(hi_db)} dB · "
+                                 f"disk margin α {_num(m.disk.alpha)} · delay margin {_num(m.delay_margin_s)} s"
+                                 if m.closed_loop_stable else "the closed loop is UNSTABLE at this break")
         self.margins.setRowCount(len(rows))
         for i, (a, b) in enumerate(rows):
             self.margins.setItem(i, 0, QTableWidgetItem(a))
@@ -176,6 +196,20 @@ class LoopBreakPanel(PlotPanel):
         pad = 0.1 * max(np.ptp(xs), np.ptp(ys), 1.0)
         self.plot.setXRange(xs.min() - pad, xs.max() + pad, padding=0)
         self.plot.setYRange(ys.min() - pad, ys.max() + pad, padding=0)
+
+    def resizeEvent(self, event) -> None:
+        # with the aspect locked, a frame set while the panel was still being laid out
+        # (hidden tab, first show) is stretched along one axis: frame it again at its size
+        super().resizeEvent(event)
+        if self.data is not None:
+            k = self.channel_index()
+            self._frame(self.data, k, k >= len(self.data.curves))
+
+    def showEvent(self, event) -> None:
+        super().showEvent(event)
+        if self.data is not None:
+            k = self.channel_index()
+            self._frame(self.data, k, k >= len(self.data.curves))
 
     def listed_margins(self) -> dict[str, str]:
         return {self.margins.item(i, 0).text(): self.margins.item(i, 1).text() for i in range(self.margins.rowCount())}

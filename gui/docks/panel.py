@@ -17,11 +17,13 @@ from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QAction, QColor
 from PySide6.QtWidgets import QSplitter, QFileDialog, QHBoxLayout, QLabel, QMenu, QProgressBar, QPushButton, QSizePolicy, QVBoxLayout, QWidget
 
-__all__ = ["PlotPanel", "PAIR_COLOURS", "pair_colour", "write_table_csv", "pen_for", "themed_plot", "new_layout_widget", "elastic", "AdaptiveSplitter"]
+from loopwright.engine.svg_plot import PAIR_COLOURS
 
-# One colour per kept pair, the same in every panel and on the canvas; our own set,
-# chosen to stay apart from each other on light and dark backgrounds.
-PAIR_COLOURS = ("#2f7fd0", "#e0662b", "#2aa05a", "#b0419e", "#c9a21a", "#17a3b8", "#7b5cd6", "#8a6d3b")
+__all__ = ["PlotPanel", "PAIR_COLOURS", "pair_colour", "shade_of", "write_table_csv", "pen_for", "themed_plot", "new_layout_widget",
+           "legend_row", "elastic", "AdaptiveSplitter"]
+
+# PAIR_COLOURS: one colour per kept pair, the same in every panel, on the canvas and in the
+# command line's SVG plots; our own set, chosen to stay apart on light and dark backgrounds.
 
 _DASHES = (Qt.PenStyle.SolidLine, Qt.PenStyle.DashLine, Qt.PenStyle.DotLine, Qt.PenStyle.DashDotLine)
 
@@ -29,6 +31,26 @@ _DASHES = (Qt.PenStyle.SolidLine, Qt.PenStyle.DashLine, Qt.PenStyle.DotLine, Qt.
 def pair_colour(index: int) -> QColor:
     """Colour of the pair at ``index`` in the diagram's kept pairs."""
     return QColor(PAIR_COLOURS[index % len(PAIR_COLOURS)])
+
+
+def shade_of(colour: QColor, element: int, elements: int) -> QColor:
+    """The colour of element ``element`` of a vector pair with ``elements`` elements: the
+    pair's colour itself for the first, then lighter shades of it (one pair, one hue)."""
+    if elements <= 1 or element == 0:
+        return QColor(colour)
+    k = element / max(1, elements - 1)  # 0 .. 1
+    c = QColor(colour)
+    white = 0.62 * k  # mixed with white, never so far that it fades into the background
+    return QColor(int(c.red() + (255 - c.red()) * white), int(c.green() + (255 - c.green()) * white), int(c.blue() + (255 - c.blue()) * white))
+
+
+def legend_row(layout_widget: pg.GraphicsLayoutWidget, row: int = 0, *, columns: int = 3) -> pg.LegendItem:
+    """A legend in its own row above the plots, never over the data; entries are added
+    with ``legend.addItem(item, name)``, several to a line."""
+    legend = pg.LegendItem(labelTextColor="#1f2933", brush=(255, 255, 255, 0), pen=None, colCount=columns, horSpacing=14)
+    layout_widget.addItem(legend, row=row, col=0)
+    layout_widget.ci.layout.setRowStretchFactor(row, 0)
+    return legend
 
 
 def pen_for(colour: QColor, element: int = 0, *, width: float = 2.0):
@@ -78,13 +100,15 @@ class PlotPanel(QWidget):
         self.waiting = QWidget()
         row = QHBoxLayout(self.waiting)
         row.setContentsMargins(0, 0, 0, 0)
-        bar = QProgressBar()
-        bar.setRange(0, 0)  # busy: the engine gives no fraction done
-        bar.setMaximumHeight(12)
-        bar.setMinimumWidth(30)
-        bar.setTextVisible(False)
-        row.addWidget(QLabel("computing…"))
-        row.addWidget(bar, 1)
+        self.progress = QProgressBar()
+        self.progress.setObjectName(f"{self.key}_progress")
+        self.progress.setRange(0, 0)  # busy, until the engine reports a fraction done
+        self.progress.setMaximumHeight(12)
+        self.progress.setMinimumWidth(30)
+        self.progress.setTextVisible(False)
+        self.waiting_label = QLabel("computing…")
+        row.addWidget(self.waiting_label)
+        row.addWidget(self.progress, 1)
         self.stop_button = QPushButton("Stop")
         self.stop_button.setObjectName(f"{self.key}_stop")
         self.stop_button.clicked.connect(self.stop_requested.emit)
@@ -119,7 +143,20 @@ class PlotPanel(QWidget):
 
     def set_waiting(self, on: bool) -> None:
         """Show (after half a second of waiting) or hide the busy line with its Stop button."""
+        if not on:
+            self.progress.setRange(0, 0)
+            self.waiting_label.setText("computing…")
         self.waiting.setVisible(on)
+
+    def set_progress(self, fraction: float) -> None:
+        """Show the fraction done of the running computation (0 to 1)."""
+        self.progress.setRange(0, 1000)
+        self.progress.setValue(int(round(1000 * min(max(fraction, 0.0), 1.0))))
+        self.waiting_label.setText(f"computing… {100 * fraction:.0f} %")
+
+    def progress_text(self) -> str:
+        """What the busy line says (``computing… 40 %``)."""
+        return self.waiting_label.text()
 
     def show_error(self, text: str) -> None:
         self.set_message(text, error=True)
@@ -141,7 +178,11 @@ class PlotPanel(QWidget):
         SVG goes through Qt's own SVG painter (vector output); pyqtgraph's SVG exporter
         fails on the closed paths of a filled legend box.
         """
+        from loopwright.engine import CAUTION
+        from loopwright.engine.output_paths import check_export_output
+
         path = str(path)
+        check_export_output(path)  # never over a diagram, a folder or a read-only file
         widget = self.picture_widget()
         if path.lower().endswith(".svg"):
             from PySide6.QtCore import QPoint, QRect
@@ -153,6 +194,7 @@ class PlotPanel(QWidget):
             gen.setSize(widget.size())
             gen.setViewBox(QRect(0, 0, widget.width(), widget.height()))
             gen.setTitle(f"Loopwright {self.title}")
+            gen.setDescription(CAUTION)
             painter = QPainter(gen)
             QWidget.render(widget, painter, QPoint(0, 0))  # the widget overload, also for a QGraphicsView
             painter.end()
@@ -172,6 +214,9 @@ class PlotPanel(QWidget):
         return self.canvas
 
     def save_data(self, path: str | Path) -> None:
+        from loopwright.engine.output_paths import check_export_output
+
+        check_export_output(path)
         header, rows = self.table()
         write_table_csv(path, header, rows)
 
@@ -179,12 +224,23 @@ class PlotPanel(QWidget):
         path, _ = QFileDialog.getSaveFileName(self, f"Save the {self.title} as a picture", f"{self.key}.svg",
                                               "SVG picture (*.svg);;PNG picture (*.png)")
         if path:
-            self.save_picture(path)
+            self._refusable(self.save_picture, path)
 
     def save_data_dialog(self) -> None:
         path, _ = QFileDialog.getSaveFileName(self, f"Save the {self.title} data", f"{self.key}.csv", "CSV (*.csv)")
         if path:
-            self.save_data(path)
+            self._refusable(self.save_data, path)
+
+    def _refusable(self, write, path) -> None:
+        """Write, or say in one line why not (a diagram is never replaced by a picture)."""
+        from loopwright.engine.errors import EngineError
+
+        try:
+            write(path)
+        except (EngineError, OSError) as err:
+            from PySide6.QtWidgets import QMessageBox
+
+            QMessageBox.warning(self, f"Cannot save the {self.title}", str(err))
 
 
 def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, bottom: str | None, log_x: bool = False) -> pg.PlotItem:
@@ -221,9 +277,10 @@ def elastic(label):
 class AdaptiveSplitter(QSplitter):
     """Plot and table side by side when there is room, one above the other when narrow."""
 
-    def __init__(self, *, across_from: int = 720, parent=None):
+    def __init__(self, *, across_from: int = 720, first_share: float = 0.6, parent=None):
         super().__init__(Qt.Orientation.Horizontal, parent)
         self._across_from = across_from
+        self._first_share = first_share
         self.setChildrenCollapsible(False)
 
     def resizeEvent(self, event) -> None:
@@ -231,6 +288,6 @@ class AdaptiveSplitter(QSplitter):
         if want != self.orientation():
             self.setOrientation(want)
             total = event.size().width() if want == Qt.Orientation.Horizontal else event.size().height()
-            self.setSizes([int(total * 0.6), int(total * 0.4)])
+            self.setSizes([int(total * self._first_share), int(total * (1.0 - self._first_share))])
         super().resizeEvent(event)
 

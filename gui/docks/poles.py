@@ -10,7 +10,7 @@ from PySide6.QtWidgets import QLabel
 
 from loopwright.engine.check import pole_table, summarize
 from loopwright.engine.views_data import damping_guides
-from loopwright.gui.docks.panel import PlotPanel, elastic, new_layout_widget, themed_plot
+from loopwright.gui.docks.panel import PlotPanel, elastic, legend_row, new_layout_widget, themed_plot
 
 __all__ = ["PoleMapPanel", "pole_map_data"]
 
@@ -39,19 +39,20 @@ class PoleMapPanel(PlotPanel):
     def __init__(self, parent=None):
         super().__init__(parent)
         self.canvas = new_layout_widget()
-        self.plot = themed_plot(self.canvas, 0, left="imaginary (rad/s)", bottom="real (1/s)")
+        # the legend sits in a row of its own above the plot: it never hides a pole
+        self.legend = legend_row(self.canvas, 0, columns=3)
+        self.plot = themed_plot(self.canvas, 1, left="imaginary (rad/s)", bottom="real (1/s)")
         self.plot.setAspectLocked(False)
-        self.legend = self.plot.addLegend(offset=(10, 10), labelTextColor="#1f2933", brush=(255, 255, 255, 210))
         self._layout.addWidget(self.canvas, 1)
         self.readout = QLabel("Hover over a pole to read it.")
         self.readout.setObjectName("poles_readout")
         elastic(self.readout)
         self._layout.addWidget(self.readout)
-        self.closed = self.plot.plot(pen=None, symbol="x", symbolSize=12, symbolPen=pg.mkPen("#c0392b", width=2), name="closed loop")
-        self.feedback = self.plot.plot(pen=None, symbol="o", symbolSize=15, symbolBrush=None,
-                                       symbolPen=pg.mkPen("#2f7fd0", width=1.6), name="designed eig(A − BK)")
-        self.estimator = self.plot.plot(pen=None, symbol="s", symbolSize=15, symbolBrush=None,
-                                        symbolPen=pg.mkPen("#2aa05a", width=1.6), name="designed eig(A − LC)")
+        self.closed = self.plot.plot(pen=None, symbol="x", symbolSize=12, symbolPen=pg.mkPen("#c0392b", width=2))
+        self.feedback = self.plot.plot(pen=None, symbol="o", symbolSize=15, symbolBrush=None, symbolPen=pg.mkPen("#2f7fd0", width=1.6))
+        self.estimator = self.plot.plot(pen=None, symbol="s", symbolSize=15, symbolBrush=None, symbolPen=pg.mkPen("#2aa05a", width=1.6))
+        for item, name in ((self.closed, "closed loop"), (self.feedback, "designed eig(A − BK)"), (self.estimator, "designed eig(A − LC)")):
+            self.legend.addItem(item, name)
         self.guides: list = []
         self.guide_labels: list = []
         self.data: dict | None = None

@@ -25,7 +25,7 @@ class SingularValuePanel(PlotPanel):
         if not pairs:
             self.set_message("No pair yet. The singular values of a pair with a vector input or output show its gain in every direction.")
             return None
-        return singular_value_views, (diagram, list(pairs)), {}
+        return singular_value_views, (diagram, list(pairs)), {"drawing": True}
 
     def show_value(self, value) -> None:
         value = value or []

@@ -9,12 +9,13 @@ estimator shows the estimation error's transient.
 from __future__ import annotations
 
 import numpy as np
+from PySide6.QtCore import Qt
 from PySide6.QtGui import QColor
-from PySide6.QtWidgets import QCheckBox, QComboBox, QHBoxLayout, QLabel, QLineEdit
+from PySide6.QtWidgets import QCheckBox, QComboBox, QFrame, QHBoxLayout, QLabel, QLineEdit, QScrollArea, QSizePolicy
 
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.views_data import time_views
-from loopwright.gui.docks.panel import PlotPanel, elastic, new_layout_widget, pair_colour, pen_for, themed_plot
+from loopwright.gui.docks.panel import PlotPanel, elastic, legend_row, new_layout_widget, pair_colour, pen_for, themed_plot
 from loopwright.gui.view_commands import input_label
 
 __all__ = ["TimePanel", "RUN_LABELS", "parse_initial"]
@@ -70,16 +71,40 @@ class TimePanel(PlotPanel):
         self.initial.editingFinished.connect(self._on_options)
         self.initial.setMinimumWidth(60)
         bar.addWidget(self.initial, 1)
-        self.show_error_box = QCheckBox("x − x̂")
+        self.show_error_box = QCheckBox("estimation error")
         self.show_error_box.setObjectName("time_estimation_error")
-        self.show_error_box.setToolTip("Also draw x − x̂ of every estimator linked to its plant")
+        self.show_error_box.setToolTip("Also draw the estimation error x − x̂ of every estimator linked to its plant")
         self.show_error_box.toggled.connect(self._on_options)
         bar.addWidget(self.show_error_box)
         self._layout.addLayout(bar)
         self.canvas = new_layout_widget()
-        self.plot = themed_plot(self.canvas, 0, left="response", bottom="time (s)")
-        self.legend = self.plot.addLegend(offset=(-10, 10), labelTextColor="#1f2933", brush=(255, 255, 255, 210))
-        self._layout.addWidget(self.canvas, 1)
+        # the legend has a row of its own above the plot: it never covers a settled response
+        self.legend = legend_row(self.canvas, 0, columns=2)
+        self.plot = themed_plot(self.canvas, 1, left="response", bottom="time (s)")
+        row = QHBoxLayout()
+        row.addWidget(self.canvas, 1)
+        # step metrics of each pair, beside the plot, in the pair's colour (step runs only)
+        self.metrics_label = QLabel("")
+        self.metrics_label.setObjectName("time_metrics")
+        self.metrics_label.setTextFormat(Qt.TextFormat.RichText)
+        self.metrics_label.setAlignment(Qt.AlignmentFlag.AlignTop | Qt.AlignmentFlag.AlignLeft)
+        self.metrics_label.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
+        self.metrics_label.setWordWrap(True)
+        self.metrics_label.setMaximumWidth(190)
+        self.metrics_label.setToolTip("Rise time 10 % to 90 % of the steady state; settling into ±2 %; overshoot and undershoot "
+                                      "in % of the steady state, which is the path's exact DC gain.")
+        # in a scroll area: many pairs (or a vector pair) never make the panel taller
+        self.metrics_area = QScrollArea()
+        self.metrics_area.setObjectName("time_metrics_area")
+        self.metrics_area.setWidget(self.metrics_label)
+        self.metrics_area.setWidgetResizable(True)
+        self.metrics_area.setFrameShape(QFrame.Shape.NoFrame)
+        self.metrics_area.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+        self.metrics_area.setSizePolicy(QSizePolicy.Policy.Maximum, QSizePolicy.Policy.Ignored)
+        self.metrics_area.setFixedWidth(200)
+        self.metrics_area.setVisible(False)
+        row.addWidget(self.metrics_area)
+        self._layout.addLayout(row, 1)
         self.note = QLabel("")
         self.note.setObjectName("time_note")
         self.note.setWordWrap(True)
@@ -147,7 +172,8 @@ class TimePanel(PlotPanel):
                 wanted.add(key)
                 if key not in self.curves:
                     label = f"{name} ← {input_label(pair[0])}" if pair in self.pairs and self.run_kind() in ("step", "impulse") else name
-                    self.curves[key] = self.plot.plot(name=label)
+                    self.curves[key] = self.plot.plot()
+                    self.legend.addItem(self.curves[key], label)
                 self.curves[key].setPen(pen_for(colour, c if pair in self.pairs else c + 1))
                 self.curves[key].setData(run.t, run.y[:, c])
             if run.diverged:
@@ -156,12 +182,30 @@ class TimePanel(PlotPanel):
             item = self.curves.pop(key)
             self.plot.removeItem(item)
             self.legend.removeItem(item)
+        self._show_metrics()
         if errors:
             self.show_error("\n".join(errors))
         else:
             self.set_message("" if self.runs else "No pair yet: right-click a wire and choose “look here”.")
         self.plot.setTitle(f"response to {RUN_LABELS[self.run_kind()]}", color="#1f2933", size="9pt")
         self.plot.enableAutoRange()
+
+    def step_metrics(self) -> dict:
+        """(pair, name) -> StepMetrics of the runs on show (step runs of kept pairs only)."""
+        return {(pair, nm): m for pair, run in self.runs.items() if pair in self.pairs for nm, m in run.metrics.items()}
+
+    def _show_metrics(self) -> None:
+        metrics = self.step_metrics()
+        blocks = []
+        for (pair, name), m in metrics.items():
+            colour = pair_colour(self.pairs.index(pair)).name()
+            settling = f"{m.settling_time_s:.3g} s" if m.settled else "not settled"
+            blocks.append(f"<div style='color:{colour}'><b>{name} ← {input_label(pair[0])}</b><br>"
+                          f"rise {m.rise_time_s:.3g} s · settling {settling}<br>"
+                          f"overshoot {m.overshoot_pct:.3g} % · undershoot {m.undershoot_pct:.3g} %<br>"
+                          f"peak {m.peak:.4g} at {m.peak_time_s:.3g} s · steady {m.steady_state:.4g}</div>")
+        self.metrics_label.setText("<br>".join(blocks))
+        self.metrics_area.setVisible(bool(blocks))
 
     def clear_value(self) -> None:
         for item in self.curves.values():

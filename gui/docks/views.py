@@ -1,10 +1,13 @@
 """Keeps every open plot panel up to date with the document.
 
-After an edit (debounced like the live model) each visible panel builds its job from a
-fresh snapshot and the kept pairs; :class:`~loopwright.gui.workers.ViewJobs` runs it off
-the GUI thread and drops answers an edit has overtaken. A hidden panel is marked stale
-and catches up when it is shown. A panel whose answer takes longer than half a second
-says so, with a way to stop waiting.
+After an edit each visible panel builds its job from a fresh snapshot and the kept pairs;
+:class:`~loopwright.gui.workers.ViewJobs` runs it off the GUI thread and drops answers an
+edit has overtaken. An edit made while the worker is idle is computed at once (on the
+next turn of the event loop, so the steps of one command count once); edits that arrive
+while it still computes are coalesced and computed once after a quiet spell (the
+debounce), so dragging a value never queues a backlog. A hidden panel is marked stale and
+catches up when it is shown. A panel whose answer takes longer than half a second says
+so, with its progress where the engine reports it and a Stop that ends the computation.
 """
 from __future__ import annotations
 
@@ -28,13 +31,14 @@ class ViewsController(QObject):
         self.panels: dict[str, tuple] = {}
         self._fresh: dict[str, int] = {}
         self._busy_timers: dict[str, QTimer] = {}
+        self._debounce_ms = debounce_ms
         self._timer = QTimer(self)
         self._timer.setSingleShot(True)
-        self._timer.setInterval(debounce_ms)
         self._timer.timeout.connect(self.refresh_visible)
         document.changed.connect(self._on_changed)
         self.jobs.result_ready.connect(self._on_result)
         self.jobs.busy_changed.connect(self._on_busy)
+        self.jobs.progress_changed.connect(self._on_progress)
 
     def add(self, panel, dock) -> None:
         key = panel.key
@@ -50,7 +54,10 @@ class ViewsController(QObject):
             panel.stop_requested.connect(lambda k=key: self.stop(k))
 
     def _on_changed(self, _revision: int) -> None:
-        self._timer.start()
+        # idle worker: compute now (with any edit still waiting for its debounce); busy
+        # worker: wait for a quiet spell, so a burst of edits is computed once
+        busy = any(self.jobs.is_busy(k) for k in self.panels)
+        self._timer.start(self._debounce_ms if busy else 0)
 
     def _on_visibility(self, key: str, visible: bool) -> None:
         if visible and self._fresh.get(key) != self._doc.revision:
@@ -78,13 +85,19 @@ class ViewsController(QObject):
             self._fresh[key] = self._doc.revision
             return
         fn, args, kwargs = job
-        self.jobs.submit(key, fn, *args, **kwargs)
+        self.jobs.submit(key, fn, *args, progress=getattr(panel, "reports_progress", False), **kwargs)
 
     def stop(self, key: str) -> None:
-        """Stop waiting for panel ``key`` (its answer, if it still comes, is dropped)."""
+        """Stop panel ``key``'s computation (a job that reports progress ends at its next
+        report; any other's answer is dropped when it comes)."""
         self.jobs.cancel(key)
         panel, _dock = self.panels[key]
-        panel.set_message("Stopped. Edit the diagram or press Refresh to compute again.")
+        panel.set_message("Stopped. Edit the diagram or choose Views ▸ Refresh every view to compute again.")
+
+    def _on_progress(self, key: str, fraction: float) -> None:
+        panel, _dock = self.panels[key]
+        if hasattr(panel, "set_progress"):
+            panel.set_progress(fraction)
 
     def _on_result(self, result: ViewResult) -> None:
         panel, _dock = self.panels[result.key]

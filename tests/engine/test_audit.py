@@ -174,3 +174,26 @@ def test_vector_dc_gains_are_the_largest_singular_value_and_say_so():
     ref = np.linalg.norm(ct.ss(A, B, C, D).dcgain(), 2)
     assert r.dc_gain_kind == "largest singular value"
     assert_allclose(r.dc_gain, ref, rtol=1e-9)
+
+
+def test_audit_reports_its_progress_and_stops_when_the_report_raises():
+    # the progress callable sees 0 first and 1 last, never going back; the rows do not
+    # depend on it; raising from it ends the audit with that exception
+    from loopwright.engine.audit import AuditCancelled
+
+    model = _sample("two_zone_oven.lwd")
+    seen = []
+    rows = path_audit(model, progress=seen.append)
+    assert seen[0] == 0.0 and seen[-1] == 1.0
+    assert all(b >= a for a, b in zip(seen, seen[1:]))
+    assert [(r.source, r.signal, r.peak_gain) for r in rows] == [(r.source, r.signal, r.peak_gain) for r in path_audit(model)]
+    calls = []
+
+    def stop_at_third(fraction):
+        calls.append(fraction)
+        if len(calls) == 3:
+            raise AuditCancelled("stopped by the caller")
+
+    with pytest.raises(AuditCancelled, match="stopped by the caller"):
+        path_audit(model, progress=stop_at_third)
+    assert len(calls) == 3  # nothing ran on after the report that raised

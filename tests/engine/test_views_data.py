@@ -176,3 +176,19 @@ def test_noise_bars_add_up_to_the_rms_in_proportion_to_the_variance():
         for s, v in bar.variance_by_source.items():
             assert bar.parts[s] / bar.rms == pytest.approx(v / tot)
     assert len(noise_bars(b)) == len(b.lines)
+
+
+@pytest.mark.parametrize("path,src,sig", [(CONVEYOR, "dl", "y"), (ROTOR, "n", "u")], ids=["conveyor dl->y", "rotor n->u"])
+def test_drawing_grid_is_exact_at_its_points_and_finds_the_same_peak(path, src, sig):
+    # the app's drawing grid: every point is the response python-control gives there
+    # (python-control 0.10 state-space evaluation), and its refined peak equals the
+    # command line's (denser grid) to plotting accuracy
+    model = assemble(load(path))
+    draw = pair_frequency_response(model, src, sig, drawing=True)
+    dense = pair_frequency_response(model, src, sig)
+    assert np.all(np.diff(draw.w_rad_s) > 0)
+    g = np.asarray(_ct_pair(model, src, sig)(1j * draw.w_rad_s, squeeze=False))[0, 0]
+    assert_allclose(draw.response[:, 0, 0], g, rtol=1e-8)
+    (w_d, db_d), (w_c, db_c) = draw.peak(), dense.peak()
+    assert db_d == pytest.approx(db_c, abs=1e-3)
+    assert w_d == pytest.approx(w_c, rel=1e-3)

@@ -16,6 +16,7 @@ from loopwright.engine.project import load
 from loopwright.engine.views_data import loop_break_view, noise_bars, singular_value_views, time_views
 
 from gui_helpers import SAMPLES
+from loopwright.gui.docks.panel import pair_colour
 
 pytestmark = pytest.mark.qt
 
@@ -118,7 +119,7 @@ def test_singular_value_view_equals_the_engine_for_a_vector_pair(window, wait_vi
     path = next(p for p in SAMPLES if p.stem == "two_zone_oven")
     _open_with_pairs(window, path, [("r", "y")])
     panel = _show(window, "singular_values", wait_views)
-    w, sv = singular_value_views(load(path), [("r", "y")])[0]
+    w, sv = singular_value_views(load(path), [("r", "y")], drawing=True)[0]
     for i in range(2):
         x, y = panel.curves[(("r", "y"), i)].getOriginalDataset()
         assert_allclose(x, w)
@@ -143,7 +144,7 @@ def test_audit_row_lights_exactly_its_path_and_shows_it_in_the_frequency_view(wi
     panel = _show(window, "audit", wait_views)
     rows = path_audit(assemble(load(path)))
     assert [(r.source, r.signal, r.peak_gain) for r in panel.rows] == [(r.source, r.signal, r.peak_gain) for r in rows]
-    assert "worst stable path" in window.statusBar().currentMessage()
+    assert "worst stable path" in window.audit_status.text()
     k = 2
     panel.select_row(k)
     lit_b = {b for b, it in window.scene.block_items.items() if it._highlighted}
@@ -202,3 +203,138 @@ def test_a_pole_warning_in_the_problems_list_opens_the_pole_map(window, wait_vie
     assert "pole map" in item.text()
     window.problems._on_clicked(item)
     assert not window.view_docks["poles"].visibleRegion().isEmpty()
+
+
+def test_stop_ends_a_running_job_at_its_next_progress_report(qtbot):
+    # a job that reports progress is ended by Stop (its report raises), not left running
+    # with its answer dropped: the worker is free again without the job finishing
+    import threading
+
+    from loopwright.gui.document import Document
+    from loopwright.gui.workers import JobStopped, ViewJobs
+
+    jobs = ViewJobs(Document(load(SAMPLES[0])))
+    ended, release = [], threading.Event()
+
+    def endless(*, progress):
+        try:
+            k = 0
+            while True:
+                progress(min(k / 1000.0, 0.99))
+                k += 1
+                release.wait(0.001)  # the worker waits a little between reports, like real work
+        except JobStopped:
+            ended.append("stopped")
+            raise
+
+    fractions = []
+    jobs.progress_changed.connect(lambda key, f: fractions.append((key, f)))
+    jobs.submit("audit", endless, progress=True)
+    qtbot.waitUntil(lambda: len(fractions) >= 2, timeout=10000)
+    assert not jobs.worker_idle()
+    jobs.cancel("audit")
+    qtbot.waitUntil(jobs.worker_idle, timeout=10000)
+    assert ended == ["stopped"] and not jobs.is_busy("audit")
+    assert {k for k, _ in fractions} == {"audit"} and all(0.0 <= f < 1.0 for _, f in fractions)
+    jobs.shutdown()
+
+
+def test_the_audit_panel_reports_progress_to_the_end(window, wait_views):
+    path = next(p for p in SAMPLES if p.stem == "two_zone_oven")
+    _open_with_pairs(window, path, [])
+    seen = []
+    window.views.jobs.progress_changed.connect(lambda key, f: seen.append((key, f)))
+    panel = _show(window, "audit", wait_views)
+    assert [f for k, f in seen if k == "audit"][-1] == 1.0
+    assert len(panel.rows) == len(path_audit(assemble(load(path))))
+    panel.set_waiting(True)
+    panel.set_progress(0.4)
+    assert panel.progress_text() == "computing… 40 %" and panel.progress.value() == 400
+    panel.set_waiting(False)
+
+
+def test_time_view_shows_the_step_metrics_of_each_pair_in_its_colour(window, wait_views):
+    # the metrics beside the plot are the engine's (engine/step_metrics.py on the engine's
+    # run); python-control 0.10 step_info on the same path agrees on the overshoot
+    import control as ct
+
+    from loopwright.engine.step_metrics import step_metrics
+
+    path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+    _open_with_pairs(window, path, [("r", "y"), ("dl", "y")])
+    panel = _show(window, "time", wait_views)
+    panel.set_run_kind("step")
+    wait_views(window)
+    shown = panel.step_metrics()
+    assert set(shown) == {(("r", "y"), "y"), (("dl", "y"), "y")}
+    model = assemble(load(path))
+    for pair in (("r", "y"), ("dl", "y")):
+        run = panel.runs[pair]
+        A, B, C, D = model.pair(*pair)
+        ref = step_metrics(run.t, run.y[:, 0], float((D - C @ np.linalg.solve(A, B))[0, 0]))
+        got = shown[(pair, "y")]
+        assert got.overshoot_pct == pytest.approx(ref.overshoot_pct, abs=1e-9)
+        assert got.rise_time_s == pytest.approx(ref.rise_time_s, rel=1e-9)
+        info = ct.step_info(ct.ss(A, B, C, D), T=run.t)
+        assert got.overshoot_pct == pytest.approx(info["Overshoot"], abs=0.5)
+    text = panel.metrics_label.text()
+    for k in (0, 1):
+        assert pair_colour(k).name() in text
+    assert panel.metrics_area.isVisible()
+    panel.set_run_kind("impulse")
+    wait_views(window)
+    assert not panel.metrics_area.isVisible() and panel.step_metrics() == {}
+
+
+def test_a_view_picture_never_replaces_a_diagram_and_carries_the_caution(window, wait_views, tmp_path):
+    from loopwright.engine import CAUTION
+    from loopwright.engine.output_paths import OutputRefusedError
+
+    path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+    _open_with_pairs(window, path, [("r", "y")])
+    panel = _show(window, "frequency", wait_views)
+    diagram = tmp_path / "mine.lwd"
+    diagram.write_bytes(path.read_bytes())
+    for write in (panel.save_picture, panel.save_data):
+        with pytest.raises(OutputRefusedError, match="never replaces a diagram"):
+            write(diagram)
+    assert diagram.read_bytes() == path.read_bytes()
+    panel.save_picture(tmp_path / "f.svg")
+    assert CAUTION in (tmp_path / "f.svg").read_text(encoding="utf-8")
+
+
+def test_no_leftover_tab_bar_shows_beside_the_dock_groups(window):
+    # building the tab groups leaves the main window earlier tab bars of each group; none of
+    # them may stay visible (one used to peek out at the left edge of the canvas)
+    from PySide6.QtWidgets import QTabBar
+
+    window.show()
+    bars = [tb for tb in window.findChildren(QTabBar) if tb.parentWidget() is window and tb.isVisible()]
+    names = [{tb.tabText(i) for i in range(tb.count())} for tb in bars]
+    assert not any(a < b for a in names for b in names), names
+    assert {"Frequency view", "Singular-value view", "Pole map"} in names
+
+
+def test_an_edit_made_while_the_views_are_idle_is_computed_without_the_debounce(make_window, prefs, wait_views, qtbot):
+    # a debounce preference of ten minutes: an edit made while the views are idle still
+    # reaches them at once (the debounce only coalesces edits arriving while views compute)
+    import dataclasses
+
+    from loopwright.engine.views_data import pair_frequency_response
+    from loopwright.gui.commands import SetParams
+
+    win = make_window(prefs=dataclasses.replace(prefs, debounce_ms=600_000))
+    path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+    _open_with_pairs(win, path, [("r", "y")])
+    win.views.refresh_visible()
+    qtbot.waitUntil(lambda: not any(win.views.jobs.is_busy(k) for k in win.panels), timeout=30000)
+    freq = win.panels["frequency"]
+    n = win.document.diagram.block_by_name("N")
+    win.document.push(SetParams(win.document, n.id, dict(n.params, K=[[2.0 * float(np.asarray(n.params["K"]).ravel()[0])]])))
+    want = pair_frequency_response(assemble(win.document.snapshot()), "r", "y", drawing=True).mag_db[:, 0, 0]
+
+    def shows_new():
+        _x, mag = freq.curves[(("r", "y"), 0, 0)][0].getOriginalDataset()
+        return mag is not None and mag.shape == want.shape and np.allclose(mag, want, rtol=1e-9)
+
+    qtbot.waitUntil(shows_new, timeout=30000)

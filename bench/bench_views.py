@@ -1,0 +1,258 @@
+"""Views latency: from an edit to every open view redrawn, in a real (offscreen) window.
+
+For each size a chain of observer-based loops (``loops.view_loop``, demo data) is saved to
+a temporary file and opened in the main window with four views side by side: frequency
+view, time view, pole map and loop-break view, two kept pairs and the loop break at
+``P0.u``. Then the state-feedback gain ``K0`` is edited (an undoable command, as the
+inspector does) ``--edits`` times; each latency runs from the push of the command to the
+moment the last of the four views has drawn the new revision and been repainted.
+
+Targets (issue 11): at most 100 ms for 50 states, at most 1 s for 400 states.
+
+The same computations are timed one by one on this thread (ours), and the nearest
+python-control calls beside them (frequency responses of both pairs on our grids, step
+responses on our time grid, the poles, ``stability_margins`` of the loop transfer), and
+the ratio printed. The path audit of the largest loop is timed too, with the time from
+pressing Stop to the worker being free again.
+
+The machine is shared: the script prints the load average, and both wall-clock and CPU
+seconds for the engine parts. OpenBLAS threads on small matrices only spin on two busy
+cores; run once as is and once with ``OPENBLAS_NUM_THREADS=1`` to see the difference.
+
+Run:  QT_QPA_PLATFORM=offscreen python bench/bench_views.py [--states 50 400] [--edits 7]
+"""
+from __future__ import annotations
+
+import argparse
+import copy
+import os
+import statistics
+import sys
+import tempfile
+import time
+import warnings
+from pathlib import Path
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+
+import numpy as np  # noqa: E402
+
+import loopwright.gui  # noqa: E402,F401  (applies the PySide6 guard before Qt is used)
+from loops import view_loop  # noqa: E402
+from loopwright.engine.project import save  # noqa: E402
+
+VIEWS = ("frequency", "time", "poles", "loop_break")
+
+
+def _wait(app, until, timeout_s: float = 600.0) -> None:
+    end = time.perf_counter() + timeout_s
+    while not until():
+        app.processEvents()
+        if time.perf_counter() > end:
+            raise TimeoutError("the views did not finish")
+        time.sleep(0.0005)
+
+
+def _window(app, tmp: Path, debounce_ms: int):
+    from PySide6.QtCore import QSettings, Qt
+
+    from loopwright.gui.main_window import MainWindow
+    from loopwright.gui.settings import Preferences
+
+    prefs = Preferences(autosave_dir=tmp / "autosave", autosave_interval_s=0, debounce_ms=debounce_ms, dark=False)
+    win = MainWindow(settings=QSettings(str(tmp / "s.ini"), QSettings.Format.IniFormat), prefs=prefs)
+    win.resize(1600, 1000)
+    win.show()
+    # four views side by side along the bottom (the default layout tabs some of them)
+    for key in VIEWS:
+        win.addDockWidget(Qt.DockWidgetArea.BottomDockWidgetArea, win.view_docks[key], Qt.Orientation.Horizontal)
+        win.view_docks[key].show()
+    return win
+
+
+def measure_edits(app, states: int, edits: int, debounce_ms: int, tmp: Path) -> dict:
+    """Latencies (s) of ``edits`` gain edits on a ``states``-state loop."""
+    from loopwright.gui.commands import SetParams
+
+    path = tmp / f"loop_{states}.lwd"
+    save(view_loop(states), path)
+    win = _window(app, tmp, debounce_ms)
+    drawn: dict[str, int] = {}
+    errors: dict[str, str] = {}
+    doc = win.document
+    for key in VIEWS:
+        panel = win.panels[key]
+        original = panel.show_value
+
+        def recorder(value, _orig=original, _key=key):
+            _orig(value)
+            drawn[_key] = doc.revision
+
+        panel.show_value = recorder
+        original_error = panel.show_error
+
+        def error_recorder(text, _orig=original_error, _key=key):
+            _orig(text)
+            errors[_key] = text
+            drawn[_key] = doc.revision
+
+        panel.show_error = error_recorder
+    win.open_path(str(path))
+    _wait(app, lambda: all(drawn.get(k) == doc.revision for k in VIEWS) and win.views.is_idle())
+    kid = doc.diagram.block_by_name("K0").id
+    base = copy.deepcopy(doc.diagram.blocks[kid].params)
+    latencies, computes = [], []
+    for i in range(edits):
+        params = copy.deepcopy(base)
+        params["K"] = (np.asarray(base["K"]) * (1.0 + 0.02 * (i + 1))).tolist()
+        t0 = time.perf_counter()
+        doc.push(SetParams(doc, kid, params))
+        _wait(app, lambda: all(drawn.get(k) == doc.revision for k in VIEWS))
+        t1 = time.perf_counter()
+        for key in VIEWS:
+            win.view_docks[key].widget().repaint()
+        latencies.append(time.perf_counter() - t0)
+        computes.append(t1 - t0)
+        _wait(app, lambda: win.views.is_idle() and win.live.is_current())
+    win._closing_ok = True
+    win.live.shutdown()
+    win.views.shutdown()
+    win.close()
+    app.processEvents()
+    return {"latency": latencies, "until_drawn": computes, "errors": errors}
+
+
+def time_engine_parts(states: int) -> dict:
+    """Each open view's own job (what its panel sends to the worker), on this thread: (wall s, cpu s)."""
+    from loopwright.gui.docks.frequency import FrequencyPanel
+    from loopwright.gui.docks.loop_break import LoopBreakPanel
+    from loopwright.gui.docks.poles import PoleMapPanel
+    from loopwright.gui.docks.time import TimePanel
+    from loopwright.gui.view_commands import pairs_of
+
+    d = view_loop(states)
+    pairs = pairs_of(d)
+    out = {}
+    for panel in (FrequencyPanel(), TimePanel(), PoleMapPanel(), LoopBreakPanel()):
+        panel.set_pairs(pairs)
+        fn, args, kwargs = panel.job(d, pairs)
+        best = None
+        for _ in range(3):
+            w0, c0 = time.perf_counter(), time.process_time()
+            fn(*args, **kwargs)
+            t = (time.perf_counter() - w0, time.process_time() - c0)
+            best = t if best is None or t[0] < best[0] else best
+        out[panel.key] = best
+    return out
+
+
+def time_python_control(states: int) -> float:
+    """The nearest python-control calls for the same four views (wall s)."""
+    import control as ct
+
+    from loopwright.engine.interconnect import assemble
+    from loopwright.engine.margins import loop_transfer
+    from loopwright.engine.views_data import frequency_views, time_grid
+    from loopwright.gui.view_commands import pairs_of
+
+    d = view_loop(states)
+    model = assemble(d)
+    pairs = pairs_of(d)
+    grids = [r.w_rad_s for r in frequency_views(d, pairs, drawing=True)]
+    t = time_grid(d, model)
+    t0 = time.perf_counter()
+    for (src, sig), w in zip(pairs, grids):
+        A, B, C, D = model.pair(model.resolve_input(src), model.resolve_signal(sig))
+        sys_p = ct.ss(A, B, C, D)
+        ct.frequency_response(sys_p, w)
+        ct.step_response(sys_p, t)
+    ct.poles(ct.ss(model.A, model.B, model.C, model.D))
+    A, B, C, D = loop_transfer(d, "P0.u")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # its own warnings are not what is timed
+        ct.stability_margins(ct.ss(A, B, C, D))
+    return time.perf_counter() - t0
+
+
+def measure_audit(app, states: int, tmp: Path) -> dict:
+    """Full audit time in the window, and the time from Stop to the worker being free."""
+    path = tmp / f"audit_{states}.lwd"
+    save(view_loop(states), path)
+    win = _window(app, tmp, 20)
+    win.open_path(str(path))
+    _wait(app, lambda: win.views.is_idle() and win.live.is_current())
+    dock, panel = win.view_docks["audit"], win.panels["audit"]
+    dock.show()
+    dock.raise_()
+    app.processEvents()
+    _wait(app, lambda: win.views.is_idle())
+    t0 = time.perf_counter()
+    win.views.refresh("audit")
+    _wait(app, lambda: win.views.is_idle())
+    full = time.perf_counter() - t0
+    rows = len(panel.rows)
+    # again, and Stop once the busy line shows
+    t0 = time.perf_counter()
+    win.views.refresh("audit")
+    _wait(app, lambda: panel.waiting.isVisible())
+    shown_after = time.perf_counter() - t0
+    progress = panel.progress_text() if hasattr(panel, "progress_text") else ""
+    app.processEvents()
+    t1 = time.perf_counter()
+    panel.stop_button.click()
+    _wait(app, lambda: win.views.jobs.worker_idle())
+    stop_latency = time.perf_counter() - t1
+    win._closing_ok = True
+    win.live.shutdown()
+    win.views.shutdown()
+    win.close()
+    app.processEvents()
+    return {"full": full, "rows": rows, "busy_shown_after": shown_after, "progress": progress, "stop_to_free": stop_latency}
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--states", type=int, nargs="+", default=[50, 400])
+    ap.add_argument("--edits", type=int, default=7)
+    ap.add_argument("--debounce-ms", type=int, default=150, help="the window's debounce preference (the app's default)")
+    ap.add_argument("--no-audit", action="store_true")
+    args = ap.parse_args(argv)
+    import control as ct
+    from PySide6.QtWidgets import QApplication
+
+    app = QApplication.instance() or QApplication([])
+    print(f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores; OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS', 'unset')}; "
+          f"python-control {ct.__version__}")
+    targets = {50: 0.1, 400: 1.0}
+    with tempfile.TemporaryDirectory() as tmp_name:
+        tmp = Path(tmp_name)
+        for n in args.states:
+            res = measure_edits(app, n, args.edits, args.debounce_ms, tmp)
+            lat = res["latency"]
+            target = targets.get(n)
+            verdict = "" if target is None else (f"  target {target * 1000:.0f} ms: " + ("met" if statistics.median(lat) <= target else "MISSED"))
+            print(f"\n{n} states, four views open, {len(lat)} edits of K0 (debounce preference {args.debounce_ms} ms):")
+            for key, text in res["errors"].items():
+                print(f"  note: the {key} view answered with a message: {text}")
+            print(f"  edit -> every view redrawn: median {statistics.median(lat) * 1000:.0f} ms, "
+                  f"min {min(lat) * 1000:.0f} ms, max {max(lat) * 1000:.0f} ms{verdict}")
+            parts = time_engine_parts(n)
+            ours = sum(w for w, _c in parts.values())
+            print("  engine, one view at a time on this thread (wall / cpu ms): "
+                  + ", ".join(f"{k} {w * 1000:.0f}/{c * 1000:.0f}" for k, (w, c) in parts.items())
+                  + f"; total {ours * 1000:.0f} ms")
+            t_ct = time_python_control(n)
+            print(f"  python-control, nearest calls for the same views: {t_ct * 1000:.0f} ms   ratio {t_ct / ours:.1f}x "
+                  "(python-control's margins are not certified peak gains, and it draws no disk margin)")
+        if not args.no_audit:
+            n = max(args.states)
+            a = measure_audit(app, n, tmp)
+            print(f"\npath audit, {n} states: {a['rows']} paths in {a['full']:.2f} s; the busy line showed after "
+                  f"{a['busy_shown_after'] * 1000:.0f} ms ({a['progress'] or 'no progress text'}); "
+                  f"Stop -> worker free in {a['stop_to_free'] * 1000:.0f} ms")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
