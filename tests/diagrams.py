@@ -82,7 +82,7 @@ def stage_loop_named(*, linked: bool = True) -> Diagram:
 
 
 def rotor_lead_loop() -> Diagram:
-    """REFERENCES.md REF-12: P = 1/(s^2 - 4), C = 80 (s + 1)/(s + 10) = 80 - 720/(s + 10), unity
+    """tests/REFERENCES.md#rotor-sensitivity-integral: P = 1/(s^2 - 4), C = 80 (s + 1)/(s + 10) = 80 - 720/(s + 10), unity
     feedback; signals ref, err, u (the plant input, also settings.loop_break), y."""
     d = Diagram()
     d.add_block("source", "r", {"role": "reference", "width": 1})

@@ -157,7 +157,7 @@ def test_feedthrough_peaks_are_at_infinity_and_rounding_zeros_are_zero():
 
 def test_scalar_dc_gains_keep_their_sign():
     # closed form: L(0) = C(0) P(0) = 8 * (-1/4) = -2, so S(0) = 1/(1 + L(0)) = -1 (r -> err) and
-    # T(0) = L(0)/(1 + L(0)) = 2 (r -> y); the case of REFERENCES.md REF-12
+    # T(0) = L(0)/(1 + L(0)) = 2 (r -> y); the case of tests/REFERENCES.md#rotor-sensitivity-integral
     rows = {(r.source, r.signal): r for r in path_audit(assemble(rotor_lead_loop()))}
     assert_allclose(rows["r", "err"].dc_gain, -1.0, rtol=1e-9)
     assert_allclose(rows["r", "y"].dc_gain, 2.0, rtol=1e-9)

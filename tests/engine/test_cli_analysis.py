@@ -267,7 +267,7 @@ def test_free_response_from_a_plant_initial_state_shows_the_estimation_error(cap
 
 
 def _rotor_lead_file(tmp_path) -> str:
-    # REFERENCES.md REF-12 diagram, loop break at the plant input
+    # tests/REFERENCES.md#rotor-sensitivity-integral diagram, loop break at the plant input
     path = tmp_path / "rotor.lwd"
     save(rotor_lead_loop(), str(path))
     return str(path)
@@ -280,7 +280,7 @@ def _nmp_file(tmp_path) -> str:
 
 
 def test_freq_accepts_the_dc_point(tmp_path, capsys):
-    # closed form (REF-12 case): S(0) = 1/(1 + L(0)) = 1/(1 - 2) = -1: 0 dB and a phase of +-180 deg
+    # closed form (tests/REFERENCES.md#rotor-sensitivity-integral case): S(0) = 1/(1 + L(0)) = 1/(1 - 2) = -1: 0 dB and a phase of +-180 deg
     assert main(["freq", _rotor_lead_file(tmp_path), "--from", "r", "--to", "err", "--w", "0,1e6", "--json"]) == 0
     out = _json(capsys)
     assert out["w"] == [0.0, 1e6]
@@ -300,7 +300,7 @@ def test_freq_rejects_a_bad_frequency_list_in_one_line(bad, tmp_path, capsys):
 
 
 def test_margins_text_lists_each_crossover_and_marks_what_sets_the_margins(tmp_path, capsys):
-    # REFERENCES.md REF-12 (python-control 0.10.2 stability_margins): PM 48.94734683 deg at 6.234008542 rad/s,
+    # tests/REFERENCES.md#rotor-sensitivity-integral (python-control 0.10.2 stability_margins): PM 48.94734683 deg at 6.234008542 rad/s,
     # DM 0.1370374065 s, lower gain margin 0.5 at w = 0, one open-loop pole in the right half-plane (+2)
     assert main(["margins", _rotor_lead_file(tmp_path)]) == 0
     text = capsys.readouterr().out
@@ -355,7 +355,7 @@ def test_check_on_the_ill_conditioned_chain_separates_and_flags(capsys):
 
 
 def _servo_file(tmp_path) -> str:
-    # REFERENCES.md REF-11: L = 4/(s (s + 2)), unity feedback, T = 4/(s^2 + 2 s + 4): wn = 2, zeta = 0.5
+    # tests/REFERENCES.md#winder-step: L = 4/(s (s + 2)), unity feedback, T = 4/(s^2 + 2 s + 4): wn = 2, zeta = 0.5
     d = Diagram()
     d.add_block("source", "r", {"role": "reference", "width": 1})
     d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
@@ -409,7 +409,7 @@ def test_metrics_need_a_step(tmp_path, capsys):
 
 
 def test_tf_of_the_rotor_loop_matches_the_closed_form(tmp_path, capsys):
-    # REFERENCES.md REF-12: T = r -> y = (80 s + 80)/(s^3 + 10 s^2 + 76 s + 40) (closed form), DC gain 2,
+    # tests/REFERENCES.md#rotor-sensitivity-integral: T = r -> y = (80 s + 80)/(s^3 + 10 s^2 + 76 s + 40) (closed form), DC gain 2,
     # poles -0.5660950408 and -4.71695248 +- 6.957720352j; python-control 0.10.2 ss2tf agrees
     import control as ct
 

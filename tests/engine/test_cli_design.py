@@ -166,8 +166,8 @@ def test_export_help_documents_options(capsys):
 
 
 def test_design_json_carries_the_riccati_solutions(tmp_path, capsys):
-    # REFERENCES.md REF-04 (scalar LQR, closed form P = r (a + sqrt(a^2 + b^2 q / r)) / b^2 = 3) and
-    # REF-05 (scalar Kalman filter, closed form P = V (a + sqrt(a^2 + c^2 W / V)) / c^2 = 2, here with a = 1:
+    # tests/REFERENCES.md#reactor-lqr (scalar LQR, closed form P = r (a + sqrt(a^2 + b^2 q / r)) / b^2 = 3) and
+    # tests/REFERENCES.md#tank-kalman (scalar Kalman filter, closed form P = V (a + sqrt(a^2 + c^2 W / V)) / c^2 = 2, here with a = 1:
     # P = 1 + sqrt(1 + 8) = 4)
     from loopwright.engine.diagram import Diagram
 

@@ -370,7 +370,7 @@ def test_closed_loop_matrix_gives_the_reference_poles():
 
 
 def test_poles_at_the_origin_are_not_counted_in_the_right_half_plane():
-    # REFERENCES.md REF-03 stage loop broken at the plant input: L = K (sI - A + B K + L C)^-1 L P(s) with
+    # tests/REFERENCES.md#stage-observer stage loop broken at the plant input: L = K (sI - A + B K + L C)^-1 L P(s) with
     # P = 1/s^2 (two poles at the origin, closed form) and the estimator block A - B K - L C =
     # [[-11, 1], [-38, -4]] (trace -15, determinant 82: both poles in the open left half-plane, closed form)
     from diagrams import stage_loop_ref03
@@ -384,7 +384,7 @@ def test_poles_at_the_origin_are_not_counted_in_the_right_half_plane():
 @pytest.mark.parametrize(
     "tf, origin",
     [
-        pytest.param(ct.tf(2, [1, 1, 0]), 1, id="REF-10 camera pan 2/(s(s+1)): one integrator (closed form)"),
+        pytest.param(ct.tf(2, [1, 1, 0]), 1, id="tests/REFERENCES.md#camera-pan-delay camera pan 2/(s(s+1)): one integrator (closed form)"),
         pytest.param(ct.tf([10, 10], [1, 10, 0, 0]), 2, id="10(s+1)/(s^2(s+10)): double integrator with lead (closed form)"),
         pytest.param(ct.tf([1, 3, 3, 1], [1, 0, 0, 0, 0]), 4, id="(s+1)^3/s^4: a 4-fold pole at the origin (closed form)"),
     ],
@@ -452,7 +452,7 @@ def test_a_stable_loop_with_a_negative_phase_margin_says_why():
 
 
 def test_crossover_tables_of_the_triple_lag_mark_the_margins_they_set():
-    # REFERENCES.md REF-09 (closed forms): one gain crossover at sqrt(4^(2/3) - 1) with PM 27.1416306 deg and
+    # tests/REFERENCES.md#oven-margins (closed forms): one gain crossover at sqrt(4^(2/3) - 1) with PM 27.1416306 deg and
     # delay margin 0.3842501695 s; one phase crossover at sqrt(3) where 1/|L| = 2
     m = loop_margins(*_ss(ct.tf(4, [1, 3, 3, 1])))
     (gc,) = m.crossovers
@@ -513,7 +513,7 @@ def test_breaking_one_component_closes_the_others():
 
 
 def test_bode_sensitivity_integral_of_the_unstable_rotor():
-    # REFERENCES.md REF-12: int_0^inf ln|S| dw = pi * sum Re p = 2 pi for L = 80 (s + 1)/(s^3 + 10 s^2 - 4 s - 40)
+    # tests/REFERENCES.md#rotor-sensitivity-integral: int_0^inf ln|S| dw = pi * sum Re p = 2 pi for L = 80 (s + 1)/(s^3 + 10 s^2 - 4 s - 40)
     # (Freudenberg & Looze, IEEE TAC AC-30(6), 1985, from memory)
     from loopwright.engine.limits import performance_limits
 

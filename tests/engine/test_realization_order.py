@@ -49,7 +49,7 @@ def test_with_zeros_the_states_are_the_phase_variables():
 
 
 def test_stage_loop_with_the_plant_as_1_over_s2_keeps_the_designed_poles():
-    # REFERENCES.md REF-03: K = [8, 4] designed for (position, velocity), L = [11, 30]:
+    # tests/REFERENCES.md#stage-observer: K = [8, 4] designed for (position, velocity), L = [11, 30]:
     # closed-loop poles -2 +- 2j, -5, -6. The plant given as 1/s^2 must give the same.
     d = stage_loop_ref03()
     p = d.block_by_name("P")

@@ -18,7 +18,7 @@ from diagrams import stage_loop_ref03
 
 pytestmark = pytest.mark.qt
 
-# REFERENCES.md REF-03 (positioning stage, demo data): A = [[0, 1], [0, 0]], B = [0, 1]',
+# tests/REFERENCES.md#stage-observer (positioning stage, demo data): A = [[0, 1], [0, 0]], B = [0, 1]',
 # C = [1, 0], K = [8, 4] (the gain block holds -K), L = [11, 30]; closed-loop poles by the
 # separation principle: eig(A - B K) = -2 +- 2j, eig(A - L C) = -5, -6.
 STAGE_POLES = [-6, -5, -2 - 2j, -2 + 2j]
