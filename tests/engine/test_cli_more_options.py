@@ -12,31 +12,22 @@ import pytest
 from numpy.testing import assert_allclose
 
 from loopwright.engine.cli import main
-from loopwright.engine.diagram import Diagram
 from loopwright.engine.project import save
+
+from diagrams import winder_servo
 
 
 # ---- time --settle --------------------------------------------------------------------
 
 def _servo_file(tmp_path) -> str:
-    # closed form: L = 4/(s (s + 2)) with unity feedback gives T = 4/(s^2 + 2 s + 4),
-    # wn = 2, zeta = 0.5
-    d = Diagram()
-    d.add_block("source", "r", {"role": "reference", "width": 1})
-    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
-    d.add_block("gain", "Kp", {"K": [[4.0]]})
-    d.add_block("plant", "P", {"A": [[0, 1], [0, -2]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
-    d.connect("r.out", "e.in1", name="ref")
-    d.connect("e.out", "Kp.in", name="err")
-    d.connect("Kp.out", "P.u", name="u")
-    d.connect("P.y", "e.in2", name="y")
     path = tmp_path / "servo.lwd"
-    save(d, str(path))
+    save(winder_servo(), str(path))
     return str(path)
 
 
 def _settling_time_closed_form(band: float) -> float:
-    """Last time the unit-step response of wn = 2, zeta = 0.5 is at least ``band`` from 1.
+    """Last time the unit-step response of the winder servo (tests/REFERENCES.md#winder-step,
+    wn = 2, zeta = 0.5) is at least ``band`` from 1.
 
     Closed form: y(t) = 1 - exp(-zeta wn t) sin(wd t + phi) / sqrt(1 - zeta^2), with
     wd = wn sqrt(1 - zeta^2) = sqrt(3) and phi = arccos(zeta) = pi/3; evaluated on a
