@@ -97,6 +97,21 @@ def rotor_lead_loop() -> Diagram:
     return d
 
 
+def winder_servo() -> Diagram:
+    """tests/REFERENCES.md#winder-step: L = 4/(s (s + 2)) in unity feedback, so
+    T = 4/(s^2 + 2 s + 4) with wn = 2, zeta = 0.5; signals ref, err, u, y."""
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    d.add_block("gain", "Kp", {"K": [[4.0]]})
+    d.add_block("plant", "P", {"A": [[0, 1], [0, -2]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
+    d.connect("r.out", "e.in1", name="ref")
+    d.connect("e.out", "Kp.in", name="err")
+    d.connect("Kp.out", "P.u", name="u")
+    d.connect("P.y", "e.in2", name="y")
+    return d
+
+
 def nonminimum_phase_lag() -> Diagram:
     """G = (1 - s)/(s + 1)^2 driven by a reference (closed form: a zero at s = +1); output signal G.y."""
     d = Diagram()

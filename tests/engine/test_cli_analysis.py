@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from diagrams import nonminimum_phase_lag, rotor_lead_loop
+from diagrams import nonminimum_phase_lag, rotor_lead_loop, winder_servo
 from loopwright.engine import CAUTION
 from loopwright.engine.cli import main
 from loopwright.engine.diagram import Diagram
@@ -355,18 +355,8 @@ def test_check_on_the_ill_conditioned_chain_separates_and_flags(capsys):
 
 
 def _servo_file(tmp_path) -> str:
-    # tests/REFERENCES.md#winder-step: L = 4/(s (s + 2)), unity feedback, T = 4/(s^2 + 2 s + 4): wn = 2, zeta = 0.5
-    d = Diagram()
-    d.add_block("source", "r", {"role": "reference", "width": 1})
-    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
-    d.add_block("gain", "Kp", {"K": [[4.0]]})
-    d.add_block("plant", "P", {"A": [[0, 1], [0, -2]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]})
-    d.connect("r.out", "e.in1", name="ref")
-    d.connect("e.out", "Kp.in", name="err")
-    d.connect("Kp.out", "P.u", name="u")
-    d.connect("P.y", "e.in2", name="y")
     path = tmp_path / "servo.lwd"
-    save(d, str(path))
+    save(winder_servo(), str(path))
     return str(path)
 
 

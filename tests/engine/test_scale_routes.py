@@ -65,8 +65,9 @@ def test_a_feedthrough_cycle_is_refused():
 @SETTINGS
 @given(st.lists(st.floats(0.5, 2.0), min_size=1, max_size=60))
 def test_a_chain_of_gains_inside_a_loop_assembles_to_its_product(gains):
-    # closed form: P = 2/(s+1) under u = (prod g) (r - y): A = -1 - 2 prod(g), the first Markov
-    # parameter of r -> y is C B_r = 2 prod(g) (whatever the realization), and r -> u has D = prod(g)
+    # closed form: P = 2/(s+1) under u = g (r - y), g = prod(gains): A = -1 - 2 g, and
+    # u/r = g (s + 1)/(s + 1 + 2 g) (its feedthrough g); compared as transfer values, which do
+    # not depend on how the plant's one state is scaled (B = 1, C = 2 or B = 2, C = 1)
     d = Diagram()
     d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step"}})
     d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
@@ -82,9 +83,11 @@ def test_a_chain_of_gains_inside_a_loop_assembles_to_its_product(gains):
     m = assemble(d)
     g = float(np.prod(gains))
     np.testing.assert_allclose(m.A, [[-1.0 - 2.0 * g]], rtol=1e-12)
-    _, B_r, C_y, _ = m.pair("r", "y")
-    np.testing.assert_allclose(C_y @ B_r, [[2.0 * g]], rtol=1e-12)
-    np.testing.assert_allclose(m.pair("r", "u")[3], [[g]], rtol=1e-12)
+    A, B, C, D = m.pair("r", "u")
+    for s in (0.0, 1j, 3.0 + 2j):
+        got = (C @ np.linalg.solve(s * np.eye(A.shape[0]) - A, B) + D)[0, 0]
+        np.testing.assert_allclose(got, g * (s + 1) / (s + 1 + 2 * g), rtol=1e-12)
+    np.testing.assert_allclose(D, [[g]], rtol=1e-12)
 
 
 # ---------------------------------------------------------------------------------------

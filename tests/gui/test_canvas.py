@@ -12,6 +12,7 @@ from loopwright.gui.canvas.wire_item import WireItem
 from loopwright.gui.commands import AddBlock
 
 from gui_helpers import SAMPLES, apply_random_edit
+from pictures import outline_sides, paints
 
 pytestmark = pytest.mark.qt
 
@@ -116,12 +117,14 @@ def test_valid_targets_are_highlighted_while_connecting(shown, qtbot):
     doc.push(b)
     sc = shown.scene
     out = sc.block_items[a.block_id].port(("out"), is_input=False)
+    ok = sc.theme.target_ok
+    assert not any(paints(p, ok) for it in sc.block_items.values() for p in it.ports.values())  # idle ports draw nothing
     sc._start_link(out.scenePos(), source=out.ref, target=None)
-    states = {p.ref.port: p._target_state for p in sc.block_items[b.block_id].ports.values() if p.is_input}
-    assert states == {"in1": 1, "in2": 1}
-    assert sc.block_items[a.block_id].port("in", is_input=True)._target_state == 1
+    # A valid end draws a ring in the "valid target" colour; an output cannot end a wire.
+    rings = {(it.block_id, p.ref.port, p.is_input) for it in sc.block_items.values() for p in it.ports.values() if paints(p, ok)}
+    assert rings == {(b.block_id, "in1", True), (b.block_id, "in2", True), (a.block_id, "in", True)}
     sc.cancel_gesture()
-    assert all(p._target_state == 0 for it in sc.block_items.values() for p in it.ports.values())
+    assert not any(paints(p, ok) for it in sc.block_items.values() for p in it.ports.values())
 
 
 def test_moving_blocks_by_mouse_snaps_to_the_grid_and_is_one_undo_step(shown, qtbot):
@@ -214,10 +217,17 @@ def test_highlight_marks_any_set_of_blocks_and_wires(window):
     window.open_sample(str(SAMPLES[0]))
     d = window.document.diagram
     p, u = d.block_by_name("P").id, d.wire_by_name("u").id
-    window.scene.highlight([p], [u])
-    assert window.scene.block_items[p]._highlighted and window.scene.wire_items[u]._highlighted
-    window.scene.highlight()
-    assert not window.scene.block_items[p]._highlighted
+    sc, lit = window.scene, window.scene.theme.highlight
+    assert not any(paints(it, lit) for it in [*sc.block_items.values(), *sc.wire_items.values()])
+    sc.highlight([p], [u])
+    # Only the named items are drawn in the highlight colour: P's outline, the whole of u.
+    assert {b for b, it in sc.block_items.items() if paints(it, lit)} == {p}
+    assert {w for w, it in sc.wire_items.items() if paints(it, lit)} == {u}
+    assert outline_sides(sc.block_items[p], lit) >= 3
+    assert not paints(sc.wire_items[u], sc.theme.wire)
+    sc.highlight()
+    assert not any(paints(it, lit) for it in [*sc.block_items.values(), *sc.wire_items.values()])
+    assert outline_sides(sc.block_items[p], sc.theme.block_border) >= 3
 
 
 def test_blocks_and_wires_use_device_cache_and_selection_is_by_id(window):

@@ -16,6 +16,7 @@ from loopwright.gui.commands import AddBlock, Connect, SetParams
 from loopwright.gui.main_window import sample_paths, status_text
 
 from gui_helpers import SAMPLES, assert_same_transfer
+from pictures import assert_canvas_drawn, outline_sides, paints, rgb_array
 
 pytestmark = pytest.mark.qt
 
@@ -31,8 +32,13 @@ def test_each_sample_opens_checks_and_is_photographed(make_window, wait_live, sc
     assert f"{report.states} states" in text
     assert ("· stable (0 right-half-plane poles)" in text) == report.stable
     assert "separation: poles match" in text  # each sample is an observer-based loop that separates
-    assert render_screenshot(win, screenshot_dir / f"{path.stem}.png")
-    assert (screenshot_dir / f"{path.stem}.png").stat().st_size > 20000
+    out = screenshot_dir / f"{path.stem}.png"
+    assert render_screenshot(win, out)
+    from PySide6.QtGui import QImage
+
+    pixels = rgb_array(QImage(str(out)))
+    assert pixels.shape[:2] == (win.height(), win.width())
+    assert_canvas_drawn(win, pixels)  # every block and wire drawn where the scene has it
 
 
 @pytest.mark.parametrize(
@@ -65,6 +71,8 @@ def test_problems_are_marked_on_the_canvas_and_listed_and_a_click_selects_the_cu
     assert result.report is None and result.problems
     item = window.scene.block_items[s.block_id]
     assert item.problems and any(m in item.toolTip() for m in item.problems)
+    theme = window.scene.theme
+    assert outline_sides(item, theme.problem) >= 3 and outline_sides(item, theme.block_border) <= 1  # outlined in the problem colour
     assert window.problems.count() == len(result.problems)
     window.problems.itemClicked.emit(window.problems.item(0))
     assert window.scene.selected_block_ids() == [s.block_id]
@@ -262,10 +270,13 @@ def test_a_width_mismatch_marks_the_wire_with_the_engine_message(window, wait_li
     assert any("has 2 signals" in m and "expects 1" in m for m in wire.problems)
     assert "has 2 signals" in wire.toolTip()
     assert wire.signal_width == 2
+    theme = window.scene.theme
+    assert paints(wire, theme.problem) and not paints(wire, theme.wire)  # drawn in the problem colour
     # Fix it: the mark goes away with the next live result.
     doc.push(SetParams(doc, k.block_id, {"K": [[1.0, 1.0]]}))
     wait_live(window)
     assert wire.problems == []
+    assert paints(wire, theme.wire) and not paints(wire, theme.problem)
 
 
 def test_history_panel_lists_each_edit_and_zoom_is_shown(window):

@@ -207,7 +207,7 @@ def test_a_hand_edit_of_a_designed_gain_drops_the_designed_note(stage):
     assert "recipe" in doc.diagram.blocks[ids["Kx"]].params
 
 
-def test_screenshots_of_a_three_state_plant_and_a_transfer_function(stage, screenshot_dir):
+def test_screenshots_of_a_three_state_plant_and_a_transfer_function(stage, screenshot_dir, qtbot):
     doc, insp, ids = stage
     insp.show_block(ids["P"])
     ed = insp.model_editor
@@ -217,7 +217,9 @@ def test_screenshots_of_a_three_state_plant_and_a_transfer_function(stage, scree
     _fill(ed.matrices["C"], [[1, 0, 0]])
     ed.apply_button.click()
     insp.show()
-    insp.grab().save(str(screenshot_dir / "inspector_three_state_plant.png"))
+    out = screenshot_dir / "inspector_three_state_plant.png"
+    shown = insp.model_editor.matrices  # the editor as the inspector shows it after applying
+    _assert_every_cell_drawn(qtbot, insp, out, shown, {"A": (3, 3), "B": (3, 1), "C": (1, 3), "D": (1, 1)})
     insp.show_block(ids["d"])
     cmd = AddBlock(doc, "dynamic", name="C1")
     doc.push(cmd)
@@ -225,8 +227,36 @@ def test_screenshots_of_a_three_state_plant_and_a_transfer_function(stage, scree
     _type(insp.model_editor.num, "1")
     _type(insp.model_editor.den, "1, 0, 0")
     insp.model_editor.apply_button.click()
-    insp.grab().save(str(screenshot_dir / "inspector_transfer_function_realization.png"))
-    assert (screenshot_dir / "inspector_transfer_function_realization.png").stat().st_size > 0
+    out = screenshot_dir / "inspector_transfer_function_realization.png"
+    # 1/s^2 has two states (closed form: a double integrator), so A is 2x2 and B 2x1.
+    _assert_every_cell_drawn(qtbot, insp, out, insp.model_editor.realization_mats, {"A": (2, 2), "B": (2, 1), "C": (1, 2), "D": (1, 1)})
+
+
+def _assert_every_cell_drawn(qtbot, insp, out, editors, shapes) -> None:
+    """Save a picture of the inspector and check that every cell of each matrix shows its
+    number: the cell lies inside its table's visible area and holds dark text pixels."""
+    from PySide6.QtGui import QImage
+
+    from pictures import rgb_array
+
+    # The nested layouts pass a table's new height up one level per event-loop turn; the
+    # stand-alone inspector can take a few turns (in the main window's dock it is at once).
+    qtbot.waitUntil(lambda: all(ed.height() >= ed.table.height() for ed in editors.values()), timeout=3000)
+    insp.grab().save(str(out))
+    pixels = rgb_array(QImage(str(out)))
+    assert pixels.shape[:2] == (insp.height(), insp.width())
+    dark = pixels[..., :3].max(axis=-1) < 110  # text ink on a light cell
+    for key, (n, m) in shapes.items():
+        table = editors[key].table
+        assert (table.rowCount(), table.columnCount()) == (n, m), key
+        view = table.viewport()
+        for i in range(n):
+            for j in range(m):
+                cell = table.visualItemRect(table.item(i, j))
+                assert table.isVisibleTo(insp) and view.rect().contains(cell), f"{key}[{i}, {j}] is cut off: {cell} outside {view.rect()}"
+                top_left = view.mapTo(insp, cell.topLeft())
+                x, y = top_left.x(), top_left.y()
+                assert dark[y + 2:y + cell.height() - 2, x + 2:x + cell.width() - 2].sum() >= 3, f"{key}[{i}, {j}] shows no number"
 
 
 def test_closing_with_an_unapplied_draft_asks_first(window, dialogs):

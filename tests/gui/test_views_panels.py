@@ -17,6 +17,7 @@ from loopwright.engine.views_data import loop_break_view, noise_bars, singular_v
 
 from gui_helpers import SAMPLES
 from loopwright.gui.docks.panel import pair_colour
+from pictures import mask_of, paints, rgb_array
 
 pytestmark = pytest.mark.qt
 
@@ -147,15 +148,42 @@ def test_audit_row_lights_exactly_its_path_and_shows_it_in_the_frequency_view(wi
     assert "worst stable path" in window.audit_status.text()
     k = 2
     panel.select_row(k)
-    lit_b = {b for b, it in window.scene.block_items.items() if it._highlighted}
-    lit_w = {w for w, it in window.scene.wire_items.items() if it._highlighted}
+    lit = window.scene.theme.highlight  # read from what each item paints
+    lit_b = {b for b, it in window.scene.block_items.items() if paints(it, lit)}
+    lit_w = {w for w, it in window.scene.wire_items.items() if paints(it, lit)}
     assert lit_b == set(rows[k].block_ids) and lit_w == set(rows[k].wire_ids)
     wait_views(window)
     freq = window.panels["frequency"]
     assert freq.audit_pair == (rows[k].source, rows[k].signal)
     assert any(key[0] == freq.audit_pair for key in freq.curves)
     panel.grid.clearSelection()
-    assert not any(it._highlighted for it in window.scene.block_items.values())
+    assert not any(paints(it, lit) for it in [*window.scene.block_items.values(), *window.scene.wire_items.values()])
+
+
+def _first_ink(panel):
+    """The colour the panel draws its first data item in, read from that item's pen or
+    brush; for the path audit (a table) the text colour of its rows."""
+    import pyqtgraph as pg
+
+    if panel.key in ("frequency", "time", "singular_values"):
+        curve = next(iter(panel.curves.values()))
+        curve = curve[0] if isinstance(curve, tuple) else curve  # frequency: (magnitude, phase)
+        return pg.mkPen(curve.opts["pen"]).color()
+    if panel.key == "loop_break":
+        return pg.mkPen(panel.curve.opts["pen"]).color()
+    if panel.key == "poles":
+        return pg.mkPen(panel.closed.opts["symbolPen"]).color()
+    if panel.key == "noise":
+        return pg.mkBrush(next(iter(panel.bars.values())).opts["brush"]).color()
+    return panel.grid.palette().text().color()
+
+
+def _picture_pixels(path):
+    from PySide6.QtGui import QImage
+
+    image = QImage(str(path))
+    assert not image.isNull(), path
+    return rgb_array(image)
 
 
 def test_every_view_exports_picture_and_data(window, wait_views, tmp_path):
@@ -167,7 +195,10 @@ def test_every_view_exports_picture_and_data(window, wait_views, tmp_path):
         panel.save_picture(tmp_path / f"{key}.png")
         panel.save_data(tmp_path / f"{key}.csv")
         assert (tmp_path / f"{key}.svg").read_text(encoding="utf-8").lstrip().startswith("<?xml")
-        assert (tmp_path / f"{key}.png").stat().st_size > 1000
+        # The PNG shows the data: its first curve, marker, bar or row in that item's colour.
+        pixels = _picture_pixels(tmp_path / f"{key}.png")
+        assert pixels.shape[1] >= (800 if key != "audit" else panel.grid.width()), key
+        assert mask_of(pixels, _first_ink(panel)).sum() >= 50, key
         lines = (tmp_path / f"{key}.csv").read_text(encoding="utf-8").splitlines()
         assert len(lines) > 1, key
     # the CSV of the frequency view holds the engine's numbers
@@ -188,7 +219,12 @@ def test_views_stay_readable_at_800_by_600(window, wait_views, screenshot_dir):
     for key in ("frequency", "time", "poles", "loop_break", "noise"):
         panel = _show(window, key, wait_views)
         assert panel.width() >= 150 and panel.height() >= 120, key
-        window.grab().save(str(screenshot_dir / f"views_800x600_{key}.png"))
+        out = screenshot_dir / f"views_800x600_{key}.png"
+        window.grab().save(str(out))
+        # The data are visible in the panel's own part of the window picture.
+        corner = panel.mapTo(window, panel.rect().topLeft())
+        pixels = _picture_pixels(out)[corner.y():corner.y() + panel.height(), corner.x():corner.x() + panel.width()]
+        assert mask_of(pixels, _first_ink(panel)).sum() >= 20, key
 
 
 def test_a_pole_warning_in_the_problems_list_opens_the_pole_map(window, wait_views):
