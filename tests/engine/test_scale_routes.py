@@ -16,7 +16,7 @@ from hypothesis import strategies as st
 
 from loopwright.engine.audit import path_audit
 from loopwright.engine.blockwise_response import BlockwiseModel, path_evaluator
-from loopwright.engine.diagram import Diagram
+from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.interconnect import assemble
 from loopwright.engine.noise import noise_budget
 from loopwright.engine.noise_shares import variances_by_source
@@ -265,3 +265,70 @@ def test_noise_budget_of_a_line_of_loops_matches_per_source_solves(ring):
         finite = np.isfinite(got)
         assert finite.sum() > model.C.shape[0] // 2
         np.testing.assert_allclose(got[finite], ref[finite], rtol=1e-8, atol=1e-12 * np.abs(ref[finite]).max())
+
+
+# ---------------------------------------------------------------------------------------
+# the diagram's lookup tables
+
+
+def _scan_into(d, ref):
+    return next((w for w in d.wires.values() if ref in w.targets), None)
+
+
+def _scan_from(d, ref):
+    return next((w for w in d.wires.values() if w.source == ref), None)
+
+
+def _lookups_agree_with_scans(d):
+    for b in d.blocks.values():
+        assert d.block_by_name(b.name) is b
+        for port in ("in", "in1", "in2", "out", "u", "y"):
+            ref = PortRef(b.id, port)
+            assert d.wire_into(ref) is _scan_into(d, ref)
+            assert d.wire_from(ref) is _scan_from(d, ref)
+    for w in d.wires.values():
+        assert d.wire_by_name(w.name) is w
+
+
+@SETTINGS
+@given(st.lists(st.tuples(st.sampled_from(["connect", "disconnect", "remove_block", "restore", "rename", "reassign", "rename_wire"]), st.integers(0, 50)), max_size=40))
+def test_the_port_and_name_lookups_follow_every_edit(edits):
+    """The lookup tables answer as a scan of every wire would (common practice, no source:
+    an index must agree with the data it indexes), after any sequence of edits, including
+    a wire's source reassigned directly and blocks removed and put back."""
+    d = Diagram()
+    for k in range(6):
+        d.add_block("gain", f"g{k}", {"K": [[1.0]]})
+    ids = list(d.blocks)
+    removed: list = []
+    for op, k in edits:
+        live = [b for b in ids if b in d.blocks]
+        if op == "connect" and len(live) >= 2:
+            a, b = live[k % len(live)], live[(k // len(live) + 1 + k) % len(live)]
+            if a != b and d.wire_into(PortRef(b, "in")) is None:
+                d.connect(PortRef(a, "out"), PortRef(b, "in"))
+        elif op == "disconnect" and d.wires:
+            w = list(d.wires.values())[k % len(d.wires)]
+            d.disconnect(w.id, w.targets[0])
+        elif op == "remove_block" and live:
+            bid = live[k % len(live)]
+            removed.append((d.blocks[bid], d.remove_block(bid)))
+        elif op == "restore" and removed:
+            blk, wires = removed.pop()
+            d.restore_block(blk)
+            for w in wires:
+                if w.id not in d.wires and all(t.block in d.blocks and d.wire_into(t) is None for t in w.targets):
+                    d.restore_wire(w)
+        elif op == "rename" and live:
+            d.rename_block(live[k % len(live)], f"h{k}_{len(d.blocks)}")
+        elif op == "rename_wire" and d.wires:
+            w = list(d.wires.values())[k % len(d.wires)]
+            if f"sig{k}" not in {x.name for x in d.wires.values()}:
+                d.rename_wire(w.id, f"sig{k}")
+        elif op == "reassign" and d.wires and live:
+            # a wire moved to another output directly, as the lumped-controller cut does
+            w = list(d.wires.values())[k % len(d.wires)]
+            new = PortRef(live[k % len(live)], "out")
+            if _scan_from(d, new) is None:
+                w.source = new
+        _lookups_agree_with_scans(d)
