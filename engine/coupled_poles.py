@@ -160,6 +160,10 @@ def residue_factors(bw, poles: np.ndarray) -> tuple[np.ndarray, np.ndarray] | No
     vals, cx, yb = bw.block_eigen()
     q = M.shape[1]
     F = np.eye(q)[None] - M
+    on_block_pole = ~(np.all(np.isfinite(F), axis=(1, 2)) & np.all(np.isfinite(N), axis=(1, 2)) & np.all(np.isfinite(CRU), axis=(1, 2)))
+    F[on_block_pole] = np.eye(q)
+    N = np.where(on_block_pole[:, None, None], 1.0, N)
+    CRU = np.where(on_block_pole[:, None, None], 0.0, CRU)
     with np.errstate(all="ignore"):
         U, _, Vh = np.linalg.svd(F)
         z = Vh[:, -1, :].conj()  # F z ~ 0
@@ -171,7 +175,7 @@ def residue_factors(bw, poles: np.ndarray) -> tuple[np.ndarray, np.ndarray] | No
         # the wiring and the formula above divides rounding by rounding; its residue is
         # the block mode's own (C x)(y^T B)
         j = np.argmin(np.abs(poles[:, None] - vals[None, :]), axis=1)
-        own = (np.abs(poles - vals[j]) <= _OWN_MODE * np.abs(poles)) | ~np.all(np.isfinite(a), axis=1) | ~np.isfinite(denom)
+        own = on_block_pole | (np.abs(poles - vals[j]) <= _OWN_MODE * np.abs(poles)) | ~np.all(np.isfinite(a), axis=1) | ~np.isfinite(denom)
         a[own] = cx[j[own]]
         b[own] = yb[j[own]]
     if not (np.all(np.isfinite(a)) and np.all(np.isfinite(b))):
