@@ -14,8 +14,9 @@ import scipy.sparse as sp
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from loopwright.engine.audit import path_audit
+from loopwright.engine.audit import _audit_block_by_block, path_audit
 from loopwright.engine.blockwise_response import BlockwiseModel, path_evaluator
+from loopwright.engine.coupled_poles import closed_loop_poles, h2_by_residues, residue_factors
 from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.interconnect import assemble
 from loopwright.engine.noise import noise_budget
@@ -186,6 +187,86 @@ def test_audit_on_the_block_route_finds_the_same_peaks():
         A, B, C, D = model.pair(row.source, row.signal)
         ref = _direct_response(A, B, C, D, np.array([row.peak_freq_rad_s]))
         assert row.peak_gain == pytest.approx(np.linalg.norm(ref[0], 2), rel=1e-8)
+
+
+def _compare_audits(fast, ref, *, h2_rtol):
+    # the same pairs; the order may differ only between pairs whose peak gains tie to rounding
+    by_pair = {(r.source, r.signal): r for r in ref}
+    assert sorted(by_pair) == sorted((r.source, r.signal) for r in fast)
+    for a in fast:
+        b = by_pair[a.source, a.signal]
+        key = f"{a.source} -> {a.signal}"
+        assert a.stable == b.stable, key
+        assert a.peak_gain == pytest.approx(b.peak_gain, rel=1e-8), key
+        assert a.h2 == pytest.approx(b.h2, rel=h2_rtol, abs=1e-12 * max(1.0, b.peak_gain)), key
+        assert a.dc_gain == pytest.approx(b.dc_gain, rel=1e-8, abs=1e-12 * max(1.0, b.peak_gain)), key
+        assert (a.blocks, a.wires) == (b.blocks, b.wires), key
+
+
+@SETTINGS
+@given(loop_diagrams())
+def test_closed_loop_poles_from_the_coupling_form_equal_the_dense_eigenvalues(diagram):
+    # reference: LAPACK's dense eigenvalues (numpy.linalg.eigvals) of the assembled A
+    model = assemble(diagram)
+    bw = BlockwiseModel.from_model(model)
+    if bw is None:
+        return
+    poles = closed_loop_poles(bw)
+    if poles is None:
+        return  # not certified (e.g. a multiple pole): the callers fall back to the dense route
+    ref = np.linalg.eigvals(model.A)
+    # match each pole to its nearest dense eigenvalue, both ways (multiset agreement for
+    # simple poles); the tolerance is that of the dense solver on these small matrices
+    scale = max(1.0, float(np.abs(ref).max()))
+    d1 = np.abs(poles[:, None] - ref[None, :]).min(axis=1)
+    d2 = np.abs(ref[:, None] - poles[None, :]).min(axis=1)
+    assert max(d1.max(), d2.max()) <= 1e-7 * scale
+
+
+@pytest.mark.parametrize("linked", [False, True], ids=["reduced-order estimator", "estimator linked to the plant"])
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_closed_loop_poles_of_modal_loops_are_certified_and_exact(seed, linked):
+    model = assemble(_modal_loop(25, 2, seed, linked=linked))
+    poles = closed_loop_poles(BlockwiseModel.from_model(model))
+    assert poles is not None
+    ref = np.linalg.eigvals(model.A)
+    assert np.abs(poles[:, None] - ref[None, :]).min(axis=1).max() <= 1e-10 * np.abs(ref).max()
+    assert np.abs(ref[:, None] - poles[None, :]).min(axis=1).max() <= 1e-10 * np.abs(ref).max()
+
+
+@SETTINGS
+@given(loop_diagrams())
+def test_the_audit_routes_agree_on_random_loops(diagram):
+    """The coupling route (poles by Aberth iteration, H2 by residues) against the Schur
+    route (H2 by a Lyapunov solve): the same rows, peaks, DC gains and paths."""
+    model = assemble(diagram)
+    ref = path_audit(model, route="whole model", refine_passes=3)
+    fast = path_audit(model, route="block by block", refine_passes=3)
+    _compare_audits(fast, ref, h2_rtol=1e-8)
+
+
+@pytest.mark.parametrize("linked", [False, True], ids=["reduced-order estimator", "estimator linked to the plant"])
+def test_the_audit_routes_agree_on_modal_loops(linked):
+    model = assemble(_modal_loop(30, 2, 4, linked=linked))
+    assert _audit_block_by_block(model, injections=True, points_per_decade=40, refine_passes=3, force=True) is not None
+    ref = path_audit(model, route="whole model", refine_passes=3, injections=True)
+    fast = path_audit(model, route="block by block", refine_passes=3, injections=True)
+    _compare_audits(fast, ref, h2_rtol=1e-8)
+
+
+def test_h2_by_residues_equals_the_lyapunov_solve():
+    # reference: scipy.linalg.solve_continuous_lyapunov, ||G||_2^2 = trace(C X C^T) with
+    # A X + X A^T + B B^T = 0 (closed form of the H2 norm through the controllability Gramian)
+    model = assemble(_modal_loop(20, 2, 5))
+    bw = BlockwiseModel.from_model(model)
+    poles = closed_loop_poles(bw)
+    h2 = h2_by_residues(bw, poles, residue_factors(bw, poles), {g: model.inputs[g] for g in model.sources}, dict(model.signals))
+    for (grp, sig), value in h2.items():
+        A, B, C, D = model.pair(grp, sig)
+        if np.any(D):
+            continue
+        X = sla.solve_continuous_lyapunov(A, -B @ B.T)
+        assert value == pytest.approx(np.sqrt(np.trace(C @ X @ C.T)), rel=1e-9, abs=1e-13), (grp, sig)
 
 
 # ---------------------------------------------------------------------------------------
