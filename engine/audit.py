@@ -18,7 +18,10 @@ value, and its H2 norm the Frobenius-type one.
 Peak gains of different signals carry different units; the ranking is a worklist, not a
 verdict. ``peak_over_dc`` (resonance relative to the static gain) is reported alongside.
 
-**Speed:** ``A`` is reduced once (complex Schur form); each input group is then
+**Speed:** on a big loop made of blocks with few ports (a modal plant under an
+observer-based controller) an operation count picks the coupling route
+(:func:`_audit_block_by_block`: no factorisation of the closed loop at all; its docstring
+states the method and its accuracy). Otherwise ``A`` is reduced once (complex Schur form); each input group is then
 evaluated for all signals at once on one frequency grid, peaks are refined jointly by
 grid densification (up to 8 passes of 5 points inside each signal's bracket around its
 peak, each pass one batched solve shared by all signals; a peak at either end of the grid
