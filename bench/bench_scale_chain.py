@@ -2,7 +2,9 @@
 
 The diagram is ``scale_diagrams.gain_chain_loop`` (demo data). Timed from the in-memory
 diagram: assembly, and each command's analysis (check summary, frequency response of one
-path, noise budget, margins at the command signal, path audit of the sources, up to ``--audit-max`` gains). python-
+path, noise budget, margins at the command signal, path audit of the sources, up to ``--audit-max`` gains);
+and reading the diagram back from its project text (``project.loads``: parsing, schema
+check and rebuilding the diagram wire by wire). python-
 control 0.10.2 assembles the same loop with ``interconnect`` (timed at ``--ct-gains``
 gains, where it finishes). Cost should grow linearly: the script runs ``--sizes``.
 
@@ -30,6 +32,7 @@ from loopwright.engine.blockwise_response import path_evaluator  # noqa: E402
 from loopwright.engine.interconnect import assemble  # noqa: E402
 from loopwright.engine.margins import margins_at  # noqa: E402
 from loopwright.engine.noise import noise_budget  # noqa: E402
+from loopwright.engine import project  # noqa: E402
 
 
 def _ct_chain(gains: int):
@@ -55,7 +58,9 @@ def main(argv=None) -> int:
         d = gain_chain_loop(gains)
         t_a, c_a, model = timed(lambda: assemble(d), repeat=3)
         assert np.allclose(model.A, [[-3.0]]) and np.allclose(model.pair("r", "u")[3], [[1.0]])
+        text = project.dumps(d)
         steps = {
+            "load project text": lambda: project.loads(text),
             "check": lambda: summarize(d),
             "freq (1000 points)": lambda: path_evaluator(assemble(d), "r", "y")(w),
             "noise": lambda: noise_budget(assemble(d)),

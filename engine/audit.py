@@ -18,7 +18,10 @@ value, and its H2 norm the Frobenius-type one.
 Peak gains of different signals carry different units; the ranking is a worklist, not a
 verdict. ``peak_over_dc`` (resonance relative to the static gain) is reported alongside.
 
-**Speed:** ``A`` is reduced once (complex Schur form); each input group is then
+**Speed:** on a big loop made of blocks with few ports (a modal plant under an
+observer-based controller) an operation count picks the coupling route
+(:func:`_audit_block_by_block`: no factorisation of the closed loop at all; its docstring
+states the method and its accuracy). Otherwise ``A`` is reduced once (complex Schur form); each input group is then
 evaluated for all signals at once on one frequency grid, peaks are refined jointly by
 grid densification (up to 8 passes of 5 points inside each signal's bracket around its
 peak, each pass one batched solve shared by all signals; a peak at either end of the grid
@@ -40,6 +43,7 @@ import scipy.linalg as sla
 
 from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
 from loopwright.engine.errors import EngineError
+from loopwright.engine.coupled_poles import closed_loop_poles, h2_by_residues, residue_factors
 from loopwright.engine.norms import dc_gain, h2_norm, lyapunov_from_schur, sigma_max
 from loopwright.engine.responses import ReducedModel, auto_frequency_grid, reduce_model
 
@@ -270,6 +274,7 @@ def path_audit(
     points_per_decade: int = 40,
     refine_passes: int = 8,
     progress=None,
+    route: str = "auto",
 ) -> list[AuditRow]:
     """Rank every (source, signal) path of the assembled model (see the module docstring
     for the rule).
@@ -290,12 +295,24 @@ def path_audit(
         milliseconds. It may raise (e.g. :class:`AuditCancelled`) to stop the audit: the
         exception propagates and no rows are returned. This is how a window stops a long
         audit without waiting for it.
+    route : {"auto", "whole model", "block by block"}
+        ``"auto"`` picks by an operation count; ``"block by block"`` asks for the coupling
+        route (:func:`_audit_block_by_block`) whatever its cost, still falling back to the
+        whole-model route where that route cannot certify its answer.
 
     Returns
     -------
     list of AuditRow
         Sorted, ``rank`` 1 first. Pairs with no structural path and zero gain are left out.
     """
+    if route not in ("auto", "whole model", "block by block"):
+        raise ValueError(f"route must be 'auto', 'whole model' or 'block by block', not {route!r}")
+    if reduced is None and route != "whole model":
+        fast = _audit_block_by_block(
+            model, injections=injections, points_per_decade=points_per_decade, refine_passes=refine_passes, force=route == "block by block"
+        )
+        if fast is not None:
+            return fast
     A, B, C, D = model.A, model.B, model.C, model.D
     n = A.shape[0]
     red = reduce_model(A) if reduced is None else reduced
@@ -349,56 +366,178 @@ def path_audit(
                 if cn > 0 and np.linalg.norm(Cz @ v) / (np.linalg.norm(v) * cn) > _COUPLING_TOL:
                     unstable = True
                     break
-            bids, wids = path_between(model, grp, sig, graph, cache=reach_cache)
-            d_peak = float(np.linalg.norm(Dg[sl], 2)) if Dg[sl].size else 0.0
-            note = ""
-            if unstable:
-                peak, wpk, h2 = np.inf, np.nan, np.inf
-                note = "a mode with Re(p) >= 0 is reached by the source and seen at the signal"
-            else:
-                peak, wpk = best[sig]
-                # a sup reached only as w -> inf equals |D|; the refined grid then stops just
-                # short of it at some huge finite frequency, which would mislead
-                if d_peak >= peak * (1.0 - 1e-9):
-                    peak, wpk = max(d_peak, peak), np.inf
-                if np.any(Dg[sl] != 0):
-                    h2 = np.inf
-                    note = "direct feedthrough: H2 is infinite"
-                elif X is not None:
+
+            def h2_of(sl=sl):
+                if X is not None:
                     Cs = C[sl] * red.scale[None, :]
-                    h2 = float(np.sqrt(max(np.trace(Cs @ X @ Cs.T), 0.0)))
-                elif n == 0:
-                    h2 = 0.0
-                else:
-                    h2 = h2_norm(A, Bg, C[sl], Dg[sl]).value
+                    return float(np.sqrt(max(np.trace(Cs @ X @ Cs.T), 0.0)))
+                if n == 0:
+                    return 0.0
+                return h2_norm(A, Bg, C[sl], Dg[sl]).value
+
             g0 = Y[0, sl, :]
             if not np.all(np.isfinite(g0)):
                 g0 = dc_gain(A, Bg, C[sl], Dg[sl])
-            scalar = g0.size == 1
-            if not np.all(np.isfinite(g0)):
-                # an integrator on the path: unbounded at DC; a scalar path keeps the sign it tends to
-                dc = float(np.sign(np.nan_to_num(np.real(g0).ravel()[0]))) * np.inf if scalar else np.inf
-                if scalar and dc == 0:
-                    dc = np.inf
-            elif scalar:
-                dc = float(np.real(g0.ravel()[0]))  # a real system's DC gain is real
-            else:
-                dc = float(np.linalg.norm(g0, 2)) if g0.size else 0.0
-            if wpk == np.inf and np.isfinite(dc) and abs(abs(dc) - peak) <= 1e-9 * peak:
-                wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
-            if np.isfinite(dc) and np.isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
-                dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
-            if not bids and not unstable and peak <= 1e-13 * scale_ref:
-                continue
-            names_b = [model.diagram.blocks[b].name for b in bids]
-            names_w = [model.diagram.wires[w].name for w in wids]
-            rows.append(
-                AuditRow(
-                    grp, sig, peak, wpk, h2, dc, not unstable, names_b, names_w, bids, wids, note=note,
-                    dc_gain_kind="signed value" if scalar else "largest singular value",
-                )
-            )
+            row = _pair_row(model, grp, sig, Dg[sl], g0, best.get(sig), unstable, h2_of, scale_ref, graph, reach_cache)
+            if row is not None:
+                rows.append(row)
     report(1.0)
+    return _ranked(rows)
+
+
+def _pair_row(model, grp, sig, Dgs, g0, best, unstable, h2_of, scale_ref, graph, reach_cache) -> AuditRow | None:
+    """The audit row of one pair from its pieces (either route); None for a pair with no
+    structural path and zero gain. ``h2_of()`` gives the H2 norm of a stable strictly
+    proper path."""
+    bids, wids = path_between(model, grp, sig, graph, cache=reach_cache)
+    d_peak = float(np.linalg.norm(Dgs, 2)) if Dgs.size else 0.0
+    note = ""
+    if unstable:
+        peak, wpk, h2 = np.inf, np.nan, np.inf
+        note = "a mode with Re(p) >= 0 is reached by the source and seen at the signal"
+    else:
+        peak, wpk = best
+        # a sup reached only as w -> inf equals |D|; the refined grid then stops just
+        # short of it at some huge finite frequency, which would mislead
+        if d_peak >= peak * (1.0 - 1e-9):
+            peak, wpk = max(d_peak, peak), np.inf
+        if np.any(Dgs != 0):
+            h2 = np.inf
+            note = "direct feedthrough: H2 is infinite"
+        else:
+            h2 = h2_of()
+    scalar = g0.size == 1
+    if not np.all(np.isfinite(g0)):
+        # an integrator on the path: unbounded at DC; a scalar path keeps the sign it tends to
+        dc = float(np.sign(np.nan_to_num(np.real(g0).ravel()[0]))) * np.inf if scalar else np.inf
+        if scalar and dc == 0:
+            dc = np.inf
+    elif scalar:
+        dc = float(np.real(g0.ravel()[0]))  # a real system's DC gain is real
+    else:
+        dc = float(np.linalg.norm(g0, 2)) if g0.size else 0.0
+    if wpk == np.inf and np.isfinite(dc) and abs(abs(dc) - peak) <= 1e-9 * peak:
+        wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
+    if np.isfinite(dc) and np.isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
+        dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
+    if not bids and not unstable and peak <= 1e-13 * scale_ref:
+        return None
+    names_b = [model.diagram.blocks[b].name for b in bids]
+    names_w = [model.diagram.wires[w].name for w in wids]
+    return AuditRow(
+        grp, sig, peak, wpk, h2, dc, not unstable, names_b, names_w, bids, wids, note=note,
+        dc_gain_kind="signed value" if scalar else "largest singular value",
+    )
+
+
+class _BlockResponder:
+    """The responder interface of :func:`_refine_peaks` on the block-by-block route."""
+
+    def __init__(self, bw: BlockwiseModel, cols):
+        self.bw, self.cols = bw, cols
+
+    def solve(self, w_rad_s):
+        return self.bw.response(self.cols, slice(None), 1j * np.atleast_1d(np.asarray(w_rad_s, dtype=float)))
+
+    def outputs(self, solved, rows: slice, points: slice = slice(None)) -> np.ndarray:
+        return solved[points, rows, :]
+
+
+# Entries (frequencies x signals x inputs) of the grid response held at once.
+_GRID_ENTRIES = 8_000_000
+# Sweeps of the pole iteration counted by the operation count (typical: 10 to 40).
+_SWEEPS = 30
+
+
+def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, refine_passes: int, force: bool = False) -> list[AuditRow] | None:
+    """The audit without a dense factorisation of the closed loop, or None where this route
+    does not apply or cannot certify its answer (the caller then takes the whole-model route).
+
+    Method (exact; no reduced model):
+
+    * closed-loop poles: all roots of ``det(s I - A)`` through the coupling form
+      ``A = A0 + U V`` (:func:`loopwright.engine.coupled_poles.closed_loop_poles`: a few
+      dozen O(n q^2 + n^2) sweeps instead of the O(n^3) Schur form). They lay the same
+      frequency grid as the whole-model route and decide stability: this route handles
+      clearly stable loops (every pole with ``Re(p) < -1e-9 max(1, |p|)``); a loop with a
+      pole on or right of that line goes to the whole-model route, which tells which paths
+      the mode reaches;
+    * grid responses of every source at once, block by block (one evaluation of the
+      blocks' own resolvents serves all sources), refined around each peak as on the other
+      route;
+    * H2 norms by the residue theorem (:func:`~loopwright.engine.coupled_poles.h2_by_residues`):
+      ``||G||_2^2 = sum_k trace(G(-p_k)^T Res_k)`` over the closed-loop poles ``p_k``. Agreement
+      with the Lyapunov solve of the whole-model route: about 1e-10 relative on well-damped
+      loops; on the 3,008-state flexible loop (poles spread over six decades) 1e-8 to 1e-7,
+      where the dense Lyapunov solve of the stiff matrix is itself the less accurate one
+      (its error grows with ``||A||``, the residue sum's with the poles' own conditioning).
+      A path whose sum cancels to fewer than about ten digits is refused (whole-model route).
+    """
+    n = model.A.shape[0]
+    if n == 0:
+        return None
+    bw = BlockwiseModel.from_model(model)
+    if bw is None:
+        return None
+    if not force:
+        q, p = bw.q, model.C.shape[0]
+        structured = _SWEEPS * (bw.cost(q, q, n) + 8.0 * n * n)
+        if structured >= 25.0 * float(n) ** 3:  # the dense real Schur form with vectors
+            return None
+    poles = closed_loop_poles(bw)
+    if poles is None or np.any(poles.real >= -1e-9 * np.maximum(1.0, np.abs(poles))):
+        return None
+    factors = residue_factors(bw, poles)
+    if factors is None:
+        return None
+    groups = [g for g in model.inputs if g in model.sources]
+    if injections:
+        groups += [g for g in model.inputs if g.startswith("inject:")]
+    sig_items = list(model.signals.items())
+    h2 = h2_by_residues(bw, poles, factors, {g: model.inputs[g] for g in groups}, dict(sig_items))
+    D = model.D
+    for (grp, sig), v in h2.items():
+        if v is None and not np.any(D[model.signals[sig], model.inputs[grp]] != 0):
+            return None
+    grid = np.concatenate([[0.0], auto_frequency_grid(poles, points_per_decade=points_per_decade)])
+    p = model.C.shape[0]
+    graph = model.diagram.graph()
+    reach_cache: dict = {}
+    rows: list[AuditRow] = []
+    # batches of input groups whose grid responses fit in memory together
+    batches, cur, width = [], [], 0
+    for grp in groups:
+        w = model.inputs[grp].stop - model.inputs[grp].start
+        if cur and grid.size * p * (width + w) > _GRID_ENTRIES:
+            batches.append(cur)
+            cur, width = [], 0
+        cur.append(grp)
+        width += w
+    if cur:
+        batches.append(cur)
+    for batch in batches:
+        cols = np.concatenate([np.arange(model.inputs[g].start, model.inputs[g].stop) for g in batch])
+        Y_all = bw.response(cols, slice(None), 1j * grid)
+        if not np.all(np.isfinite(Y_all[0])):
+            return None  # a block's own pole at s = 0: the whole-model route finds the DC gain
+        at = 0
+        for grp in batch:
+            gcols = model.inputs[grp]
+            w = gcols.stop - gcols.start
+            Y = Y_all[:, :, at : at + w]
+            at += w
+            best = _refine_peaks(_BlockResponder(bw, gcols), grid, Y, sig_items, refine_passes)
+            finite_y = np.abs(Y[np.isfinite(Y)])
+            scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
+            Dg = D[:, gcols]
+            for sig, sl in sig_items:
+                row = _pair_row(model, grp, sig, Dg[sl], Y[0, sl, :], best[sig], False, lambda key=(grp, sig): h2[key], scale_ref, graph, reach_cache)
+                if row is not None:
+                    rows.append(row)
+    return _ranked(rows)
+
+
+def _ranked(rows: list[AuditRow]) -> list[AuditRow]:
     rows.sort(key=lambda r: (r.stable, -r.peak_gain if np.isfinite(r.peak_gain) else -np.inf, -r.h2 if np.isfinite(r.h2) else -np.inf, r.source, r.signal))
     for i, r in enumerate(rows, 1):
         r.rank = i

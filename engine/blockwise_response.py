@@ -50,6 +50,10 @@ _TRI = 8.0
 _CALL = 2.0e4
 # Entries (parts x frequencies x columns) held at once by the modal evaluator.
 _MAX_ENTRIES = 2_000_000
+# Entries (frequencies x parts) of the 1 / det tables of small parts formed at once: small
+# enough to stay in cache between the passes over them, and few rows per product, which
+# keeps the BLAS from waking its threads for a tiny product (ten times faster here).
+_TABLE_ENTRIES = 20_000
 # The coupling factors are trusted only if they reproduce A and B to this relative level.
 _FACTOR_TOL = 1e-10
 # Parts up to this size are evaluated by batched dense solves; a block with a bigger part
@@ -108,6 +112,9 @@ class _ModalBlock:
             if not keep.any():
                 continue
             Ap_k, Ug_k, Rg_k = Ap[keep], Ug[keep], Rg[:, keep]
+            if b <= 2:
+                out += _small_parts_response(Ap_k, Ug_k, Rg_k, s)
+                continue
             gk = Ap_k.shape[0]
             eye = np.eye(b)
             chunk = max(1, _MAX_ENTRIES // max(1, gk * b * b))
@@ -118,6 +125,141 @@ class _ModalBlock:
                     X = _batched_solve(M, np.broadcast_to(Ug_k[None], (sc.size, gk, b, q)))
                     out[a : a + chunk] += np.einsum("rgb,kgbq->krq", Rg_k, X, optimize=True)
         return out
+
+
+def _small_parts_response(Ap: np.ndarray, Ug: np.ndarray, Rg: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """``sum_g Rg[:, g] (s I - Ap[g])^-1 Ug[g]`` for parts of size 1 or 2, shape (k, r, q).
+
+    With the adjugate of a 2x2 matrix, ``(s I - A)^-1 u = ((s - tr A) u + A u) / det(s I - A)``,
+    so each part contributes ``(s alpha + beta) / det`` with ``alpha = r u`` and
+    ``beta = r (A - tr(A) I) u`` fixed: the sum over parts is two matrix products of the
+    table ``1 / det(s_k I - A_g)`` (frequencies x parts) with ``alpha`` and ``beta``. The
+    determinant is formed as ``(s - l1)(s - l2)`` from the part's eigenvalues, which keeps
+    its relative accuracy next to a lightly damped pole. For 1x1 parts ``alpha = r u``,
+    ``beta = 0`` and ``det = s - a``.
+    """
+    g, b, _ = Ap.shape
+    r, q = Rg.shape[0], Ug.shape[2]
+    alpha = np.einsum("rgb,gbq->grq", Rg, Ug).reshape(g, r * q)
+    if b == 1:
+        beta = None
+        lam = Ap[:, 0, :1]  # (g, 1)
+    else:
+        tr = Ap[:, 0, 0] + Ap[:, 1, 1]
+        AmT = Ap - tr[:, None, None] * np.eye(2)[None]
+        beta = np.einsum("rgb,gbc,gcq->grq", Rg, AmT, Ug).reshape(g, r * q)
+        lam = np.linalg.eigvals(Ap)  # (g, 2)
+    out = np.empty((s.size, r * q), dtype=complex)
+    chunk = max(1, _TABLE_ENTRIES // max(1, g))
+    if b == 2 and not np.any(s.real):
+        # on the imaginary axis s = j w: det = (det A - w^2) - j w tr A has its real and
+        # imaginary parts in real arithmetic (the real part one subtraction, so relative
+        # accuracy about eps / (2 zeta) at a resonance of damping zeta), and 1 / det is
+        # applied by real matrix products
+        w = s.imag
+        dA = Ap[:, 0, 0] * Ap[:, 1, 1] - Ap[:, 0, 1] * Ap[:, 1, 0]
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            for a in range(0, s.size, chunk):
+                wc = w[a : a + chunk]
+                re = dA[None, :] - (wc * wc)[:, None]
+                im = -wc[:, None] * tr[None, :]
+                mag = re * re + im * im
+                P, Q = re / mag, -im / mag  # 1 / det = P + j Q
+                Pa, Qa, Pb, Qb = P @ alpha, Q @ alpha, P @ beta, Q @ beta
+                # (j w alpha + beta)(P + j Q) = (Pb - w Qa) + j (w Pa + Qb)
+                out[a : a + chunk].real = Pb - wc[:, None] * Qa
+                out[a : a + chunk].imag = wc[:, None] * Pa + Qb
+        return out.reshape(s.size, r, q)
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        for a in range(0, s.size, chunk):
+            sc = s[a : a + chunk]
+            den = sc[:, None] - lam[None, :, 0]
+            if b == 2:
+                den = den * (sc[:, None] - lam[None, :, 1])
+            inv = 1.0 / den  # (kc, g)
+            part = sc[:, None] * (inv @ alpha) if b == 2 else inv @ alpha
+            if beta is not None:
+                part += inv @ beta
+            out[a : a + chunk] = part
+    return out.reshape(s.size, r, q)
+
+
+def _small_parts_pair(Ap: np.ndarray, Ug: np.ndarray, Rg: np.ndarray, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``sum_g Rg[:, g] R_g Ug[g]`` and ``sum_g Rg[:, g] R_g^2 Ug[g]`` with
+    ``R_g = (s I - Ap[g])^-1`` for parts of size 1 or 2, each (k, r, q).
+
+    As in :func:`_small_parts_response`: with ``Ã = A - tr(A) I`` the adjugate is
+    ``s I + Ã``, so ``R u = (s alpha + beta) / det`` and
+    ``R^2 u = (s^2 alpha + 2 s beta + gamma) / det^2`` with ``alpha = r u``,
+    ``beta = r Ã u``, ``gamma = r Ã^2 u`` (for 1x1 parts ``R = 1 / (s - a)``).
+    """
+    g, b, _ = Ap.shape
+    r, q = Rg.shape[0], Ug.shape[2]
+    alpha = np.einsum("rgb,gbq->grq", Rg, Ug).reshape(g, r * q)
+    if b == 2:
+        tr = Ap[:, 0, 0] + Ap[:, 1, 1]
+        At = Ap - tr[:, None, None] * np.eye(2)[None]
+        AtU = np.einsum("gbc,gcq->gbq", At, Ug)
+        beta = np.einsum("rgb,gbq->grq", Rg, AtU).reshape(g, r * q)
+        gamma = np.einsum("rgb,gbc,gcq->grq", Rg, At, AtU).reshape(g, r * q)
+        lam = np.linalg.eigvals(Ap)
+    else:
+        lam = Ap[:, 0, :1]
+    out1 = np.empty((s.size, r * q), dtype=complex)
+    out2 = np.empty((s.size, r * q), dtype=complex)
+    chunk = max(1, _TABLE_ENTRIES // max(1, g))
+    alpha = alpha.astype(complex)  # one BLAS type for the products below
+    if b == 2:
+        beta, gamma = beta.astype(complex), gamma.astype(complex)
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        for a in range(0, s.size, chunk):
+            sc = s[a : a + chunk][:, None]
+            den = sc - lam[None, :, 0]
+            if b == 2:
+                den *= sc - lam[None, :, 1]
+            # 1 / den as conj(den) / |den|^2: numpy's complex division guards against
+            # overflow at several times the cost, and |den|^2 stays far inside the range here
+            inv = den.conj()
+            inv /= den.real * den.real + den.imag * den.imag
+            inv2 = inv * inv
+            if b == 2:
+                out1[a : a + chunk] = sc * (inv @ alpha) + inv @ beta
+                out2[a : a + chunk] = sc * sc * (inv2 @ alpha) + 2.0 * sc * (inv2 @ beta) + inv2 @ gamma
+            else:
+                out1[a : a + chunk] = inv @ alpha
+                out2[a : a + chunk] = inv2 @ alpha
+    return out1.reshape(s.size, r, q), out2.reshape(s.size, r, q)
+
+
+def _modal_pair(self, rows: np.ndarray, U: np.ndarray, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``rows R U`` and ``rows R R U`` with ``R = (s I - A0)^-1``, each (k, r, q)."""
+    k, r, q = s.size, rows.shape[0], U.shape[1]
+    out1 = np.zeros((k, r, q), dtype=complex)
+    out2 = np.zeros((k, r, q), dtype=complex)
+    for idx, Ap in self.groups:
+        g, b = idx.shape
+        Ug, Rg = U[idx], rows[:, idx]
+        keep = np.any(Ug != 0, axis=(1, 2)) & np.any(Rg != 0, axis=(0, 2))
+        if not keep.any():
+            continue
+        Ap_k, Ug_k, Rg_k = Ap[keep], Ug[keep], Rg[:, keep]
+        if b <= 2:
+            first, second = _small_parts_pair(Ap_k, Ug_k, Rg_k, s)
+            out1 += first
+            out2 += second
+            continue
+        gk = Ap_k.shape[0]
+        eye = np.eye(b)
+        chunk = max(1, _MAX_ENTRIES // max(1, gk * b * b))
+        for a in range(0, k, chunk):
+            sc = s[a : a + chunk]
+            M = sc[:, None, None, None] * eye[None, None] - Ap_k[None]
+            with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+                X1 = _batched_solve(M, np.broadcast_to(Ug_k[None], (sc.size, gk, b, q)))
+                X2 = _batched_solve(M, X1)
+                out1[a : a + chunk] += np.einsum("rgb,kgbq->krq", Rg_k, X1, optimize=True)
+                out2[a : a + chunk] += np.einsum("rgb,kgbq->krq", Rg_k, X2, optimize=True)
+    return out1, out2
 
 
 def _batched_solve(M: np.ndarray, R: np.ndarray) -> np.ndarray:
@@ -150,6 +292,23 @@ def _batched_solve(M: np.ndarray, R: np.ndarray) -> np.ndarray:
         return out
 
 
+def _modal_eigen(self, C: np.ndarray, B: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Eigenvalues of every part with ``C x`` and ``y^T B`` of their right/left
+    eigenvectors (``y^T x = 1``); ``C``, ``B`` restricted to the block's states."""
+    vals, cx, yb = [], [], []
+    for idx, Ap in self.groups:
+        lam, X = np.linalg.eig(Ap)  # (g, b), (g, b, b)
+        Y = np.linalg.inv(X)  # rows: left eigenvectors with y^T x = 1
+        vals.append(lam.ravel())
+        cx.append(np.einsum("pgb,gbe->gep", C[:, idx], X).reshape(-1, C.shape[0]))
+        yb.append(np.einsum("geb,gbm->gem", Y, B[idx]).reshape(-1, B.shape[1]))
+    return np.concatenate(vals), np.concatenate(cx), np.concatenate(yb)
+
+
+_ModalBlock.response_pair = _modal_pair
+_ModalBlock.eigen = _modal_eigen
+
+
 class _SchurBlock:
     """``(s I - A0_i)^-1`` through the block's own complex Schur form: O(n_i^2) per frequency."""
 
@@ -171,6 +330,22 @@ class _SchurBlock:
     def cost(self, q: int, rows: int) -> tuple[float, float]:
         n = self.n
         return _SCHUR * n**3, _TRI * n * n * q + 8.0 * n * q * rows
+
+    def eigen(self, C: np.ndarray, B: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Eigenvalues with ``C x`` and ``y^T B`` of their right/left eigenvectors (``y^T x = 1``)."""
+        lam, X = np.linalg.eig(self.A)
+        return lam, (C @ X).T, np.linalg.solve(X, B)
+
+    def response_pair(self, rows: np.ndarray, U: np.ndarray, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """``rows R U`` and ``rows R R U`` with ``R = (s I - A0)^-1``, each (k, r, q)."""
+        from loopwright.engine.responses import _shifted_solve
+
+        red = self.red
+        Ut, Rt = red.input_matrix(U), red.output_matrix(rows)
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            X1 = _shifted_solve(red.T, s, Ut)
+            X2 = _shifted_solve(red.T, s, X1)
+            return np.einsum("rn,nkq->krq", Rt, X1), np.einsum("rn,nkq->krq", Rt, X2)
 
     def response(self, rows: np.ndarray, U: np.ndarray, s: np.ndarray) -> np.ndarray:
         red = self.red
@@ -283,6 +458,41 @@ class BlockwiseModel:
             total += setup + k * per
         q = self.q
         return total + k * (8.0 * q**3 / 3 + 8.0 * q * q * m + 8.0 * p * q * m)
+
+    def block_eigen(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Every block's own eigenvalues ``d_i`` with ``C x_i`` (n, p) and ``y_i^T B`` (n, m)
+        of their eigenvectors: the residue of a mode the wiring does not move."""
+        vals, cx, yb = [], [], []
+        for b in self.blocks:
+            lam, c, y = b.evaluator.eigen(self.model.C[:, b.states], self.model.B[b.states])
+            vals.append(lam)
+            cx.append(c)
+            yb.append(y)
+        return np.concatenate(vals), np.concatenate(cx), np.concatenate(yb)
+
+    def coupling_terms(self, s, *, outputs: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+        """``M(s) = V R(s) U`` and ``N(s) = V R(s)^2 U`` (both (k, q, q); ``dM/ds = -N``), and
+        with ``outputs`` also ``C R(s) U`` (k, p, q), where ``R(s) = (s I - A0)^-1``.
+
+        ``det(I - M(s)) prod_i (s - d_i)`` (``d_i`` the blocks' own poles) is the
+        characteristic polynomial of the closed loop ``A = A0 + U V``.
+        """
+        s = np.atleast_1d(np.asarray(s, dtype=complex))
+        k, q = s.size, self.q
+        C = self.model.C
+        lhs = np.vstack([self.V, C]) if outputs else self.V
+        M = np.zeros((k, lhs.shape[0], q), dtype=complex)
+        N = np.zeros((k, q, q), dtype=complex)
+        for b in self.blocks:
+            out_rows = lhs[:, b.states]
+            used = np.flatnonzero(np.any(out_rows != 0, axis=1))
+            if used.size == 0 or not np.any(b.U):
+                continue
+            first, second = b.evaluator.response_pair(out_rows[used], b.U, s)
+            M[:, used, b.channels] = first
+            v_used = used < q
+            N[:, used[v_used], b.channels] = second[:, v_used]
+        return M[:, :q], N, (M[:, q:] if outputs else None)
 
     def response(self, cols, rows, s) -> np.ndarray:
         """``G(s)`` of the path from input columns ``cols`` to output rows ``rows``.

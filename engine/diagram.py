@@ -26,6 +26,21 @@ SOURCE_ROLES = ("reference", "disturbance", "noise")
 _NAME_RE = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
 _SIGNAL_RE = re.compile(r"[A-Za-z_][A-Za-z0-9_.]*")
 
+# Counts reassignments of a wire's source/targets/name or a block's name made after
+# construction (anywhere): a diagram's lookup tables are rebuilt when it moves.
+_EDITS = [0]
+
+
+class _Tracked:
+    """Dataclass mixin: reassigning one of the looked-up attributes bumps :data:`_EDITS`."""
+
+    _TRACKED: frozenset = frozenset()
+
+    def __setattr__(self, key: str, value: Any) -> None:
+        if key in self._TRACKED and key in self.__dict__:
+            _EDITS[0] += 1
+        object.__setattr__(self, key, value)
+
 
 @dataclass(frozen=True)
 class PortRef:
@@ -36,7 +51,7 @@ class PortRef:
 
 
 @dataclass
-class Block:
+class Block(_Tracked):
     """A box on the canvas.
 
     Attributes
@@ -62,9 +77,11 @@ class Block:
     layout: dict[str, Any] = field(default_factory=dict)
     caption: str = ""
 
+    _TRACKED = frozenset({"name"})
+
 
 @dataclass
-class Wire:
+class Wire(_Tracked):
     """A connection from one output port to one or more input ports, carrying one signal.
 
     ``layout`` may hold ``bends``: a dict target-index (as str) -> list of [x, y] points.
@@ -75,6 +92,8 @@ class Wire:
     source: PortRef
     targets: list[PortRef] = field(default_factory=list)
     layout: dict[str, Any] = field(default_factory=dict)
+
+    _TRACKED = frozenset({"name", "source", "targets"})
 
 
 def default_params(kind: str) -> dict[str, Any]:
@@ -101,6 +120,43 @@ def default_params(kind: str) -> dict[str, Any]:
     raise ParameterError(f"unknown block kind {kind!r}; expected one of {', '.join(BLOCK_KINDS)}", field="kind")
 
 
+class _Lookup:
+    """Lookup tables of a diagram: which wire feeds / leaves a port, wire and block by name.
+
+    Kept in step by every mutating :class:`Diagram` method, so building a diagram of ``n``
+    blocks costs O(n) instead of a scan of every wire per connection. A change made around
+    those methods (assigning into ``Diagram.wires``/``blocks``, reassigning a wire's
+    source/targets/name or a block's name) changes :meth:`Diagram._stamp` and the tables are
+    rebuilt on the next lookup; every hit is checked against the data before it is returned.
+    """
+
+    def __init__(self, d: "Diagram") -> None:
+        self.into: dict[PortRef, str] = {}
+        self.out: dict[PortRef, str] = {}
+        self.wire_names: dict[str, str] = {}
+        self.block_names: dict[str, str] = {}
+        for b in d.blocks.values():
+            self.block_names.setdefault(b.name, b.id)
+        for w in d.wires.values():
+            self.add_wire(w)
+        self.stamp = d._stamp()
+
+    def add_wire(self, w: "Wire") -> None:
+        self.out.setdefault(w.source, w.id)
+        self.wire_names.setdefault(w.name, w.id)
+        for t in w.targets:
+            self.into.setdefault(t, w.id)
+
+    def drop_wire(self, w: "Wire") -> None:
+        if self.out.get(w.source) == w.id:
+            del self.out[w.source]
+        if self.wire_names.get(w.name) == w.id:
+            del self.wire_names[w.name]
+        for t in w.targets:
+            if self.into.get(t) == w.id:
+                del self.into[t]
+
+
 class Diagram:
     """Blocks, wires, analysis settings and free-form metadata.
 
@@ -120,6 +176,41 @@ class Diagram:
         self.settings: dict[str, Any] = {}
         self.meta: dict[str, Any] = {}
         self._next = {"b": 1, "w": 1}
+        self._lookup_tables: _Lookup | None = None
+
+    # ---- lookup tables (kept in step with every edit below) -------------------------
+    def _stamp(self) -> tuple:
+        return (id(self.blocks), len(self.blocks), id(self.wires), len(self.wires), _EDITS[0])
+
+    def _tables(self, *, rebuild: bool = False) -> _Lookup:
+        ix = getattr(self, "_lookup_tables", None)
+        if rebuild or ix is None or ix.stamp != self._stamp():
+            ix = self._lookup_tables = _Lookup(self)
+        return ix
+
+    def _tables_done(self, ix: _Lookup) -> None:
+        ix.stamp = self._stamp()
+
+    def _find(self, table: str, key, check):
+        """The object a table names for ``key`` if ``check`` confirms it (rebuilding once
+        when the entry is stale), else None."""
+        for rebuild in (False, True):
+            hit = getattr(self._tables(rebuild=rebuild), table).get(key)
+            if hit is None:
+                return None
+            obj = check(hit)
+            if obj is not None:
+                return obj
+        return None
+
+    def __getstate__(self) -> dict:
+        state = dict(self.__dict__)
+        state.pop("_lookup_tables", None)  # rebuilt on demand; keeps copies and pickles lean
+        return state
+
+    def __setstate__(self, state: dict) -> None:
+        self.__dict__.update(state)
+        self._lookup_tables = None
 
     # ---- ids and lookup -------------------------------------------------------------
     def _new_id(self, prefix: str) -> str:
@@ -137,17 +228,17 @@ class Diagram:
 
     def block_by_name(self, name: str) -> Block:
         """The block called ``name``; :class:`UnknownNameError` with suggestions otherwise."""
-        for b in self.blocks.values():
-            if b.name == name:
-                return b
+        b = self._find("block_names", name, lambda bid: self.blocks[bid] if bid in self.blocks and self.blocks[bid].name == name else None)
+        if b is not None:
+            return b
         raise UnknownNameError(
             f"no block named {name!r}", suggestions=_close(name, [b.name for b in self.blocks.values()])
         )
 
     def wire_by_name(self, name: str) -> Wire:
-        for w in self.wires.values():
-            if w.name == name:
-                return w
+        w = self._find("wire_names", name, lambda wid: self.wires[wid] if wid in self.wires and self.wires[wid].name == name else None)
+        if w is not None:
+            return w
         raise UnknownNameError(
             f"no wire carries a signal named {name!r}", suggestions=_close(name, [w.name for w in self.wires.values()])
         )
@@ -169,17 +260,11 @@ class Diagram:
 
     def wire_into(self, ref: PortRef) -> Wire | None:
         """The wire that feeds input port ``ref``, or None."""
-        for w in self.wires.values():
-            if ref in w.targets:
-                return w
-        return None
+        return self._find("into", ref, lambda wid: self.wires[wid] if wid in self.wires and ref in self.wires[wid].targets else None)
 
     def wire_from(self, ref: PortRef) -> Wire | None:
         """The wire leaving output port ``ref``, or None."""
-        for w in self.wires.values():
-            if w.source == ref:
-                return w
-        return None
+        return self._find("out", ref, lambda wid: self.wires[wid] if wid in self.wires and self.wires[wid].source == ref else None)
 
     # ---- blocks ---------------------------------------------------------------------
     def add_block(
@@ -211,7 +296,10 @@ class Diagram:
             raise DiagramError(f"block id {bid!r} is already used")
         lay = {"x": 0.0, "y": 0.0, "rotation": 0, "flip": False}
         lay.update(layout or {})
+        ix = self._tables()
         self.blocks[bid] = Block(bid, kind, name, copy.deepcopy(params) if params is not None else default_params(kind), lay, caption)
+        ix.block_names.setdefault(name, bid)
+        self._tables_done(ix)
         return bid
 
     def check_block_name(self, name: str, *, ignore: str | None = None) -> None:
@@ -220,9 +308,9 @@ class Diagram:
             raise ParameterError(
                 f"block name {name!r} is not valid: use letters, digits and '_', starting with a letter", field="name"
             )
-        for b in self.blocks.values():
-            if b.name == name and b.id != ignore:
-                raise DiagramError(f"block name {name!r} is already used by another block", block_ids=[b.id])
+        b = self._find("block_names", name, lambda bid: self.blocks[bid] if bid in self.blocks and self.blocks[bid].name == name else None)
+        if b is not None and b.id != ignore:
+            raise DiagramError(f"block name {name!r} is already used by another block", block_ids=[b.id])
 
     def unique_name(self, stem: str) -> str:
         """``stem`` if free, else ``stem2``, ``stem3``, ... (for placing and pasting)."""
@@ -252,6 +340,7 @@ class Diagram:
             recipe = b.params.get("recipe")
             if isinstance(recipe, dict) and recipe.get("plant") == old:
                 recipe["plant"] = new_name
+        self._tables(rebuild=True)
 
     def remove_block(self, block_id: str) -> list[Wire]:
         """Remove a block and detach its wires; returns the wires removed entirely."""
@@ -264,6 +353,7 @@ class Diagram:
                 continue
             w.targets = [t for t in w.targets if t.block != block_id]
         del self.blocks[block_id]
+        self._tables(rebuild=True)
         return removed
 
     def set_params(self, block_id: str, params: dict[str, Any]) -> None:
@@ -322,18 +412,26 @@ class Diagram:
             wname = name or self._default_signal_name(src)
             self.check_signal_name(wname)
             wid = wire_id if wire_id is not None else self._new_id("w")
+            if wid in self.wires:
+                raise DiagramError(f"wire id {wid!r} is already used")
+            ix = self._tables()
             wire = Wire(wid, wname, src, [])
             self.wires[wid] = wire
+            ix.add_wire(wire)
+            self._tables_done(ix)
         elif name is not None and name != wire.name:
             self.rename_wire(wire.id, name)
+        ix = self._tables()
         wire.targets.append(dst)
+        ix.into.setdefault(dst, wire.id)
+        self._tables_done(ix)
         return wire.id
 
     def _default_signal_name(self, src: PortRef) -> str:
         stem = f"{self.blocks[src.block].name}.{src.port}"
-        taken = {w.name for w in self.wires.values()}
+        taken = self._tables().wire_names
         out, k = stem, 2
-        while out in taken:
+        while out in taken and self._find("wire_names", out, lambda wid: self.wires[wid] if wid in self.wires and self.wires[wid].name == out else None):
             out = f"{stem}_{k}"
             k += 1
         return out
@@ -342,41 +440,61 @@ class Diagram:
         """Raise unless ``name`` is a valid signal name not carried by another wire."""
         if not isinstance(name, str) or not _SIGNAL_RE.fullmatch(name):
             raise ParameterError(f"signal name {name!r} is not valid: use letters, digits, '_' and '.'", field="name")
-        for w in self.wires.values():
-            if w.name == name and w.id != ignore:
-                raise DiagramError(f"signal name {name!r} is already carried by another wire", wire_ids=[w.id])
+        w = self._find("wire_names", name, lambda wid: self.wires[wid] if wid in self.wires and self.wires[wid].name == name else None)
+        if w is not None and w.id != ignore:
+            raise DiagramError(f"signal name {name!r} is already carried by another wire", wire_ids=[w.id])
 
     def rename_wire(self, wire_id: str, new_name: str) -> None:
         w = self._wire(wire_id)
         if w.name == new_name:
             return
         self.check_signal_name(new_name, ignore=wire_id)
+        ix = self._tables()
+        ix.drop_wire(w)
         w.name = new_name
+        ix.add_wire(w)
+        self._tables_done(ix)
 
     def disconnect(self, wire_id: str, target: PortRef) -> bool:
         """Detach one target; the wire goes when its last target goes. True if it went."""
         w = self._wire(wire_id)
+        ix = self._tables()
+        ix.drop_wire(w)
         w.targets = [t for t in w.targets if t != target]
         if not w.targets:
             del self.wires[wire_id]
+            self._tables_done(ix)
             return True
+        ix.add_wire(w)
+        self._tables_done(ix)
         return False
 
     def remove_wire(self, wire_id: str) -> Wire:
-        return self.wires.pop(self._wire(wire_id).id)
+        w = self._wire(wire_id)
+        ix = self._tables()
+        ix.drop_wire(w)
+        del self.wires[wire_id]
+        self._tables_done(ix)
+        return w
 
     def restore_wire(self, wire: Wire) -> None:
         """Put back a wire removed earlier (undo)."""
         if wire.id in self.wires:
             raise DiagramError(f"wire id {wire.id!r} is already used")
+        ix = self._tables()
         self.wires[wire.id] = copy.deepcopy(wire)
+        ix.add_wire(self.wires[wire.id])
+        self._tables_done(ix)
 
     def restore_block(self, block: Block) -> None:
         """Put back a block removed earlier (undo)."""
         if block.id in self.blocks:
             raise DiagramError(f"block id {block.id!r} is already used")
         self.check_block_name(block.name)
+        ix = self._tables()
         self.blocks[block.id] = copy.deepcopy(block)
+        ix.block_names.setdefault(block.name, block.id)
+        self._tables_done(ix)
 
     def set_wire_layout(self, wire_id: str, layout: dict[str, Any]) -> None:
         self._wire(wire_id).layout = copy.deepcopy(layout)

@@ -445,15 +445,28 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     acyclic = _check_well_posed(DM, F, sig_names, sig_ports, snap, port_rows)
     # gains in series may overflow; check_model below names where, so no warning here
     with np.errstate(all="ignore"):
-        Finv = _inverse_of_feedthrough(DM, F, acyclic)
         DbMb = (Db @ Mb).tocsr()
-        Gx, Ge, Gb = Finv @ Cb, Finv @ E, Finv @ DbMb
         BM = (Bb @ M).tocsr()
-        BMF = BM @ Finv
-        A = _dense(Ab + BM @ Gx)
-        B = np.hstack([_dense(BMF @ E), _dense(BMF), _dense(BMF @ DbMb + Bb @ Mb)])
-        C = _dense(Gx)
-        D = np.hstack([_dense(Ge), _dense(Finv), _dense(Gb)])
+        # D = [Ge, Finv, Gb] is filled in place: the injection block (I - D M)^-1 is the
+        # one dense ns x ns part, so it is written once, where it belongs
+        D = np.zeros((ns, ne + ns + nb))
+        Finv = D[:, ne : ne + ns]
+        if acyclic:
+            # every other product with (I - D M)^-1 is a forward substitution in graph
+            # order on its own (few) columns: linear in the number of blocks
+            Finv[np.arange(ns), np.arange(ns)] = 1.0
+            D[:, :ne] = _dense(E)
+            D[:, ne + ns :] = _dense(DbMb)
+            solve_acyclic_feedthrough(DM, out=D)
+            Gx = solve_acyclic_feedthrough(DM, _dense(Cb))
+        else:
+            Finv[:] = _inverse_of_feedthrough(DM, F, acyclic)
+            Gx = Finv @ _dense(Cb)
+            D[:, :ne] = Finv @ _dense(E)
+            D[:, ne + ns :] = Finv @ _dense(DbMb)
+        A = _dense(Ab) + BM @ Gx
+        B = np.hstack([BM @ D[:, :ne], BM @ Finv, BM @ D[:, ne + ns :] + _dense(Bb @ Mb)])
+        C = Gx
 
     inputs: dict[str, slice] = dict(src_cols)
     input_names: list[str] = []

@@ -55,7 +55,7 @@ def feedthrough_order(DM: sp.spmatrix) -> np.ndarray:
     return np.asarray(order, dtype=np.int64)
 
 
-def solve_acyclic_feedthrough(DM: sp.spmatrix, rhs: np.ndarray | None = None) -> np.ndarray:
+def solve_acyclic_feedthrough(DM: sp.spmatrix, rhs: np.ndarray | None = None, *, out: np.ndarray | None = None) -> np.ndarray:
     """``(I - D M)^-1 rhs`` (the whole inverse when ``rhs`` is None) for an acyclic ``D M``.
 
     Forward substitution in graph order: each signal is its own right-hand side plus the
@@ -63,13 +63,19 @@ def solve_acyclic_feedthrough(DM: sp.spmatrix, rhs: np.ndarray | None = None) ->
     operation per signal and per wire, so the cost is linear in the number of blocks (times
     the number of right-hand sides).
 
+    ``out`` (an (ns, k) float array, possibly a view into a bigger one) holds the
+    right-hand side and is overwritten with the solution instead (``rhs`` is then ignored).
+
     Returns
     -------
     (ns, k) ndarray
     """
     DM = sp.csr_matrix(DM)
     ns = DM.shape[0]
-    X = np.eye(ns) if rhs is None else np.array(rhs, dtype=float, copy=True).reshape(ns, -1)
+    if out is not None:
+        X = out
+    else:
+        X = np.eye(ns) if rhs is None else np.array(rhs, dtype=float, copy=True).reshape(ns, -1)
     if ns == 0 or DM.nnz == 0:
         return X
     order = feedthrough_order(DM)

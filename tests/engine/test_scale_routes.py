@@ -14,9 +14,10 @@ import scipy.sparse as sp
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from loopwright.engine.audit import path_audit
+from loopwright.engine.audit import _audit_block_by_block, path_audit
 from loopwright.engine.blockwise_response import BlockwiseModel, path_evaluator
-from loopwright.engine.diagram import Diagram
+from loopwright.engine.coupled_poles import closed_loop_poles, h2_by_residues, residue_factors
+from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.interconnect import assemble
 from loopwright.engine.noise import noise_budget
 from loopwright.engine.noise_shares import variances_by_source
@@ -190,6 +191,86 @@ def test_audit_on_the_block_route_finds_the_same_peaks():
         assert row.peak_gain == pytest.approx(np.linalg.norm(ref[0], 2), rel=1e-8)
 
 
+def _compare_audits(fast, ref, *, h2_rtol):
+    # the same pairs; the order may differ only between pairs whose peak gains tie to rounding
+    by_pair = {(r.source, r.signal): r for r in ref}
+    assert sorted(by_pair) == sorted((r.source, r.signal) for r in fast)
+    for a in fast:
+        b = by_pair[a.source, a.signal]
+        key = f"{a.source} -> {a.signal}"
+        assert a.stable == b.stable, key
+        assert a.peak_gain == pytest.approx(b.peak_gain, rel=1e-8), key
+        assert a.h2 == pytest.approx(b.h2, rel=h2_rtol, abs=1e-12 * max(1.0, b.peak_gain)), key
+        assert a.dc_gain == pytest.approx(b.dc_gain, rel=1e-8, abs=1e-12 * max(1.0, b.peak_gain)), key
+        assert (a.blocks, a.wires) == (b.blocks, b.wires), key
+
+
+@SETTINGS
+@given(loop_diagrams())
+def test_closed_loop_poles_from_the_coupling_form_equal_the_dense_eigenvalues(diagram):
+    # reference: LAPACK's dense eigenvalues (numpy.linalg.eigvals) of the assembled A
+    model = assemble(diagram)
+    bw = BlockwiseModel.from_model(model)
+    if bw is None:
+        return
+    poles = closed_loop_poles(bw)
+    if poles is None:
+        return  # not certified (e.g. a multiple pole): the callers fall back to the dense route
+    ref = np.linalg.eigvals(model.A)
+    # match each pole to its nearest dense eigenvalue, both ways (multiset agreement for
+    # simple poles); the tolerance is that of the dense solver on these small matrices
+    scale = max(1.0, float(np.abs(ref).max()))
+    d1 = np.abs(poles[:, None] - ref[None, :]).min(axis=1)
+    d2 = np.abs(ref[:, None] - poles[None, :]).min(axis=1)
+    assert max(d1.max(), d2.max()) <= 1e-7 * scale
+
+
+@pytest.mark.parametrize("linked", [False, True], ids=["reduced-order estimator", "estimator linked to the plant"])
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_closed_loop_poles_of_modal_loops_are_certified_and_exact(seed, linked):
+    model = assemble(_modal_loop(25, 2, seed, linked=linked))
+    poles = closed_loop_poles(BlockwiseModel.from_model(model))
+    assert poles is not None
+    ref = np.linalg.eigvals(model.A)
+    assert np.abs(poles[:, None] - ref[None, :]).min(axis=1).max() <= 1e-10 * np.abs(ref).max()
+    assert np.abs(ref[:, None] - poles[None, :]).min(axis=1).max() <= 1e-10 * np.abs(ref).max()
+
+
+@SETTINGS
+@given(loop_diagrams())
+def test_the_audit_routes_agree_on_random_loops(diagram):
+    """The coupling route (poles by Aberth iteration, H2 by residues) against the Schur
+    route (H2 by a Lyapunov solve): the same rows, peaks, DC gains and paths."""
+    model = assemble(diagram)
+    ref = path_audit(model, route="whole model", refine_passes=3)
+    fast = path_audit(model, route="block by block", refine_passes=3)
+    _compare_audits(fast, ref, h2_rtol=1e-8)
+
+
+@pytest.mark.parametrize("linked", [False, True], ids=["reduced-order estimator", "estimator linked to the plant"])
+def test_the_audit_routes_agree_on_modal_loops(linked):
+    model = assemble(_modal_loop(30, 2, 4, linked=linked))
+    assert _audit_block_by_block(model, injections=True, points_per_decade=40, refine_passes=3, force=True) is not None
+    ref = path_audit(model, route="whole model", refine_passes=3, injections=True)
+    fast = path_audit(model, route="block by block", refine_passes=3, injections=True)
+    _compare_audits(fast, ref, h2_rtol=1e-8)
+
+
+def test_h2_by_residues_equals_the_lyapunov_solve():
+    # reference: scipy.linalg.solve_continuous_lyapunov, ||G||_2^2 = trace(C X C^T) with
+    # A X + X A^T + B B^T = 0 (closed form of the H2 norm through the controllability Gramian)
+    model = assemble(_modal_loop(20, 2, 5))
+    bw = BlockwiseModel.from_model(model)
+    poles = closed_loop_poles(bw)
+    h2 = h2_by_residues(bw, poles, residue_factors(bw, poles), {g: model.inputs[g] for g in model.sources}, dict(model.signals))
+    for (grp, sig), value in h2.items():
+        A, B, C, D = model.pair(grp, sig)
+        if np.any(D):
+            continue
+        X = sla.solve_continuous_lyapunov(A, -B @ B.T)
+        assert value == pytest.approx(np.sqrt(np.trace(C @ X @ C.T)), rel=1e-9, abs=1e-13), (grp, sig)
+
+
 # ---------------------------------------------------------------------------------------
 # noise shares
 
@@ -270,3 +351,71 @@ def test_noise_budget_of_a_line_of_loops_matches_per_source_solves(ring):
         finite = np.isfinite(got)
         assert finite.sum() > model.C.shape[0] // 2
         np.testing.assert_allclose(got[finite], ref[finite], rtol=1e-8, atol=1e-12 * np.abs(ref[finite]).max())
+
+
+# ---------------------------------------------------------------------------------------
+# the diagram's lookup tables
+
+
+def _scan_into(d, ref):
+    return next((w for w in d.wires.values() if ref in w.targets), None)
+
+
+def _scan_from(d, ref):
+    return next((w for w in d.wires.values() if w.source == ref), None)
+
+
+def _lookups_agree_with_scans(d):
+    for b in d.blocks.values():
+        assert d.block_by_name(b.name) is b
+        for port in ("in", "in1", "in2", "out", "u", "y"):
+            ref = PortRef(b.id, port)
+            assert d.wire_into(ref) is _scan_into(d, ref)
+            assert d.wire_from(ref) is _scan_from(d, ref)
+    for w in d.wires.values():
+        assert d.wire_by_name(w.name) is w
+
+
+@SETTINGS
+@given(st.lists(st.tuples(st.sampled_from(["connect", "disconnect", "remove_block", "restore", "rename", "reassign", "rename_wire"]), st.integers(0, 50)), max_size=40))
+def test_the_port_and_name_lookups_follow_every_edit(edits):
+    """The lookup tables answer as a scan of every wire would (common practice, no source:
+    an index must agree with the data it indexes), after any sequence of edits, including
+    a wire's source reassigned directly and blocks removed and put back."""
+    d = Diagram()
+    for k in range(6):
+        d.add_block("gain", f"g{k}", {"K": [[1.0]]})
+    ids = list(d.blocks)
+    removed: list = []
+    for op, k in edits:
+        live = [b for b in ids if b in d.blocks]
+        if op == "connect" and len(live) >= 2:
+            a, b = live[k % len(live)], live[(k // len(live) + 1 + k) % len(live)]
+            if a != b and d.wire_into(PortRef(b, "in")) is None:
+                d.connect(PortRef(a, "out"), PortRef(b, "in"))
+        elif op == "disconnect" and any(w.targets for w in d.wires.values()):
+            fed = [w for w in d.wires.values() if w.targets]
+            w = fed[k % len(fed)]
+            d.disconnect(w.id, w.targets[0])
+        elif op == "remove_block" and live:
+            bid = live[k % len(live)]
+            removed.append((d.blocks[bid], d.remove_block(bid)))
+        elif op == "restore" and removed:
+            blk, wires = removed.pop()
+            d.restore_block(blk)
+            for w in wires:
+                if w.id not in d.wires and all(t.block in d.blocks and d.wire_into(t) is None for t in w.targets):
+                    d.restore_wire(w)
+        elif op == "rename" and live:
+            d.rename_block(live[k % len(live)], f"h{k}_{len(d.blocks)}")
+        elif op == "rename_wire" and d.wires:
+            w = list(d.wires.values())[k % len(d.wires)]
+            if f"sig{k}" not in {x.name for x in d.wires.values()}:
+                d.rename_wire(w.id, f"sig{k}")
+        elif op == "reassign" and d.wires and live:
+            # a wire moved to another output directly, as the lumped-controller cut does
+            w = list(d.wires.values())[k % len(d.wires)]
+            new = PortRef(live[k % len(live)], "out")
+            if _scan_from(d, new) is None:
+                w.source = new
+        _lookups_agree_with_scans(d)
