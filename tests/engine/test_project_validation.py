@@ -323,7 +323,7 @@ def test_every_sample_is_valid_against_the_schema_the_loader_uses():
 def test_a_designed_gain_with_a_ragged_row_is_redesigned_not_a_traceback(tmp_path):
     # found by a fuzz run (common practice, no source): the oven's LQR gain K lost one entry of
     # a row; `check` names the field, and `design --write` replaces the matrix by its design
-    src = Path(__file__).parent / "data" / "fuzz" / "oven_gain_with_a_ragged_row.lwd"
+    src = Path(__file__).parent / "data" / "oven_gain_with_a_ragged_row.lwd"
     work = tmp_path / "oven.lwd"
     shutil.copy(src, work)
     out, err = io.StringIO(), io.StringIO()
