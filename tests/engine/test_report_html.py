@@ -2,10 +2,7 @@
 alone (no network, no scripts), and the command line writes it without Qt."""
 from __future__ import annotations
 
-import os
 import re
-import subprocess
-import sys
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -13,6 +10,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
+from console import run_without_qt
 from loopwright.engine import CAUTION
 from loopwright.engine.audit import path_audit
 from loopwright.engine.cli import main as cli_main
@@ -234,17 +232,8 @@ def test_cli_writes_the_report_and_never_over_a_diagram(tmp_path, capsys):
 
 
 def test_console_script_writes_the_report_where_qt_cannot_be_imported(tmp_path):
-    exe = Path(sys.executable).with_name("loopwright")
-    if not exe.exists():
-        pytest.skip("the loopwright console script is not installed next to this interpreter")
-    blocker = tmp_path / "blocked"
-    for name in ("PySide6", "shiboken6", "pyqtgraph"):
-        (blocker / name).mkdir(parents=True)
-        (blocker / name / "__init__.py").write_text(f"raise ImportError('{name} is blocked for this test')\n")
-    env = {**os.environ, "PYTHONPATH": str(blocker)}
     out = tmp_path / "rotor.html"
-    proc = subprocess.run([str(exe), "report", str(sample_path("levitated_rotor_axis.lwd")), "--html", str(out)],
-                          capture_output=True, text=True, env=env, timeout=300)
+    proc = run_without_qt(["report", str(sample_path("levitated_rotor_axis.lwd")), "--html", str(out)], tmp_path)
     assert proc.returncode == 0, proc.stderr
     assert "Traceback" not in proc.stderr and "block sketch" in proc.stdout
     assert _read(out.read_text(encoding="utf-8")).sections == list(SECTIONS)

@@ -4,8 +4,9 @@ closed form puts them, the output name is checked like every other output, and n
 imported on the way."""
 from __future__ import annotations
 
-import importlib.resources as ir
 import os
+
+import importlib.resources as ir
 import subprocess
 import sys
 import xml.etree.ElementTree as ET
@@ -16,6 +17,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
+from console import run_without_qt
 from loopwright.engine import CAUTION
 from loopwright.engine.cli import main
 from loopwright.engine.interconnect import assemble
@@ -217,18 +219,11 @@ def test_plot_never_replaces_the_diagram_being_read(tmp_path, capsys):
     ["margins", "{rotor}", "--plot", "{tmp}/m.svg"],
 ], ids=lambda a: a[0])
 def test_plots_are_drawn_with_qt_unimportable(argv, tmp_path):
-    exe = Path(sys.executable).with_name("loopwright")
-    if not exe.exists():
-        pytest.skip("the loopwright console script is not installed next to this interpreter")
-    blocker = tmp_path / "blocked"
-    for name in ("PySide6", "shiboken6", "pyqtgraph"):
-        (blocker / name).mkdir(parents=True)
-        (blocker / name / "__init__.py").write_text(f"raise ImportError('{name} is blocked for this test')\n")
-    env = {**os.environ, "PYTHONPATH": str(blocker)}
     args = [a.format(rotor=_sample("levitated_rotor_axis.lwd"), tmp=tmp_path) for a in argv]
-    proc = subprocess.run([str(exe), *args], capture_output=True, text=True, env=env, timeout=300)
+    proc = run_without_qt(args, tmp_path)
     assert proc.returncode == 0, proc.stderr
     svg = Path(args[-1])
     assert ET.parse(svg).getroot().tag == f"{SVG}svg"
+    env = {**os.environ, "PYTHONPATH": str(tmp_path / "blocked")}  # the blocker run_without_qt made
     probe = subprocess.run([sys.executable, "-c", "import PySide6"], capture_output=True, text=True, env=env)
     assert probe.returncode != 0 and "blocked for this test" in probe.stderr
