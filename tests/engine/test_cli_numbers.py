@@ -5,11 +5,9 @@ tests/REFERENCES.md, scipy 1.17.1, python-control 0.10.2), and the options of ``
 from __future__ import annotations
 
 import json
-import os
 import shutil
 import subprocess
 import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -17,6 +15,7 @@ import scipy.linalg as sla
 from numpy.testing import assert_allclose
 from scipy.optimize import minimize_scalar
 
+from console import qt_blocked_env, run_without_qt
 from diagrams import sample_path, stage_loop_ref03, stage_servo
 from independent import gain_margin_factor, observer_controller, phase_margin, rotor_sample_parts, state_space_at
 from loopwright.engine.cli import main
@@ -334,13 +333,6 @@ def test_export_c_in_float_with_a_prefix(tmp_path, capsys):
 # ---- the console script, with Qt made unimportable ---------------------------------------
 
 
-def _console_script() -> str:
-    exe = Path(sys.executable).with_name("loopwright")
-    if not exe.exists():
-        pytest.skip("the loopwright console script is not installed next to this interpreter")
-    return str(exe)
-
-
 @pytest.mark.parametrize(
     "argv",
     [
@@ -359,14 +351,9 @@ def _console_script() -> str:
 def test_console_script_runs_every_command_without_qt(argv, tmp_path):
     # a PySide6 / shiboken6 / pyqtgraph that fails on import, first on the path: any Qt import
     # by the command would end it with a traceback
-    blocker = tmp_path / "blocked"
-    for name in ("PySide6", "shiboken6", "pyqtgraph"):
-        (blocker / name).mkdir(parents=True)
-        (blocker / name / "__init__.py").write_text(f"raise ImportError('{name} is blocked for this test')\n")
-    env = {**os.environ, "PYTHONPATH": str(blocker)}
     args = [a.format(rotor=sample_path("levitated_rotor_axis.lwd"), tmp=tmp_path) for a in argv]
-    proc = subprocess.run([_console_script(), *args], capture_output=True, text=True, env=env, timeout=300)
+    proc = run_without_qt(args, tmp_path)
     assert proc.returncode == 0, proc.stderr
     assert "Traceback" not in proc.stderr and "model-based" in proc.stdout
-    probe = subprocess.run([sys.executable, "-c", "import PySide6"], capture_output=True, text=True, env=env)
+    probe = subprocess.run([sys.executable, "-c", "import PySide6"], capture_output=True, text=True, env=qt_blocked_env(tmp_path))
     assert probe.returncode != 0 and "blocked for this test" in probe.stderr  # the blocker works
