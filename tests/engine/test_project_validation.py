@@ -254,6 +254,8 @@ def mutants(draw) -> str:
     data = sample_data(draw(st.sampled_from(SAMPLES)))
     for _ in range(draw(st.integers(1, 3))):
         paths = [p for p in _paths(data) if p]
+        if not paths:
+            break  # every key deleted: the empty document is a mutant too
         path = draw(st.sampled_from(paths))
         parent = data
         for part in path[:-1]:
@@ -265,7 +267,9 @@ def mutants(draw) -> str:
         elif op == "suffix" and isinstance(parent[key], str):
             parent[key] += draw(st.sampled_from(["\n", " ", "-", "\u00e9", "\x00", ".", "_2"]))
         elif op == "width":
-            blocks = [b for b in data.get("blocks", []) if isinstance(b, dict) and isinstance(b.get("params"), dict)]
+            # an earlier mutation may have replaced the block list by anything
+            listed = data.get("blocks")
+            blocks = [b for b in listed if isinstance(b, dict) and isinstance(b.get("params"), dict)] if isinstance(listed, list) else []
             if blocks:
                 draw(st.sampled_from(blocks))["params"]["width"] = draw(
                     st.sampled_from([0, -3, 1.5, 2, 3, MAX_WIDTH, MAX_WIDTH + 1, 10000, 10**12, float("inf"), float("nan"), "4"])
