@@ -51,6 +51,8 @@ _TRACE_TOL = 1e-9
 _CANCELLATION = 1e-6
 # A closed-loop pole this close (relative) to a block's own pole is that block's mode.
 _OWN_MODE = 1e-12
+# A moved pole this close (relative) to another pole is treated as a multiple pole.
+_MULTIPLE = 1e-9
 # Roots whose mutual-repulsion sums are formed at once (memory: rows x n complex).
 _CHUNK = 512
 
@@ -176,11 +178,42 @@ def residue_factors(bw, poles: np.ndarray) -> tuple[np.ndarray, np.ndarray] | No
         # the block mode's own (C x)(y^T B)
         j = np.argmin(np.abs(poles[:, None] - vals[None, :]), axis=1)
         own = on_block_pole | (np.abs(poles - vals[j]) <= _OWN_MODE * np.abs(poles)) | ~np.all(np.isfinite(a), axis=1) | ~np.isfinite(denom)
+        j = _distinct_modes(poles, vals, own, j)
+        if j is None:
+            return None
         a[own] = cx[j[own]]
         b[own] = yb[j[own]]
     if not (np.all(np.isfinite(a)) and np.all(np.isfinite(b))):
         return None
     return a, b
+
+
+def _distinct_modes(poles: np.ndarray, vals: np.ndarray, own: np.ndarray, nearest: np.ndarray) -> np.ndarray | None:
+    """Give each unmoved pole its own block mode, or None when the residues of simple poles
+    do not apply.
+
+    Two blocks may share an eigenvalue (a controller pole at -1 beside a plant mode at -1
+    the wiring leaves alone): each closed-loop copy must take the residue of a different
+    mode, or one mode is counted twice and the other not at all. A pole moved by the wiring
+    that coincides with another pole is a multiple pole; its residue is not rank one and
+    the caller falls back to a Lyapunov solve.
+    """
+    j = nearest.copy()
+    taken = np.zeros(vals.size, dtype=bool)
+    for k in np.flatnonzero(own):
+        dist = np.abs(vals - poles[k])
+        dist[taken] = np.inf
+        pick = int(np.argmin(dist))
+        if not dist[pick] <= max(_OWN_MODE * abs(poles[k]), 4 * np.finfo(float).eps * abs(vals[pick])):
+            return None
+        j[k], taken[pick] = pick, True
+    moved = np.flatnonzero(~own)
+    if moved.size:
+        gap = np.abs(poles[moved, None] - poles[None, :])
+        gap[np.arange(moved.size), moved] = np.inf
+        if np.any(gap.min(axis=1) <= _MULTIPLE * np.maximum(np.abs(poles[moved]), np.finfo(float).tiny)):
+            return None
+    return j
 
 
 def h2_by_residues(bw, poles: np.ndarray, factors, groups: dict, signals: dict) -> dict:

@@ -419,3 +419,30 @@ def test_the_port_and_name_lookups_follow_every_edit(edits):
             if _scan_from(d, new) is None:
                 w.source = new
         _lookups_agree_with_scans(d)
+
+
+# A controller pole equal to a plant mode the wiring leaves alone (the plant has B = 0 and
+# C = 0): two block modes share the eigenvalue -1. Found by hypothesis under Haswell kernels:
+# the residue sum took the controller's residue twice (H2 1.0 instead of 1/sqrt(2)).
+_SHARED_MODE = """{"format": "loopwright-diagram", "version": 1, "meta": {}, "settings": {}, "blocks": [
+ {"name": "r", "kind": "source", "params": {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0}}},
+ {"name": "dist", "kind": "source", "params": {"role": "disturbance", "width": 1, "waveform": {"kind": "zero"}}},
+ {"name": "e", "kind": "sum", "params": {"signs": ["+", "+"], "width": 1}},
+ {"name": "Ctl", "kind": "dynamic", "params": {"num": [1.0], "den": [1.0, 1.0]}},
+ {"name": "up", "kind": "sum", "params": {"signs": ["+", "+"], "width": 1}},
+ {"name": "P", "kind": "plant", "params": {"A": [[-1.0]], "B": [[0.0]], "C": [[0.0]], "D": [[0.0]]}}],
+ "wires": [{"signal": "r.out", "from": "r.out", "to": ["e.in1"]}, {"signal": "e.out", "from": "e.out", "to": ["Ctl.u"]},
+ {"signal": "Ctl.y", "from": "Ctl.y", "to": ["up.in1"]}, {"signal": "dist.out", "from": "dist.out", "to": ["up.in2"]},
+ {"signal": "up.out", "from": "up.out", "to": ["P.u"]}, {"signal": "P.y", "from": "P.y", "to": ["e.in2"]}]}"""
+
+
+def test_two_blocks_sharing_an_unmoved_mode_each_keep_their_residue():
+    from loopwright.engine.project import loads
+
+    model = assemble(loads(_SHARED_MODE))
+    rows = {route: {(r.source, r.signal): r for r in path_audit(model, route=route, refine_passes=3)}
+            for route in ("whole model", "block by block")}
+    for route, by_pair in rows.items():
+        # closed form: ||1/(s + a)||_2 = 1/sqrt(2 a), a = 1 (r -> Ctl.y is the controller alone)
+        assert by_pair["r", "Ctl.y"].h2 == pytest.approx(1 / np.sqrt(2), rel=1e-10), route
+        assert by_pair["r", "P.y"].h2 == 0.0, route
