@@ -267,19 +267,25 @@ def sampled_loop_margins(
     Pd = discretize(P.A, P.B, P.C, P.D, ts, method="zoh")
     Ad, Bd, Cd, Dd = _close_channels(*_series_loop(Kd, Pd), channel)
     w_nyq = np.pi / ts
-    poles = np.concatenate([np.linalg.eigvals(K.A), np.linalg.eigvals(P.A)]) if (K.A.size or P.A.size) else np.zeros(0)
-    if poles.size:
-        # integrators computed as tiny nonzero poles would stretch the grid down to 1e-9 rad/s
-        poles = poles[np.abs(poles) > 1e-6 * max(1.0, float(np.max(np.abs(poles))))]
-    grid = auto_frequency_grid(poles, w_max=w_nyq * (1 - 1e-9), points_per_decade=max(60, points // 8))
-    grid = np.unique(np.concatenate([grid, np.linspace(grid[0], w_nyq * (1 - 1e-9), points)]))
-    Lz = discrete_frequency_response(DiscreteModel(Ad, Bd, Cd, Dd, ts, method), grid)[:, 0, 0]
     zpoles = np.linalg.eigvals(Ad) if Ad.size else np.zeros(0)
     # A repeated pole at s = 0 (a double integrator) maps to a defective pole at z = 1 that
     # eig only finds to about sqrt(machine epsilon); count it as an integrator, not unstable.
     near_one = np.abs(zpoles - 1.0) <= 1e-6
     at_one = int(np.sum(near_one))
     unstable = int(np.sum((np.abs(zpoles) > 1.0 + 1e-9) & ~near_one))
+    poles = np.concatenate([np.linalg.eigvals(K.A), np.linalg.eigvals(P.A)]) if (K.A.size or P.A.size) else np.zeros(0)
+    if poles.size:
+        # integrators computed as tiny nonzero poles would stretch the grid down to 1e-9 rad/s
+        poles = poles[np.abs(poles) > 1e-6 * max(1.0, float(np.max(np.abs(poles))))]
+    grid = auto_frequency_grid(poles, w_max=w_nyq * (1 - 1e-9), points_per_decade=max(60, points // 8))
+    # Both ends of the unit circle belong to the grid: z = 1 (w = 0) and z = -1 (w = pi/T),
+    # where the loop of a real model is real. A crossing of the negative real axis there
+    # (the DC gain of a loop around an unstable plant; the Nyquist-frequency crossing of a
+    # sampled loop) sets a gain margin that samples just inside the ends cannot show.
+    # (An end where the loop has a pole -- an integrator at z = 1 -- is left out.)
+    ends = [w for w, z in ((0.0, 1.0), (w_nyq, -1.0)) if not np.any(np.abs(zpoles - z) <= 1e-6)]
+    grid = np.unique(np.concatenate([grid, np.linspace(grid[0], w_nyq, points), ends]))
+    Lz = discrete_frequency_response(DiscreteModel(Ad, Bd, Cd, Dd, ts, method), grid)[:, 0, 0]
     samp = margins_from_response(grid, Lz, open_loop_unstable_poles=unstable, poles_at_origin=at_one)
 
     def db(g: float) -> float:
