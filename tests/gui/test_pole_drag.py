@@ -136,23 +136,13 @@ def test_moved_poles_keep_pairs_and_real_poles():
 
 @pytest.fixture
 def rotor_integral_map(window, qtbot, tmp_path):
-    """The rotor sample (demo data) with integral action on the gap drawn in: the state feedback's
-    recipe places the four poles of the plant augmented with the integrator of r - y."""
-    import copy
+    """The rotor sample with integral action drawn in (tests/integral_diagrams.py)."""
+    from loopwright.engine.project import save
 
-    from loopwright.engine.project import load, save
-    from loopwright.engine.recipes import redesign
-    from loopwright.engine.tracking import add_integral_action
+    from integral_diagrams import rotor_with_integral_action
 
-    d = add_integral_action(load(str(ROTOR)), [[0.0]], reference="r", measured="y", actuator_sum="uc")
-    d.set_params(d.block_by_name("N").id, {"K": [[0.0]]})  # the reference enters through the integrator
-    k = d.block_by_name("K")
-    params = copy.deepcopy(k.params)
-    params["recipe"] = {"method": "place", "plant": "P", "poles": [[-80, 60], [-80, -60], -150, -60],
-                        "integral": {"block": "integral_gain", "outputs": [1]}}
-    d.set_params(k.id, params)
     path = tmp_path / "rotor_integral.lwd"
-    save(redesign(d)[0], path)
+    save(rotor_with_integral_action(), path)
     window.show()
     assert window.open_path(str(path))
     window.view_docks["poles"].show()
