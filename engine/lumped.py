@@ -45,6 +45,7 @@ __all__ = [
     "LumpedModel",
     "lumped_controller",
     "plant_path",
+    "default_loop_signals",
     "controller_transfer_function",
     "SampledLoopComparison",
     "sampled_loop_margins",
@@ -171,6 +172,35 @@ def plant_path(diagram: Diagram, *, actuator: list[str], measured: list[str]) ->
     """The plant as seen by the controller: the map from the actuator signals to the
     measured signals with the controller cut away (same method as :func:`lumped_controller`)."""
     return _cut_map(diagram, list(actuator), list(measured), what="plant path")
+
+
+def default_loop_signals(diagram: Diagram) -> tuple[list[str], list[str]]:
+    """The signals a lumped controller is usually taken between, read off the estimator.
+
+    Returns
+    -------
+    (measured, actuator) : (list of str, list of str)
+        The signal into the estimator's ``y`` input, and the signal into the ``u`` input of
+        the plant the estimator is linked to.
+
+    Raises
+    ------
+    DesignError
+        The diagram has no estimator or several, the estimator is not linked to a plant, or
+        either input is not wired; the message says to name the signals.
+    """
+    ests = [b for b in diagram.blocks.values() if b.kind == "estimator"]
+    if len(ests) != 1:
+        raise DesignError(f"the diagram has {len(ests)} estimators; name the controller's measured and actuator signals")
+    est = ests[0]
+    y = diagram.wire_into(PortRef(est.id, "y"))
+    plant_name = est.params.get("plant")
+    u = None
+    if isinstance(plant_name, str) and plant_name in {b.name for b in diagram.blocks.values()}:
+        u = diagram.wire_into(PortRef(diagram.block_by_name(plant_name).id, "u"))
+    if y is None or u is None:
+        raise DesignError(f"cannot tell the measured and actuator signals from estimator {est.name!r}; name them")
+    return [y.name], [u.name]
 
 
 def controller_transfer_function(model: LumpedModel) -> dict:

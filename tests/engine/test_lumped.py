@@ -268,3 +268,14 @@ def test_sampled_gain_margin_at_the_nyquist_frequency_is_found():
                                    plant_path(d, actuator=["u"], measured=["y"]), T)
     assert _closed_loop_stable(loop, 0.99 * res.sampled.gain_upper)
     assert not _closed_loop_stable(loop, 1.01 * res.sampled.gain_upper)
+
+
+def test_default_loop_signals_are_read_off_the_estimator():
+    # levitated-rotor sample (demo data): the estimator reads y_meas, its plant P is driven by u
+    from loopwright.engine.lumped import default_loop_signals
+
+    d = load(sample_path("levitated_rotor_axis.lwd"))
+    assert default_loop_signals(d) == (["y_meas"], ["u"])
+    d.add_block("estimator", "est2", {"plant": "P", "L": [[1.0], [1.0], [1.0]]})
+    with pytest.raises(DesignError, match="has 2 estimators; name the controller's measured and actuator signals"):
+        default_loop_signals(d)
