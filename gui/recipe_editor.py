@@ -269,6 +269,7 @@ class RecipeEditor(QGroupBox):
         self.state_label.setWordWrap(True)
         lay.addWidget(self.state_label)
         form = QFormLayout()
+        form.setRowWrapPolicy(QFormLayout.RowWrapPolicy.WrapLongRows)  # a narrow inspector puts labels above
         lay.addLayout(form)
         self.method_box = QComboBox()
         self.method_box.setObjectName("recipe_method")
@@ -335,8 +336,10 @@ class RecipeEditor(QGroupBox):
         form.addRow("integrated outputs", self.integral_outputs_edit)
         self.sign_box = QComboBox()
         self.sign_box.setObjectName("recipe_sign")
-        self.sign_box.addItem("−1: the block holds −K (feeds a '+' input)", -1)
-        self.sign_box.addItem("+1: the block holds K (the minus sits in a summing junction)", 1)
+        self.sign_box.addItem("−1: block holds −K", -1)
+        self.sign_box.addItem("+1: block holds K", 1)
+        self.sign_box.setToolTip("−1: the block holds −K and feeds a '+' input (state feedback's default); "
+                                 "+1: the block holds K, the minus sits in a summing junction (feedforward's default)")
         self._sign_given = "sign" in rec
         sign = rec.get("sign", self._default_sign(rec.get("method")))
         self.sign_box.setCurrentIndex(max(0, self.sign_box.findData(int(sign) if sign in (1, -1) else 0)))

@@ -336,3 +336,14 @@ def test_integral_action_is_edited_in_the_form(window, qtbot, tmp_path, capsys):
         warnings.simplefilter("ignore")
         K_ref = ct.place(A, B, [-80 + 60j, -80 - 60j, -150])  # python-control 0.10.2 place
     assert_allclose(-np.array(doc.diagram.block_by_name("K").params["K"]), K_ref, rtol=1e-8)
+
+
+def test_the_recipe_form_fits_the_inspector_without_clipping(window, qtbot):
+    # a field wider than the inspector pushes the page past its right edge (the scroll area has
+    # no horizontal bar) and clips every line of the page. The inspector of a 1600-pixel-wide
+    # window is about 310 pixels wide; the form must fit in 300 (common practice, no source).
+    window.show()
+    assert window.open_sample(str(ROTOR))
+    for name in ("K", "N", "est"):
+        ed = _select(window, qtbot, name)
+        assert ed.minimumSizeHint().width() <= 300, name
