@@ -47,6 +47,7 @@ __all__ = [
 
 GAIN_CHOICES = (("pole placement", "place"), ("Ackermann's formula", "ackermann"), ("LQR", "lqr"), ("feedforward", "feedforward"))
 ESTIMATOR_CHOICES = (("pole placement", "place"), ("Ackermann's formula", "ackermann"), ("Kalman filter", "kalman"))
+_FIELD_MIN_PX = 150  # the narrowest a text field of the form gets
 _SLIDER_DECADES = 3  # the weight slider spans 1/1000 .. 1000 times the weight it started from
 
 
@@ -362,6 +363,8 @@ class RecipeEditor(QGroupBox):
                       "sign": self.sign_box, "slider": row}
         for e in (self.poles_edit, *self.weights.values(), self.inputs_edit, self.outputs_edit, self.integral_outputs_edit):
             e.returnPressed.connect(self.design)  # Enter in a field applies the recipe, as Design does
+            # wide enough to read; a row whose label leaves less room puts its label above instead
+            e.setMinimumWidth(_FIELD_MIN_PX)
         self._form = form
         buttons = QHBoxLayout()
         self.design_button = QPushButton("Design")
