@@ -147,6 +147,27 @@ def _scaled(v, factor: float):
     return (np.asarray(v, dtype=float) * factor).tolist() if not isinstance(v, (int, float)) else float(v) * factor
 
 
+def _text_row(form: QFormLayout, key: str, label: str, text: str, hint: str) -> QLineEdit:
+    """A text field ``recipe_<key>`` on its own form row."""
+    e = QLineEdit(text)
+    e.setObjectName(f"recipe_{key}")
+    e.setPlaceholderText(hint)
+    form.addRow(label, e)
+    return e
+
+
+def _choice_row(form: QFormLayout, key: str, label: str, items, current) -> QComboBox:
+    """A choice ``recipe_<key>`` of ``(text, value)`` items on its own form row, set to ``current``
+    (the first item when ``current`` is not among them)."""
+    box = QComboBox()
+    box.setObjectName(f"recipe_{key}")
+    for text, value in items:
+        box.addItem(text, value)
+    box.setCurrentIndex(max(0, box.findData(current)))
+    form.addRow(label, box)
+    return box
+
+
 # ---------------------------------------------------------------------------------------
 # worker-side helpers
 # ---------------------------------------------------------------------------------------
@@ -272,80 +293,46 @@ class RecipeEditor(QGroupBox):
         form = QFormLayout()
         form.setRowWrapPolicy(QFormLayout.RowWrapPolicy.WrapLongRows)  # a narrow inspector puts labels above
         lay.addLayout(form)
-        self.method_box = QComboBox()
-        self.method_box.setObjectName("recipe_method")
-        self.method_box.addItem("(no recipe)", None)
-        for label, key in (GAIN_CHOICES if self._kind == "gain" else ESTIMATOR_CHOICES):
-            self.method_box.addItem(label, key)
-        self.method_box.setCurrentIndex(max(0, self.method_box.findData(rec.get("method"))))
-        form.addRow("method", self.method_box)
-        self.plant_box = QComboBox()
-        self.plant_box.setObjectName("recipe_plant")
-        self.plant_box.addItem("(as wired)", None)
-        for b in sorted(document.diagram.blocks.values(), key=lambda b: b.name):
-            if b.kind in ("plant", "dynamic"):
-                self.plant_box.addItem(b.name, b.name)
-        self.plant_box.setCurrentIndex(max(0, self.plant_box.findData(rec.get("plant"))))
-        form.addRow("designs for plant", self.plant_box)
-        self.poles_edit = QLineEdit(format_poles(rec["poles"]) if isinstance(rec.get("poles"), list) else "")
-        self.poles_edit.setObjectName("recipe_poles")
-        self.poles_edit.setPlaceholderText("one per state, a pair once: -2 ± 3j, -5")
-        form.addRow("poles (rad/s)", self.poles_edit)
-        self.weights = {}
-        for key, label, hint in (
-            ("Q", "Q (state weight)", "a number (times I), a diagonal list or a matrix [[...], [...]]"),
-            ("R", "R (input weight)", "a number (times I), a diagonal list or a matrix"),
-            ("N", "N (cross weight)", "optional: states x inputs matrix; empty: none"),
-            ("W", "W (process noise)", ""),
-            ("V", "V (measurement noise)", ""),
-            ("G", "G (how W enters the states)", "optional: states x W's size; empty: from the noise sources"),
-        ):
-            e = QLineEdit(_weight_text(rec.get(key)))
-            e.setObjectName(f"recipe_{key}")
-            e.setPlaceholderText(hint)
-            self.weights[key] = e
-            form.addRow(label, e)
-        self.inputs_edit = QLineEdit(_indices_text(rec.get("inputs")))
-        self.inputs_edit.setObjectName("recipe_inputs")
-        self.inputs_edit.setPlaceholderText("1-based plant inputs the gain may use; empty: all")
-        form.addRow("inputs used", self.inputs_edit)
-        self.feedback_box = QComboBox()
-        self.feedback_box.setObjectName("recipe_feedback")
+        choices = GAIN_CHOICES if self._kind == "gain" else ESTIMATOR_CHOICES
+        self.method_box = _choice_row(form, "method", "method", [("(no recipe)", None), *choices], rec.get("method"))
+        plants = [b.name for b in sorted(document.diagram.blocks.values(), key=lambda b: b.name) if b.kind in ("plant", "dynamic")]
+        self.plant_box = _choice_row(form, "plant", "designs for plant", [("(as wired)", None)] + [(n, n) for n in plants],
+                                     rec.get("plant"))
+        self.poles_edit = _text_row(form, "poles", "poles (rad/s)",
+                                    format_poles(rec["poles"]) if isinstance(rec.get("poles"), list) else "",
+                                    "one per state, a pair once: -2 ± 3j, -5")
+        self.weights = {
+            key: _text_row(form, key, label, _weight_text(rec.get(key)), hint)
+            for key, label, hint in (
+                ("Q", "Q (state weight)", "a number (times I), a diagonal list or a matrix [[...], [...]]"),
+                ("R", "R (input weight)", "a number (times I), a diagonal list or a matrix"),
+                ("N", "N (cross weight)", "optional: states x inputs matrix; empty: none"),
+                ("W", "W (process noise)", ""),
+                ("V", "V (measurement noise)", ""),
+                ("G", "G (how W enters the states)", "optional: states x W's size; empty: from the noise sources"),
+            )
+        }
+        self.inputs_edit = _text_row(form, "inputs", "inputs used", _indices_text(rec.get("inputs")),
+                                     "1-based plant inputs the gain may use; empty: all")
         others = [b.name for b in sorted(document.diagram.blocks.values(), key=lambda b: b.name)
                   if b.kind == "gain" and b.id != block_id]
-        for name in others:
-            self.feedback_box.addItem(name, name)
-        self.feedback_box.setCurrentIndex(max(0, self.feedback_box.findData(rec.get("feedback"))))
-        form.addRow("feedback gain", self.feedback_box)
-        self.outputs_edit = QLineEdit(_indices_text(rec.get("outputs")))
-        self.outputs_edit.setObjectName("recipe_outputs")
-        self.outputs_edit.setPlaceholderText("1-based plant outputs to track; empty: all")
-        form.addRow("outputs tracked", self.outputs_edit)
+        self.feedback_box = _choice_row(form, "feedback", "feedback gain", [(n, n) for n in others], rec.get("feedback"))
+        self.outputs_edit = _text_row(form, "outputs", "outputs tracked", _indices_text(rec.get("outputs")),
+                                      "1-based plant outputs to track; empty: all")
         integ = rec.get("integral") if isinstance(rec.get("integral"), dict) else {}
-        self.integral_box = QComboBox()
-        self.integral_box.setObjectName("recipe_integral")
+        self.integral_box = _choice_row(form, "integral", "integral gain block", [("(none)", None)] + [(n, n) for n in others],
+                                        integ.get("block"))
         self.integral_box.setToolTip("Integral action: the gain block fed by the integral of r - y "
                                      "gets K_i; the poles then number plant states + integrators")
-        self.integral_box.addItem("(none)", None)
-        for name in others:
-            self.integral_box.addItem(name, name)
-        self.integral_box.setCurrentIndex(max(0, self.integral_box.findData(integ.get("block"))))
-        form.addRow("integral gain block", self.integral_box)
-        self.integral_outputs_edit = QLineEdit(_indices_text(integ.get("outputs")))
-        self.integral_outputs_edit.setObjectName("recipe_integral_outputs")
-        self.integral_outputs_edit.setPlaceholderText("1-based plant outputs integrated; empty: all")
-        form.addRow("integrated outputs", self.integral_outputs_edit)
-        self.sign_box = QComboBox()
-        self.sign_box.setObjectName("recipe_sign")
-        self.sign_box.addItem("−1: block holds −K", -1)
-        self.sign_box.addItem("+1: block holds K", 1)
-        self.sign_box.setToolTip("−1: the block holds −K and feeds a '+' input (state feedback's default); "
-                                 "+1: the block holds K, the minus sits in a summing junction (feedforward's default)")
+        self.integral_outputs_edit = _text_row(form, "integral_outputs", "integrated outputs", _indices_text(integ.get("outputs")),
+                                               "1-based plant outputs integrated; empty: all")
         self._sign_given = "sign" in rec
         sign = rec.get("sign", self._default_sign(rec.get("method")))
-        self.sign_box.setCurrentIndex(max(0, self.sign_box.findData(int(sign) if sign in (1, -1) else 0)))
+        self.sign_box = _choice_row(form, "sign", "sign", [("−1: block holds −K", -1), ("+1: block holds K", 1)],
+                                    int(sign) if sign in (1, -1) else -1)
+        self.sign_box.setToolTip("−1: the block holds −K and feeds a '+' input (state feedback's default); "
+                                 "+1: the block holds K, the minus sits in a summing junction (feedforward's default)")
         self.sign_box.activated.connect(self._on_sign_chosen)
-        form.addRow("sign", self.sign_box)
         self.slider = QSlider(Qt.Orientation.Horizontal)
         self.slider.setObjectName("recipe_weight_slider")
         self.slider.setRange(-100 * _SLIDER_DECADES, 100 * _SLIDER_DECADES)
