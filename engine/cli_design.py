@@ -20,7 +20,7 @@ from loopwright.engine import CAUTION
 from loopwright.engine.cli_common import fmt_complex, fmt_num, load_diagram, print_json
 from loopwright.engine.cli_options import FREQUENCY_RANGE_RAD_S, SAMPLE_PERIOD_RANGE_S, bounded_float
 from loopwright.engine.design import poles_to_json
-from loopwright.engine.diagram import Diagram, PortRef
+from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import DesignError, EngineError
 from loopwright.engine.export import (
     c_output_paths,
@@ -32,7 +32,12 @@ from loopwright.engine.export import (
     write_json,
     write_npz,
 )
-from loopwright.engine.lumped import controller_transfer_function, lumped_controller, sampled_loop_margins
+from loopwright.engine.lumped import (
+    controller_transfer_function,
+    default_loop_signals,
+    lumped_controller,
+    sampled_loop_margins,
+)
 from loopwright.engine.output_paths import check_diagram_output, check_export_output
 from loopwright.engine.project import save
 from loopwright.engine.recipes import recipe_blocks, recipe_status, redesign, stale_blocks
@@ -216,22 +221,11 @@ def _split(text: str | None) -> list[str] | None:
 
 
 def _default_loop_signals(diagram: Diagram) -> tuple[list[str], list[str]]:
-    """Measured = the wire into the estimator's y; actuator = the wire into its plant's u."""
-    ests = [b for b in diagram.blocks.values() if b.kind == "estimator"]
-    if len(ests) != 1:
-        raise DesignError(
-            f"the diagram has {len(ests)} estimators; name the controller's signals with --measured and --actuator"
-        )
-    est = ests[0]
-    y = diagram.wire_into(PortRef(est.id, "y"))
-    plant_name = est.params.get("plant")
-    u = None
-    if isinstance(plant_name, str):
-        plant = diagram.block_by_name(plant_name)
-        u = diagram.wire_into(PortRef(plant.id, "u"))
-    if y is None or u is None:
-        raise DesignError("cannot tell the measured and actuator signals; give --measured and --actuator")
-    return [y.name], [u.name]
+    """:func:`default_loop_signals`, its message pointing at the options that name the signals."""
+    try:
+        return default_loop_signals(diagram)
+    except DesignError as err:
+        raise DesignError(f"{err.message}: give --measured and --actuator") from None
 
 
 def _export(args: argparse.Namespace) -> int:

@@ -188,6 +188,9 @@ def discrete_frequency_response(model: DiscreteModel, w_rad_s) -> np.ndarray:
     """
     w = np.asarray(w_rad_s, dtype=float).ravel()
     z = np.exp(1j * w * model.ts)
+    # at the Nyquist frequency z is -1 exactly (exp leaves a 1e-16 imaginary part), so the
+    # response of a real model is real there, as it is at w = 0
+    z[np.abs(w * model.ts - np.pi) <= 4 * np.finfo(float).eps * np.pi] = -1.0
     A, B, C, D = model.A, model.B, model.C, model.D
     n = A.shape[0]
     if n == 0:

@@ -45,6 +45,7 @@ __all__ = [
     "LumpedModel",
     "lumped_controller",
     "plant_path",
+    "default_loop_signals",
     "controller_transfer_function",
     "SampledLoopComparison",
     "sampled_loop_margins",
@@ -173,6 +174,35 @@ def plant_path(diagram: Diagram, *, actuator: list[str], measured: list[str]) ->
     return _cut_map(diagram, list(actuator), list(measured), what="plant path")
 
 
+def default_loop_signals(diagram: Diagram) -> tuple[list[str], list[str]]:
+    """The signals a lumped controller is usually taken between, read off the estimator.
+
+    Returns
+    -------
+    (measured, actuator) : (list of str, list of str)
+        The signal into the estimator's ``y`` input, and the signal into the ``u`` input of
+        the plant the estimator is linked to.
+
+    Raises
+    ------
+    DesignError
+        The diagram has no estimator or several, the estimator is not linked to a plant, or
+        either input is not wired; the message says to name the signals.
+    """
+    ests = [b for b in diagram.blocks.values() if b.kind == "estimator"]
+    if len(ests) != 1:
+        raise DesignError(f"the diagram has {len(ests)} estimators; name the controller's measured and actuator signals")
+    est = ests[0]
+    y = diagram.wire_into(PortRef(est.id, "y"))
+    plant_name = est.params.get("plant")
+    u = None
+    if isinstance(plant_name, str) and plant_name in {b.name for b in diagram.blocks.values()}:
+        u = diagram.wire_into(PortRef(diagram.block_by_name(plant_name).id, "u"))
+    if y is None or u is None:
+        raise DesignError(f"cannot tell the measured and actuator signals from estimator {est.name!r}; name them")
+    return [y.name], [u.name]
+
+
 def controller_transfer_function(model: LumpedModel) -> dict:
     """Transfer function, poles and zeros of a single-input single-output lumped model.
 
@@ -267,19 +297,25 @@ def sampled_loop_margins(
     Pd = discretize(P.A, P.B, P.C, P.D, ts, method="zoh")
     Ad, Bd, Cd, Dd = _close_channels(*_series_loop(Kd, Pd), channel)
     w_nyq = np.pi / ts
-    poles = np.concatenate([np.linalg.eigvals(K.A), np.linalg.eigvals(P.A)]) if (K.A.size or P.A.size) else np.zeros(0)
-    if poles.size:
-        # integrators computed as tiny nonzero poles would stretch the grid down to 1e-9 rad/s
-        poles = poles[np.abs(poles) > 1e-6 * max(1.0, float(np.max(np.abs(poles))))]
-    grid = auto_frequency_grid(poles, w_max=w_nyq * (1 - 1e-9), points_per_decade=max(60, points // 8))
-    grid = np.unique(np.concatenate([grid, np.linspace(grid[0], w_nyq * (1 - 1e-9), points)]))
-    Lz = discrete_frequency_response(DiscreteModel(Ad, Bd, Cd, Dd, ts, method), grid)[:, 0, 0]
     zpoles = np.linalg.eigvals(Ad) if Ad.size else np.zeros(0)
     # A repeated pole at s = 0 (a double integrator) maps to a defective pole at z = 1 that
     # eig only finds to about sqrt(machine epsilon); count it as an integrator, not unstable.
     near_one = np.abs(zpoles - 1.0) <= 1e-6
     at_one = int(np.sum(near_one))
     unstable = int(np.sum((np.abs(zpoles) > 1.0 + 1e-9) & ~near_one))
+    poles = np.concatenate([np.linalg.eigvals(K.A), np.linalg.eigvals(P.A)]) if (K.A.size or P.A.size) else np.zeros(0)
+    if poles.size:
+        # integrators computed as tiny nonzero poles would stretch the grid down to 1e-9 rad/s
+        poles = poles[np.abs(poles) > 1e-6 * max(1.0, float(np.max(np.abs(poles))))]
+    grid = auto_frequency_grid(poles, w_max=w_nyq * (1 - 1e-9), points_per_decade=max(60, points // 8))
+    # Both ends of the unit circle belong to the grid: z = 1 (w = 0) and z = -1 (w = pi/T),
+    # where the loop of a real model is real. A crossing of the negative real axis there
+    # (the DC gain of a loop around an unstable plant; the Nyquist-frequency crossing of a
+    # sampled loop) sets a gain margin that samples just inside the ends cannot show.
+    # (An end where the loop has a pole -- an integrator at z = 1 -- is left out.)
+    ends = [w for w, z in ((0.0, 1.0), (w_nyq, -1.0)) if not np.any(np.abs(zpoles - z) <= 1e-6)]
+    grid = np.unique(np.concatenate([grid, np.linspace(grid[0], w_nyq, points), ends]))
+    Lz = discrete_frequency_response(DiscreteModel(Ad, Bd, Cd, Dd, ts, method), grid)[:, 0, 0]
     samp = margins_from_response(grid, Lz, open_loop_unstable_poles=unstable, poles_at_origin=at_one)
 
     def db(g: float) -> float:

@@ -685,6 +685,11 @@ def margins_from_response(
         wx = float(np.exp(lw[i] + t * (lw[i + 1] - lw[i]))) if w[i] > 0 else float(w[i] + t * (w[i + 1] - w[i]))
         if re < 0:
             crit.append((-1.0 / re, wx))
+    # a sample exactly on the negative real axis is a crossing the sign test cannot see (the
+    # Nyquist-frequency end z = -1 of a sampled loop, where a real model's response is real)
+    for i in np.nonzero(im[1:] == 0)[0] + 1:
+        if L[i].real < 0:
+            crit.append((-1.0 / L[i].real, float(w[i])))
     # the lowest sample stands for w -> 0 when the loop has no integrator and is (nearly)
     # real there
     if poles_at_origin == 0 and L[0].real < 0 and abs(L[0].imag) <= (1e-9 if w[0] == 0 else 1e-3) * abs(L[0]):

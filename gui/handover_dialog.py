@@ -23,7 +23,7 @@ from loopwright.engine import CAUTION
 from loopwright.engine.cli_common import fmt_num
 from loopwright.engine.errors import EngineError
 from loopwright.engine.export import c_output_paths, c_prefix_for, controller_model, write_c, write_json, write_npz
-from loopwright.engine.lumped import lumped_controller, sampled_loop_margins
+from loopwright.engine.lumped import default_loop_signals, lumped_controller, sampled_loop_margins
 from loopwright.engine.output_paths import check_export_output
 from loopwright.gui.workers import Tasks
 
@@ -116,10 +116,8 @@ def write_handover(diagram, req: HandoverRequest, reading=()) -> list[str]:
 
 def default_signals(diagram) -> tuple[list[str], list[str]]:
     """Measured: the signal into the estimator's y; actuator: the signal into its plant's u."""
-    from loopwright.engine.cli_design import _default_loop_signals
-
     try:
-        return _default_loop_signals(diagram)
+        return default_loop_signals(diagram)
     except EngineError:
         return [], []
 

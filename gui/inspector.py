@@ -8,6 +8,7 @@ diagram keeps its old value. Numbers are never clipped or rounded behind the use
 from __future__ import annotations
 
 import copy
+from contextlib import contextmanager
 
 from PySide6.QtCore import Qt
 from PySide6.QtWidgets import (
@@ -109,6 +110,10 @@ class Inspector(QWidget):
         # Unapplied model drafts by block id: kept across selection changes and redraws.
         self._drafts: dict[str, dict] = {}
         self.model_editor: ModelEditor | None = None
+        # the design recipe's part of the page (gui/recipe_editor.py): the editor shown, and the
+        # session (design worker, messages) that outlives the pages
+        self.recipe_editor = None
+        self.recipe_session = None
         document.params_changed.connect(self._on_block_event)
         document.renamed.connect(self._on_block_event)
         document.caption_changed.connect(self._on_block_event)
@@ -118,6 +123,28 @@ class Inspector(QWidget):
         document.wire_changed.connect(self._on_wire_event)
         document.diagram_replaced.connect(self._on_diagram_replaced)
         self.show_nothing()
+
+    # ---- public interface for the embedded editors ----------------------------------------
+    @property
+    def document(self):
+        """The document the inspector edits."""
+        return self._doc
+
+    @property
+    def block_id(self) -> str | None:
+        """Id of the block shown, or None."""
+        return self._block_id
+
+    @contextmanager
+    def keep_page(self, keep: bool = True):
+        """While inside, edits of the block shown do not rebuild its page (a slider held in the
+        page stays held); ``keep=False`` makes it a no-op."""
+        before = self._building
+        self._building = before or keep
+        try:
+            yield
+        finally:
+            self._building = before
 
     # ---- what to show ----------------------------------------------------------------------
     def show_selection(self, block_ids, wire_ids) -> None:
@@ -228,6 +255,7 @@ class Inspector(QWidget):
         self._block_id, self._wire_id = bid, None
         self.fields, self.errors = {}, {}
         self.model_editor = None
+        self.recipe_editor = None
         page = QWidget()
         form = QFormLayout(page)
         form.setRowWrapPolicy(QFormLayout.RowWrapPolicy.WrapLongRows)

@@ -1,12 +1,18 @@
 """The recipe of a gain or estimator block, edited in the inspector, with a Design button.
 
-:class:`RecipeEditor` shows the method (pole placement, Ackermann, LQR, feedforward; for an
-estimator pole placement, Ackermann or Kalman filter), its inputs (poles as a list where a
-complex pair is written once as ``re ± im j``; Q and R; W and V, with the intensities the
-engine traces from the diagram's noise sources as the defaults), the plant it designs from,
-and the result's checks (controllability or observability of the plant, the poles the gain
-gives, the gain's size). A log-scale slider scales the LQR control weight R or the Kalman
-measurement intensity V and redesigns while it moves (one undo step per slider drag).
+:class:`RecipeEditor` shows every field of the recipe's method: the method (pole placement,
+Ackermann, LQR, feedforward; for an estimator pole placement, Ackermann or Kalman filter),
+the plant it designs from, the poles (a list where a complex pair is written once as
+``re ± im j``), Q, R and the cross weight N, W, V and G (with what the engine traces from the
+diagram's noise sources as the defaults), the plant inputs a state feedback may use, the
+outputs a feedforward tracks, integral action (the gain block that gets K_i and the outputs
+integrated) and the sign that maps the design onto the block. A field that cannot be read is
+named in a one-line message; Design (or Enter in a field) applies the form as one undo step
+together with the gains the engine computes. The result's checks (controllability or
+observability of the plant, the poles the gain gives -- with integral action those of the
+augmented plant -- and the gain's size) are shown in place. A log-scale slider scales the LQR
+control weight R or the Kalman measurement intensity V and redesigns while it moves (one
+undo step per slider drag).
 
 The inspector embeds it with one call (:func:`embed_recipe_editor`). The engine designs
 (:func:`loopwright.engine.recipes.redesign`) on the task worker; the result is pushed as one
@@ -16,7 +22,6 @@ The inspector embeds it with one call (:func:`embed_recipe_editor`). The engine 
 """
 from __future__ import annotations
 
-import copy
 import json
 import math
 
@@ -31,16 +36,18 @@ from loopwright.engine.blocks import plant_matrices
 from loopwright.engine.design import poles_to_json, uncontrollable_modes, unobservable_modes
 from loopwright.engine.errors import EngineError
 from loopwright.engine.recipes import noise_defaults, recipe_blocks, recipe_plant, stale_blocks
+from loopwright.engine.tracking import integral_augmentation
 from loopwright.gui.design_commands import DesignBlocks, redesigned_params
 from loopwright.gui.workers import Tasks
 
 __all__ = [
-    "GAIN_CHOICES", "ESTIMATOR_CHOICES", "parse_poles", "format_poles", "design_checks", "design_states",
+    "GAIN_CHOICES", "ESTIMATOR_CHOICES", "parse_poles", "format_poles", "parse_indices", "design_checks", "design_states",
     "RecipeEditor", "RecipeSession", "DesignMarks", "embed_recipe_editor",
 ]
 
 GAIN_CHOICES = (("pole placement", "place"), ("Ackermann's formula", "ackermann"), ("LQR", "lqr"), ("feedforward", "feedforward"))
 ESTIMATOR_CHOICES = (("pole placement", "place"), ("Ackermann's formula", "ackermann"), ("Kalman filter", "kalman"))
+_FIELD_MIN_PX = 150  # the narrowest a text field of the form gets
 _SLIDER_DECADES = 3  # the weight slider spans 1/1000 .. 1000 times the weight it started from
 
 
@@ -109,6 +116,28 @@ def _parse_weight(text: str, field: str):
     return v
 
 
+def parse_indices(text: str, field: str) -> list[int] | None:
+    """``"1, 3"`` -> ``[1, 3]`` (1-based plant inputs or outputs, as the recipe keeps them);
+    empty -> None (all). Raises ValueError naming the field."""
+    parts = [p.strip() for p in text.replace(";", ",").split(",") if p.strip()]
+    if not parts:
+        return None
+    out = []
+    for p in parts:
+        try:
+            v = int(p)
+        except ValueError:
+            raise ValueError(f"{field}: {p!r} is not a whole number; list 1-based numbers, e.g. '1, 2' (empty: all)") from None
+        if v < 1:
+            raise ValueError(f"{field}: {v} is not a 1-based number (the first is 1)")
+        out.append(v)
+    return out
+
+
+def _indices_text(v) -> str:
+    return ", ".join(str(i) for i in v) if isinstance(v, list) else ""
+
+
 def _weight_text(v) -> str:
     return "" if v is None else json.dumps(v)
 
@@ -116,6 +145,27 @@ def _weight_text(v) -> str:
 def _scaled(v, factor: float):
     """A recipe weight times ``factor`` (number, diagonal list or matrix)."""
     return (np.asarray(v, dtype=float) * factor).tolist() if not isinstance(v, (int, float)) else float(v) * factor
+
+
+def _text_row(form: QFormLayout, key: str, label: str, text: str, hint: str) -> QLineEdit:
+    """A text field ``recipe_<key>`` on its own form row."""
+    e = QLineEdit(text)
+    e.setObjectName(f"recipe_{key}")
+    e.setPlaceholderText(hint)
+    form.addRow(label, e)
+    return e
+
+
+def _choice_row(form: QFormLayout, key: str, label: str, items, current) -> QComboBox:
+    """A choice ``recipe_<key>`` of ``(text, value)`` items on its own form row, set to ``current``
+    (the first item when ``current`` is not among them)."""
+    box = QComboBox()
+    box.setObjectName(f"recipe_{key}")
+    for text, value in items:
+        box.addItem(text, value)
+    box.setCurrentIndex(max(0, box.findData(current)))
+    form.addRow(label, box)
+    return box
 
 
 # ---------------------------------------------------------------------------------------
@@ -143,7 +193,13 @@ def design_checks(diagram, name: str) -> dict:
     if b.kind == "gain":
         out["structure"] = list(uncontrollable_modes(A, B))
         K = np.asarray(b.params.get("K"), dtype=float)
-        if rec.get("method") != "feedforward" and rec.get("integral") is None and K.shape == (B.shape[1], A.shape[0]):
+        integral = _integral_loop(d, rec, A, B, C, _D, K)
+        if integral is not None:
+            Aa, Ba, Kd = integral
+            out["poles"] = np.linalg.eigvals(Aa - Ba @ Kd)
+            out["gain_norm"] = float(np.linalg.norm(Kd, 2))
+            out["integral"] = True
+        elif rec.get("method") != "feedforward" and rec.get("integral") is None and K.shape == (B.shape[1], A.shape[0]):
             Kd = float(rec.get("sign", -1)) * K
             out["poles"] = np.linalg.eigvals(A - B @ Kd)
             out["gain_norm"] = float(np.linalg.norm(Kd, 2))
@@ -164,6 +220,25 @@ def design_checks(diagram, name: str) -> dict:
             out["defaults"] = None
     out["state"] = _state(d, b)
     return out
+
+
+def _integral_loop(diagram, rec: dict, A, B, C, D, K):
+    """``(Aa, Ba, [K_x, K_i])`` of a designed integral-action recipe, or None when the recipe
+    has no integral action or its gains do not fit (the Design button names what is wrong)."""
+    integ = rec.get("integral")
+    if rec.get("method") == "feedforward" or not isinstance(integ, dict) or not isinstance(integ.get("block"), str):
+        return None
+    try:
+        ki = np.asarray(diagram.block_by_name(integ["block"]).params.get("K"), dtype=float)
+        outs = integ.get("outputs")
+        Aa, Ba = integral_augmentation(A, B, C, D, outputs=None if outs is None else [int(o) - 1 for o in outs])
+    except (EngineError, TypeError, ValueError, IndexError):
+        return None
+    n, q = A.shape[0], Aa.shape[0] - A.shape[0]
+    if K.shape != (B.shape[1], n) or ki.shape != (B.shape[1], q):
+        return None
+    # the blocks hold sign * K_x and sign * K_i, and sign is +-1
+    return Aa, Ba, float(rec.get("sign", -1)) * np.hstack([K, ki])
 
 
 def _state(diagram, block) -> str:
@@ -216,40 +291,48 @@ class RecipeEditor(QGroupBox):
         self.state_label.setWordWrap(True)
         lay.addWidget(self.state_label)
         form = QFormLayout()
+        form.setRowWrapPolicy(QFormLayout.RowWrapPolicy.WrapLongRows)  # a narrow inspector puts labels above
         lay.addLayout(form)
-        self.method_box = QComboBox()
-        self.method_box.setObjectName("recipe_method")
-        self.method_box.addItem("(no recipe)", None)
-        for label, key in (GAIN_CHOICES if self._kind == "gain" else ESTIMATOR_CHOICES):
-            self.method_box.addItem(label, key)
-        self.method_box.setCurrentIndex(max(0, self.method_box.findData(rec.get("method"))))
-        form.addRow("method", self.method_box)
-        self.plant_box = QComboBox()
-        self.plant_box.setObjectName("recipe_plant")
-        self.plant_box.addItem("(as wired)", None)
-        for b in sorted(document.diagram.blocks.values(), key=lambda b: b.name):
-            if b.kind in ("plant", "dynamic"):
-                self.plant_box.addItem(b.name, b.name)
-        self.plant_box.setCurrentIndex(max(0, self.plant_box.findData(rec.get("plant"))))
-        form.addRow("designs for plant", self.plant_box)
-        self.poles_edit = QLineEdit(format_poles(rec["poles"]) if isinstance(rec.get("poles"), list) else "")
-        self.poles_edit.setObjectName("recipe_poles")
-        self.poles_edit.setPlaceholderText("one per state, a pair once: -2 ± 3j, -5")
-        form.addRow("poles (rad/s)", self.poles_edit)
-        self.weights = {}
-        for key, label in (("Q", "Q (state weight)"), ("R", "R (input weight)"), ("W", "W (process noise)"),
-                           ("V", "V (measurement noise)")):
-            e = QLineEdit(_weight_text(rec.get(key)))
-            e.setObjectName(f"recipe_{key}")
-            self.weights[key] = e
-            form.addRow(label, e)
-        self.feedback_box = QComboBox()
-        self.feedback_box.setObjectName("recipe_feedback")
-        for b in sorted(document.diagram.blocks.values(), key=lambda b: b.name):
-            if b.kind == "gain" and b.id != block_id:
-                self.feedback_box.addItem(b.name, b.name)
-        self.feedback_box.setCurrentIndex(max(0, self.feedback_box.findData(rec.get("feedback"))))
-        form.addRow("feedback gain", self.feedback_box)
+        choices = GAIN_CHOICES if self._kind == "gain" else ESTIMATOR_CHOICES
+        self.method_box = _choice_row(form, "method", "method", [("(no recipe)", None), *choices], rec.get("method"))
+        plants = [b.name for b in sorted(document.diagram.blocks.values(), key=lambda b: b.name) if b.kind in ("plant", "dynamic")]
+        self.plant_box = _choice_row(form, "plant", "designs for plant", [("(as wired)", None)] + [(n, n) for n in plants],
+                                     rec.get("plant"))
+        self.poles_edit = _text_row(form, "poles", "poles (rad/s)",
+                                    format_poles(rec["poles"]) if isinstance(rec.get("poles"), list) else "",
+                                    "one per state, a pair once: -2 ± 3j, -5")
+        self.weights = {
+            key: _text_row(form, key, label, _weight_text(rec.get(key)), hint)
+            for key, label, hint in (
+                ("Q", "Q (state weight)", "a number (times I), a diagonal list or a matrix [[...], [...]]"),
+                ("R", "R (input weight)", "a number (times I), a diagonal list or a matrix"),
+                ("N", "N (cross weight)", "optional: states x inputs matrix; empty: none"),
+                ("W", "W (process noise)", ""),
+                ("V", "V (measurement noise)", ""),
+                ("G", "G (how W enters the states)", "optional: states x W's size; empty: from the noise sources"),
+            )
+        }
+        self.inputs_edit = _text_row(form, "inputs", "inputs used", _indices_text(rec.get("inputs")),
+                                     "1-based plant inputs the gain may use; empty: all")
+        others = [b.name for b in sorted(document.diagram.blocks.values(), key=lambda b: b.name)
+                  if b.kind == "gain" and b.id != block_id]
+        self.feedback_box = _choice_row(form, "feedback", "feedback gain", [(n, n) for n in others], rec.get("feedback"))
+        self.outputs_edit = _text_row(form, "outputs", "outputs tracked", _indices_text(rec.get("outputs")),
+                                      "1-based plant outputs to track; empty: all")
+        integ = rec.get("integral") if isinstance(rec.get("integral"), dict) else {}
+        self.integral_box = _choice_row(form, "integral", "integral gain block", [("(none)", None)] + [(n, n) for n in others],
+                                        integ.get("block"))
+        self.integral_box.setToolTip("Integral action: the gain block fed by the integral of r - y "
+                                     "gets K_i; the poles then number plant states + integrators")
+        self.integral_outputs_edit = _text_row(form, "integral_outputs", "integrated outputs", _indices_text(integ.get("outputs")),
+                                               "1-based plant outputs integrated; empty: all")
+        self._sign_given = "sign" in rec
+        sign = rec.get("sign", self._default_sign(rec.get("method")))
+        self.sign_box = _choice_row(form, "sign", "sign", [("−1: block holds −K", -1), ("+1: block holds K", 1)],
+                                    int(sign) if sign in (1, -1) else -1)
+        self.sign_box.setToolTip("−1: the block holds −K and feeds a '+' input (state feedback's default); "
+                                 "+1: the block holds K, the minus sits in a summing junction (feedforward's default)")
+        self.sign_box.activated.connect(self._on_sign_chosen)
         self.slider = QSlider(Qt.Orientation.Horizontal)
         self.slider.setObjectName("recipe_weight_slider")
         self.slider.setRange(-100 * _SLIDER_DECADES, 100 * _SLIDER_DECADES)
@@ -262,8 +345,13 @@ class RecipeEditor(QGroupBox):
         rl.addWidget(self.slider_label)
         self.slider_row_label = QLabel("")
         form.addRow(self.slider_row_label, row)
-        self._rows = {"poles": self.poles_edit, "Q": self.weights["Q"], "R": self.weights["R"], "W": self.weights["W"],
-                      "V": self.weights["V"], "feedback": self.feedback_box, "slider": row}
+        self._rows = {"poles": self.poles_edit, **self.weights, "inputs": self.inputs_edit, "feedback": self.feedback_box,
+                      "outputs": self.outputs_edit, "integral": self.integral_box, "integral_outputs": self.integral_outputs_edit,
+                      "sign": self.sign_box, "slider": row}
+        for e in (self.poles_edit, *self.weights.values(), self.inputs_edit, self.outputs_edit, self.integral_outputs_edit):
+            e.returnPressed.connect(self.design)  # Enter in a field applies the recipe, as Design does
+            # wide enough to read; a row whose label leaves less room puts its label above instead
+            e.setMinimumWidth(_FIELD_MIN_PX)
         self._form = form
         buttons = QHBoxLayout()
         self.design_button = QPushButton("Design")
@@ -284,6 +372,7 @@ class RecipeEditor(QGroupBox):
         lay.addWidget(self.result)
         self.design_button.clicked.connect(self.design)
         self.method_box.currentIndexChanged.connect(self._on_method)
+        self.integral_box.currentIndexChanged.connect(self._on_method)
         self.slider.sliderPressed.connect(self._on_slider_pressed)
         self.slider.valueChanged.connect(self._on_slider)
         self.slider.sliderReleased.connect(self._on_slider_released)
@@ -298,26 +387,40 @@ class RecipeEditor(QGroupBox):
     def block_name(self) -> str:
         return self._doc.diagram.blocks[self._bid].name
 
+    @staticmethod
+    def _default_sign(method) -> int:
+        return 1 if method == "feedforward" else -1
+
+    def _on_sign_chosen(self, *_a) -> None:
+        self._sign_given = True
+
     def _on_method(self, *_a) -> None:
         m = self.method_box.currentData()
-        show = {"poles": m in ("place", "ackermann"), "Q": m == "lqr", "R": m == "lqr", "W": m == "kalman",
-                "V": m == "kalman", "feedback": m == "feedforward", "slider": m in ("lqr", "kalman")}
+        gain = self._kind == "gain"
+        feedback = gain and m in ("place", "ackermann", "lqr")
+        integral = feedback and self.integral_box.currentData() is not None
+        show = {"poles": m in ("place", "ackermann"), "Q": m == "lqr", "R": m == "lqr", "N": m == "lqr",
+                "W": m == "kalman", "V": m == "kalman", "G": m == "kalman", "inputs": feedback,
+                "feedback": gain and m == "feedforward", "outputs": gain and m == "feedforward",
+                "integral": feedback, "integral_outputs": integral, "sign": gain and m is not None,
+                "slider": m in ("lqr", "kalman")}
         for key, w in self._rows.items():
             self._form.setRowVisible(w, show[key])
+        if not self._sign_given:  # the method's default until the user picks one
+            self.sign_box.setCurrentIndex(self.sign_box.findData(self._default_sign(m)))
+        self._form.labelForField(self.poles_edit).setText(
+            "poles (rad/s), plant states + integrators" if integral else "poles (rad/s)")
         self.plant_box.setEnabled(m is not None)
         self.design_button.setEnabled(m is not None)
         self.slider_row_label.setText("scale R (log)" if m == "lqr" else "scale V (log)")
 
     def recipe(self) -> dict:
-        """The recipe the form describes; raises ValueError naming the field."""
-        blk = self._doc.diagram.blocks[self._bid]
-        old = blk.params.get("recipe") if isinstance(blk.params.get("recipe"), dict) else {}
+        """The recipe the form describes (every field of the method); raises ValueError naming
+        the field."""
         m = self.method_box.currentData()
         if m is None:
-            raise ValueError("choose a design method first")
-        # keys the form does not show (sign, inputs, outputs, integral, N, G) are kept as they were
-        rec = {k: copy.deepcopy(v) for k, v in old.items() if k in ("sign", "inputs", "outputs", "integral", "N", "G")}
-        rec["method"] = m
+            raise ValueError("method: choose a design method first")
+        rec: dict = {"method": m}
         if self.plant_box.currentData() is not None:
             rec["plant"] = self.plant_box.currentData()
         if m in ("place", "ackermann"):
@@ -328,19 +431,36 @@ class RecipeEditor(QGroupBox):
                 if v is None:
                     raise ValueError(f"{key}: LQR needs a weight (a number, a diagonal list or a matrix)")
                 rec[key] = v
+            cross = _parse_weight(self.weights["N"].text(), "N")
+            if cross is not None:
+                rec["N"] = cross
         elif m == "kalman":
-            for key in ("W", "V"):
+            for key in ("W", "V", "G"):
                 v = _parse_weight(self.weights[key].text(), key)
                 if v is not None:  # empty: the engine traces it from the noise sources
                     rec[key] = v
-            if "W" not in rec:
-                rec.pop("G", None)
+            if "G" in rec and "W" not in rec:
+                raise ValueError("G: state W too (G says how W enters the states); or leave both empty for the noise sources")
         else:
             if self.feedback_box.currentData() is None:
-                raise ValueError("feedforward needs the gain block that holds the state feedback")
+                raise ValueError("feedback gain: feedforward needs the gain block that holds the state feedback")
             rec["feedback"] = self.feedback_box.currentData()
-        if m != "kalman":
-            rec.pop("G", None)
+            outs = parse_indices(self.outputs_edit.text(), "outputs tracked")
+            if outs is not None:
+                rec["outputs"] = outs
+        if self._kind == "gain" and m in ("place", "ackermann", "lqr"):
+            inputs = parse_indices(self.inputs_edit.text(), "inputs used")
+            if inputs is not None:
+                rec["inputs"] = inputs
+            if self.integral_box.currentData() is not None:
+                rec["integral"] = {"block": self.integral_box.currentData()}
+                outs = parse_indices(self.integral_outputs_edit.text(), "integrated outputs")
+                if outs is not None:
+                    rec["integral"]["outputs"] = outs
+        if self._kind == "gain":
+            sign = int(self.sign_box.currentData())
+            if self._sign_given or sign != self._default_sign(m):
+                rec["sign"] = sign
         return rec
 
     # ---- designing ----------------------------------------------------------------------------------
@@ -377,7 +497,8 @@ class RecipeEditor(QGroupBox):
         lines = [f"plant {c['plant']}: " + ("no " + what + " modes" if not c["structure"]
                                              else f"{what} modes " + ", ".join(f"{complex(z):.4g}" for z in c["structure"]))]
         if c["poles"] is not None:
-            label = "eig(A − B K)" if self._kind == "gain" else "eig(A − L C)"
+            label = ("eig(A − B K) with the integrators" if c.get("integral") else "eig(A − B K)") if self._kind == "gain" \
+                else "eig(A − L C)"
             lines.append(f"{label}: {format_poles(poles_to_json(np.sort_complex(c['poles'])))}")
         if math.isfinite(c["gain_norm"]):
             lines.append(f"gain size (largest singular value): {c['gain_norm']:.5g}")
@@ -432,7 +553,7 @@ class RecipeSession(QObject):
     def __init__(self, inspector):
         super().__init__(inspector)
         self._inspector = inspector
-        self._doc = inspector._doc
+        self._doc = inspector.document
         self.tasks = Tasks(self)
         self.tasks.finished.connect(self._on_task)
         self.memory: dict[str, str] = {}
@@ -459,7 +580,7 @@ class RecipeSession(QObject):
     def gesture_ended(self, block_id: str) -> None:
         self._in_gesture.clear()
         # the page kept still during the drag; now show the gains the drag left
-        QTimer.singleShot(0, lambda: self._inspector.show_block(block_id) if self._inspector._block_id == block_id else None)
+        QTimer.singleShot(0, lambda: self._inspector.show_block(block_id) if self._inspector.block_id == block_id else None)
 
     def submit_design(self, snapshot, name: str, recipe: dict, gesture: int | None) -> None:
         token = self.tasks.submit("design", redesigned_params, snapshot, name, recipe)
@@ -487,13 +608,8 @@ class RecipeSession(QObject):
             what = "slider" if gesture is not None else "recipe"
             cmd = DesignBlocks(self._doc, changes, text=f"Design {name} from its {what}", gesture=gesture)
             # while a slider is held its page must stay (rebuilding it would drop the drag)
-            hold = gesture is not None and gesture in self._in_gesture
-            self._inspector._building = hold or self._inspector._building
-            try:
+            with self._inspector.keep_page(gesture is not None and gesture in self._in_gesture):
                 self._doc.push(cmd)
-            finally:
-                if hold:
-                    self._inspector._building = False
         if ed is not None and self.editor is ed:
             ed.designed.emit(name)
 
@@ -505,10 +621,10 @@ def embed_recipe_editor(inspector, form: QFormLayout, blk) -> RecipeEditor | Non
     """Add the recipe editor under a gain or estimator block's fields (the inspector's hook)."""
     if blk.kind not in ("gain", "estimator"):
         return None
-    session = inspector.__dict__.get("recipe_session")
+    session = inspector.recipe_session
     if session is None:
         session = inspector.recipe_session = RecipeSession(inspector)
-    editor = RecipeEditor(inspector._doc, blk.id, session=session)
+    editor = RecipeEditor(inspector.document, blk.id, session=session)
     form.addRow(editor)
     inspector.recipe_editor = editor
     return editor

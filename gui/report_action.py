@@ -49,6 +49,12 @@ def scene_svg(scene, *, margin: float = 24.0) -> str:
     cached = [(it, it.cacheMode()) for it in scene.items() if it.cacheMode() != QGraphicsItem.CacheMode.NoCache]
     for it, _mode in cached:
         it.setCacheMode(QGraphicsItem.CacheMode.NoCache)
+    # the selection is the user's focus in the app, not part of the drawing; the inspector must not
+    # notice it going and coming back
+    selected = scene.selectedItems()
+    blocked = scene.blockSignals(True)
+    for it in selected:
+        it.setSelected(False)
 
     def paint(p):
         scene.render(p, QRectF(0, 0, w, h), src)
@@ -56,6 +62,9 @@ def scene_svg(scene, *, margin: float = 24.0) -> str:
     try:
         return _svg_text(paint, w, h, "Loopwright diagram")
     finally:
+        for it in selected:
+            it.setSelected(True)
+        scene.blockSignals(blocked)
         for it, mode in cached:
             it.setCacheMode(mode)
         scene.grid_size = old_grid
@@ -92,6 +101,7 @@ def widget_png(widget: QWidget) -> bytes:
 
 
 _PAIR_VIEWS = ("frequency", "time", "singular_values")  # views that show the kept pairs
+_HIDDEN_VIEW_SIZE = (640, 420)  # pixels: a view behind a tab is drawn at least this large in the report
 
 
 def open_view_pictures(window) -> tuple[list[Picture], list[str]]:
@@ -117,6 +127,11 @@ def open_view_pictures(window) -> tuple[list[Picture], list[str]]:
         if window.views._fresh.get(key) != revision or getattr(panel, "data", True) is None:
             skipped.append(title)
             continue
+        if dock.visibleRegion().isEmpty():
+            # behind a tab the panel was never laid out at a readable size: lay it out for the picture
+            panel.resize(max(panel.width(), _HIDDEN_VIEW_SIZE[0]), max(panel.height(), _HIDDEN_VIEW_SIZE[1]))
+            if panel.layout() is not None:
+                panel.layout().activate()
         note = panel.message.text() if panel.message.isVisible() else ""
         pictures.append(Picture(f"{title} (as open in the app)", png=widget_png(panel.picture_widget()), note=note))
     return pictures, skipped

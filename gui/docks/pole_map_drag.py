@@ -22,6 +22,10 @@ _REFRESH_MS = 80  # views follow a drag at most this often
 def recipe_handles(diagram) -> list[dict]:
     """The draggable poles: one entry per pole-placement recipe (gain or estimator block).
 
+    A recipe with integral action lists the poles of the plant augmented with the integrators
+    (``n + q``); all of them are handles, and a drag redesigns both gains (the state feedback
+    and the integral gain the recipe names) in one step.
+
     Returns
     -------
     list of dict
@@ -32,7 +36,7 @@ def recipe_handles(diagram) -> list[dict]:
         rec = b.params.get("recipe")
         if b.kind not in ("gain", "estimator") or not isinstance(rec, dict):
             continue
-        if rec.get("method") not in ("place", "ackermann") or rec.get("integral") is not None or not isinstance(rec.get("poles"), list):
+        if rec.get("method") not in ("place", "ackermann") or not isinstance(rec.get("poles"), list):
             continue
         try:
             poles = np.array([complex(p[0], p[1]) if isinstance(p, list) else complex(p) for p in rec["poles"]])
@@ -194,6 +198,8 @@ class PoleDragger(QObject):
             return
         name = results[0].block if results else "?"
         what = "K" if results and results[0].kind == "gain" else "L"
+        if results and results[0].linked:  # integral action: the integral gain moved too
+            what += " and " + ", ".join(results[0].linked)
         self._doc.push(DesignBlocks(self._doc, changes, text=f"Retune {name} ({what}) on the pole map", gesture=gesture))
         self.retuned.emit(name)
         if not self._timer.isActive():

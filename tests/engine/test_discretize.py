@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from loopwright.engine.discretize import discrete_frequency_response, discretize, simulate_discrete
+from loopwright.engine.discretize import DiscreteModel, discrete_frequency_response, discretize, simulate_discrete
 from loopwright.engine.errors import DesignError
 
 # Demo data: a gimbal axis with a flexible mount and a lead filter.
@@ -126,3 +126,15 @@ def test_static_model_discretises_to_itself():
     dm = discretize(np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), [[2.5]], 0.1, method="tustin")
     assert_allclose(dm.D, [[2.5]])
     assert_allclose(simulate_discrete(dm, [1.0, 2.0]), [[2.5], [5.0]])
+
+
+def test_response_at_the_nyquist_frequency_is_real_and_matches_z_minus_one():
+    # Closed form: at w = pi/T, z = e^{j pi} = -1, and a real model's G(-1) = C (-I - A)^-1 B + D
+    # is real; the margin search reads a crossing of the negative real axis there.
+    A = np.array([[0.9, 0.2], [-0.1, 0.7]])
+    B, C, D = np.array([[1.0], [0.5]]), np.array([[1.0, -2.0]]), np.array([[0.1]])
+    ts = 1e-3
+    dm = DiscreteModel(A, B, C, D, ts, "zoh")
+    got = discrete_frequency_response(dm, [np.pi / ts])[0]
+    assert got.imag[0, 0] == 0.0
+    assert_allclose(got.real, C @ np.linalg.solve(-np.eye(2) - A, B) + D, rtol=1e-13)

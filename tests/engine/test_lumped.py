@@ -10,6 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
+from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import AnalysisError, DesignError, UnknownNameError
 from loopwright.engine.lumped import (
     controller_transfer_function,
@@ -196,3 +197,85 @@ def test_controller_may_read_the_reference_for_its_feedforward():
     assert k.input_names == ("y_meas", "r")
     assert_allclose(k.D, [[0.0, 3750.0]], atol=1e-9)
     assert k.A.shape == (3, 3)
+
+
+def _rotor_redesigned():
+    # levitated-rotor sample (demo data) with the estimator made slower at one pole and the
+    # state feedback moved to -100 +- 50j, -150
+    import copy
+
+    d = load(sample_path("levitated_rotor_axis.lwd"))
+    for name, poles in (("est", [-400, -350, -200.7]), ("K", [[-100, 50], [-100, -50], -150])):
+        b = d.block_by_name(name)
+        params = copy.deepcopy(b.params)
+        params["recipe"]["poles"] = poles
+        d.set_params(b.id, params)
+    return redesign(d)[0]
+
+
+def _sampled_loop_reference(k, p, ts):
+    """python-control 0.10.2: ZOH of the lumped controller and of the plant path, L_d = -K_d P_d."""
+    kd = ct.sample_system(ct.ss(k.A, k.B, k.C, k.D), ts, method="zoh")
+    pd = ct.sample_system(ct.ss(p.A, p.B, p.C, p.D), ts, method="zoh")
+    return -kd * pd
+
+
+def _closed_loop_stable(loop, g) -> bool:
+    return bool(np.max(np.abs(ct.feedback(g * loop, 1).poles())) < 1.0)
+
+
+@pytest.mark.parametrize("ts", [2e-4, 1e-4, 5e-5], ids=["ts-2e-4", "ts-1e-4", "ts-5e-5"])
+def test_sampled_lower_gain_of_loop_around_unstable_plant_is_set_at_dc(ts):
+    # The plant is open-loop unstable, so the sampled loop cannot stay stable down to gain 0.
+    # Closed form: ZOH keeps DC gains (L_d(z=1) = L(s=0)), so the lower gain factor of the
+    # sampled loop is -1/L(0), the continuous one. Reference: python-control 0.10.2
+    # sample_system + feedback, closed-loop poles of g L_d just below and above the factor.
+    d = _rotor_redesigned()
+    res = sampled_loop_margins(d, measured=["y_meas"], actuator="u", ts=ts)
+    k = lumped_controller(d, measured=["y_meas"], actuator=["u"])
+    p = plant_path(d, actuator=["u"], measured=["y_meas"])
+    dc = -(_freq(k.A, k.B, k.C, k.D, 0.0) @ _freq(p.A, p.B, p.C, p.D, 0.0))[0, 0].real
+    assert_allclose(res.continuous.gain_lower, -1.0 / dc, rtol=1e-9)
+    assert_allclose(res.sampled.gain_lower, -1.0 / dc, rtol=1e-9)
+    assert res.sampled.gain_lower_w_rad_s == 0.0
+    loop = _sampled_loop_reference(k, p, ts)
+    g_lo, g_hi = res.sampled.gain_lower, res.sampled.gain_upper
+    assert not _closed_loop_stable(loop, 0.98 * g_lo) and _closed_loop_stable(loop, 1.02 * g_lo)
+    assert _closed_loop_stable(loop, 0.98 * g_hi) and not _closed_loop_stable(loop, 1.02 * g_hi)
+
+
+def test_sampled_gain_margin_at_the_nyquist_frequency_is_found():
+    # Proportional control of an integrator plant 1/s with gain k, ZOH at period T: closed
+    # form L_d(z) = k T / (z - 1); the closed-loop pole z = 1 - g k T leaves the unit circle
+    # through z = -1 at g = 2 / (k T), i.e. at the Nyquist frequency pi / T.
+    k, T = 50.0, 0.01
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1})
+    d.add_block("sum", "err", {"signs": ["+", "-"], "width": 1})
+    d.add_block("gain", "Kp", {"K": [[k]]})
+    d.add_block("plant", "P", {"A": [[0.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]]})
+    d.connect("r.out", "err.in1", name="r")
+    d.connect("err.out", "Kp.in", name="e")
+    d.connect("Kp.out", "P.u", name="u")
+    d.connect("P.y", "err.in2", name="y")
+    res = sampled_loop_margins(d, measured=["y"], actuator="u", ts=T)
+    assert res.sampled.closed_loop_stable
+    assert_allclose(res.sampled.gain_upper, 2.0 / (k * T), rtol=1e-9)
+    assert_allclose(res.sampled.gain_upper_w_rad_s, np.pi / T, rtol=1e-12)
+    assert res.continuous.gain_upper == np.inf
+    # python-control 0.10.2: the closed-loop pole crosses the unit circle at that factor
+    loop = _sampled_loop_reference(lumped_controller(d, measured=["y"], actuator=["u"]),
+                                   plant_path(d, actuator=["u"], measured=["y"]), T)
+    assert _closed_loop_stable(loop, 0.99 * res.sampled.gain_upper)
+    assert not _closed_loop_stable(loop, 1.01 * res.sampled.gain_upper)
+
+
+def test_default_loop_signals_are_read_off_the_estimator():
+    # levitated-rotor sample (demo data): the estimator reads y_meas, its plant P is driven by u
+    from loopwright.engine.lumped import default_loop_signals
+
+    d = load(sample_path("levitated_rotor_axis.lwd"))
+    assert default_loop_signals(d) == (["y_meas"], ["u"])
+    d.add_block("estimator", "est2", {"plant": "P", "L": [[1.0], [1.0], [1.0]]})
+    with pytest.raises(DesignError, match="has 2 estimators; name the controller's measured and actuator signals"):
+        default_loop_signals(d)

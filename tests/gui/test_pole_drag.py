@@ -132,3 +132,59 @@ def test_moved_poles_keep_pairs_and_real_poles():
     assert_allclose(new, [-80 + 60j, -80 - 60j, -200])
     new = moved_poles(poles, 0, complex(-70, 0))  # onto the axis: still a pair
     assert new[0].imag > 0 and new[1] == np.conj(new[0])
+
+
+@pytest.fixture
+def rotor_integral_map(window, qtbot, tmp_path):
+    """The rotor sample with integral action drawn in (tests/integral_diagrams.py)."""
+    from loopwright.engine.project import save
+
+    from integral_diagrams import rotor_with_integral_action
+
+    path = tmp_path / "rotor_integral.lwd"
+    save(rotor_with_integral_action(), path)
+    window.show()
+    assert window.open_path(str(path))
+    window.view_docks["poles"].show()
+    window.view_docks["poles"].raise_()
+    window.views.refresh_visible()
+    qtbot.waitUntil(lambda: window.views.is_idle() and window.live.is_current() and window.panels["poles"].data is not None,
+                    timeout=30000)
+    return window
+
+
+def test_dragging_an_integral_action_pole_redesigns_both_gains(rotor_integral_map, qtbot):
+    win = rotor_integral_map
+    doc = win.document
+    before = {n: np.array(doc.diagram.block_by_name(n).params["K"]) for n in ("K", "integral_gain")}
+    count = doc.undo_stack.count()
+    released = _drag(qtbot, win, complex(-60, 0), [complex(-55, 3), complex(-45, -2), complex(-40, 0)])
+    tol = 2 * _pixel_size(win)
+    assert abs(released.real + 40) < tol
+    # Reference: python-control 0.10.2 place on the plant augmented with the integral of
+    # r - y (x_i' = -C x), u = -[K_x, K_i] [x; x_i]; the block holds -K_x, the integral gain
+    # block (fed by the integral of r - y) holds -K_i of that augmented design.
+    A, B, C = _plant(doc.diagram)
+    Aa = np.block([[A, np.zeros((3, 1))], [-C, np.zeros((1, 1))]])
+    Ba = np.vstack([B, [[0.0]]])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        Ka = ct.place(Aa, Ba, [-80 + 60j, -80 - 60j, -150, released.real])
+    K_x = np.array(doc.diagram.block_by_name("K").params["K"])
+    K_i = np.array(doc.diagram.block_by_name("integral_gain").params["K"])
+    assert_allclose(-K_x, Ka[:, :3], rtol=1e-6)
+    assert_allclose(-K_i, Ka[:, 3:], rtol=1e-6)
+    assert not np.allclose(K_i, before["integral_gain"])
+    # the closed loop (numpy eig of the assembled model) has the pole where the mouse let go
+    cl = np.linalg.eigvals(assemble(doc.diagram).A)
+    assert np.min(np.abs(cl - released.real)) < tol
+    assert stale_blocks(doc.diagram) == []
+    # the open pole map followed: its table lists the dragged pole
+    qtbot.waitUntil(lambda: _settled(win), timeout=30000)
+    shown = np.array([complex(r["re"], r["im"]) for r in win.panels["poles"].data["table"]])
+    assert np.min(np.abs(shown - released.real)) < tol
+    # one drag, one undo step, both gains back
+    assert doc.undo_stack.count() == count + 1
+    doc.undo_stack.undo()
+    for n, k in before.items():
+        assert_allclose(np.array(doc.diagram.block_by_name(n).params["K"]), k)

@@ -173,3 +173,177 @@ def test_stale_and_not_designed_blocks_are_tagged_on_the_canvas(window, qtbot):
     qtbot.waitUntil(lambda: _idle(window) and K.id not in window.design_marks.tag_texts(), timeout=30000)
     # N reads K: designing K redesigned it too; est still waits for its own design
     assert {doc.diagram.blocks[b].name for b in window.design_marks.tag_texts()} == {"est"}
+
+
+# ---- every field of every method is editable ------------------------------------------------------
+def _design_and_wait(win, qtbot, ed, step):
+    """Design from the form; wait for the one undo step it makes (``step``: the stack's index before)."""
+    assert ed.design()
+    qtbot.waitUntil(lambda: _idle(win) and win.document.undo_stack.index() == step + 1, timeout=30000)
+
+
+def test_sign_inputs_and_feedforward_outputs_are_edited_in_the_form(window, qtbot, tmp_path, capsys):
+    window.show()
+    assert window.open_sample(str(ROTOR))
+    doc = window.document
+    ed = _select(window, qtbot, "K")
+    assert ed.sign_box.currentData() == -1 and ed.inputs_edit.text() == ""
+    for w in (ed.sign_box, ed.inputs_edit, ed.integral_box):
+        assert ed._form.isRowVisible(w)
+    assert not ed._form.isRowVisible(ed.outputs_edit)  # feedforward only
+    step = doc.undo_stack.index()
+    ed.sign_box.setCurrentIndex(ed.sign_box.findData(1))
+    ed.sign_box.activated.emit(ed.sign_box.currentIndex())  # as a pick with the mouse does
+    ed.inputs_edit.setText("1")
+    _design_and_wait(window, qtbot, ed, step)
+    rec = doc.diagram.block_by_name("K").params["recipe"]
+    assert rec["sign"] == 1 and rec["inputs"] == [1]
+    A, B, _C = _plant(doc.diagram)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        K_ref = ct.place(A, B, [-80 + 60j, -80 - 60j, -150])  # python-control 0.10.2 place
+    assert_allclose(np.array(doc.diagram.block_by_name("K").params["K"]), K_ref, rtol=1e-8)  # sign +1: the block holds K
+    ref = _cli_design(tmp_path, doc.diagram, capsys)
+    assert_allclose(np.array(doc.diagram.block_by_name("K").params["K"]), ref["K"], rtol=1e-10)
+    # the feedforward block: its tracked outputs and sign
+    ed = _select(window, qtbot, "N")
+    assert ed._form.isRowVisible(ed.outputs_edit) and not ed._form.isRowVisible(ed.inputs_edit)
+    assert ed.sign_box.currentData() == 1  # the feedforward default
+    ed.outputs_edit.setText("1")
+    ed.sign_box.setCurrentIndex(ed.sign_box.findData(-1))
+    ed.sign_box.activated.emit(ed.sign_box.currentIndex())
+    step = doc.undo_stack.index()
+    _design_and_wait(window, qtbot, ed, step)
+    rec = doc.diagram.block_by_name("N").params["recipe"]
+    assert rec["outputs"] == [1] and rec["sign"] == -1
+    ref = _cli_design(tmp_path, doc.diagram, capsys)
+    assert_allclose(np.array(doc.diagram.block_by_name("N").params["K"]), ref["N"], rtol=1e-10)
+    # closed form: N = -1 / (C (A - B K_design)^-1 B) with K_design = -K_block, times sign -1
+    K_design = np.array(doc.diagram.block_by_name("K").params["K"])  # sign +1 above: the block holds K_design
+    Cn = np.array([[1.0, 0.0, 0.0]])
+    n_ref = -1.0 / (Cn @ np.linalg.solve(A - B @ K_design, B))
+    assert_allclose(np.array(doc.diagram.block_by_name("N").params["K"]), -n_ref, rtol=1e-9)
+
+
+@pytest.mark.parametrize(
+    "block, field, text, message",
+    [
+        ("K", "inputs_edit", "1, x", "inputs used: 'x' is not a whole number"),
+        ("K", "inputs_edit", "0", "inputs used: 0 is not a 1-based number"),
+        ("K", "inputs_edit", "2", "recipe inputs [2] names [2], outside 1..1"),
+        ("N", "outputs_edit", "one", "outputs tracked: 'one' is not a whole number"),
+        ("K", "poles_edit", "-1, -2, zz", "poles: entry 3 'zz'"),
+    ],
+    ids=["inputs-not-a-number", "inputs-zero", "inputs-out-of-range", "outputs-not-a-number", "poles-entry"],
+)
+def test_a_bad_field_is_named_in_one_line_and_changes_nothing(window, qtbot, block, field, text, message):
+    window.show()
+    assert window.open_sample(str(ROTOR))
+    doc = window.document
+    before = json.loads(json.dumps(doc.diagram.block_by_name(block).params))
+    count = doc.undo_stack.count()
+    ed = _select(window, qtbot, block)
+    getattr(ed, field).setText(text)
+    ed.design()
+    qtbot.waitUntil(lambda: _idle(window) and message in ed.message.text(), timeout=30000)
+    assert "\n" not in ed.message.text()
+    assert doc.undo_stack.count() == count
+    assert doc.diagram.block_by_name(block).params == before
+
+
+def test_lqr_cross_weight_and_kalman_g_are_edited_in_the_form(window, qtbot):
+    window.show()
+    assert window.open_sample(str(OVEN))
+    doc = window.document
+    ed = _select(window, qtbot, "K")
+    assert ed._form.isRowVisible(ed.weights["N"]) and not ed._form.isRowVisible(ed.weights["G"])
+    N = [[0.01, 0.0], [0.0, 0.02]]
+    ed.weights["N"].setText(json.dumps(N))
+    step = doc.undo_stack.index()
+    _design_and_wait(window, qtbot, ed, step)
+    assert doc.diagram.block_by_name("K").params["recipe"]["N"] == N
+    A, B, C = _plant(doc.diagram)
+    rec = doc.diagram.block_by_name("K").params["recipe"]
+    Q = np.diag(rec["Q"]) if isinstance(rec["Q"], list) else rec["Q"] * np.eye(A.shape[0])
+    R = rec["R"] * np.eye(B.shape[1]) if not isinstance(rec["R"], list) else np.diag(rec["R"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        K_ref, _S, _E = ct.lqr(A, B, Q, R, np.array(N))  # python-control 0.10.2 lqr with cross weight
+    assert_allclose(-np.array(doc.diagram.block_by_name("K").params["K"]), K_ref, rtol=1e-7)
+    # Kalman: G and W given in the form (V left to the noise sources)
+    ed = _select(window, qtbot, "est")
+    assert ed._form.isRowVisible(ed.weights["G"]) and not ed._form.isRowVisible(ed.weights["N"])
+    G = np.eye(A.shape[0]).tolist()
+    W = [[0.5, 0.0], [0.0, 2.0]]
+    ed.weights["G"].setText(json.dumps(G))
+    ed.weights["W"].setText(json.dumps(W))
+    step = doc.undo_stack.index()
+    _design_and_wait(window, qtbot, ed, step)
+    rec = doc.diagram.block_by_name("est").params["recipe"]
+    assert rec["G"] == G and rec["W"] == W
+    V = np.array(ed.checks["defaults"]["V"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        L_ref, _P, _E = ct.lqe(A, np.array(G), C, np.array(W), V)  # python-control 0.10.2 lqe
+    assert_allclose(np.array(doc.diagram.block_by_name("est").params["L"]), L_ref, rtol=1e-6)
+    # G without W cannot be read: named, nothing changes
+    ed = _select(window, qtbot, "est")
+    ed.weights["W"].setText("")
+    count = doc.undo_stack.count()
+    ed.design()
+    assert ed.message.text().startswith("G: state W too")
+    assert doc.undo_stack.count() == count
+
+
+def test_integral_action_is_edited_in_the_form(window, qtbot, tmp_path, capsys):
+    from integral_diagrams import rotor_with_integral_action
+
+    path = tmp_path / "rotor_integral.lwd"
+    save(rotor_with_integral_action(), path)
+    window.show()
+    assert window.open_path(str(path))
+    doc = window.document
+    ed = _select(window, qtbot, "K")
+    assert ed.integral_box.currentData() == "integral_gain" and ed.integral_outputs_edit.text() == "1"
+    assert ed._form.isRowVisible(ed.integral_outputs_edit)
+    assert "eig(A − B K) with the integrators: -150, -80 ± 60j, -60" in ed.result.text()
+    ed.poles_edit.setText("-90 ± 40j, -160, -50")
+    step = doc.undo_stack.index()
+    _design_and_wait(window, qtbot, ed, step)
+    # python-control 0.10.2 place on the plant augmented with the integral of r - y
+    A, B, C = _plant(doc.diagram)
+    Aa = np.block([[A, np.zeros((3, 1))], [-C, np.zeros((1, 1))]])
+    Ba = np.vstack([B, [[0.0]]])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        Ka = ct.place(Aa, Ba, [-90 + 40j, -90 - 40j, -160, -50])
+    assert_allclose(-np.array(doc.diagram.block_by_name("K").params["K"]), Ka[:, :3], rtol=1e-8)
+    assert_allclose(-np.array(doc.diagram.block_by_name("integral_gain").params["K"]), Ka[:, 3:], rtol=1e-8)
+    ref = _cli_design(tmp_path, doc.diagram, capsys)
+    assert_allclose(np.array(doc.diagram.block_by_name("K").params["K"]), ref["K"], rtol=1e-10)
+    # one step: undo brings both gains and the old poles back
+    doc.undo_stack.undo()
+    assert doc.diagram.block_by_name("K").params["recipe"]["poles"] == [[-80, 60], [-80, -60], -150, -60]
+    # integral action off: the recipe is plain pole placement on the three plant states
+    ed = _select(window, qtbot, "K")
+    ed.integral_box.setCurrentIndex(ed.integral_box.findData(None))
+    assert not ed._form.isRowVisible(ed.integral_outputs_edit)
+    ed.poles_edit.setText("-80 ± 60j, -150")
+    step = doc.undo_stack.index()
+    _design_and_wait(window, qtbot, ed, step)
+    assert "integral" not in doc.diagram.block_by_name("K").params["recipe"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        K_ref = ct.place(A, B, [-80 + 60j, -80 - 60j, -150])  # python-control 0.10.2 place
+    assert_allclose(-np.array(doc.diagram.block_by_name("K").params["K"]), K_ref, rtol=1e-8)
+
+
+def test_the_recipe_form_fits_the_inspector_without_clipping(window, qtbot):
+    # a field wider than the inspector pushes the page past its right edge (the scroll area has
+    # no horizontal bar) and clips every line of the page. The inspector of a 1600-pixel-wide
+    # window is about 310 pixels wide; the form must fit in 300 (common practice, no source).
+    window.show()
+    assert window.open_sample(str(ROTOR))
+    for name in ("K", "N", "est"):
+        ed = _select(window, qtbot, name)
+        assert ed.minimumSizeHint().width() <= 300, name

@@ -90,3 +90,30 @@ def test_headless_report_draws_the_canvas_offscreen(qapp, tmp_path, capsys):
     parsed = _parse(out)
     assert parsed.ids == list(SECTIONS)
     assert "The diagram as drawn on the canvas" in parsed.captions
+
+
+def test_report_draws_views_behind_a_tab_readably_and_leaves_the_selection_out(window, qtbot, tmp_path):
+    # The loop-break view sits behind the time view's tab (never laid out on screen): its picture
+    # must still be drawn at a readable size. The selected block is drawn as any other block, and
+    # stays selected in the app. Common practice, no source.
+    from PySide6.QtGui import QImage
+
+    from loopwright.gui.report_action import open_view_pictures, scene_svg
+
+    window.resize(1400, 900)
+    window.show()
+    assert window.open_sample(str(ROTOR))
+    window.views.refresh("loop_break")
+    qtbot.waitUntil(lambda: window.views.is_idle() and window.live.is_current(), timeout=30000)
+    assert window.view_docks["loop_break"].visibleRegion().isEmpty()  # behind a tab
+    pictures, _skipped = open_view_pictures(window)
+    loop = next(p for p in pictures if p.title.startswith("Loop-break view"))
+    img = QImage.fromData(loop.png)
+    assert img.width() >= 600 and img.height() >= 200
+    k = window.scene.block_items[window.document.diagram.block_by_name("K").id]
+    plain = scene_svg(window.scene)
+    with qtbot.waitSignal(window.scene.selectionChanged, timeout=5000):
+        k.setSelected(True)
+    shown = window.inspector.block_id
+    assert scene_svg(window.scene) == plain
+    assert k.isSelected() and window.inspector.block_id == shown
