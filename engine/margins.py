@@ -887,7 +887,8 @@ def _margins_block_by_block(diagram, base: str, *, skew: float, force: bool) -> 
     if ol is None or cl is None:
         return None
     eps = np.finfo(float).eps
-    if np.any(cl.real >= -_AXIS_ULPS * eps * np.maximum(matrix_scale(closed.A), np.abs(cl))):
+    scale = matrix_scale(closed.A)  # the open loop differs by a coupling of low rank: one balancing serves both
+    if np.any(cl.real >= -_AXIS_ULPS * eps * np.maximum(scale, np.abs(cl))):
         return None  # unstable or marginal: the other route classifies the gain intervals
     d = -float(opened.D[rows, cols][0, 0])
     if _ill_posed(np.array([[d]])):
@@ -915,7 +916,7 @@ def _margins_block_by_block(diagram, base: str, *, skew: float, force: bool) -> 
     grid, L = grid[finite], L[finite]
     if d == 0.0 and not np.any(L != 0.0):
         return None  # nothing comes back: the other route says so in its own words
-    ol_classes = classify_poles(ol, scale=matrix_scale(opened.A))
+    ol_classes = classify_poles(ol, scale=scale)
 
     logmag = np.log(np.abs(L) + 1e-300)
     wc = np.array(_refine_roots(lambda w: np.log(np.abs(Ljw(w)[0]) + 1e-300), grid, logmag))
