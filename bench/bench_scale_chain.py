@@ -68,7 +68,7 @@ def _time_commands(d, gains: int, audit_max: int) -> None:
             "freq r -> y": ["freq", path, "--from", "r", "--to", "y"],
             "margins at u": ["margins", path, "--at", "u"],
             "noise": ["noise", path],
-            "time r -> y": ["time", path, "--from", "r", "--to", "y"],
+            "time, step r -> y": ["time", path, "--step", "r", "--to", "y"],
         }
         if gains <= audit_max:
             commands["audit"] = ["audit", path]

@@ -803,12 +803,16 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
         raise AnalysisError(f"disk-margin skew must be a finite number; got {skew}")
     if route not in ("auto", "whole model", "block by block"):
         raise ValueError(f"route must be 'auto', 'whole model' or 'block by block', not {route!r}")
+    from loopwright.engine.interconnect import assemble
+
     base, component = _split_component(diagram, signal)
+    opened = assemble(diagram, break_at=base)
     if component is None and route != "whole model":
-        fast = _margins_block_by_block(diagram, base, skew=skew, force=route == "block by block")
+        fast = _margins_block_by_block(diagram, opened, base, skew=skew, force=route == "block by block")
         if fast is not None:
             return fast
-    A, B, C, D = loop_transfer(diagram, base)
+    A, B, C, D = opened.pair(f"break:{base}", opened.break_return)
+    C, D = -C, -D  # L = -G(break -> returned signal), as loop_transfer
     A, B, C, D = _trim_for_margins(A, B, C, D)
     if not np.any(D) and (A.shape[0] == 0 or not np.any(B) or not np.any(C)):
         raise AnalysisError(
@@ -839,7 +843,7 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
 _BLOCKWISE_MIN_STATES = 200
 
 
-def _margins_block_by_block(diagram, base: str, *, skew: float, force: bool) -> LoopMargins | None:
+def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: bool) -> LoopMargins | None:
     """Margins of a scalar loop from its block-by-block frequency response, or None where
     this route does not apply or cannot certify its answer (the caller then takes the
     whole-model route).
@@ -862,7 +866,6 @@ def _margins_block_by_block(diagram, base: str, *, skew: float, force: bool) -> 
     from loopwright.engine.eigen import _AXIS_ULPS
     from loopwright.engine.interconnect import assemble
 
-    opened = assemble(diagram, break_at=base)
     cols, rows = opened.input_slice(f"break:{base}"), opened.signal_slice(opened.break_return)
     if (cols.stop - cols.start, rows.stop - rows.start) != (1, 1):
         return None
