@@ -386,44 +386,14 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         return reduced_response(red, Bt, Ct, D, 1j * np.atleast_1d(np.asarray(w, dtype=float)), B=B, C=C)[:, 0, 0]
 
     ol_classes = classify_poles(red.poles, scale=matrix_scale(A)) if n else PoleClasses(0, 0, 0, 0)
-    ol_unstable = ol_classes.open_rhp
     grid = _grid_for(A, B, C, D)
     L = Ljw(grid)
     finite = np.isfinite(L)
     grid, L = grid[finite], L[finite]
 
-    # --- gain crossovers |L| = 1 -------------------------------------------------------
-    logmag = np.log(np.abs(L) + 1e-300)
-    crossings = _refine_roots(lambda w: np.log(np.abs(Ljw(w)[0]) + 1e-300), grid, logmag)
-    wc = np.array(crossings)
-    pms = _wrap180(np.degrees(np.angle(Ljw(wc))) + 180.0) if wc.size else np.zeros(0)
-    if wc.size:
-        i = int(np.argmin(np.abs(pms)))
-        pm, pm_w = float(pms[i]), float(wc[i])
-        lag = np.mod(np.degrees(np.angle(Ljw(wc))) + 180.0, 360.0)
-        with np.errstate(divide="ignore"):
-            delays = np.where(wc > 0, np.radians(lag) / wc, np.inf)
-        dm = float(np.min(delays))
-    else:
-        pm, pm_w, dm = np.inf, np.nan, np.inf
-        delays = np.zeros(0)
-
-    # --- critical gains: L(jw) real and negative ----------------------------------------
-    crit: list[tuple[float, float]] = []  # (gain, w)
-    imag = L.imag
-    for w in _refine_roots(lambda w: Ljw(w)[0].imag, grid, imag):
-        val = Ljw(w)[0]
-        if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val):
-            crit.append((-1.0 / val.real, float(w)))
-    if n == 0 or _nonsingular(A):
-        L0 = Ljw(0.0)[0]
-        if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0):
-            crit.append((-1.0 / L0.real, 0.0))
     d = float(D[0, 0])
-    if d < 0:
-        crit.append((-1.0 / d, np.inf))
-    crit.sort()
-    phase_cross = sorted({w for _, w in crit})
+    L0 = Ljw(0.0)[0] if n == 0 or _nonsingular(A) else complex(np.nan)
+    wc, pms, pm, pm_w, delays, dm, crit = _crossings(Ljw, grid, L, d, L0)
     # classify the intervals between critical gains by closed-loop pole count
     edges = [0.0] + [g for g, _ in crit] + [np.inf]
 
@@ -461,9 +431,18 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         s_peak, s_w = np.inf, np.nan
         disk = DiskMargin(0.0, skew, 1.0, 1.0, 0.0, np.nan)
         dm = np.nan if not nominal else dm
+    return _margins_record(bool(nominal), ol_classes, (lo_g, hi_g, lo_w, hi_w), (wc, pms, pm, pm_w, delays, dm, crit), (s_peak, s_w), disk, msg)
+
+
+def _margins_record(stable: bool, ol_classes: PoleClasses, gains, crossings, sensitivity, disk: DiskMargin, message: str) -> LoopMargins:
+    """:class:`LoopMargins` from the pieces both routes compute: ``gains`` is
+    ``(lower, upper, w_lower, w_upper)``, ``crossings`` what :func:`_crossings` returns and
+    ``sensitivity`` ``(peak, w)``."""
+    lo_g, hi_g, lo_w, hi_w = gains
+    wc, pms, pm, pm_w, delays, dm, crit = crossings
     out = LoopMargins(
-        closed_loop_stable=bool(nominal),
-        open_loop_unstable_poles=ol_unstable,
+        closed_loop_stable=stable,
+        open_loop_unstable_poles=ol_classes.open_rhp,
         gain_lower=float(lo_g),
         gain_upper=float(hi_g),
         gain_lower_w_rad_s=float(lo_w),
@@ -473,14 +452,47 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         delay_margin_s=dm,
         gain_crossovers_w_rad_s=[float(x) for x in wc],
         phase_margins_deg=[float(x) for x in pms],
-        phase_crossovers_w_rad_s=[float(x) for x in phase_cross],
-        peak_sensitivity=float(s_peak),
-        peak_sensitivity_w_rad_s=float(s_w),
+        phase_crossovers_w_rad_s=[float(x) for x in sorted({w for _, w in crit})],
+        peak_sensitivity=float(sensitivity[0]),
+        peak_sensitivity_w_rad_s=float(sensitivity[1]),
         disk=disk,
-        message=msg,
+        message=message,
         open_loop_poles=ol_classes,
     )
     return _with_tables(out, delays, crit)
+
+
+def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
+    """Gain crossovers (``|L| = 1``), phase and delay margins, and critical gains ``-1/L(jw)``
+    where ``L(jw)`` is real and negative (the DC value ``L0`` and ``L(inf) = d`` included),
+    bracketed on ``grid`` (where ``L`` was evaluated) and refined with ``brentq``.
+
+    Returns ``(wc, pms, pm, pm_w, delays, dm, crit)``, ``crit`` sorted ``(gain, w)`` pairs.
+    """
+    logmag = np.log(np.abs(L) + 1e-300)
+    wc = np.array(_refine_roots(lambda w: np.log(np.abs(Ljw(w)[0]) + 1e-300), grid, logmag))
+    if wc.size:
+        phase = np.degrees(np.angle(Ljw(wc)))
+        pms = _wrap180(phase + 180.0)
+        i = int(np.argmin(np.abs(pms)))
+        pm, pm_w = float(pms[i]), float(wc[i])
+        with np.errstate(divide="ignore"):
+            delays = np.where(wc > 0, np.radians(np.mod(phase + 180.0, 360.0)) / wc, np.inf)
+        dm = float(np.min(delays))
+    else:
+        pms, delays = np.zeros(0), np.zeros(0)
+        pm, pm_w, dm = np.inf, np.nan, np.inf
+    crit: list[tuple[float, float]] = []
+    for w in _refine_roots(lambda w: Ljw(w)[0].imag, grid, L.imag):
+        val = Ljw(w)[0]
+        if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val):
+            crit.append((-1.0 / val.real, float(w)))
+    if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0):
+        crit.append((-1.0 / L0.real, 0.0))
+    if d < 0:
+        crit.append((-1.0 / d, np.inf))
+    crit.sort()
+    return wc, pms, pm, pm_w, delays, dm, crit
 
 
 def _with_tables(m: LoopMargins, delays, crit) -> LoopMargins:
@@ -921,30 +933,8 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
         return None  # nothing comes back: the other route says so in its own words
     ol_classes = classify_poles(ol, scale=scale)
 
-    logmag = np.log(np.abs(L) + 1e-300)
-    wc = np.array(_refine_roots(lambda w: np.log(np.abs(Ljw(w)[0]) + 1e-300), grid, logmag))
-    if wc.size:
-        phase = np.degrees(np.angle(Ljw(wc)))
-        pms = _wrap180(phase + 180.0)
-        i = int(np.argmin(np.abs(pms)))
-        pm, pm_w = float(pms[i]), float(wc[i])
-        with np.errstate(divide="ignore"):
-            delays = np.where(wc > 0, np.radians(np.mod(phase + 180.0, 360.0)) / wc, np.inf)
-        dm = float(np.min(delays))
-    else:
-        pms, delays = np.zeros(0), np.zeros(0)
-        pm, pm_w, dm = np.inf, np.nan, np.inf
-    crit: list[tuple[float, float]] = []
-    for w in _refine_roots(lambda w: Ljw(w)[0].imag, grid, L.imag):
-        val = Ljw(w)[0]
-        if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val):
-            crit.append((-1.0 / val.real, float(w)))
     L0 = Ljw(0.0)[0]
-    if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0):
-        crit.append((-1.0 / L0.real, 0.0))
-    if d < 0:
-        crit.append((-1.0 / d, np.inf))
-    crit.sort()
+    wc, pms, pm, pm_w, delays, dm, crit = _crossings(Ljw, grid, L, d, L0)
     if any(g == 1.0 for g, _ in crit):
         return None
     lo_g, hi_g, lo_w, hi_w = _nearest_critical_gains(crit)
@@ -969,26 +959,8 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
     s_peak, s_w = peak(0.0)
     pk_d, pk_d_w = peak((skew - 1.0) / 2.0)
     disk = disk_margin_from_alpha(1.0 / pk_d if pk_d > 0 else np.inf, skew=skew, w_rad_s=pk_d_w)
-    out = LoopMargins(
-        closed_loop_stable=True,
-        open_loop_unstable_poles=ol_classes.open_rhp,
-        gain_lower=float(lo_g),
-        gain_upper=float(hi_g),
-        gain_lower_w_rad_s=float(lo_w),
-        gain_upper_w_rad_s=float(hi_w),
-        phase_margin_deg=pm,
-        phase_margin_w_rad_s=pm_w,
-        delay_margin_s=dm,
-        gain_crossovers_w_rad_s=[float(x) for x in wc],
-        phase_margins_deg=[float(x) for x in pms],
-        phase_crossovers_w_rad_s=sorted({w for _, w in crit}),
-        peak_sensitivity=float(s_peak),
-        peak_sensitivity_w_rad_s=float(s_w),
-        disk=disk,
-        message="",
-        open_loop_poles=ol_classes,
-    )
-    return _with_tables(out, delays, crit)
+    crossings = (wc, pms, pm, pm_w, delays, dm, crit)
+    return _margins_record(True, ol_classes, (lo_g, hi_g, lo_w, hi_w), crossings, (s_peak, s_w), disk, "")
 
 
 def _attach_limits(m: LoopMargins, A, B, C, D) -> None:
