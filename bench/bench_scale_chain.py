@@ -8,6 +8,11 @@ check and rebuilding the diagram wire by wire). python-
 control 0.10.2 assembles the same loop with ``interconnect`` (timed at ``--ct-gains``
 gains, where it finishes). Cost should grow linearly: the script runs ``--sizes``.
 
+``--cli`` also runs each command as the user does, in this process (``cli.main`` on a
+saved project file, printing to a discarded buffer): loading the file, assembly, the
+analysis and the printed output, without the interpreter's start and the imports (timed
+apart, once, in a fresh interpreter: ``python -c "import loopwright.engine.cli"``).
+
 Agreement: the closed loop is ``x' = -(1 + 2 g) x``, ``u = g (r - y)`` with ``g`` the
 product of the gains (closed form), checked on the assembled model.
 
@@ -16,8 +21,13 @@ Run: ``python bench/bench_scale_chain.py [--sizes 500 1000 2000] [--ct-gains 200
 from __future__ import annotations
 
 import argparse
+import contextlib
+import io
 import os
+import subprocess
 import sys
+import tempfile
+import time
 
 import control as ct
 import numpy as np
@@ -46,11 +56,41 @@ def _ct_chain(gains: int):
     return ct.interconnect(blocks, inputs=["r", "n"], outputs=["y"])
 
 
+def _time_commands(d, gains: int, audit_max: int) -> None:
+    """Each command as typed, in this process: file in, text out (imports excluded)."""
+    from loopwright.engine import cli
+
+    with tempfile.TemporaryDirectory() as tmp:
+        path = os.path.join(tmp, "chain.lwd")
+        project.save(d, path)
+        commands = {
+            "check": ["check", path],
+            "freq r -> y": ["freq", path, "--from", "r", "--to", "y"],
+            "margins at u": ["margins", path, "--at", "u"],
+            "noise": ["noise", path],
+            "time, step r -> y": ["time", path, "--step", "r", "--to", "y"],
+        }
+        if gains <= audit_max:
+            commands["audit"] = ["audit", path]
+        for label, argv in commands.items():
+            best, best_cpu = np.inf, np.inf
+            for _ in range(2):
+                t0, c0 = time.perf_counter(), time.process_time()
+                with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
+                    status = cli.main(argv)
+                best, best_cpu = min(best, time.perf_counter() - t0), min(best_cpu, time.process_time() - c0)
+            print(f"  command {label:<14} wall {best:7.3f} s  cpu {best_cpu:7.3f} s  (file in, text out; exit {status})")
+    t0 = time.perf_counter()
+    subprocess.run([sys.executable, "-c", "import loopwright.engine.cli"], check=True)
+    print(f"  (imports, once per command, in a fresh interpreter: wall {time.perf_counter() - t0:.2f} s)")
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[500, 1000, 2000])
     ap.add_argument("--ct-gains", type=int, default=200)
     ap.add_argument("--audit-max", type=int, default=1000, help="largest chain to audit (the audit's output is quadratic)")
+    ap.add_argument("--cli", action="store_true", help="also time each command end to end in this process (file in, text out)")
     args = ap.parse_args(argv)
     print(f"python-control {ct.__version__}")
     w = np.logspace(-2, 2, 1000)
@@ -74,6 +114,8 @@ def main(argv=None) -> int:
         for label, fn in steps.items():
             t, c, _ = timed(fn, repeat=2)
             print(f"  {label:<20} wall {t:7.3f} s  cpu {c:7.3f} s  (assembly included)")
+        if args.cli:
+            _time_commands(d, gains, args.audit_max)
         if gains == args.sizes[-1] and args.ct_gains:
             t_ct, c_ct, _ = timed(lambda: _ct_chain(args.ct_gains))
             dd = gain_chain_loop(args.ct_gains)

@@ -15,7 +15,11 @@ Agreement: every signal's variance from each sampled source against ``scipy``'s
 ``solve_continuous_lyapunov`` on the whole model. ``--ring`` closes the line of zones into a
 ring (one strongly coupled model: no part of the state is left unreached).
 
-Run: ``python bench/bench_scale_noise.py [--zones 143] [--ring]``
+``--one-blas-thread`` runs with ``OPENBLAS_NUM_THREADS=1`` (set before numpy loads): on a
+shared 2-core machine OpenBLAS's worker threads wait for cores the other jobs hold, and
+the per-source solves (many mid-sized products) then cost several times the CPU time.
+
+Run: ``python bench/bench_scale_noise.py [--zones 143] [--ring] [--one-blas-thread]``
 """
 from __future__ import annotations
 
@@ -23,9 +27,12 @@ import argparse
 import os
 import sys
 
-import control as ct
-import numpy as np
-import scipy.linalg as sla
+if "--one-blas-thread" in sys.argv[1:] and os.environ.get("OPENBLAS_NUM_THREADS") != "1":
+    os.environ["OPENBLAS_NUM_THREADS"] = "1"  # read by OpenBLAS when numpy first loads it
+
+import control as ct  # noqa: E402
+import numpy as np  # noqa: E402
+import scipy.linalg as sla  # noqa: E402
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 
@@ -43,8 +50,9 @@ def main(argv=None) -> int:
     ap.add_argument("--ring", action="store_true")
     ap.add_argument("--old-sources", type=int, default=6)
     ap.add_argument("--ct-sources", type=int, default=4)
+    ap.add_argument("--one-blas-thread", action="store_true", help="OPENBLAS_NUM_THREADS=1 (see the module notes)")
     args = ap.parse_args(argv)
-    print(f"python-control {ct.__version__}")
+    print(f"python-control {ct.__version__}; OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS', 'unset')}")
     d = oven_zones(args.zones, ring=args.ring)
     model = assemble(d)
     n = model.A.shape[0]

@@ -386,44 +386,14 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         return reduced_response(red, Bt, Ct, D, 1j * np.atleast_1d(np.asarray(w, dtype=float)), B=B, C=C)[:, 0, 0]
 
     ol_classes = classify_poles(red.poles, scale=matrix_scale(A)) if n else PoleClasses(0, 0, 0, 0)
-    ol_unstable = ol_classes.open_rhp
     grid = _grid_for(A, B, C, D)
     L = Ljw(grid)
     finite = np.isfinite(L)
     grid, L = grid[finite], L[finite]
 
-    # --- gain crossovers |L| = 1 -------------------------------------------------------
-    logmag = np.log(np.abs(L) + 1e-300)
-    crossings = _refine_roots(lambda w: np.log(np.abs(Ljw(w)[0]) + 1e-300), grid, logmag)
-    wc = np.array(crossings)
-    pms = _wrap180(np.degrees(np.angle(Ljw(wc))) + 180.0) if wc.size else np.zeros(0)
-    if wc.size:
-        i = int(np.argmin(np.abs(pms)))
-        pm, pm_w = float(pms[i]), float(wc[i])
-        lag = np.mod(np.degrees(np.angle(Ljw(wc))) + 180.0, 360.0)
-        with np.errstate(divide="ignore"):
-            delays = np.where(wc > 0, np.radians(lag) / wc, np.inf)
-        dm = float(np.min(delays))
-    else:
-        pm, pm_w, dm = np.inf, np.nan, np.inf
-        delays = np.zeros(0)
-
-    # --- critical gains: L(jw) real and negative ----------------------------------------
-    crit: list[tuple[float, float]] = []  # (gain, w)
-    imag = L.imag
-    for w in _refine_roots(lambda w: Ljw(w)[0].imag, grid, imag):
-        val = Ljw(w)[0]
-        if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val):
-            crit.append((-1.0 / val.real, float(w)))
-    if n == 0 or _nonsingular(A):
-        L0 = Ljw(0.0)[0]
-        if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0):
-            crit.append((-1.0 / L0.real, 0.0))
     d = float(D[0, 0])
-    if d < 0:
-        crit.append((-1.0 / d, np.inf))
-    crit.sort()
-    phase_cross = sorted({w for _, w in crit})
+    L0 = Ljw(0.0)[0] if n == 0 or _nonsingular(A) else complex(np.nan)
+    wc, pms, pm, pm_w, delays, dm, crit = _crossings(Ljw, grid, L, d, L0)
     # classify the intervals between critical gains by closed-loop pole count
     edges = [0.0] + [g for g, _ in crit] + [np.inf]
 
@@ -461,9 +431,18 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         s_peak, s_w = np.inf, np.nan
         disk = DiskMargin(0.0, skew, 1.0, 1.0, 0.0, np.nan)
         dm = np.nan if not nominal else dm
+    return _margins_record(bool(nominal), ol_classes, (lo_g, hi_g, lo_w, hi_w), (wc, pms, pm, pm_w, delays, dm, crit), (s_peak, s_w), disk, msg)
+
+
+def _margins_record(stable: bool, ol_classes: PoleClasses, gains, crossings, sensitivity, disk: DiskMargin, message: str) -> LoopMargins:
+    """:class:`LoopMargins` from the pieces both routes compute: ``gains`` is
+    ``(lower, upper, w_lower, w_upper)``, ``crossings`` what :func:`_crossings` returns and
+    ``sensitivity`` ``(peak, w)``."""
+    lo_g, hi_g, lo_w, hi_w = gains
+    wc, pms, pm, pm_w, delays, dm, crit = crossings
     out = LoopMargins(
-        closed_loop_stable=bool(nominal),
-        open_loop_unstable_poles=ol_unstable,
+        closed_loop_stable=stable,
+        open_loop_unstable_poles=ol_classes.open_rhp,
         gain_lower=float(lo_g),
         gain_upper=float(hi_g),
         gain_lower_w_rad_s=float(lo_w),
@@ -473,14 +452,47 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         delay_margin_s=dm,
         gain_crossovers_w_rad_s=[float(x) for x in wc],
         phase_margins_deg=[float(x) for x in pms],
-        phase_crossovers_w_rad_s=[float(x) for x in phase_cross],
-        peak_sensitivity=float(s_peak),
-        peak_sensitivity_w_rad_s=float(s_w),
+        phase_crossovers_w_rad_s=[float(x) for x in sorted({w for _, w in crit})],
+        peak_sensitivity=float(sensitivity[0]),
+        peak_sensitivity_w_rad_s=float(sensitivity[1]),
         disk=disk,
-        message=msg,
+        message=message,
         open_loop_poles=ol_classes,
     )
     return _with_tables(out, delays, crit)
+
+
+def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
+    """Gain crossovers (``|L| = 1``), phase and delay margins, and critical gains ``-1/L(jw)``
+    where ``L(jw)`` is real and negative (the DC value ``L0`` and ``L(inf) = d`` included),
+    bracketed on ``grid`` (where ``L`` was evaluated) and refined with ``brentq``.
+
+    Returns ``(wc, pms, pm, pm_w, delays, dm, crit)``, ``crit`` sorted ``(gain, w)`` pairs.
+    """
+    logmag = np.log(np.abs(L) + 1e-300)
+    wc = np.array(_refine_roots(lambda w: np.log(np.abs(Ljw(w)[0]) + 1e-300), grid, logmag))
+    if wc.size:
+        phase = np.degrees(np.angle(Ljw(wc)))
+        pms = _wrap180(phase + 180.0)
+        i = int(np.argmin(np.abs(pms)))
+        pm, pm_w = float(pms[i]), float(wc[i])
+        with np.errstate(divide="ignore"):
+            delays = np.where(wc > 0, np.radians(np.mod(phase + 180.0, 360.0)) / wc, np.inf)
+        dm = float(np.min(delays))
+    else:
+        pms, delays = np.zeros(0), np.zeros(0)
+        pm, pm_w, dm = np.inf, np.nan, np.inf
+    crit: list[tuple[float, float]] = []
+    for w in _refine_roots(lambda w: Ljw(w)[0].imag, grid, L.imag):
+        val = Ljw(w)[0]
+        if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val):
+            crit.append((-1.0 / val.real, float(w)))
+    if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0):
+        crit.append((-1.0 / L0.real, 0.0))
+    if d < 0:
+        crit.append((-1.0 / d, np.inf))
+    crit.sort()
+    return wc, pms, pm, pm_w, delays, dm, crit
 
 
 def _with_tables(m: LoopMargins, delays, crit) -> LoopMargins:
@@ -788,7 +800,7 @@ def loop_transfer(diagram, signal: str):
     return A, B, -C, -D
 
 
-def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True):
+def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, route: str = "auto"):
     """Margins of the loop broken at ``signal``: :class:`LoopMargins` for a scalar signal,
     :class:`VectorLoopMargins` for a vector one.
 
@@ -797,11 +809,27 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True):
     that channel), and the result is a :class:`LoopMargins`. With ``limits`` the scalar
     results carry :class:`~loopwright.engine.limits.PerformanceLimits` (Bode's sensitivity
     integral, the right-half-plane pole and zero bounds).
+
+    ``route``: ``"auto"`` takes the block-by-block route (:func:`_margins_block_by_block`)
+    for a scalar loop where an operation count says it is cheaper, ``"whole model"`` never,
+    ``"block by block"`` whenever it applies. Either way the route falls back to the whole
+    model where it cannot certify its answer. The block-by-block route carries no
+    performance limits (they need the loop's zeros, an O(n^3) computation).
     """
     if not np.isfinite(skew):
         raise AnalysisError(f"disk-margin skew must be a finite number; got {skew}")
+    if route not in ("auto", "whole model", "block by block"):
+        raise ValueError(f"route must be 'auto', 'whole model' or 'block by block', not {route!r}")
+    from loopwright.engine.interconnect import assemble
+
     base, component = _split_component(diagram, signal)
-    A, B, C, D = loop_transfer(diagram, base)
+    opened = assemble(diagram, break_at=base)
+    if component is None and route != "whole model":
+        fast = _margins_block_by_block(diagram, opened, base, skew=skew, force=route == "block by block")
+        if fast is not None:
+            return fast
+    A, B, C, D = opened.pair(f"break:{base}", opened.break_return)
+    C, D = -C, -D  # L = -G(break -> returned signal), as loop_transfer
     A, B, C, D = _trim_for_margins(A, B, C, D)
     if not np.any(D) and (A.shape[0] == 0 or not np.any(B) or not np.any(C)):
         raise AnalysisError(
@@ -825,6 +853,119 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True):
         for i, m in enumerate(vm.per_channel):
             _attach_limits(m, *_close_channels(A, B, C, D, i))
     return vm
+
+
+# Below this many states the whole-model route takes well under a second and also gives
+# the performance limits; the block-by-block route is for big loops.
+_BLOCKWISE_MIN_STATES = 200
+
+
+def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: bool) -> LoopMargins | None:
+    """Margins of a scalar loop from its block-by-block frequency response, or None where
+    this route does not apply or cannot certify its answer (the caller then takes the
+    whole-model route).
+
+    Method (exact; no reduced model). The loop opened at ``base`` and the nominal closed
+    loop are both assembled; their poles come from the coupling form
+    (:func:`loopwright.engine.coupled_poles.closed_loop_poles`, O(n q^2 + n^2) per sweep
+    instead of the O(n^3) of the minimal realization and Schur forms of the other route).
+    The route handles a closed loop whose poles all lie clearly left of the axis (the check
+    command's tolerance, :mod:`loopwright.engine.eigen`); the gain margins are then the
+    nearest critical gains ``-1/L(jw)`` around 1, as on the other route. ``L(jw)`` is
+    evaluated block by block (:mod:`loopwright.engine.blockwise_response`) on a grid laid
+    on the open- and closed-loop poles, densified where the phase or the magnitude moves
+    fast between neighbours; crossovers are refined with ``brentq`` as on the other route.
+    Peak sensitivity and the disk margin are grid-and-refine values (bounded Brent search
+    in log-frequency around the grid's peak), not Hamiltonian certificates.
+    """
+    from loopwright.engine.blockwise_response import BlockwiseModel, whole_model_cost
+    from loopwright.engine.coupled_poles import closed_loop_poles
+    from loopwright.engine.eigen import _AXIS_ULPS
+    from loopwright.engine.interconnect import assemble
+
+    cols, rows = opened.input_slice(f"break:{base}"), opened.signal_slice(opened.break_return)
+    if (cols.stop - cols.start, rows.stop - rows.start) != (1, 1):
+        return None
+    n = opened.A.shape[0]
+    points = 4000
+    if n == 0:
+        return None
+    bw_open = BlockwiseModel.from_model(opened)
+    if bw_open is None:
+        return None
+    # the other route: structural trim, stability test and minimal realization (about
+    # three dense O(n^3) factorisations), one Schur form, eigenvalues per critical gain
+    # and a Hamiltonian peak search of order 2n for S and for the disk
+    dense = 5.0 * whole_model_cost(opened, 1, points) + 2 * 25.0 * (2.0 * n) ** 3
+    if not force and (n < _BLOCKWISE_MIN_STATES or bw_open.cost(1, 1, points) + 60.0 * n * n >= dense):
+        return None
+    closed = assemble(diagram)
+    bw_closed = BlockwiseModel.from_model(closed)
+    if bw_closed is None:
+        return None
+    ol, cl = closed_loop_poles(bw_open), closed_loop_poles(bw_closed)
+    if ol is None or cl is None:
+        return None
+    eps = np.finfo(float).eps
+    scale = matrix_scale(closed.A)  # the open loop differs by a coupling of low rank: one balancing serves both
+    if np.any(cl.real >= -_AXIS_ULPS * eps * np.maximum(scale, np.abs(cl))):
+        return None  # unstable or marginal: the other route classifies the gain intervals
+    d = -float(opened.D[rows, cols][0, 0])
+    if _ill_posed(np.array([[d]])):
+        return None
+
+    def Ljw(w):
+        w = np.atleast_1d(np.asarray(w, dtype=float))
+        with np.errstate(all="ignore"):
+            return -bw_open.response(cols, rows, 1j * w)[:, 0, 0]
+
+    grid = auto_frequency_grid(np.concatenate([ol, cl]), points_per_decade=80, decades_beyond=3.0)
+    L = Ljw(grid)
+    for _ in range(6):  # densify where neighbours differ by more than 10 deg or 10 % in |L|
+        ok = np.isfinite(L)
+        jump = np.abs(np.angle(L[1:] / L[:-1])) > np.radians(10.0)
+        jump |= np.abs(np.log(np.abs(L[1:]) + 1e-300) - np.log(np.abs(L[:-1]) + 1e-300)) > 0.1
+        jump &= ok[1:] & ok[:-1]
+        if not jump.any():
+            break
+        mid = np.sqrt(grid[:-1][jump] * grid[1:][jump])
+        grid = np.concatenate([grid, mid])
+        order = np.argsort(grid)
+        grid, L = grid[order], np.concatenate([L, Ljw(mid)])[order]
+    finite = np.isfinite(L)
+    grid, L = grid[finite], L[finite]
+    if d == 0.0 and not np.any(L != 0.0):
+        return None  # nothing comes back: the other route says so in its own words
+    ol_classes = classify_poles(ol, scale=scale)
+
+    L0 = Ljw(0.0)[0]
+    wc, pms, pm, pm_w, delays, dm, crit = _crossings(Ljw, grid, L, d, L0)
+    if any(g == 1.0 for g, _ in crit):
+        return None
+    lo_g, hi_g, lo_w, hi_w = _nearest_critical_gains(crit)
+    if lo_g == 0.0:
+        lo_w = np.nan
+
+    def peak(offset: float) -> tuple[float, float]:
+        """Peak over w of |1/(1 + L) + offset|: the grid's best point, refined in log w."""
+        mags = np.abs(1.0 / (1.0 + L) + offset)
+        i = int(np.argmax(mags))
+        best, w_best = float(mags[i]), float(grid[i])
+        if 0 < i < grid.size - 1:
+            f = lambda lw: -float(np.abs(1.0 / (1.0 + Ljw(np.exp(lw))[0]) + offset))  # noqa: E731
+            r = sopt.minimize_scalar(f, bounds=(np.log(grid[i - 1]), np.log(grid[i + 1])), method="bounded", options={"xatol": 1e-12})
+            if -r.fun > best:
+                best, w_best = float(-r.fun), float(np.exp(r.x))
+        if np.isfinite(L0) and abs(1.0 / (1.0 + L0) + offset) >= best:
+            best, w_best = float(abs(1.0 / (1.0 + L0) + offset)), 0.0
+        at_inf = abs(1.0 / (1.0 + d) + offset)
+        return (at_inf, np.inf) if at_inf > best else (best, w_best)
+
+    s_peak, s_w = peak(0.0)
+    pk_d, pk_d_w = peak((skew - 1.0) / 2.0)
+    disk = disk_margin_from_alpha(1.0 / pk_d if pk_d > 0 else np.inf, skew=skew, w_rad_s=pk_d_w)
+    crossings = (wc, pms, pm, pm_w, delays, dm, crit)
+    return _margins_record(True, ol_classes, (lo_g, hi_g, lo_w, hi_w), crossings, (s_peak, s_w), disk, "")
 
 
 def _attach_limits(m: LoopMargins, A, B, C, D) -> None:

@@ -158,13 +158,15 @@ def variances_by_source(T_real: np.ndarray, Z_real: np.ndarray, C: np.ndarray, i
         Y = _lyapunov_in_schur_coordinates(T_real[np.ix_(R, R)], Bt_R @ Ws @ Bt_R.T)
         CR = Ct_sparse[:, R]
         r = R.size
-        if CR.nnz * r <= 2 * n * r * r + C_sparse.nnz * n:
+        if CR.nnz * r <= n * r * r + 2 * C_sparse.nnz * r:
             # quadratic forms in Schur coordinates, with the rows of C Z that touch R
             prod = CR @ Y  # (p, r) dense
             v = np.asarray(CR.multiply(prod).sum(axis=1)).ravel()
         else:
+            # more signal rows than states and C sparse (each signal reads a few states):
+            # c X c^T = (c Z_R Y) . (c Z_R) with Z_R Y formed once, n r^2 instead of p r^2
             ZR = Z_real[:, R]
-            X = ZR @ Y @ ZR.T
-            v = np.asarray(C_sparse.multiply(C_sparse @ X).sum(axis=1)).ravel()
+            W = ZR @ Y
+            v = np.einsum("ij,ij->i", np.asarray(C_sparse @ W), np.asarray(C_sparse @ ZR))
         out[name] = np.maximum(v, 0.0)
     return out

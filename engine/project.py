@@ -218,6 +218,41 @@ def _show(value: Any) -> str:
     return text if len(text) <= 42 else f"{text[:30]}...{text[-8:]}"
 
 
+# Values (objects and lists) already found valid against a subschema, keyed by the
+# subschema's id and a frozen copy of the value: a diagram repeats the same parameters,
+# layouts and matrices many times over (a chain of unit gains), and validation is a pure
+# function of (schema, value). Only small values are frozen (a big matrix is scanned by
+# the number loop anyway); the set is cleared when it grows past _VALID_SEEN_MAX.
+_VALID_SEEN: set = set()
+_VALID_SEEN_MAX = 200_000
+_FREEZE_MAX_LEAVES = 64
+
+
+class _TooBig(Exception):
+    pass
+
+
+def _frozen(value: Any) -> Any:
+    """A hashable copy of a small JSON value that tells apart everything validation can
+    (``1``, ``1.0`` and ``true`` stay distinct), or None for a big one."""
+    budget = [_FREEZE_MAX_LEAVES]
+
+    def freeze(v):
+        if isinstance(v, dict):
+            return ("o", tuple(sorted((k, freeze(x)) for k, x in v.items())))
+        if isinstance(v, list):
+            return ("a", tuple(freeze(x) for x in v))
+        budget[0] -= 1
+        if budget[0] < 0:
+            raise _TooBig
+        return (type(v).__name__, v)
+
+    try:
+        return freeze(value)
+    except (_TooBig, TypeError):
+        return None
+
+
 @functools.cache
 def _validator():
     """A validator for :func:`schema`, made faster without changing what it accepts.
@@ -225,12 +260,17 @@ def _validator():
     ``$ref`` s are resolved once here rather than at every value, and a list whose items
     must be plain numbers is scanned in one loop, with the per-item machinery run only for
     an item that fails (so its error reads as usual). Matrices hold most of a file's values.
+    A block's ``allOf`` of ``if kind == X then ...`` branches runs only the branch of the
+    block's own kind (the others cannot apply), and a small object or list already found
+    valid against the same subschema is not walked again (:data:`_VALID_SEEN`); a value
+    with errors is always walked, so every error reads as usual.
     """
     import jsonschema
     from jsonschema import validators
 
     base = jsonschema.Draft202012Validator
     plain_items = base.VALIDATORS["items"]
+    plain_all_of = base.VALIDATORS["allOf"]
 
     def items(validator, subschema, instance, parent):
         if isinstance(instance, list) and subschema == {"type": "number"}:
@@ -240,9 +280,61 @@ def _validator():
             return
         yield from plain_items(validator, subschema, instance, parent)
 
+    def by_kind(all_of):
+        """``{kind: (index, branch)}`` when every branch is ``if kind == const then ...``."""
+        out = {}
+        for index, branch in enumerate(all_of):
+            if not isinstance(branch, dict) or set(branch) != {"if", "then"}:
+                return None
+            cond = branch["if"]
+            const = cond.get("properties", {}).get("kind", {}).get("const") if isinstance(cond, dict) else None
+            if not isinstance(const, str) or cond != {"properties": {"kind": {"const": const}}}:
+                return None
+            out[const] = (index, branch)
+        return out
+
+    dispatch: dict[int, dict | None] = {}
+
+    def all_of(validator, subschemas, instance, schema):
+        key = id(subschemas)
+        if key not in dispatch:
+            dispatch[key] = by_kind(subschemas)
+        table = dispatch[key]
+        if table is None or not isinstance(instance, dict) or not isinstance(instance.get("kind"), str):
+            # a block without a text kind: every branch's ``if`` holds vacuously
+            yield from plain_all_of(validator, subschemas, instance, schema)
+            return
+        hit = table.get(instance["kind"])
+        if hit is not None:
+            index, branch = hit
+            yield from validator.descend(instance, branch, schema_path=index)
+
+    def properties(validator, props, instance, schema):
+        if not validator.is_type(instance, "object"):
+            return
+        for prop, sub in props.items():
+            if prop not in instance:
+                continue
+            value = instance[prop]
+            key = None
+            if isinstance(value, (dict, list)) and value:
+                frozen = _frozen(value)
+                if frozen is not None:
+                    key = (id(sub), frozen)
+                    if key in _VALID_SEEN:
+                        continue
+            errors = list(validator.descend(value, sub, path=prop, schema_path=prop))
+            if errors:
+                yield from errors
+            elif key is not None:
+                if len(_VALID_SEEN) >= _VALID_SEEN_MAX:
+                    _VALID_SEEN.clear()
+                _VALID_SEEN.add(key)
+
     text = (resources.files("loopwright.resources") / "diagram.schema.json").read_text(encoding="utf-8")
     full = json.loads(text)
-    return validators.extend(base, validators={"items": items})(_inline_refs(full, full["$defs"])), full
+    extended = validators.extend(base, validators={"items": items, "allOf": all_of, "properties": properties})
+    return extended(_inline_refs(full, full["$defs"])), full
 
 
 def _inline_refs(node: Any, defs: dict[str, Any]) -> Any:

@@ -101,6 +101,48 @@ def test_unstable_paths_are_flagged_only_where_the_mode_reaches_and_shows():
     assert (first.source, first.signal) == ("gust", "drift.y")
 
 
+def _modes(wn, zeta):
+    """Companion-form 2x2 blocks ``[[0, 1], [-wn^2, -2 zeta wn]]``, force in, position out."""
+    k = len(wn)
+    A = np.zeros((2 * k, 2 * k))
+    for i, (w, z) in enumerate(zip(wn, zeta)):
+        A[2 * i, 2 * i + 1] = 1.0
+        A[2 * i + 1, 2 * i] = -w * w
+        A[2 * i + 1, 2 * i + 1] = -2.0 * z * w
+    B = np.zeros((2 * k, 1))
+    B[1::2, 0] = 1.0
+    C = np.zeros((1, 2 * k))
+    C[0, 0::2] = 1.0
+    return A, B, C
+
+
+def test_lightly_damped_stiff_modes_are_stable_and_a_truly_unstable_one_is_not():
+    # A stiff structure: a fast well-damped actuator mode (wn = 1e6 rad/s, so |A| ~ 1e12)
+    # beside structural modes with zeta = 1e-4 at 1e3..1e4 rad/s, whose poles
+    # -zeta wn +- j wn sqrt(1 - zeta^2) (closed form) lie 0.1..1 left of the axis: far
+    # beyond rounding relative to |p|, though within 1e-12 |A|. Beside it, an unstable
+    # mode (zeta = -1e-4 at 2e3 rad/s: Re p = +0.2, closed form).
+    d = Diagram()
+    A, B, C = _modes([1e6, 1e3, 3e3, 1e4], [0.7, 1e-4, 1e-4, 1e-4])
+    d.add_block("source", "shaker", {"role": "disturbance", "width": 1, "waveform": {"kind": "zero"}})
+    d.add_block("plant", "frame", {"A": A.tolist(), "B": B.tolist(), "C": C.tolist(), "D": [[0.0]]})
+    d.connect("shaker.out", "frame.u")
+    Au, Bu, Cu = _modes([2e3], [-1e-4])
+    d.add_block("source", "gust", {"role": "disturbance", "width": 1, "waveform": {"kind": "zero"}})
+    d.add_block("plant", "flutter", {"A": Au.tolist(), "B": Bu.tolist(), "C": Cu.tolist(), "D": [[0.0]]})
+    d.connect("gust.out", "flutter.u")
+    model = assemble(d)
+    poles = np.linalg.eigvals(model.A)
+    assert np.sum(poles.real > 0) == 2 and np.sum(np.abs(poles.real + 0.1) < 1e-6) == 2  # the model is as described
+    rows = {(r.source, r.signal): r for r in path_audit(model, route="whole model")}
+    assert rows[("shaker", "frame.y")].stable
+    assert np.isfinite(rows[("shaker", "frame.y")].peak_gain)
+    # peak near the 1e3 rad/s mode: 1/(2 zeta wn^2) = 5e-3 (closed form, resonance of a lightly damped mode)
+    assert_allclose(rows[("shaker", "frame.y")].peak_gain, 5e-3, rtol=2e-3)
+    assert not rows[("gust", "flutter.y")].stable
+    assert rows[("gust", "flutter.y")].peak_gain == np.inf
+
+
 def test_path_lists_blocks_and_wires_between_source_and_signal():
     model = assemble(_two_loops())
     rows = {(r.source, r.signal): r for r in path_audit(model)}

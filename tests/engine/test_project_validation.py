@@ -340,3 +340,41 @@ def test_a_designed_gain_with_a_ragged_row_is_redesigned_not_a_traceback(tmp_pat
         if b.kind == "gain" and "recipe" in b.params:
             rows = b.params["K"]
             assert len({len(r) for r in rows}) == 1  # every row as long as the others again
+
+
+_MUTANTS = st.sampled_from([None, True, 0, 1.5, -1, "x", "P.u", "gain", "plant", "source", [], [[1.0]], [1, 2], {}, {"K": 1}, {"kind": "white"}])
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(name=st.sampled_from(SAMPLES), picks=st.lists(st.tuples(st.integers(0, 10**6), st.integers(0, 10**6), _MUTANTS), min_size=1, max_size=4),
+       twins=st.booleans())
+def test_the_fast_validator_agrees_with_the_reference_validator(name, picks, twins):
+    # Reference: jsonschema's own Draft 2020-12 validator on the schema file (PyPI
+    # reference library). The project's validator runs only a block's own kind branch and
+    # skips values already found valid; it must accept, refuse and point exactly as the
+    # reference does, also when a block repeats another's parameters (twins).
+    import jsonschema
+
+    data = json.loads(sample_path(name).read_text(encoding="utf-8"))
+    if twins:
+        data["blocks"].extend(copy.deepcopy(b) | {"name": f"{b['name']}_twin"} for b in list(data["blocks"]))
+    for at, key_pick, value in picks:
+        # walk to a random object in the document and set one of its fields (or add one)
+        node, path = data, []
+        while True:
+            kids = [(k, v) for k, v in (node.items() if isinstance(node, dict) else enumerate(node)) if isinstance(v, (dict, list)) and v]
+            if not kids or at % 3 == 0:
+                break
+            k, node = kids[at % len(kids)]
+            at //= 3
+        if isinstance(node, dict):
+            keys = list(node) + ["extra"]
+            node[keys[key_pick % len(keys)]] = copy.deepcopy(value)
+        else:
+            node[key_pick % len(node)] = copy.deepcopy(value)
+    reference = jsonschema.Draft202012Validator(project.schema())
+    ref_errors = sorted((tuple(e.absolute_path), e.validator) for e in reference.iter_errors(data))
+    for _ in range(2):  # the second pass meets the values the first one found valid
+        fast = project._validator()[0]
+        got = sorted((tuple(e.absolute_path), e.validator) for e in fast.iter_errors(data))
+        assert got == ref_errors
