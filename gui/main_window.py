@@ -83,7 +83,10 @@ def status_text(result: LiveResult | None) -> str:
         )
     for gap in getattr(rep, "input_gaps", ()) or ():
         # Separation can hold while the estimate is biased: say so where the verdict is.
-        parts.append(f"estimate biased: {gap.estimator}.u misses {', '.join(gap.missing + gap.extra + gap.differing)}")
+        said = [f"misses {', '.join(gap.missing)}"] if gap.missing else []
+        said += [f"also reads {', '.join(gap.extra)}"] if gap.extra else []
+        said += [f"weighs {', '.join(gap.differing)} differently"] if gap.differing else []
+        parts.append(f"estimate biased: {gap.estimator}.u {'; '.join(said)}")
     if 0 < len(rep.poles) <= _POLES_SHOWN:
         # A small loop's poles in plain sight: the designed ones, or not.
         from loopwright.gui.inspector import format_complex_list
