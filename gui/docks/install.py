@@ -1,8 +1,9 @@
 """Puts the analysis panels into a main window: the pairs panel, one dock per plot panel,
 the canvas picks, the Views menu and File ▸ Export view.
 
-Plot docks sit in the bottom area in two tab groups beside the problems list; their
-layout is saved with the window state (``window/state``), never in the diagram.
+Plot docks sit in the bottom area in two tab groups beside the problems list (whose group
+also holds the history, the path audit and the pairs); the inspector has the right side
+to itself. The layout is saved with the window state (``window/state``), never in the diagram.
 """
 from __future__ import annotations
 
@@ -54,9 +55,9 @@ def install_views(window) -> None:
     window.pairs_dock = QDockWidget("Pairs", window)
     window.pairs_dock.setObjectName("pairs_dock")
     window.pairs_dock.setWidget(window.pairs_panel)
-    window.addDockWidget(Qt.DockWidgetArea.RightDockWidgetArea, window.pairs_dock)
-    window.tabifyDockWidget(window.inspector_dock, window.pairs_dock)
-    window.inspector_dock.raise_()
+    # The inspector has the right side to itself (a tab bar there hid one of the two and
+    # squeezed the matrices); the pairs' keyboard lists join the bottom-left tab group.
+    window.addDockWidget(Qt.DockWidgetArea.BottomDockWidgetArea, window.pairs_dock)
     window.views = ViewsController(doc, debounce_ms=window.prefs.debounce_ms, parent=window)
     panels = [FrequencyPanel(), TimePanel(), PoleMapPanel(), LoopBreakPanel(), SingularValuePanel(), NoisePanel(), AuditPanel()]
     window.panels = {p.key: p for p in panels}
@@ -75,6 +76,7 @@ def install_views(window) -> None:
     for k in ("loop_break", "noise"):
         window.tabifyDockWidget(vd["time"], vd[k])
     window.tabifyDockWidget(window.history_dock, vd["audit"])
+    window.tabifyDockWidget(vd["audit"], window.pairs_dock)
     vd["frequency"].raise_()
     vd["time"].raise_()
     window.problems_dock.raise_()
