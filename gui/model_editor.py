@@ -17,7 +17,7 @@ from __future__ import annotations
 import copy
 from typing import Any, Callable
 
-from PySide6.QtCore import Qt, Signal
+from PySide6.QtCore import QSize, Qt, Signal
 from PySide6.QtGui import QKeySequence, QShortcut
 from PySide6.QtWidgets import (
     QComboBox,
@@ -91,7 +91,33 @@ def describe_state_order(diagram, block_name: str) -> str:
     return ", ".join(order) if order else "no states"
 
 
-class ModelEditor(QWidget):
+class _SizedByWidth(QWidget):
+    """A container whose size hints are its height for its current width.
+
+    A form lays a spanning row out by the row's size hint, not by its height for the width
+    it gets: word-wrapped notes then squeezed the matrices under them (a 2x1 L, a 2x2
+    realization showed one row). These hints say the height needed at the current width.
+    """
+
+    def sizeHint(self) -> QSize:
+        hint = super().sizeHint()
+        return QSize(hint.width(), max(hint.height(), self._height_at_width()))
+
+    def minimumSizeHint(self) -> QSize:
+        hint = super().minimumSizeHint()
+        return QSize(hint.width(), max(hint.height(), self._height_at_width()))
+
+    def _height_at_width(self) -> int:
+        lay = self.layout()
+        return lay.totalHeightForWidth(self.width()) if lay is not None and lay.hasHeightForWidth() and self.width() > 0 else 0
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        if event.size().width() != event.oldSize().width():
+            self.updateGeometry()  # the hints above depend on the width
+
+
+class ModelEditor(_SizedByWidth):
     """Edits the model of one plant, dynamic block or estimator as one draft.
 
     Parameters
@@ -158,8 +184,14 @@ class ModelEditor(QWidget):
             spin.setObjectName(f"size_{key}")
             spin.setRange(0 if key in ("states", *_PLANT_ONLY) else 1, 200)
             spin.setToolTip(_SIZE_LABELS[key])
-            srow.addWidget(QLabel(_SIZE_LABELS[key]), k // 2, 2 * (k % 2))
-            srow.addWidget(spin, k // 2, 2 * (k % 2) + 1)
+            if k < 4:
+                srow.addWidget(QLabel(_SIZE_LABELS[key]), k // 2, 2 * (k % 2))
+                srow.addWidget(spin, k // 2, 2 * (k % 2) + 1)
+            else:
+                # a long label spans the first three columns: the pairs above stay narrow
+                # enough for the inspector's usual width
+                srow.addWidget(QLabel(_SIZE_LABELS[key]), k // 2, 0, 1, 3)
+                srow.addWidget(spin, k // 2, 3)
             self.sizes[key] = spin
         srow.setColumnStretch(4, 1)
         self._size_row = size_row
@@ -206,7 +238,7 @@ class ModelEditor(QWidget):
         self.tf_note = QLabel("a transfer-function matrix: one (num, den) pair per output and input, kept as written in the file")
         self.tf_note.setWordWrap(True)
         self._form.addRow("", self.tf_note)
-        self.realization = QWidget()
+        self.realization = _SizedByWidth()
         self.realization.setObjectName("realization")
         rlay = QVBoxLayout(self.realization)
         rlay.setContentsMargins(0, 0, 0, 0)

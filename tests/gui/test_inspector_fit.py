@@ -1,0 +1,75 @@
+"""The inspector fits its dock: at the default window size and in an 800x600 window (its
+panels shown again from the View menu) no field is wider than the panel, no matrix table is
+squeezed under its rows, no wrapped note is cut, and a matrix keeps no empty band for a
+scroll bar it does not need (such bands pushed the model's Apply button out of sight)."""
+from __future__ import annotations
+
+import pytest
+from PySide6.QtWidgets import QLabel
+
+from loopwright.engine.diagram import Diagram
+from loopwright.gui.matrix_table import MatrixEditor
+
+pytestmark = pytest.mark.qt
+
+STAGE = {"A": [[0, 1], [0, 0]], "B": [[0], [1]], "C": [[1, 0]], "D": [[0]]}  # demo data: a positioning stage
+
+
+def _diagram() -> Diagram:
+    d = Diagram()
+    d.add_block("plant", "P", dict(STAGE), layout={"x": 0, "y": 0})
+    d.add_block("plant", "G", {"num": [1.0], "den": [1.0, 0.0, 0.0]}, layout={"x": 200, "y": 0})
+    d.add_block("estimator", "est", {"plant": "P", "L": [[11], [30]]}, layout={"x": 0, "y": 150})
+    d.add_block("estimator", "own", {**STAGE, "L": [[11], [30]]}, layout={"x": 200, "y": 150})
+    d.add_block("gain", "K", {"K": [[-8, -4]]}, layout={"x": 0, "y": 300})
+    d.add_block("dynamic", "F", {"num": [100.0], "den": [1.0, 14.0, 100.0]}, layout={"x": 200, "y": 300})
+    return d
+
+
+def _settle(qtbot, window) -> None:
+    qtbot.wait(50)  # the inspector's layout settles in the event loop
+
+
+@pytest.mark.parametrize("size", [None, (800, 600)], ids=["default-size", "800x600"])
+@pytest.mark.parametrize("name", ["P", "G", "est", "own", "K", "F"])
+def test_the_inspector_fits_its_panel(window, qtbot, size, name):
+    from test_dock_layout import show_every_dock
+
+    if size is not None:
+        window.resize(*size)
+    window.show()
+    qtbot.waitExposed(window)
+    if size is not None:
+        show_every_dock(window)
+    window.document.replace_diagram(_diagram())
+    window.inspector.show_block(window.document.diagram.block_by_name(name).id)
+    _settle(qtbot, window)
+    scroll = window.inspector._scroll
+    page = scroll.widget()
+    assert page.minimumSizeHint().width() <= scroll.viewport().width()
+    tables = [m for m in page.findChildren(MatrixEditor) if m.isVisible()]
+    assert tables
+    for m in tables:
+        assert m.height() >= m.minimumSizeHint().height(), m.objectName()
+        t = m.table
+        shown_rows = sum(t.rowHeight(i) for i in range(t.rowCount()))
+        assert t.viewport().height() >= shown_rows, m.objectName()
+    for label in page.findChildren(QLabel):
+        if label.isVisible() and label.wordWrap() and label.text():
+            assert label.height() >= label.heightForWidth(label.width()), label.text()
+
+
+def test_a_matrix_keeps_room_for_a_scroll_bar_only_when_its_columns_overflow(qtbot):
+    narrow = MatrixEditor([[0.0, 1.0], [0.0, 0.0]], name="A")
+    wide = MatrixEditor([[123456.789] * 12], name="K")
+    for m in (narrow, wide):
+        qtbot.addWidget(m)
+        m.resize(300, 200)
+        m.show()
+    qtbot.waitExposed(wide)
+    assert not narrow.needs_scroll_room() and wide.needs_scroll_room()
+    t = narrow.table
+    band = t.height() - t.horizontalHeader().height() - sum(t.rowHeight(i) for i in range(2)) - 2 * t.frameWidth()
+    assert band < t.horizontalScrollBar().sizeHint().height()
+    w = wide.table
+    assert w.height() - w.horizontalHeader().height() - w.rowHeight(0) - 2 * w.frameWidth() >= w.horizontalScrollBar().sizeHint().height()
