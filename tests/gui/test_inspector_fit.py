@@ -27,7 +27,18 @@ def _diagram() -> Diagram:
 
 
 def _settle(qtbot, window) -> None:
-    qtbot.wait(50)  # the inspector's layout settles in the event loop
+    qtbot.waitUntil(window.live.is_current, timeout=10000)  # its result may redraw the inspector
+    qtbot.wait(50)
+
+
+def _nothing_squeezed(page) -> None:
+    for m in [m for m in page.findChildren(MatrixEditor) if m.isVisible()]:
+        assert m.height() >= m.minimumSizeHint().height(), m.objectName()
+        t = m.table
+        assert t.viewport().height() >= sum(t.rowHeight(i) for i in range(t.rowCount())), m.objectName()
+    for label in page.findChildren(QLabel):
+        if label.isVisible() and label.wordWrap() and label.text():
+            assert label.height() >= label.heightForWidth(label.width()), label.text()
 
 
 @pytest.mark.parametrize("size", [None, (800, 600)], ids=["default-size", "800x600"])
@@ -47,16 +58,9 @@ def test_the_inspector_fits_its_panel(window, qtbot, size, name):
     scroll = window.inspector._scroll
     page = scroll.widget()
     assert page.minimumSizeHint().width() <= scroll.viewport().width()
-    tables = [m for m in page.findChildren(MatrixEditor) if m.isVisible()]
-    assert tables
-    for m in tables:
-        assert m.height() >= m.minimumSizeHint().height(), m.objectName()
-        t = m.table
-        shown_rows = sum(t.rowHeight(i) for i in range(t.rowCount()))
-        assert t.viewport().height() >= shown_rows, m.objectName()
-    for label in page.findChildren(QLabel):
-        if label.isVisible() and label.wordWrap() and label.text():
-            assert label.height() >= label.heightForWidth(label.width()), label.text()
+    assert [m for m in page.findChildren(MatrixEditor) if m.isVisible()]
+    # the layout settles within a few passes of the event loop
+    qtbot.waitUntil(lambda: _nothing_squeezed(page), timeout=2000)
 
 
 def test_a_matrix_keeps_room_for_a_scroll_bar_only_when_its_columns_overflow(qtbot):
@@ -73,3 +77,27 @@ def test_a_matrix_keeps_room_for_a_scroll_bar_only_when_its_columns_overflow(qtb
     assert band < t.horizontalScrollBar().sizeHint().height()
     w = wide.table
     assert w.height() - w.horizontalHeader().height() - w.rowHeight(0) - 2 * w.frameWidth() >= w.horizontalScrollBar().sizeHint().height()
+
+
+@pytest.mark.parametrize("size", [None, (800, 600)], ids=["default-size", "800x600"])
+def test_linking_an_estimator_leaves_nothing_cut(window, qtbot, size):
+    # own model -> plant P in the "model of" box: rows hide, notes are rewritten, L grows to 2x1
+    from test_dock_layout import show_every_dock
+
+    if size is not None:
+        window.resize(*size)
+    window.show()
+    qtbot.waitExposed(window)
+    if size is not None:
+        show_every_dock(window)
+    d = _diagram()
+    d.blocks[d.block_by_name("est").id].params = {"A": [[-1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]], "L": [[1.0]]}
+    window.document.replace_diagram(d)
+    window.inspector.show_block(window.document.diagram.block_by_name("est").id)
+    _settle(qtbot, window)
+    editor = window.inspector.model_editor
+    editor.choice.setCurrentIndex(editor.choice.findData("P"))
+    _settle(qtbot, window)
+    page = window.inspector._scroll.widget()
+    assert editor.matrices["L"].table.rowCount() == 2
+    qtbot.waitUntil(lambda: _nothing_squeezed(page), timeout=2000)
