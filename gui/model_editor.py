@@ -61,6 +61,11 @@ _SIZE_LABELS = {"states": "states", "inputs": "inputs u", "outputs": "outputs y"
                 "perf": "performance outputs z"}
 
 
+def _count(n: int, word: str) -> str:
+    """``1 state``, ``2 states``."""
+    return f"{n} {word}{'' if n == 1 else 's'}"
+
+
 def _is_siso_coeffs(value: Any) -> bool:
     return isinstance(value, list) and all(isinstance(c, (int, float)) and not isinstance(c, bool) for c in value)
 
@@ -672,7 +677,7 @@ class ModelEditor(_SizedByWidth):
             if sizes is None:
                 self.linked_info.setText(f"plant {linked} cannot be read yet; L keeps its size")
             else:
-                self.linked_info.setText(f"uses the model of {linked}: {sizes[0]} states, {sizes[1]} inputs u, {sizes[2]} outputs y")
+                self.linked_info.setText(f"uses the model of {linked}: {_count(sizes[0], 'state')}, {_count(sizes[1], 'input')} u, {_count(sizes[2], 'output')} y")
         if self._kind == "estimator":
             if linked is not None:
                 order = describe_state_order(self._diagram, linked)

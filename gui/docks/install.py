@@ -7,8 +7,8 @@ to itself. The layout is saved with the window state (``window/state``), never i
 """
 from __future__ import annotations
 
-from PySide6.QtCore import QEvent, QObject, Qt
-from PySide6.QtWidgets import QDockWidget
+from PySide6.QtCore import QEvent, QObject, QSize, Qt
+from PySide6.QtWidgets import QDockWidget, QLabel, QSizePolicy
 
 from loopwright.gui.docks.audit import AuditPanel
 from loopwright.gui.docks.frequency import FrequencyPanel
@@ -85,14 +85,56 @@ def install_views(window) -> None:
     audit = window.panels["audit"]
     audit.path_selected.connect(lambda row: _show_audit_path(window, row))
     # a label of its own: a passing status message would be squeezed out by the live model's line
-    from PySide6.QtWidgets import QLabel
-
-    window.audit_status = QLabel("")
+    window.audit_status = ElidedStatus(window.statusBar())
     window.audit_status.setObjectName("audit_status")
     window.statusBar().addPermanentWidget(window.audit_status)
     audit.summary_changed.connect(window.audit_status.setText)
     window.problems.view_requested.connect(lambda key: (window.view_docks[key].show(), window.view_docks[key].raise_()))
     _build_menus(window)
+
+
+class ElidedStatus(QLabel):
+    """A status-bar line that takes at most about a third of the bar and elides the rest
+    (the whole line is its tooltip): in a small window the path audit's line pushed the
+    live model's poles out of sight."""
+
+    def __init__(self, bar, share: float = 0.35):
+        super().__init__("")
+        self._bar, self._share, self._full = bar, share, ""
+        self.setSizePolicy(QSizePolicy.Policy.Preferred, QSizePolicy.Policy.Preferred)
+        bar.installEventFilter(self)  # the room follows the bar's width
+
+    def eventFilter(self, obj, event) -> bool:
+        if obj is self._bar and event.type() == QEvent.Type.Resize:
+            self.updateGeometry()
+        return super().eventFilter(obj, event)
+
+    def setText(self, text: str) -> None:
+        self._full = text
+        self.setToolTip(text)
+        self.updateGeometry()
+        self._elide()
+
+    def text(self) -> str:
+        return self._full
+
+    def _room(self) -> int:
+        return max(120, int(self._share * self._bar.width()))
+
+    def sizeHint(self) -> QSize:
+        hint = super().sizeHint()
+        return QSize(min(self.fontMetrics().horizontalAdvance(self._full) + 8, self._room()), hint.height())
+
+    def minimumSizeHint(self) -> QSize:
+        return QSize(0, super().minimumSizeHint().height())
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        self._elide()
+
+    def _elide(self) -> None:
+        shown = self.fontMetrics().elidedText(self._full, Qt.TextElideMode.ElideRight, max(self.width() - 4, 0))
+        QLabel.setText(self, shown)
 
 
 def _drop_leftover_tab_bars(window) -> None:

@@ -100,4 +100,5 @@ def test_linking_an_estimator_leaves_nothing_cut(window, qtbot, size):
     _settle(qtbot, window)
     page = window.inspector._scroll.widget()
     assert editor.matrices["L"].table.rowCount() == 2
+    assert editor.linked_info.text() == "uses the model of P: 2 states, 1 input u, 1 output y"
     qtbot.waitUntil(lambda: _nothing_squeezed(page), timeout=2000)

@@ -49,3 +49,23 @@ def test_an_empty_window_is_checked_without_an_internal_error(window, wait_live)
     # the assembly of no blocks once failed inside the engine and the status bar showed that
     result = wait_live(window)
     assert status_text(result) == "not assembled — empty diagram"
+
+
+def test_in_a_small_window_the_poles_stay_in_sight_and_the_audit_line_gives_way(window, wait_live, qtbot):
+    # tests/REFERENCES.md#stage-observer: poles -2 +- 2j, -5, -6 (separation principle)
+    from diagrams import stage_loop_ref03
+
+    window.resize(800, 600)
+    window.show()
+    qtbot.waitExposed(window)
+    window.document.replace_diagram(stage_loop_ref03())
+    wait_live(window)
+    line = "Path audit — worst stable path: d → est.xhat, peak gain 0.1 at 1 rad/s, and much more besides"
+    window.audit_status.setText(line)
+    qtbot.wait(50)
+    model = window._model_label
+    assert model.text().endswith("poles: -6, -5, -2 ± 2j")
+    assert model.width() >= model.fontMetrics().horizontalAdvance(model.text())
+    audit = window.audit_status
+    assert audit.text() == line and audit.toolTip() == line
+    assert audit.width() <= 0.4 * window.statusBar().width()
