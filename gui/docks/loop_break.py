@@ -29,8 +29,8 @@ class _PlotBesideList(AdaptiveSplitter):
     """The Nyquist plot and the margins list: side by side when the panel is wide (an
     aspect-locked plot wants a squarish place, and a short dock has no height to share),
     the plot taking about a square of the height (at least 45 % of the width, and leaving
-    the list 260 px or 55 %); one above
-    the other when the panel is narrow (a list squeezed beside the plot wraps every name)."""
+    the list 260 px or half); one above the other when the panel is narrow and tall enough
+    to share its height (a list squeezed beside the plot wraps every name)."""
 
     def resizeEvent(self, event) -> None:
         w, h = event.size().width(), event.size().height()
@@ -39,7 +39,7 @@ class _PlotBesideList(AdaptiveSplitter):
         if want != self.orientation():
             self.setOrientation(want)
         if across:
-            plot = int(min(max(1.1 * h, 0.45 * w), w - min(260.0, 0.55 * w)))  # the list keeps room for its two columns
+            plot = int(min(max(1.1 * h, 0.45 * w), w - min(260.0, 0.5 * w)))  # the list keeps room for its two columns
             self.setSizes([plot, w - plot])
         else:
             self.setSizes([int(0.62 * h), h - int(0.62 * h)])
@@ -156,6 +156,14 @@ class LoopBreakPanel(PlotPanel):
         self._refit.setInterval(0)
         self._refit.timeout.connect(self._fit_margins)
         self.margins.viewport().installEventFilter(self)
+        # with the aspect locked, a frame set for the plot's old shape shows the wrong part
+        # once the splitter reshapes it: frame again after each reshaping
+        self._reframe = QTimer(self)
+        self._reframe.setSingleShot(True)
+        self._reframe.setInterval(0)
+        self._reframe.timeout.connect(self._frame_current)
+        # the plot area's own size, which its layout settles after the widget's
+        self.plot.getViewBox().sigResized.connect(lambda *_a: (self._frame_current(), self._reframe.start()))
         self.margins.horizontalHeader().sectionResized.connect(lambda *_a: self._refit.start())
         self.canvas.setMinimumSize(140, 110)
         split.addWidget(self.margins)
@@ -259,8 +267,9 @@ class LoopBreakPanel(PlotPanel):
                 xs = np.concatenate([xs, [c - r, c + r]])
                 ys = np.concatenate([ys, [-r, r]])
         pad = 0.1 * max(np.ptp(xs), np.ptp(ys), 1.0)
-        self.plot.setXRange(xs.min() - pad, xs.max() + pad, padding=0)
-        self.plot.setYRange(ys.min() - pad, ys.max() + pad, padding=0)
+        # both ranges in one call: with the aspect locked, a second call kept its own range and
+        # recentred the first, and a tall plot showed only a strip beside the curve
+        self.plot.setRange(xRange=(xs.min() - pad, xs.max() + pad), yRange=(ys.min() - pad, ys.max() + pad), padding=0)
 
     def _fit_margins(self) -> None:
         """Names no wider than half the list (they wrap), values in the rest, rows as tall as their text."""
@@ -290,6 +299,8 @@ class LoopBreakPanel(PlotPanel):
         lines = -(-len(self.legend.items) // columns)
         shown = lines * _LEGEND_LINE <= self.canvas.height() / 3
         self.legend.setVisible(shown)
+        # a hidden item keeps its row in the plot's layout: the row goes too
+        self.legend.setMaximumHeight(16777215 if shown else 0)
         self.canvas.setToolTip("" if shown else _LEGEND_TIP)
 
     def legend_width(self, columns: int) -> float:
@@ -311,6 +322,11 @@ class LoopBreakPanel(PlotPanel):
 
     def showEvent(self, event) -> None:
         super().showEvent(event)
+        if self.data is not None:
+            k = self.channel_index()
+            self._frame(self.data, k, k >= len(self.data.curves))
+
+    def _frame_current(self) -> None:
         if self.data is not None:
             k = self.channel_index()
             self._frame(self.data, k, k >= len(self.data.curves))

@@ -214,17 +214,22 @@ def test_a_disturbance_through_a_gain_is_still_unknown():
     assert estimator_input_gaps(d) == []
 
 
-def test_the_same_weight_through_other_gains_is_the_same_command():
-    # the plant gets N r with N = 8 through N1 -> N2 (2 * 4); the estimator reads M r with M = 8
-    d = _stage_with_feedforward(_chain)
-    d.add_block("gain", "M", {"K": [[8.0]]})
+def _estimator_reads_feedback_plus(d: Diagram, source: str, gain: str) -> None:
+    """Rewire est.u to read Kx.out + gain(source) through a new junction ``ue``."""
     d.add_block("sum", "ue", {"signs": ["+", "+"], "width": 1})
     w = d.wire_into(d.resolve_port("est.u"))
     d.disconnect(w.id, d.resolve_port("est.u"))
     d.connect("Kx.out", "ue.in1")
-    d.connect("r.out", "M.in")
-    d.connect("M.out", "ue.in2")
+    d.connect(source, f"{gain}.in")
+    d.connect(f"{gain}.out", "ue.in2")
     d.connect("ue.out", "est.u", name="est_cmd")
+
+
+def test_the_same_weight_through_other_gains_is_the_same_command():
+    # the plant gets N r with N = 8 through N1 -> N2 (2 * 4); the estimator reads M r with M = 8
+    d = _stage_with_feedforward(_chain)
+    d.add_block("gain", "M", {"K": [[8.0]]})
+    _estimator_reads_feedback_plus(d, "r.out", "M")
     assert estimator_input_gaps(d) == []
     # with M = 7 the weights differ, and both routes are named
     d.blocks[d.block_by_name("M").id].params["K"] = [[7.0]]
@@ -242,17 +247,11 @@ def test_matrix_gains_compare_by_their_product():
     d.add_block("gain", "G1", {"K": [[1.0, 2.0], [3.0, 4.0]]})
     d.add_block("gain", "G2", {"K": [[0.5, -1.0]]})
     d.add_block("gain", "G3", {"K": [[-2.5, -3.0]]})  # G2 G1 = [0.5 - 3, 1 - 4] (closed form)
-    d.add_block("sum", "ue", {"signs": ["+", "+"], "width": 1})
     d.blocks[d.block_by_name("up").id].params["signs"] = ["+", "+", "+"]
     d.connect("r2.out", "G1.in", name="ref2")
     d.connect("G1.out", "G2.in")
     d.connect("G2.out", "up.in3")
-    w = d.wire_into(d.resolve_port("est.u"))
-    d.disconnect(w.id, d.resolve_port("est.u"))
-    d.connect("Kx.out", "ue.in1")
-    d.connect("r2.out", "G3.in")
-    d.connect("G3.out", "ue.in2")
-    d.connect("ue.out", "est.u", name="est_cmd")
+    _estimator_reads_feedback_plus(d, "r2.out", "G3")
     assert estimator_input_gaps(d) == []
     d.blocks[d.block_by_name("G3").id].params["K"] = [[-2.5, 3.0]]
     (gap,) = estimator_input_gaps(d)

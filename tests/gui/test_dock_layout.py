@@ -29,14 +29,20 @@ def show_every_dock(window) -> None:
             dock.toggleViewAction().trigger()
 
 
-@pytest.mark.parametrize("size", [None, (800, 600)], ids=["default-size", "800x600-panels-shown-again"])
-def test_the_inspector_stands_alone_and_every_tab_bar_is_one_group(window, qtbot, size):
+def show_at(window, qtbot, size) -> None:
+    """Show ``window`` at ``size`` (None: the default), its panels shown again where a small
+    window made them give way."""
     if size is not None:
         window.resize(*size)
     window.show()
     qtbot.waitExposed(window)
     if size is not None:
         show_every_dock(window)
+
+
+@pytest.mark.parametrize("size", [None, (800, 600)], ids=["default-size", "800x600-panels-shown-again"])
+def test_the_inspector_stands_alone_and_every_tab_bar_is_one_group(window, qtbot, size):
+    show_at(window, qtbot, size)
     qtbot.waitUntil(lambda: window.inspector_dock.widget().height() > 150, timeout=3000)
     assert window.tabifiedDockWidgets(window.inspector_dock) == []
     groups = _visible_tab_groups(window)

@@ -44,14 +44,9 @@ def _nothing_squeezed(page) -> None:
 @pytest.mark.parametrize("size", [None, (800, 600)], ids=["default-size", "800x600"])
 @pytest.mark.parametrize("name", ["P", "G", "est", "own", "K", "F"])
 def test_the_inspector_fits_its_panel(window, qtbot, size, name):
-    from test_dock_layout import show_every_dock
+    from test_dock_layout import show_at
 
-    if size is not None:
-        window.resize(*size)
-    window.show()
-    qtbot.waitExposed(window)
-    if size is not None:
-        show_every_dock(window)
+    show_at(window, qtbot, size)
     window.document.replace_diagram(_diagram())
     window.inspector.show_block(window.document.diagram.block_by_name(name).id)
     _settle(qtbot, window)
@@ -82,14 +77,9 @@ def test_a_matrix_keeps_room_for_a_scroll_bar_only_when_its_columns_overflow(qtb
 @pytest.mark.parametrize("size", [None, (800, 600)], ids=["default-size", "800x600"])
 def test_linking_an_estimator_leaves_nothing_cut(window, qtbot, size):
     # own model -> plant P in the "model of" box: rows hide, notes are rewritten, L grows to 2x1
-    from test_dock_layout import show_every_dock
+    from test_dock_layout import show_at
 
-    if size is not None:
-        window.resize(*size)
-    window.show()
-    qtbot.waitExposed(window)
-    if size is not None:
-        show_every_dock(window)
+    show_at(window, qtbot, size)
     d = _diagram()
     d.blocks[d.block_by_name("est").id].params = {"A": [[-1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]], "L": [[1.0]]}
     window.document.replace_diagram(d)
