@@ -105,7 +105,8 @@ def block_sketch(block: Block, *, points: int = 40) -> BlockSketch:
                 X = np.linalg.solve(M, np.broadcast_to(B, (points, *B.shape)).astype(complex))
             except np.linalg.LinAlgError:
                 X = np.stack([_solve_or_inf(Mk, B) for Mk in M])
-        G = C[None] @ X + D[None]
+            # a pole on the grid leaves inf in X: inf * 0 in the product is nan there, drawn as inf below
+            G = C[None] @ X + D[None]
     if G.shape[1] == 1 and G.shape[2] == 1:
         mag = np.abs(G[:, 0, 0])
     else:

@@ -46,7 +46,7 @@ from loopwright.engine.estimator_inputs import InputGap, estimator_input_gaps
 from loopwright.engine.interconnect import AssembledModel, assemble
 from loopwright.engine.recipes import recipe_status
 
-__all__ = ["CheckReport", "Separation", "summarize", "pole_table", "poles_match"]
+__all__ = ["CheckReport", "Separation", "summarize", "pole_table", "poles_match", "pole_digits"]
 
 
 # Relative size of the error-coordinate coupling block below which it is rounding of zero: a few
@@ -116,12 +116,13 @@ class CheckReport:
     recipe_states: dict[str, str] = field(default_factory=dict)  # block -> "not designed yet" / "stale" / ...
     input_gaps: tuple[InputGap, ...] = ()  # estimators whose command input misses known signals the plant gets
 
+    pole_scale: float = 0.0  # matrix_scale of the assembled A: what a pole at the origin is measured against
+
     @property
     def poles_trusted(self) -> bool:
-        """Every pole is right to at least 3 significant digits."""
-        from loopwright.engine.eigen import trustworthy_digits
-
-        return all(trustworthy_digits(p, b) >= 3 for p, b in zip(self.poles, self.pole_bounds))
+        """Every pole is right to at least 3 significant digits (a pole at the origin: to 3
+        digits of the matrix's scale)."""
+        return all(d >= 3 for d in pole_digits(self.poles, self.pole_bounds, scale=self.pole_scale))
 
     @property
     def pole_source_text(self) -> str:
@@ -287,6 +288,20 @@ def _static_feedback(model: AssembledModel, estimator: str, plant: str, g: nx.Mu
     return -model.D[model.signals[uw.name], model.inputs[f"inject:{xw.name}"]]
 
 
+def pole_digits(poles, bounds, *, scale: float) -> list[int]:
+    """Trustworthy significant digits of each pole (:func:`eigen.trustworthy_digits`).
+
+    A pole at the origin (within rounding, by :func:`eigen.pole_regions`) has no digits of
+    its own to keep, so its rounding bound is measured against the matrix's scale instead:
+    an integrator's pole computed as 0 with a bound of a few ulps is as exact as the
+    arithmetic allows, not ill-conditioned (the on-axis warning already names it).
+    """
+    from loopwright.engine.eigen import pole_regions, trustworthy_digits
+
+    regions = pole_regions(poles, scale=scale) if len(poles) else []
+    return [trustworthy_digits(scale if r == "origin" and scale > 0 else p, b) for p, b, r in zip(poles, bounds, regions)]
+
+
 def summarize(diagram: Diagram) -> CheckReport:
     """Assemble ``diagram`` and report what an engineer checks first.
 
@@ -306,7 +321,8 @@ def summarize(diagram: Diagram) -> CheckReport:
         sep, sep_poles, sep_bounds = found
         if sep_poles is not None:
             poles, bounds, source = sep_poles, sep_bounds, "separation"
-    classes = classify_poles(poles, scale=matrix_scale(model.A))
+    scale = matrix_scale(model.A)
+    classes = classify_poles(poles, scale=scale)
     if classes.on_axis:
         m = classes.on_axis
         warnings.append(f"{m} pole{'s' if m > 1 else ''} on the imaginary axis ({classes.phrase()}): the loop is at best marginally stable")
@@ -316,9 +332,7 @@ def summarize(diagram: Diagram) -> CheckReport:
     # estimator's tap drives the error without moving any pole.
     gaps = tuple(estimator_input_gaps(diagram))
     warnings.extend(gap.message for gap in gaps)
-    from loopwright.engine.eigen import trustworthy_digits
-
-    digits = [trustworthy_digits(p, b) for p, b in zip(poles, bounds)]
+    digits = pole_digits(poles, bounds, scale=scale)
     if digits and min(digits) < 3:
         k = int(np.argmin(digits))
         warnings.append(
@@ -348,6 +362,7 @@ def summarize(diagram: Diagram) -> CheckReport:
         pole_bounds=bounds,
         pole_source=source,
         worst_condition=sens.worst_condition,
+        pole_scale=scale,
         recipe_states=states,
         input_gaps=gaps,
     )

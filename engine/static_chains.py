@@ -75,7 +75,9 @@ def solve_acyclic_feedthrough(DM: sp.spmatrix, rhs: np.ndarray | None = None, *,
     if out is not None:
         X = out
     else:
-        X = np.eye(ns) if rhs is None else np.array(rhs, dtype=float, copy=True).reshape(ns, -1)
+        X = np.eye(ns) if rhs is None else np.array(rhs, dtype=float, copy=True)
+        # reshape(0, -1) cannot infer the columns of an empty diagram's (0, k) right-hand side
+        X = X.reshape(ns, -1) if ns else X.reshape(0, X.shape[-1] if X.ndim == 2 else 0)
     if ns == 0 or DM.nnz == 0:
         return X
     order = feedthrough_order(DM)

@@ -10,7 +10,7 @@ from __future__ import annotations
 import copy
 from contextlib import contextmanager
 
-from PySide6.QtCore import Qt
+from PySide6.QtCore import QEvent, Qt, QTimer
 from PySide6.QtWidgets import (
     QComboBox,
     QFormLayout,
@@ -28,7 +28,7 @@ from loopwright.engine.errors import EngineError, ParameterError
 from loopwright.engine.validation import parse_matrix_text
 from loopwright.gui.commands import RenameBlock, RenameWire, SetCaption, SetParams
 from loopwright.gui.matrix_table import MatrixEditor, error_label, number_text, show_error
-from loopwright.gui.model_editor import ModelEditor, describe_state_order
+from loopwright.gui.model_editor import ModelEditor, WrappedNote, describe_state_order
 from loopwright.gui.recipe_editor import embed_recipe_editor
 
 __all__ = ["Inspector", "MatrixEditor", "format_complex_list"]
@@ -103,6 +103,10 @@ class Inspector(QWidget):
         self._scroll = QScrollArea()
         self._scroll.setWidgetResizable(True)
         self._scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+        self._refit = QTimer(self)
+        self._refit.setSingleShot(True)
+        self._refit.setInterval(0)
+        self._refit.timeout.connect(self._refit_page)
         outer = QVBoxLayout(self)
         outer.setContentsMargins(2, 2, 2, 2)
         outer.addWidget(self._scroll)
@@ -184,6 +188,18 @@ class Inspector(QWidget):
         if old is not None:
             old.deleteLater()
         self._scroll.setWidget(w)
+        w.installEventFilter(self)
+
+    def eventFilter(self, obj, event) -> bool:
+        if obj is self._scroll.widget() and event.type() == QEvent.Type.LayoutRequest:
+            # The page grew or shrank in place (a plant linked, a matrix resized, a note
+            # rewritten): the scroll area only refits it on its own resize, so the rows
+            # were squeezed into the old height and a note's last line was cut.
+            self._refit.start()
+        return super().eventFilter(obj, event)
+
+    def _refit_page(self) -> None:
+        self._scroll.setWidgetResizable(True)  # resizes the page to its height for the viewport's width
 
     def _on_block_event(self, bid: str) -> None:
         if bid == self._block_id and not self._building:
@@ -272,7 +288,7 @@ class Inspector(QWidget):
         builder = getattr(self, f"_build_{blk.kind}")
         builder(form, blk)
         embed_recipe_editor(self, form, blk)  # gui/recipe_editor.py: recipe, Design button, checks
-        size = QLabel(self._size_text(blk))
+        size = WrappedNote(self._size_text(blk))  # a wrapped line the form would cut
         size.setObjectName("block_size")
         size.setWordWrap(True)
         self.fields["block_size"] = size

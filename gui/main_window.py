@@ -83,7 +83,10 @@ def status_text(result: LiveResult | None) -> str:
         )
     for gap in getattr(rep, "input_gaps", ()) or ():
         # Separation can hold while the estimate is biased: say so where the verdict is.
-        parts.append(f"estimate biased: {gap.estimator}.u misses {', '.join(gap.missing + gap.extra + gap.differing)}")
+        said = [f"misses {', '.join(gap.missing)}"] if gap.missing else []
+        said += [f"also reads {', '.join(gap.extra)}"] if gap.extra else []
+        said += [f"weighs {', '.join(gap.differing)} differently"] if gap.differing else []
+        parts.append(f"estimate biased: {gap.estimator}.u {'; '.join(said)}")
     if 0 < len(rep.poles) <= _POLES_SHOWN:
         # A small loop's poles in plain sight: the designed ones, or not.
         from loopwright.gui.inspector import format_complex_list
@@ -93,6 +96,11 @@ def status_text(result: LiveResult | None) -> str:
 
 
 _POLES_SHOWN = 8
+
+#: The dock layout's version, saved with the window state: raised when the default layout
+#: changes so that a state saved before (e.g. the inspector and the pairs in one tab group)
+#: gives way to the new default instead of being restored.
+_LAYOUT_VERSION = 1
 
 
 def undo_redo_icon(which: str):
@@ -250,8 +258,8 @@ class MainWindow(QMainWindow):
         self.resize(1400, 900)
         self._docks_sized = False
         state = settings.value("window/state")
-        if state is not None:
-            self.restoreState(state)
+        # a layout saved by an older version is not restored: the default one is sized instead
+        self._state_restored = state is not None and bool(self.restoreState(state, _LAYOUT_VERSION))
         self.live.request_now()
 
     # ---- construction --------------------------------------------------------------------------
@@ -410,7 +418,7 @@ class MainWindow(QMainWindow):
 
     def showEvent(self, event) -> None:
         super().showEvent(event)
-        if not self._docks_sized and self.settings.value("window/state") is None:
+        if not self._docks_sized and not self._state_restored:
             # Dock sizes only take once the window has its size: keep the canvas large.
             self._docks_sized = True
             self.resizeDocks([self.problems_dock], [300], Qt.Orientation.Vertical)
@@ -594,7 +602,7 @@ class MainWindow(QMainWindow):
             self.setUpdatesEnabled(False)
             for dk in self._hidden_for_room:
                 dk.show()
-        self.settings.setValue("window/state", self.saveState())
+        self.settings.setValue("window/state", self.saveState(_LAYOUT_VERSION))
         self._autosave_timer.stop()
         # Do not wait for a check still running on the worker: its result is dropped.
         self.live.shutdown(wait=False)

@@ -104,6 +104,7 @@ class MatrixEditor(QWidget):
         self.table.itemChanged.connect(lambda _item: self._emit())
         self.paste_button.clicked.connect(lambda: self.paste_text(QGuiApplication.clipboard().text()))
         self.table.installEventFilter(self)
+        self.table.horizontalHeader().sectionResized.connect(lambda *_a: self._fit_height())
 
     def set_value(self, value) -> None:
         rows = value if isinstance(value, list) else [[value]]
@@ -126,10 +127,23 @@ class MatrixEditor(QWidget):
         self._fit_height()
 
     def _fit_height(self) -> None:
-        # Rows, header, and room for the horizontal scroll bar that wide numbers may need.
-        h = (self.table.horizontalHeader().sizeHint().height() + 6 + self.table.horizontalScrollBar().sizeHint().height()
-             + sum(self.table.rowHeight(i) for i in range(self.table.rowCount())))
-        self.table.setFixedHeight(min(max(h, 40), 260))
+        # Rows and header; room for the horizontal scroll bar only while the columns are
+        # wider than the table (wide numbers, many columns): an empty band under every
+        # matrix pushed the model's Apply button out of sight.
+        t = self.table
+        bar = t.horizontalScrollBar().sizeHint().height() if self.needs_scroll_room() else 0
+        h = t.horizontalHeader().sizeHint().height() + 2 * t.frameWidth() + 2 + bar + sum(t.rowHeight(i) for i in range(t.rowCount()))
+        t.setFixedHeight(min(max(h, 40), 260))
+
+    def needs_scroll_room(self) -> bool:
+        """Whether the columns are wider than the table (the height then keeps room for the scroll bar)."""
+        t = self.table
+        columns = t.verticalHeader().sizeHint().width() + sum(t.columnWidth(j) for j in range(t.columnCount())) + 2 * t.frameWidth()
+        return columns > t.width()
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        self._fit_height()
 
     def _on_resize(self) -> None:
         n, m = self.rows.value(), self.cols.value()

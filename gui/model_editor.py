@@ -17,7 +17,7 @@ from __future__ import annotations
 import copy
 from typing import Any, Callable
 
-from PySide6.QtCore import Qt, Signal
+from PySide6.QtCore import QSize, Qt, Signal
 from PySide6.QtGui import QKeySequence, QShortcut
 from PySide6.QtWidgets import (
     QComboBox,
@@ -37,7 +37,7 @@ from loopwright.engine.errors import EngineError, ParameterError
 from loopwright.engine.validation import parse_matrix_text
 from loopwright.gui.matrix_table import MatrixEditor, number_text
 
-__all__ = ["ModelEditor", "MODEL_KEYS", "state_order", "describe_state_order"]
+__all__ = ["ModelEditor", "MODEL_KEYS", "WrappedNote", "state_order", "describe_state_order"]
 
 #: parameters that make up a block's model (everything else, e.g. a recipe, is kept)
 MODEL_KEYS = ("A", "B", "C", "D", "E", "F", "Cz", "Dz", "Fz", "num", "den", "plant", "L")
@@ -59,6 +59,11 @@ _SHAPES = {
 }
 _SIZE_LABELS = {"states": "states", "inputs": "inputs u", "outputs": "outputs y", "loads": "load inputs d",
                 "perf": "performance outputs z"}
+
+
+def _count(n: int, word: str) -> str:
+    """``1 state``, ``2 states``."""
+    return f"{n} {word}{'' if n == 1 else 's'}"
 
 
 def _is_siso_coeffs(value: Any) -> bool:
@@ -91,7 +96,66 @@ def describe_state_order(diagram, block_name: str) -> str:
     return ", ".join(order) if order else "no states"
 
 
-class ModelEditor(QWidget):
+class WrappedNote(QLabel):
+    """A word-wrapped note whose minimum height is its height at its width.
+
+    A form caches each row's height for width: a note rewritten or shown again (linking a
+    plant) kept the height of its old text and its last line was cut. A minimum height
+    is always read afresh.
+    """
+
+    def __init__(self, text: str = "", parent=None):
+        super().__init__(text, parent)
+        self.setWordWrap(True)
+
+    def setText(self, text: str) -> None:
+        super().setText(text)
+        self._fit()
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        if event.size().width() != event.oldSize().width():
+            self._fit()
+
+    def _fit(self) -> None:
+        h = self.heightForWidth(self.width()) if self.width() > 0 else -1
+        if h > 0 and h != self.minimumHeight():
+            self.setMinimumHeight(h)
+
+
+class _SizedByWidth(QWidget):
+    """A container whose size hints are its height for its current width.
+
+    A form lays a spanning row out by the row's size hint, not by its height for the width
+    it gets: word-wrapped notes then squeezed the matrices under them (a 2x1 L, a 2x2
+    realization showed one row). These hints say the height needed at the current width.
+    """
+
+    def sizeHint(self) -> QSize:
+        hint = super().sizeHint()
+        return QSize(hint.width(), max(hint.height(), self._height_at_width()))
+
+    def minimumSizeHint(self) -> QSize:
+        hint = super().minimumSizeHint()
+        return QSize(hint.width(), max(hint.height(), self._height_at_width()))
+
+    def heightForWidth(self, width: int) -> int:
+        # asked for a wider width than it has (the form's spanning row counts its margins
+        # differently), answer for the width it has: more height is harmless, less cuts a line
+        return super().heightForWidth(min(width, self.width()) if self.width() > 0 else width)
+
+    def _height_at_width(self) -> int:
+        lay = self.layout()
+        return lay.totalHeightForWidth(self.width()) if lay is not None and lay.hasHeightForWidth() and self.width() > 0 else 0
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        if event.size().width() != event.oldSize().width():
+            self.updateGeometry()  # the hints above depend on the width
+
+
+
+class ModelEditor(_SizedByWidth):
     """Edits the model of one plant, dynamic block or estimator as one draft.
 
     Parameters
@@ -158,32 +222,40 @@ class ModelEditor(QWidget):
             spin.setObjectName(f"size_{key}")
             spin.setRange(0 if key in ("states", *_PLANT_ONLY) else 1, 200)
             spin.setToolTip(_SIZE_LABELS[key])
-            srow.addWidget(QLabel(_SIZE_LABELS[key]), k // 2, 2 * (k % 2))
-            srow.addWidget(spin, k // 2, 2 * (k % 2) + 1)
+            if k < 4:
+                srow.addWidget(QLabel(_SIZE_LABELS[key]), k // 2, 2 * (k % 2))
+                srow.addWidget(spin, k // 2, 2 * (k % 2) + 1)
+            else:
+                # a long label spans the first three columns: the pairs above stay narrow
+                # enough for the inspector's usual width
+                srow.addWidget(QLabel(_SIZE_LABELS[key]), k // 2, 0, 1, 3)
+                srow.addWidget(spin, k // 2, 3)
             self.sizes[key] = spin
         srow.setColumnStretch(4, 1)
         self._size_row = size_row
         self._form.addRow("sizes", size_row)
-        self.linked_info = QLabel("")
+        # notes span the form's width: in the field column of a wrapping form, a note's
+        # row was sized for another width than it got and its last line was cut
+        self.linked_info = WrappedNote("")
         self.linked_info.setObjectName("linked_info")
         self.linked_info.setWordWrap(True)
-        self._form.addRow("", self.linked_info)
+        self._form.addRow(self.linked_info)
 
         for key in ("A", "B", "C", "D", "E", "F", "Cz", "Dz", "Fz"):
             if key in ("E", "F", "Cz", "Dz", "Fz") and kind != "plant":
                 continue
             self._add_matrix(key, key)
         if kind == "plant":
-            self.performance_note = QLabel("z = Cz x + Dz u + Fz d: what must stay small but is not measured; "
+            self.performance_note = WrappedNote("z = Cz x + Dz u + Fz d: what must stay small but is not measured; "
                                            "estimators and designs read y only")
             self.performance_note.setObjectName("performance_note")
             self.performance_note.setWordWrap(True)
-            self._form.addRow("", self.performance_note)
-        self.states_note = QLabel("")
+            self._form.addRow(self.performance_note)
+        self.states_note = WrappedNote("")
         self.states_note.setObjectName("states_note")
         self.states_note.setWordWrap(True)
         self.states_note.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
-        self._form.addRow("", self.states_note)
+        self._form.addRow(self.states_note)
 
         # transfer function: coefficients and the realisation beside them
         self.num = QLineEdit()
@@ -197,23 +269,23 @@ class ModelEditor(QWidget):
         self.fields["num"], self.fields["den"] = self.num, self.den
         self._form.addRow("numerator", self.num)
         self._form.addRow("denominator", self.den)
-        self.poles_zeros = QLabel("")
+        self.poles_zeros = WrappedNote("")
         self.poles_zeros.setObjectName("poles_zeros")
         self.poles_zeros.setWordWrap(True)
         self.poles_zeros.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
-        self._form.addRow("", self.poles_zeros)
+        self._form.addRow(self.poles_zeros)
         self.fields["poles_zeros"] = self.poles_zeros
-        self.tf_note = QLabel("a transfer-function matrix: one (num, den) pair per output and input, kept as written in the file")
+        self.tf_note = WrappedNote("a transfer-function matrix: one (num, den) pair per output and input, kept as written in the file")
         self.tf_note.setWordWrap(True)
-        self._form.addRow("", self.tf_note)
-        self.realization = QWidget()
+        self._form.addRow(self.tf_note)
+        self.realization = _SizedByWidth()
         self.realization.setObjectName("realization")
         rlay = QVBoxLayout(self.realization)
         rlay.setContentsMargins(0, 0, 0, 0)
         head = QLabel("<b>realization</b> (read-only: what the engine builds from the transfer function)")
         head.setWordWrap(True)
         rlay.addWidget(head)
-        self.realization_states = QLabel("")
+        self.realization_states = WrappedNote("")
         self.realization_states.setObjectName("realization_states")
         self.realization_states.setWordWrap(True)
         rlay.addWidget(self.realization_states)
@@ -229,13 +301,13 @@ class ModelEditor(QWidget):
 
         if kind == "estimator":
             self._add_matrix("L", "L (estimator gain)")
-            self.l_order = QLabel("")
+            self.l_order = WrappedNote("")
             self.l_order.setObjectName("l_order")
             self.l_order.setWordWrap(True)
-            self._form.addRow("", self.l_order)
+            self._form.addRow(self.l_order)
 
         # the draft's state and the one step that applies it
-        self.status = QLabel("")
+        self.status = WrappedNote("")
         self.status.setObjectName("model_draft_status")
         self.status.setWordWrap(True)
         self.apply_button = QPushButton("Apply model")
@@ -605,7 +677,7 @@ class ModelEditor(QWidget):
             if sizes is None:
                 self.linked_info.setText(f"plant {linked} cannot be read yet; L keeps its size")
             else:
-                self.linked_info.setText(f"uses the model of {linked}: {sizes[0]} states, {sizes[1]} inputs u, {sizes[2]} outputs y")
+                self.linked_info.setText(f"uses the model of {linked}: {_count(sizes[0], 'state')}, {_count(sizes[1], 'input')} u, {_count(sizes[2], 'output')} y")
         if self._kind == "estimator":
             if linked is not None:
                 order = describe_state_order(self._diagram, linked)

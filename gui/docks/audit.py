@@ -25,6 +25,23 @@ def _num(x: float) -> str:
     return "—" if not np.isfinite(x) else f"{x:.4g}"
 
 
+def _peak_phrase(peak: float, w_rad_s: float) -> str:
+    """Where a path's peak gain is, in words that are true in every case: a frequency only
+    when there is one (the engine gives inf for a peak approached as the frequency grows,
+    through a direct feedthrough, and nan where it has none)."""
+    if not np.isfinite(peak):
+        return "unbounded gain"
+    if peak == 0:
+        return "zero gain at every frequency"
+    if w_rad_s == 0:
+        return f"peak gain {_num(peak)} at DC (0 rad/s)"
+    if np.isposinf(w_rad_s):
+        return f"peak gain {_num(peak)}, approached as the frequency grows (direct feedthrough)"
+    if not np.isfinite(w_rad_s):
+        return f"peak gain {_num(peak)} (no single frequency)"
+    return f"peak gain {_num(peak)} at {_num(w_rad_s)} rad/s"
+
+
 def audit_summary(rows) -> str:
     """One status-bar line: the worst stable path and any unstable ones."""
     unstable = [r for r in rows if not r.stable]
@@ -32,7 +49,7 @@ def audit_summary(rows) -> str:
     parts = []
     if stable:
         w = stable[0]
-        parts.append(f"worst stable path: {w.source} → {w.signal}, peak gain {_num(w.peak_gain)} at {_num(w.peak_freq_rad_s)} rad/s")
+        parts.append(f"worst stable path: {w.source} → {w.signal}, {_peak_phrase(w.peak_gain, w.peak_freq_rad_s)}")
     if unstable:
         names = ", ".join(f"{r.source} → {r.signal}" for r in unstable[:4]) + (" …" if len(unstable) > 4 else "")
         parts.append(f"UNSTABLE: {len(unstable)} path{'s' if len(unstable) > 1 else ''} ({names})")

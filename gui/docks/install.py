@@ -1,13 +1,14 @@
 """Puts the analysis panels into a main window: the pairs panel, one dock per plot panel,
 the canvas picks, the Views menu and File ▸ Export view.
 
-Plot docks sit in the bottom area in two tab groups beside the problems list; their
-layout is saved with the window state (``window/state``), never in the diagram.
+Plot docks sit in the bottom area in two tab groups beside the problems list (whose group
+also holds the history, the path audit and the pairs); the inspector has the right side
+to itself. The layout is saved with the window state (``window/state``), never in the diagram.
 """
 from __future__ import annotations
 
-from PySide6.QtCore import QEvent, QObject, Qt
-from PySide6.QtWidgets import QDockWidget
+from PySide6.QtCore import QEvent, QObject, QSize, Qt
+from PySide6.QtWidgets import QDockWidget, QLabel, QSizePolicy
 
 from loopwright.gui.docks.audit import AuditPanel
 from loopwright.gui.docks.frequency import FrequencyPanel
@@ -54,9 +55,9 @@ def install_views(window) -> None:
     window.pairs_dock = QDockWidget("Pairs", window)
     window.pairs_dock.setObjectName("pairs_dock")
     window.pairs_dock.setWidget(window.pairs_panel)
-    window.addDockWidget(Qt.DockWidgetArea.RightDockWidgetArea, window.pairs_dock)
-    window.tabifyDockWidget(window.inspector_dock, window.pairs_dock)
-    window.inspector_dock.raise_()
+    # The inspector has the right side to itself (a tab bar there hid one of the two and
+    # squeezed the matrices); the pairs' keyboard lists join the bottom-left tab group.
+    window.addDockWidget(Qt.DockWidgetArea.BottomDockWidgetArea, window.pairs_dock)
     window.views = ViewsController(doc, debounce_ms=window.prefs.debounce_ms, parent=window)
     panels = [FrequencyPanel(), TimePanel(), PoleMapPanel(), LoopBreakPanel(), SingularValuePanel(), NoisePanel(), AuditPanel()]
     window.panels = {p.key: p for p in panels}
@@ -75,6 +76,7 @@ def install_views(window) -> None:
     for k in ("loop_break", "noise"):
         window.tabifyDockWidget(vd["time"], vd[k])
     window.tabifyDockWidget(window.history_dock, vd["audit"])
+    window.tabifyDockWidget(vd["audit"], window.pairs_dock)
     vd["frequency"].raise_()
     vd["time"].raise_()
     window.problems_dock.raise_()
@@ -83,14 +85,56 @@ def install_views(window) -> None:
     audit = window.panels["audit"]
     audit.path_selected.connect(lambda row: _show_audit_path(window, row))
     # a label of its own: a passing status message would be squeezed out by the live model's line
-    from PySide6.QtWidgets import QLabel
-
-    window.audit_status = QLabel("")
+    window.audit_status = ElidedStatus(window.statusBar())
     window.audit_status.setObjectName("audit_status")
     window.statusBar().addPermanentWidget(window.audit_status)
     audit.summary_changed.connect(window.audit_status.setText)
     window.problems.view_requested.connect(lambda key: (window.view_docks[key].show(), window.view_docks[key].raise_()))
     _build_menus(window)
+
+
+class ElidedStatus(QLabel):
+    """A status-bar line that takes at most about a third of the bar and elides the rest
+    (the whole line is its tooltip): in a small window the path audit's line pushed the
+    live model's poles out of sight."""
+
+    def __init__(self, bar, share: float = 0.35):
+        super().__init__("")
+        self._bar, self._share, self._full = bar, share, ""
+        self.setSizePolicy(QSizePolicy.Policy.Preferred, QSizePolicy.Policy.Preferred)
+        bar.installEventFilter(self)  # the room follows the bar's width
+
+    def eventFilter(self, obj, event) -> bool:
+        if obj is self._bar and event.type() == QEvent.Type.Resize:
+            self.updateGeometry()
+        return super().eventFilter(obj, event)
+
+    def setText(self, text: str) -> None:
+        self._full = text
+        self.setToolTip(text)
+        self.updateGeometry()
+        self._elide()
+
+    def text(self) -> str:
+        return self._full
+
+    def _room(self) -> int:
+        return max(120, int(self._share * self._bar.width()))
+
+    def sizeHint(self) -> QSize:
+        hint = super().sizeHint()
+        return QSize(min(self.fontMetrics().horizontalAdvance(self._full) + 8, self._room()), hint.height())
+
+    def minimumSizeHint(self) -> QSize:
+        return QSize(0, super().minimumSizeHint().height())
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        self._elide()
+
+    def _elide(self) -> None:
+        shown = self.fontMetrics().elidedText(self._full, Qt.TextElideMode.ElideRight, max(self.width() - 4, 0))
+        QLabel.setText(self, shown)
 
 
 def _drop_leftover_tab_bars(window) -> None:

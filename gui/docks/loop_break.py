@@ -6,8 +6,9 @@ from __future__ import annotations
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtCore import Qt
-from PySide6.QtWidgets import QComboBox, QHBoxLayout, QLabel, QTableWidget, QTableWidgetItem
+from PySide6.QtCore import QEvent, Qt, QTimer
+from PySide6.QtWidgets import QSplitter
+from PySide6.QtWidgets import QComboBox, QHBoxLayout, QHeaderView, QLabel, QTableWidget, QTableWidgetItem
 
 from loopwright.engine.margins import LoopMargins
 from loopwright.engine.views_data import loop_break_view
@@ -16,6 +17,33 @@ from loopwright.gui.docks.panel import AdaptiveSplitter, PlotPanel, elastic, leg
 __all__ = ["LoopBreakPanel", "margin_rows"]
 
 _CURVE = "#2f7fd0"
+#: Below this panel height the one-line summary gives its room to the plot (the margins
+#: list beside the plot says the same).
+_SHORT_PANEL = 330
+_LEGEND_SPACING = 14  # legend_row's horizontal spacing
+_LEGEND_LINE = 22  # height of one line of the legend (px)
+_LEGEND_TIP = "solid: L(jω) for ω > 0 · dashed: ω < 0 · red dashes: the disk-margin disk · red cross: the critical point −1"
+
+
+class _PlotBesideList(AdaptiveSplitter):
+    """The Nyquist plot and the margins list: side by side when the panel is wide (an
+    aspect-locked plot wants a squarish place, and a short dock has no height to share),
+    the plot taking about a square of the height (at least 45 % of the width, and leaving
+    the list 260 px or half); one above the other when the panel is narrow and tall enough
+    to share its height (a list squeezed beside the plot wraps every name)."""
+
+    def resizeEvent(self, event) -> None:
+        w, h = event.size().width(), event.size().height()
+        across = w >= 720 or (w >= 1.2 * h and w >= 480)
+        want = Qt.Orientation.Horizontal if across else Qt.Orientation.Vertical
+        if want != self.orientation():
+            self.setOrientation(want)
+        if across:
+            plot = int(min(max(1.1 * h, 0.45 * w), w - min(260.0, 0.5 * w)))  # the list keeps room for its two columns
+            self.setSizes([plot, w - plot])
+        else:
+            self.setSizes([int(0.62 * h), h - int(0.62 * h)])
+        QSplitter.resizeEvent(self, event)
 
 
 def _num(x: float, digits: int = 4) -> str:
@@ -26,19 +54,42 @@ def _num(x: float, digits: int = 4) -> str:
     return f"{x:.{digits}g}"
 
 
+def _at(w: float) -> str:
+    """Where a margin is reached, only when there is a frequency to name."""
+    if w is None or np.isnan(w):
+        return ""
+    return " as ω → ∞" if np.isposinf(w) else f" at {_num(w)} rad/s"
+
+
+def _gain_text(g: float, db: float, w: float, *, lower: bool, stable: bool) -> str:
+    if g is None or np.isnan(g):
+        return "none: the closed loop is unstable" if not stable else "none"
+    if (lower and g == 0) or (not lower and np.isposinf(g)):
+        return "none: stable for any lower gain" if lower else "none: stable for any higher gain"
+    return f"{_num(g)} ({_num(db)} dB){_at(w)}"
+
+
+def _phase_text(m: LoopMargins, *, where: bool = True) -> str:
+    if m.phase_margin_deg is None or np.isnan(m.phase_margin_deg):
+        return "none: |L| never crosses 1" if m.closed_loop_stable else "none: the closed loop is unstable"
+    return f"{_num(m.phase_margin_deg)}°" + (_at(m.phase_margin_w_rad_s) if where else "")
+
+
 def margin_rows(m: LoopMargins) -> list[tuple[str, str]]:
-    """The margins of one scalar loop as (name, value) lines."""
+    """The margins of one scalar loop as (name, value) lines; a frequency is named only
+    where the margin has one (never "at — rad/s"), an unbounded margin says so."""
     lo_db, hi_db = m.gain_margin_db
+    stable = m.closed_loop_stable
     return [
-        ("closed loop", "stable" if m.closed_loop_stable else "UNSTABLE"),
+        ("closed loop", "stable" if stable else "UNSTABLE"),
         ("open-loop right-half-plane poles", str(m.open_loop_unstable_poles)),
-        ("gain margin, lower", f"{_num(m.gain_lower)} ({_num(lo_db)} dB) at {_num(m.gain_lower_w_rad_s)} rad/s"),
-        ("gain margin, upper", f"{_num(m.gain_upper)} ({_num(hi_db)} dB) at {_num(m.gain_upper_w_rad_s)} rad/s"),
-        ("phase margin", f"{_num(m.phase_margin_deg)}° at {_num(m.phase_margin_w_rad_s)} rad/s"),
+        ("gain margin, lower", _gain_text(m.gain_lower, lo_db, m.gain_lower_w_rad_s, lower=True, stable=stable)),
+        ("gain margin, upper", _gain_text(m.gain_upper, hi_db, m.gain_upper_w_rad_s, lower=False, stable=stable)),
+        ("phase margin", _phase_text(m)),
         ("delay margin", f"{_num(m.delay_margin_s)} s"),
-        ("peak sensitivity", f"{_num(m.peak_sensitivity)} at {_num(m.peak_sensitivity_w_rad_s)} rad/s"),
+        ("peak sensitivity", f"{_num(m.peak_sensitivity)}{_at(m.peak_sensitivity_w_rad_s)}"),
         ("disk margin α", f"{_num(m.disk.alpha)}: gain [{_num(m.disk.gain_lower)}, {_num(m.disk.gain_upper)}], "
-                          f"phase ±{_num(m.disk.phase_deg)}° at {_num(m.disk.w_rad_s)} rad/s"),
+                          f"phase ±{_num(m.disk.phase_deg)}°{_at(m.disk.w_rad_s)}"),
     ]
 
 
@@ -70,7 +121,8 @@ class LoopBreakPanel(PlotPanel):
         elastic(self.summary)
         self.summary.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
         self._layout.addWidget(self.summary)
-        split = AdaptiveSplitter(first_share=0.72)  # the main margins are in the line above: the plot gets the room
+        split = _PlotBesideList()
+        self.split = split
         self.canvas = new_layout_widget()
         self.plot = themed_plot(self.canvas, 0, left="imaginary", bottom="real")
         self.plot.setAspectLocked(True)
@@ -83,17 +135,37 @@ class LoopBreakPanel(PlotPanel):
         self.canvas.ci.removeItem(self.plot)
         self.legend = legend_row(self.canvas, 0, columns=4)
         self.canvas.addItem(self.plot, row=1, col=0)
-        for item, name in ((self.curve, "L(jω), ω positive"), (self.mirror, "ω negative"), (self.disk, "disk-margin disk"),
-                           (self.critical, "critical point −1")):
+        for item, name in ((self.curve, "L(jω), ω > 0"), (self.mirror, "ω &lt; 0"), (self.disk, "disk margin"),
+                           (self.critical, "−1 (critical)")):
             self.legend.addItem(item, name)
         split.addWidget(self.canvas)
         self.margins = QTableWidget(0, 2)
         self.margins.setObjectName("loop_break_margins")
         self.margins.setHorizontalHeaderLabels(["margin", "value"])
         self.margins.verticalHeader().setVisible(False)
-        self.margins.setMinimumHeight(40)
+        self.margins.setMinimumHeight(60)
+        self.margins.setMinimumWidth(120)
         self.margins.horizontalHeader().setStretchLastSection(True)
+        self.margins.horizontalHeader().setSectionResizeMode(0, QHeaderView.ResizeMode.Interactive)
         self.margins.setWordWrap(True)
+        self.margins.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)  # the values wrap instead
+        # rows rewrap whenever the list's width changes, once the header has stretched its
+        # last column (after the viewport's resize): coalesced in the event loop
+        self._refit = QTimer(self)
+        self._refit.setSingleShot(True)
+        self._refit.setInterval(0)
+        self._refit.timeout.connect(self._fit_margins)
+        self.margins.viewport().installEventFilter(self)
+        # with the aspect locked, a frame set for the plot's old shape shows the wrong part
+        # once the splitter reshapes it: frame again after each reshaping
+        self._reframe = QTimer(self)
+        self._reframe.setSingleShot(True)
+        self._reframe.setInterval(0)
+        self._reframe.timeout.connect(self._frame_current)
+        # the plot area's own size, which its layout settles after the widget's
+        self.plot.getViewBox().sigResized.connect(lambda *_a: (self._frame_current(), self._reframe.start()))
+        self.margins.horizontalHeader().sectionResized.connect(lambda *_a: self._refit.start())
+        self.canvas.setMinimumSize(140, 110)
         split.addWidget(self.margins)
         self._layout.addWidget(split, 1)
         self.data = None
@@ -114,6 +186,7 @@ class LoopBreakPanel(PlotPanel):
             self.margins.setRowCount(0)
             self.where.setText("")
             self.summary.setText("")
+            self._arrange()
             return
         names = list(value.channel_names)
         choices = [f"{n} (the others closed)" for n in names] + (["all loops at once"] if len(names) > 1 else [])
@@ -153,8 +226,8 @@ class LoopBreakPanel(PlotPanel):
             rows = [("closed loop", "stable" if v.margins.closed_loop_stable else "UNSTABLE"),
                     ("curves", "eigenvalues of L(jω) for positive ω"),
                     ("disk margin α (all loops at once)", f"{_num(d.alpha)}: gain [{_num(d.gain_lower)}, {_num(d.gain_upper)}], phase ±{_num(d.phase_deg)}°"),
-                    ("at", f"{_num(d.w_rad_s)} rad/s"),
-                    ("peak sensitivity", f"{_num(v.margins.peak_sensitivity)} at {_num(v.margins.peak_sensitivity_w_rad_s)} rad/s")]
+                    ("at", f"{_num(d.w_rad_s)} rad/s" if np.isfinite(d.w_rad_s) else "no single frequency"),
+                    ("peak sensitivity", f"{_num(v.margins.peak_sensitivity)}{_at(v.margins.peak_sensitivity_w_rad_s)}")]
         else:
             L = v.curves[k]
             self.curve.setData(L.real, L.imag)
@@ -168,15 +241,15 @@ class LoopBreakPanel(PlotPanel):
             m = v.margins if isinstance(v.margins, LoopMargins) else v.margins.per_channel[k]
             rows = margin_rows(m)
             lo_db, hi_db = m.gain_margin_db
-            self.summary.setText(f"phase margin {_num(m.phase_margin_deg)}° · gain margin {_num(lo_db)} / +{_num(hi_db)} dB · "
+            self.summary.setText(f"phase margin {_phase_text(m, where=False)} · gain margin {_num(lo_db)} / +{_num(hi_db)} dB · "
                                  f"disk margin α {_num(m.disk.alpha)} · delay margin {_num(m.delay_margin_s)} s"
                                  if m.closed_loop_stable else "the closed loop is UNSTABLE at this break")
         self.margins.setRowCount(len(rows))
         for i, (a, b) in enumerate(rows):
             self.margins.setItem(i, 0, QTableWidgetItem(a))
             self.margins.setItem(i, 1, QTableWidgetItem(b))
-        self.margins.resizeRowsToContents()
-        self.margins.resizeColumnToContents(0)
+        self._fit_margins()
+        self._arrange()
         self._frame(v, k, together)
 
     def _frame(self, v, k, together) -> None:
@@ -194,19 +267,66 @@ class LoopBreakPanel(PlotPanel):
                 xs = np.concatenate([xs, [c - r, c + r]])
                 ys = np.concatenate([ys, [-r, r]])
         pad = 0.1 * max(np.ptp(xs), np.ptp(ys), 1.0)
-        self.plot.setXRange(xs.min() - pad, xs.max() + pad, padding=0)
-        self.plot.setYRange(ys.min() - pad, ys.max() + pad, padding=0)
+        # both ranges in one call: with the aspect locked, a second call kept its own range and
+        # recentred the first, and a tall plot showed only a strip beside the curve
+        self.plot.setRange(xRange=(xs.min() - pad, xs.max() + pad), yRange=(ys.min() - pad, ys.max() + pad), padding=0)
+
+    def _fit_margins(self) -> None:
+        """Names no wider than half the list (they wrap), values in the rest, rows as tall as their text."""
+        t = self.margins
+        t.resizeColumnToContents(0)
+        t.setColumnWidth(0, min(t.columnWidth(0), max(t.viewport().width() // 2, 60)))
+        t.resizeRowsToContents()
+
+    def eventFilter(self, obj, event) -> bool:
+        if obj is self.margins.viewport() and event.type() == QEvent.Type.Resize and event.size().width() != event.oldSize().width():
+            self._refit.start()
+        return super().eventFilter(obj, event)
+
+    def _arrange(self) -> None:
+        """Give a short or narrow panel's room to the plot and the list."""
+        self.summary.setVisible(self.height() >= _SHORT_PANEL and bool(self.summary.text()))
+        self._fit_legend()
+
+    def _fit_legend(self) -> None:
+        """As many legend entries to a line as the plot's width holds (4, 2 or 1): a legend
+        wider than the plot was cut at its edge."""
+        room = self.canvas.width() - 8
+        columns = next((c for c in (4, 2) if self.legend_width(c) <= room), 1)
+        if self.legend.columnCount != columns:
+            self.legend.setColumnCount(columns)
+        # a legend taller than a third of a short plot leaves no plot: it goes to the tooltip
+        lines = -(-len(self.legend.items) // columns)
+        shown = lines * _LEGEND_LINE <= self.canvas.height() / 3
+        self.legend.setVisible(shown)
+        # a hidden item keeps its row in the plot's layout: the row goes too
+        self.legend.setMaximumHeight(16777215 if shown else 0)
+        self.canvas.setToolTip("" if shown else _LEGEND_TIP)
+
+    def legend_width(self, columns: int) -> float:
+        """The width (px) the legend's entries need at ``columns`` to a line: the widest
+        sample and text of each column (entries fill the lines in order), and the spacing."""
+        entries = [smp.boundingRect().width() + lab.item.boundingRect().width() for smp, lab in self.legend.items]
+        widths = [max(entries[j::columns], default=0.0) for j in range(columns)]
+        return sum(widths) + _LEGEND_SPACING * (columns - 1) + 2 * _LEGEND_SPACING
 
     def resizeEvent(self, event) -> None:
         # with the aspect locked, a frame set while the panel was still being laid out
         # (hidden tab, first show) is stretched along one axis: frame it again at its size
         super().resizeEvent(event)
+        self._arrange()
+        self._fit_margins()
         if self.data is not None:
             k = self.channel_index()
             self._frame(self.data, k, k >= len(self.data.curves))
 
     def showEvent(self, event) -> None:
         super().showEvent(event)
+        if self.data is not None:
+            k = self.channel_index()
+            self._frame(self.data, k, k >= len(self.data.curves))
+
+    def _frame_current(self) -> None:
         if self.data is not None:
             k = self.channel_index()
             self._frame(self.data, k, k >= len(self.data.curves))

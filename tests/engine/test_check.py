@@ -254,3 +254,24 @@ def test_pole_sets_within_rounding_are_told_apart_from_real_gaps():
     a, b = np.array([-1.0, -2.0], complex), np.array([-1.3, -1.7], complex)
     assert _within_bounds(a, np.full(2, 0.05), b, np.full(2, 0.05))
     assert not _within_bounds(a, np.full(2, 1e-3), b, np.full(2, 1e-3))
+
+
+def test_a_pole_at_the_origin_is_not_called_ill_conditioned():
+    # What a user's loop holds half-built: plant 1/(s+1), an estimator with its own copy of
+    # that model and L = 1, K = 1. Closed form: A = [[-1, 1], [1, -1]] (trace -2, det 0), poles
+    # 0 and -2, both with eigenvalue condition number 1 (A is symmetric): the pole at the
+    # origin is named as such, never as ill-conditioned.
+    d = Diagram()
+    d.add_block("plant", "P", {"num": [1.0], "den": [1.0, 1.0]})
+    d.add_block("estimator", "est", {"A": [[-1.0]], "B": [[1.0]], "C": [[1.0]], "D": [[0.0]], "L": [[1.0]]})
+    d.add_block("gain", "K", {"K": [[1.0]]})
+    d.connect("K.out", "P.u")
+    d.connect("K.out", "est.u")
+    d.connect("P.y", "est.y")
+    d.connect("est.xhat", "K.in")
+    rep = summarize(d)
+    assert_allclose(np.sort(rep.poles.real), [-2.0, 0.0], atol=1e-12)
+    assert rep.worst_condition == pytest.approx(1.0)
+    assert rep.poles_trusted
+    assert not any("ill-conditioned" in w for w in rep.warnings)
+    assert any("1 at the origin" in w for w in rep.warnings)

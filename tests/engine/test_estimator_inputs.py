@@ -4,7 +4,8 @@ The stage loop of tests/REFERENCES.md#stage-observer with a reference fed forwar
 through N: when N r is added after the estimator's tap, the estimation error obeys
 ``e' = (A - L C) e + B N r`` (closed form, subtracting the estimator's equation from the
 plant's), so a unit step r leaves the bias ``e_ss = -(A - L C)^-1 B N``; the check must name
-N's output, and moving the tap after the junction must clear both the warning and the bias.
+the reference with the gain it passes ("ref via N"), and moving the tap after the junction
+must clear both the warning and the bias.
 """
 from __future__ import annotations
 
@@ -82,9 +83,10 @@ def test_feedforward_after_the_tap_is_named_and_biases_the_estimate():
     gap = gaps[0]
     assert (gap.estimator, gap.plant, gap.estimator_signal, gap.plant_signal) == ("est", "P", "ufb", "plant_input")
     # the disturbance reaches the plant too, but it is unknown by definition
-    assert gap.missing == ("u_ff",) and gap.extra == () and gap.differing == ()
-    assert d.block_by_name("N").id in gap.block_ids and d.block_by_name("est").id in gap.block_ids
-    assert "u_ff" in gap.message and "'est'" in gap.message
+    assert gap.missing == ("ref via N",) and gap.extra == () and gap.differing == ()
+    assert {d.block_by_name(n).id for n in ("N", "r", "est", "P")} <= set(gap.block_ids)
+    assert {d.wire_by_name(n).id for n in ("ref", "u_ff")} <= set(gap.wire_ids)
+    assert "plant 'P' also gets ref via N, which 'est' never reads" in gap.message
     # closed form e_ss = -(A - L C)^-1 B N for a unit step r: the bias the warning is about
     assert_allclose(_error_dc_gain_from_r(d), (-np.linalg.solve(A - L @ C, B) * N).ravel(), rtol=1e-10)
     assert_allclose((-np.linalg.solve(A - L @ C, B) * N).ravel(), [8 / 30, 88 / 30], rtol=1e-12)
@@ -101,8 +103,8 @@ def test_check_warns_while_separation_holds():
     rep = summarize(_biased_stage())
     assert rep.separation.verdict == "holds"
     assert_allclose(np.sort_complex(rep.poles), np.sort_complex([-6, -5, -2 - 2j, -2 + 2j]), atol=1e-8)
-    assert [g.missing for g in rep.input_gaps] == [("u_ff",)]
-    assert any("u_ff" in w and "biased" in w for w in rep.warnings)
+    assert [g.missing for g in rep.input_gaps] == [("ref via N",)]
+    assert any("ref via N" in w and "biased" in w for w in rep.warnings)
     assert summarize(_fixed_stage()).input_gaps == ()
 
 
@@ -111,9 +113,9 @@ def test_cli_check_names_the_missing_signal(tmp_path, capsys):
     save(_biased_stage(), str(f))
     assert main(["check", str(f), "--json"]) == 0
     warnings = json.loads(capsys.readouterr().out)["warnings"]
-    assert sum("u_ff" in w for w in warnings) == 1
+    assert sum("ref via N" in w for w in warnings) == 1
     assert main(["check", str(f)]) == 0
-    assert "u_ff" in capsys.readouterr().out
+    assert "ref via N" in capsys.readouterr().out
 
 
 @pytest.mark.parametrize("diagram", [stage_loop_named, stage_servo], ids=["disturbance-only", "servo-with-tap-after-feedforward"])
@@ -135,11 +137,130 @@ def test_a_signal_only_the_estimator_reads_and_a_flipped_sign_are_named():
     d.connect("v.out", "ue2.in2", name="extra_ref")
     d.connect("ue2.out", "est.u", name="est_cmd")
     (gap,) = estimator_input_gaps(d)
-    assert gap.missing == () and gap.extra == ("extra_ref",) and gap.differing == ("u_ff",)
+    assert gap.missing == () and gap.extra == ("extra_ref",) and gap.differing == ("ref via N",)
 
 
 def test_an_estimator_with_its_own_model_is_compared_with_the_plant_it_measures():
     d = _biased_stage()
     est = d.block_by_name("est")
     est.params = {"A": A.tolist(), "B": B.tolist(), "C": C.tolist(), "D": [[0.0]], "L": L.tolist()}
-    assert [(g.plant, g.missing) for g in estimator_input_gaps(d)] == [("P", ("u_ff",))]
+    assert [(g.plant, g.missing) for g in estimator_input_gaps(d)] == [("P", ("ref via N",))]
+
+
+# ---- tracing through static gains and chains of gains and junctions ----------------------
+def _stage_with_feedforward(route) -> Diagram:
+    """The stage loop of stage_loop_named (tap before the junction ``up``) with the reference
+    reaching ``up.in3`` along ``route(d)``, which wires r.out (signal ``ref``) onwards and
+    returns the port that feeds up.in3."""
+    d = stage_loop_named()
+    d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0}})
+    d.blocks[d.block_by_name("up").id].params["signs"] = ["+", "+", "+"]
+    last = route(d)
+    d.connect(last, "up.in3", name="u_ff")
+    return d
+
+
+def _chain(d: Diagram) -> str:
+    """r -> N1 -> N2: N = N1 N2 = 2 * 4."""
+    d.add_block("gain", "N1", {"K": [[2.0]]})
+    d.add_block("gain", "N2", {"K": [[4.0]]})
+    d.connect("r.out", "N1.in", name="ref")
+    d.connect("N1.out", "N2.in", name="ref_scaled")
+    return "N2.out"
+
+
+def _gain_sum_gain(d: Diagram) -> str:
+    """r -> N1 -> s (+ r directly, minus) -> N2: N = N2 (N1 - 1) = 2 * (5 - 1)."""
+    d.add_block("gain", "N1", {"K": [[5.0]]})
+    d.add_block("sum", "s", {"signs": ["+", "-"], "width": 1})
+    d.add_block("gain", "N2", {"K": [[2.0]]})
+    d.connect("r.out", "N1.in", name="ref")
+    d.connect("r.out", "s.in2")
+    d.connect("N1.out", "s.in1", name="ref5")
+    d.connect("s.out", "N2.in", name="ref4")
+    return "N2.out"
+
+
+@pytest.mark.parametrize(
+    "route, expected",
+    [
+        (_chain, "ref via N1 → N2"),
+        (_gain_sum_gain, "ref via N1 → N2 and via N2"),
+    ],
+    ids=["gain-chain", "gain-sum-gain"],
+)
+def test_a_reference_through_a_chain_of_gains_is_named_with_its_route_and_biases_by_their_product(route, expected):
+    d = _stage_with_feedforward(route)
+    (gap,) = estimator_input_gaps(d)
+    assert gap.missing == (expected,) and gap.extra == () and gap.differing == ()
+    assert {d.block_by_name(n).id for n in ("r", "N1", "N2")} <= set(gap.block_ids)
+    # both routes give N = 8 from r to the plant input: closed form e_ss = -(A - L C)^-1 B N
+    assert_allclose(_error_dc_gain_from_r(d), (-np.linalg.solve(A - L @ C, B) * N).ravel(), rtol=1e-10)
+
+
+def test_a_disturbance_through_a_gain_is_still_unknown():
+    d = stage_loop_named()
+    d.add_block("source", "load", {"role": "disturbance", "width": 1})
+    d.add_block("source", "hum", {"role": "noise", "width": 1})
+    d.add_block("gain", "Gl", {"K": [[3.0]]})
+    d.add_block("gain", "Gh", {"K": [[0.5]]})
+    d.add_block("sum", "s", {"signs": ["+", "-"], "width": 1})
+    d.blocks[d.block_by_name("up").id].params["signs"] = ["+", "+", "+"]
+    d.connect("load.out", "Gl.in", name="load_force")
+    d.connect("hum.out", "Gh.in", name="hum_v")
+    d.connect("Gl.out", "s.in1")
+    d.connect("Gh.out", "s.in2")
+    d.connect("s.out", "up.in3", name="unknown_sum")
+    assert estimator_input_gaps(d) == []
+
+
+def _estimator_reads_feedback_plus(d: Diagram, source: str, gain: str) -> None:
+    """Rewire est.u to read Kx.out + gain(source) through a new junction ``ue``."""
+    d.add_block("sum", "ue", {"signs": ["+", "+"], "width": 1})
+    w = d.wire_into(d.resolve_port("est.u"))
+    d.disconnect(w.id, d.resolve_port("est.u"))
+    d.connect("Kx.out", "ue.in1")
+    d.connect(source, f"{gain}.in")
+    d.connect(f"{gain}.out", "ue.in2")
+    d.connect("ue.out", "est.u", name="est_cmd")
+
+
+def test_the_same_weight_through_other_gains_is_the_same_command():
+    # the plant gets N r with N = 8 through N1 -> N2 (2 * 4); the estimator reads M r with M = 8
+    d = _stage_with_feedforward(_chain)
+    d.add_block("gain", "M", {"K": [[8.0]]})
+    _estimator_reads_feedback_plus(d, "r.out", "M")
+    assert estimator_input_gaps(d) == []
+    # with M = 7 the weights differ, and both routes are named
+    d.blocks[d.block_by_name("M").id].params["K"] = [[7.0]]
+    (gap,) = estimator_input_gaps(d)
+    assert gap.missing == () and gap.extra == ()
+    assert gap.differing == ("ref (via N1 → N2 to the plant, via M to the estimator)",)
+    # closed form e' = (A - L C) e + B (8 - 7) r: e_ss = -(A - L C)^-1 B * 1 for a unit step
+    assert_allclose(_error_dc_gain_from_r(d), (-np.linalg.solve(A - L @ C, B)).ravel(), rtol=1e-10)
+
+
+def test_matrix_gains_compare_by_their_product():
+    # a two-wide reference: the plant gets G2 G1 r (1x2 times 2x2), the estimator reads G3 r
+    d = stage_loop_named()
+    d.add_block("source", "r2", {"role": "reference", "width": 2})
+    d.add_block("gain", "G1", {"K": [[1.0, 2.0], [3.0, 4.0]]})
+    d.add_block("gain", "G2", {"K": [[0.5, -1.0]]})
+    d.add_block("gain", "G3", {"K": [[-2.5, -3.0]]})  # G2 G1 = [0.5 - 3, 1 - 4] (closed form)
+    d.blocks[d.block_by_name("up").id].params["signs"] = ["+", "+", "+"]
+    d.connect("r2.out", "G1.in", name="ref2")
+    d.connect("G1.out", "G2.in")
+    d.connect("G2.out", "up.in3")
+    _estimator_reads_feedback_plus(d, "r2.out", "G3")
+    assert estimator_input_gaps(d) == []
+    d.blocks[d.block_by_name("G3").id].params["K"] = [[-2.5, 3.0]]
+    (gap,) = estimator_input_gaps(d)
+    assert gap.differing == ("ref2 (via G1 → G2 to the plant, via G3 to the estimator)",)
+
+
+def test_a_gain_with_a_bad_matrix_stops_the_trace_there():
+    # the validation names a bad K; the check names the gain's output, as it cannot see through it
+    d = _biased_stage()
+    d.blocks[d.block_by_name("N").id].params["K"] = [["eight"]]
+    (gap,) = estimator_input_gaps(d)
+    assert gap.missing == ("u_ff",)

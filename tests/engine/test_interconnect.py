@@ -249,3 +249,9 @@ def test_one_component_of_a_vector_signal_can_be_picked():
     assert m.resolve_input("r[1]") == "r[1]"  # the source's own component, not the injection
     with pytest.raises(UnknownNameError, match="has 2 component"):
         m.pair("r[3]", "G.out")
+
+
+def test_a_diagram_without_blocks_assembles_to_no_states():
+    # an empty diagram is what a new window holds: nothing to assemble, and no error either
+    m = assemble(Diagram())
+    assert m.A.shape == (0, 0) and m.B.shape[0] == 0 and m.C.shape[1] == 0 and m.n_states == 0

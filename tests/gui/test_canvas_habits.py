@@ -53,10 +53,10 @@ def test_a_feedforward_after_the_tap_is_listed_marked_and_selects_its_culprits(s
     window.document.replace_diagram(_biased_stage())
     result = wait_live(window)
     d = window.document.diagram
-    assert "estimate biased: est.u misses u_ff" in status_text(result)
+    assert "estimate biased: est.u misses ref via N ·" in status_text(result) + " ·"
     assert "estimate biased" in window._model_label.text()
     items = [window.problems.item(k) for k in range(window.problems.count())]
-    (hit,) = [it for it in items if "u_ff" in it.text()]
+    (hit,) = [it for it in items if "ref via N" in it.text()]
     est, n = d.block_by_name("est").id, d.block_by_name("N").id
     assert window.scene.block_items[est].problems and not window.scene.block_items[est].has_error
     window.scene.clearSelection()
@@ -72,6 +72,26 @@ def test_a_feedforward_after_the_tap_is_listed_marked_and_selects_its_culprits(s
     QTest.mouseDClick(vp, left, none, rect.center())
     assert len(chosen) >= 2 and all({est, n} <= c for c in chosen)
     assert {est, n} <= set(window.scene.selected_block_ids())
+
+
+def test_the_status_line_says_what_the_estimator_misses_reads_besides_and_weighs_otherwise():
+    # the plant gets Kx xhat + N r (N = 8); est.u reads Kx xhat + M r + v: r's weight differs, v is extra
+    from loopwright.engine.check import summarize
+    from loopwright.gui.workers import LiveResult
+
+    d = _biased_stage()
+    for kind, name, params in (("gain", "M", {"K": [[7.0]]}), ("sum", "ue", {"signs": ["+", "+", "+"], "width": 1}),
+                               ("source", "v", {"role": "reference", "width": 1})):
+        d.add_block(kind, name, params)
+    w = d.wire_into(d.resolve_port("est.u"))
+    d.disconnect(w.id, d.resolve_port("est.u"))
+    d.connect("Kx.out", "ue.in1")
+    d.connect("r.out", "M.in")
+    d.connect("M.out", "ue.in2")
+    d.connect("v.out", "ue.in3", name="trim")
+    d.connect("ue.out", "est.u", name="est_cmd")
+    text = status_text(LiveResult(revision=1, report=summarize(d)))
+    assert "estimate biased: est.u also reads trim; weighs ref (via N to the plant, via M to the estimator) differently" in text
 
 
 def test_a_warning_without_culprits_keeps_the_selection(window):
