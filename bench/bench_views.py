@@ -45,7 +45,7 @@ from loopwright.engine.project import save  # noqa: E402
 VIEWS = ("frequency", "time", "poles", "loop_break")
 
 
-def _wait(app, until, timeout_s: float = 600.0) -> None:
+def _wait(app, until, timeout_s: float = 120.0) -> None:
     end = time.perf_counter() + timeout_s
     while not until():
         app.processEvents()
@@ -68,6 +68,9 @@ def _window(app, tmp: Path, debounce_ms: int):
     for key in VIEWS:
         win.addDockWidget(Qt.DockWidgetArea.BottomDockWidgetArea, win.view_docks[key], Qt.Orientation.Horizontal)
         win.view_docks[key].show()
+    for key, dock in win.view_docks.items():
+        if key not in VIEWS:
+            dock.hide()  # exactly the four views of the target are open
     return win
 
 

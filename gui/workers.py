@@ -18,7 +18,41 @@ from PySide6.QtCore import QObject, QTimer, Signal
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import EngineError
 
-__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs", "JobStopped", "TaskResult", "Tasks"]
+__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs", "JobStopped", "TaskResult", "Tasks",
+           "limit_blas_threads"]
+
+#: The thread-count setters of the OpenBLAS builds numpy and scipy ship (64-bit and 32-bit integer ones).
+_BLAS_SETTERS = ("scipy_openblas_set_num_threads64_", "scipy_openblas_set_num_threads", "openblas_set_num_threads64_",
+                 "openblas_set_num_threads")
+
+
+def limit_blas_threads(threads: int = 1) -> int:
+    """Let each loaded OpenBLAS use at most ``threads`` threads; returns how many libraries were set.
+
+    The window computes on two worker threads at once (the live check and the views). With
+    OpenBLAS's default of one thread per core, each of their matrix calls starts its own
+    team of spinning threads, and on a two-core machine the teams only wait for each other
+    (the views bench measured the same work several times slower). A user who sets
+    ``OPENBLAS_NUM_THREADS`` keeps their choice: nothing is changed then.
+    """
+    import ctypes
+    import os
+
+    if os.environ.get("OPENBLAS_NUM_THREADS") or not os.path.exists("/proc/self/maps"):
+        return 0
+    with open("/proc/self/maps", encoding="utf-8", errors="replace") as fh:
+        paths = sorted({ln.split()[-1] for ln in fh if "openblas" in ln.lower() and "/" in ln})
+    done = 0
+    for path in paths:
+        try:
+            lib = ctypes.CDLL(path)
+        except OSError:
+            continue
+        setter = next((getattr(lib, name) for name in _BLAS_SETTERS if hasattr(lib, name)), None)
+        if setter is not None:
+            setter(int(threads))
+            done += 1
+    return done
 
 
 @dataclass(frozen=True)
@@ -239,7 +273,7 @@ class ViewJobs(QObject):
         super().__init__(parent)
         self._doc = document
         self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views")
-        self._latest: dict[str, tuple[int, Future, _JobControl]] = {}
+        self._latest: dict[str, tuple[int, Future, _JobControl, int]] = {}
         self._submitted: list[Future] = []
         self._token = 0
         self._closed = False
@@ -266,7 +300,7 @@ class ViewJobs(QObject):
         if progress:
             kwargs = dict(kwargs, progress=control.report)
         fut = self._executor.submit(_run_view_job, fn, args, kwargs)
-        self._latest[key] = (token, fut, control)
+        self._latest[key] = (token, fut, control, revision)
         self._submitted = [f for f in self._submitted if not f.done()] + [fut]
         fut.add_done_callback(lambda f, k=key, tk=token, rev=revision: self._deliver(f, k, tk, rev))
         self.busy_changed.emit(key, True)
@@ -279,6 +313,12 @@ class ViewJobs(QObject):
             old[1].cancel()
             old[2].stop()
             self.busy_changed.emit(key, False)
+
+    def drop_stale(self) -> None:
+        """Cancel or stop every request built at an older revision than the document's:
+        its answer would be dropped anyway, and the worker is needed for the new one."""
+        for key in [k for k, v in self._latest.items() if v[3] != self._doc.revision]:
+            self.cancel(key)
 
     def is_busy(self, key: str) -> bool:
         return key in self._latest
@@ -306,6 +346,12 @@ class ViewJobs(QObject):
         latest = self._latest.get(key)
         if latest is None or latest[0] != token or result.revision != self._doc.revision:
             self.discarded += 1
+            if latest is not None and latest[0] == token:
+                # the panel's newest request, overtaken by an edit: it no longer waits on
+                # anything (a visible panel has a newer request already; a hidden one
+                # catches up when it is shown)
+                del self._latest[key]
+                self.busy_changed.emit(key, False)
             return
         del self._latest[key]
         self.busy_changed.emit(key, False)
@@ -313,7 +359,7 @@ class ViewJobs(QObject):
 
     def wait_idle(self) -> None:
         """Block until every submitted job has run (tests and benches only)."""
-        for _token, fut, _control in list(self._latest.values()):
+        for _token, fut, _control, _rev in list(self._latest.values()):
             try:
                 fut.result()
             except Exception:  # noqa: BLE001 - cancelled or failed: nothing to wait for
@@ -321,7 +367,7 @@ class ViewJobs(QObject):
 
     def shutdown(self, *, wait: bool = True) -> None:
         self._closed = True
-        for _token, fut, control in self._latest.values():
+        for _token, fut, control, _rev in self._latest.values():
             control.stop()
         self._executor.shutdown(wait=wait, cancel_futures=True)
 

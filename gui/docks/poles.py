@@ -17,9 +17,10 @@ __all__ = ["PoleMapPanel", "pole_map_data"]
 _GUIDE = pg.mkPen("#b8c0ca", width=1, style=Qt.PenStyle.DotLine)
 
 
-def pole_map_data(diagram) -> dict:
-    """What the pole map shows (worker thread): poles, the designed sets, guides, the table."""
-    rep = summarize(diagram)
+def pole_map_data(diagram, *, shared=None) -> dict:
+    """What the pole map shows (worker thread): poles, the designed sets, guides, the table
+    (``shared``: the snapshot's :class:`~loopwright.engine.views_data.SharedModel`)."""
+    rep = summarize(diagram) if shared is None else shared.report
     poles = rep.poles
     sep = rep.separation
     fb = sep.state_feedback_poles if sep is not None else np.zeros(0, complex)
@@ -60,8 +61,8 @@ class PoleMapPanel(PlotPanel):
         self.plot.scene().sigMouseMoved.connect(self._on_mouse)
         self.plot.addItem(pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen("#5b6573", width=1)), ignoreBounds=True)
 
-    def job(self, diagram, pairs):
-        return pole_map_data, (diagram,), {}
+    def job(self, diagram, pairs, shared=None):
+        return pole_map_data, (diagram,), {"shared": shared}
 
     def show_value(self, value) -> None:
         if value is None:
