@@ -82,6 +82,7 @@ def measure_edits(app, states: int, edits: int, debounce_ms: int, tmp: Path) -> 
     save(view_loop(states), path)
     win = _window(app, tmp, debounce_ms)
     drawn: dict[str, int] = {}
+    drawn_at: dict[str, float] = {}
     errors: dict[str, str] = {}
     doc = win.document
     for key in VIEWS:
@@ -91,6 +92,7 @@ def measure_edits(app, states: int, edits: int, debounce_ms: int, tmp: Path) -> 
         def recorder(value, _orig=original, _key=key):
             _orig(value)
             drawn[_key] = doc.revision
+            drawn_at[_key] = time.perf_counter()
 
         panel.show_value = recorder
         original_error = panel.show_error
@@ -105,25 +107,28 @@ def measure_edits(app, states: int, edits: int, debounce_ms: int, tmp: Path) -> 
     _wait(app, lambda: all(drawn.get(k) == doc.revision for k in VIEWS) and win.views.is_idle())
     kid = doc.diagram.block_by_name("K0").id
     base = copy.deepcopy(doc.diagram.blocks[kid].params)
-    latencies, computes = [], []
+    latencies, computes, cpu, per_view = [], [], [], {k: [] for k in VIEWS}
     for i in range(edits):
         params = copy.deepcopy(base)
         params["K"] = (np.asarray(base["K"]) * (1.0 + 0.02 * (i + 1))).tolist()
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         doc.push(SetParams(doc, kid, params))
         _wait(app, lambda: all(drawn.get(k) == doc.revision for k in VIEWS))
         t1 = time.perf_counter()
         for key in VIEWS:
             win.view_docks[key].widget().repaint()
         latencies.append(time.perf_counter() - t0)
+        cpu.append(time.process_time() - c0)  # every thread of the process: workers, GUI, BLAS
         computes.append(t1 - t0)
+        for key in VIEWS:
+            per_view[key].append(drawn_at[key] - t0)
         _wait(app, lambda: win.views.is_idle() and win.live.is_current())
     win._closing_ok = True
     win.live.shutdown()
     win.views.shutdown()
     win.close()
     app.processEvents()
-    return {"latency": latencies, "until_drawn": computes, "errors": errors}
+    return {"latency": latencies, "until_drawn": computes, "cpu": cpu, "per_view": per_view, "errors": errors}
 
 
 def time_engine_parts(states: int) -> dict:
@@ -275,6 +280,9 @@ def main(argv=None) -> int:
                 print(f"  note: the {key} view answered with a message: {text}")
             print(f"  edit -> every view redrawn: median {statistics.median(lat) * 1000:.0f} ms, "
                   f"min {min(lat) * 1000:.0f} ms, max {max(lat) * 1000:.0f} ms{verdict}")
+            print(f"  CPU per edit (all threads of the process): median {statistics.median(res['cpu']) * 1000:.0f} ms")
+            print("  each view drawn after (median ms): "
+                  + ", ".join(f"{k} {statistics.median(v) * 1000:.0f}" for k, v in res["per_view"].items()))
             parts = time_engine_parts(n)
             ours = sum(w for w, _c in parts.values())
             print("  engine, one view at a time on this thread (wall / cpu ms): "

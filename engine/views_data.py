@@ -11,6 +11,7 @@ A *pair* names one input and one output: the input is a source name or
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -49,7 +50,8 @@ class SharedModel:
     model, its poles, its Schur reduction (frequency and singular-value views), the check
     report (pole map). Each is computed on first use and kept; a view asked for the same
     pair's frequency response as another view gets the same answer object. The snapshot
-    must not change afterwards (the app hands each revision a fresh copy).
+    must not change afterwards (the app hands each revision a fresh copy). Several threads
+    may ask at once: each item is computed by the first that asks, the others wait for it.
 
     Parameters
     ----------
@@ -58,13 +60,30 @@ class SharedModel:
     """
 
     def __init__(self, diagram):
+        import threading
+
         self.diagram = diagram
         self._memo: dict = {}
+        self._lock = threading.Lock()
+        self._key_locks: dict = {}
 
     def _get(self, key, make):
-        if key not in self._memo:
-            self._memo[key] = make()
-        return self._memo[key]
+        import threading
+
+        with self._lock:
+            if key in self._memo:
+                return self._memo[key]
+            key_lock = self._key_locks.setdefault(key, threading.Lock())
+        # one lock per item: a thread computing the frequency responses does not hold up
+        # another that only needs the model (items depend on each other without cycles)
+        with key_lock:
+            with self._lock:
+                if key in self._memo:
+                    return self._memo[key]
+            value = make()
+            with self._lock:
+                self._memo[key] = value
+            return value
 
     @property
     def model(self):
@@ -136,16 +155,16 @@ class PairResponse:
     input_names: list[str]
     output_names: list[str]
 
-    @property
+    @cached_property
     def mag_db(self) -> np.ndarray:
-        """(k, p, m) magnitude in dB."""
+        """(k, p, m) magnitude in dB (computed once: a view reads it for every element)."""
         from loopwright.engine.responses import magnitude_db
 
         return magnitude_db(self.response)
 
-    @property
+    @cached_property
     def phase_deg(self) -> np.ndarray:
-        """(k, p, m) phase in degrees, unwrapped along frequency."""
+        """(k, p, m) phase in degrees, unwrapped along frequency (computed once)."""
         from loopwright.engine.responses import phase_deg
 
         return phase_deg(self.response)

@@ -246,7 +246,9 @@ class _JobControl:
 
 
 class ViewJobs(QObject):
-    """Runs the plot panels' engine calls off the GUI thread, one at a time.
+    """Runs the plot panels' engine calls off the GUI thread: quick ones one at a time on
+    one worker, slow ones (``slow=True``: margins, the noise budget, the audit) one at a
+    time on another, so a slow answer never holds up the quick views of a later edit.
 
     Each request carries a key (the panel) and the document revision it was built at. A
     newer request for the same key cancels the older one while it waits, and stops it
@@ -273,16 +275,19 @@ class ViewJobs(QObject):
         super().__init__(parent)
         self._doc = document
         self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views")
+        self._slow_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views-slow")
         self._latest: dict[str, tuple[int, Future, _JobControl, int]] = {}
         self._submitted: list[Future] = []
+        self._quick: set[Future] = set()
         self._token = 0
         self._closed = False
         self.discarded = 0
         self._finished.connect(self._on_finished)
         self._progress.connect(self._on_progress)
 
-    def submit(self, key: str, fn, *args, progress: bool = False, **kwargs) -> None:
-        """Run ``fn(*args, **kwargs)`` on the worker for panel ``key`` (args must be snapshots).
+    def submit(self, key: str, fn, *args, progress: bool = False, slow: bool = False, **kwargs) -> None:
+        """Run ``fn(*args, **kwargs)`` on a worker for panel ``key`` (args must be snapshots);
+        ``slow`` picks the worker of the slow views.
 
         With ``progress=True`` the job also gets ``progress=<callable>`` (see
         :class:`_JobControl`): its reports reach :attr:`progress_changed`, and
@@ -299,9 +304,11 @@ class ViewJobs(QObject):
         control = _JobControl(key, self._progress.emit)
         if progress:
             kwargs = dict(kwargs, progress=control.report)
-        fut = self._executor.submit(_run_view_job, fn, args, kwargs)
+        fut = (self._slow_executor if slow else self._executor).submit(_run_view_job, fn, args, kwargs)
         self._latest[key] = (token, fut, control, revision)
         self._submitted = [f for f in self._submitted if not f.done()] + [fut]
+        if not slow:
+            self._quick = {f for f in self._quick if not f.done()} | {fut}
         fut.add_done_callback(lambda f, k=key, tk=token, rev=revision: self._deliver(f, k, tk, rev))
         self.busy_changed.emit(key, True)
 
@@ -323,9 +330,12 @@ class ViewJobs(QObject):
     def is_busy(self, key: str) -> bool:
         return key in self._latest
 
-    def worker_idle(self) -> bool:
-        """True when nothing runs or waits on the worker (stopped jobs included)."""
+    def worker_idle(self, *, quick_only: bool = False) -> bool:
+        """True when nothing runs or waits on the workers (stopped jobs included); with
+        ``quick_only``, on the worker of the quick views."""
         self._submitted = [f for f in self._submitted if not f.done()]
+        if quick_only:
+            return not any(f in self._quick for f in self._submitted)
         return not self._submitted
 
     def _on_progress(self, key: str, fraction: float) -> None:
@@ -370,6 +380,7 @@ class ViewJobs(QObject):
         for _token, fut, control, _rev in self._latest.values():
             control.stop()
         self._executor.shutdown(wait=wait, cancel_futures=True)
+        self._slow_executor.shutdown(wait=wait, cancel_futures=True)
 
 
 @dataclass(frozen=True)

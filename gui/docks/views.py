@@ -4,8 +4,9 @@ After an edit the visible panels build their jobs from one snapshot of the revis
 the kept pairs, and share one :class:`~loopwright.engine.views_data.SharedModel` (the
 model is assembled once, its Schur reduction and poles computed once, a response two
 views show computed once). :class:`~loopwright.gui.workers.ViewJobs` runs the jobs off
-the GUI thread, cheapest view first, so the quick answers are drawn while the expensive
-ones (loop-break margins, noise budget, path audit) still compute; it drops answers an
+the GUI thread, cheapest view first, and the expensive ones (loop-break margins, noise
+budget, path audit) on a worker of their own, so the quick answers are drawn while those
+still compute and a later edit's quick views never wait for them; it drops answers an
 edit has overtaken.
 
 An edit made while the worker is idle is computed at once (on the next turn of the event
@@ -30,6 +31,8 @@ _BUSY_AFTER_MS = 500
 
 #: The order the panels' jobs run in after an edit: cheap first, so they are drawn first.
 VIEW_ORDER = ("poles", "frequency", "time", "singular_values", "loop_break", "noise", "audit")
+#: Views whose answers can take seconds on a large loop: they run on a worker of their own.
+SLOW_VIEWS = frozenset({"loop_break", "noise", "audit"})
 
 
 class ViewsController(QObject):
@@ -72,10 +75,11 @@ class ViewsController(QObject):
         # nothing of an older revision is shown: free the worker for the new one now
         self.jobs.drop_stale()
         self._shared = None
-        # idle worker: compute now (with any edit still waiting for its debounce); busy
-        # worker (a stopped job still finishing): wait for a quiet spell, so a burst of
-        # edits is computed once
-        self._timer.start(0 if self.jobs.worker_idle() else self._debounce_ms)
+        # idle worker of the quick views: compute now (with any edit still waiting for its
+        # debounce); busy (a stopped job still finishing): wait for a quiet spell, so a
+        # burst of edits is computed once. A slow view still computing does not count: its
+        # new job waits behind it on its own worker.
+        self._timer.start(0 if self.jobs.worker_idle(quick_only=True) else self._debounce_ms)
 
     def _on_visibility(self, key: str, visible: bool) -> None:
         if visible and self._fresh.get(key) != self._doc.revision:
@@ -112,7 +116,7 @@ class ViewsController(QObject):
             self._fresh[key] = self._doc.revision
             return
         fn, args, kwargs = job
-        self.jobs.submit(key, fn, *args, progress=getattr(panel, "reports_progress", False), **kwargs)
+        self.jobs.submit(key, fn, *args, progress=getattr(panel, "reports_progress", False), slow=key in SLOW_VIEWS, **kwargs)
 
     def stop(self, key: str) -> None:
         """Stop panel ``key``'s computation (a job that reports progress ends at its next
