@@ -275,7 +275,7 @@ class ViewJobs(QObject):
         super().__init__(parent)
         self._doc = document
         self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views")
-        self._slow_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views-slow")
+        self._slow_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views-slow", initializer=_yield_to_quick_views)
         self._latest: dict[str, tuple[int, Future, _JobControl, int]] = {}
         self._submitted: list[Future] = []
         self._quick: set[Future] = set()
@@ -453,6 +453,20 @@ class Tasks(QObject):
     def shutdown(self, *, wait: bool = True) -> None:
         self._closed = True
         self._executor.shutdown(wait=wait, cancel_futures=True)
+
+
+def _yield_to_quick_views() -> None:
+    """Lower the calling worker thread's scheduling priority (Linux, where a thread has its
+    own): on a two-core machine the slow views then take what the quick views leave."""
+    import os
+    import sys
+    import threading
+
+    if sys.platform.startswith("linux") and hasattr(os, "setpriority"):
+        try:
+            os.setpriority(os.PRIO_PROCESS, threading.get_native_id(), 10)  # this thread only, on Linux
+        except OSError:
+            pass  # not allowed here: the slow views simply compete as equals
 
 
 def _run_view_job(fn, args, kwargs):
