@@ -45,7 +45,7 @@ from loopwright.engine.project import save  # noqa: E402
 VIEWS = ("frequency", "time", "poles", "loop_break")
 
 
-def _wait(app, until, timeout_s: float = 600.0) -> None:
+def _wait(app, until, timeout_s: float = 120.0) -> None:
     end = time.perf_counter() + timeout_s
     while not until():
         app.processEvents()
@@ -68,6 +68,9 @@ def _window(app, tmp: Path, debounce_ms: int):
     for key in VIEWS:
         win.addDockWidget(Qt.DockWidgetArea.BottomDockWidgetArea, win.view_docks[key], Qt.Orientation.Horizontal)
         win.view_docks[key].show()
+    for key, dock in win.view_docks.items():
+        if key not in VIEWS:
+            dock.hide()  # exactly the four views of the target are open
     return win
 
 
@@ -79,6 +82,7 @@ def measure_edits(app, states: int, edits: int, debounce_ms: int, tmp: Path) -> 
     save(view_loop(states), path)
     win = _window(app, tmp, debounce_ms)
     drawn: dict[str, int] = {}
+    drawn_at: dict[str, float] = {}
     errors: dict[str, str] = {}
     doc = win.document
     for key in VIEWS:
@@ -88,6 +92,7 @@ def measure_edits(app, states: int, edits: int, debounce_ms: int, tmp: Path) -> 
         def recorder(value, _orig=original, _key=key):
             _orig(value)
             drawn[_key] = doc.revision
+            drawn_at[_key] = time.perf_counter()
 
         panel.show_value = recorder
         original_error = panel.show_error
@@ -102,25 +107,28 @@ def measure_edits(app, states: int, edits: int, debounce_ms: int, tmp: Path) -> 
     _wait(app, lambda: all(drawn.get(k) == doc.revision for k in VIEWS) and win.views.is_idle())
     kid = doc.diagram.block_by_name("K0").id
     base = copy.deepcopy(doc.diagram.blocks[kid].params)
-    latencies, computes = [], []
+    latencies, computes, cpu, per_view = [], [], [], {k: [] for k in VIEWS}
     for i in range(edits):
         params = copy.deepcopy(base)
         params["K"] = (np.asarray(base["K"]) * (1.0 + 0.02 * (i + 1))).tolist()
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         doc.push(SetParams(doc, kid, params))
         _wait(app, lambda: all(drawn.get(k) == doc.revision for k in VIEWS))
         t1 = time.perf_counter()
         for key in VIEWS:
             win.view_docks[key].widget().repaint()
         latencies.append(time.perf_counter() - t0)
+        cpu.append(time.process_time() - c0)  # every thread of the process: workers, GUI, BLAS
         computes.append(t1 - t0)
+        for key in VIEWS:
+            per_view[key].append(drawn_at[key] - t0)
         _wait(app, lambda: win.views.is_idle() and win.live.is_current())
     win._closing_ok = True
     win.live.shutdown()
     win.views.shutdown()
     win.close()
     app.processEvents()
-    return {"latency": latencies, "until_drawn": computes, "errors": errors}
+    return {"latency": latencies, "until_drawn": computes, "cpu": cpu, "per_view": per_view, "errors": errors}
 
 
 def time_engine_parts(states: int) -> dict:
@@ -147,8 +155,8 @@ def time_engine_parts(states: int) -> dict:
     return out
 
 
-def time_python_control(states: int) -> float:
-    """The nearest python-control calls for the same four views (wall s)."""
+def time_python_control(states: int) -> tuple[float, str]:
+    """The nearest python-control calls for the same four views (wall s), and what failed."""
     import control as ct
 
     from loopwright.engine.interconnect import assemble
@@ -169,14 +177,37 @@ def time_python_control(states: int) -> float:
         ct.step_response(sys_p, t)
     ct.poles(ct.ss(model.A, model.B, model.C, model.D))
     A, B, C, D = loop_transfer(d, "P0.u")
+    failed = ""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # its own warnings are not what is timed
-        ct.stability_margins(ct.ss(A, B, C, D))
-    return time.perf_counter() - t0
+        try:
+            ct.stability_margins(ct.ss(A, B, C, D))
+        except (np.linalg.LinAlgError, ValueError) as err:  # its polynomial route on a large loop
+            failed = f"stability_margins failed ({err})"
+    return time.perf_counter() - t0, failed
 
 
-def measure_audit(app, states: int, tmp: Path) -> dict:
-    """Full audit time in the window, and the time from Stop to the worker being free."""
+def measure_audit(app, states: int, tmp: Path, route: str = "auto", full: bool = True, run_s: float = 3.0) -> dict:
+    """The audit in the window: its full time (when ``full``), when the busy line showed,
+    its progress text after ``run_s`` seconds, and the time from Stop to the worker being free.
+
+    ``route`` other than ``"auto"`` makes the audit panel's engine call take that route
+    (:func:`loopwright.engine.audit.path_audit`'s ``route``), to time the Stop of each.
+    """
+    import functools
+
+    import loopwright.gui.docks.audit as audit_dock
+
+    original = audit_dock.path_audit
+    if route != "auto":
+        audit_dock.path_audit = functools.partial(original, route=route)
+    try:
+        return _measure_audit(app, states, tmp, full, run_s)
+    finally:
+        audit_dock.path_audit = original
+
+
+def _measure_audit(app, states: int, tmp: Path, full: bool, run_s: float) -> dict:
     path = tmp / f"audit_{states}.lwd"
     save(view_loop(states), path)
     win = _window(app, tmp, 20)
@@ -186,19 +217,29 @@ def measure_audit(app, states: int, tmp: Path) -> dict:
     dock.show()
     dock.raise_()
     app.processEvents()
-    _wait(app, lambda: win.views.is_idle())
-    t0 = time.perf_counter()
-    win.views.refresh("audit")
-    _wait(app, lambda: win.views.is_idle())
-    full = time.perf_counter() - t0
-    rows = len(panel.rows)
-    # again, and Stop once the busy line shows
+    _wait(app, lambda: win.views.is_idle(), timeout_s=1200.0)
+    total, rows = float("nan"), 0
+    if full:
+        t0 = time.perf_counter()
+        win.views.refresh("audit")
+        _wait(app, lambda: win.views.is_idle(), timeout_s=1200.0)
+        total = time.perf_counter() - t0
+        rows = len(panel.rows)
+    else:
+        panel.stop_button.click()  # the audit the dock started when shown
+        _wait(app, lambda: win.views.jobs.worker_idle())
+    # again, and Stop after run_s seconds; the window must stay responsive meanwhile
     t0 = time.perf_counter()
     win.views.refresh("audit")
     _wait(app, lambda: panel.waiting.isVisible())
     shown_after = time.perf_counter() - t0
-    progress = panel.progress_text() if hasattr(panel, "progress_text") else ""
-    app.processEvents()
+    longest_turn, last = 0.0, time.perf_counter()
+    while time.perf_counter() - t0 < run_s:
+        app.processEvents()
+        now = time.perf_counter()
+        longest_turn, last = max(longest_turn, now - last), now
+        time.sleep(0.002)
+    progress = panel.progress_text()
     t1 = time.perf_counter()
     panel.stop_button.click()
     _wait(app, lambda: win.views.jobs.worker_idle())
@@ -208,7 +249,8 @@ def measure_audit(app, states: int, tmp: Path) -> dict:
     win.views.shutdown()
     win.close()
     app.processEvents()
-    return {"full": full, "rows": rows, "busy_shown_after": shown_after, "progress": progress, "stop_to_free": stop_latency}
+    return {"full": total, "rows": rows, "busy_shown_after": shown_after, "progress": progress, "stop_to_free": stop_latency,
+            "longest_event_loop_turn": longest_turn}
 
 
 def main(argv=None) -> int:
@@ -217,6 +259,7 @@ def main(argv=None) -> int:
     ap.add_argument("--edits", type=int, default=7)
     ap.add_argument("--debounce-ms", type=int, default=150, help="the window's debounce preference (the app's default)")
     ap.add_argument("--no-audit", action="store_true")
+    ap.add_argument("--no-full-audit", action="store_true", help="time the audit's progress and Stop only, not a whole run")
     args = ap.parse_args(argv)
     import control as ct
     from PySide6.QtWidgets import QApplication
@@ -237,20 +280,26 @@ def main(argv=None) -> int:
                 print(f"  note: the {key} view answered with a message: {text}")
             print(f"  edit -> every view redrawn: median {statistics.median(lat) * 1000:.0f} ms, "
                   f"min {min(lat) * 1000:.0f} ms, max {max(lat) * 1000:.0f} ms{verdict}")
+            print(f"  CPU per edit (all threads of the process): median {statistics.median(res['cpu']) * 1000:.0f} ms")
+            print("  each view drawn after (median ms): "
+                  + ", ".join(f"{k} {statistics.median(v) * 1000:.0f}" for k, v in res["per_view"].items()))
             parts = time_engine_parts(n)
             ours = sum(w for w, _c in parts.values())
             print("  engine, one view at a time on this thread (wall / cpu ms): "
                   + ", ".join(f"{k} {w * 1000:.0f}/{c * 1000:.0f}" for k, (w, c) in parts.items())
                   + f"; total {ours * 1000:.0f} ms")
-            t_ct = time_python_control(n)
+            t_ct, failed = time_python_control(n)
             print(f"  python-control, nearest calls for the same views: {t_ct * 1000:.0f} ms   ratio {t_ct / ours:.1f}x "
-                  "(python-control's margins are not certified peak gains, and it draws no disk margin)")
+                  "(python-control's margins are not certified peak gains, and it draws no disk margin)"
+                  + (f"; note: its {failed}" if failed else ""))
         if not args.no_audit:
             n = max(args.states)
-            a = measure_audit(app, n, tmp)
-            print(f"\npath audit, {n} states: {a['rows']} paths in {a['full']:.2f} s; the busy line showed after "
-                  f"{a['busy_shown_after'] * 1000:.0f} ms ({a['progress'] or 'no progress text'}); "
-                  f"Stop -> worker free in {a['stop_to_free'] * 1000:.0f} ms")
+            for route in ("whole model", "block by block"):
+                a = measure_audit(app, n, tmp, route, full=route == "whole model" and not args.no_full_audit)
+                whole = f"{a['rows']} paths in {a['full']:.1f} s; " if a["rows"] else ""
+                print(f"\npath audit, {n} states, {route} route: {whole}the busy line showed after "
+                      f"{a['busy_shown_after'] * 1000:.0f} ms; after 3 s it said \"{a['progress']}\"; longest event-loop turn "
+                      f"{a['longest_event_loop_turn'] * 1000:.0f} ms; Stop -> worker free in {a['stop_to_free'] * 1000:.0f} ms")
     return 0
 
 

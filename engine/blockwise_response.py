@@ -48,6 +48,8 @@ _SCHUR = 25.0
 _TRI = 8.0
 # numpy's per-call overhead, counted as flops, for each group of parts evaluated per chunk
 _CALL = 2.0e4
+#: Work (flops) between two progress reports of :meth:`BlockwiseModel.response`: tens of ms.
+_REPORT_FLOPS = 5.0e7
 # Entries (parts x frequencies x columns) held at once by the modal evaluator.
 _MAX_ENTRIES = 2_000_000
 # Entries (frequencies x parts) of the 1 / det tables of small parts formed at once: small
@@ -494,14 +496,27 @@ class BlockwiseModel:
             N[:, used[v_used], b.channels] = second[:, v_used]
         return M[:, :q], N, (M[:, q:] if outputs else None)
 
-    def response(self, cols, rows, s) -> np.ndarray:
+    def response(self, cols, rows, s, *, progress=None) -> np.ndarray:
         """``G(s)`` of the path from input columns ``cols`` to output rows ``rows``.
+
+        ``progress(fraction)``, when given, is called after each share of the points
+        (about :data:`_REPORT_FLOPS` of work each) and may raise to stop the evaluation.
 
         Returns
         -------
         (k, p, m) complex ndarray
         """
         s = np.atleast_1d(np.asarray(s, dtype=complex))
+        if progress is not None:
+            p_rows = self.model.C[rows].shape[0]
+            m = np.asarray(self.W[:, cols]).shape[1]
+            per_point = max(1.0, self.cost(m, p_rows, 1))
+            step = max(1, int(_REPORT_FLOPS // per_point))
+            parts = []
+            for a in range(0, s.size, step):
+                parts.append(self.response(cols, rows, s[a : a + step]))
+                progress(min(a + step, s.size) / max(1, s.size))
+            return np.concatenate(parts) if parts else self.response(cols, rows, s)
         C = self.model.C[rows]
         D = self.model.D[rows][:, cols]
         Wp = self.W[:, cols]
@@ -607,8 +622,23 @@ class GroupResponder:
     def route(self) -> str:
         return "whole model" if self.blockwise is None else "block by block"
 
-    def solve(self, w_rad_s):
+    def solve(self, w_rad_s, *, progress=None):
+        """The response at ``w_rad_s``; ``progress(fraction)`` after each share of the
+        points (tens of milliseconds of work each), which may raise to stop."""
         s = 1j * np.atleast_1d(np.asarray(w_rad_s, dtype=float))
+        if progress is not None and s.size > 1:
+            m = self.cols.stop - self.cols.start
+            if self.blockwise is not None:
+                per_point = self.blockwise.cost(m, self.model.C.shape[0], 1)
+            else:
+                per_point = _TRI * self.red.n**2 * max(1, m)
+            step = max(1, int(_REPORT_FLOPS // max(1.0, per_point)))
+            if step < s.size:
+                parts = []
+                for a in range(0, s.size, step):
+                    parts.append(self.solve(w_rad_s[a : a + step]))
+                    progress(min(a + step, s.size) / s.size)
+                return np.concatenate(parts, axis=0 if self.blockwise is not None else 1)
         if self.blockwise is not None:
             return self.blockwise.response(self.cols, slice(0, self.model.C.shape[0]), s)
         from loopwright.engine.responses import _shifted_solve
@@ -620,5 +650,10 @@ class GroupResponder:
         """``(k, p_rows, m)`` response of ``rows`` at the ``points`` of a :meth:`solve` result."""
         if self.blockwise is not None:
             return solved[points, rows, :]
+        X = solved[:, points, :]
+        n, k, m = X.shape
+        Ct = self.Ct[rows]
         with np.errstate(invalid="ignore", over="ignore"):
-            return np.einsum("pn,nkm->kpm", self.Ct[rows], solved[:, points, :]) + self.Dg[rows][None, :, :]
+            # one matrix product (BLAS) rather than einsum's own loop: seconds on a large loop
+            Y = (Ct @ X.reshape(n, k * m)).reshape(Ct.shape[0], k, m)
+            return np.moveaxis(Y, 0, 1) + self.Dg[rows][None, :, :]

@@ -75,13 +75,17 @@ def _log_derivative(bw, d: np.ndarray, s: np.ndarray) -> np.ndarray:
     return own
 
 
-def closed_loop_poles(bw) -> np.ndarray | None:
+def closed_loop_poles(bw, *, progress=None) -> np.ndarray | None:
     """All eigenvalues of the closed loop ``A = A0 + U V`` (see the module docstring), or
     None when the iteration does not certify them (then use a dense eigenvalue solver).
 
     Parameters
     ----------
     bw : BlockwiseModel
+    progress : callable, optional
+        ``progress(fraction)`` several times a sweep; it may raise to stop the iteration.
+        The fraction is an estimate (the number of sweeps is not known beforehand): the
+        share of roots converged, or ``sweeps / (sweeps + 10)`` when that is more.
 
     Returns
     -------
@@ -99,13 +103,29 @@ def closed_loop_poles(bw) -> np.ndarray | None:
     offset = (1e-3 * np.abs(d.real) + 1e-6 * np.abs(d) + 1e-9 * scale) * np.exp(1j * theta)
     z = d + offset
     active = np.ones(n, dtype=bool)
-    for _ in range(_MAX_SWEEPS):
+    shown = 0.0
+
+    def report(sweep: float) -> None:
+        nonlocal shown
+        if progress is not None:
+            shown = max(shown, 1.0 - np.count_nonzero(active) / n, sweep / (sweep + 10.0))
+            progress(shown)
+
+    for sweep in range(_MAX_SWEEPS):
         idx = np.flatnonzero(active)
         if idx.size == 0:
             break
         zk = z[idx]
         with np.errstate(all="ignore"):
-            ratio = 1.0 / _log_derivative(bw, d, zk)  # Newton correction p / p'
+            if progress is None:
+                logd = _log_derivative(bw, d, zk)
+            else:  # in pieces, so that a stop is noticed within a fraction of a sweep
+                logd = np.empty(zk.size, dtype=complex)
+                step = max(1, zk.size // 8)
+                for a in range(0, zk.size, step):
+                    logd[a : a + step] = _log_derivative(bw, d, zk[a : a + step])
+                    report(sweep + min(a + step, zk.size) / zk.size)
+            ratio = 1.0 / logd  # Newton correction p / p'
             rep = np.empty(idx.size, dtype=complex)
             for a in range(0, idx.size, _CHUNK):
                 diff = zk[a : a + _CHUNK, None] - z[None, :]
@@ -123,6 +143,7 @@ def closed_loop_poles(bw) -> np.ndarray | None:
         z[idx] = zk - step
         done = np.abs(step) <= _TOL * np.maximum(np.abs(z[idx]), 1e-3 * scale * _TOL)
         active[idx[done]] = False
+        report(sweep + 1.0)
     if active.any():
         return None
     if abs(np.sum(z).real - np.trace(A)) > _TRACE_TOL * max(1.0, float(np.sum(np.abs(z)))):
@@ -216,16 +237,17 @@ def _distinct_modes(poles: np.ndarray, vals: np.ndarray, own: np.ndarray, neares
     return j
 
 
-def h2_by_residues(bw, poles: np.ndarray, factors, groups: dict, signals: dict) -> dict:
+def h2_by_residues(bw, poles: np.ndarray, factors, groups: dict, signals: dict, *, progress=None) -> dict:
     """H2 norm of every path ``group -> signal`` by the residue sum (module docstring).
 
     ``groups``/``signals`` map names to column/row slices of the model. Returns
     ``(group, signal) -> float``, or ``None`` for a path where rounding could have cancelled
-    too much of the sum. ``G(-l_k)`` is evaluated once for all paths.
+    too much of the sum. ``G(-l_k)`` is evaluated once for all paths; ``progress`` as in
+    :meth:`BlockwiseModel.response` (it may raise to stop).
     """
     a, b = factors
     cols = np.concatenate([np.arange(sl.start, sl.stop) for sl in groups.values()]) if groups else np.zeros(0, int)
-    G = bw.response(cols, slice(None), -poles)  # (n, p, m_groups)
+    G = bw.response(cols, slice(None), -poles, progress=progress)  # (n, p, m_groups)
     out: dict = {}
     at = 0
     for grp, gsl in groups.items():

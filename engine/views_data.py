@@ -11,12 +11,14 @@ A *pair* names one input and one output: the input is a source name or
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
 from loopwright.engine.errors import AnalysisError, EngineError, ParameterError
 
 __all__ = [
+    "SharedModel",
     "PairResponse",
     "pair_frequency_response",
     "drawing_frequency_grid",
@@ -39,6 +41,92 @@ __all__ = [
 
 #: A frequency grid beyond this many points is a typing slip, not a wish (memory grows with it).
 MAX_POINTS = 200_000
+
+
+class SharedModel:
+    """What every view of one diagram snapshot needs, computed once and shared.
+
+    The app's views of one revision all start from the same closed loop: the assembled
+    model, its poles, its Schur reduction (frequency and singular-value views), the check
+    report (pole map). Each is computed on first use and kept; a view asked for the same
+    pair's frequency response as another view gets the same answer object. The snapshot
+    must not change afterwards (the app hands each revision a fresh copy). Several threads
+    may ask at once: each item is computed by the first that asks, the others wait for it.
+
+    Parameters
+    ----------
+    diagram : Diagram
+        A snapshot of the diagram.
+    """
+
+    def __init__(self, diagram):
+        import threading
+
+        self.diagram = diagram
+        self._memo: dict = {}
+        self._lock = threading.Lock()
+        self._key_locks: dict = {}
+
+    def _get(self, key, make):
+        import threading
+
+        with self._lock:
+            if key in self._memo:
+                return self._memo[key]
+            key_lock = self._key_locks.setdefault(key, threading.Lock())
+        # one lock per item: a thread computing the frequency responses does not hold up
+        # another that only needs the model (items depend on each other without cycles)
+        with key_lock:
+            with self._lock:
+                if key in self._memo:
+                    return self._memo[key]
+            value = make()
+            with self._lock:
+                self._memo[key] = value
+            return value
+
+    @property
+    def model(self):
+        """The assembled closed-loop model (:func:`interconnect.assemble`)."""
+        from loopwright.engine.interconnect import assemble
+
+        return self._get("model", lambda: assemble(self.diagram))
+
+    @property
+    def reduced(self):
+        """One Schur reduction of the closed loop's ``A`` (:func:`responses.reduce_model`)."""
+        from loopwright.engine.responses import reduce_model
+
+        return self._get("reduced", lambda: reduce_model(self.model.A))
+
+    @property
+    def poles(self) -> np.ndarray:
+        """Eigenvalues of the closed loop's ``A`` (the diagonal of its Schur form)."""
+        return self._get("poles", lambda: self.reduced.poles)
+
+    @property
+    def stable(self) -> bool:
+        """True when every pole has a negative real part (the slack of
+        :func:`norms.is_stable_matrix`)."""
+        def make():
+            A = self.model.A
+            if A.shape[0] == 0:
+                return True
+            slack = 1e-12 * max(1.0, float(np.linalg.norm(A, 1)))
+            return bool(np.max(self.poles.real) < -slack)
+
+        return self._get("stable", make)
+
+    @property
+    def report(self):
+        """The check report (:func:`check.summarize`): the poles and the separation check."""
+        from loopwright.engine.check import summarize
+
+        return self._get("report", lambda: summarize(self.diagram))
+
+    def remember(self, key, make):
+        """``make()`` the first time ``key`` is asked for, the same object afterwards."""
+        return self._get(("user", key), make)
 
 
 # ---------------------------------------------------------------------------------------
@@ -67,16 +155,16 @@ class PairResponse:
     input_names: list[str]
     output_names: list[str]
 
-    @property
+    @cached_property
     def mag_db(self) -> np.ndarray:
-        """(k, p, m) magnitude in dB."""
+        """(k, p, m) magnitude in dB (computed once: a view reads it for every element)."""
         from loopwright.engine.responses import magnitude_db
 
         return magnitude_db(self.response)
 
-    @property
+    @cached_property
     def phase_deg(self) -> np.ndarray:
-        """(k, p, m) phase in degrees, unwrapped along frequency."""
+        """(k, p, m) phase in degrees, unwrapped along frequency (computed once)."""
         from loopwright.engine.responses import phase_deg
 
         return phase_deg(self.response)
@@ -266,32 +354,36 @@ def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | 
     return w[np.concatenate([[True], np.diff(w) > 1e-12 * w[1:]])] if w.size else w
 
 
-def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float | None = None, drawing: bool = False) -> list:
+def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float | None = None, drawing: bool = False,
+                    shared: SharedModel | None = None) -> list:
     """One :class:`PairResponse` per pair, or the engine's message (a str) for a pair that
-    cannot be computed; the diagram is assembled once.
+    cannot be computed; the diagram is assembled and reduced once.
 
     Parameters
     ----------
     diagram : Diagram
     pairs : list of (input, output) tuples
+    shared : SharedModel, optional
+        The snapshot's shared computations (the model, its reduction, responses already
+        computed for another view); ``diagram`` is then unused.
 
     Raises
     ------
     EngineError
         The diagram does not assemble.
     """
-    from loopwright.engine.interconnect import assemble
-
-    from loopwright.engine.responses import reduce_model
-
-    model = assemble(diagram)
-    red = reduce_model(model.A) if pairs else None  # one reduction for every pair
+    shared = shared if shared is not None else SharedModel(diagram)
+    model = shared.model
     out = []
     for src, sig in pairs:
-        try:
-            out.append(pair_frequency_response(model, src, sig, w_min=w_min, w_max=w_max, drawing=drawing, reduced=red))
-        except EngineError as err:
-            out.append(str(err))
+
+        def make(src=src, sig=sig):
+            try:
+                return pair_frequency_response(model, src, sig, w_min=w_min, w_max=w_max, drawing=drawing, reduced=shared.reduced)
+            except EngineError as err:
+                return str(err)
+
+        out.append(shared.remember(("frequency", src, sig, w_min, w_max, drawing), make))
     return out
 
 
@@ -305,11 +397,12 @@ def singular_values(response: np.ndarray) -> np.ndarray:
     return s
 
 
-def singular_value_views(diagram, pairs, *, drawing: bool = False) -> list:
+def singular_value_views(diagram, pairs, *, drawing: bool = False, shared: SharedModel | None = None) -> list:
     """Per pair: ``(w_rad_s (k,), sigma_db (k, r))``, the singular values in dB largest
-    first, or the engine's message (a str) for a pair that cannot be computed."""
+    first, or the engine's message (a str) for a pair that cannot be computed
+    (``shared`` as in :func:`frequency_views`: the frequency view's responses are reused)."""
     out = []
-    for resp in frequency_views(diagram, pairs, drawing=drawing):
+    for resp in frequency_views(diagram, pairs, drawing=drawing, shared=shared):
         if isinstance(resp, str):
             out.append(resp)
             continue
@@ -322,7 +415,7 @@ def singular_value_views(diagram, pairs, *, drawing: bool = False) -> list:
 # time
 
 
-def time_grid(diagram, model, t_end: float | None = None, dt: float | None = None) -> np.ndarray:
+def time_grid(diagram, model, t_end: float | None = None, dt: float | None = None, *, poles=None) -> np.ndarray:
     """The uniform time grid of a run, in s.
 
     ``t_end``/``dt`` given here win; then the diagram's ``settings.time``; else eight
@@ -332,12 +425,15 @@ def time_grid(diagram, model, t_end: float | None = None, dt: float | None = Non
     ------
     ParameterError
         ``dt`` not below ``t_end``, or more than 5e6 steps.
+
+    ``poles`` may give the eigenvalues of ``model.A`` when they are known already.
     """
     settings = diagram.settings.get("time") or {}
     t_end = t_end if t_end is not None else settings.get("t_end")
     dt = dt if dt is not None else settings.get("dt")
     if t_end is None:
-        ev = np.linalg.eigvals(model.A) if model.A.size else np.array([-1.0])
+        ev = np.asarray(poles) if poles is not None else (np.linalg.eigvals(model.A) if model.A.size else np.array([-1.0]))
+        ev = ev if ev.size else np.array([-1.0])
         slow = np.abs(ev.real[ev.real < 0])
         t_end = float(min(8.0 / slow.min(), 1e4)) if slow.size else 10.0
     if dt is None:
@@ -386,7 +482,7 @@ def estimation_error_names(model) -> dict[str, np.ndarray]:
     return out
 
 
-def pair_time_response(model, kind: str, source: str, signal: str, t, *, x0=None) -> PairRun:
+def pair_time_response(model, kind: str, source: str, signal: str, t, *, x0=None, stable: bool | None = None) -> PairRun:
     """A time run of one pair.
 
     Parameters
@@ -402,6 +498,8 @@ def pair_time_response(model, kind: str, source: str, signal: str, t, *, x0=None
         Uniform times, s.
     x0 : (n,) array_like, optional
         Initial state (``"sources"`` and ``"initial"`` runs).
+    stable : bool, optional
+        Whether ``model.A`` is stable, when already known (step metrics need it).
 
     Raises
     ------
@@ -444,41 +542,46 @@ def pair_time_response(model, kind: str, source: str, signal: str, t, *, x0=None
     else:
         names = [f"{o} <- {i}" for o in out_names for i in in_names]
         Y = res.y.reshape(res.y.shape[0], -1)
-    metrics = _step_run_metrics(model, cols, C, D, names, Y, res.t) if kind == "step" and not res.diverged else {}
+    metrics = _step_run_metrics(model, cols, C, D, names, Y, res.t, stable=stable) if kind == "step" and not res.diverged else {}
     return PairRun(kind, res.t, Y, names, res.diverged, res.message, metrics)
 
 
-def _step_run_metrics(model, cols, C, D, names, Y, t) -> dict:
+def _step_run_metrics(model, cols, C, D, names, Y, t, *, stable: bool | None = None) -> dict:
     """Step metrics of each column of a step run (none when the model is not stable: no
     steady state to measure against)."""
-    from loopwright.engine.norms import dc_gain, is_stable_matrix
+    from loopwright.engine.norms import is_stable_matrix
     from loopwright.engine.step_metrics import step_metrics
 
-    if not is_stable_matrix(model.A):
+    if not (is_stable_matrix(model.A) if stable is None else stable):
         return {}
     with np.errstate(all="ignore"):
-        G0 = np.asarray(dc_gain(model.A, model.B[:, cols], C, D[:, cols]), dtype=float).reshape(-1)  # output-major, like Y
+        # A stable A is nonsingular: G(0) = D - C A^-1 B needs no minimal realisation first
+        # (that is for poles at the origin, which a stable loop has none of)
+        G0 = np.asarray(D[:, cols] - C @ np.linalg.solve(model.A, model.B[:, cols]), dtype=float).reshape(-1)  # output-major, like Y
     scale = max(float(np.nanmax(np.abs(Y))) if Y.size else 0.0, float(np.nanmax(np.abs(G0), initial=0.0)))
     G0 = np.where(np.abs(G0) <= 1e-12 * scale, 0.0, G0)  # rounding of an exact zero
     return {nm: step_metrics(t, Y[:, k], float(G0[k])) for k, nm in enumerate(names) if np.isfinite(G0[k]) and G0[k] != 0.0}
 
 
-def time_views(diagram, pairs, kind: str, *, initial: dict | None = None, t_end: float | None = None, dt: float | None = None) -> list:
+def time_views(diagram, pairs, kind: str, *, initial: dict | None = None, t_end: float | None = None, dt: float | None = None,
+               shared: SharedModel | None = None) -> list:
     """One :class:`PairRun` per pair (or the engine's message as a str); one assembly.
 
     ``initial`` maps block names to their initial state (see
-    :func:`loopwright.engine.responses.initial_state`).
+    :func:`loopwright.engine.responses.initial_state`); ``shared`` as in
+    :func:`frequency_views`.
     """
-    from loopwright.engine.interconnect import assemble
     from loopwright.engine.responses import initial_state
 
-    model = assemble(diagram)
-    t = time_grid(diagram, model, t_end, dt)
+    shared = shared if shared is not None else SharedModel(diagram)
+    model = shared.model
+    t = time_grid(diagram, model, t_end, dt, poles=shared.poles)
     x0 = initial_state(model, initial) if initial else None
+    stable = shared.stable if kind == "step" else None
     out = []
     for src, sig in pairs:
         try:
-            out.append(pair_time_response(model, kind, src, sig, t, x0=x0))
+            out.append(pair_time_response(model, kind, src, sig, t, x0=x0, stable=stable))
         except EngineError as err:
             out.append(str(err))
     return out

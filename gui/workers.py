@@ -18,7 +18,41 @@ from PySide6.QtCore import QObject, QTimer, Signal
 from loopwright.engine.diagram import Diagram
 from loopwright.engine.errors import EngineError
 
-__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs", "JobStopped", "TaskResult", "Tasks"]
+__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs", "JobStopped", "TaskResult", "Tasks",
+           "limit_blas_threads"]
+
+#: The thread-count setters of the OpenBLAS builds numpy and scipy ship (64-bit and 32-bit integer ones).
+_BLAS_SETTERS = ("scipy_openblas_set_num_threads64_", "scipy_openblas_set_num_threads", "openblas_set_num_threads64_",
+                 "openblas_set_num_threads")
+
+
+def limit_blas_threads(threads: int = 1) -> int:
+    """Let each loaded OpenBLAS use at most ``threads`` threads; returns how many libraries were set.
+
+    The window computes on two worker threads at once (the live check and the views). With
+    OpenBLAS's default of one thread per core, each of their matrix calls starts its own
+    team of spinning threads, and on a two-core machine the teams only wait for each other
+    (the views bench measured the same work several times slower). A user who sets
+    ``OPENBLAS_NUM_THREADS`` keeps their choice: nothing is changed then.
+    """
+    import ctypes
+    import os
+
+    if os.environ.get("OPENBLAS_NUM_THREADS") or not os.path.exists("/proc/self/maps"):
+        return 0
+    with open("/proc/self/maps", encoding="utf-8", errors="replace") as fh:
+        paths = sorted({ln.split()[-1] for ln in fh if "openblas" in ln.lower() and "/" in ln})
+    done = 0
+    for path in paths:
+        try:
+            lib = ctypes.CDLL(path)
+        except OSError:
+            continue
+        setter = next((getattr(lib, name) for name in _BLAS_SETTERS if hasattr(lib, name)), None)
+        if setter is not None:
+            setter(int(threads))
+            done += 1
+    return done
 
 
 @dataclass(frozen=True)
@@ -212,7 +246,9 @@ class _JobControl:
 
 
 class ViewJobs(QObject):
-    """Runs the plot panels' engine calls off the GUI thread, one at a time.
+    """Runs the plot panels' engine calls off the GUI thread: quick ones one at a time on
+    one worker, slow ones (``slow=True``: margins, the noise budget, the audit) one at a
+    time on another, so a slow answer never holds up the quick views of a later edit.
 
     Each request carries a key (the panel) and the document revision it was built at. A
     newer request for the same key cancels the older one while it waits, and stops it
@@ -239,16 +275,19 @@ class ViewJobs(QObject):
         super().__init__(parent)
         self._doc = document
         self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views")
-        self._latest: dict[str, tuple[int, Future, _JobControl]] = {}
+        self._slow_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views-slow", initializer=_yield_to_quick_views)
+        self._latest: dict[str, tuple[int, Future, _JobControl, int]] = {}
         self._submitted: list[Future] = []
+        self._quick: set[Future] = set()
         self._token = 0
         self._closed = False
         self.discarded = 0
         self._finished.connect(self._on_finished)
         self._progress.connect(self._on_progress)
 
-    def submit(self, key: str, fn, *args, progress: bool = False, **kwargs) -> None:
-        """Run ``fn(*args, **kwargs)`` on the worker for panel ``key`` (args must be snapshots).
+    def submit(self, key: str, fn, *args, progress: bool = False, slow: bool = False, **kwargs) -> None:
+        """Run ``fn(*args, **kwargs)`` on a worker for panel ``key`` (args must be snapshots);
+        ``slow`` picks the worker of the slow views.
 
         With ``progress=True`` the job also gets ``progress=<callable>`` (see
         :class:`_JobControl`): its reports reach :attr:`progress_changed`, and
@@ -265,9 +304,11 @@ class ViewJobs(QObject):
         control = _JobControl(key, self._progress.emit)
         if progress:
             kwargs = dict(kwargs, progress=control.report)
-        fut = self._executor.submit(_run_view_job, fn, args, kwargs)
-        self._latest[key] = (token, fut, control)
+        fut = (self._slow_executor if slow else self._executor).submit(_run_view_job, fn, args, kwargs)
+        self._latest[key] = (token, fut, control, revision)
         self._submitted = [f for f in self._submitted if not f.done()] + [fut]
+        if not slow:
+            self._quick = {f for f in self._quick if not f.done()} | {fut}
         fut.add_done_callback(lambda f, k=key, tk=token, rev=revision: self._deliver(f, k, tk, rev))
         self.busy_changed.emit(key, True)
 
@@ -280,12 +321,21 @@ class ViewJobs(QObject):
             old[2].stop()
             self.busy_changed.emit(key, False)
 
+    def drop_stale(self) -> None:
+        """Cancel or stop every request built at an older revision than the document's:
+        its answer would be dropped anyway, and the worker is needed for the new one."""
+        for key in [k for k, v in self._latest.items() if v[3] != self._doc.revision]:
+            self.cancel(key)
+
     def is_busy(self, key: str) -> bool:
         return key in self._latest
 
-    def worker_idle(self) -> bool:
-        """True when nothing runs or waits on the worker (stopped jobs included)."""
+    def worker_idle(self, *, quick_only: bool = False) -> bool:
+        """True when nothing runs or waits on the workers (stopped jobs included); with
+        ``quick_only``, on the worker of the quick views."""
         self._submitted = [f for f in self._submitted if not f.done()]
+        if quick_only:
+            return not any(f in self._quick for f in self._submitted)
         return not self._submitted
 
     def _on_progress(self, key: str, fraction: float) -> None:
@@ -306,6 +356,12 @@ class ViewJobs(QObject):
         latest = self._latest.get(key)
         if latest is None or latest[0] != token or result.revision != self._doc.revision:
             self.discarded += 1
+            if latest is not None and latest[0] == token:
+                # the panel's newest request, overtaken by an edit: it no longer waits on
+                # anything (a visible panel has a newer request already; a hidden one
+                # catches up when it is shown)
+                del self._latest[key]
+                self.busy_changed.emit(key, False)
             return
         del self._latest[key]
         self.busy_changed.emit(key, False)
@@ -313,7 +369,7 @@ class ViewJobs(QObject):
 
     def wait_idle(self) -> None:
         """Block until every submitted job has run (tests and benches only)."""
-        for _token, fut, _control in list(self._latest.values()):
+        for _token, fut, _control, _rev in list(self._latest.values()):
             try:
                 fut.result()
             except Exception:  # noqa: BLE001 - cancelled or failed: nothing to wait for
@@ -321,9 +377,10 @@ class ViewJobs(QObject):
 
     def shutdown(self, *, wait: bool = True) -> None:
         self._closed = True
-        for _token, fut, control in self._latest.values():
+        for _token, fut, control, _rev in self._latest.values():
             control.stop()
         self._executor.shutdown(wait=wait, cancel_futures=True)
+        self._slow_executor.shutdown(wait=wait, cancel_futures=True)
 
 
 @dataclass(frozen=True)
@@ -396,6 +453,20 @@ class Tasks(QObject):
     def shutdown(self, *, wait: bool = True) -> None:
         self._closed = True
         self._executor.shutdown(wait=wait, cancel_futures=True)
+
+
+def _yield_to_quick_views() -> None:
+    """Lower the calling worker thread's scheduling priority (Linux, where a thread has its
+    own): on a two-core machine the slow views then take what the quick views leave."""
+    import os
+    import sys
+    import threading
+
+    if sys.platform.startswith("linux") and hasattr(os, "setpriority"):
+        try:
+            os.setpriority(os.PRIO_PROCESS, threading.get_native_id(), 10)  # this thread only, on Linux
+        except OSError:
+            pass  # not allowed here: the slow views simply compete as equals
 
 
 def _run_view_job(fn, args, kwargs):

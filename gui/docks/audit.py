@@ -16,9 +16,10 @@ __all__ = ["AuditPanel", "audit_rows", "audit_summary"]
 _HEADER = ["#", "source", "signal", "peak gain", "at (rad/s)", "H2", "DC gain", "stable", "blocks on the path"]
 
 
-def audit_rows(diagram, *, injections: bool = False, progress=None) -> list:
-    """The ranked rows (worker thread); ``progress`` as in :func:`path_audit` (may stop it)."""
-    return path_audit(assemble(diagram), injections=injections, progress=progress)
+def audit_rows(diagram, *, injections: bool = False, progress=None, shared=None) -> list:
+    """The ranked rows (worker thread); ``progress`` as in :func:`path_audit` (may stop it);
+    ``shared``: the snapshot's :class:`~loopwright.engine.views_data.SharedModel`."""
+    return path_audit(assemble(diagram) if shared is None else shared.model, injections=injections, progress=progress)
 
 
 def _num(x: float) -> str:
@@ -88,8 +89,8 @@ class AuditPanel(PlotPanel):
         self.rows: list = []
         self.set_message(f"Ranking: {RANKING_RULE}.")
 
-    def job(self, diagram, pairs):
-        return audit_rows, (diagram,), {"injections": self.injections.isChecked()}
+    def job(self, diagram, pairs, shared=None):
+        return audit_rows, (diagram,), {"injections": self.injections.isChecked(), "shared": shared}
 
     def show_value(self, value) -> None:
         rows = list(value or [])

@@ -71,11 +71,11 @@ class FrequencyPanel(PlotPanel):
         extra = [self.audit_pair] if self.audit_pair and self.audit_pair not in self.pairs else []
         return list(self.pairs) + extra
 
-    def job(self, diagram, pairs):
+    def job(self, diagram, pairs, shared=None):
         shown = self.shown_pairs()
         if not shown:
             return None
-        return frequency_views, (diagram, shown), {"drawing": True}
+        return frequency_views, (diagram, shown), {"drawing": True, "shared": shared}
 
     def set_audit_pair(self, pair: tuple[str, str] | None) -> None:
         if pair != self.audit_pair:

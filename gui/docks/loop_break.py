@@ -171,7 +171,7 @@ class LoopBreakPanel(PlotPanel):
         self.data = None
         self.set_message("No loop break: right-click a wire and choose “break the loop here”.")
 
-    def job(self, diagram, pairs):
+    def job(self, diagram, pairs, shared=None):
         at = diagram.settings.get("loop_break")
         if not isinstance(at, str) or not at:
             self.set_message("No loop break: right-click a wire and choose “break the loop here”.")

@@ -19,9 +19,10 @@ __all__ = ["NoisePanel", "noise_view_data", "SOURCE_COLOURS"]
 SOURCE_COLOURS = ("#4c6a92", "#d9822b", "#6aa84f", "#a64d79", "#45818e", "#b5a642", "#7f6084", "#9c5b3b")
 
 
-def noise_view_data(diagram, signals) -> tuple:
-    """(budget, bars) for the chosen signals (all when ``signals`` is empty); worker thread."""
-    budget = noise_budget(assemble(diagram))
+def noise_view_data(diagram, signals, *, shared=None) -> tuple:
+    """(budget, bars) for the chosen signals (all when ``signals`` is empty); worker thread
+    (``shared``: the snapshot's :class:`~loopwright.engine.views_data.SharedModel`)."""
+    budget = noise_budget(assemble(diagram) if shared is None else shared.model)
     return budget, noise_bars(budget, list(signals) or None)
 
 
@@ -46,9 +47,9 @@ class NoisePanel(PlotPanel):
         self.shown: list = []
         self.budget = None
 
-    def job(self, diagram, pairs):
+    def job(self, diagram, pairs, shared=None):
         outputs = list(dict.fromkeys(sig for _src, sig in pairs))
-        return noise_view_data, (diagram, outputs), {}
+        return noise_view_data, (diagram, outputs), {"shared": shared}
 
     def show_value(self, value) -> None:
         if value is None:

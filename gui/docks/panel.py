@@ -122,8 +122,12 @@ class PlotPanel(QWidget):
         self.save_data_action.triggered.connect(lambda _c=False: self.save_data_dialog())
 
     # ---- what subclasses provide ----------------------------------------------------------
-    def job(self, diagram, pairs):
-        """``(fn, args, kwargs)`` to run on the worker for this diagram snapshot, or None."""
+    def job(self, diagram, pairs, shared=None):
+        """``(fn, args, kwargs)`` to run on the worker for this diagram snapshot, or None.
+
+        ``shared`` is the snapshot's :class:`~loopwright.engine.views_data.SharedModel`
+        (the assembled model and what the views of one revision share); a panel passes
+        it on to its engine function."""
         return None
 
     def show_value(self, value) -> None:

@@ -17,9 +17,10 @@ __all__ = ["PoleMapPanel", "pole_map_data"]
 _GUIDE = pg.mkPen("#b8c0ca", width=1, style=Qt.PenStyle.DotLine)
 
 
-def pole_map_data(diagram) -> dict:
-    """What the pole map shows (worker thread): poles, the designed sets, guides, the table."""
-    rep = summarize(diagram)
+def pole_map_data(diagram, *, shared=None) -> dict:
+    """What the pole map shows (worker thread): poles, the designed sets, guides, the table
+    (``shared``: the snapshot's :class:`~loopwright.engine.views_data.SharedModel`)."""
+    rep = summarize(diagram) if shared is None else shared.report
     poles = rep.poles
     sep = rep.separation
     fb = sep.state_feedback_poles if sep is not None else np.zeros(0, complex)
@@ -60,8 +61,8 @@ class PoleMapPanel(PlotPanel):
         self.plot.scene().sigMouseMoved.connect(self._on_mouse)
         self.plot.addItem(pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen("#5b6573", width=1)), ignoreBounds=True)
 
-    def job(self, diagram, pairs):
-        return pole_map_data, (diagram,), {}
+    def job(self, diagram, pairs, shared=None):
+        return pole_map_data, (diagram,), {"shared": shared}
 
     def show_value(self, value) -> None:
         if value is None:
@@ -81,19 +82,22 @@ class PoleMapPanel(PlotPanel):
             item.setData(x, y)
         for item in self.guides[len(lines):]:
             item.setData([], [])
-        for lab in self.guide_labels:
-            self.plot.removeItem(lab)
-        self.guide_labels = []
-        for z, x, y in g["rays"][::2]:
-            lab = pg.TextItem(f"ζ {z:g}", color="#8a94a0", anchor=(0.5, 1.0))
-            lab.setPos(x[1], y[1])
+        # the labels are made once and then only moved or retitled (an edit rarely
+        # changes them: making text items anew on every edit cost more than the poles)
+        labels = [(f"ζ {z:g}", (0.5, 1.0), (x[1], y[1])) for z, x, y in g["rays"][::2]]
+        labels += [(f"ωn {wn:g}", (1.0, 0.0), (-wn, 0.0)) for wn, _x, _y in g["circles"]]
+        while len(self.guide_labels) < len(labels):
+            lab = pg.TextItem("", color="#8a94a0")
             self.plot.addItem(lab, ignoreBounds=True)
             self.guide_labels.append(lab)
-        for wn, x, y in g["circles"]:
-            lab = pg.TextItem(f"ωn {wn:g}", color="#8a94a0", anchor=(1.0, 0.0))
-            lab.setPos(-wn, 0.0)
-            self.plot.addItem(lab, ignoreBounds=True)
-            self.guide_labels.append(lab)
+        for lab, (text, anchor, pos) in zip(self.guide_labels, labels):
+            if lab.toPlainText() != text:
+                lab.setText(text)
+            lab.setAnchor(anchor)
+            lab.setPos(*pos)
+            lab.setVisible(True)
+        for lab in self.guide_labels[len(labels):]:
+            lab.setVisible(False)
         msg = f"{p.size} closed-loop poles"
         if value["matches"] is True:
             msg += "; they match eig(A − BK) ∪ eig(A − LC): the separation holds"

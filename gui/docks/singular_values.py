@@ -21,11 +21,11 @@ class SingularValuePanel(PlotPanel):
         self.curves: dict[tuple, object] = {}
         self.data: dict = {}
 
-    def job(self, diagram, pairs):
+    def job(self, diagram, pairs, shared=None):
         if not pairs:
             self.set_message("No pair yet. The singular values of a pair with a vector input or output show its gain in every direction.")
             return None
-        return singular_value_views, (diagram, list(pairs)), {"drawing": True}
+        return singular_value_views, (diagram, list(pairs)), {"drawing": True, "shared": shared}
 
     def show_value(self, value) -> None:
         value = value or []

@@ -131,7 +131,7 @@ class TimePanel(PlotPanel):
             out += [(src, f"error:{e}") for e in self._estimators]
         return out
 
-    def job(self, diagram, pairs):
+    def job(self, diagram, pairs, shared=None):
         self._estimators = [b.name for b in diagram.blocks.values() if b.kind == "estimator" and b.params.get("plant")]
         if not self.initial.text().strip() and self._estimators:
             # the plant started, its estimator not: the estimation error's transient
@@ -153,7 +153,7 @@ class TimePanel(PlotPanel):
         if kind == "initial" and initial is None:
             raise ParameterError("an initial-state run needs an initial state: type e.g. P=1")
         self._shown = series
-        return time_views, (diagram, series, kind), {"initial": initial}
+        return time_views, (diagram, series, kind), {"initial": initial, "shared": shared}
 
     def show_value(self, value) -> None:
         if value is None:

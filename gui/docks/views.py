@@ -1,24 +1,38 @@
 """Keeps every open plot panel up to date with the document.
 
-After an edit each visible panel builds its job from a fresh snapshot and the kept pairs;
-:class:`~loopwright.gui.workers.ViewJobs` runs it off the GUI thread and drops answers an
-edit has overtaken. An edit made while the worker is idle is computed at once (on the
-next turn of the event loop, so the steps of one command count once); edits that arrive
-while it still computes are coalesced and computed once after a quiet spell (the
-debounce), so dragging a value never queues a backlog. A hidden panel is marked stale and
-catches up when it is shown. A panel whose answer takes longer than half a second says
-so, with its progress where the engine reports it and a Stop that ends the computation.
+After an edit the visible panels build their jobs from one snapshot of the revision and
+the kept pairs, and share one :class:`~loopwright.engine.views_data.SharedModel` (the
+model is assembled once, its Schur reduction and poles computed once, a response two
+views show computed once). :class:`~loopwright.gui.workers.ViewJobs` runs the jobs off
+the GUI thread, cheapest view first, and the expensive ones (loop-break margins, noise
+budget, path audit) on a worker of their own, so the quick answers are drawn while those
+still compute and a later edit's quick views never wait for them; it drops answers an
+edit has overtaken.
+
+An edit made while the worker is idle is computed at once (on the next turn of the event
+loop, so the steps of one command count once). Every edit at once cancels or stops the
+work of older revisions (nothing stale stays queued); edits that arrive while the worker
+is still busy are coalesced and computed once after a quiet spell (the debounce), so
+dragging a value never queues a backlog. A hidden panel is marked stale and catches up
+when it is shown. A panel whose answer takes longer than half a second says so, with its
+progress where the engine reports it and a Stop that ends the computation.
 """
 from __future__ import annotations
 
 from PySide6.QtCore import QObject, QTimer
 
+from loopwright.engine.views_data import SharedModel
 from loopwright.gui.view_commands import pairs_of
 from loopwright.gui.workers import ViewJobs, ViewResult
 
-__all__ = ["ViewsController"]
+__all__ = ["ViewsController", "VIEW_ORDER"]
 
 _BUSY_AFTER_MS = 500
+
+#: The order the panels' jobs run in after an edit: cheap first, so they are drawn first.
+VIEW_ORDER = ("poles", "frequency", "time", "singular_values", "loop_break", "noise", "audit")
+#: Views whose answers can take seconds on a large loop: they run on a worker of their own.
+SLOW_VIEWS = frozenset({"loop_break", "noise", "audit"})
 
 
 class ViewsController(QObject):
@@ -26,12 +40,16 @@ class ViewsController(QObject):
 
     def __init__(self, document, *, debounce_ms: int = 150, parent=None):
         super().__init__(parent)
+        from loopwright.gui.workers import limit_blas_threads
+
+        limit_blas_threads(1)  # the live check and the views compute at once on two cores
         self._doc = document
         self.jobs = ViewJobs(document, self)
         self.panels: dict[str, tuple] = {}
         self._fresh: dict[str, int] = {}
         self._busy_timers: dict[str, QTimer] = {}
         self._debounce_ms = debounce_ms
+        self._shared: tuple | None = None  # (revision, snapshot, pairs, SharedModel)
         self._timer = QTimer(self)
         self._timer.setSingleShot(True)
         self._timer.timeout.connect(self.refresh_visible)
@@ -54,28 +72,41 @@ class ViewsController(QObject):
             panel.stop_requested.connect(lambda k=key: self.stop(k))
 
     def _on_changed(self, _revision: int) -> None:
-        # idle worker: compute now (with any edit still waiting for its debounce); busy
-        # worker: wait for a quiet spell, so a burst of edits is computed once
-        busy = any(self.jobs.is_busy(k) for k in self.panels)
-        self._timer.start(self._debounce_ms if busy else 0)
+        # nothing of an older revision is shown: free the worker for the new one now
+        self.jobs.drop_stale()
+        self._shared = None
+        # idle worker of the quick views: compute now (with any edit still waiting for its
+        # debounce); busy (a stopped job still finishing): wait for a quiet spell, so a
+        # burst of edits is computed once. A slow view still computing does not count: its
+        # new job waits behind it on its own worker.
+        self._timer.start(0 if self.jobs.worker_idle(quick_only=True) else self._debounce_ms)
 
     def _on_visibility(self, key: str, visible: bool) -> None:
         if visible and self._fresh.get(key) != self._doc.revision:
             self.refresh(key)
 
     def refresh_visible(self) -> None:
-        for key, (_panel, dock) in self.panels.items():
-            if dock.isVisible():
+        """Send the job of every visible panel, cheapest first."""
+        rank = {k: i for i, k in enumerate(VIEW_ORDER)}
+        for key in sorted(self.panels, key=lambda k: rank.get(k, len(rank))):
+            if self.panels[key][1].isVisible():
                 self.refresh(key)
+
+    def _revision_inputs(self) -> tuple:
+        """``(snapshot, pairs, shared)`` of the document's current revision, made once per revision."""
+        rev = self._doc.revision
+        if self._shared is None or self._shared[0] != rev:
+            snapshot = self._doc.snapshot()
+            self._shared = (rev, snapshot, pairs_of(snapshot), SharedModel(snapshot))
+        return self._shared[1:]
 
     def refresh(self, key: str) -> None:
         """Send panel ``key``'s job for the document as it is now."""
         panel, _dock = self.panels[key]
-        snapshot = self._doc.snapshot()
-        pairs = pairs_of(snapshot)
+        snapshot, pairs, shared = self._revision_inputs()
         panel.set_pairs(pairs)
         try:
-            job = panel.job(snapshot, pairs)
+            job = panel.job(snapshot, pairs, shared)
         except Exception as err:  # noqa: BLE001 - a panel that cannot build its request says why
             panel.show_error(str(err))
             return
@@ -85,7 +116,7 @@ class ViewsController(QObject):
             self._fresh[key] = self._doc.revision
             return
         fn, args, kwargs = job
-        self.jobs.submit(key, fn, *args, progress=getattr(panel, "reports_progress", False), **kwargs)
+        self.jobs.submit(key, fn, *args, progress=getattr(panel, "reports_progress", False), slow=key in SLOW_VIEWS, **kwargs)
 
     def stop(self, key: str) -> None:
         """Stop panel ``key``'s computation (a job that reports progress ends at its next

@@ -192,3 +192,39 @@ def test_drawing_grid_is_exact_at_its_points_and_finds_the_same_peak(path, src, 
     (w_d, db_d), (w_c, db_c) = draw.peak(), dense.peak()
     assert db_d == pytest.approx(db_c, abs=1e-3)
     assert w_d == pytest.approx(w_c, rel=1e-3)
+
+
+def test_a_shared_model_assembles_once_and_gives_the_same_answers(monkeypatch):
+    # the views of one revision share one SharedModel: one assembly for all of them, the
+    # frequency view's responses reused by the singular-value view, and every answer the
+    # same as each view computing on its own. Reference for the poles: numpy's eigvals
+    # (LAPACK geev); for the step's DC gain: python-control's dcgain.
+    import loopwright.engine.interconnect as interconnect
+    from loopwright.engine.views_data import SharedModel, singular_value_views
+
+    d = load(str(SAMPLES / "conveyor_flexible_drive.lwd"))
+    pairs = [("r", "y")]
+    alone_f = frequency_views(d, pairs, drawing=True)
+    alone_t = time_views(d, pairs, "step")
+    calls = []
+    real = interconnect.assemble
+    monkeypatch.setattr(interconnect, "assemble", lambda *a, **k: calls.append(1) or real(*a, **k))
+    shared = SharedModel(d)
+    f = frequency_views(d, pairs, drawing=True, shared=shared)
+    sv = singular_value_views(d, pairs, drawing=True, shared=shared)
+    t = time_views(d, pairs, "step", shared=shared)
+    assert len(calls) == 1
+    assert frequency_views(d, pairs, drawing=True, shared=shared)[0] is f[0]  # computed once
+    assert_allclose(f[0].response, alone_f[0].response, rtol=1e-12)
+    assert_allclose(sv[0][0], f[0].w_rad_s)
+    assert_allclose(sv[0][1][:, 0], f[0].mag_db[:, 0, 0], rtol=1e-12)
+    assert_allclose(t[0].y, alone_t[0].y, rtol=1e-9, atol=1e-14)
+    model = real(d)
+    ev = np.linalg.eigvals(model.A)
+    gap = np.abs(shared.poles[:, None] - ev[None, :]).min(axis=1)  # each pole next to one of numpy's
+    assert shared.poles.size == ev.size and np.all(gap <= 1e-9 * np.abs(ev).max())
+    assert shared.stable == bool(ev.real.max() < 0)
+    A, B, C, D = model.pair(model.resolve_input("r"), model.resolve_signal("y"))
+    ref_dc = float(np.real(ct.dcgain(ct.ss(A, B, C, D))))
+    for metric in t[0].metrics.values():
+        assert_allclose(metric.steady_state, ref_dc, rtol=1e-9)

@@ -374,3 +374,95 @@ def test_an_edit_made_while_the_views_are_idle_is_computed_without_the_debounce(
         return mag is not None and mag.shape == want.shape and np.allclose(mag, want, rtol=1e-9)
 
     qtbot.waitUntil(shows_new, timeout=30000)
+
+
+def test_after_an_edit_the_four_views_show_the_engines_numbers_from_one_shared_model(window, wait_views, qtbot):
+    # frequency view, time view, pole map and loop-break view open; the gain K is edited
+    # (an undoable command, as the inspector does); each view then holds what the engine
+    # gives for the edited diagram, and the jobs of that revision shared one assembled model
+    from loopwright.engine.views_data import SharedModel, frequency_views
+    from loopwright.gui.commands import SetParams
+
+    path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+    _open_with_pairs(window, path, [("r", "y")])
+    for key in ("frequency", "time", "poles", "loop_break"):
+        window.view_docks[key].show()
+    wait_views(window)
+    shared_seen = []
+    submit = window.views.jobs.submit
+
+    def recording_submit(key, fn, *args, **kwargs):
+        shared_seen.append((key, kwargs.get("shared")))
+        return submit(key, fn, *args, **kwargs)
+
+    window.views.jobs.submit = recording_submit
+    doc = window.document
+    n = doc.diagram.block_by_name("N")
+    doc.push(SetParams(doc, n.id, dict(n.params, K=[[1.5 * float(np.asarray(n.params["K"]).ravel()[0])]])))
+    qtbot.waitUntil(lambda: {k for k, _ in shared_seen} >= {"frequency", "time", "poles"}, timeout=30000)
+    wait_views(window)
+    d = doc.snapshot()
+    # one SharedModel for the revision, handed to every view that uses the closed loop
+    shared = {id(s) for k, s in shared_seen if k in ("frequency", "time", "poles")}
+    assert len(shared) == 1 and isinstance(shared_seen[0][1], SharedModel)
+    want = frequency_views(d, [("r", "y")], drawing=True)[0]
+    _x, mag = window.panels["frequency"].curves[(("r", "y"), 0, 0)][0].getOriginalDataset()
+    assert_allclose(mag, want.mag_db[:, 0, 0], rtol=1e-9)
+    run = time_views(d, [("r", "y")], window.panels["time"].run_kind(), initial=None)[0]
+    tx, ty = window.panels["time"].curves[next(iter(window.panels["time"].curves))].getOriginalDataset()
+    if window.panels["time"].run_kind() == "step":
+        assert_allclose(ty, run.y[:, 0], rtol=1e-9, atol=1e-12)
+    x, y = window.panels["poles"].closed.getOriginalDataset()
+    assert_allclose(np.sort_complex(x + 1j * y), np.sort_complex(summarize(d).poles), rtol=1e-9, atol=1e-12)
+    at = d.settings.get("loop_break")
+    if at:
+        view = loop_break_view(d, at, limits=False)
+        assert_allclose(window.panels["loop_break"].data.margins.disk.alpha, view.margins.disk.alpha, rtol=1e-9)
+
+
+def test_an_answer_overtaken_by_an_edit_leaves_no_panel_busy(qtbot):
+    # a hidden panel's job is not sent again after an edit; its overtaken answer must not
+    # leave it counted as busy (the views would never be idle again, and every later edit
+    # would wait for the debounce)
+    import threading
+
+    from loopwright.gui.commands import SetParams
+    from loopwright.gui.document import Document
+    from loopwright.gui.workers import ViewJobs
+
+    doc = Document(load(SAMPLES[0]))
+    jobs = ViewJobs(doc)
+    release = threading.Event()
+    jobs.submit("noise", lambda: release.wait(10.0) and "answer")
+    assert jobs.is_busy("noise")
+    b = next(b for b in doc.diagram.blocks.values() if b.kind == "gain")
+    before = doc.revision
+    doc.push(SetParams(doc, b.id, dict(b.params, K=(2.0 * np.asarray(b.params["K"], dtype=float)).tolist())))
+    assert doc.revision != before  # a new revision while the job runs
+    delivered = []
+    jobs.result_ready.connect(delivered.append)
+    release.set()
+    qtbot.waitUntil(lambda: not jobs.is_busy("noise"), timeout=10000)
+    assert delivered == [] and jobs.discarded == 1 and jobs.worker_idle()
+    jobs.shutdown()
+
+
+def test_slow_views_run_beside_the_quick_ones(qtbot):
+    # a slow view's job (margins, noise budget, audit) on its own worker does not hold up
+    # a quick view's job submitted after it
+    import threading
+
+    from loopwright.gui.document import Document
+    from loopwright.gui.workers import ViewJobs
+
+    jobs = ViewJobs(Document(load(SAMPLES[0])))
+    release = threading.Event()
+    results = []
+    jobs.result_ready.connect(lambda r: results.append(r.key))
+    jobs.submit("loop_break", lambda: release.wait(10.0) and "margins", slow=True)
+    jobs.submit("frequency", lambda: "curves")
+    qtbot.waitUntil(lambda: results == ["frequency"], timeout=10000)
+    assert jobs.is_busy("loop_break") and jobs.worker_idle(quick_only=True) and not jobs.worker_idle()
+    release.set()
+    qtbot.waitUntil(lambda: results == ["frequency", "loop_break"], timeout=10000)
+    jobs.shutdown()
