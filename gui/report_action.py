@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from PySide6.QtCore import QBuffer, QByteArray, QIODevice, QObject, QRect, QRectF, Signal
+from PySide6.QtCore import QBuffer, QByteArray, QCoreApplication, QIODevice, QObject, QRect, QRectF, Qt, Signal
 from PySide6.QtGui import QColor, QPainter
 from PySide6.QtSvg import QSvgGenerator
 from PySide6.QtWidgets import QFileDialog, QGraphicsItem, QWidget
@@ -127,14 +127,39 @@ def open_view_pictures(window) -> tuple[list[Picture], list[str]]:
         if window.views._fresh.get(key) != revision or getattr(panel, "data", True) is None:
             skipped.append(title)
             continue
-        if dock.visibleRegion().isEmpty():
-            # behind a tab the panel was never laid out at a readable size: lay it out for the picture
-            panel.resize(max(panel.width(), _HIDDEN_VIEW_SIZE[0]), max(panel.height(), _HIDDEN_VIEW_SIZE[1]))
-            if panel.layout() is not None:
-                panel.layout().activate()
         note = panel.message.text() if panel.message.isVisible() else ""
-        pictures.append(Picture(f"{title} (as open in the app)", png=widget_png(panel.picture_widget()), note=note))
+        # behind a tab the panel was never laid out at a readable size: lay it out for the picture
+        png = _picture_of_hidden_panel(panel) if dock.visibleRegion().isEmpty() else widget_png(panel.picture_widget())
+        pictures.append(Picture(f"{title} (as open in the app)", png=png, note=note))
     return pictures, skipped
+
+
+def _picture_of_hidden_panel(panel) -> bytes:
+    """A PNG of a panel hidden behind a tab, laid out at least ``_HIDDEN_VIEW_SIZE``.
+
+    Behind a tab the panel keeps whatever size its dock had (a dock's layout overrides a
+    resize), and a panel that arranges itself by size (the loop-break view puts its plot
+    beside the list when wide) would be pictured squeezed. It is lifted out of its dock for
+    the picture, drawn offscreen at the readable size, and put back.
+    """
+    dock = panel.parentWidget()
+    w = max(panel.width(), _HIDDEN_VIEW_SIZE[0])
+    h = max(panel.height(), _HIDDEN_VIEW_SIZE[1])
+    panel.setParent(None)
+    panel.setAttribute(Qt.WidgetAttribute.WA_DontShowOnScreen, True)
+    try:
+        panel.resize(w, h)
+        panel.show()
+        QCoreApplication.sendPostedEvents(None, 0)
+        if panel.layout() is not None:
+            panel.layout().activate()
+        QCoreApplication.sendPostedEvents(None, 0)
+        return widget_png(panel.picture_widget())
+    finally:
+        panel.hide()
+        panel.setAttribute(Qt.WidgetAttribute.WA_DontShowOnScreen, False)
+        if dock is not None:
+            dock.setWidget(panel)
 
 
 def _build_and_write(snapshot, path: str, origin: str, diagram_picture, views, reading) -> str:
