@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtGui import QColor
+from PySide6.QtGui import QColor, QFont, QFontMetrics
 from PySide6.QtWidgets import QTableWidget, QTableWidgetItem
 
 from loopwright.engine.interconnect import assemble
@@ -46,6 +46,10 @@ class NoisePanel(PlotPanel):
         self.bars: dict[str, pg.BarGraphItem] = {}
         self.shown: list = []
         self.budget = None
+        self.tick_names: list[str] = []
+        self.tick_order: list[int] = []  # bars by RMS, largest first: the first to be named
+        self.plot.getViewBox().sigResized.connect(self._thin_ticks)
+        self.plot.getViewBox().sigXRangeChanged.connect(self._thin_ticks)
 
     def job(self, diagram, pairs, shared=None):
         outputs = list(dict.fromkeys(sig for _src, sig in pairs))
@@ -72,7 +76,10 @@ class NoisePanel(PlotPanel):
             item = self.bars.pop(src)
             self.plot.removeItem(item)
             self.legend.removeItem(item)
-        self.plot.getAxis("bottom").setTicks([[(float(i), b.name) for i, b in enumerate(bars)]])
+        self.tick_names = [b.name for b in bars]
+        # an infinite RMS (white noise passed straight through) draws no bar: named last
+        self.tick_order = sorted(range(len(bars)), key=lambda i: -bars[i].rms if np.isfinite(bars[i].rms) else np.inf)
+        self._thin_ticks()
         self._fill_table(budget, bars, sources)
         note = budget.message
         note = (note + "; " if note else "") + "each bar is the RMS, split in proportion to each source's share of the variance"
@@ -82,6 +89,27 @@ class NoisePanel(PlotPanel):
             note = (note + "; " if note else "") + "every signal (keep pairs to choose)"
         self.set_message(note)
         self.plot.enableAutoRange()
+
+    def _thin_ticks(self, *_args) -> None:
+        """Name the bars, the largest RMS first, keeping names apart by the widest name at
+        the plot's width (with every signal shown, seventeen names ran into one another);
+        the table names all."""
+        names = self.tick_names
+        axis = self.plot.getAxis("bottom")
+        if not names:
+            axis.setTicks([[]])
+            return
+        (x0, x1), width = self.plot.getViewBox().viewRange()[0], self.plot.getViewBox().width()
+        per_bar = width / max(x1 - x0, 1e-9)  # pixels from one bar to the next
+        metrics = QFontMetrics(axis.style.get("tickFont") or QFont())
+        widest = max(metrics.horizontalAdvance(n) for n in names) + 8
+        stride = max(1, int(np.ceil(widest / max(per_bar, 1e-9))))
+        named: list[int] = []
+        for i in self.tick_order:  # the tallest bars get their names first
+            if all(abs(i - j) >= stride for j in named):
+                named.append(i)
+        axis.setTicks([[(float(i), names[i]) for i in sorted(named)],
+                       [(float(i), "") for i in range(len(names)) if i not in named]])
 
     def _fill_table(self, budget, bars, sources) -> None:
         header = ["signal", "RMS"] + [f"share {s}" for s in sources] + [""]

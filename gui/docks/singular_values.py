@@ -51,8 +51,9 @@ class SingularValuePanel(PlotPanel):
         if errors:
             self.show_error("\n".join(errors))
         elif self.pairs:
-            scalar = all(v[1].shape[1] == 1 for v in self.data.values())
-            self.set_message("Every kept pair is scalar: its one singular value is its magnitude." if scalar else "")
+            single = all(v[1].shape[1] == 1 for v in self.data.values())
+            self.set_message("Every kept pair has a single input or a single output: its one singular value is the "
+                             "length of its response vector (the magnitude for a scalar pair)." if single else "")
         self.plot.enableAutoRange()
 
     def plot_scene_item(self):

@@ -139,6 +139,28 @@ def test_noise_budget_bars_and_table_equal_the_engine(window, wait_views, path):
     assert panel.table_widget.item(0, 1).text() == f"{bars[0].rms:.4g}"
 
 
+@pytest.mark.parametrize("size", [(1400, 900), (900, 600)])
+def test_noise_budget_names_never_overlap_and_the_largest_bar_is_named(window, wait_views, size):
+    # every signal of the rotor (no pair kept): sixteen bars in a dock a third of the window
+    # wide. Common practice, no source: axis labels must not run into one another.
+    from PySide6.QtGui import QFont, QFontMetrics
+
+    window.resize(*size)
+    _open_with_pairs(window, [p for p in SAMPLES if "rotor" in p.stem][0], [])
+    panel = _show(window, "noise", wait_views)
+    axis = panel.plot.getAxis("bottom")
+    named = axis._tickLevels[0]
+    assert named and len(named) < len(panel.shown)
+    finite = [b.rms if np.isfinite(b.rms) else -1.0 for b in panel.shown]
+    assert panel.shown[int(np.argmax(finite))].name in {n for _x, n in named}
+    (x0, x1), width = panel.plot.getViewBox().viewRange()[0], panel.plot.getViewBox().width()
+    metrics = QFontMetrics(axis.style.get("tickFont") or QFont())
+    xs = sorted(named)
+    for (xa, na), (xb, nb) in zip(xs, xs[1:]):
+        gap = (xb - xa) * width / (x1 - x0)
+        assert gap >= (metrics.horizontalAdvance(na) + metrics.horizontalAdvance(nb)) / 2, (na, nb)
+
+
 @pytest.mark.parametrize("path", SAMPLES, ids=[p.stem for p in SAMPLES])
 def test_audit_row_lights_exactly_its_path_and_shows_it_in_the_frequency_view(window, wait_views, path):
     _open_with_pairs(window, path, [])
