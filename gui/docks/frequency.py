@@ -48,8 +48,8 @@ class FrequencyPanel(PlotPanel):
         self.canvas = new_layout_widget()
         # the legend has its own row above the plots: one entry per pair, never over a curve
         self.legend = legend_row(self.canvas, 0, columns=2)
-        self.mag = themed_plot(self.canvas, 1, left="magnitude (dB)", bottom=None, log_x=True)
-        self.phase = themed_plot(self.canvas, 2, left="phase (deg)", bottom="frequency (rad/s)", log_x=True)
+        self.mag = themed_plot(self.canvas, 1, left="dB", bottom=None, log_x=True)
+        self.phase = themed_plot(self.canvas, 2, left="phase (°)", bottom="frequency (rad/s)", log_x=True)
         self.phase.setXLink(self.mag)
         self._layout.addWidget(self.canvas, 1)
         self.cursor_mag = pg.InfiniteLine(angle=90, movable=True, pen=pg.mkPen("#5b6573", width=1, style=Qt.PenStyle.DashLine))
