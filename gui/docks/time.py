@@ -114,9 +114,17 @@ class TimePanel(PlotPanel):
         self.runs: dict[tuple, object] = {}
         self._estimators: list[str] = []
         self.set_message("No pair yet: right-click a wire and choose “look here”.")
+        self._enable_initial()
 
     def _on_options(self, *_args) -> None:
+        self._enable_initial()
         self.options_changed.emit()
+
+    def _enable_initial(self) -> None:
+        """The initial state is read by an initial-state run, and by a source run drawing the
+        estimation error; for a step or impulse it is greyed out, so no one expects it to count."""
+        kind = self.run_kind()
+        self.initial.setEnabled(kind == "initial" or (kind == "sources" and self.show_error_box.isChecked()))
 
     def run_kind(self) -> str:
         return self.kind.currentData()

@@ -77,6 +77,19 @@ def test_time_view_shows_the_estimation_error_from_an_initial_state(window, wait
     assert e1[0] == pytest.approx(1.0) and abs(e1[-1]) < 1e-3  # the estimator catches up
 
 
+def test_the_initial_state_field_is_enabled_only_for_runs_that_read_it(window, wait_views):
+    # a step or impulse run ignores the initial state: the field is greyed out then
+    _open_with_pairs(window, next(p for p in SAMPLES if p.stem == "levitated_rotor_axis"), [("r", "y")])
+    panel = _show(window, "time", wait_views)
+    states = {}
+    for kind, error in [("step", False), ("impulse", True), ("initial", False), ("sources", False), ("sources", True)]:
+        panel.set_run_kind(kind)
+        panel.show_error_box.setChecked(error)
+        states[kind, error] = panel.initial.isEnabled()
+    assert states == {("step", False): False, ("impulse", True): False, ("initial", False): True,
+                      ("sources", False): False, ("sources", True): True}
+
+
 @pytest.mark.parametrize("path", SAMPLES, ids=[p.stem for p in SAMPLES])
 def test_pole_map_shows_the_closed_loop_and_the_designed_poles(window, wait_views, path):
     _open_with_pairs(window, path, [])
