@@ -44,7 +44,7 @@ import scipy.linalg as sla
 from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
 from loopwright.engine.errors import EngineError
 from loopwright.engine.coupled_poles import closed_loop_poles, h2_by_residues, residue_factors
-from loopwright.engine.eigen import _AXIS_ULPS, matrix_scale
+from loopwright.engine.eigen import axis_tolerance, matrix_scale
 from loopwright.engine.norms import dc_gain, h2_norm, lyapunov_from_schur, sigma_max
 from loopwright.engine.responses import ReducedModel, auto_frequency_grid, reduce_model
 
@@ -329,7 +329,7 @@ def path_audit(
     # of a stiff model (|T| ~ wn^2) as unstable. A rounding-split Jordan block of poles at
     # the origin always keeps a member with Re p >= 0, whose eigenvector (nearly parallel
     # to its partners') carries the reach of the whole block, so no cluster rule is needed.
-    axis_tol = _AXIS_ULPS * np.finfo(float).eps * np.maximum(matrix_scale(A), np.abs(poles)) if n else np.zeros(0)
+    axis_tol = axis_tolerance(poles, matrix_scale(A)) if n else np.zeros(0)
     bad = [k for k in range(n) if poles[k].real >= -axis_tol[k]]
     model_stable = not bad
     Ct_all = red.output_matrix(C) if n else np.zeros((C.shape[0], 0), dtype=complex)

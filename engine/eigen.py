@@ -30,6 +30,7 @@ __all__ = [
     "classify_poles",
     "pole_regions",
     "matrix_scale",
+    "axis_tolerance",
     "eigen_sensitivity",
     "trustworthy_digits",
     "format_pole",
@@ -38,6 +39,14 @@ __all__ = [
 _EPS = float(np.finfo(float).eps)
 # Rounding allowance, in units of eps * scale, for a simple eigenvalue on the axis.
 _AXIS_ULPS = 1e3
+
+
+def axis_tolerance(poles, scale: float) -> np.ndarray:
+    """How far from the imaginary axis rounding can put each of ``poles`` (simple poles of a
+    matrix whose balanced size is ``scale``): ``1e3 eps max(scale, |p|)``. A pole with
+    ``|Re p|`` within it is on the axis; the check command, the audit and the margins
+    share this rule."""
+    return _AXIS_ULPS * _EPS * np.maximum(scale, np.abs(np.asarray(poles)))
 
 
 @dataclass(frozen=True)
@@ -142,7 +151,7 @@ def pole_regions(poles, *, scale: float) -> np.ndarray:
     labels = np.empty(n, dtype=object)
     labels[order[:origin]] = "origin"
     rest = order[origin:]
-    tol = _AXIS_ULPS * _EPS * np.maximum(s, np.abs(p[rest]))
+    tol = axis_tolerance(p[rest], s)
     re = p[rest].real
     labels[rest] = np.where(np.abs(re) <= tol, "axis", np.where(re > tol, "rhp", "lhp"))
     return labels.astype(str)

@@ -880,7 +880,7 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
     """
     from loopwright.engine.blockwise_response import BlockwiseModel, whole_model_cost
     from loopwright.engine.coupled_poles import closed_loop_poles
-    from loopwright.engine.eigen import _AXIS_ULPS
+    from loopwright.engine.eigen import axis_tolerance
     from loopwright.engine.interconnect import assemble
 
     cols, rows = opened.input_slice(f"break:{base}"), opened.signal_slice(opened.break_return)
@@ -906,9 +906,8 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
     ol, cl = closed_loop_poles(bw_open), closed_loop_poles(bw_closed)
     if ol is None or cl is None:
         return None
-    eps = np.finfo(float).eps
     scale = matrix_scale(closed.A)  # the open loop differs by a coupling of low rank: one balancing serves both
-    if np.any(cl.real >= -_AXIS_ULPS * eps * np.maximum(scale, np.abs(cl))):
+    if np.any(cl.real >= -axis_tolerance(cl, scale)):
         return None  # unstable or marginal: the other route classifies the gain intervals
     d = -float(opened.D[rows, cols][0, 0])
     if _ill_posed(np.array([[d]])):

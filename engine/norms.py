@@ -67,13 +67,14 @@ class H2Norm:
     reason: str = ""
 
 
-def is_stable_matrix(A, *, margin: float = 0.0) -> bool:
+def is_stable_matrix(A, *, margin: float = 0.0, eigenvalues=None) -> bool:
     """True when every eigenvalue of ``A`` has real part below ``-margin`` (and a little
-    slack for rounding: ``-1e-12 max(1, ||A||)``)."""
+    slack for rounding: ``-1e-12 max(1, ||A||)``). ``eigenvalues`` may give ``A``'s
+    eigenvalues when they are known already."""
     A = np.atleast_2d(np.asarray(A, dtype=float))
     if A.shape[0] == 0:
         return True
-    ev = sla.eigvals(A)
+    ev = sla.eigvals(A) if eigenvalues is None else np.asarray(eigenvalues)
     slack = 1e-12 * max(1.0, np.linalg.norm(A, 1))
     return bool(np.max(ev.real) < -max(margin, slack))
 

@@ -106,16 +106,10 @@ class SharedModel:
 
     @property
     def stable(self) -> bool:
-        """True when every pole has a negative real part (the slack of
-        :func:`norms.is_stable_matrix`)."""
-        def make():
-            A = self.model.A
-            if A.shape[0] == 0:
-                return True
-            slack = 1e-12 * max(1.0, float(np.linalg.norm(A, 1)))
-            return bool(np.max(self.poles.real) < -slack)
+        """True when every pole has a negative real part (:func:`norms.is_stable_matrix`)."""
+        from loopwright.engine.norms import is_stable_matrix
 
-        return self._get("stable", make)
+        return self._get("stable", lambda: is_stable_matrix(self.model.A, eigenvalues=self.poles if self.model.A.size else None))
 
     @property
     def report(self):
