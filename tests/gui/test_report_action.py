@@ -112,6 +112,7 @@ def test_report_draws_views_behind_a_tab_readably_and_leaves_the_selection_out(w
     # the plot sits beside the margins list at the picture size: an aspect-locked Nyquist
     # plot wants a square of at least 350 px (the dock behind the tab gave it 332 x 129)
     assert min(img.width(), img.height()) >= 350
+    assert window.view_docks["loop_break"].widget() is window.panels["loop_break"]  # put back in its dock
     k = window.scene.block_items[window.document.diagram.block_by_name("K").id]
     plain = scene_svg(window.scene)
     with qtbot.waitSignal(window.scene.selectionChanged, timeout=5000):
