@@ -39,6 +39,10 @@ __all__ = [
 _EPS = float(np.finfo(float).eps)
 # Rounding allowance, in units of eps * scale, for a simple eigenvalue on the axis.
 _AXIS_ULPS = 1e3
+# Eigenvalues closer than this many times the sum of their first-order bounds are treated
+# as one cluster (common practice, no source: first-order bounds hold for perturbations
+# well below the separation).
+_GAP_FACTOR = 10.0
 
 
 def axis_tolerance(poles, scale: float) -> np.ndarray:
@@ -171,12 +175,19 @@ class EigenSensitivity:
     error_bound : (n,) ndarray
         ``kappa_i * eps * ||A_bal||_F``: how far rounding in the computation can have
         moved each eigenvalue (first order; a defective or tightly clustered eigenvalue
-        can move further, and its ``kappa`` is then huge as a warning).
+        can move further, and its ``kappa`` is then huge as a warning), or the cluster
+        bound where that is smaller (a defective eigenvalue's first-order bound is
+        infinite).
+    cluster_bound : (n,) ndarray or None
+        For the members of a cluster (eigenvalues closer than ten times their first-order
+        bounds): a bound that holds however close they are (Henrici's theorem on the
+        cluster's Schur block); ``inf`` for the others.
     """
 
     values: np.ndarray
     condition: np.ndarray
     error_bound: np.ndarray
+    cluster_bound: np.ndarray | None = None
 
     @property
     def worst_condition(self) -> float:
@@ -206,7 +217,7 @@ def eigen_sensitivity(A) -> EigenSensitivity:
     n = A.shape[0]
     if n == 0:
         e = np.zeros(0)
-        return EigenSensitivity(e.astype(complex), e, e)
+        return EigenSensitivity(e.astype(complex), e, e, e)
     Ab, _ = sla.matrix_balance(A, permute=True, separate=False)
     w, vl, vr = sla.eig(Ab, left=True, right=True)
     vl = vl / np.linalg.norm(vl, axis=0)
@@ -214,8 +225,88 @@ def eigen_sensitivity(A) -> EigenSensitivity:
     s = np.abs(np.sum(vl.conj() * vr, axis=0))
     with np.errstate(divide="ignore"):
         kappa = np.where(s > 0, 1.0 / np.maximum(s, 1e-300), np.inf)
-    bound = kappa * _EPS * max(float(np.linalg.norm(Ab, "fro")), _EPS)
-    return EigenSensitivity(np.asarray(w, dtype=complex), kappa, bound)
+    size = max(float(np.linalg.norm(Ab, "fro")), _EPS)
+    bound = kappa * _EPS * size
+    w = np.asarray(w, dtype=complex)
+    cluster = _cluster_bounds(Ab, w, bound, size)
+    return EigenSensitivity(w, kappa, np.minimum(bound, cluster), cluster)
+
+
+def _clusters(values: np.ndarray, bound: np.ndarray, size: float) -> list[np.ndarray]:
+    """Groups of two or more eigenvalues closer than ``_GAP_FACTOR`` times their rounding
+    bounds (chained).
+
+    A disc's radius is the first-order bound, capped at ``size eps^(1/n)`` (how far an
+    ``n``-fold defective eigenvalue of a matrix of that size can move): a defective
+    eigenvalue has an infinite first-order bound, and the cap keeps it from swallowing
+    eigenvalues far away from it.
+    """
+    n = values.size
+    r = np.minimum(bound, size * _EPS ** (1.0 / n))
+    parent = np.arange(n)
+
+    def root(i):
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    # a first-order bound means little unless it is well below the gap: the members of a
+    # perturbed k-fold eigenvalue sit on a circle about as wide as their own bounds
+    close = np.abs(values[:, None] - values[None, :]) <= _GAP_FACTOR * (r[:, None] + r[None, :])
+    for i, j in zip(*np.nonzero(np.triu(close, 1))):
+        a, b = root(i), root(j)
+        if a != b:
+            parent[b] = a
+    roots = np.array([root(i) for i in range(n)])
+    return [np.flatnonzero(roots == g) for g in np.unique(roots) if np.count_nonzero(roots == g) > 1]
+
+
+def _cluster_bounds(Ab: np.ndarray, values: np.ndarray, bound: np.ndarray, size: float) -> np.ndarray:
+    """Bounds for the members of clusters of eigenvalues (``inf`` for the others).
+
+    The first-order bound ``kappa eps ||A||`` is infinite for a defective eigenvalue (a
+    chain of integrators) and huge in a tight cluster. For a cluster of ``k`` eigenvalues
+    the Schur form is reordered to put it first (LAPACK ``ztrsen``, which also returns
+    ``1/||P||``, ``P`` the cluster's spectral projector). Decoupling the cluster from the
+    rest amplifies a backward error ``n eps ||A||`` by at most ``||P||``, and Henrici's
+    theorem bounds how far the eigenvalues of the cluster's triangular block ``D + N``
+    then move: by ``max(theta, theta^(1/k))`` with ``theta = ||E|| sum_{j<k} ||N||^j``
+    (G. H. Golub and C. F. Van Loan, Matrix Computations, Theorem 7.2.3, from memory),
+    applied to ``A / ||A||`` so the bound does not depend on units. Unlike the first-order
+    bound it holds however close the members are (a 4-fold defective zero moves by
+    about eps^(1/4), where ``kappa`` is infinite), but it is often pessimistic.
+    """
+    out = np.full(values.size, np.inf)
+    bad = bound > 1e3 * _EPS * size
+    groups = [g for g in _clusters(values, bound, size) if np.any(bad[g])]
+    if not groups:
+        return out
+    T, Z = sla.schur(Ab.astype(complex), output="complex")
+    diag = np.diag(T).copy()
+    n = values.size
+    for g in groups:
+        k = g.size
+        free = np.ones(n, dtype=bool)
+        select = np.zeros(n, dtype=np.int32)
+        for v in values[g]:  # the Schur diagonal entries matching this cluster's members
+            i = int(np.argmin(np.where(free, np.abs(diag - v), np.inf)))
+            free[i] = False
+            select[i] = 1
+        if k < n:
+            Ts, _, _, _, s, _, info = sla.lapack.ztrsen(select, T, Z, job="E", wantq=0, lwork=max(1, 2 * k * (n - k)))
+            if info != 0 or not s > 0:
+                continue
+            projector = 1.0 / s
+        else:
+            Ts, projector = T, 1.0
+        block = Ts[:k, :k] / size
+        nil = np.linalg.norm(np.triu(block, 1), 2)
+        # backward error of the Schur form: n eps ||A|| (the modest growth factor of the QR
+        # algorithm taken as n; under a k-th root it matters, unlike in first-order bounds)
+        theta = projector * n * _EPS * float(np.sum(nil ** np.arange(k)))
+        out[g] = size * max(theta, theta ** (1.0 / k))
+    return out
 
 
 def trustworthy_digits(value: complex, bound: float, *, max_digits: int = 6) -> int:
@@ -231,7 +322,8 @@ def trustworthy_digits(value: complex, bound: float, *, max_digits: int = 6) -> 
 
 def format_pole(p: complex, bound: float, *, max_digits: int = 6) -> str:
     """A pole with only its trustworthy digits: ``-4.36 +- 0.21j``, or
-    ``-4 (+-8, not trustworthy)`` when rounding may move it by more than its size allows.
+    ``-4 (+-8, not trustworthy)`` when rounding may move it by more than its size allows,
+    ``0 (+-1.1e-05)`` when it may be zero (rounding may move it further than it lies from 0).
 
     An imaginary part smaller than the bound is dropped: the pole may be real.
     """
@@ -240,6 +332,10 @@ def format_pole(p: complex, bound: float, *, max_digits: int = 6) -> str:
     digits = trustworthy_digits(p, bound, max_digits=max_digits)
     if digits >= max_digits:
         return fmt_complex(p, digits=max_digits)
+    if digits == 0 and abs(complex(p)) <= 0.5 * bound and np.isfinite(bound):
+        # rounding cannot tell this pole from zero (an integrator, or a cluster of them);
+        # the true pole lies within |p| + bound of 0
+        return f"0 (+-{fmt_num(abs(complex(p)) + bound, digits=2)})"
     if digits == 0:
         return f"{fmt_num(p.real, digits=1)} (+-{fmt_num(bound, digits=2)}, not trustworthy)"
     shown = complex(p.real, 0.0) if abs(p.imag) <= bound else p
