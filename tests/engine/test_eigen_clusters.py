@@ -12,7 +12,6 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
 from loopwright.engine.eigen import eigen_sensitivity, format_pole
 
 
