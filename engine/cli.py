@@ -16,6 +16,7 @@ import numpy as np
 from loopwright.engine import CAUTION, __version__
 from loopwright.engine.check import pole_table, summarize
 from loopwright.engine.cli_common import fmt_complex, fmt_num, load_diagram, print_json
+from loopwright.engine.blas_threads import limit_blas_threads
 from loopwright.engine.eigen import format_pole, trustworthy_digits
 from loopwright.engine.cli_options import bounded_int
 from loopwright.engine.errors import EngineError
@@ -208,6 +209,7 @@ def main(argv: list[str] | None = None, *, diagram_renderer=None) -> int:
     if not getattr(args, "run", None):
         parser.print_help()
         return 2
+    limit_blas_threads(1)  # see engine/blas_threads.py: busy cores make OpenBLAS's teams wait
     # Overflow inside numpy is not news for the user: the engine's guards name the bad
     # number, and a result that is not finite is reported as such; a warning printed in
     # the middle of the output would only add lines.
