@@ -298,7 +298,7 @@ def pole_digits(poles, bounds, *, scale: float) -> list[int]:
     """
     from loopwright.engine.eigen import pole_regions, trustworthy_digits
 
-    regions = pole_regions(poles, scale=scale) if len(poles) else []
+    regions = pole_regions(poles, scale=scale, bounds=bounds) if len(poles) else []
     return [trustworthy_digits(scale if r == "origin" and scale > 0 else p, b) for p, b, r in zip(poles, bounds, regions)]
 
 
@@ -322,7 +322,7 @@ def summarize(diagram: Diagram) -> CheckReport:
         if sep_poles is not None:
             poles, bounds, source = sep_poles, sep_bounds, "separation"
     scale = matrix_scale(model.A)
-    classes = classify_poles(poles, scale=scale)
+    classes = classify_poles(poles, scale=scale, bounds=bounds)
     if classes.on_axis:
         m = classes.on_axis
         warnings.append(f"{m} pole{'s' if m > 1 else ''} on the imaginary axis ({classes.phrase()}): the loop is at best marginally stable")

@@ -109,7 +109,7 @@ def matrix_scale(A) -> float:
     return float(np.linalg.norm(Ab, 1))
 
 
-def classify_poles(poles, *, scale: float) -> PoleClasses:
+def classify_poles(poles, *, scale: float, bounds=None) -> PoleClasses:
     """Count poles in the open right half-plane, at the origin, on the rest of the axis.
 
     Parameters
@@ -118,16 +118,22 @@ def classify_poles(poles, *, scale: float) -> PoleClasses:
         Eigenvalues as computed (with rounding).
     scale : float
         Size of the matrix they came from (:func:`matrix_scale`).
+    bounds : (n,) array_like, optional
+        How far rounding may have moved each pole (:attr:`EigenSensitivity.error_bound`).
 
     Notes
     -----
-    A pole is on the axis when ``|Re p| <= 1e3 eps max(scale, |p|)``. A cluster of ``k``
-    poles nearest the origin counts as ``k`` poles at the origin when its radius is at
-    most ``(1e3 eps)^(1/k) scale`` (how far rounding moves a ``k``-fold defective zero)
-    and its mean is within ``1e-3`` of its radius of zero (a perturbed Jordan block
-    splits symmetrically; real poles near zero do not).
+    A pole is on the axis when ``|Re p| <= 1e3 eps max(scale, |p|)``. With ``bounds``, a
+    pole is at the origin when rounding may have moved it there from zero: ``|p|`` within
+    its bound (or within ``1e3 eps scale``). Without them, a cluster of ``k`` poles
+    nearest the origin counts as ``k`` poles at the origin when its radius is at most
+    ``(1e3 eps)^(1/k) scale`` (how far rounding moves a ``k``-fold defective zero) and its
+    mean is within ``1e-3`` of its radius of zero (a perturbed Jordan block splits
+    symmetrically; real poles near zero do not). That guess cannot tell lightly damped
+    modes of a stiff matrix (poles at +-1e3 j beside a norm of 1e6) from a split multiple
+    zero; the bounds can (theirs are 1e-9, a split zero's are as large as the split).
     """
-    labels = pole_regions(poles, scale=scale)
+    labels = pole_regions(poles, scale=scale, bounds=bounds)
     return PoleClasses(
         open_rhp=int(np.sum(labels == "rhp")),
         origin=int(np.sum(labels == "origin")),
@@ -136,12 +142,22 @@ def classify_poles(poles, *, scale: float) -> PoleClasses:
     )
 
 
-def pole_regions(poles, *, scale: float) -> np.ndarray:
+def pole_regions(poles, *, scale: float, bounds=None) -> np.ndarray:
     """Where each pole lies: ``"origin"``, ``"axis"``, ``"rhp"`` or ``"lhp"`` (same order as
     ``poles``; the rules of :func:`classify_poles`)."""
     p = np.asarray(poles, dtype=complex).ravel()
     n = p.size
     s = max(float(scale), 0.0)
+    if bounds is not None:
+        b = np.asarray(bounds, dtype=float).ravel()
+        at_origin = np.abs(p) <= np.maximum(np.where(np.isfinite(b), b, np.inf), _AXIS_ULPS * _EPS * s)
+        labels = np.empty(n, dtype=object)
+        labels[at_origin] = "origin"
+        rest = np.flatnonzero(~at_origin)
+        tol = axis_tolerance(p[rest], s)
+        re = p[rest].real
+        labels[rest] = np.where(np.abs(re) <= tol, "axis", np.where(re > tol, "rhp", "lhp"))
+        return labels.astype(str)
     order = np.argsort(np.abs(p), kind="stable")
     origin = 0
     for k in range(n, 0, -1):

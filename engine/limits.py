@@ -165,7 +165,7 @@ def performance_limits(A, B, C, D=None, *, closed_loop_stable: bool = True, gain
     sens = eigen_sensitivity(Am)
     poles = sens.values
     scale = matrix_scale(Am)
-    in_rhp = pole_regions(poles, scale=scale) == "rhp" if n else np.zeros(0, bool)
+    in_rhp = pole_regions(poles, scale=scale, bounds=sens.error_bound) == "rhp" if n else np.zeros(0, bool)
     rhp_p = np.sort_complex(poles[in_rhp])
     theory_err = float(np.pi * np.sum(sens.error_bound[in_rhp])) if n else 0.0
     try:

@@ -93,3 +93,49 @@ def test_cluster_bounds_hold_on_random_disguised_jordan_blocks(value, k, couplin
     assert np.all(np.isfinite(s.cluster_bound[members]))
     assert np.all(err[members] <= s.cluster_bound[members]), (err, s.cluster_bound)
     assert np.all(err[~members] <= 10 * s.error_bound[~members])
+
+
+def _stiff_frame():
+    # companion-form modes [[0, 1], [-wn^2, -2 zeta wn]] (closed form: poles -zeta wn +- j wn sqrt(1 - zeta^2)):
+    # a fast actuator mode (1e6 rad/s, zeta 0.7) makes ||A|| ~ 1e6 beside structural modes with zeta = 1e-4
+    from loopwright.engine.diagram import Diagram
+
+    wn, zeta = [1e6, 1e3, 3e3, 1e4], [0.7, 1e-4, 1e-4, 1e-4]
+    A = np.zeros((8, 8))
+    for i, (w, z) in enumerate(zip(wn, zeta)):
+        A[2 * i, 2 * i + 1], A[2 * i + 1, 2 * i], A[2 * i + 1, 2 * i + 1] = 1.0, -w * w, -2.0 * z * w
+    B = np.zeros((8, 1))
+    B[1::2] = 1.0
+    C = np.zeros((1, 8))
+    C[0, 0::2] = 1.0
+    d = Diagram()
+    d.add_block("source", "shaker", {"role": "disturbance", "width": 1, "waveform": {"kind": "zero"}})
+    d.add_block("plant", "frame", {"A": A.tolist(), "B": B.tolist(), "C": C.tolist(), "D": [[0.0]]})
+    d.connect("shaker.out", "frame.u")
+    return d, A
+
+
+def test_lightly_damped_modes_of_a_stiff_matrix_are_not_called_origin_poles():
+    # closed form: every pole has Re p = -zeta wn < 0, so the frame is asymptotically stable; the
+    # poles' rounding bounds (~1e-9) are far below their distance from zero (1e3 and more)
+    from loopwright.engine.check import summarize
+    from loopwright.engine.eigen import classify_poles, matrix_scale
+
+    d, A = _stiff_frame()
+    rep = summarize(d)
+    assert (rep.pole_classes.origin, rep.pole_classes.open_lhp) == (0, 8)
+    assert not any("imaginary axis" in w for w in rep.warnings), rep.warnings
+    s = eigen_sensitivity(A)
+    assert classify_poles(s.values, scale=matrix_scale(A), bounds=s.error_bound).open_lhp == 8
+
+
+def test_a_split_multiple_zero_still_counts_at_the_origin_with_bounds():
+    # a disguised 4-fold defective zero (exact eigenvalues 0, 0, 0, 0; closed form) computes as a
+    # circle of radius ~1e-4: within the cluster bound, so four poles at the origin
+    from loopwright.engine.eigen import classify_poles, matrix_scale
+
+    A = _jordan_in_disguise(0.0, 4, [-5.0, -7.0, -9.0, -11.0], seed=3)
+    s = eigen_sensitivity(A)
+    assert np.min(np.abs(s.values[np.abs(s.values) < 1])) > 1e-6  # really split by rounding
+    c = classify_poles(s.values, scale=matrix_scale(A), bounds=s.error_bound)
+    assert (c.origin, c.open_rhp, c.open_lhp) == (4, 0, 4)
