@@ -123,15 +123,15 @@ def classify_poles(poles, *, scale: float, bounds=None) -> PoleClasses:
 
     Notes
     -----
-    A pole is on the axis when ``|Re p| <= 1e3 eps max(scale, |p|)``. With ``bounds``, a
-    pole is at the origin when rounding may have moved it there from zero: ``|p|`` within
-    its bound (or within ``1e3 eps scale``). Without them, a cluster of ``k`` poles
-    nearest the origin counts as ``k`` poles at the origin when its radius is at most
-    ``(1e3 eps)^(1/k) scale`` (how far rounding moves a ``k``-fold defective zero) and its
-    mean is within ``1e-3`` of its radius of zero (a perturbed Jordan block splits
-    symmetrically; real poles near zero do not). That guess cannot tell lightly damped
-    modes of a stiff matrix (poles at +-1e3 j beside a norm of 1e6) from a split multiple
-    zero; the bounds can (theirs are 1e-9, a split zero's are as large as the split).
+    A pole is on the axis when ``|Re p| <= 1e3 eps max(scale, |p|)``. A cluster of ``k``
+    poles nearest the origin counts as ``k`` poles at the origin when its radius is at
+    most ``(1e3 eps)^(1/k) scale`` (how far rounding moves a ``k``-fold defective zero),
+    its mean is within ``1e-3`` of its radius of zero (a perturbed Jordan block splits
+    symmetrically; real poles near zero do not) and, given ``bounds``, rounding can reach
+    zero from every member (``|p|`` within its bound or ``1e3 eps scale``). Without the
+    bounds the rule cannot tell lightly damped modes of a stiff matrix (poles at +-1e3 j
+    beside a norm of 1e6) from a split multiple zero; with them it can (their bounds are
+    1e-9; a split zero's are as large as the split).
     """
     labels = pole_regions(poles, scale=scale, bounds=bounds)
     return PoleClasses(
@@ -148,23 +148,18 @@ def pole_regions(poles, *, scale: float, bounds=None) -> np.ndarray:
     p = np.asarray(poles, dtype=complex).ravel()
     n = p.size
     s = max(float(scale), 0.0)
-    if bounds is not None:
-        b = np.asarray(bounds, dtype=float).ravel()
-        at_origin = np.abs(p) <= np.maximum(np.where(np.isfinite(b), b, np.inf), _AXIS_ULPS * _EPS * s)
-        labels = np.empty(n, dtype=object)
-        labels[at_origin] = "origin"
-        rest = np.flatnonzero(~at_origin)
-        tol = axis_tolerance(p[rest], s)
-        re = p[rest].real
-        labels[rest] = np.where(np.abs(re) <= tol, "axis", np.where(re > tol, "rhp", "lhp"))
-        return labels.astype(str)
+    # with bounds, a pole may count at the origin only if rounding can reach zero from it
+    reach = np.full(n, True) if bounds is None else (
+        np.abs(p) <= np.maximum(np.asarray(bounds, dtype=float).ravel(), _AXIS_ULPS * _EPS * s))
     order = np.argsort(np.abs(p), kind="stable")
     origin = 0
     for k in range(n, 0, -1):
         sel = p[order[:k]]
         radius = float(np.abs(sel).max())
         if radius == 0.0 or (
-            radius <= (_AXIS_ULPS * _EPS) ** (1.0 / k) * s and abs(sel.mean()) <= 1e-3 * radius + _AXIS_ULPS * _EPS * s
+            radius <= (_AXIS_ULPS * _EPS) ** (1.0 / k) * s
+            and abs(sel.mean()) <= 1e-3 * radius + _AXIS_ULPS * _EPS * s
+            and bool(np.all(reach[order[:k]]))
         ):
             origin = k
             break

@@ -139,3 +139,16 @@ def test_a_split_multiple_zero_still_counts_at_the_origin_with_bounds():
     assert np.min(np.abs(s.values[np.abs(s.values) < 1])) > 1e-6  # really split by rounding
     c = classify_poles(s.values, scale=matrix_scale(A), bounds=s.error_bound)
     assert (c.origin, c.open_rhp, c.open_lhp) == (4, 0, 4)
+
+
+def test_an_ill_conditioned_cascade_away_from_zero_is_not_called_an_origin_cluster():
+    # closed form: A = -I + 10 N (30 identical stages in a chain, N the shift) has one eigenvalue, -1,
+    # 30-fold and defective: rounding scatters the computed ones widely (their bounds reach past 0),
+    # yet they are centred on -1, not on 0, so none of them is an origin pole
+    from loopwright.engine.eigen import classify_poles, matrix_scale
+
+    A = -np.eye(30) + 10.0 * np.eye(30, k=1)
+    s = eigen_sensitivity(A)
+    assert np.any(np.abs(s.values) <= s.error_bound)  # rounding alone cannot rule zero out
+    c = classify_poles(s.values, scale=matrix_scale(A), bounds=s.error_bound)
+    assert c.origin == 0 and c.open_lhp + c.open_rhp + c.imaginary_axis == 30
