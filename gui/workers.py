@@ -1,9 +1,14 @@
 """Keeps the live model of the open diagram up to date without freezing the window.
 
-After each edit the document's ``changed`` signal restarts a short single-shot timer
-(debounce). When it fires, a deep snapshot of the diagram is sent, tagged with the
-document's revision, to a one-worker executor. The worker validates, computes signal
-widths and the check report (all through the engine). Its result comes back through a
+An edit made while the live check is idle is checked at once (on the next turn of the
+event loop, so the steps of one command count once); edits arriving while a check still
+runs restart a short single-shot timer (the debounce), so a burst is checked once. A deep
+snapshot of the diagram is sent, tagged with the document's revision, to a one-worker
+executor. The worker validates, computes signal widths and the check report (all through
+the engine). Where the window's views share one
+:class:`~loopwright.engine.views_data.SharedModel` per revision, the check takes the
+snapshot and the report from it (:meth:`LiveModel.share_with`): the pole map and the
+status bar then come from one assembly and one eigen-decomposition. Its result comes back through a
 Qt signal emitted from the worker thread to an object living on the GUI thread, so Qt
 queues the delivery; a result whose revision is no longer the document's is dropped.
 """
@@ -80,8 +85,13 @@ class LiveResult:
     error: str | None = None
 
 
-def compute_live_result(diagram: Diagram, revision: int) -> LiveResult:
-    """Validate and summarise a diagram snapshot (runs on the worker thread)."""
+def compute_live_result(diagram: Diagram, revision: int, shared=None) -> LiveResult:
+    """Validate and summarise a diagram snapshot (runs on the worker thread).
+
+    ``shared`` is the snapshot's :class:`~loopwright.engine.views_data.SharedModel`, when
+    the views have one: its check report is used (computed once for the revision, by
+    whichever of the views and this check asks first) instead of a report of its own.
+    """
     from loopwright.engine.blocks import port_widths
     from loopwright.engine.check import summarize
     from loopwright.engine.validation import problems as find_problems
@@ -109,7 +119,7 @@ def compute_live_result(diagram: Diagram, revision: int) -> LiveResult:
         error = "empty diagram"
     elif not any(getattr(p, "severity", "error") == "error" for p in found) and error is None:
         try:
-            report = summarize(diagram)
+            report = summarize(diagram) if shared is None else shared.report
         except EngineError as err:
             error = str(err)
     else:
@@ -140,8 +150,9 @@ class LiveModel(QObject):
         self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-live")
         self._timer = QTimer(self)
         self._timer.setSingleShot(True)
-        self._timer.setInterval(debounce_ms)
+        self._debounce_ms = debounce_ms
         self._timer.timeout.connect(self.request_now)
+        self._shared_inputs = None
         self._pending: Future | None = None
         self._delivered: Future | None = None
         self._closed = False
@@ -150,8 +161,17 @@ class LiveModel(QObject):
         self._finished.connect(self._on_finished)
         document.changed.connect(self._on_changed)
 
+    def share_with(self, inputs) -> None:
+        """Take each revision's snapshot and shared model from ``inputs()``, which returns
+        ``(snapshot, pairs, shared)`` for the document's current revision (the views
+        controller's :meth:`~loopwright.gui.docks.views.ViewsController.revision_inputs`)."""
+        self._shared_inputs = inputs
+
     def _on_changed(self, revision: int) -> None:
-        self._timer.start()
+        # idle: check now (a 0 ms timer still gathers the steps of one command); a check
+        # still running: wait for a quiet spell, so a burst of edits is checked once
+        idle = self._pending is None or self._pending.done()
+        self._timer.start(0 if idle else self._debounce_ms)
         self.busy_changed.emit(True)
 
     def request_now(self) -> None:
@@ -162,8 +182,11 @@ class LiveModel(QObject):
         if self._pending is not None:
             self._pending.cancel()  # only succeeds while it waits; a running one is dropped later
         revision = self._doc.revision
-        snapshot = self._doc.snapshot()
-        fut = self._executor.submit(compute_live_result, snapshot, revision)
+        if self._shared_inputs is not None:
+            snapshot, _pairs, shared = self._shared_inputs()
+            fut = self._executor.submit(compute_live_result, snapshot, revision, shared)
+        else:
+            fut = self._executor.submit(compute_live_result, self._doc.snapshot(), revision)
         fut.add_done_callback(lambda f, rev=revision: self._deliver(f, rev))
         self._pending = fut
         self.busy_changed.emit(True)

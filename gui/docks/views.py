@@ -92,7 +92,7 @@ class ViewsController(QObject):
             if self.panels[key][1].isVisible():
                 self.refresh(key)
 
-    def _revision_inputs(self) -> tuple:
+    def revision_inputs(self) -> tuple:
         """``(snapshot, pairs, shared)`` of the document's current revision, made once per revision."""
         rev = self._doc.revision
         if self._shared is None or self._shared[0] != rev:
@@ -103,7 +103,7 @@ class ViewsController(QObject):
     def refresh(self, key: str) -> None:
         """Send panel ``key``'s job for the document as it is now."""
         panel, _dock = self.panels[key]
-        snapshot, pairs, shared = self._revision_inputs()
+        snapshot, pairs, shared = self.revision_inputs()
         panel.set_pairs(pairs)
         try:
             job = panel.job(snapshot, pairs, shared)
