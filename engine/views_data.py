@@ -320,6 +320,10 @@ def _refine_at_main_peaks(evaluate, w: np.ndarray, G: np.ndarray, *, passes: int
 _DRAWING_OFFSETS = np.array([-4.0, -2.0, -1.0, -0.5, 0.0, 0.5, 1.0, 2.0, 4.0])
 
 
+#: Points per decade at most on a drawing grid (a wide plot has a few hundred pixels per decade).
+_DRAWING_RESOLUTION = 1000
+
+
 def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | None = None, points_per_decade: int = 80) -> np.ndarray:
     """A frequency grid (rad/s) for drawing a response: log-spaced over the span of
     :func:`responses.auto_frequency_grid`, plus nine points across each lightly damped
@@ -345,7 +349,18 @@ def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | 
         parts.append((np.abs(roots.imag[light])[:, None] + half[:, None] * _DRAWING_OFFSETS[None, :]).ravel())
     w = np.concatenate(parts)
     w = np.unique(w[(w >= lo) & (w <= hi) & (w > 0)])
-    return w[np.concatenate([[True], np.diff(w) > 1e-12 * w[1:]])] if w.size else w
+    if not w.size:
+        return w
+    # Nearly equal poles (a loop repeated along a chain) put their resonance points on top
+    # of each other: keep one point per 1/_DRAWING_RESOLUTION of a decade (far finer than a
+    # pixel; the peaks are refined afterwards), so the grid grows with the distinct
+    # resonances, not with the state count. The span's ends stay.
+    bucket = np.floor(np.log10(w) * _DRAWING_RESOLUTION).astype(np.int64)
+    _, first = np.unique(bucket, return_index=True)
+    keep = np.zeros(w.size, dtype=bool)
+    keep[first] = True
+    keep[[0, -1]] = True
+    return w[keep]
 
 
 def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float | None = None, drawing: bool = False,

@@ -194,6 +194,29 @@ def test_drawing_grid_is_exact_at_its_points_and_finds_the_same_peak(path, src, 
     assert w_d == pytest.approx(w_c, rel=1e-3)
 
 
+def test_drawing_grid_of_a_repeated_loop_grows_with_the_distinct_resonances_not_the_states():
+    # forty nearly equal copies of two lightly damped pole pairs (a loop repeated along a
+    # chain): their resonance points coincide to far below a pixel, and the grid keeps one
+    # point per thousandth of a decade. Closed form: a pole pair -zeta wn +- j wn sqrt(1 - zeta^2)
+    from loopwright.engine.views_data import drawing_frequency_grid
+
+    def pair(wn, zeta):
+        return [complex(-zeta * wn, s * wn * np.sqrt(1 - zeta**2)) for s in (1, -1)]
+
+    base = pair(3.0, 0.05) + pair(40.0, 0.1)
+    one = drawing_frequency_grid(np.array(base))
+    many = drawing_frequency_grid(np.array([z * (1 + 1e-7 * k) for k in range(40) for z in base]))
+    lw = np.log10(many)
+    assert np.all(np.diff(lw) > 0)
+    inner = lw[1:-1]
+    assert np.all(inner[2:] - inner[:-2] >= 1e-3 * (1 - 1e-9))  # at most one point per 1/1000 decade, the ends aside
+    assert many.size <= one.size + 2
+    assert many[0] == pytest.approx(one[0]) and many[-1] == pytest.approx(one[-1])
+    for z in base[::2]:
+        # the resonance keeps its points: one within a thousandth of a decade of the damped frequency
+        assert np.min(np.abs(lw - np.log10(z.imag))) < 1e-3
+
+
 def test_a_shared_model_assembles_once_and_gives_the_same_answers(monkeypatch):
     # the views of one revision share one SharedModel: one assembly for all of them, the
     # frequency view's responses reused by the singular-value view, and every answer the
