@@ -211,7 +211,7 @@ def test_drawing_grid_of_a_repeated_loop_grows_with_the_distinct_resonances_not_
     inner = lw[1:-1]
     assert np.all(inner[2:] - inner[:-2] >= 1e-3 * (1 - 1e-9))  # at most one point per 1/1000 decade, the ends aside
     assert many.size <= one.size + 2
-    assert many[0] == pytest.approx(one[0]) and many[-1] == pytest.approx(one[-1])
+    assert many[0] == pytest.approx(one[0], rel=1e-5) and many[-1] == pytest.approx(one[-1], rel=1e-5)  # the poles differ by 4e-6 at most
     for z in base[::2]:
         # the resonance keeps its points: one within a thousandth of a decade of the damped frequency
         assert np.min(np.abs(lw - np.log10(z.imag))) < 1e-3
