@@ -1,7 +1,8 @@
 """Keeps the live model of the open diagram up to date without freezing the window.
 
-An edit made while the live check is idle is checked at once (on the next turn of the
-event loop, so the steps of one command count once); edits arriving while a check still
+An edit made while the live check is idle is checked at once (when its undoable command
+has made all its changes, or else on the next turn of the event loop, so the steps of one
+edit count once); edits arriving while a check still
 runs restart a short single-shot timer (the debounce), so a burst is checked once. A deep
 snapshot of the diagram is sent, tagged with the document's revision, to a one-worker
 executor. The worker validates, computes signal widths and the check report (all through
@@ -160,12 +161,18 @@ class LiveModel(QObject):
         self.discarded = 0
         self._finished.connect(self._on_finished)
         document.changed.connect(self._on_changed)
+        document.undo_stack.indexChanged.connect(self._on_command_done)
 
     def share_with(self, inputs) -> None:
         """Take each revision's snapshot and shared model from ``inputs()``, which returns
         ``(snapshot, pairs, shared)`` for the document's current revision (the views
         controller's :meth:`~loopwright.gui.docks.views.ViewsController.revision_inputs`)."""
         self._shared_inputs = inputs
+        # after a command, the views' jobs go first (their controller connected before this
+        # call): the pole map starts the shared check report, which this check then awaits
+        undo = self._doc.undo_stack
+        undo.indexChanged.disconnect(self._on_command_done)
+        undo.indexChanged.connect(self._on_command_done)
 
     def _on_changed(self, revision: int) -> None:
         # idle: check now (a 0 ms timer still gathers the steps of one command); a check
@@ -173,6 +180,12 @@ class LiveModel(QObject):
         idle = self._pending is None or self._pending.done()
         self._timer.start(0 if idle else self._debounce_ms)
         self.busy_changed.emit(True)
+
+    def _on_command_done(self, _index: int) -> None:
+        # an undoable command has made all its changes: check now, not after the repaint
+        # that comes before the 0 ms timer
+        if self._timer.isActive() and self._timer.interval() == 0:
+            self.request_now()
 
     def request_now(self) -> None:
         """Send the current diagram to the worker at once (skipping the debounce)."""

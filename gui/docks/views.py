@@ -9,8 +9,9 @@ budget, path audit) on a worker of their own, so the quick answers are drawn whi
 still compute and a later edit's quick views never wait for them; it drops answers an
 edit has overtaken.
 
-An edit made while the worker is idle is computed at once (on the next turn of the event
-loop, so the steps of one command count once). Every edit at once cancels or stops the
+An edit made while the worker is idle is computed at once: as soon as its undoable command
+has made all its changes, or else on the next turn of the event loop (so the steps of one
+edit count once). Every edit at once cancels or stops the
 work of older revisions (nothing stale stays queued); edits that arrive while the worker
 is still busy are coalesced and computed once after a quiet spell (the debounce), so
 dragging a value never queues a backlog. A hidden panel is marked stale and catches up
@@ -54,6 +55,7 @@ class ViewsController(QObject):
         self._timer.setSingleShot(True)
         self._timer.timeout.connect(self.refresh_visible)
         document.changed.connect(self._on_changed)
+        document.undo_stack.indexChanged.connect(self._on_command_done)
         self.jobs.result_ready.connect(self._on_result)
         self.jobs.busy_changed.connect(self._on_busy)
         self.jobs.progress_changed.connect(self._on_progress)
@@ -80,6 +82,14 @@ class ViewsController(QObject):
         # burst of edits is computed once. A slow view still computing does not count: its
         # new job waits behind it on its own worker.
         self._timer.start(0 if self.jobs.worker_idle(quick_only=True) else self._debounce_ms)
+
+    def _on_command_done(self, _index: int) -> None:
+        # an undoable command (or its undo, or a whole macro) has made all its changes: the
+        # work it started need not wait for the 0 ms timer, which fires only after the
+        # event loop has repainted what the edit touched
+        if self._timer.isActive() and self._timer.interval() == 0:
+            self._timer.stop()
+            self.refresh_visible()
 
     def _on_visibility(self, key: str, visible: bool) -> None:
         if visible and self._fresh.get(key) != self._doc.revision:

@@ -136,3 +136,20 @@ def test_each_plot_is_ranged_once_per_update_and_its_range_covers_the_data(windo
     ranged.clear()
     freq.show_value([freq.data[p] for p in freq.shown_pairs()])
     assert counts["magnitude"][-1] == 0 and counts["phase"][-1] == 0
+
+
+def test_an_undoable_edit_and_its_undo_start_the_views_and_the_check_before_the_event_loop_turns(window, qtbot):
+    # the command has made all its changes when push() returns: the work starts there and
+    # then, not after the repaint the event loop does before a 0 ms timer
+    _open(window, [("r", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    doc = window.document
+    for step in ("edit", "undo", "redo"):
+        if step == "edit":
+            _edit_gain(doc, 2.0)
+        else:
+            getattr(doc.undo_stack, step)()
+        assert not window.views._timer.isActive() and not window.live._timer.isActive(), step
+        assert all(window.views.jobs.is_busy(k) for k in ("frequency", "time", "poles")), step
+        qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+        assert window.live.latest.revision == doc.revision
