@@ -31,7 +31,9 @@ __all__ = ["ViewsController", "VIEW_ORDER"]
 _BUSY_AFTER_MS = 500
 
 #: The order the panels' jobs run in after an edit: cheap first, so they are drawn first.
-VIEW_ORDER = ("poles", "frequency", "time", "singular_values", "loop_break", "noise", "audit")
+#: The pole map comes after the responses: its check report is what the live check (on its
+#: own worker) computes meanwhile for the same revision, so it is then ready to draw.
+VIEW_ORDER = ("frequency", "time", "poles", "singular_values", "loop_break", "noise", "audit")
 #: Views whose answers can take seconds on a large loop: they run on a worker of their own.
 SLOW_VIEWS = frozenset({"loop_break", "noise", "audit"})
 
