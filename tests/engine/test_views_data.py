@@ -88,6 +88,38 @@ def test_step_run_matches_python_control_step_response():
     assert run.names == ["y"]
 
 
+@pytest.mark.parametrize("kind", ["step", "impulse"])
+def test_the_runs_of_several_pairs_come_from_one_discretisation_and_match_python_control(kind, monkeypatch):
+    # the time view's pairs share one simulation (one matrix exponential, one pass over the
+    # grid); each pair's run is still python-control's (0.10.2 step_response /
+    # impulse_response) for that pair alone
+    import loopwright.engine.responses as responses
+
+    d = load(CONVEYOR)
+    # r -> u passes straight through (D != 0): its impulse has a Dirac part no grid shows
+    pairs = [("r", "y"), ("dl", "y"), ("r", "u")] if kind == "step" else [("r", "y"), ("dl", "y")]
+    calls = []
+    real = responses.discretise
+    monkeypatch.setattr(responses, "discretise", lambda *a, **k: (calls.append(1), real(*a, **k))[1])
+    runs = time_views(d, pairs, kind)
+    assert len(calls) == 1
+    model = assemble(d)
+    t = time_grid(d, model)
+    for (src, sig), run in zip(pairs, runs):
+        sys_p = _ct_pair(model, src, sig)
+        ref = ct.step_response(sys_p, T=t) if kind == "step" else ct.impulse_response(sys_p, T=t)
+        assert_allclose(run.t, t)
+        assert_allclose(run.y[:, 0], np.asarray(ref.outputs).ravel(), rtol=1e-6, atol=1e-9 * max(1.0, np.abs(run.y).max()))
+        assert run.names == [sig]
+        alone = pair_time_response(model, kind, src, sig, t)  # the same pair run on its own
+        assert set(run.metrics) == set(alone.metrics)
+        for name, m in run.metrics.items():
+            assert m.rise_time_s == pytest.approx(alone.metrics[name].rise_time_s, rel=1e-9)
+            assert m.overshoot_pct == pytest.approx(alone.metrics[name].overshoot_pct, rel=1e-9, abs=1e-9)
+    if kind == "step":
+        assert any(run.metrics for run in runs)
+
+
 def test_estimation_error_decays_with_the_estimator_dynamics_alone():
     # Closed form (separation principle): e = x - xhat obeys e' = (A - L C) e whatever K is,
     # so from x(0) = e0, xhat(0) = 0 the error is expm((A - L C) t) e0.
