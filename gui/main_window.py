@@ -240,8 +240,9 @@ class MainWindow(QMainWindow):
         self._build_toolbar()
         install_views(self)
         # the live check takes each revision's snapshot and check report from the views'
-        # shared model: the loop is assembled and its poles computed once per edit
-        self.live.share_with(self.views.revision_inputs)
+        # shared model (the loop is assembled and its poles computed once per edit), and
+        # runs once the quick views are drawn
+        self.live.share_with(self.views.revision_inputs, self.views.quick_views_done)
         self._install_design_entries()
         self.scene.selectionChanged.connect(self._on_selection_changed)
         self.scene.edit_refused.connect(self._show_refusal)

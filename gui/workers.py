@@ -2,14 +2,14 @@
 
 An edit made while the live check is idle is checked at once (when its undoable command
 has made all its changes, or else on the next turn of the event loop, so the steps of one
-edit count once); edits arriving while a check still
-runs restart a short single-shot timer (the debounce), so a burst is checked once. A deep
-snapshot of the diagram is sent, tagged with the document's revision, to a one-worker
-executor. The worker validates, computes signal widths and the check report (all through
-the engine). Where the window's views share one
-:class:`~loopwright.engine.views_data.SharedModel` per revision, the check takes the
-snapshot and the report from it (:meth:`LiveModel.share_with`): the pole map and the
-status bar then come from one assembly and one eigen-decomposition. Its result comes back through a
+edit count once); edits arriving while a check still runs restart a short single-shot
+timer (the debounce), so a burst is checked once. A deep snapshot of the diagram is sent,
+tagged with the document's revision, to a one-worker executor. The worker validates,
+computes signal widths and the check report (all through the engine). In the window the
+check shares the views' snapshot and :class:`~loopwright.engine.views_data.SharedModel`
+(:meth:`LiveModel.share_with`): the pole map and the status bar come from one assembly
+and one check report, and an edit's check starts when the quick views are drawn (or after
+the debounce, whichever is first), so it never slows them down. Its result comes back through a
 Qt signal emitted from the worker thread to an object living on the GUI thread, so Qt
 queues the delivery; a result whose revision is no longer the document's is dropped.
 """
@@ -154,6 +154,7 @@ class LiveModel(QObject):
         self._debounce_ms = debounce_ms
         self._timer.timeout.connect(self.request_now)
         self._shared_inputs = None
+        self._after_views = False
         self._pending: Future | None = None
         self._delivered: Future | None = None
         self._closed = False
@@ -163,22 +164,30 @@ class LiveModel(QObject):
         document.changed.connect(self._on_changed)
         document.undo_stack.indexChanged.connect(self._on_command_done)
 
-    def share_with(self, inputs) -> None:
+    def share_with(self, inputs, views_done=None) -> None:
         """Take each revision's snapshot and shared model from ``inputs()``, which returns
         ``(snapshot, pairs, shared)`` for the document's current revision (the views
-        controller's :meth:`~loopwright.gui.docks.views.ViewsController.revision_inputs`)."""
+        controller's :meth:`~loopwright.gui.docks.views.ViewsController.revision_inputs`).
+
+        ``views_done`` (a signal: the quick views of the current revision are drawn) makes
+        an edit's check wait for them, or for the debounce, whichever comes first: the
+        views, which the user watches, get the machine first, and the check then finds
+        the check report the pole map computed.
+        """
         self._shared_inputs = inputs
-        # after a command, the views' jobs go first (their controller connected before this
-        # call): the pole map starts the shared check report, which this check then awaits
-        undo = self._doc.undo_stack
-        undo.indexChanged.disconnect(self._on_command_done)
-        undo.indexChanged.connect(self._on_command_done)
+        if views_done is not None:
+            self._after_views = True
+            views_done.connect(self._on_views_done)
+
+    def _on_views_done(self) -> None:
+        if self._timer.isActive():
+            self.request_now()
 
     def _on_changed(self, revision: int) -> None:
         # idle: check now (a 0 ms timer still gathers the steps of one command); a check
         # still running: wait for a quiet spell, so a burst of edits is checked once
         idle = self._pending is None or self._pending.done()
-        self._timer.start(0 if idle else self._debounce_ms)
+        self._timer.start(0 if idle and not self._after_views else self._debounce_ms)
         self.busy_changed.emit(True)
 
     def _on_command_done(self, _index: int) -> None:

@@ -20,7 +20,7 @@ progress where the engine reports it and a Stop that ends the computation.
 """
 from __future__ import annotations
 
-from PySide6.QtCore import QObject, QTimer
+from PySide6.QtCore import QObject, QTimer, Signal
 
 from loopwright.engine.views_data import SharedModel
 from loopwright.gui.view_commands import pairs_of
@@ -31,15 +31,22 @@ __all__ = ["ViewsController", "VIEW_ORDER"]
 _BUSY_AFTER_MS = 500
 
 #: The order the panels' jobs run in after an edit: cheap first, so they are drawn first.
-#: The pole map comes after the responses: its check report is what the live check (on its
-#: own worker) computes meanwhile for the same revision, so it is then ready to draw.
-VIEW_ORDER = ("frequency", "time", "poles", "singular_values", "loop_break", "noise", "audit")
+VIEW_ORDER = ("poles", "frequency", "time", "singular_values", "loop_break", "noise", "audit")
 #: Views whose answers can take seconds on a large loop: they run on a worker of their own.
 SLOW_VIEWS = frozenset({"loop_break", "noise", "audit"})
 
 
 class ViewsController(QObject):
-    """Runs the panels' jobs; ``panels`` maps a key to ``(panel, dock)``."""
+    """Runs the panels' jobs; ``panels`` maps a key to ``(panel, dock)``.
+
+    Signals
+    -------
+    quick_views_done()
+        Every quick view sent for the document's current revision has drawn its answer (or
+        none was sent): the live check starts then, so it does not compete with them.
+    """
+
+    quick_views_done = Signal()
 
     def __init__(self, document, *, debounce_ms: int = 150, parent=None):
         super().__init__(parent)
@@ -103,6 +110,11 @@ class ViewsController(QObject):
         for key in sorted(self.panels, key=lambda k: rank.get(k, len(rank))):
             if self.panels[key][1].isVisible():
                 self.refresh(key)
+        self._report_quick_done()
+
+    def _report_quick_done(self) -> None:
+        if not any(self.jobs.is_busy(k) for k in self.panels if k not in SLOW_VIEWS):
+            self.quick_views_done.emit()
 
     def revision_inputs(self) -> tuple:
         """``(snapshot, pairs, shared)`` of the document's current revision, made once per revision."""
@@ -149,8 +161,10 @@ class ViewsController(QObject):
             panel.show_error(result.error)
             if hasattr(panel, "clear_value"):
                 panel.clear_value()
-            return
-        panel.show_value(result.value)
+        else:
+            panel.show_value(result.value)
+        if result.key not in SLOW_VIEWS:
+            self._report_quick_done()
 
     def _on_busy(self, key: str, busy: bool) -> None:
         t = self._busy_timers.get(key)
