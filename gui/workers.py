@@ -9,9 +9,9 @@ computes signal widths and the check report (all through the engine). In the win
 check shares the views' snapshot and :class:`~loopwright.engine.views_data.SharedModel`
 (:meth:`LiveModel.share_with`): the pole map and the status bar come from one assembly
 and one check report, and an edit's check starts when the quick views are drawn (or after
-the debounce, whichever is first), so it never slows them down. Its result comes back through a
-Qt signal emitted from the worker thread to an object living on the GUI thread, so Qt
-queues the delivery; a result whose revision is no longer the document's is dropped.
+the debounce, whichever is first), so it never slows them down. Its result comes back
+through a Qt signal emitted from the worker thread to an object living on the GUI thread,
+so Qt queues the delivery; a result whose revision is no longer the document's is dropped.
 """
 from __future__ import annotations
 
@@ -184,8 +184,9 @@ class LiveModel(QObject):
             self.request_now()
 
     def _on_changed(self, revision: int) -> None:
-        # idle: check now (a 0 ms timer still gathers the steps of one command); a check
-        # still running: wait for a quiet spell, so a burst of edits is checked once
+        # idle: check now (a 0 ms timer still gathers the steps of one command), or in the
+        # window once the quick views are drawn (the debounce is then only the latest
+        # start); a check still running: wait for a quiet spell, so a burst is checked once
         idle = self._pending is None or self._pending.done()
         self._timer.start(0 if idle and not self._after_views else self._debounce_ms)
         self.busy_changed.emit(True)
