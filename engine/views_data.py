@@ -320,6 +320,10 @@ def _refine_at_main_peaks(evaluate, w: np.ndarray, G: np.ndarray, *, passes: int
 _DRAWING_OFFSETS = np.array([-4.0, -2.0, -1.0, -0.5, 0.0, 0.5, 1.0, 2.0, 4.0])
 
 
+#: Points per decade at most on a drawing grid (a wide plot has a few hundred pixels per decade).
+_DRAWING_RESOLUTION = 1000
+
+
 def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | None = None, points_per_decade: int = 80) -> np.ndarray:
     """A frequency grid (rad/s) for drawing a response: log-spaced over the span of
     :func:`responses.auto_frequency_grid`, plus nine points across each lightly damped
@@ -345,7 +349,18 @@ def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | 
         parts.append((np.abs(roots.imag[light])[:, None] + half[:, None] * _DRAWING_OFFSETS[None, :]).ravel())
     w = np.concatenate(parts)
     w = np.unique(w[(w >= lo) & (w <= hi) & (w > 0)])
-    return w[np.concatenate([[True], np.diff(w) > 1e-12 * w[1:]])] if w.size else w
+    if not w.size:
+        return w
+    # Nearly equal poles (a loop repeated along a chain) put their resonance points on top
+    # of each other: keep one point per 1/_DRAWING_RESOLUTION of a decade (far finer than a
+    # pixel; the peaks are refined afterwards), so the grid grows with the distinct
+    # resonances, not with the state count. The span's ends stay.
+    bucket = np.floor(np.log10(w) * _DRAWING_RESOLUTION).astype(np.int64)
+    _, first = np.unique(bucket, return_index=True)
+    keep = np.zeros(w.size, dtype=bool)
+    keep[first] = True
+    keep[[0, -1]] = True
+    return w[keep]
 
 
 def frequency_views(diagram, pairs, *, w_min: float | None = None, w_max: float | None = None, drawing: bool = False,
@@ -504,19 +519,7 @@ def pair_time_response(model, kind: str, source: str, signal: str, t, *, x0=None
 
     if kind not in RUN_KINDS:
         raise ParameterError(f"time run must be one of {', '.join(RUN_KINDS)}; got {kind!r}", field="kind")
-    errors = estimation_error_names(model)
-    if signal.startswith("error:"):
-        est = signal.split(":", 1)[1]
-        names = [nm for nm in errors if nm == signal or nm.startswith(f"error:{est}[")]
-        if not names:
-            raise AnalysisError(f"no estimator {est!r} linked to a plant of its own order: no estimation error to show")
-        C = np.array([errors[nm] for nm in names])
-        D = np.zeros((len(names), model.B.shape[1]))
-        out_names = names
-    else:
-        rows = model.signal_slice(model.resolve_signal(signal))
-        C, D = model.C[rows], model.D[rows]
-        out_names = list(model.output_names[rows])
+    C, D, out_names = _run_outputs(model, signal)
     if kind == "initial":
         if x0 is None:
             raise ParameterError("an initial-condition run needs an initial state", field="initial")
@@ -526,18 +529,67 @@ def pair_time_response(model, kind: str, source: str, signal: str, t, *, x0=None
         U, foh = source_inputs(model, t)
         res = simulate(model.A, model.B, C, D, t, U, x0=x0, foh_columns=foh)
         return PairRun(kind, res.t, res.y, out_names, res.diverged, res.message)
-    grp = model.resolve_input(source)
-    cols = model.input_slice(grp)
+    cols = model.input_slice(model.resolve_input(source))
     fn = step_response if kind == "step" else impulse_response
     res = fn(model.A, model.B[:, cols], C, D[:, cols], t)
+    return _input_run(model, kind, cols, C, D, out_names, res.t, res.y, res.diverged, res.message, stable)
+
+
+def _run_outputs(model, signal: str):
+    """``(C, D, names)`` of the rows a time run of ``signal`` shows (``error:<estimator>``: its estimation error)."""
+    if signal.startswith("error:"):
+        errors = estimation_error_names(model)
+        est = signal.split(":", 1)[1]
+        names = [nm for nm in errors if nm == signal or nm.startswith(f"error:{est}[")]
+        if not names:
+            raise AnalysisError(f"no estimator {est!r} linked to a plant of its own order: no estimation error to show")
+        return np.array([errors[nm] for nm in names]), np.zeros((len(names), model.B.shape[1])), names
+    rows = model.signal_slice(model.resolve_signal(signal))
+    return model.C[rows], model.D[rows], list(model.output_names[rows])
+
+
+def _input_run(model, kind, cols, C, D, out_names, t, y, diverged, message, stable) -> PairRun:
+    """The :class:`PairRun` of a step or impulse run whose samples ``y`` are (N, p, m): one
+    column per output row of ``C`` and input column ``cols``."""
     in_names = list(model.input_names[cols])
     if len(in_names) == 1:
-        names, Y = out_names, res.y[:, :, 0]
+        names, Y = out_names, y[:, :, 0]
     else:
         names = [f"{o} <- {i}" for o in out_names for i in in_names]
-        Y = res.y.reshape(res.y.shape[0], -1)
-    metrics = _step_run_metrics(model, cols, C, D, names, Y, res.t, stable=stable) if kind == "step" and not res.diverged else {}
-    return PairRun(kind, res.t, Y, names, res.diverged, res.message, metrics)
+        Y = y.reshape(y.shape[0], -1)
+    metrics = _step_run_metrics(model, cols, C, D, names, Y, t, stable=stable) if kind == "step" and not diverged else {}
+    return PairRun(kind, t, Y, names, diverged, message, metrics)
+
+
+def _input_runs_together(model, kind: str, pairs, t, *, stable: bool | None) -> list | None:
+    """Step or impulse runs of several pairs from one simulation (one discretisation of the
+    loop, one pass over the time grid with every input column of every pair as one
+    experiment each), or None when that is not possible (a pair the engine refuses, or a
+    run that diverged: those are run pair by pair, each stopping where it diverges)."""
+    from loopwright.engine.responses import impulse_response, step_response
+
+    parts = []
+    try:
+        for src, sig in pairs:
+            C, D, out_names = _run_outputs(model, sig)
+            cols = model.input_slice(model.resolve_input(src))
+            parts.append((cols, np.arange(model.B.shape[1])[cols], C, D, out_names))
+    except EngineError:
+        return None
+    every = np.unique(np.concatenate([idx for _cols, idx, *_ in parts]))
+    C_all = np.vstack([part[2] for part in parts])
+    D_all = np.vstack([part[3] for part in parts])[:, every]
+    fn = step_response if kind == "step" else impulse_response
+    res = fn(model.A, model.B[:, every], C_all, D_all, t)
+    if res.diverged:
+        return None
+    out, row = [], 0
+    for cols, idx, C, D, out_names in parts:
+        at = np.searchsorted(every, idx)
+        y = res.y[:, row : row + C.shape[0], :][:, :, at]
+        row += C.shape[0]
+        out.append(_input_run(model, kind, cols, C, D, out_names, res.t, y, False, "", stable))
+    return out
 
 
 def _step_run_metrics(model, cols, C, D, names, Y, t, *, stable: bool | None = None) -> dict:
@@ -572,6 +624,10 @@ def time_views(diagram, pairs, kind: str, *, initial: dict | None = None, t_end:
     t = time_grid(diagram, model, t_end, dt, poles=shared.poles)
     x0 = initial_state(model, initial) if initial else None
     stable = shared.stable if kind == "step" else None
+    if kind in ("step", "impulse") and len(pairs) > 1:
+        together = _input_runs_together(model, kind, pairs, t, stable=stable)
+        if together is not None:
+            return together
     out = []
     for src, sig in pairs:
         try:

@@ -226,6 +226,7 @@ class MainWindow(QMainWindow):
             self._autosave_timer.setInterval(int(prefs.autosave_interval_s * 1000))
             self._autosave_timer.timeout.connect(self.autosave_now)
             self._autosave_timer.start()
+        self._live_status = ""  # the status line of the latest live result
         self._model_label = QLabel("checking…")
         self._model_label.setObjectName("model_status")
         self._model_label.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
@@ -238,6 +239,10 @@ class MainWindow(QMainWindow):
         self._build_menus()
         self._build_toolbar()
         install_views(self)
+        # the live check takes each revision's snapshot and check report from the views'
+        # shared model (the loop is assembled and its poles computed once per edit), and
+        # runs once the quick views are drawn
+        self.live.share_with(self.views.revision_inputs, self.views.quick_views_done)
         self._install_design_entries()
         self.scene.selectionChanged.connect(self._on_selection_changed)
         self.scene.edit_refused.connect(self._show_refusal)
@@ -443,10 +448,12 @@ class MainWindow(QMainWindow):
 
     def _on_busy(self, busy: bool) -> None:
         if busy:
-            self._model_label.setText("checking…  " + (status_text(self.live.latest) if self.live.latest else ""))
+            # the line of the last result, made when it came (not again on every edit)
+            self._model_label.setText("checking…  " + self._live_status)
 
     def _on_live_result(self, result: LiveResult) -> None:
         text = status_text(result)
+        self._live_status = text
         self._model_label.setText(text)
         self._model_label.setToolTip("\n".join(getattr(result.report, "warnings", ()) or ()) or text)
         found, warnings = _problems_with_culprits(result, self.document.diagram)

@@ -1,11 +1,17 @@
 """Keeps the live model of the open diagram up to date without freezing the window.
 
-After each edit the document's ``changed`` signal restarts a short single-shot timer
-(debounce). When it fires, a deep snapshot of the diagram is sent, tagged with the
-document's revision, to a one-worker executor. The worker validates, computes signal
-widths and the check report (all through the engine). Its result comes back through a
-Qt signal emitted from the worker thread to an object living on the GUI thread, so Qt
-queues the delivery; a result whose revision is no longer the document's is dropped.
+An edit made while the live check is idle is checked at once (when its undoable command
+has made all its changes, or else on the next turn of the event loop, so the steps of one
+edit count once); edits arriving while a check still runs restart a short single-shot
+timer (the debounce), so a burst is checked once. A deep snapshot of the diagram is sent,
+tagged with the document's revision, to a one-worker executor. The worker validates,
+computes signal widths and the check report (all through the engine). In the window the
+check shares the views' snapshot and :class:`~loopwright.engine.views_data.SharedModel`
+(:meth:`LiveModel.share_with`): the pole map and the status bar come from one assembly
+and one check report, and an edit's check starts when the quick views are drawn (or after
+the debounce, whichever is first), so it never slows them down. Its result comes back
+through a Qt signal emitted from the worker thread to an object living on the GUI thread,
+so Qt queues the delivery; a result whose revision is no longer the document's is dropped.
 """
 from __future__ import annotations
 
@@ -80,8 +86,13 @@ class LiveResult:
     error: str | None = None
 
 
-def compute_live_result(diagram: Diagram, revision: int) -> LiveResult:
-    """Validate and summarise a diagram snapshot (runs on the worker thread)."""
+def compute_live_result(diagram: Diagram, revision: int, shared=None) -> LiveResult:
+    """Validate and summarise a diagram snapshot (runs on the worker thread).
+
+    ``shared`` is the snapshot's :class:`~loopwright.engine.views_data.SharedModel`, when
+    the views have one: its check report is used (computed once for the revision, by
+    whichever of the views and this check asks first) instead of a report of its own.
+    """
     from loopwright.engine.blocks import port_widths
     from loopwright.engine.check import summarize
     from loopwright.engine.validation import problems as find_problems
@@ -109,7 +120,7 @@ def compute_live_result(diagram: Diagram, revision: int) -> LiveResult:
         error = "empty diagram"
     elif not any(getattr(p, "severity", "error") == "error" for p in found) and error is None:
         try:
-            report = summarize(diagram)
+            report = summarize(diagram) if shared is None else shared.report
         except EngineError as err:
             error = str(err)
     else:
@@ -140,8 +151,10 @@ class LiveModel(QObject):
         self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-live")
         self._timer = QTimer(self)
         self._timer.setSingleShot(True)
-        self._timer.setInterval(debounce_ms)
+        self._debounce_ms = debounce_ms
         self._timer.timeout.connect(self.request_now)
+        self._shared_inputs = None
+        self._after_views = False
         self._pending: Future | None = None
         self._delivered: Future | None = None
         self._closed = False
@@ -149,10 +162,40 @@ class LiveModel(QObject):
         self.discarded = 0
         self._finished.connect(self._on_finished)
         document.changed.connect(self._on_changed)
+        document.undo_stack.indexChanged.connect(self._on_command_done)
+
+    def share_with(self, inputs, views_done=None) -> None:
+        """Take each revision's snapshot and shared model from ``inputs()``, which returns
+        ``(snapshot, pairs, shared)`` for the document's current revision (the views
+        controller's :meth:`~loopwright.gui.docks.views.ViewsController.revision_inputs`).
+
+        ``views_done`` (a signal: the quick views of the current revision are drawn) makes
+        an edit's check wait for them, or for the debounce, whichever comes first: the
+        views, which the user watches, get the machine first, and the check then finds
+        the check report the pole map computed.
+        """
+        self._shared_inputs = inputs
+        if views_done is not None:
+            self._after_views = True
+            views_done.connect(self._on_views_done)
+
+    def _on_views_done(self) -> None:
+        if self._timer.isActive():
+            self.request_now()
 
     def _on_changed(self, revision: int) -> None:
-        self._timer.start()
+        # idle: check now (a 0 ms timer still gathers the steps of one command), or in the
+        # window once the quick views are drawn (the debounce is then only the latest
+        # start); a check still running: wait for a quiet spell, so a burst is checked once
+        idle = self._pending is None or self._pending.done()
+        self._timer.start(0 if idle and not self._after_views else self._debounce_ms)
         self.busy_changed.emit(True)
+
+    def _on_command_done(self, _index: int) -> None:
+        # an undoable command has made all its changes: check now, not after the repaint
+        # that comes before the 0 ms timer
+        if self._timer.isActive() and self._timer.interval() == 0:
+            self.request_now()
 
     def request_now(self) -> None:
         """Send the current diagram to the worker at once (skipping the debounce)."""
@@ -162,8 +205,11 @@ class LiveModel(QObject):
         if self._pending is not None:
             self._pending.cancel()  # only succeeds while it waits; a running one is dropped later
         revision = self._doc.revision
-        snapshot = self._doc.snapshot()
-        fut = self._executor.submit(compute_live_result, snapshot, revision)
+        if self._shared_inputs is not None:
+            snapshot, _pairs, shared = self._shared_inputs()
+            fut = self._executor.submit(compute_live_result, snapshot, revision, shared)
+        else:
+            fut = self._executor.submit(compute_live_result, self._doc.snapshot(), revision)
         fut.add_done_callback(lambda f, rev=revision: self._deliver(f, rev))
         self._pending = fut
         self.busy_changed.emit(True)
@@ -455,6 +501,13 @@ class Tasks(QObject):
         self._executor.shutdown(wait=wait, cancel_futures=True)
 
 
+#: How much the slow views' worker yields (its nice value; 0 to 19). A little: the quick
+#: views of an edit then come first, but on a machine busy with other work a strong yield
+#: (10) starved the loop-break view (views bench at a load of 7, 50 states: an edit took
+#: a median of about 1 s with 10, about 0.45 s with 3, about 0.6 s with 0).
+_SLOW_NICENESS = 3
+
+
 def _yield_to_quick_views() -> None:
     """Lower the calling worker thread's scheduling priority (Linux, where a thread has its
     own): on a two-core machine the slow views then take what the quick views leave."""
@@ -464,7 +517,7 @@ def _yield_to_quick_views() -> None:
 
     if sys.platform.startswith("linux") and hasattr(os, "setpriority"):
         try:
-            os.setpriority(os.PRIO_PROCESS, threading.get_native_id(), 10)  # this thread only, on Linux
+            os.setpriority(os.PRIO_PROCESS, threading.get_native_id(), _SLOW_NICENESS)  # this thread only, on Linux
         except OSError:
             pass  # not allowed here: the slow views simply compete as equals
 

@@ -20,6 +20,7 @@ from loopwright.engine.errors import EngineError
 from loopwright.gui.canvas.block_item import BlockItem
 from loopwright.gui.canvas.geometry import separate_segments
 from loopwright.gui.canvas.port_item import PortItem
+from loopwright.gui.canvas.spatial import RectIndex
 from loopwright.gui.canvas.wire_item import WireItem
 from loopwright.gui.commands import AddBlock, Connect, Disconnect, MoveBlocks, SetWireLayout
 
@@ -28,6 +29,8 @@ __all__ = ["DiagramScene", "BLOCK_MIME"]
 BLOCK_MIME = "application/x-loopwright-block-kind"
 
 _SNAP_RADIUS = 18.0
+#: How far separate_segments may shift a segment (its steps times its tries), and a little more.
+_LANE_REACH = 62.0
 _DRAG_START = 6.0
 
 
@@ -57,6 +60,11 @@ class DiagramScene(QGraphicsScene):
         self._widths: dict[str, int] = {}
         self._segments: dict[str, list] = {}  # wire id -> its drawn segments (lanes taken)
         self._label_rects: dict[str, QRectF] = {}  # wire id -> where its name is written
+        # the same names, segments and block bodies by place, so placing one wire looks at
+        # its neighbours only (opening a diagram was quadratic in its wires)
+        self._label_index = RectIndex()
+        self._segment_index = RectIndex()
+        self._body_index = RectIndex()
         self._rect_pending = False
         self.setItemIndexMethod(QGraphicsScene.ItemIndexMethod.BspTreeIndex)
         self.setBackgroundBrush(theme.background)
@@ -82,6 +90,8 @@ class DiagramScene(QGraphicsScene):
         self.clear()
         self._segments.clear()
         self._label_rects.clear()
+        for index in (self._label_index, self._segment_index, self._body_index):
+            index.clear()
         self.block_items.clear()
         self.wire_items.clear()
         self._wires_of.clear()
@@ -98,7 +108,17 @@ class DiagramScene(QGraphicsScene):
         self.block_items[bid] = item
         self._wires_of.setdefault(bid, set())
         self.addItem(item)
+        self._index_body(bid)
         return item
+
+    def _index_body(self, bid: str) -> None:
+        """Record where block ``bid``'s body is now (for placing wire names around it)."""
+        item = self.block_items.get(bid)
+        if item is None:
+            self._body_index.discard(bid)
+            return
+        r = item.body_scene_rect()
+        self._body_index.set(bid, [(r.left(), r.top(), r.right(), r.bottom())], r)
 
     def _mark_open_inputs(self, block_ids=None) -> None:
         """Tell blocks which of their inputs no wire feeds (all blocks when None)."""
@@ -140,6 +160,7 @@ class DiagramScene(QGraphicsScene):
     def _on_block_removed(self, bid: str) -> None:
         item = self.block_items.pop(bid, None)
         self._wires_of.pop(bid, None)
+        self._body_index.discard(bid)
         if item is not None:
             item._drop_tags()
             self.removeItem(item)
@@ -150,6 +171,7 @@ class DiagramScene(QGraphicsScene):
             return
         item.sync(self.document.diagram.blocks[bid])
         self._mark_open_inputs([bid])
+        self._index_body(bid)
         self._reroute_block(bid)
         self._fit_scene_rect()
 
@@ -160,6 +182,8 @@ class DiagramScene(QGraphicsScene):
     def _on_wire_removed(self, wid: str) -> None:
         self._segments.pop(wid, None)
         self._label_rects.pop(wid, None)
+        self._segment_index.discard(wid)
+        self._label_index.discard(wid)
         item = self.wire_items.pop(wid, None)
         self._unindex_wire(wid)
         if item is not None:
@@ -184,29 +208,47 @@ class DiagramScene(QGraphicsScene):
     def claim_lanes(self, wire_id: str, routes: list) -> list:
         """``routes`` of ``wire_id`` with inner segments moved off other wires' segments;
         the result is recorded as that wire's lanes."""
-        taken = [seg for wid, segs in self._segments.items() if wid != wire_id for seg in segs]
+        pts_all = [pt for pts in routes for pt in pts]
+        taken = []
+        if pts_all:
+            # a segment can only be moved onto a segment within its reach (separate_segments'
+            # steps): the others cannot change the answer
+            xs, ys = [pt[0] for pt in pts_all], [pt[1] for pt in pts_all]
+            box = (min(xs) - _LANE_REACH, min(ys) - _LANE_REACH, max(xs) + _LANE_REACH, max(ys) + _LANE_REACH)
+            taken = [seg for _wid, segs in self._segment_index.near(box, skip=wire_id) for seg in segs]
         routes = separate_segments(routes, taken) if taken else routes
-        self._segments[wire_id] = [(a, b) for pts in routes for a, b in zip(pts, pts[1:])]
+        segs = [(a, b) for pts in routes for a, b in zip(pts, pts[1:])]
+        self._segments[wire_id] = segs
+        self._segment_index.set(wire_id, [(a[0], a[1], b[0], b[1]) for a, b in segs], segs)
         return routes
 
     def claim_label(self, wire_id: str, candidates: list[QRectF]) -> QRectF:
         """The first of ``candidates`` that overlaps no other wire's name and no block,
         recorded as where ``wire_id``'s name goes (the first one if none is free)."""
-        others = [r for wid, r in self._label_rects.items() if wid != wire_id and not r.isNull()]
-        bodies = [it.body_scene_rect() for it in self.block_items.values()]
-        # Other wires' lines too: a name written across another wire reads as its label.
-        bodies += [QRectF(QPointF(min(a[0], b[0]), min(a[1], b[1])), QPointF(max(a[0], b[0]), max(a[1], b[1]))).adjusted(-1, -1, 1, 1)
-                   for wid, segs in self._segments.items() if wid != wire_id for a, b in segs]
+        others, bodies = [], []
+        if candidates:
+            box = (min(r.left() for r in candidates) - 2, min(r.top() for r in candidates) - 2,
+                   max(r.right() for r in candidates) + 2, max(r.bottom() for r in candidates) + 2)
+            others = [r for _wid, r in self._label_index.near(box, skip=wire_id) if not r.isNull()]
+            bodies = [r for _bid, r in self._body_index.near(box)]
+            # Other wires' lines too: a name written across another wire reads as its label.
+            bodies += [QRectF(QPointF(min(a[0], b[0]), min(a[1], b[1])), QPointF(max(a[0], b[0]), max(a[1], b[1]))).adjusted(-1, -1, 1, 1)
+                       for _wid, segs in self._segment_index.near(box, skip=wire_id) for a, b in segs]
         chosen = candidates[0] if candidates else QRectF()
         for r in candidates:
             if not any(r.intersects(o) for o in others) and not any(r.intersects(b) for b in bodies):
                 chosen = r
                 break
         self._label_rects[wire_id] = chosen
+        if chosen.isNull():
+            self._label_index.discard(wire_id)
+        else:
+            self._label_index.set(wire_id, [(chosen.left(), chosen.top(), chosen.right(), chosen.bottom())], chosen)
         return chosen
 
     def block_item_moved(self, item: BlockItem) -> None:
         """Called by a block item while it is dragged: its wires follow at once."""
+        self._index_body(item.block_id)
         self._reroute_block(item.block_id)
 
     def _fit_scene_rect(self) -> None:

@@ -12,7 +12,7 @@ from PySide6.QtGui import QColor
 from PySide6.QtWidgets import QComboBox, QHBoxLayout, QLabel
 
 from loopwright.engine.views_data import frequency_views
-from loopwright.gui.docks.panel import PlotPanel, elastic, legend_row, new_layout_widget, pair_colour, pen_for, shade_of, themed_plot
+from loopwright.gui.docks.panel import PlotPanel, data_span, elastic, fit_range, legend_row, new_layout_widget, pair_colour, pen_for, shade_of, themed_plot
 from loopwright.gui.view_commands import input_label
 
 __all__ = ["FrequencyPanel", "AUDIT_COLOUR"]
@@ -146,8 +146,6 @@ class FrequencyPanel(PlotPanel):
             self.show_error("\n".join(errors))
         else:
             self.set_message("" if shown else "No pair yet: right-click a wire and choose “look here”.")
-        self.mag.enableAutoRange()
-        self.phase.enableAutoRange()
 
     def _redraw_units(self) -> None:
         s = self._scale()
@@ -164,6 +162,7 @@ class FrequencyPanel(PlotPanel):
             p, m = resp.response.shape[1:]
             w_pk, db_pk = max((resp.peak(i, j) for i in range(p) for j in range(m)), key=lambda t: t[1])
             item.setData([w_pk * s], [db_pk])
+        self._fit()
         if self.data:
             ws = np.concatenate([r.w_rad_s for r in self.data.values()]) * s
             if not self.cursor_mag.isVisible():
@@ -172,6 +171,16 @@ class FrequencyPanel(PlotPanel):
             for c in (self.cursor_mag, self.cursor_phase):
                 c.setVisible(True)
         self._on_cursor_moved()
+
+    def _fit(self) -> None:
+        """Range both plots once, after every curve has its data (the phase plot follows
+        the magnitude plot's frequencies)."""
+        if not self.data:
+            return
+        s = self._scale()
+        fit_range(self.mag, x=data_span([r.w_rad_s * s for r in self.data.values()], log=True),
+                  y=data_span([r.mag_db for r in self.data.values()]))
+        fit_range(self.phase, y=data_span([r.phase_deg for r in self.data.values()]))
 
     def peak_markers(self) -> dict:
         """Pair -> (frequency in the shown unit, dB) of its marked peak."""

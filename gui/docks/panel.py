@@ -12,6 +12,7 @@ from __future__ import annotations
 import csv
 from pathlib import Path
 
+import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QAction, QColor
@@ -20,7 +21,7 @@ from PySide6.QtWidgets import QSplitter, QFileDialog, QHBoxLayout, QLabel, QMenu
 from loopwright.engine.svg_plot import PAIR_COLOURS
 
 __all__ = ["PlotPanel", "PAIR_COLOURS", "pair_colour", "shade_of", "write_table_csv", "pen_for", "themed_plot", "new_layout_widget",
-           "legend_row", "elastic", "AdaptiveSplitter"]
+           "legend_row", "elastic", "AdaptiveSplitter", "fit_range", "data_span"]
 
 # PAIR_COLOURS: one colour per kept pair, the same in every panel, on the canvas and in the
 # command line's SVG plots; our own set, chosen to stay apart on light and dark backgrounds.
@@ -167,7 +168,9 @@ class PlotPanel(QWidget):
 
     def set_message(self, text: str, *, error: bool = False) -> None:
         self.message.setText(text)
-        self.message.setStyleSheet("color: #c0392b;" if error else "")
+        style = "color: #c0392b;" if error else ""
+        if self.message.styleSheet() != style:  # setting one polishes the label again, even the same one
+            self.message.setStyleSheet(style)
         self.message.setVisible(bool(text))
 
     def contextMenuEvent(self, event) -> None:
@@ -256,12 +259,68 @@ def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, 
     p.showGrid(x=True, y=True, alpha=0.25)
     p.setMenuEnabled(False)
     p.setLogMode(x=log_x, y=False)
+    # the panel ranges the plot once per update (fit_range); pyqtgraph's own autorange
+    # would re-range it for every curve given data
+    p.disableAutoRange()
     for side in ("left", "bottom"):
         ax = p.getAxis(side)
         ax.enableAutoSIPrefix(False)  # a "(x0.001)" beside a unit is easy to miss
         ax.setPen(pg.mkPen("#5b6573"))
         ax.setTextPen(pg.mkPen("#1f2933"))
     return p
+
+
+def data_span(arrays, *, log: bool = False) -> tuple[float, float] | None:
+    """``(low, high)`` of the finite values of every array in ``arrays`` (of their log10,
+    positive values only, when ``log``), or None when there is none."""
+    lows, highs = [], []
+    for a in arrays:
+        a = np.asarray(a, dtype=float).ravel()
+        if log:
+            a = np.log10(a[a > 0])
+        a = a[np.isfinite(a)]
+        if a.size:
+            lows.append(a.min())
+            highs.append(a.max())
+    if not lows:
+        return None
+    return float(min(lows)), float(max(highs))
+
+
+def fit_range(plot: pg.PlotItem, *, x=None, y=None, padding: float | None = None, slack: float = 0.02) -> bool:
+    """Set the plot's range once so it covers ``x`` and ``y`` (``(low, high)`` in view
+    coordinates, e.g. from :func:`data_span`; None leaves that axis alone); True when it moved.
+
+    The panels set every curve's data first and then range once, instead of letting each
+    ``setData`` re-range the plot. A range that already covers the data and is within
+    ``slack`` (a fraction of the span) of the fitted one at both ends is kept: its axes
+    keep their drawn ticks, and a small edit does not make the plot jitter.
+    """
+    vb = plot.getViewBox()
+    current = vb.viewRange()
+    want: dict[str, tuple[float, float]] = {}
+    for axis, span in ((0, x), (1, y)):
+        if span is None:
+            continue
+        lo, hi = span
+        width = hi - lo
+        if not (np.isfinite(lo) and np.isfinite(hi)):
+            continue
+        if width <= 0:  # one value: a span around it (the scale of the value, or 1)
+            half = 0.5 * (abs(lo) if lo else 1.0)
+            lo, hi, width = lo - half, hi + half, 2.0 * half
+        pad = vb.suggestPadding(axis) if padding is None else padding
+        lo, hi = lo - pad * width, hi + pad * width
+        c_lo, c_hi = current[axis]
+        tol = slack * (hi - lo)
+        covered = c_lo <= span[0] and c_hi >= span[1]
+        if covered and abs(c_lo - lo) <= tol and abs(c_hi - hi) <= tol:
+            continue
+        want["xRange" if axis == 0 else "yRange"] = (lo, hi)
+    if not want:
+        return False
+    vb.setRange(padding=0, disableAutoRange=True, **want)
+    return True
 
 
 def new_layout_widget() -> pg.GraphicsLayoutWidget:

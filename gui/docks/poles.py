@@ -10,7 +10,7 @@ from PySide6.QtWidgets import QLabel
 
 from loopwright.engine.check import pole_table, summarize
 from loopwright.engine.views_data import damping_guides
-from loopwright.gui.docks.panel import PlotPanel, elastic, legend_row, new_layout_widget, themed_plot
+from loopwright.gui.docks.panel import PlotPanel, data_span, elastic, fit_range, legend_row, new_layout_widget, themed_plot
 
 __all__ = ["PoleMapPanel", "pole_map_data"]
 
@@ -105,7 +105,10 @@ class PoleMapPanel(PlotPanel):
             msg += "; they DIFFER from eig(A − BK) ∪ eig(A − LC)"
         self.set_message(msg)
         if not self.hold_range:
-            self.plot.enableAutoRange()
+            # the poles and designed sets, with room for their symbols (the guides reach
+            # a little past them and are not fitted)
+            pts = [p, value["feedback"], value["estimator"]]
+            fit_range(self.plot, x=data_span([z.real for z in pts]), y=data_span([z.imag for z in pts]), padding=0.08)
 
     def _on_mouse(self, pos) -> None:
         if not self.data or not self.data["table"]:

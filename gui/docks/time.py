@@ -15,7 +15,7 @@ from PySide6.QtWidgets import QCheckBox, QComboBox, QFrame, QHBoxLayout, QLabel,
 
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.views_data import time_views
-from loopwright.gui.docks.panel import PlotPanel, elastic, legend_row, new_layout_widget, pair_colour, pen_for, themed_plot
+from loopwright.gui.docks.panel import PlotPanel, data_span, elastic, fit_range, legend_row, new_layout_widget, pair_colour, pen_for, themed_plot
 from loopwright.gui.view_commands import input_label
 
 __all__ = ["TimePanel", "RUN_LABELS", "parse_initial"]
@@ -112,6 +112,7 @@ class TimePanel(PlotPanel):
         self._layout.addWidget(self.note)
         self.curves: dict[tuple, object] = {}
         self.runs: dict[tuple, object] = {}
+        self._title = ""
         self._estimators: list[str] = []
         self.set_message("No pair yet: right-click a wire and choose “look here”.")
         self._enable_initial()
@@ -195,8 +196,12 @@ class TimePanel(PlotPanel):
             self.show_error("\n".join(errors))
         else:
             self.set_message("" if self.runs else "No pair yet: right-click a wire and choose “look here”.")
-        self.plot.setTitle(f"response to {RUN_LABELS[self.run_kind()]}", color="#1f2933", size="9pt")
-        self.plot.enableAutoRange()
+        title = f"response to {RUN_LABELS[self.run_kind()]}"
+        if title != self._title:  # a new title lays the plot out again
+            self._title = title
+            self.plot.setTitle(title, color="#1f2933", size="9pt")
+        if self.runs:
+            fit_range(self.plot, x=data_span([r.t for r in self.runs.values()]), y=data_span([r.y for r in self.runs.values()]))
 
     def step_metrics(self) -> dict:
         """(pair, name) -> StepMetrics of the runs on show (step runs of kept pairs only)."""

@@ -9,8 +9,9 @@ budget, path audit) on a worker of their own, so the quick answers are drawn whi
 still compute and a later edit's quick views never wait for them; it drops answers an
 edit has overtaken.
 
-An edit made while the worker is idle is computed at once (on the next turn of the event
-loop, so the steps of one command count once). Every edit at once cancels or stops the
+An edit made while the worker is idle is computed at once: as soon as its undoable command
+has made all its changes, or else on the next turn of the event loop (so the steps of one
+edit count once). Every edit at once cancels or stops the
 work of older revisions (nothing stale stays queued); edits that arrive while the worker
 is still busy are coalesced and computed once after a quiet spell (the debounce), so
 dragging a value never queues a backlog. A hidden panel is marked stale and catches up
@@ -19,7 +20,7 @@ progress where the engine reports it and a Stop that ends the computation.
 """
 from __future__ import annotations
 
-from PySide6.QtCore import QObject, QTimer
+from PySide6.QtCore import QObject, QTimer, Signal
 
 from loopwright.engine.views_data import SharedModel
 from loopwright.gui.view_commands import pairs_of
@@ -36,7 +37,16 @@ SLOW_VIEWS = frozenset({"loop_break", "noise", "audit"})
 
 
 class ViewsController(QObject):
-    """Runs the panels' jobs; ``panels`` maps a key to ``(panel, dock)``."""
+    """Runs the panels' jobs; ``panels`` maps a key to ``(panel, dock)``.
+
+    Signals
+    -------
+    quick_views_done()
+        Every quick view sent for the document's current revision has drawn its answer (or
+        none was sent): the live check starts then, so it does not compete with them.
+    """
+
+    quick_views_done = Signal()
 
     def __init__(self, document, *, debounce_ms: int = 150, parent=None):
         super().__init__(parent)
@@ -54,6 +64,7 @@ class ViewsController(QObject):
         self._timer.setSingleShot(True)
         self._timer.timeout.connect(self.refresh_visible)
         document.changed.connect(self._on_changed)
+        document.undo_stack.indexChanged.connect(self._on_command_done)
         self.jobs.result_ready.connect(self._on_result)
         self.jobs.busy_changed.connect(self._on_busy)
         self.jobs.progress_changed.connect(self._on_progress)
@@ -81,6 +92,14 @@ class ViewsController(QObject):
         # new job waits behind it on its own worker.
         self._timer.start(0 if self.jobs.worker_idle(quick_only=True) else self._debounce_ms)
 
+    def _on_command_done(self, _index: int) -> None:
+        # an undoable command (or its undo, or a whole macro) has made all its changes: the
+        # work it started need not wait for the 0 ms timer, which fires only after the
+        # event loop has repainted what the edit touched
+        if self._timer.isActive() and self._timer.interval() == 0:
+            self._timer.stop()
+            self.refresh_visible()
+
     def _on_visibility(self, key: str, visible: bool) -> None:
         if visible and self._fresh.get(key) != self._doc.revision:
             self.refresh(key)
@@ -91,8 +110,13 @@ class ViewsController(QObject):
         for key in sorted(self.panels, key=lambda k: rank.get(k, len(rank))):
             if self.panels[key][1].isVisible():
                 self.refresh(key)
+        self._report_quick_done()
 
-    def _revision_inputs(self) -> tuple:
+    def _report_quick_done(self) -> None:
+        if not any(self.jobs.is_busy(k) for k in self.panels if k not in SLOW_VIEWS):
+            self.quick_views_done.emit()
+
+    def revision_inputs(self) -> tuple:
         """``(snapshot, pairs, shared)`` of the document's current revision, made once per revision."""
         rev = self._doc.revision
         if self._shared is None or self._shared[0] != rev:
@@ -103,7 +127,7 @@ class ViewsController(QObject):
     def refresh(self, key: str) -> None:
         """Send panel ``key``'s job for the document as it is now."""
         panel, _dock = self.panels[key]
-        snapshot, pairs, shared = self._revision_inputs()
+        snapshot, pairs, shared = self.revision_inputs()
         panel.set_pairs(pairs)
         try:
             job = panel.job(snapshot, pairs, shared)
@@ -137,8 +161,10 @@ class ViewsController(QObject):
             panel.show_error(result.error)
             if hasattr(panel, "clear_value"):
                 panel.clear_value()
-            return
-        panel.show_value(result.value)
+        else:
+            panel.show_value(result.value)
+        if result.key not in SLOW_VIEWS:
+            self._report_quick_done()
 
     def _on_busy(self, key: str, busy: bool) -> None:
         t = self._busy_timers.get(key)

@@ -88,6 +88,38 @@ def test_step_run_matches_python_control_step_response():
     assert run.names == ["y"]
 
 
+@pytest.mark.parametrize("kind", ["step", "impulse"])
+def test_the_runs_of_several_pairs_come_from_one_discretisation_and_match_python_control(kind, monkeypatch):
+    # the time view's pairs share one simulation (one matrix exponential, one pass over the
+    # grid); each pair's run is still python-control's (0.10.2 step_response /
+    # impulse_response) for that pair alone
+    import loopwright.engine.responses as responses
+
+    d = load(CONVEYOR)
+    # r -> u passes straight through (D != 0): its impulse has a Dirac part no grid shows
+    pairs = [("r", "y"), ("dl", "y"), ("r", "u")] if kind == "step" else [("r", "y"), ("dl", "y")]
+    calls = []
+    real = responses.discretise
+    monkeypatch.setattr(responses, "discretise", lambda *a, **k: (calls.append(1), real(*a, **k))[1])
+    runs = time_views(d, pairs, kind)
+    assert len(calls) == 1
+    model = assemble(d)
+    t = time_grid(d, model)
+    for (src, sig), run in zip(pairs, runs):
+        sys_p = _ct_pair(model, src, sig)
+        ref = ct.step_response(sys_p, T=t) if kind == "step" else ct.impulse_response(sys_p, T=t)
+        assert_allclose(run.t, t)
+        assert_allclose(run.y[:, 0], np.asarray(ref.outputs).ravel(), rtol=1e-6, atol=1e-9 * max(1.0, np.abs(run.y).max()))
+        assert run.names == [sig]
+        alone = pair_time_response(model, kind, src, sig, t)  # the same pair run on its own
+        assert set(run.metrics) == set(alone.metrics)
+        for name, m in run.metrics.items():
+            assert m.rise_time_s == pytest.approx(alone.metrics[name].rise_time_s, rel=1e-9)
+            assert m.overshoot_pct == pytest.approx(alone.metrics[name].overshoot_pct, rel=1e-9, abs=1e-9)
+    if kind == "step":
+        assert any(run.metrics for run in runs)
+
+
 def test_estimation_error_decays_with_the_estimator_dynamics_alone():
     # Closed form (separation principle): e = x - xhat obeys e' = (A - L C) e whatever K is,
     # so from x(0) = e0, xhat(0) = 0 the error is expm((A - L C) t) e0.
@@ -192,6 +224,29 @@ def test_drawing_grid_is_exact_at_its_points_and_finds_the_same_peak(path, src, 
     (w_d, db_d), (w_c, db_c) = draw.peak(), dense.peak()
     assert db_d == pytest.approx(db_c, abs=1e-3)
     assert w_d == pytest.approx(w_c, rel=1e-3)
+
+
+def test_drawing_grid_of_a_repeated_loop_grows_with_the_distinct_resonances_not_the_states():
+    # forty nearly equal copies of two lightly damped pole pairs (a loop repeated along a
+    # chain): their resonance points coincide to far below a pixel, and the grid keeps one
+    # point per thousandth of a decade. Closed form: a pole pair -zeta wn +- j wn sqrt(1 - zeta^2)
+    from loopwright.engine.views_data import drawing_frequency_grid
+
+    def pair(wn, zeta):
+        return [complex(-zeta * wn, s * wn * np.sqrt(1 - zeta**2)) for s in (1, -1)]
+
+    base = pair(3.0, 0.05) + pair(40.0, 0.1)
+    one = drawing_frequency_grid(np.array(base))
+    many = drawing_frequency_grid(np.array([z * (1 + 1e-7 * k) for k in range(40) for z in base]))
+    lw = np.log10(many)
+    assert np.all(np.diff(lw) > 0)
+    inner = lw[1:-1]
+    assert np.all(inner[2:] - inner[:-2] >= 1e-3 * (1 - 1e-9))  # at most one point per 1/1000 decade, the ends aside
+    assert many.size <= one.size + 2
+    assert many[0] == pytest.approx(one[0], rel=1e-5) and many[-1] == pytest.approx(one[-1], rel=1e-5)  # the poles differ by 4e-6 at most
+    for z in base[::2]:
+        # the resonance keeps its points: one within a thousandth of a decade of the damped frequency
+        assert np.min(np.abs(lw - np.log10(z.imag))) < 1e-3
 
 
 def test_a_shared_model_assembles_once_and_gives_the_same_answers(monkeypatch):

@@ -1,0 +1,165 @@
+"""What keeps an edit quick in the window (tests of gui/workers.py, gui/docks/views.py and
+the panels' ranging): the live check and the views share one check report per revision; an
+edit made through an undoable command starts the views at once and the live check when
+they are drawn, without the debounce; each
+plot is ranged once per update and the range covers the data. Counted, never timed."""
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+import pyqtgraph as pg
+from numpy.testing import assert_allclose
+
+from loopwright.engine.check import summarize
+from loopwright.engine.project import load
+from loopwright.gui.commands import SetParams
+
+from gui_helpers import SAMPLES
+
+pytestmark = pytest.mark.qt
+
+CONVEYOR = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+
+
+def _settled(win):
+    return win.views.is_idle() and win.live.is_current()
+
+
+def _open(win, pairs):
+    win.show()
+    assert win.open_sample(str(CONVEYOR))
+    for src, sig in pairs:
+        win.picker.pick_input(src)
+        win.picker.pick_output(sig)
+    for key in ("frequency", "time", "poles"):
+        win.view_docks[key].show()
+
+
+def _edit_gain(doc, factor):
+    n = doc.diagram.block_by_name("N")
+    doc.push(SetParams(doc, n.id, dict(n.params, K=[[factor * float(np.asarray(n.params["K"]).ravel()[0])]])))
+
+
+def test_the_live_check_and_the_pole_map_share_one_check_report_per_revision(window, qtbot, monkeypatch):
+    # the status bar and the pole map come from one summarize (one assembly, one
+    # eigen-decomposition with condition numbers) per revision, not one each
+    import loopwright.engine.check as check
+
+    _open(window, [("r", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    calls = []
+    real = check.summarize
+    monkeypatch.setattr(check, "summarize", lambda d: (calls.append(1), real(d))[1])
+    doc = window.document
+    for k in range(3):
+        _edit_gain(doc, 1.1 + 0.1 * k)
+        qtbot.waitUntil(lambda: _settled(window) and window.panels["poles"].data is not None, timeout=30000)
+    assert window.view_docks["poles"].isVisible()
+    assert len(calls) == 3  # one per edit, for the live check and the pole map together
+    d = doc.snapshot()
+    want = summarize(d)  # reference: the engine's own check of the same diagram
+    rep = window.live.latest.report
+    assert window.live.latest.revision == doc.revision
+    assert_allclose(np.sort_complex(rep.poles), np.sort_complex(want.poles), rtol=1e-9, atol=1e-12)
+    x, y = window.panels["poles"].closed.getOriginalDataset()
+    assert_allclose(np.sort_complex(x + 1j * y), np.sort_complex(want.poles), rtol=1e-9, atol=1e-12)
+    assert str(rep.states) in window._model_label.text()
+
+
+def test_an_undoable_edit_is_checked_once_the_quick_views_are_drawn_not_after_the_debounce(make_window, prefs, qtbot):
+    # a debounce preference of ten minutes: the check of an edit made while all is idle
+    # starts as soon as the quick views have drawn it (they get the machine first)
+    win = make_window(prefs=dataclasses.replace(prefs, debounce_ms=600_000))
+    _open(win, [("r", "y")])
+    qtbot.waitUntil(lambda: _settled(win), timeout=30000)
+    sent = []
+    request = win.live.request_now
+
+    def recording():
+        # what the quick views still had to draw when the check was sent
+        sent.append((win.document.revision, [k for k in ("frequency", "time", "poles") if win.views.jobs.is_busy(k)]))
+        request()
+
+    win.live.request_now = recording
+    doc = win.document
+    _edit_gain(doc, 3.0)
+    assert not win.live.is_current()
+    qtbot.waitUntil(win.live.is_current, timeout=30000)  # far inside the ten minutes
+    assert sent == [(doc.revision, [])]
+    assert win.live.latest.revision == doc.revision
+    assert_allclose(np.sort_complex(win.live.latest.report.poles), np.sort_complex(summarize(doc.snapshot()).poles), rtol=1e-9, atol=1e-12)
+
+
+def test_each_plot_is_ranged_once_per_update_and_its_range_covers_the_data(window, qtbot, monkeypatch):
+    _open(window, [("r", "y"), ("dl", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    ranged = []
+    real = pg.ViewBox.setRange
+
+    def counting(vb, *args, **kwargs):
+        ranged.append(vb)
+        return real(vb, *args, **kwargs)
+
+    monkeypatch.setattr(pg.ViewBox, "setRange", counting)
+    freq, time_, poles = (window.panels[k] for k in ("frequency", "time", "poles"))
+    # calls of setRange per plot within one update of its panel (one show_value)
+    most = {"magnitude": 1, "phase": 2, "time": 1, "poles": 1}  # phase: its own, and the frequencies it follows
+    plots = {"magnitude": (freq, freq.mag), "phase": (freq, freq.phase), "time": (time_, time_.plot), "poles": (poles, poles.plot)}
+    counts = {name: [] for name in plots}
+    for panel in (freq, time_, poles):
+        real_show = panel.show_value
+
+        def show(value, _real=real_show, _panel=panel):
+            ranged.clear()
+            _real(value)
+            for name, (owner, plot) in plots.items():
+                if owner is _panel:
+                    counts[name].append(ranged.count(plot.getViewBox()))
+
+        monkeypatch.setattr(panel, "show_value", show)
+    for k in range(3):
+        _edit_gain(window.document, 1.3 + 0.2 * k)
+        qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    for name, seen in counts.items():
+        assert seen and max(seen) <= most[name], (name, seen)  # never once per curve
+    # the ranges cover every curve's data (view coordinates: log10 of the frequency)
+    for (pair, i, j), (cm, cp) in freq.curves.items():
+        x, ym = cm.getOriginalDataset()
+        _x, yp = cp.getOriginalDataset()
+        (x0, x1), (m0, m1) = freq.mag.getViewBox().viewRange()
+        _xr, (p0, p1) = freq.phase.getViewBox().viewRange()
+        lx = np.log10(x)
+        assert x0 <= lx.min() and lx.max() <= x1
+        assert m0 <= np.nanmin(ym) and np.nanmax(ym) <= m1
+        assert p0 <= np.nanmin(yp) and np.nanmax(yp) <= p1
+        assert (x1 - x0) < 1.2 * (lx.max() - lx.min()) + 1e-9  # and fits them, not some wider span
+    for item in time_.curves.values():
+        t, y = item.getOriginalDataset()
+        (t0, t1), (y0, y1) = time_.plot.getViewBox().viewRange()
+        assert t0 <= t.min() and t.max() <= t1 and y0 <= y.min() and y.max() <= y1
+    x, y = poles.closed.getOriginalDataset()
+    (a0, a1), (b0, b1) = poles.plot.getViewBox().viewRange()
+    assert a0 < x.min() and x.max() < a1 and b0 < y.min() and y.max() < b1
+    # the same data again moves no range (the axes keep their drawn ticks)
+    ranged.clear()
+    freq.show_value([freq.data[p] for p in freq.shown_pairs()])
+    assert counts["magnitude"][-1] == 0 and counts["phase"][-1] == 0
+
+
+def test_an_undoable_edit_and_its_undo_start_the_views_before_the_event_loop_turns(window, qtbot):
+    # the command has made all its changes when push() returns: the work starts there and
+    # then, not after the repaint the event loop does before a 0 ms timer
+    _open(window, [("r", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    doc = window.document
+    for step in ("edit", "undo", "redo"):
+        if step == "edit":
+            _edit_gain(doc, 2.0)
+        else:
+            getattr(doc.undo_stack, step)()
+        assert not window.views._timer.isActive(), step
+        assert all(window.views.jobs.is_busy(k) for k in ("frequency", "time", "poles")), step
+        qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+        assert window.live.latest.revision == doc.revision
