@@ -36,7 +36,8 @@ import scipy.optimize as sopt
 
 from loopwright.engine.eigen import PoleClasses, classify_poles, matrix_scale
 from loopwright.engine.errors import AnalysisError
-from loopwright.engine.norms import is_stable_matrix, peak_gain
+from loopwright.engine.loop_response import LoopResponse
+from loopwright.engine.norms import certify_peak, is_stable_matrix, peak_gain
 from loopwright.engine.responses import _as_system, auto_frequency_grid, reduce_model, reduced_response
 from loopwright.engine.structure import minimal_realization, structural_trim, transmission_zeros
 
@@ -50,6 +51,8 @@ __all__ = [
     "sensitivity_system",
     "closed_loop_matrix",
     "loop_margins",
+    "scalar_margins",
+    "certify_sensitivity_peaks",
     "vector_loop_margins",
     "margins_from_response",
     "loop_transfer",
@@ -195,6 +198,9 @@ class LoopMargins:
     delay_margin_w_rad_s: float = np.nan
     notes: list[str] = field(default_factory=list)
     limits: object | None = None  # PerformanceLimits (loopwright.engine.limits), when computed
+    #: False while peak sensitivity and the disk margin are refined grid values not yet
+    #: certified by the Hamiltonian test (the loop-break view's first pass)
+    certified: bool = True
 
     @property
     def gain_margin_db(self) -> tuple[float, float]:
@@ -378,22 +384,46 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         raise AnalysisError(f"loop_margins needs a scalar loop; L is {C.shape[0]}x{B.shape[1]} (use vector_loop_margins)")
     if _ill_posed(D):
         raise AnalysisError("1 + L(inf) = 0: the closed loop has no proper solution at this break")
+    resp = LoopResponse(A, B, C, D)
+    try:
+        zeros = transmission_zeros(A, B, C, D) if A.size else np.zeros(0)
+    except (np.linalg.LinAlgError, ValueError):
+        zeros = np.zeros(0)
+    m, _w, _L = scalar_margins(resp, skew=skew, zeros=zeros, certify=True)
+    return m
+
+
+def scalar_margins(resp: LoopResponse, *, skew: float = 0.0, zeros=(), certify: bool = True, progress=None):
+    """Margins of the scalar loop ``resp`` (a :class:`~loopwright.engine.loop_response.LoopResponse`),
+    and the grid they were found on.
+
+    Crossings are bracketed on one grid (:meth:`LoopResponse.grid`, laid on the poles and
+    the ``zeros`` given) and refined with ``brentq``. Peak sensitivity and the disk margin
+    are first the grid's highest local maxima of ``|S|`` and ``|S + (skew - 1)/2|``, each
+    refined by a bounded search in log-frequency (to about 1e-10 relative); with
+    ``certify`` they are then certified by the Hamiltonian test
+    (:func:`loopwright.engine.norms.certify_peak`) started there, and
+    ``LoopMargins.certified`` says so. ``progress(fraction)`` is called between the steps
+    (it may stop the work by raising).
+
+    Returns
+    -------
+    margins : LoopMargins
+    w, L : (k,) ndarrays
+        The grid (rad/s) and ``L(jw)`` on it.
+    """
+    report = progress if progress is not None else (lambda _f: None)
+    A, B, C, D = resp.A, resp.B, resp.C, resp.D
     n = A.shape[0]
-    red = reduce_model(A)
-    Bt, Ct = red.input_matrix(B), red.output_matrix(C)
+    Ljw = resp
+    ol_classes = classify_poles(resp.poles, scale=matrix_scale(A)) if n else PoleClasses(0, 0, 0, 0)
+    grid, L = resp.grid(zeros=zeros)
+    report(0.1)
 
-    def Ljw(w):
-        return reduced_response(red, Bt, Ct, D, 1j * np.atleast_1d(np.asarray(w, dtype=float)), B=B, C=C)[:, 0, 0]
-
-    ol_classes = classify_poles(red.poles, scale=matrix_scale(A)) if n else PoleClasses(0, 0, 0, 0)
-    grid = _grid_for(A, B, C, D)
-    L = Ljw(grid)
-    finite = np.isfinite(L)
-    grid, L = grid[finite], L[finite]
-
-    d = float(D[0, 0])
-    L0 = Ljw(0.0)[0] if n == 0 or _nonsingular(A) else complex(np.nan)
+    d = resp.d
+    L0 = Ljw(0.0)[0] if n == 0 or _nonsingular_poles(resp.poles, A) else complex(np.nan)
     wc, pms, pm, pm_w, delays, dm, crit = _crossings(Ljw, grid, L, d, L0)
+    report(0.2)
     # classify the intervals between critical gains by closed-loop pole count
     edges = [0.0] + [g for g, _ in crit] + [np.inf]
 
@@ -414,6 +444,7 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         stable_ranges = []
         for a, b in zip(edges[:-1], edges[1:]):
             mid = np.sqrt(a * b) if a > 0 and np.isfinite(b) else (b / 2.0 if a == 0 and np.isfinite(b) else (2.0 * a if a > 0 else 1.0))
+            report(0.3)
             if stable_at(mid):
                 stable_ranges.append((a, b))
         msg = "the closed loop is unstable at nominal gain" + (
@@ -421,17 +452,95 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         )
 
     # --- sensitivity and disk margins ---------------------------------------------------
+    certified = True
     if nominal:
-        As, Bs, Cs, Ds = sensitivity_system(A, B, C, D)
-        ps = peak_gain(As, Bs, Cs, Ds)
-        pk_d = peak_gain(As, Bs, Cs, Ds + (skew - 1.0) / 2.0)
-        disk = disk_margin_from_alpha(1.0 / pk_d.value if pk_d.value > 0 else np.inf, skew=skew, w_rad_s=pk_d.w_rad_s)
-        s_peak, s_w = ps.value, ps.w_rad_s
+        S = 1.0 / (1.0 + L)
+        s_peak, s_w = _refined_peak(Ljw, grid, S, 0.0, L0, d)
+        pk_d, pk_d_w = _refined_peak(Ljw, grid, S, (skew - 1.0) / 2.0, L0, d)
+        report(0.4)
+        certified = False
+        if certify:
+            (s_peak, s_w), (pk_d, pk_d_w) = certify_sensitivity_peaks(resp, (s_peak, s_w), (pk_d, pk_d_w), skew=skew, progress=report)
+            certified = True
+        disk = disk_margin_from_alpha(1.0 / pk_d if pk_d > 0 else np.inf, skew=skew, w_rad_s=pk_d_w)
     else:
         s_peak, s_w = np.inf, np.nan
         disk = DiskMargin(0.0, skew, 1.0, 1.0, 0.0, np.nan)
         dm = np.nan if not nominal else dm
-    return _margins_record(bool(nominal), ol_classes, (lo_g, hi_g, lo_w, hi_w), (wc, pms, pm, pm_w, delays, dm, crit), (s_peak, s_w), disk, msg)
+    m = _margins_record(bool(nominal), ol_classes, (lo_g, hi_g, lo_w, hi_w), (wc, pms, pm, pm_w, delays, dm, crit), (s_peak, s_w), disk, msg)
+    m.certified = certified
+    return m, grid, L
+
+
+def certify_sensitivity_peaks(resp: LoopResponse, sens: tuple[float, float], disk: tuple[float, float], *, skew: float = 0.0,
+                              progress=None) -> tuple[tuple[float, float], tuple[float, float]]:
+    """Certify the peak of ``|S|`` and of ``|S + (skew - 1)/2|`` of a loop whose closed loop
+    is stable, each from its refined grid value ``(peak, w)``: the Hamiltonian test of
+    :func:`loopwright.engine.norms.certify_peak` (one ``2n x 2n`` eigenvalue computation
+    when the start is the peak, a few level-set steps when it is not).
+
+    Returns
+    -------
+    (peak, w), (peak, w) : the certified values, for ``S`` and for the disk.
+    """
+    report = progress if progress is not None else (lambda _f: None)
+    As, Bs, Cs, Ds = sensitivity_system(resp.A, resp.B, resp.C, resp.D)
+    offset = (skew - 1.0) / 2.0
+
+    def S_eval(w, c=0.0):
+        with np.errstate(all="ignore"):
+            L = resp(w)
+            # at a pole of L on the axis S vanishes
+            return (np.where(np.isfinite(L), 1.0 / (1.0 + L), 0.0) + c)[:, None, None]
+
+    report(0.45)
+    ps = certify_peak(As, Bs, Cs, Ds, sens[0], sens[1], evaluate=S_eval, check=lambda: report(0.5))
+    report(0.7)
+    pd = certify_peak(As, Bs, Cs, Ds + offset, disk[0], disk[1], evaluate=lambda w: S_eval(w, offset), check=lambda: report(0.75))
+    report(0.95)
+    return (ps.value, ps.w_rad_s), (pd.value, pd.w_rad_s)
+
+
+#: Local maxima of the grid refined by a bounded search (the highest first).
+_PEAKS_REFINED = 6
+
+
+def _refined_peak(Ljw, grid: np.ndarray, S: np.ndarray, offset: float, L0: complex, d: float) -> tuple[float, float]:
+    """Peak over w of ``|S(jw) + offset|``: the grid's highest local maxima, each refined by a
+    bounded search in log-frequency between its neighbours, and the ends ``w = 0`` and
+    ``w -> inf``."""
+    mags = np.abs(S + offset)
+    mags = np.where(np.isfinite(mags), mags, -np.inf)
+    best, w_best = -np.inf, np.nan
+    if mags.size:
+        inner = np.nonzero((mags[1:-1] >= mags[:-2]) & (mags[1:-1] >= mags[2:]))[0] + 1
+        inner = inner[np.argsort(-mags[inner])][:_PEAKS_REFINED]
+        k = int(np.argmax(mags))
+        best, w_best = float(mags[k]), float(grid[k])
+        for i in inner:
+            def f(lw):
+                with np.errstate(all="ignore"):
+                    v = float(np.abs(1.0 / (1.0 + Ljw(np.exp(lw))[0]) + offset))
+                return -v if np.isfinite(v) else 0.0
+
+            r = sopt.minimize_scalar(f, bounds=(np.log(grid[i - 1]), np.log(grid[i + 1])), method="bounded", options={"xatol": 1e-10})
+            if -r.fun > best:
+                best, w_best = float(-r.fun), float(np.exp(r.x))
+    with np.errstate(all="ignore"):
+        at0 = abs(1.0 / (1.0 + L0) + offset)
+    if np.isfinite(at0) and at0 >= best:
+        best, w_best = float(at0), 0.0
+    at_inf = abs(1.0 / (1.0 + d) + offset)
+    if at_inf > best:
+        best, w_best = float(at_inf), np.inf
+    return best, w_best
+
+
+def _nonsingular_poles(poles: np.ndarray, A: np.ndarray) -> bool:
+    """``A`` is invertible: no eigenvalue within rounding of the origin."""
+    if poles.size == 0:
+        return True
+    return bool(np.min(np.abs(poles)) > 1e-12 * max(1.0, float(np.max(np.abs(poles))), float(np.linalg.norm(A, 1))))
 
 
 def _margins_record(stable: bool, ol_classes: PoleClasses, gains, crossings, sensitivity, disk: DiskMargin, message: str) -> LoopMargins:

@@ -200,7 +200,7 @@ def certify_peak(A, B, C, D, lower: float, w_lower: float, *, evaluate=None, tol
         Ae = A - B @ Ri @ D.T @ C
         H = np.block([[Ae, -gamma * B @ Ri @ B.T], [gamma * C.T @ np.linalg.solve(S, C), -Ae.T]])
         hn = max(1.0, np.linalg.norm(H, 1))
-        ev = sla.eigvals(H, overwrite_a=True, check_finite=False)
+        ev = sla.eigvals(H)
         on_axis = ev[(np.abs(ev.real) <= 1e-7 * np.maximum(1.0, np.abs(ev)) + 1e-10 * hn) & (ev.imag >= 0)]
         if on_axis.size == 0:
             break
@@ -210,8 +210,9 @@ def certify_peak(A, B, C, D, lower: float, w_lower: float, *, evaluate=None, tol
         else:
             mids = 0.5 * (ws[:-1] + ws[1:])
         g_mid = sigma_max(evaluate(mids))
+        g_mid = np.where(np.isfinite(g_mid), g_mid, -np.inf)
         j = int(np.argmax(g_mid))
-        if g_mid[j] <= lb * (1.0 + tol):
+        if not g_mid[j] > lb * (1.0 + tol):
             break
         lb, w_best = float(g_mid[j]), float(mids[j])
         if ws.size > 1:
