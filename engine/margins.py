@@ -56,6 +56,7 @@ __all__ = [
     "vector_loop_margins",
     "margins_from_response",
     "loop_transfer",
+    "opened_loop",
     "margins_at",
     "sensitivity_maps",
 ]
@@ -517,15 +518,16 @@ def _refined_peak(Ljw, grid: np.ndarray, S: np.ndarray, offset: float, L0: compl
         inner = inner[np.argsort(-mags[inner])][:_PEAKS_REFINED]
         k = int(np.argmax(mags))
         best, w_best = float(mags[k]), float(grid[k])
-        for i in inner:
+        if inner.size:
             def f(lw):
                 with np.errstate(all="ignore"):
-                    v = float(np.abs(1.0 / (1.0 + Ljw(np.exp(lw))[0]) + offset))
-                return -v if np.isfinite(v) else 0.0
+                    v = np.abs(1.0 / (1.0 + Ljw(np.exp(lw))) + offset)
+                return np.where(np.isfinite(v), v, -np.inf)
 
-            r = sopt.minimize_scalar(f, bounds=(np.log(grid[i - 1]), np.log(grid[i + 1])), method="bounded", options={"xatol": 1e-10})
-            if -r.fun > best:
-                best, w_best = float(-r.fun), float(np.exp(r.x))
+            xs, vs = _golden_max(f, np.log(grid[inner - 1]), np.log(grid[inner + 1]))
+            j = int(np.argmax(vs))
+            if vs[j] > best:
+                best, w_best = float(vs[j]), float(np.exp(xs[j]))
     with np.errstate(all="ignore"):
         at0 = abs(1.0 / (1.0 + L0) + offset)
     if np.isfinite(at0) and at0 >= best:
@@ -534,6 +536,28 @@ def _refined_peak(Ljw, grid: np.ndarray, S: np.ndarray, offset: float, L0: compl
     if at_inf > best:
         best, w_best = float(at_inf), np.inf
     return best, w_best
+
+
+def _golden_max(f, lo: np.ndarray, hi: np.ndarray, *, xtol: float = 1e-10):
+    """Golden-section search for the maximum of ``f`` on each interval ``[lo_i, hi_i]`` at
+    once (``f`` maps an array of points to values); returns the best points and values
+    seen (the grid neighbours bracket a local maximum, so the search converges to it)."""
+    g = (np.sqrt(5.0) - 1.0) / 2.0
+    a, b = lo.astype(float).copy(), hi.astype(float).copy()
+    c, d = b - g * (b - a), a + g * (b - a)
+    fc, fd = f(c), f(d)
+    best_x, best_v = np.where(fc >= fd, c, d), np.maximum(fc, fd)
+    while np.any(b - a > xtol):
+        left = fc >= fd  # the maximum lies in [a, d]
+        b = np.where(left, d, b)
+        a = np.where(left, a, c)
+        c_new, d_new = b - g * (b - a), a + g * (b - a)
+        x = np.where(left, c_new, d_new)
+        fx = f(x)
+        c, d, fc, fd = (np.where(left, c_new, d), np.where(left, c, d_new), np.where(left, fx, fd), np.where(left, fc, fx))
+        better = fx > best_v
+        best_x, best_v = np.where(better, x, best_x), np.where(better, fx, best_v)
+    return best_x, best_v
 
 
 def _nonsingular_poles(poles: np.ndarray, A: np.ndarray) -> bool:
@@ -579,7 +603,7 @@ def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
     Returns ``(wc, pms, pm, pm_w, delays, dm, crit)``, ``crit`` sorted ``(gain, w)`` pairs.
     """
     logmag = np.log(np.abs(L) + 1e-300)
-    wc = np.array(_refine_roots(lambda w: np.log(np.abs(Ljw(w)[0]) + 1e-300), grid, logmag))
+    wc = np.array(_refine_roots(lambda w: np.log(np.abs(Ljw(w)) + 1e-300), grid, logmag))
     if wc.size:
         phase = np.degrees(np.angle(Ljw(wc)))
         pms = _wrap180(phase + 180.0)
@@ -592,8 +616,8 @@ def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
         pms, delays = np.zeros(0), np.zeros(0)
         pm, pm_w, dm = np.inf, np.nan, np.inf
     crit: list[tuple[float, float]] = []
-    for w in _refine_roots(lambda w: Ljw(w)[0].imag, grid, L.imag):
-        val = Ljw(w)[0]
+    wx = np.asarray(_refine_roots(lambda w: Ljw(w).imag, grid, L.imag))
+    for w, val in zip(wx, Ljw(wx) if wx.size else []):
         if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val):
             crit.append((-1.0 / val.real, float(w)))
     if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0):
@@ -673,19 +697,45 @@ def _nonsingular(A) -> bool:
 
 
 def _refine_roots(f, grid: np.ndarray, values: np.ndarray) -> list[float]:
-    """Roots of ``f`` on ``(grid[0], grid[-1])``, bracketed by sign changes of ``values``."""
-    roots = []
+    """Roots of ``f`` on ``(grid[0], grid[-1])``, bracketed by sign changes of ``values``.
+
+    All brackets are refined together (``f`` takes an array of frequencies): the Illinois
+    variant of regula falsi in log-frequency, with a bisection step every fourth pass so
+    that no bracket shrinks slowly, to a relative width of 1e-15 (as ``brentq`` with
+    ``xtol = rtol = 1e-15``; Dowell & Jarratt 1971, from memory).
+    """
     v = np.asarray(values, dtype=float)
-    for i in np.nonzero(np.sign(v[:-1]) * np.sign(v[1:]) < 0)[0]:
-        a, b = grid[i], grid[i + 1]
-        try:
-            # work in log-frequency: crossings are evenly resolved across decades
-            r = sopt.brentq(lambda lw: f(np.exp(lw)), np.log(a), np.log(b), xtol=1e-15, rtol=1e-15, maxiter=200)
-            roots.append(float(np.exp(r)))
-        except ValueError:
-            continue
-    for i in np.nonzero(v == 0)[0]:
-        roots.append(float(grid[i]))
+    idx = np.nonzero(np.sign(v[:-1]) * np.sign(v[1:]) < 0)[0]
+    roots = [float(grid[i]) for i in np.nonzero(v == 0)[0]]
+    if idx.size:
+        a, b = np.log(grid[idx]), np.log(grid[idx + 1])
+        fa, fb = v[idx].copy(), v[idx + 1].copy()
+        x = 0.5 * (a + b)
+        side = np.zeros(idx.size, dtype=int)
+        for it in range(200):
+            live = np.abs(b - a) > 1e-15 * np.maximum(np.abs(a), np.abs(b)) + 1e-300
+            if not live.any():
+                break
+            with np.errstate(all="ignore"):
+                xs = b - fb * (b - a) / (fb - fa)
+            bad = ~np.isfinite(xs) | (xs <= np.minimum(a, b)) | (xs >= np.maximum(a, b)) | (it % 4 == 3)
+            x = np.where(live, np.where(bad, 0.5 * (a + b), xs), x)
+            fx = np.zeros(idx.size)
+            fx[live] = np.asarray(f(np.exp(x[live])), dtype=float)
+            left = live & (np.sign(fx) == np.sign(fa))  # the root is in (x, b)
+            right = live & ~left & (fx != 0)
+            done = live & (fx == 0)
+            a = np.where(left, x, a)
+            fa = np.where(left, fx, fa)
+            fb = np.where(left & (side == 1), 0.5 * fb, fb)  # Illinois: halve the stale end
+            b = np.where(right, x, b)
+            fb = np.where(right, fx, fb)
+            fa = np.where(right & (side == -1), 0.5 * fa, fa)
+            side = np.where(left, 1, np.where(right, -1, side))
+            a = np.where(done, x, a)
+            b = np.where(done, x, b)
+        ok = np.isfinite(x)
+        roots += [float(r) for r in np.exp(np.where(np.abs(fa) < np.abs(fb), a, b))[ok]]
     return sorted(set(roots))
 
 
@@ -937,20 +987,7 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
         fast = _margins_block_by_block(diagram, opened, base, skew=skew, force=route == "block by block")
         if fast is not None:
             return fast
-    A, B, C, D = opened.pair(f"break:{base}", opened.break_return)
-    C, D = -C, -D  # L = -G(break -> returned signal), as loop_transfer
-    A, B, C, D = _trim_for_margins(A, B, C, D)
-    if not np.any(D) and (A.shape[0] == 0 or not np.any(B) or not np.any(C)):
-        raise AnalysisError(
-            f"no feedback loop passes through {signal!r}: a signal injected there never comes back, so there are no margins to compute"
-        )
-    if component is not None:
-        q = D.shape[0]
-        if not 1 <= component <= q:
-            raise AnalysisError(f"{signal!r}: {base!r} has {q} component{'s' if q != 1 else ''}; pick [1] to [{q}]")
-        if D.shape[1] != q:
-            raise AnalysisError(f"a loop transfer must be square; got {D.shape[0]}x{D.shape[1]}")
-        A, B, C, D = _close_channels(A, B, C, D, component - 1)
+    A, B, C, D = _break_loop(opened, signal, base, component, trim=_trim_for_margins)
     if D.shape[0] == 1:
         m = loop_margins(A, B, C, D, skew=skew)
         if limits:
@@ -962,6 +999,53 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
         for i, m in enumerate(vm.per_channel):
             _attach_limits(m, *_close_channels(A, B, C, D, i))
     return vm
+
+
+def _break_loop(opened, signal: str, base: str, component, *, trim):
+    """``L`` of the loop opened at ``base`` (an assembled model), trimmed by ``trim``, checked
+    for a loop through it, and with the other channels closed when ``component`` is given."""
+    A, B, C, D = opened.pair(f"break:{base}", opened.break_return)
+    C, D = -C, -D  # L = -G(break -> returned signal), as loop_transfer
+    A, B, C, D = trim(A, B, C, D)
+    if not np.any(D) and (A.shape[0] == 0 or not np.any(B) or not np.any(C)):
+        raise AnalysisError(
+            f"no feedback loop passes through {signal!r}: a signal injected there never comes back, so there are no margins to compute"
+        )
+    if component is not None:
+        q = D.shape[0]
+        if not 1 <= component <= q:
+            raise AnalysisError(f"{signal!r}: {base!r} has {q} component{'s' if q != 1 else ''}; pick [1] to [{q}]")
+        if D.shape[1] != q:
+            raise AnalysisError(f"a loop transfer must be square; got {D.shape[0]}x{D.shape[1]}")
+        A, B, C, D = _close_channels(A, B, C, D, component - 1)
+    return A, B, C, D
+
+
+def opened_loop(diagram, signal: str):
+    """``L`` at the break ``signal`` (as :func:`margins_at` reads it: a signal, a port or one
+    component ``"P.u[2]"``), from one assembly, with the states off the loop dropped where
+    that is exact (:func:`structural_trim`; unstable ones are kept).
+
+    Returns
+    -------
+    (A, B, C, D) : ndarrays
+    """
+    from loopwright.engine.interconnect import assemble
+
+    base, component = _split_component(diagram, signal)
+    opened = assemble(diagram, break_at=base)
+    return _break_loop(opened, signal, base, component, trim=_structural_trim)
+
+
+def _structural_trim(A, B, C, D):
+    """Drop the states structurally off the loop when they are all stable (the first step of
+    :func:`_trim_for_margins`, without its minimal realization)."""
+    keep = structural_trim(A, B, C)
+    if keep.size < A.shape[0]:
+        drop = np.setdiff1d(np.arange(A.shape[0]), keep)
+        if is_stable_matrix(A[np.ix_(drop, drop)]):
+            A, B, C = A[np.ix_(keep, keep)], B[keep], C[:, keep]
+    return A, B, C, D
 
 
 # Below this many states the whole-model route takes well under a second and also gives
