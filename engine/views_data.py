@@ -10,6 +10,7 @@ A *pair* names one input and one output: the input is a source name or
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from functools import cached_property
 
@@ -741,9 +742,9 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
             (s_peak, s_w), (pk, pk_w) = certify_sensitivity_peaks(
                 resp, (m.peak_sensitivity, m.peak_sensitivity_w_rad_s), (1.0 / m.disk.alpha if m.disk.alpha > 0 else np.inf, m.disk.w_rad_s),
                 skew=skew, progress=report)
-            m.peak_sensitivity, m.peak_sensitivity_w_rad_s = float(s_peak), float(s_w)
-            m.disk = disk_margin_from_alpha(1.0 / pk if pk > 0 else np.inf, skew=skew, w_rad_s=pk_w)
-            m.certified = True
+            # a new record: the interim view keeps its own
+            m = dataclasses.replace(m, peak_sensitivity=float(s_peak), peak_sensitivity_w_rad_s=float(s_w), certified=True,
+                                    disk=disk_margin_from_alpha(1.0 / pk if pk > 0 else np.inf, skew=skew, w_rad_s=pk_w))
         if limits:
             _attach_limits(m, *_trim_for_margins(A, B, C, D))
         report(1.0)
