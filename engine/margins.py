@@ -1051,6 +1051,8 @@ def _structural_trim(A, B, C, D):
 # Below this many states the whole-model route takes well under a second and also gives
 # the performance limits; the block-by-block route is for big loops.
 _BLOCKWISE_MIN_STATES = 200
+#: Sweeps of the coupling-form pole iteration counted by the route's operation count.
+_ABERTH_SWEEPS = 20
 
 
 def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: bool) -> LoopMargins | None:
@@ -1090,7 +1092,11 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
     # three dense O(n^3) factorisations), one Schur form, eigenvalues per critical gain
     # and a Hamiltonian peak search of order 2n for S and for the disk
     dense = 5.0 * whole_model_cost(opened, 1, points) + 2 * 25.0 * (2.0 * n) ** 3
-    if not force and (n < _BLOCKWISE_MIN_STATES or bw_open.cost(1, 1, points) + 60.0 * n * n >= dense):
+    # the poles of the open and of the closed loop by the coupling form: a batched solve of
+    # size q per root and sweep (tens of sweeps), which a loop with many coupling channels
+    # (a ring of observer-based loops: q grows with n) makes dearer than a dense eigensolver
+    poles = 2.0 * _ABERTH_SWEEPS * n * (8.0 * bw_open.q**3 / 3.0 + 8.0 * bw_open.q**2)
+    if not force and (n < _BLOCKWISE_MIN_STATES or bw_open.cost(1, 1, points) + 60.0 * n * n + poles >= dense):
         return None
     closed = assemble(diagram)
     bw_closed = BlockwiseModel.from_model(closed)
