@@ -23,14 +23,12 @@ import scipy.linalg as sla
 
 from loopwright.engine.responses import _as_system, _triangular_blocks, auto_frequency_grid, reduce_model, reduced_response
 
-__all__ = ["LoopResponse"]
+__all__ = ["LoopResponse", "densify"]
 
 #: Largest part evaluated by batched LU (b^3 per frequency); a larger one means the whole-model route.
 _PART_MAX = 32
 #: Frequencies per batch of the cascade evaluator.
 _CHUNK = 4096
-#: Points across a lightly damped pole or zero, in half-widths from its peak.
-_RESONANCE_OFFSETS = np.array([-4.0, -2.0, -1.0, -0.5, 0.0, 0.5, 1.0, 2.0, 4.0])
 #: A part's eigenvector basis is used when its condition number is at most this (it costs
 #: at most four of the sixteen digits; the margins ask for ten).
 _KAPPA_MAX = 1e4
@@ -156,10 +154,9 @@ class LoopResponse:
     def grid(self, *, zeros=(), points_per_decade: int = 80, decades_beyond: float = 3.0, passes: int = 6):
         """A grid over the loop's dynamics and ``L`` on it.
 
-        Log-spaced over the span of :func:`loopwright.engine.responses.auto_frequency_grid`
-        (``decades_beyond`` beyond the poles and the ``zeros`` given), plus nine points
-        across every lightly damped pole or zero (damping ratio below 0.5) from four
-        half-widths below its peak to four above; then densified where neighbours differ
+        :func:`loopwright.engine.views_data.drawing_frequency_grid` on the poles and the
+        ``zeros`` given (log-spaced, ``decades_beyond`` beyond them, plus nine points across
+        every lightly damped one), then densified (:func:`densify`) where neighbours differ
         by more than 10 degrees in phase or 10 % in magnitude, so that a crossing cannot
         hide between two samples and a peak is sampled near its top.
 
@@ -167,33 +164,28 @@ class LoopResponse:
         -------
         w, L : (k,) ndarrays (rad/s; finite values only)
         """
+        from loopwright.engine.views_data import drawing_frequency_grid
+
         roots = np.concatenate([np.atleast_1d(np.asarray(self.poles, dtype=complex)), np.atleast_1d(np.asarray(zeros, dtype=complex))])
-        roots = roots[np.isfinite(roots)]
-        span = auto_frequency_grid(roots, points_per_decade=4, decades_beyond=decades_beyond)
-        lo, hi = float(span[0]), float(span[-1])
-        parts = [np.logspace(np.log10(lo), np.log10(hi), max(10, int(np.ceil(np.log10(hi / lo) * points_per_decade)) + 1))]
-        up = roots[roots.imag >= 0]
-        wn = np.abs(up)
-        keep = (wn > 0) & (wn >= lo) & (wn <= hi)
-        zeta = np.where(keep, -up.real / np.where(wn > 0, wn, 1.0), 1.0)
-        light = keep & (np.abs(zeta) < 0.5)
-        if np.any(light):
-            half = np.maximum(np.abs(zeta[light]), 1e-9) * wn[light]
-            parts.append((np.abs(up.imag[light])[:, None] + half[:, None] * _RESONANCE_OFFSETS[None, :]).ravel())
-        w = np.concatenate(parts)
-        w = np.unique(w[(w >= lo) & (w <= hi) & (w > 0)])
-        w = w[np.concatenate([[True], np.diff(w) > 1e-12 * w[1:]])]
-        L = self(w)
-        for _ in range(passes):
-            ok = np.isfinite(L)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                jump = np.abs(np.angle(L[1:] / L[:-1])) > np.radians(10.0)
-                jump |= np.abs(np.log(np.abs(L[1:]) + 1e-300) - np.log(np.abs(L[:-1]) + 1e-300)) > 0.1
-            jump &= ok[1:] & ok[:-1]
-            if not jump.any():
-                break
-            mid = np.sqrt(w[:-1][jump] * w[1:][jump])
-            order = np.argsort(np.concatenate([w, mid]), kind="stable")
-            w, L = np.concatenate([w, mid])[order], np.concatenate([L, self(mid)])[order]
+        w = drawing_frequency_grid(roots, points_per_decade=points_per_decade, decades_beyond=decades_beyond)
+        w, L = densify(self, w, self(w), passes=passes)
         finite = np.isfinite(L)
         return w[finite], L[finite]
+
+
+def densify(evaluate, w: np.ndarray, L: np.ndarray, *, passes: int = 6) -> tuple[np.ndarray, np.ndarray]:
+    """The sorted grid ``w`` and values ``L`` with the geometric midpoint added wherever two
+    neighbours differ by more than 10 degrees in phase or 10 % in magnitude, ``passes``
+    times at most; ``evaluate(w) -> L`` computes the new points (all of a pass at once)."""
+    for _ in range(passes):
+        ok = np.isfinite(L)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            jump = np.abs(np.angle(L[1:] / L[:-1])) > np.radians(10.0)
+            jump |= np.abs(np.log(np.abs(L[1:]) + 1e-300) - np.log(np.abs(L[:-1]) + 1e-300)) > 0.1
+        jump &= ok[1:] & ok[:-1]
+        if not jump.any():
+            break
+        mid = np.sqrt(w[:-1][jump] * w[1:][jump])
+        order = np.argsort(np.concatenate([w, mid]), kind="stable")
+        w, L = np.concatenate([w, mid])[order], np.concatenate([L, evaluate(mid)])[order]
+    return w, L

@@ -36,7 +36,7 @@ import scipy.optimize as sopt
 
 from loopwright.engine.eigen import PoleClasses, classify_poles, matrix_scale
 from loopwright.engine.errors import AnalysisError
-from loopwright.engine.loop_response import LoopResponse
+from loopwright.engine.loop_response import LoopResponse, densify
 from loopwright.engine.norms import certify_peak, is_stable_matrix, peak_gain
 from loopwright.engine.responses import _as_system, auto_frequency_grid, reduce_model, reduced_response
 from loopwright.engine.structure import minimal_realization, structural_trim, transmission_zeros
@@ -1118,18 +1118,7 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
             return -bw_open.response(cols, rows, 1j * w)[:, 0, 0]
 
     grid = auto_frequency_grid(np.concatenate([ol, cl]), points_per_decade=80, decades_beyond=3.0)
-    L = Ljw(grid)
-    for _ in range(6):  # densify where neighbours differ by more than 10 deg or 10 % in |L|
-        ok = np.isfinite(L)
-        jump = np.abs(np.angle(L[1:] / L[:-1])) > np.radians(10.0)
-        jump |= np.abs(np.log(np.abs(L[1:]) + 1e-300) - np.log(np.abs(L[:-1]) + 1e-300)) > 0.1
-        jump &= ok[1:] & ok[:-1]
-        if not jump.any():
-            break
-        mid = np.sqrt(grid[:-1][jump] * grid[1:][jump])
-        grid = np.concatenate([grid, mid])
-        order = np.argsort(grid)
-        grid, L = grid[order], np.concatenate([L, Ljw(mid)])[order]
+    grid, L = densify(Ljw, grid, Ljw(grid))  # where neighbours differ by more than 10 deg or 10 % in |L|
     finite = np.isfinite(L)
     grid, L = grid[finite], L[finite]
     if d == 0.0 and not np.any(L != 0.0):

@@ -321,7 +321,8 @@ def _refine_at_main_peaks(evaluate, w: np.ndarray, G: np.ndarray, *, passes: int
 _DRAWING_OFFSETS = np.array([-4.0, -2.0, -1.0, -0.5, 0.0, 0.5, 1.0, 2.0, 4.0])
 
 
-def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | None = None, points_per_decade: int = 80) -> np.ndarray:
+def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | None = None, points_per_decade: int = 80,
+                           decades_beyond: float = 2.0) -> np.ndarray:
     """A frequency grid (rad/s) for drawing a response: log-spaced over the span of
     :func:`responses.auto_frequency_grid`, plus nine points across each lightly damped
     resonance (damping ratio below 0.5) from four half-widths below to four above.
@@ -332,7 +333,7 @@ def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | 
     """
     from loopwright.engine.responses import auto_frequency_grid
 
-    span = auto_frequency_grid(poles, w_min=w_min, w_max=w_max, points_per_decade=4)
+    span = auto_frequency_grid(poles, w_min=w_min, w_max=w_max, points_per_decade=4, decades_beyond=decades_beyond)
     lo, hi = float(span[0]), float(span[-1])
     parts = [np.logspace(np.log10(lo), np.log10(hi), max(10, int(np.ceil(np.log10(hi / lo) * points_per_decade)) + 1))]
     roots = np.asarray(poles, dtype=complex)
