@@ -21,7 +21,7 @@ from __future__ import annotations
 import numpy as np
 import scipy.linalg as sla
 
-from loopwright.engine.responses import _as_system, _triangular_blocks, auto_frequency_grid, reduce_model, reduced_response
+from loopwright.engine.responses import _as_system, _triangular_blocks, reduce_model, reduced_response
 
 __all__ = ["LoopResponse", "densify"]
 

@@ -38,7 +38,7 @@ from loopwright.engine.eigen import PoleClasses, classify_poles, matrix_scale
 from loopwright.engine.errors import AnalysisError
 from loopwright.engine.loop_response import LoopResponse, densify
 from loopwright.engine.norms import certify_peak, is_stable_matrix, peak_gain
-from loopwright.engine.responses import _as_system, auto_frequency_grid, reduce_model, reduced_response
+from loopwright.engine.responses import _as_system, auto_frequency_grid
 from loopwright.engine.structure import minimal_realization, structural_trim, transmission_zeros
 
 __all__ = [
@@ -343,15 +343,6 @@ def sensitivity_system(A, B, C, D, *, offset: float = 0.0):
 def _ill_posed(D: np.ndarray) -> bool:
     q = D.shape[0]
     return abs(np.linalg.det(np.eye(q) + D)) < 1e-12 * max(1.0, np.linalg.norm(D, 1)) ** q
-
-
-def _grid_for(A, B, C, D) -> np.ndarray:
-    poles = sla.eigvals(A) if A.size else np.zeros(0)
-    try:
-        zeros = transmission_zeros(A, B, C, D)
-    except (np.linalg.LinAlgError, ValueError):
-        zeros = np.zeros(0)
-    return auto_frequency_grid(poles, zeros, points_per_decade=80, decades_beyond=3.0)
 
 
 def _wrap180(x):
@@ -687,13 +678,6 @@ def _nearest_critical_gains(crit) -> tuple[float, float, float, float]:
         if g > 1.0 and g < hi_g:
             hi_g, hi_w = g, w
     return lo_g, hi_g, lo_w, hi_w
-
-
-def _nonsingular(A) -> bool:
-    if A.size == 0:
-        return True
-    s = np.linalg.svd(A, compute_uv=False)
-    return bool(s[-1] > 1e-12 * max(1.0, s[0]))
 
 
 def _refine_roots(f, grid: np.ndarray, values: np.ndarray) -> list[float]:
