@@ -685,8 +685,8 @@ def _refine_roots(f, grid: np.ndarray, values: np.ndarray) -> list[float]:
 
     All brackets are refined together (``f`` takes an array of frequencies): the Illinois
     variant of regula falsi in log-frequency, with a bisection step every fourth pass so
-    that no bracket shrinks slowly, to a relative width of 1e-15 (as ``brentq`` with
-    ``xtol = rtol = 1e-15``; Dowell & Jarratt 1971, from memory).
+    that no bracket shrinks slowly, to a relative width of about 1e-15 in frequency (as
+    ``brentq`` with ``xtol = rtol = 1e-15`` did; Dowell & Jarratt 1971, from memory).
     """
     v = np.asarray(values, dtype=float)
     idx = np.nonzero(np.sign(v[:-1]) * np.sign(v[1:]) < 0)[0]
@@ -697,7 +697,8 @@ def _refine_roots(f, grid: np.ndarray, values: np.ndarray) -> list[float]:
         x = 0.5 * (a + b)
         side = np.zeros(idx.size, dtype=int)
         for it in range(200):
-            live = np.abs(b - a) > 1e-15 * np.maximum(np.abs(a), np.abs(b)) + 1e-300
+            # a width in log-frequency is a relative width in frequency
+            live = np.abs(b - a) > 1e-15 + 4.0 * np.finfo(float).eps * np.maximum(np.abs(a), np.abs(b))
             if not live.any():
                 break
             with np.errstate(all="ignore"):
