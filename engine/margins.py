@@ -978,6 +978,12 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
         if limits:
             _attach_limits(m, A, B, C, D)
         return m
+    return _vector_margins(A, B, C, D, signal, skew=skew, limits=limits)
+
+
+def _vector_margins(A, B, C, D, signal: str, *, skew: float, limits: bool) -> VectorLoopMargins:
+    """:func:`vector_loop_margins` of the loop ``L`` broken at the vector ``signal``, its
+    channels named ``signal[i]``, each with its performance limits when ``limits``."""
     names = [f"{signal}[{i + 1}]" for i in range(D.shape[0])]
     vm = vector_loop_margins(A, B, C, D, skew=skew, channel_names=names)
     if limits and D.shape[1] == D.shape[0]:

@@ -692,15 +692,13 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
     """
     from loopwright.engine.loop_response import LoopResponse
     from loopwright.engine.margins import (
-        LoopMargins,
         _attach_limits,
         _close_channels,
         _ill_posed,
         _trim_for_margins,
+        _vector_margins,
         certify_sensitivity_peaks,
         disk_margin_from_alpha,
-        loop_transfer,
-        margins_at,
         opened_loop,
         scalar_margins,
     )
@@ -752,11 +750,11 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
         return view_of(m)
 
     # a vector break: the margins as the command line gives them, one curve per channel
-    margins = margins_at(diagram, at, skew=skew, limits=limits)
-    A, B, C, D = _trim_for_margins(*loop_transfer(diagram, at))
+    A, B, C, D = _trim_for_margins(A, B, C, D)
+    margins = _vector_margins(A, B, C, D, at, skew=skew, limits=limits)
     q = D.shape[0]
-    per = [margins] if isinstance(margins, LoopMargins) else list(margins.per_channel)
-    names = [at] if q == 1 else list(margins.channel_names)
+    per = list(margins.per_channel)
+    names = list(margins.channel_names)
     crit = _critical_frequencies(per)
     poles = np.linalg.eigvals(A) if A.size else np.zeros(0)
     w = np.unique(np.concatenate([auto_frequency_grid(poles, points_per_decade=120), np.asarray(crit, dtype=float)]))
