@@ -36,8 +36,9 @@ import scipy.optimize as sopt
 
 from loopwright.engine.eigen import PoleClasses, classify_poles, matrix_scale
 from loopwright.engine.errors import AnalysisError
-from loopwright.engine.norms import is_stable_matrix, peak_gain
-from loopwright.engine.responses import _as_system, auto_frequency_grid, reduce_model, reduced_response
+from loopwright.engine.loop_response import LoopResponse, densify
+from loopwright.engine.norms import certify_peak, is_stable_matrix, peak_gain
+from loopwright.engine.responses import _as_system, auto_frequency_grid
 from loopwright.engine.structure import minimal_realization, structural_trim, transmission_zeros
 
 __all__ = [
@@ -50,9 +51,12 @@ __all__ = [
     "sensitivity_system",
     "closed_loop_matrix",
     "loop_margins",
+    "scalar_margins",
+    "certify_sensitivity_peaks",
     "vector_loop_margins",
     "margins_from_response",
     "loop_transfer",
+    "opened_loop",
     "margins_at",
     "sensitivity_maps",
 ]
@@ -195,6 +199,9 @@ class LoopMargins:
     delay_margin_w_rad_s: float = np.nan
     notes: list[str] = field(default_factory=list)
     limits: object | None = None  # PerformanceLimits (loopwright.engine.limits), when computed
+    #: False while peak sensitivity and the disk margin are refined grid values not yet
+    #: certified by the Hamiltonian test (the loop-break view's first pass)
+    certified: bool = True
 
     @property
     def gain_margin_db(self) -> tuple[float, float]:
@@ -338,15 +345,6 @@ def _ill_posed(D: np.ndarray) -> bool:
     return abs(np.linalg.det(np.eye(q) + D)) < 1e-12 * max(1.0, np.linalg.norm(D, 1)) ** q
 
 
-def _grid_for(A, B, C, D) -> np.ndarray:
-    poles = sla.eigvals(A) if A.size else np.zeros(0)
-    try:
-        zeros = transmission_zeros(A, B, C, D)
-    except (np.linalg.LinAlgError, ValueError):
-        zeros = np.zeros(0)
-    return auto_frequency_grid(poles, zeros, points_per_decade=80, decades_beyond=3.0)
-
-
 def _wrap180(x):
     """Wrap degrees into (-180, 180]."""
     y = np.mod(np.asarray(x, dtype=float) + 180.0, 360.0) - 180.0
@@ -378,22 +376,46 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         raise AnalysisError(f"loop_margins needs a scalar loop; L is {C.shape[0]}x{B.shape[1]} (use vector_loop_margins)")
     if _ill_posed(D):
         raise AnalysisError("1 + L(inf) = 0: the closed loop has no proper solution at this break")
+    resp = LoopResponse(A, B, C, D)
+    try:
+        zeros = transmission_zeros(A, B, C, D) if A.size else np.zeros(0)
+    except (np.linalg.LinAlgError, ValueError):
+        zeros = np.zeros(0)
+    m, _w, _L = scalar_margins(resp, skew=skew, zeros=zeros, certify=True)
+    return m
+
+
+def scalar_margins(resp: LoopResponse, *, skew: float = 0.0, zeros=(), certify: bool = True, progress=None):
+    """Margins of the scalar loop ``resp`` (a :class:`~loopwright.engine.loop_response.LoopResponse`),
+    and the grid they were found on.
+
+    Crossings are bracketed on one grid (:meth:`LoopResponse.grid`, laid on the poles and
+    the ``zeros`` given) and refined with ``brentq``. Peak sensitivity and the disk margin
+    are first the grid's highest local maxima of ``|S|`` and ``|S + (skew - 1)/2|``, each
+    refined by a bounded search in log-frequency (to about 1e-10 relative); with
+    ``certify`` they are then certified by the Hamiltonian test
+    (:func:`loopwright.engine.norms.certify_peak`) started there, and
+    ``LoopMargins.certified`` says so. ``progress(fraction)`` is called between the steps
+    (it may stop the work by raising).
+
+    Returns
+    -------
+    margins : LoopMargins
+    w, L : (k,) ndarrays
+        The grid (rad/s) and ``L(jw)`` on it.
+    """
+    report = progress if progress is not None else (lambda _f: None)
+    A, B, C, D = resp.A, resp.B, resp.C, resp.D
     n = A.shape[0]
-    red = reduce_model(A)
-    Bt, Ct = red.input_matrix(B), red.output_matrix(C)
+    Ljw = resp
+    ol_classes = classify_poles(resp.poles, scale=matrix_scale(A)) if n else PoleClasses(0, 0, 0, 0)
+    grid, L = resp.grid(zeros=zeros)
+    report(0.1)
 
-    def Ljw(w):
-        return reduced_response(red, Bt, Ct, D, 1j * np.atleast_1d(np.asarray(w, dtype=float)), B=B, C=C)[:, 0, 0]
-
-    ol_classes = classify_poles(red.poles, scale=matrix_scale(A)) if n else PoleClasses(0, 0, 0, 0)
-    grid = _grid_for(A, B, C, D)
-    L = Ljw(grid)
-    finite = np.isfinite(L)
-    grid, L = grid[finite], L[finite]
-
-    d = float(D[0, 0])
-    L0 = Ljw(0.0)[0] if n == 0 or _nonsingular(A) else complex(np.nan)
+    d = resp.d
+    L0 = Ljw(0.0)[0] if n == 0 or _nonsingular_poles(resp.poles, A) else complex(np.nan)
     wc, pms, pm, pm_w, delays, dm, crit = _crossings(Ljw, grid, L, d, L0)
+    report(0.2)
     # classify the intervals between critical gains by closed-loop pole count
     edges = [0.0] + [g for g, _ in crit] + [np.inf]
 
@@ -414,6 +436,7 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         stable_ranges = []
         for a, b in zip(edges[:-1], edges[1:]):
             mid = np.sqrt(a * b) if a > 0 and np.isfinite(b) else (b / 2.0 if a == 0 and np.isfinite(b) else (2.0 * a if a > 0 else 1.0))
+            report(0.3)
             if stable_at(mid):
                 stable_ranges.append((a, b))
         msg = "the closed loop is unstable at nominal gain" + (
@@ -421,17 +444,118 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
         )
 
     # --- sensitivity and disk margins ---------------------------------------------------
+    certified = True
     if nominal:
-        As, Bs, Cs, Ds = sensitivity_system(A, B, C, D)
-        ps = peak_gain(As, Bs, Cs, Ds)
-        pk_d = peak_gain(As, Bs, Cs, Ds + (skew - 1.0) / 2.0)
-        disk = disk_margin_from_alpha(1.0 / pk_d.value if pk_d.value > 0 else np.inf, skew=skew, w_rad_s=pk_d.w_rad_s)
-        s_peak, s_w = ps.value, ps.w_rad_s
+        S = 1.0 / (1.0 + L)
+        s_peak, s_w = _refined_peak(Ljw, grid, S, 0.0, L0, d)
+        pk_d, pk_d_w = _refined_peak(Ljw, grid, S, (skew - 1.0) / 2.0, L0, d)
+        report(0.4)
+        certified = False
+        if certify:
+            (s_peak, s_w), (pk_d, pk_d_w) = certify_sensitivity_peaks(resp, (s_peak, s_w), (pk_d, pk_d_w), skew=skew, progress=report)
+            certified = True
+        disk = disk_margin_from_alpha(1.0 / pk_d if pk_d > 0 else np.inf, skew=skew, w_rad_s=pk_d_w)
     else:
         s_peak, s_w = np.inf, np.nan
         disk = DiskMargin(0.0, skew, 1.0, 1.0, 0.0, np.nan)
         dm = np.nan if not nominal else dm
-    return _margins_record(bool(nominal), ol_classes, (lo_g, hi_g, lo_w, hi_w), (wc, pms, pm, pm_w, delays, dm, crit), (s_peak, s_w), disk, msg)
+    m = _margins_record(bool(nominal), ol_classes, (lo_g, hi_g, lo_w, hi_w), (wc, pms, pm, pm_w, delays, dm, crit), (s_peak, s_w), disk, msg)
+    m.certified = certified
+    return m, grid, L
+
+
+def certify_sensitivity_peaks(resp: LoopResponse, sens: tuple[float, float], disk: tuple[float, float], *, skew: float = 0.0,
+                              progress=None) -> tuple[tuple[float, float], tuple[float, float]]:
+    """Certify the peak of ``|S|`` and of ``|S + (skew - 1)/2|`` of a loop whose closed loop
+    is stable, each from its refined grid value ``(peak, w)``: the Hamiltonian test of
+    :func:`loopwright.engine.norms.certify_peak` (one ``2n x 2n`` eigenvalue computation
+    when the start is the peak, a few level-set steps when it is not).
+
+    Returns
+    -------
+    (peak, w), (peak, w) : the certified values, for ``S`` and for the disk.
+    """
+    report = progress if progress is not None else (lambda _f: None)
+    As, Bs, Cs, Ds = sensitivity_system(resp.A, resp.B, resp.C, resp.D)
+    offset = (skew - 1.0) / 2.0
+
+    def S_eval(w, c=0.0):
+        with np.errstate(all="ignore"):
+            L = resp(w)
+            # at a pole of L on the axis S vanishes
+            return (np.where(np.isfinite(L), 1.0 / (1.0 + L), 0.0) + c)[:, None, None]
+
+    report(0.45)
+    ps = certify_peak(As, Bs, Cs, Ds, sens[0], sens[1], evaluate=S_eval, check=lambda: report(0.5))
+    report(0.7)
+    pd = certify_peak(As, Bs, Cs, Ds + offset, disk[0], disk[1], evaluate=lambda w: S_eval(w, offset), check=lambda: report(0.75))
+    report(0.95)
+    return (ps.value, ps.w_rad_s), (pd.value, pd.w_rad_s)
+
+
+#: Local maxima of the grid refined by a bounded search (the highest first).
+_PEAKS_REFINED = 6
+
+
+def _refined_peak(Ljw, grid: np.ndarray, S: np.ndarray, offset: float, L0: complex, d: float) -> tuple[float, float]:
+    """Peak over w of ``|S(jw) + offset|``: the grid's highest local maxima, each refined by a
+    bounded search in log-frequency between its neighbours, and the ends ``w = 0`` and
+    ``w -> inf``."""
+    mags = np.abs(S + offset)
+    mags = np.where(np.isfinite(mags), mags, -np.inf)
+    best, w_best = -np.inf, np.nan
+    if mags.size:
+        inner = np.nonzero((mags[1:-1] >= mags[:-2]) & (mags[1:-1] >= mags[2:]))[0] + 1
+        inner = inner[np.argsort(-mags[inner])][:_PEAKS_REFINED]
+        k = int(np.argmax(mags))
+        best, w_best = float(mags[k]), float(grid[k])
+        if inner.size:
+            def f(lw):
+                with np.errstate(all="ignore"):
+                    v = np.abs(1.0 / (1.0 + Ljw(np.exp(lw))) + offset)
+                return np.where(np.isfinite(v), v, -np.inf)
+
+            xs, vs = _golden_max(f, np.log(grid[inner - 1]), np.log(grid[inner + 1]))
+            j = int(np.argmax(vs))
+            if vs[j] > best:
+                best, w_best = float(vs[j]), float(np.exp(xs[j]))
+    with np.errstate(all="ignore"):
+        at0 = abs(1.0 / (1.0 + L0) + offset)
+    if np.isfinite(at0) and at0 >= best:
+        best, w_best = float(at0), 0.0
+    at_inf = abs(1.0 / (1.0 + d) + offset)
+    if at_inf > best:
+        best, w_best = float(at_inf), np.inf
+    return best, w_best
+
+
+def _golden_max(f, lo: np.ndarray, hi: np.ndarray, *, xtol: float = 1e-10):
+    """Golden-section search for the maximum of ``f`` on each interval ``[lo_i, hi_i]`` at
+    once (``f`` maps an array of points to values); returns the best points and values
+    seen (the grid neighbours bracket a local maximum, so the search converges to it)."""
+    g = (np.sqrt(5.0) - 1.0) / 2.0
+    a, b = lo.astype(float).copy(), hi.astype(float).copy()
+    c, d = b - g * (b - a), a + g * (b - a)
+    fc, fd = f(c), f(d)
+    best_x, best_v = np.where(fc >= fd, c, d), np.maximum(fc, fd)
+    while np.any(b - a > xtol):
+        left = fc >= fd  # the maximum lies in [a, d]
+        b = np.where(left, d, b)
+        a = np.where(left, a, c)
+        c_new, d_new = b - g * (b - a), a + g * (b - a)
+        x = np.where(left, c_new, d_new)
+        fx = f(x)
+        c, d, fc, fd = (np.where(left, c_new, d), np.where(left, c, d_new), np.where(left, fx, fd), np.where(left, fc, fx))
+        better = fx > best_v
+        best_x, best_v = np.where(better, x, best_x), np.where(better, fx, best_v)
+    return best_x, best_v
+
+
+def _nonsingular_poles(poles: np.ndarray, A: np.ndarray) -> bool:
+    """``A`` is invertible: no eigenvalue within rounding of the origin."""
+    if poles.size == 0:
+        return True
+    return bool(np.min(np.abs(poles)) > 1e-12 * max(1.0, float(np.max(np.abs(poles))), float(np.linalg.norm(A, 1))))
 
 
 def _margins_record(stable: bool, ol_classes: PoleClasses, gains, crossings, sensitivity, disk: DiskMargin, message: str) -> LoopMargins:
@@ -470,7 +594,7 @@ def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
     Returns ``(wc, pms, pm, pm_w, delays, dm, crit)``, ``crit`` sorted ``(gain, w)`` pairs.
     """
     logmag = np.log(np.abs(L) + 1e-300)
-    wc = np.array(_refine_roots(lambda w: np.log(np.abs(Ljw(w)[0]) + 1e-300), grid, logmag))
+    wc = np.array(_refine_roots(lambda w: np.log(np.abs(Ljw(w)) + 1e-300), grid, logmag))
     if wc.size:
         phase = np.degrees(np.angle(Ljw(wc)))
         pms = _wrap180(phase + 180.0)
@@ -483,8 +607,8 @@ def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
         pms, delays = np.zeros(0), np.zeros(0)
         pm, pm_w, dm = np.inf, np.nan, np.inf
     crit: list[tuple[float, float]] = []
-    for w in _refine_roots(lambda w: Ljw(w)[0].imag, grid, L.imag):
-        val = Ljw(w)[0]
+    wx = np.asarray(_refine_roots(lambda w: Ljw(w).imag, grid, L.imag))
+    for w, val in zip(wx, Ljw(wx) if wx.size else []):
         if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val):
             crit.append((-1.0 / val.real, float(w)))
     if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0):
@@ -556,27 +680,47 @@ def _nearest_critical_gains(crit) -> tuple[float, float, float, float]:
     return lo_g, hi_g, lo_w, hi_w
 
 
-def _nonsingular(A) -> bool:
-    if A.size == 0:
-        return True
-    s = np.linalg.svd(A, compute_uv=False)
-    return bool(s[-1] > 1e-12 * max(1.0, s[0]))
-
-
 def _refine_roots(f, grid: np.ndarray, values: np.ndarray) -> list[float]:
-    """Roots of ``f`` on ``(grid[0], grid[-1])``, bracketed by sign changes of ``values``."""
-    roots = []
+    """Roots of ``f`` on ``(grid[0], grid[-1])``, bracketed by sign changes of ``values``.
+
+    All brackets are refined together (``f`` takes an array of frequencies): the Illinois
+    variant of regula falsi in log-frequency, with a bisection step every fourth pass so
+    that no bracket shrinks slowly, to a relative width of about 1e-15 in frequency (as
+    ``brentq`` with ``xtol = rtol = 1e-15`` did; Dowell & Jarratt 1971, from memory).
+    """
     v = np.asarray(values, dtype=float)
-    for i in np.nonzero(np.sign(v[:-1]) * np.sign(v[1:]) < 0)[0]:
-        a, b = grid[i], grid[i + 1]
-        try:
-            # work in log-frequency: crossings are evenly resolved across decades
-            r = sopt.brentq(lambda lw: f(np.exp(lw)), np.log(a), np.log(b), xtol=1e-15, rtol=1e-15, maxiter=200)
-            roots.append(float(np.exp(r)))
-        except ValueError:
-            continue
-    for i in np.nonzero(v == 0)[0]:
-        roots.append(float(grid[i]))
+    idx = np.nonzero(np.sign(v[:-1]) * np.sign(v[1:]) < 0)[0]
+    roots = [float(grid[i]) for i in np.nonzero(v == 0)[0]]
+    if idx.size:
+        a, b = np.log(grid[idx]), np.log(grid[idx + 1])
+        fa, fb = v[idx].copy(), v[idx + 1].copy()
+        x = 0.5 * (a + b)
+        side = np.zeros(idx.size, dtype=int)
+        for it in range(200):
+            # a width in log-frequency is a relative width in frequency
+            live = np.abs(b - a) > 1e-15 + 4.0 * np.finfo(float).eps * np.maximum(np.abs(a), np.abs(b))
+            if not live.any():
+                break
+            with np.errstate(all="ignore"):
+                xs = b - fb * (b - a) / (fb - fa)
+            bad = ~np.isfinite(xs) | (xs <= np.minimum(a, b)) | (xs >= np.maximum(a, b)) | (it % 4 == 3)
+            x = np.where(live, np.where(bad, 0.5 * (a + b), xs), x)
+            fx = np.zeros(idx.size)
+            fx[live] = np.asarray(f(np.exp(x[live])), dtype=float)
+            left = live & (np.sign(fx) == np.sign(fa))  # the root is in (x, b)
+            right = live & ~left & (fx != 0)
+            done = live & (fx == 0)
+            a = np.where(left, x, a)
+            fa = np.where(left, fx, fa)
+            fb = np.where(left & (side == 1), 0.5 * fb, fb)  # Illinois: halve the stale end
+            b = np.where(right, x, b)
+            fb = np.where(right, fx, fb)
+            fa = np.where(right & (side == -1), 0.5 * fa, fa)
+            side = np.where(left, 1, np.where(right, -1, side))
+            a = np.where(done, x, a)
+            b = np.where(done, x, b)
+        ok = np.isfinite(x)
+        roots += [float(r) for r in np.exp(np.where(np.abs(fa) < np.abs(fb), a, b))[ok]]
     return sorted(set(roots))
 
 
@@ -828,9 +972,32 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
         fast = _margins_block_by_block(diagram, opened, base, skew=skew, force=route == "block by block")
         if fast is not None:
             return fast
+    A, B, C, D = _break_loop(opened, signal, base, component, trim=_trim_for_margins)
+    if D.shape[0] == 1:
+        m = loop_margins(A, B, C, D, skew=skew)
+        if limits:
+            _attach_limits(m, A, B, C, D)
+        return m
+    return _vector_margins(A, B, C, D, signal, skew=skew, limits=limits)
+
+
+def _vector_margins(A, B, C, D, signal: str, *, skew: float, limits: bool) -> VectorLoopMargins:
+    """:func:`vector_loop_margins` of the loop ``L`` broken at the vector ``signal``, its
+    channels named ``signal[i]``, each with its performance limits when ``limits``."""
+    names = [f"{signal}[{i + 1}]" for i in range(D.shape[0])]
+    vm = vector_loop_margins(A, B, C, D, skew=skew, channel_names=names)
+    if limits and D.shape[1] == D.shape[0]:
+        for i, m in enumerate(vm.per_channel):
+            _attach_limits(m, *_close_channels(A, B, C, D, i))
+    return vm
+
+
+def _break_loop(opened, signal: str, base: str, component, *, trim):
+    """``L`` of the loop opened at ``base`` (an assembled model), trimmed by ``trim``, checked
+    for a loop through it, and with the other channels closed when ``component`` is given."""
     A, B, C, D = opened.pair(f"break:{base}", opened.break_return)
     C, D = -C, -D  # L = -G(break -> returned signal), as loop_transfer
-    A, B, C, D = _trim_for_margins(A, B, C, D)
+    A, B, C, D = trim(A, B, C, D)
     if not np.any(D) and (A.shape[0] == 0 or not np.any(B) or not np.any(C)):
         raise AnalysisError(
             f"no feedback loop passes through {signal!r}: a signal injected there never comes back, so there are no margins to compute"
@@ -842,22 +1009,41 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
         if D.shape[1] != q:
             raise AnalysisError(f"a loop transfer must be square; got {D.shape[0]}x{D.shape[1]}")
         A, B, C, D = _close_channels(A, B, C, D, component - 1)
-    if D.shape[0] == 1:
-        m = loop_margins(A, B, C, D, skew=skew)
-        if limits:
-            _attach_limits(m, A, B, C, D)
-        return m
-    names = [f"{signal}[{i + 1}]" for i in range(D.shape[0])]
-    vm = vector_loop_margins(A, B, C, D, skew=skew, channel_names=names)
-    if limits and D.shape[1] == D.shape[0]:
-        for i, m in enumerate(vm.per_channel):
-            _attach_limits(m, *_close_channels(A, B, C, D, i))
-    return vm
+    return A, B, C, D
+
+
+def opened_loop(diagram, signal: str):
+    """``L`` at the break ``signal`` (as :func:`margins_at` reads it: a signal, a port or one
+    component ``"P.u[2]"``), from one assembly, with the states off the loop dropped where
+    that is exact (:func:`structural_trim`; unstable ones are kept).
+
+    Returns
+    -------
+    (A, B, C, D) : ndarrays
+    """
+    from loopwright.engine.interconnect import assemble
+
+    base, component = _split_component(diagram, signal)
+    opened = assemble(diagram, break_at=base)
+    return _break_loop(opened, signal, base, component, trim=_structural_trim)
+
+
+def _structural_trim(A, B, C, D):
+    """Drop the states structurally off the loop when they are all stable (the first step of
+    :func:`_trim_for_margins`, without its minimal realization)."""
+    keep = structural_trim(A, B, C)
+    if keep.size < A.shape[0]:
+        drop = np.setdiff1d(np.arange(A.shape[0]), keep)
+        if is_stable_matrix(A[np.ix_(drop, drop)]):
+            A, B, C = A[np.ix_(keep, keep)], B[keep], C[:, keep]
+    return A, B, C, D
 
 
 # Below this many states the whole-model route takes well under a second and also gives
 # the performance limits; the block-by-block route is for big loops.
 _BLOCKWISE_MIN_STATES = 200
+#: Sweeps of the coupling-form pole iteration counted by the route's operation count.
+_ABERTH_SWEEPS = 20
 
 
 def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: bool) -> LoopMargins | None:
@@ -897,7 +1083,11 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
     # three dense O(n^3) factorisations), one Schur form, eigenvalues per critical gain
     # and a Hamiltonian peak search of order 2n for S and for the disk
     dense = 5.0 * whole_model_cost(opened, 1, points) + 2 * 25.0 * (2.0 * n) ** 3
-    if not force and (n < _BLOCKWISE_MIN_STATES or bw_open.cost(1, 1, points) + 60.0 * n * n >= dense):
+    # the poles of the open and of the closed loop by the coupling form: a batched solve of
+    # size q per root and sweep (tens of sweeps), which a loop with many coupling channels
+    # (a ring of observer-based loops: q grows with n) makes dearer than a dense eigensolver
+    poles = 2.0 * _ABERTH_SWEEPS * n * (8.0 * bw_open.q**3 / 3.0 + 8.0 * bw_open.q**2)
+    if not force and (n < _BLOCKWISE_MIN_STATES or bw_open.cost(1, 1, points) + 60.0 * n * n + poles >= dense):
         return None
     closed = assemble(diagram)
     bw_closed = BlockwiseModel.from_model(closed)
@@ -919,18 +1109,7 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
             return -bw_open.response(cols, rows, 1j * w)[:, 0, 0]
 
     grid = auto_frequency_grid(np.concatenate([ol, cl]), points_per_decade=80, decades_beyond=3.0)
-    L = Ljw(grid)
-    for _ in range(6):  # densify where neighbours differ by more than 10 deg or 10 % in |L|
-        ok = np.isfinite(L)
-        jump = np.abs(np.angle(L[1:] / L[:-1])) > np.radians(10.0)
-        jump |= np.abs(np.log(np.abs(L[1:]) + 1e-300) - np.log(np.abs(L[:-1]) + 1e-300)) > 0.1
-        jump &= ok[1:] & ok[:-1]
-        if not jump.any():
-            break
-        mid = np.sqrt(grid[:-1][jump] * grid[1:][jump])
-        grid = np.concatenate([grid, mid])
-        order = np.argsort(grid)
-        grid, L = grid[order], np.concatenate([L, Ljw(mid)])[order]
+    grid, L = densify(Ljw, grid, Ljw(grid))  # where neighbours differ by more than 10 deg or 10 % in |L|
     finite = np.isfinite(L)
     grid, L = grid[finite], L[finite]
     if d == 0.0 and not np.any(L != 0.0):

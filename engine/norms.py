@@ -32,6 +32,7 @@ __all__ = [
     "H2Norm",
     "is_stable_matrix",
     "peak_gain",
+    "certify_peak",
     "h2_norm",
     "dc_gain",
     "sigma_max",
@@ -152,17 +153,54 @@ def peak_gain(A, B, C, D=None, *, tol: float = 1e-10, minimal: bool = True, max_
         lb, w_best = d_norm, np.inf
     if lb == 0.0:
         return PeakGain(0.0, 0.0, True)
+    return certify_peak(A, B, C, D, lb, w_best, evaluate=evaluate, tol=tol, max_iter=max_iter)
+
+
+def certify_peak(A, B, C, D, lower: float, w_lower: float, *, evaluate=None, tol: float = 1e-10, max_iter: int = 60,
+                 check=None) -> PeakGain:
+    """The peak gain of a stable system from a known lower bound: the Hamiltonian level-set
+    iteration (see the module notes) started at ``lower``, reached at ``w_lower``.
+
+    A good start (a grid maximum refined by a local search) usually leaves one Hamiltonian
+    eigenvalue computation, which finds no crossing above ``(1 + 2 tol) lower``: that is
+    the certificate. ``A`` must be stable (not checked here) and need not be minimal.
+
+    Parameters
+    ----------
+    A, B, C, D : ndarray
+        The system, ``A`` stable.
+    lower, w_lower : float
+        ``sigma_max(G(j w_lower)) = lower`` (``w_lower = inf`` for ``||D||``).
+    evaluate : callable, optional
+        ``w -> G(jw)`` as a (k, p, m) array; by default from one reduction of ``A``.
+    check : callable, optional
+        Called before each Hamiltonian eigenvalue computation (a progress report that may
+        stop the work by raising).
+
+    Returns
+    -------
+    PeakGain
+    """
+    A, B, C, D = _as_system(A, B, C, D)
+    n, m, p = A.shape[0], B.shape[1], C.shape[0]
+    if evaluate is None:
+        evaluate = _freq_evaluator(A, B, C, D)
+    lb, w_best = float(lower), float(w_lower)
+    if n == 0 or lb == 0.0:
+        return PeakGain(lb, w_best if lb > 0 else 0.0, True)
     Ip, Im = np.eye(p), np.eye(m)
     bracket = None
     for _ in range(max_iter):
+        if check is not None:
+            check()
         gamma = (1.0 + 2.0 * tol) * lb
         R = D.T @ D - gamma**2 * Im
         S = D @ D.T - gamma**2 * Ip
         Ri = np.linalg.inv(R)
         Ae = A - B @ Ri @ D.T @ C
         H = np.block([[Ae, -gamma * B @ Ri @ B.T], [gamma * C.T @ np.linalg.solve(S, C), -Ae.T]])
-        ev = sla.eigvals(H)
         hn = max(1.0, np.linalg.norm(H, 1))
+        ev = sla.eigvals(H)
         on_axis = ev[(np.abs(ev.real) <= 1e-7 * np.maximum(1.0, np.abs(ev)) + 1e-10 * hn) & (ev.imag >= 0)]
         if on_axis.size == 0:
             break
@@ -172,8 +210,9 @@ def peak_gain(A, B, C, D=None, *, tol: float = 1e-10, minimal: bool = True, max_
         else:
             mids = 0.5 * (ws[:-1] + ws[1:])
         g_mid = sigma_max(evaluate(mids))
+        g_mid = np.where(np.isfinite(g_mid), g_mid, -np.inf)
         j = int(np.argmax(g_mid))
-        if g_mid[j] <= lb * (1.0 + tol):
+        if not g_mid[j] > lb * (1.0 + tol):
             break
         lb, w_best = float(g_mid[j]), float(mids[j])
         if ws.size > 1:

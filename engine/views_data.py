@@ -10,6 +10,7 @@ A *pair* names one input and one output: the input is a source name or
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from functools import cached_property
 
@@ -324,7 +325,8 @@ _DRAWING_OFFSETS = np.array([-4.0, -2.0, -1.0, -0.5, 0.0, 0.5, 1.0, 2.0, 4.0])
 _DRAWING_RESOLUTION = 1000
 
 
-def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | None = None, points_per_decade: int = 80) -> np.ndarray:
+def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | None = None, points_per_decade: int = 80,
+                           decades_beyond: float = 2.0) -> np.ndarray:
     """A frequency grid (rad/s) for drawing a response: log-spaced over the span of
     :func:`responses.auto_frequency_grid`, plus nine points across each lightly damped
     resonance (damping ratio below 0.5) from four half-widths below to four above.
@@ -335,7 +337,7 @@ def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | 
     """
     from loopwright.engine.responses import auto_frequency_grid
 
-    span = auto_frequency_grid(poles, w_min=w_min, w_max=w_max, points_per_decade=4)
+    span = auto_frequency_grid(poles, w_min=w_min, w_max=w_max, points_per_decade=4, decades_beyond=decades_beyond)
     lo, hi = float(span[0]), float(span[-1])
     parts = [np.logspace(np.log10(lo), np.log10(hi), max(10, int(np.ceil(np.log10(hi / lo) * points_per_decade)) + 1))]
     roots = np.asarray(poles, dtype=complex)
@@ -724,33 +726,97 @@ class LoopBreakView:
     critical_w_rad_s: list[float] = field(default_factory=list)
 
 
-def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True) -> LoopBreakView:
+def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True, progress=None, interim=None) -> LoopBreakView:
     """Nyquist curves, exclusion disks and margins of the loop broken at ``at``.
 
     ``limits=False`` leaves out the performance limits (Bode's sensitivity integral and
     the like, see :func:`margins.margins_at`): most of the cost of a large loop, and the
     app's loop-break view does not show them.
 
+    A scalar break is computed in one pass over one evaluator of ``L``
+    (:class:`~loopwright.engine.loop_response.LoopResponse`): the margins' grid is the
+    curve's grid. Peak sensitivity and the disk margin are certified by the Hamiltonian
+    test (:func:`margins.certify_sensitivity_peaks`); when that test is costly (a large
+    loop) and ``interim`` is given, ``interim(view)`` first receives the view with the
+    refined grid values (``margins.certified`` False), so it can be drawn at once.
+    ``progress(fraction)`` is called between the steps and may stop the work by raising.
+
     Raises
     ------
     UnknownNameError, AnalysisError
         No such break point, or no loop through it.
     """
-    from loopwright.engine.margins import LoopMargins, _close_channels, _trim_for_margins, loop_transfer, margins_at
+    from loopwright.engine.loop_response import LoopResponse
+    from loopwright.engine.margins import (
+        _attach_limits,
+        _close_channels,
+        _ill_posed,
+        _trim_for_margins,
+        _vector_margins,
+        certify_sensitivity_peaks,
+        disk_margin_from_alpha,
+        opened_loop,
+        scalar_margins,
+    )
     from loopwright.engine.responses import auto_frequency_grid, frequency_response
 
-    margins = margins_at(diagram, at, skew=skew, limits=limits)
-    A, B, C, D = _trim_for_margins(*loop_transfer(diagram, at))
+    report = progress if progress is not None else (lambda _f: None)
+    if not np.isfinite(skew):
+        raise AnalysisError(f"disk-margin skew must be a finite number; got {skew}")
+    A, B, C, D = opened_loop(diagram, at)
+    report(0.05)
+    if D.shape[0] == 1:
+        if _ill_posed(D):
+            raise AnalysisError("1 + L(inf) = 0: the closed loop has no proper solution at this break")
+        resp = LoopResponse(A, B, C, D)
+        zeros = ()
+        if limits or resp.n <= _ZEROS_MAX_STATES:  # cheap at this size: a grid point on every zero as well
+            from loopwright.engine.structure import transmission_zeros
+
+            try:
+                zeros = transmission_zeros(A, B, C, D) if A.size else ()
+            except (np.linalg.LinAlgError, ValueError):
+                zeros = ()
+        costly = interim is not None and resp.n >= _PROGRESSIVE_MIN_STATES
+        m, w, L = scalar_margins(resp, skew=skew, zeros=zeros, certify=not costly, progress=report)
+
+        def view_of(m):
+            crit = _critical_frequencies([m])
+            extra = np.setdiff1d(np.asarray(crit, dtype=float), w)
+            ww, LL = w, L
+            if extra.size:
+                ww = np.concatenate([w, extra])
+                LL = np.concatenate([L, resp(extra)])
+                order = np.argsort(ww, kind="stable")
+                ww, LL = ww[order], LL[order]
+            circle = disk_exclusion_circle(m.disk.gain_lower, m.disk.gain_upper) if m.closed_loop_stable else (np.nan, np.nan)
+            return LoopBreakView(at, [at], ww, [LL], [circle], m, None, crit)
+
+        if not m.certified and m.closed_loop_stable:
+            interim(view_of(m))
+            (s_peak, s_w), (pk, pk_w) = certify_sensitivity_peaks(
+                resp, (m.peak_sensitivity, m.peak_sensitivity_w_rad_s), (1.0 / m.disk.alpha if m.disk.alpha > 0 else np.inf, m.disk.w_rad_s),
+                skew=skew, progress=report)
+            # a new record: the interim view keeps its own
+            m = dataclasses.replace(m, peak_sensitivity=float(s_peak), peak_sensitivity_w_rad_s=float(s_w), certified=True,
+                                    disk=disk_margin_from_alpha(1.0 / pk if pk > 0 else np.inf, skew=skew, w_rad_s=pk_w))
+        if limits:
+            _attach_limits(m, *_trim_for_margins(A, B, C, D))
+        report(1.0)
+        return view_of(m)
+
+    # a vector break: the margins as the command line gives them, one curve per channel
+    A, B, C, D = _trim_for_margins(A, B, C, D)
+    margins = _vector_margins(A, B, C, D, at, skew=skew, limits=limits)
     q = D.shape[0]
-    per = [margins] if isinstance(margins, LoopMargins) else list(margins.per_channel)
-    names = [at] if q == 1 else list(margins.channel_names)
-    crit = sorted({float(x) for m in per for x in (m.disk.w_rad_s, m.phase_margin_w_rad_s, m.gain_lower_w_rad_s, m.gain_upper_w_rad_s,
-                                                     m.peak_sensitivity_w_rad_s, *m.gain_crossovers_w_rad_s, *m.phase_crossovers_w_rad_s)
-                   if np.isfinite(x) and x > 0})
+    per = list(margins.per_channel)
+    names = list(margins.channel_names)
+    crit = _critical_frequencies(per)
     poles = np.linalg.eigvals(A) if A.size else np.zeros(0)
     w = np.unique(np.concatenate([auto_frequency_grid(poles, points_per_decade=120), np.asarray(crit, dtype=float)]))
     curves = []
     for i in range(q):
+        report(0.6 + 0.3 * i / q)
         Ai, Bi, Ci, Di = _close_channels(A, B, C, D, i) if q > 1 else (A, B, C, D)
         with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
             curves.append(frequency_response(Ai, Bi, Ci, Di, w)[:, 0, 0])
@@ -762,7 +828,23 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True)
         ok = np.all(np.isfinite(L), axis=(1, 2))
         loci = np.full((w.size, q), np.nan + 0j)
         loci[ok] = np.sort_complex(np.linalg.eigvals(L[ok]))
+    report(1.0)
     return LoopBreakView(at, names, w, curves, circles, margins, loci, crit)
+
+
+#: Up to this many states the transmission zeros (one generalised eigenvalue problem) are
+#: cheap enough to lay grid points on them too.
+_ZEROS_MAX_STATES = 150
+#: From this many states on, the certification of the peaks (a 2n x 2n Hamiltonian
+#: eigenvalue problem per peak) follows the first drawing when the caller takes an interim view.
+_PROGRESSIVE_MIN_STATES = 120
+
+
+def _critical_frequencies(per) -> list[float]:
+    """Where the margins of the channels ``per`` are reached (positive, finite), sorted."""
+    return sorted({float(x) for m in per for x in (m.disk.w_rad_s, m.phase_margin_w_rad_s, m.gain_lower_w_rad_s, m.gain_upper_w_rad_s,
+                                                   m.peak_sensitivity_w_rad_s, *m.gain_crossovers_w_rad_s, *m.phase_crossovers_w_rad_s)
+                   if np.isfinite(x) and x > 0})
 
 
 # ---------------------------------------------------------------------------------------

@@ -271,18 +271,26 @@ class _JobControl:
     next report instead of letting it run to the end for nothing.
     """
 
-    def __init__(self, key: str, emit):
+    def __init__(self, key: str, emit, emit_interim=None):
         self.key = key
         self._emit = emit
+        self._emit_interim = emit_interim
         self._stopped = threading.Event()
         self._last = -1.0
 
     def stop(self) -> None:
         self._stopped.set()
 
-    def report(self, fraction: float) -> None:
+    def report(self, fraction: float, interim=None) -> None:
+        """Report the fraction done; ``interim`` (optional) is a first answer to show while
+        the job goes on (a view drawn before its values are certified)."""
         if self._stopped.is_set():
             raise JobStopped(f"{self.key}: stopped")
+        if interim is not None and self._emit_interim is not None:
+            try:
+                self._emit_interim(self, interim)
+            except RuntimeError:
+                pass  # the window was closed while the worker ran
         if fraction - self._last >= 0.01 or fraction >= 1.0:
             self._last = fraction
             try:
@@ -309,6 +317,10 @@ class ViewJobs(QObject):
         A panel's request started waiting or running (True), or ended (False).
     progress_changed(str, float)
         A running job's fraction done (only jobs submitted with ``progress=True``).
+
+    A job submitted with ``progress=True`` may also hand a first answer to its progress
+    report (``progress(fraction, interim)``): it reaches :attr:`result_ready` at once if it
+    is still current, and the request stays busy until the final answer.
     """
 
     result_ready = Signal(object)
@@ -316,6 +328,7 @@ class ViewJobs(QObject):
     progress_changed = Signal(str, float)
     _finished = Signal(object)  # emitted on the worker thread; queued to the GUI thread
     _progress = Signal(str, float)  # likewise
+    _interim = Signal(object)  # likewise
 
     def __init__(self, document, parent: QObject | None = None):
         super().__init__(parent)
@@ -330,6 +343,7 @@ class ViewJobs(QObject):
         self.discarded = 0
         self._finished.connect(self._on_finished)
         self._progress.connect(self._on_progress)
+        self._interim.connect(self._on_interim)
 
     def submit(self, key: str, fn, *args, progress: bool = False, slow: bool = False, **kwargs) -> None:
         """Run ``fn(*args, **kwargs)`` on a worker for panel ``key`` (args must be snapshots);
@@ -347,7 +361,7 @@ class ViewJobs(QObject):
             old[2].stop()
         self._token += 1
         token, revision = self._token, self._doc.revision
-        control = _JobControl(key, self._progress.emit)
+        control = _JobControl(key, self._progress.emit, lambda c, value, rev=revision: self._interim.emit((c, ViewResult(key, rev, value))))
         if progress:
             kwargs = dict(kwargs, progress=control.report)
         fut = (self._slow_executor if slow else self._executor).submit(_run_view_job, fn, args, kwargs)
@@ -387,6 +401,13 @@ class ViewJobs(QObject):
     def _on_progress(self, key: str, fraction: float) -> None:
         if key in self._latest:
             self.progress_changed.emit(key, fraction)
+
+    def _on_interim(self, delivery) -> None:
+        control, result = delivery
+        latest = self._latest.get(result.key)
+        if latest is None or latest[2] is not control or result.revision != self._doc.revision:
+            return  # overtaken: the final answer of a newer request is on its way
+        self.result_ready.emit(result)
 
     def _deliver(self, fut: Future, key: str, token: int, revision: int) -> None:
         if fut.cancelled() or self._closed:

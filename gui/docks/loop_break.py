@@ -75,11 +75,30 @@ def _phase_text(m: LoopMargins, *, where: bool = True) -> str:
     return f"{_num(m.phase_margin_deg)}°" + (_at(m.phase_margin_w_rad_s) if where else "")
 
 
+#: Beside a value computed on a refined grid whose certificate is still being computed.
+CHECKING = " (checking…)"
+
+
+def _checking(m: LoopMargins) -> str:
+    return "" if getattr(m, "certified", True) else CHECKING
+
+
+def loop_break_job(diagram, at: str, *, progress=None):
+    """The view's engine call (worker thread): :func:`loop_break_view` without the
+    performance limits (the view does not show them), stoppable through ``progress``; a
+    large loop's first answer (margins from the refined grid) is handed to ``progress`` as
+    an interim answer and drawn while the certification runs."""
+    interim = None if progress is None else (lambda view: progress(0.5, view))
+    return loop_break_view(diagram, at, limits=False, progress=progress, interim=interim)
+
+
 def margin_rows(m: LoopMargins) -> list[tuple[str, str]]:
     """The margins of one scalar loop as (name, value) lines; a frequency is named only
-    where the margin has one (never "at — rad/s"), an unbounded margin says so."""
+    where the margin has one (never "at — rad/s"), an unbounded margin says so. Peak
+    sensitivity and the disk margin say "(checking…)" until they are certified."""
     lo_db, hi_db = m.gain_margin_db
     stable = m.closed_loop_stable
+    checking = _checking(m)
     return [
         ("closed loop", "stable" if stable else "UNSTABLE"),
         ("open-loop right-half-plane poles", str(m.open_loop_unstable_poles)),
@@ -87,15 +106,16 @@ def margin_rows(m: LoopMargins) -> list[tuple[str, str]]:
         ("gain margin, upper", _gain_text(m.gain_upper, hi_db, m.gain_upper_w_rad_s, lower=False, stable=stable)),
         ("phase margin", _phase_text(m)),
         ("delay margin", f"{_num(m.delay_margin_s)} s"),
-        ("peak sensitivity", f"{_num(m.peak_sensitivity)}{_at(m.peak_sensitivity_w_rad_s)}"),
+        ("peak sensitivity", f"{_num(m.peak_sensitivity)}{_at(m.peak_sensitivity_w_rad_s)}{checking}"),
         ("disk margin α", f"{_num(m.disk.alpha)}: gain [{_num(m.disk.gain_lower)}, {_num(m.disk.gain_upper)}], "
-                          f"phase ±{_num(m.disk.phase_deg)}°{_at(m.disk.w_rad_s)}"),
+                          f"phase ±{_num(m.disk.phase_deg)}°{_at(m.disk.w_rad_s)}{checking}"),
     ]
 
 
 class LoopBreakPanel(PlotPanel):
     key = "loop_break"
     title = "loop-break view"
+    reports_progress = True  # stoppable; a large loop's first answer comes before its certificate
 
     def __init__(self, parent=None):
         super().__init__(parent)
@@ -176,7 +196,7 @@ class LoopBreakPanel(PlotPanel):
         if not isinstance(at, str) or not at:
             self.set_message("No loop break: right-click a wire and choose “break the loop here”.")
             return None
-        return loop_break_view, (diagram, at), {"limits": False}  # only what this view shows
+        return loop_break_job, (diagram, at), {}
 
     def show_value(self, value) -> None:
         self.data = value
@@ -242,7 +262,7 @@ class LoopBreakPanel(PlotPanel):
             rows = margin_rows(m)
             lo_db, hi_db = m.gain_margin_db
             self.summary.setText(f"phase margin {_phase_text(m, where=False)} · gain margin {_num(lo_db)} / +{_num(hi_db)} dB · "
-                                 f"disk margin α {_num(m.disk.alpha)} · delay margin {_num(m.delay_margin_s)} s"
+                                 f"disk margin α {_num(m.disk.alpha)}{_checking(m)} · delay margin {_num(m.delay_margin_s)} s"
                                  if m.closed_loop_stable else "the closed loop is UNSTABLE at this break")
         self.margins.setRowCount(len(rows))
         for i, (a, b) in enumerate(rows):
