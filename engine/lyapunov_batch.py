@@ -120,14 +120,9 @@ def _mid(leaves, ia, ib):
     return k
 
 
-def _product(leaves, T_block, src):
-    """``T_block @ src`` into the reused workspace (fresh large arrays would cost page
-    faults on every update)."""
-    rows, cols = T_block.shape[0], src.shape[1]
-    size = rows * cols
-    if leaves.work.size < size:
-        leaves.work = np.empty(size)
-    return np.matmul(T_block, src, out=leaves.work[:size].reshape(rows, cols))
+# Columns per product in an update: wide enough for full BLAS speed, small enough that the
+# reused workspace stays a few megabytes.
+_CHUNK = 4096
 
 
 def _left_update(leaves, M, rows, cols, inner):
@@ -135,8 +130,18 @@ def _left_update(leaves, M, rows, cols, inner):
     (r0, r1), (c0, c1), (k0, k1) = rows, cols, inner
     G = M.shape[2]
     src = M[k0:k1, c0:c1, :].reshape(k1 - k0, (c1 - c0) * G)
-    prod = _product(leaves, leaves.T[r0:r1, k0:k1], src)
-    M[r0:r1, c0:c1, :] -= prod.reshape(r1 - r0, c1 - c0, G)
+    dst = M[r0:r1, c0:c1, :].view()
+    dst.shape = (r1 - r0, (c1 - c0) * G)  # a view, never a copy (raises otherwise)
+    Tb = leaves.T[r0:r1, k0:k1]
+    width = src.shape[1]
+    step = max(G, _CHUNK // G * G)
+    if leaves.work.size < (r1 - r0) * min(step, width):
+        leaves.work = np.empty((r1 - r0) * min(step, width) + 1024)
+    for j0 in range(0, width, step):
+        j1 = min(j0 + step, width)
+        # into the reused workspace: fresh large arrays would cost page faults every time
+        prod = np.matmul(Tb, src[:, j0:j1], out=leaves.work[: (r1 - r0) * (j1 - j0)].reshape(r1 - r0, j1 - j0))
+        dst[:, j0:j1] -= prod
 
 
 def _lyap(leaves, M, ia, ib):
@@ -154,9 +159,7 @@ def _lyap(leaves, M, ia, ib):
     _sylv(leaves, M, kb, ib, ia, kb)
     # block (1,1): right-hand side minus T12 Y21 + (T12 Y21)^T, which under the sweep's
     # convention (entry (i, j) stands for M[i, j] + M[j, i]) is M11 -= T12 Y21
-    G = M.shape[2]
-    U = _product(leaves, T[a:k, k:b], M[k:b, a:k, :].reshape(b - k, (k - a) * G))
-    M[a:k, a:k, :] -= U.reshape(k - a, k - a, G)
+    _left_update(leaves, M, (a, k), (a, k), (k, b))
     _lyap(leaves, M, ia, kb)
 
 
