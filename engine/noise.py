@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from loopwright.engine.blas_threads import one_blas_thread
 from loopwright.engine.noise_shares import variances_by_source
 from loopwright.engine.norms import is_stable_matrix
 from loopwright.engine.responses import ReducedModel, reduce_model
@@ -147,7 +148,12 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
     for est, E, names in errs:
         for i, nm in enumerate(names):
             rows.append((nm, f"error:{est}", E[i], None))
-    stable = is_stable_matrix(model.A) if n else True
+    red = None
+    if n and srcs:
+        # one reduction serves the stability test (its eigenvalues) and every source
+        with one_blas_thread():
+            red = reduce_model(model.A) if reduced is None else reduced
+    stable = is_stable_matrix(model.A, eigenvalues=np.diag(red.T) if red is not None else None) if n else True
     budget.stable = stable
     if not srcs:
         budget.message = "no source states a white-noise intensity"
@@ -156,7 +162,6 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
     var: dict[str, np.ndarray] = {}
     direct: dict[str, np.ndarray] = {}
     if stable and srcs and n:
-        red = reduce_model(model.A) if reduced is None else reduced
         S = red.scale
         Cs = np.array([r[2] for r in rows]) * S[None, :]  # rows in the reduction's (possibly balanced) coordinates
         var = variances_by_source(red.T_real, red.Z_real, Cs, {name: (model.B[:, model.inputs[name]] / S[:, None], W) for name, W in srcs.items()})

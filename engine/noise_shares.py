@@ -23,6 +23,7 @@ import scipy.linalg as sla
 import scipy.sparse as sp
 from scipy.sparse.csgraph import breadth_first_order, connected_components
 
+from loopwright.engine.blas_threads import one_blas_thread
 from loopwright.engine.lyapunov_batch import LeafSolvers, solve_lyapunov_batch
 
 __all__ = ["variances_by_source"]
@@ -157,9 +158,15 @@ def variances_by_source(T_real: np.ndarray, Z_real: np.ndarray, C: np.ndarray, i
     Sources reaching the same coordinates are solved together when ``T`` restricted to
     them is dense (:func:`loopwright.engine.lyapunov_batch.solve_lyapunov_batch`: one
     recursive sweep for all of them, every update one wide matrix product); where it is
-    sparse (a cascade) each source is solved on its own with sparse updates, which then
-    cost less than the dense batch.
+    sparse (a cascade) each source is solved on its own with sparse updates, when that
+    costs fewer operations. The work runs on one BLAS thread (:mod:`blas_threads`).
     """
+    # thousands of mid-sized products: one BLAS thread (see blas_threads.one_blas_thread)
+    with one_blas_thread():
+        return _variances_by_source(T_real, Z_real, C, inputs)
+
+
+def _variances_by_source(T_real, Z_real, C, inputs):
     n = T_real.shape[0]
     p = C.shape[0]
     reach = _Reach(T_real)
