@@ -18,7 +18,9 @@ layout is one BLAS-3 call on a strided view, without copies:
 
 The leaves (blocks of at most about ``_LEAF`` rows and columns, never cutting a 2x2
 diagonal block of ``T``) solve the Kronecker form ``(T_a (x) I + I (x) T_b) vec X = vec M``
-by one LU factorization with partial pivoting for all ``G`` right-hand sides.
+with the inverse of that small matrix, formed once per pair of diagonal blocks (all pairs
+at once, by LU with partial pivoting) and applied to all ``G`` right-hand sides in one
+product.
 
 This is Bartels-Stewart reorganised, not an approximation: R. H. Bartels and G. W. Stewart,
 "Solution of the matrix equation AX + XB = C", Comm. ACM 15(9), 1972; the recursive blocking
@@ -41,10 +43,11 @@ def solve_lyapunov_batch(T: np.ndarray, M: np.ndarray, *, leaves: "LeafSolvers |
     Parameters
     ----------
     T : (n, n) ndarray
-        Upper quasi-triangular (real Schur form); ``T + T'`` must be nonsingular for every
-        pair of eigenvalues (true when ``T`` is stable).
+        Upper quasi-triangular (real Schur form) with no two eigenvalues summing to zero
+        (true when ``T`` is stable).
     M : (n, n, G) ndarray, C-contiguous, float64
-        Symmetric right-hand sides, one per last index; overwritten by the solutions.
+        Symmetric right-hand sides, one per last index, of which only the lower triangles
+        are read; overwritten by the solutions.
     leaves : LeafSolvers, optional
         The leaf solvers of ``T`` (:class:`LeafSolvers`), to reuse over several batches.
 

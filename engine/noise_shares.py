@@ -298,10 +298,12 @@ def _batched(T_real, R, members, Ct, C_sparse, Z_real):
             Bst[:, : Bt.shape[1], g] = Bt[R]
             Fst[:, : Bt.shape[1], g] = Bt[R] @ Ws
         M = M_all[: r * r * G].reshape(r, r, G)
-        np.multiply(Fst[:, None, 0, :], Bst[None, :, 0, :], out=M)
-        for a in range(1, wmax):
-            M += Fst[:, None, a, :] * Bst[None, :, a, :]
-        np.negative(M, out=M)
+        # -B W B^T, lower triangles only: the sweep reads nothing else
+        for i in range(r):
+            np.multiply(Fst[i, None, 0, :], Bst[: i + 1, 0, :], out=M[i, : i + 1])
+            for a in range(1, wmax):
+                M[i, : i + 1] += Fst[i, None, a, :] * Bst[: i + 1, a, :]
+            np.negative(M[i, : i + 1], out=M[i, : i + 1])
         solve_lyapunov_batch(TR, M, leaves=leaves)
         v = np.zeros((p, G))
         for c0 in range(0, r, _FORM_COLUMNS):
