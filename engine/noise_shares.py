@@ -11,10 +11,22 @@ and ``Y_s`` is zero outside the coordinates the source reaches: those coupled, t
 nonzero pattern of ``T``, to the rows where ``Z^T B_s`` is nonzero. The reached set keeps
 whole diagonal blocks, so ``T`` restricted to it is again quasi-triangular, and the
 Bartels-Stewart back substitution runs on that part only (exact: the other coordinates
-of the solution are exactly zero). The variance of output row ``c_i`` is then
-``(c_i Z) Y_s (c_i Z)^T``, with ``C Z`` formed once and kept sparse when it is (``Z`` is
-block diagonal on a cascade), or ``c_i X_s c_i^T`` with ``X_s = Z Y_s Z^T`` when that is
-cheaper. Each share is the exact variance of that source; nothing is sampled or reduced.
+of the solution are exactly zero).
+
+Two routes, chosen by operation count:
+
+* batched (dense parts: a ring of loops, where every source reaches every state): the
+  sources reaching the same part, or nested parts of nearly the same size, are solved
+  together by :func:`loopwright.engine.lyapunov_batch.solve_lyapunov_batch`, every update
+  one product with all their right-hand sides side by side. The variances follow from the
+  lower triangle ``L`` of each ``Y_s`` (half its diagonal), ``c Y c^T = 2 c L c^T``: with
+  ``P = Z_J L`` for the states ``J`` that ``C`` reads, ``v_i = 2 sum_j C_ij P_j . (c_i Z)``
+  over the nonzeros of ``C`` (or ``P = C Z L`` directly when ``C`` is dense).
+* per source, with sparse updates (large sparse parts: a long cascade): the variance of
+  row ``c_i`` is ``(c_i Z) Y_s (c_i Z)^T`` with ``C Z`` kept sparse when it is (``Z`` is
+  block diagonal on a cascade), or ``c_i X_s c_i^T`` with ``X_s = Z Y_s Z^T``.
+
+Each share is the exact variance of that source; nothing is sampled or reduced.
 """
 from __future__ import annotations
 
@@ -240,7 +252,9 @@ def _merge_nested(groups, n):
         batch = list(members)
         for b in range(a + 1, len(order)):
             R, more = order[b]
-            if not used[b] and R.size * _NEST_GROWTH >= U.size and inside[R].all():
+            if R.size * _NEST_GROWTH < U.size:
+                break  # sorted by size: the rest are smaller still
+            if not used[b] and inside[R].all():
                 used[b] = True
                 batch.extend(more)
         merged.append((U, batch))
