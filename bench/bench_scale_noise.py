@@ -4,7 +4,9 @@ The diagram is ``scale_diagrams.oven_zones(143)`` (demo data): 143 observer-base
 heating-zone loops in a line, each with a white load disturbance and white sensor noise.
 Timed from the assembled model:
 
-* ours: ``noise_budget`` (one Schur form; per-source solves on the reached part);
+* ours: ``noise_budget`` (one Schur form; the sources that reach the same dense part of it
+  solved together in one recursive sweep of wide products, the sources of a cascade on
+  the parts they reach);
 * the previous route: one full Lyapunov solve per source on the shared Schur form
   (``norms.lyapunov_from_schur``) and the quadratic forms for every signal, timed on
   ``--old-sources`` sources and scaled;
@@ -16,8 +18,10 @@ Agreement: every signal's variance from each sampled source against ``scipy``'s
 ring (one strongly coupled model: no part of the state is left unreached).
 
 ``--one-blas-thread`` runs with ``OPENBLAS_NUM_THREADS=1`` (set before numpy loads): on a
-shared 2-core machine OpenBLAS's worker threads wait for cores the other jobs hold, and
-the per-source solves (many mid-sized products) then cost several times the CPU time.
+shared 2-core machine OpenBLAS's worker threads wait for cores the other jobs hold. Our
+route runs its sweep on one BLAS thread either way (``blas_threads.one_blas_thread``); the
+flag matters for the reference routes. The machine's load (``/proc/loadavg``) is printed
+beside the times: on a shared machine the CPU times grow with it.
 
 Run: ``python bench/bench_scale_noise.py [--zones 143] [--ring] [--one-blas-thread]``
 """
@@ -44,23 +48,34 @@ from loopwright.engine.norms import lyapunov_from_schur  # noqa: E402
 from loopwright.engine.responses import reduce_model  # noqa: E402
 
 
+def _load() -> str:
+    """The 1-minute load average (or '?' where the system does not say)."""
+    try:
+        with open("/proc/loadavg", encoding="ascii") as fh:
+            return fh.read().split()[0]
+    except OSError:
+        return "?"
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--zones", type=int, default=143)
     ap.add_argument("--ring", action="store_true")
     ap.add_argument("--old-sources", type=int, default=6)
     ap.add_argument("--ct-sources", type=int, default=4)
+    ap.add_argument("--repeat", type=int, default=1, help="time our route this many times, keep the best")
     ap.add_argument("--one-blas-thread", action="store_true", help="OPENBLAS_NUM_THREADS=1 (see the module notes)")
     args = ap.parse_args(argv)
-    print(f"python-control {ct.__version__}; OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS', 'unset')}")
+    print(f"python-control {ct.__version__}; OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS', 'unset')};"
+          f" load {_load()}")
     d = oven_zones(args.zones, ring=args.ring)
     model = assemble(d)
     n = model.A.shape[0]
-    t_ours, c_ours, budget = timed(lambda: noise_budget(model))
+    t_ours, c_ours, budget = timed(lambda: noise_budget(model), repeat=args.repeat)
     srcs = budget.sources
     print(f"\n{len(d.blocks)} blocks, n = {n} states, {len(srcs)} white sources, {len(budget.lines)} budget lines"
           f" ({'ring' if args.ring else 'line'} of zones)")
-    print(f"  ours                     wall {t_ours:8.2f} s  cpu {c_ours:8.2f} s")
+    print(f"  ours                     wall {t_ours:8.2f} s  cpu {c_ours:8.2f} s  (load {_load()})")
     names = list(srcs)
     C = model.C
 

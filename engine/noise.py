@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from loopwright.engine.blas_threads import one_blas_thread
 from loopwright.engine.noise_shares import variances_by_source
 from loopwright.engine.norms import is_stable_matrix
 from loopwright.engine.responses import ReducedModel, reduce_model
@@ -147,7 +148,12 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
     for est, E, names in errs:
         for i, nm in enumerate(names):
             rows.append((nm, f"error:{est}", E[i], None))
-    stable = is_stable_matrix(model.A) if n else True
+    red = None
+    if n and srcs:
+        # one reduction serves the stability test (its eigenvalues) and every source
+        with one_blas_thread():
+            red = reduce_model(model.A) if reduced is None else reduced
+    stable = is_stable_matrix(model.A, eigenvalues=np.diag(red.T) if red is not None else None) if n else True
     budget.stable = stable
     if not srcs:
         budget.message = "no source states a white-noise intensity"
@@ -156,7 +162,6 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
     var: dict[str, np.ndarray] = {}
     direct: dict[str, np.ndarray] = {}
     if stable and srcs and n:
-        red = reduce_model(model.A) if reduced is None else reduced
         S = red.scale
         Cs = np.array([r[2] for r in rows]) * S[None, :]  # rows in the reduction's (possibly balanced) coordinates
         var = variances_by_source(red.T_real, red.Z_real, Cs, {name: (model.B[:, model.inputs[name]] / S[:, None], W) for name, W in srcs.items()})
@@ -164,28 +169,35 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
     for name, W in srcs.items():
         Dw = D_rows[:, model.inputs[name]]
         direct[name] = np.einsum("ij,jk,ik->i", Dw, W, Dw)
+    # one (rows x sources) table, then one dictionary per line (the loops over 1e5 and more
+    # entries stay in numpy)
+    names = list(srcs)
+    n_rows = len(rows)
+    dmat = np.array([direct[name] for name in names]).T.reshape(n_rows, len(names))
+    if not stable:
+        vmat = np.full((n_rows, len(names)), np.inf)
+    elif n == 0:
+        vmat = np.zeros((n_rows, len(names)))
+    else:
+        vmat = np.array([var[name] for name in names], dtype=float).T.reshape(n_rows, len(names))
+    white = dmat > 0
+    vmat = np.where(white, np.inf, vmat)
     for k, (cname, sig, _, _) in enumerate(rows):
-        vb: dict[str, float] = {}
+        values = vmat[k].tolist()
+        vb = dict(zip(names, values))
         reason = ""
-        for name in srcs:
-            if direct[name][k] > 0:
-                vb[name] = np.inf
-                reason = f"direct feedthrough from white source {name!r}: the signal is itself white"
-            elif not stable:
-                vb[name] = np.inf
-            elif n == 0:
-                vb[name] = 0.0
-            else:
-                vb[name] = float(var[name][k])
-        total = float(sum(vb.values()))
+        if white[k].any():
+            last = names[int(np.flatnonzero(white[k])[-1])]
+            reason = f"direct feedthrough from white source {last!r}: the signal is itself white"
+        total = float(sum(values))
         if not stable and srcs:
             reason = reason or "the closed loop is not stable"
         if np.isfinite(total) and total > 0:
-            share = {s: v / total for s, v in vb.items()}
+            share = dict(zip(names, (vmat[k] / total).tolist()))
         elif np.isinf(total):
-            infs = [s for s, v in vb.items() if np.isinf(v)]
-            share = {s: (1.0 / len(infs) if s in infs else 0.0) for s in vb} if stable else {s: np.nan for s in vb}
+            infs = np.isinf(vmat[k])
+            share = dict(zip(names, np.where(infs, 1.0 / infs.sum(), 0.0).tolist())) if stable else dict.fromkeys(names, np.nan)
         else:
-            share = {s: np.nan for s in vb}
+            share = dict.fromkeys(names, np.nan)
         budget.lines.append(NoiseLine(cname, sig, float(np.sqrt(total)), vb, share, reason))
     return budget

@@ -22,43 +22,11 @@ from dataclasses import dataclass, field
 from PySide6.QtCore import QObject, QTimer, Signal
 
 from loopwright.engine.diagram import Diagram
+from loopwright.engine.blas_threads import limit_blas_threads  # noqa: F401  (the window calls it: two workers share two cores)
 from loopwright.engine.errors import EngineError
 
 __all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs", "JobStopped", "TaskResult", "Tasks",
            "limit_blas_threads"]
-
-#: The thread-count setters of the OpenBLAS builds numpy and scipy ship (64-bit and 32-bit integer ones).
-_BLAS_SETTERS = ("scipy_openblas_set_num_threads64_", "scipy_openblas_set_num_threads", "openblas_set_num_threads64_",
-                 "openblas_set_num_threads")
-
-
-def limit_blas_threads(threads: int = 1) -> int:
-    """Let each loaded OpenBLAS use at most ``threads`` threads; returns how many libraries were set.
-
-    The window computes on two worker threads at once (the live check and the views). With
-    OpenBLAS's default of one thread per core, each of their matrix calls starts its own
-    team of spinning threads, and on a two-core machine the teams only wait for each other
-    (the views bench measured the same work several times slower). A user who sets
-    ``OPENBLAS_NUM_THREADS`` keeps their choice: nothing is changed then.
-    """
-    import ctypes
-    import os
-
-    if os.environ.get("OPENBLAS_NUM_THREADS") or not os.path.exists("/proc/self/maps"):
-        return 0
-    with open("/proc/self/maps", encoding="utf-8", errors="replace") as fh:
-        paths = sorted({ln.split()[-1] for ln in fh if "openblas" in ln.lower() and "/" in ln})
-    done = 0
-    for path in paths:
-        try:
-            lib = ctypes.CDLL(path)
-        except OSError:
-            continue
-        setter = next((getattr(lib, name) for name in _BLAS_SETTERS if hasattr(lib, name)), None)
-        if setter is not None:
-            setter(int(threads))
-            done += 1
-    return done
 
 
 @dataclass(frozen=True)
