@@ -44,7 +44,7 @@ from loopwright.engine.errors import (
 )
 from loopwright.engine.ports import input_ports, output_ports
 from loopwright.engine.scaling import check_block_params, check_model, check_realization
-from loopwright.engine.static_chains import solve_acyclic_feedthrough
+from loopwright.engine.static_chains import AcyclicFeedthrough, FeedthroughMatrix
 
 __all__ = ["AssembledModel", "assemble", "signal_names", "Problem", "collect_problems"]
 
@@ -75,7 +75,9 @@ class AssembledModel:
         Columns: sources, then ``inject:<signal>`` for every signal (and ``break:<signal>``).
     C : (p, n) ndarray
         Rows: every signal component.
-    D : (p, m) ndarray
+    D : (p, m) FeedthroughMatrix
+        Array-like (indexing, ``np.asarray``, arithmetic); its injection block is computed
+        only where it is read (see :class:`loopwright.engine.static_chains.FeedthroughMatrix`).
     state_names, input_names, output_names : tuple of str
         Component names (``P.x1``, ``d``, ``inject:xhat[2]``, ``y``).
     inputs : dict
@@ -447,25 +449,21 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     with np.errstate(all="ignore"):
         DbMb = (Db @ Mb).tocsr()
         BM = (Bb @ M).tocsr()
-        # D = [Ge, Finv, Gb] is filled in place: the injection block (I - D M)^-1 is the
-        # one dense ns x ns part, so it is written once, where it belongs
-        D = np.zeros((ns, ne + ns + nb))
-        Finv = D[:, ne : ne + ns]
+        Ed, DbMbd = _dense(E), _dense(DbMb)
         if acyclic:
-            # every other product with (I - D M)^-1 is a forward substitution in graph
-            # order on its own (few) columns: linear in the number of blocks
-            Finv[np.arange(ns), np.arange(ns)] = 1.0
-            D[:, :ne] = _dense(E)
-            D[:, ne + ns :] = _dense(DbMb)
-            solve_acyclic_feedthrough(DM, out=D)
-            Gx = solve_acyclic_feedthrough(DM, _dense(Cb))
+            # every product with (I - D M)^-1 is a substitution in graph order on its own
+            # (few) columns or rows, linear in the number of blocks; the injection block of
+            # D itself, dense ns x ns on a chain, is only read where a command asks
+            inverse = AcyclicFeedthrough(DM)
+            Gx, De, Dbrk = (inverse.solve(R) for R in (_dense(Cb), Ed, DbMbd))
+            B_inj = inverse.solve_left(_dense(BM))
         else:
-            Finv[:] = _inverse_of_feedthrough(DM, F, acyclic)
-            Gx = Finv @ _dense(Cb)
-            D[:, :ne] = Finv @ _dense(E)
-            D[:, ne + ns :] = Finv @ _dense(DbMb)
+            inverse = _inverse_of_feedthrough(DM, F)
+            Gx, De, Dbrk = inverse @ _dense(Cb), inverse @ Ed, inverse @ DbMbd
+            B_inj = BM @ inverse
+        D = FeedthroughMatrix(De, inverse, Dbrk)
         A = _dense(Ab) + BM @ Gx
-        B = np.hstack([BM @ D[:, :ne], BM @ Finv, BM @ D[:, ne + ns :] + _dense(Bb @ Mb)])
+        B = np.hstack([BM @ De, B_inj, BM @ Dbrk + _dense(Bb @ Mb)])
         C = Gx
 
     inputs: dict[str, slice] = dict(src_cols)
@@ -482,7 +480,7 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         A=np.ascontiguousarray(A),
         B=np.ascontiguousarray(B),
         C=np.ascontiguousarray(C),
-        D=np.ascontiguousarray(D),
+        D=D,
         state_names=tuple(state_names),
         input_names=tuple(input_names),
         output_names=tuple(sig_names),
@@ -543,16 +541,10 @@ def _dense(m) -> np.ndarray:
     return m.toarray() if sp.issparse(m) else np.asarray(m)
 
 
-def _inverse_of_feedthrough(DM, F, acyclic: bool):
-    """``(I - D M)^-1`` as a dense array.
-
-    Without algebraic loops the static blocks are eliminated in graph order (see
-    :mod:`loopwright.engine.static_chains`), linear in the number of blocks. With loops, a
-    sparse LU factorisation solves for it.
-    """
+def _inverse_of_feedthrough(DM, F) -> np.ndarray:
+    """``(I - D M)^-1`` as a dense array, by a sparse LU factorisation (algebraic loops:
+    without them :class:`AcyclicFeedthrough` applies it without forming it)."""
     ns = DM.shape[0]
-    if acyclic:
-        return solve_acyclic_feedthrough(DM)
     try:
         return spla.splu(F.tocsc()).solve(np.eye(ns))
     except RuntimeError as err:  # exactly singular: the structural check missed a cancellation

@@ -22,6 +22,7 @@ import numpy as np
 from loopwright.engine.blocks import plant_matrices
 from loopwright.engine.diagram import Block, Diagram
 from loopwright.engine.errors import DiagramError, ParameterError
+from loopwright.engine.static_chains import FeedthroughMatrix
 
 __all__ = ["SCALE_LIMIT", "check_block_params", "check_realization", "check_model", "checked_plant_matrices"]
 
@@ -195,7 +196,12 @@ def check_model(model) -> None:
     ------
     DiagramError
     """
-    hit = _first_out_of_range({"A": model.A, "B": model.B, "C": model.C, "D": model.D})
+    hit = _first_out_of_range({"A": model.A, "B": model.B, "C": model.C})
+    if hit is None and isinstance(model.D, FeedthroughMatrix):
+        in_d = model.D.first_out_of_range(SCALE_LIMIT)
+        hit = None if in_d is None else ("D", *in_d)
+    elif hit is None:
+        hit = _first_out_of_range({"D": model.D})
     if hit is None:
         return
     name, i, j, value = hit

@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
-__all__ = ["feedthrough_order", "solve_acyclic_feedthrough"]
+__all__ = ["AcyclicFeedthrough", "feedthrough_order", "solve_acyclic_feedthrough"]
 
 
 def feedthrough_order(DM: sp.spmatrix) -> np.ndarray:
@@ -89,3 +89,220 @@ def solve_acyclic_feedthrough(DM: sp.spmatrix, rhs: np.ndarray | None = None, *,
         else:
             X[i] += data[a:b] @ X[indices[a:b]]
     return X
+
+
+class AcyclicFeedthrough:
+    """``(I - D M)^-1`` of an acyclic feedthrough graph, applied on demand.
+
+    The graph order is found once; :meth:`solve` gives ``(I - D M)^-1 R`` (columns of the
+    inverse, forward substitution) and :meth:`solve_left` gives ``L (I - D M)^-1`` (rows
+    of it, backward substitution). Each costs one row operation per signal that something
+    feeds, times the number of right-hand sides: linear in the number of blocks, without
+    ever forming the dense ``ns x ns`` inverse. ``row_operations`` counts them (what a
+    test can check instead of a time).
+
+    Parameters
+    ----------
+    DM : (ns, ns) sparse matrix
+        ``D M``, acyclic (:class:`ValueError` otherwise, from :func:`feedthrough_order`).
+    """
+
+    def __init__(self, DM: sp.spmatrix):
+        self.DM = sp.csr_matrix(DM)
+        self.ns = self.DM.shape[0]
+        self.order = feedthrough_order(self.DM) if self.ns and self.DM.nnz else np.arange(self.ns)
+        self.row_operations = 0
+        fed = np.diff(self.DM.indptr)[self.order] > 0
+        self._forward = self.order[fed].tolist()
+        # transposed: row j lists the signals j feeds; they come after j in graph order
+        self._DMt = self.DM.T.tocsr()
+        feeds = np.diff(self._DMt.indptr)[self.order] > 0
+        self._backward = self.order[feeds][::-1].tolist()
+
+    @staticmethod
+    def _substitute(S: sp.csr_matrix, rows: list[int], X: np.ndarray) -> int:
+        indptr, indices, data = S.indptr, S.indices, S.data
+        for i in rows:
+            a, b = indptr[i], indptr[i + 1]
+            if b - a == 1:
+                X[i] += data[a] * X[indices[a]]
+            else:
+                X[i] += data[a:b] @ X[indices[a:b]]
+        return len(rows)
+
+    def solve(self, rhs: np.ndarray) -> np.ndarray:
+        """``(I - D M)^-1 rhs`` for an ``(ns, k)`` right-hand side (a new array)."""
+        X = np.array(rhs, dtype=float, copy=True).reshape(self.ns, -1) if self.ns else np.zeros((0, np.shape(rhs)[-1]))
+        self.row_operations += self._substitute(self.DM, self._forward, X)
+        return X
+
+    def solve_left(self, lhs: np.ndarray) -> np.ndarray:
+        """``lhs (I - D M)^-1`` for a ``(k, ns)`` left-hand side (a new array)."""
+        lhs = np.asarray(lhs, dtype=float)
+        Y = np.array(lhs.T, dtype=float, order="C", copy=True)  # (ns, k): one contiguous row per signal
+        self.row_operations += self._substitute(self._DMt, self._backward, Y)
+        return Y.T
+
+    def columns(self, cols: np.ndarray) -> np.ndarray:
+        """Columns ``cols`` of ``(I - D M)^-1``: ``(ns, len(cols))``."""
+        R = np.zeros((self.ns, len(cols)))
+        R[np.asarray(cols, dtype=np.int64), np.arange(len(cols))] = 1.0
+        return self.solve(R)
+
+    def rows(self, rows: np.ndarray) -> np.ndarray:
+        """Rows ``rows`` of ``(I - D M)^-1``: ``(len(rows), ns)``."""
+        L = np.zeros((len(rows), self.ns))
+        L[np.arange(len(rows)), np.asarray(rows, dtype=np.int64)] = 1.0
+        return self.solve_left(L)
+
+    def row_sum_bound(self) -> np.ndarray:
+        """``(I - |D M|)^-1 1``: row ``i`` bounds every ``|(I - D M)^-1[i, j]|`` from above.
+
+        Every entry of the inverse is a sum over the paths from ``j`` to ``i`` of the
+        products of the feedthrough gains along them; the same sum of absolute values, summed
+        over every ``j`` too, can only be larger. One forward substitution.
+        """
+        S = self.DM.copy()
+        S.data = np.abs(S.data)
+        X = np.ones((self.ns, 1))
+        with np.errstate(over="ignore", invalid="ignore"):
+            self.row_operations += self._substitute(S, self._forward, X)
+        return X[:, 0]
+
+
+class FeedthroughMatrix(np.lib.mixins.NDArrayOperatorsMixin):
+    """The assembled model's ``D = [De, (I - D M)^-1, Db]`` (sources, injections, break),
+    with the injection block read only where it is indexed.
+
+    The injection block is ``ns x ns`` and, on a chain, dense (every signal reaches every
+    later one): forming it would make every command quadratic in the number of blocks.
+    Indexing (``D[rows, cols]``, ``D[:, cols]``, ``D[rows]``, ``np.ix_``) computes just
+    the entries asked for, by columns or by rows of the inverse (whichever are fewer);
+    anything else (``np.asarray(D)``, arithmetic, ``D.T``) forms the whole matrix once and
+    keeps it. With algebraic loops the inverse is dense already and is simply held.
+
+    Parameters
+    ----------
+    De : (ns, ne) ndarray
+        Sources to signals.
+    inverse : AcyclicFeedthrough or (ns, ns) ndarray
+    Db : (ns, nb) ndarray
+        Loop-break input to signals.
+    """
+
+    def __init__(self, De: np.ndarray, inverse, Db: np.ndarray):
+        self._De, self._inverse, self._Db = De, inverse, Db
+        ns, ne = De.shape
+        self._ns, self._ne = ns, ne
+        self.shape = (ns, ne + ns + Db.shape[1])
+        self.ndim, self.size, self.dtype = 2, self.shape[0] * self.shape[1], np.dtype(float)
+        self._full: np.ndarray | None = None if isinstance(inverse, AcyclicFeedthrough) else self._assemble_full(inverse)
+
+    @property
+    def is_formed(self) -> bool:
+        """Whether the whole matrix exists in memory (it does not after an acyclic assembly)."""
+        return self._full is not None
+
+    def _assemble_full(self, Finv: np.ndarray) -> np.ndarray:
+        return np.hstack([self._De, Finv, self._Db]) if self.size else np.zeros(self.shape)
+
+    def dense(self) -> np.ndarray:
+        """The whole matrix (formed on the first call and kept)."""
+        if self._full is None:
+            self._full = self._assemble_full(self._inverse.columns(np.arange(self._ns)))
+        return self._full
+
+    def __array__(self, dtype=None, copy=None):
+        full = self.dense()
+        return full if dtype is None else full.astype(dtype, copy=bool(copy))
+
+    def __array_ufunc__(self, ufunc, method, *inputs, **kwargs):
+        inputs = tuple(np.asarray(x) if isinstance(x, FeedthroughMatrix) else x for x in inputs)
+        if "out" in kwargs:
+            kwargs["out"] = tuple(np.asarray(x) if isinstance(x, FeedthroughMatrix) else x for x in kwargs["out"])
+        return getattr(ufunc, method)(*inputs, **kwargs)
+
+    def __len__(self) -> int:
+        return self.shape[0]
+
+    def __repr__(self) -> str:
+        return f"FeedthroughMatrix(shape={self.shape}, formed={self.is_formed})"
+
+    def __getattr__(self, name: str):
+        if name.startswith("_"):  # (also keeps copy and pickle away from the dense form)
+            raise AttributeError(name)
+        return getattr(self.dense(), name)
+
+    def block(self, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+        """``D[np.ix_(rows, cols)]`` for index arrays in range, as a new array."""
+        rows, cols = np.asarray(rows, dtype=np.int64), np.asarray(cols, dtype=np.int64)
+        if self._full is not None:
+            return self._full[np.ix_(rows, cols)]
+        ns, ne = self._ns, self._ne
+        out = np.empty((len(rows), len(cols)))
+        src, brk = cols < ne, cols >= ne + ns
+        inj = ~(src | brk)
+        out[:, src] = self._De[np.ix_(rows, cols[src])]
+        out[:, brk] = self._Db[np.ix_(rows, cols[brk] - ne - ns)]
+        cj = cols[inj] - ne
+        if cj.size and rows.size:
+            if rows.size == ns and cj.size == ns:
+                out[:, inj] = self.dense()[np.ix_(rows, cols[inj])]
+            elif rows.size <= cj.size:
+                out[:, inj] = self._inverse.rows(rows)[:, cj]
+            else:
+                out[:, inj] = self._inverse.columns(cj)[rows]
+        return out
+
+    def __getitem__(self, key):
+        if self._full is not None:
+            return self._full[key]
+        key = key if isinstance(key, tuple) else (key,)
+        if len(key) > 2 or any(k is None or k is Ellipsis for k in key):
+            return self.dense()[key]
+        key = key + (slice(None),) * (2 - len(key))
+        picked, local = [], []
+        for k, n in zip(key, self.shape):
+            every = np.arange(n)
+            if isinstance(k, slice):
+                picked.append(every[k])
+                local.append(slice(None))
+            elif isinstance(k, (int, np.integer)):
+                picked.append(every[[k]])  # IndexError as numpy words it
+                local.append(0)
+            else:
+                a = np.asarray(k)
+                if a.dtype == bool:
+                    if a.ndim != 1 or a.shape[0] != n:
+                        return self.dense()[key]  # numpy's own error
+                    a = np.flatnonzero(a)
+                elif a.size == 0:
+                    a = a.astype(np.int64)
+                elif not np.issubdtype(a.dtype, np.integer):
+                    return self.dense()[key]
+                a = every[a]  # negative indices counted from the end; IndexError out of range
+                uniq, where = np.unique(a, return_inverse=True)
+                picked.append(uniq)
+                local.append(where.reshape(a.shape))
+        return self.block(picked[0], picked[1])[tuple(local)]
+
+    def first_out_of_range(self, limit: float) -> tuple[int, int, float] | None:
+        """``(row, column, value)`` of the first entry (row by row) not finite or beyond ``limit``.
+
+        Without forming the matrix when nothing is out of range: the sources' and break's
+        columns are checked as they are, the injection block against its row-sum bound
+        (:meth:`AcyclicFeedthrough.row_sum_bound`). Only when some entry may be out of range
+        is the whole matrix formed, to name the first.
+        """
+        with np.errstate(invalid="ignore"):
+            fine = all(np.all(np.abs(M) <= limit) for M in (self._De, self._Db) if M.size)
+            if fine and self._full is None and self._ns:
+                fine = bool(np.all(self._inverse.row_sum_bound() <= limit))
+            if fine and self._full is None:
+                return None
+            full = self.dense()
+            bad = ~(np.abs(full) <= limit)
+        if not bad.any():
+            return None
+        i, j = (int(k) for k in np.argwhere(bad)[0])
+        return i, j, float(full[i, j])
