@@ -135,8 +135,34 @@ class _NonFinite:
 _NESTING_TOKEN = re.compile(r'[\[\]{}"]')
 
 
+def _deepest_nesting_bound(text: str) -> int:
+    """The nesting depth of ``[``/``{`` outside strings, counted at C speed.
+
+    Without backslashes every quote opens or closes a string, so a bracket is outside
+    every string when an even number of quotes precede it: up to the first place the
+    decoder would refuse, this counts exactly what :func:`_refuse_deep_nesting` counts, and
+    past it at most more. A text with a backslash gets a bound that sends it to that walk.
+    """
+    import numpy as np
+
+    if "\\" in text:  # escapes (rare in a diagram): the token-by-token walk reads them
+        return MAX_NESTING + 1
+    codes = np.frombuffer(text.encode("utf-8", "surrogatepass"), dtype=np.uint8)
+    if not codes.size:
+        return 0
+    outside = (np.cumsum(codes == ord('"')) & 1) == 0
+    step = ((codes == ord("[")) | (codes == ord("{"))).astype(np.int32) - ((codes == ord("]")) | (codes == ord("}")))
+    return max(0, int(np.cumsum(step * outside).max()))
+
+
 def _refuse_deep_nesting(text: str, origin: str) -> None:
-    """Raise when ``[``/``{`` nest deeper than :data:`MAX_NESTING` (counted outside strings)."""
+    """Raise when ``[``/``{`` nest deeper than :data:`MAX_NESTING` (counted outside strings).
+
+    Counted in one vectorised pass first; only a text that may nest too deeply is walked
+    token by token, to refuse it with its line number.
+    """
+    if _deepest_nesting_bound(text) <= MAX_NESTING:
+        return
     depth, pos = 0, 0
     while found := _NESTING_TOKEN.search(text, pos):
         char, pos = found.group(), found.end()

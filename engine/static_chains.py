@@ -190,6 +190,11 @@ class FeedthroughMatrix(np.lib.mixins.NDArrayOperatorsMixin):
         Loop-break input to signals.
     """
 
+    # A caller reading the injection block piece by piece (row by row in a loop) would
+    # pay a substitution pass per piece; after this many reads the whole block is formed
+    # once instead (a pass costs about as much as forming it on a few thousand signals).
+    PASSES_BEFORE_FORMING = 8
+
     def __init__(self, De: np.ndarray, inverse, Db: np.ndarray):
         self._De, self._inverse, self._Db = De, inverse, Db
         ns, ne = De.shape
@@ -197,6 +202,7 @@ class FeedthroughMatrix(np.lib.mixins.NDArrayOperatorsMixin):
         self.shape = (ns, ne + ns + Db.shape[1])
         self.ndim, self.size, self.dtype = 2, self.shape[0] * self.shape[1], np.dtype(float)
         self._full: np.ndarray | None = None if isinstance(inverse, AcyclicFeedthrough) else self._assemble_full(inverse)
+        self._reads = 0
 
     @property
     def is_formed(self) -> bool:
@@ -246,7 +252,8 @@ class FeedthroughMatrix(np.lib.mixins.NDArrayOperatorsMixin):
         out[:, brk] = self._Db[np.ix_(rows, cols[brk] - ne - ns)]
         cj = cols[inj] - ne
         if cj.size and rows.size:
-            if rows.size == ns and cj.size == ns:
+            self._reads += 1
+            if (rows.size == ns and cj.size == ns) or self._reads > self.PASSES_BEFORE_FORMING:
                 out[:, inj] = self.dense()[np.ix_(rows, cols[inj])]
             elif rows.size <= cj.size:
                 out[:, inj] = self._inverse.rows(rows)[:, cj]
