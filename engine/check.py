@@ -174,7 +174,7 @@ def _separation(model: AssembledModel, poles: np.ndarray, bounds: np.ndarray) ->
     error dynamics decouple (else ``None`` in their place)."""
     diagram = model.diagram
     pairs, err_rows, plant_rows, gains = [], [], [], {}
-    graph = diagram.graph()
+    graph = None  # the block graph, drawn only for a diagram with a linked estimator
     est_poles = []
     for b in diagram.blocks.values():
         link = b.params.get("plant") if b.kind == "estimator" else None
@@ -189,6 +189,7 @@ def _separation(model: AssembledModel, poles: np.ndarray, bounds: np.ndarray) ->
         A, _, C, _ = plant_matrices(diagram, link)
         L = realize(b, diagram).B[:, -C.shape[0]:]
         est_poles.append(eigen_sensitivity(A - L @ C))
+        graph = diagram.graph() if graph is None else graph
         k = _static_feedback(model, b.name, link, graph)
         if k is not None:
             gains[b.name] = k
@@ -330,7 +331,8 @@ def summarize(diagram: Diagram) -> CheckReport:
         warnings.append(sep.message)
     # Separation can hold while the estimate is biased: a known signal added after the
     # estimator's tap drives the error without moving any pole.
-    gaps = tuple(estimator_input_gaps(diagram))
+    # (the signal graph it needs is drawn only when there is an estimator to look at)
+    gaps = tuple(estimator_input_gaps(diagram)) if any(b.kind == "estimator" for b in diagram.blocks.values()) else ()
     warnings.extend(gap.message for gap in gaps)
     digits = pole_digits(poles, bounds, scale=scale)
     if digits and min(digits) < 3:

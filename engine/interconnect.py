@@ -455,7 +455,9 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
             # (few) columns or rows, linear in the number of blocks; the injection block of
             # D itself, dense ns x ns on a chain, is only read where a command asks
             inverse = AcyclicFeedthrough(DM)
-            Gx, De, Dbrk = (inverse.solve(R) for R in (_dense(Cb), Ed, DbMbd))
+            Cbd = _dense(Cb)
+            X = inverse.solve(np.hstack([Cbd, Ed, DbMbd]))  # one substitution for every right-hand side
+            Gx, De, Dbrk = X[:, : nx_], X[:, nx_ : nx_ + ne], X[:, nx_ + ne :]
             B_inj = inverse.solve_left(_dense(BM))
         else:
             inverse = _inverse_of_feedthrough(DM, F)
