@@ -11,7 +11,7 @@ import copy
 import pickle
 import re
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, NamedTuple
 
 import networkx as nx
 
@@ -42,9 +42,12 @@ class _Tracked:
         object.__setattr__(self, key, value)
 
 
-@dataclass(frozen=True)
-class PortRef:
-    """One port of one block: ``PortRef("b3", "u")``."""
+class PortRef(NamedTuple):
+    """One port of one block: ``PortRef("b3", "u")``.
+
+    A named tuple (immutable, like a frozen dataclass): hashing and comparing it runs in
+    compiled code, and the assembly looks ports up once per wire and per port.
+    """
 
     block: str
     port: str

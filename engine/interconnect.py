@@ -229,9 +229,11 @@ def collect_problems(diagram: Diagram) -> list[Problem]:
     return found
 
 
-def _wiring_problems(diagram: Diagram, widths: dict[str, tuple[dict[str, int], dict[str, int]]]) -> list[Problem]:
+def _wiring_problems(diagram: Diagram, widths: dict[str, tuple[dict[str, int], dict[str, int]]],
+                     sig_of_port: dict[PortRef, str] | None = None) -> list[Problem]:
     """Wires to missing ports, width mismatches, unconnected or doubly fed inputs, name clashes."""
     found: list[Problem] = []
+    in_ports = {b.id: input_ports(b) for b in diagram.blocks.values()}
     for w in diagram.wires.values():
         src_blk = diagram.blocks.get(w.source.block)
         if src_blk is None:
@@ -243,7 +245,7 @@ def _wiring_problems(diagram: Diagram, widths: dict[str, tuple[dict[str, int], d
             if dst is None:
                 found.append(Problem(f"wire {w.name!r} ends at a block that no longer exists", (), (w.id,)))
                 continue
-            if t.port not in input_ports(dst):
+            if t.port not in in_ports[dst.id]:
                 found.append(Problem(f"wire {w.name!r} ends at {dst.name}.{t.port}, which is not an input port", (dst.id,), (w.id,)))
                 continue
             dw = widths.get(dst.id, ({}, None))[0].get(t.port)
@@ -261,14 +263,14 @@ def _wiring_problems(diagram: Diagram, widths: dict[str, tuple[dict[str, int], d
         for t in w.targets:
             fed.setdefault(t, []).append(w.id)
     for b in diagram.blocks.values():
-        for port in input_ports(b):
+        for port in in_ports[b.id]:
             ref = PortRef(b.id, port)
             if ref not in fed:
                 found.append(Problem(f"input {b.name}.{port} is not connected", (b.id,)))
             elif len(fed[ref]) > 1:
                 found.append(Problem(f"input {b.name}.{port} is fed by {len(fed[ref])} wires", (b.id,), tuple(fed[ref])))
     seen: dict[str, PortRef] = {}
-    for ref, name in signal_names(diagram).items():
+    for ref, name in (signal_names(diagram) if sig_of_port is None else sig_of_port).items():
         if name in seen:
             found.append(Problem(f"signal name {name!r} is used twice", (ref.block, seen[name].block)))
         seen[name] = ref
@@ -347,10 +349,10 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         if b.kind == "source":
             with np.errstate(all="ignore"):
                 widths[b.id] = port_widths(b, snap)
-    _raise_first(_wiring_problems(snap, widths))
+    sig_of_port = signal_names(snap)
+    _raise_first(_wiring_problems(snap, widths, sig_of_port))
 
     # ---- signals: every output port; sources contribute exogenous inputs ------------
-    sig_of_port = signal_names(snap)
     sig_names: list[str] = []
     sig_slices: dict[str, slice] = {}
     sig_ports: dict[str, PortRef] = {}
