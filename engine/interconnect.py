@@ -43,7 +43,7 @@ from loopwright.engine.errors import (
     UnknownNameError,
 )
 from loopwright.engine.ports import input_ports, output_ports
-from loopwright.engine.scaling import check_block_params, check_model, check_realization
+from loopwright.engine.scaling import SCALE_LIMIT, check_block_params, check_model, check_realization
 from loopwright.engine.static_chains import AcyclicFeedthrough, FeedthroughMatrix
 
 __all__ = ["AssembledModel", "assemble", "signal_names", "Problem", "collect_problems"]
@@ -330,19 +330,10 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     """
     snap = diagram.copy()
     blocks = list(snap.blocks.values())
-    reals: dict[str, Realization] = {}
-    problems: list[Problem] = []
-    for b in blocks:
-        try:
-            check_block_params(b)
-            if b.kind == "source":
-                continue
-            with np.errstate(all="ignore"):  # overflow is caught by the scaling check, with the field named
-                r = realize(b, snap)
-            check_realization(b, {"A": r.A, "B": r.B, "C": r.C, "D": r.D})
-            reals[b.id] = r
-        except EngineError as err:
-            problems.append(Problem(err.message, tuple(err.block_ids) or (b.id,), error=err))
+    reals, problems = _realize_all(blocks, snap, check_each=False)
+    if problems or not _all_in_range(reals.values()):
+        # something is wrong: block by block again, so the problems come in diagram order
+        reals, problems = _realize_all(blocks, snap, check_each=True)
     _raise_first(problems)
     widths = {bid: (dict(r.inputs), dict(r.outputs)) for bid, r in reals.items()}
     for b in blocks:
@@ -500,6 +491,42 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     )
     check_model(model)
     return model
+
+
+def _realize_all(blocks, snap: Diagram, *, check_each: bool) -> tuple[dict[str, Realization], list[Problem]]:
+    """Every block's realisation, and the problems found making them.
+
+    ``check_each=False`` leaves the range check of the realisations to the caller (one
+    vectorised pass, :func:`_all_in_range`); a parameter out of range is still refused here.
+    """
+    with np.errstate(all="ignore"):  # overflow is caught by the scaling checks, with the field named
+        return _realize_each(blocks, snap, check_each)
+
+
+def _realize_each(blocks, snap, check_each):
+    reals: dict[str, Realization] = {}
+    problems: list[Problem] = []
+    for b in blocks:
+        try:
+            check_block_params(b)
+            if b.kind == "source":
+                continue
+            r = realize(b, snap)
+            if check_each:
+                check_realization(b, {"A": r.A, "B": r.B, "C": r.C, "D": r.D})
+            reals[b.id] = r
+        except EngineError as err:
+            problems.append(Problem(err.message, tuple(err.block_ids) or (b.id,), error=err))
+    return reals, problems
+
+
+def _all_in_range(reals) -> bool:
+    """Whether every entry of every realisation is finite and within :data:`SCALE_LIMIT` (one pass)."""
+    parts = [M.ravel() for r in reals for M in (r.A, r.B, r.C, r.D) if M.size]
+    if not parts:
+        return True
+    values = np.concatenate(parts)
+    return bool(np.all(np.abs(values) <= SCALE_LIMIT))
 
 
 def _resolve_break(diagram: Diagram, where: str, sig_slices, sig_of_port) -> tuple[str, PortRef | None]:
