@@ -37,7 +37,6 @@ from dataclasses import dataclass, field
 
 import networkx as nx
 import numpy as np
-from scipy.optimize import linear_sum_assignment
 
 from loopwright.engine.blocks import plant_matrices, realize
 from loopwright.engine.diagram import Diagram, PortRef
@@ -152,6 +151,7 @@ def poles_match(a: np.ndarray, b: np.ndarray, *, rtol: float = 1e-5) -> tuple[bo
         return True, 0.0
     scale = np.maximum(1.0, np.abs(a))
     cost = np.abs(a[:, None] - b[None, :]) / scale[:, None]
+    from scipy.optimize import linear_sum_assignment  # (a slow import, only needed here)
     r, c = linear_sum_assignment(cost)
     near = np.abs(a[:, None] - a[None, :]) / scale[:, None] < 1e-3
     allowed = np.where(near.sum(axis=1) > 1, max(rtol, np.sqrt(rtol) / 10), rtol)
@@ -256,6 +256,7 @@ def _within_bounds(a: np.ndarray, a_bounds: np.ndarray, b: np.ndarray, b_bounds:
         return False
     allowed = _BOUND_FACTOR * (a_bounds[:, None] + b_bounds[None, :]) + 1e-9 * np.maximum(1.0, np.abs(a))[:, None]
     excess = np.maximum(np.abs(a[:, None] - b[None, :]) - allowed, 0.0)
+    from scipy.optimize import linear_sum_assignment  # (a slow import, only needed here)
     r, c = linear_sum_assignment(excess)
     return bool(np.all(excess[r, c] == 0.0))
 

@@ -279,8 +279,12 @@ class Diagram:
         layout: dict[str, Any] | None = None,
         caption: str = "",
         block_id: str | None = None,
+        take_params: bool = False,
     ) -> str:
         """Add a block and return its id.
+
+        ``params`` is copied, unless ``take_params``: then the block keeps that very dict
+        (for a caller that made it and keeps no other reference, like the file loader).
 
         Raises
         ------
@@ -300,7 +304,11 @@ class Diagram:
         lay = {"x": 0.0, "y": 0.0, "rotation": 0, "flip": False}
         lay.update(layout or {})
         ix = self._tables()
-        self.blocks[bid] = Block(bid, kind, name, copy.deepcopy(params) if params is not None else default_params(kind), lay, caption)
+        if params is None:
+            params = default_params(kind)
+        elif not take_params:
+            params = copy.deepcopy(params)
+        self.blocks[bid] = Block(bid, kind, name, params, lay, caption)
         ix.block_names.setdefault(name, bid)
         self._tables_done(ix)
         return bid

@@ -107,7 +107,7 @@ def _parse(text: str, origin: str) -> tuple[Any, bool]:
         return value
 
     try:
-        if not _OUT_OF_RANGE_HINT.search(text):  # the usual case: the C decoder reads every number itself
+        if not _may_hold_out_of_range_number(text):  # the usual case: the C decoder reads every number itself
             return json.loads(text, parse_constant=constant), bool(odd)
         return json.loads(text, parse_constant=constant, parse_float=real, parse_int=whole), bool(odd)
     except json.JSONDecodeError as err:
@@ -119,6 +119,21 @@ def _parse(text: str, origin: str) -> tuple[Any, bool]:
 # Text that may hold a number beyond the float range: 309 digits in a row, or an exponent
 # of 100 or more. Only then are the numbers parsed one by one to find it.
 _OUT_OF_RANGE_HINT = re.compile(r"\d{309}|[eE]\+?0*[1-9]\d\d")
+_BIG_EXPONENT = re.compile(r"[eE]\+?0*[1-9]\d\d")
+
+
+def _may_hold_out_of_range_number(text: str) -> bool:
+    """:data:`_OUT_OF_RANGE_HINT` found in ``text``; the run of 309 digits is looked for by
+    a vectorised count (the regular expression tries it at every digit: slow on long files)."""
+    import numpy as np
+
+    if _BIG_EXPONENT.search(text):
+        return True
+    codes = np.frombuffer(text.encode("utf-8", "surrogatepass"), dtype=np.uint8)
+    digit = np.zeros(codes.size + 2, dtype=np.int8)
+    digit[1:-1] = (codes >= ord("0")) & (codes <= ord("9"))
+    edges = np.flatnonzero(np.diff(digit))  # starts and ends of the runs of digits, in turn
+    return bool(edges.size) and int((edges[1::2] - edges[::2]).max()) >= 309
 
 
 class _NonFinite:
@@ -674,8 +689,9 @@ def from_dict(data: Any, *, origin: str = "project file") -> Diagram:
     return _build(data, origin, scan=True)
 
 
-def _build(data: Any, origin: str, *, scan: bool) -> Diagram:
-    """:func:`from_dict`; ``scan``: look for non-finite numbers and deep nesting (the parser may have done it)."""
+def _build(data: Any, origin: str, *, scan: bool, own: bool = False) -> Diagram:
+    """:func:`from_dict`; ``scan``: look for non-finite numbers and deep nesting (the parser may have done it);
+    ``own``: ``data`` was parsed here and nobody else holds it, so the blocks may keep its values."""
     if not isinstance(data, dict):
         raise ProjectFileError(f"{origin}: not a Loopwright diagram (the top level must be a JSON object)")
     if data.get("format") != FORMAT_NAME:
@@ -697,7 +713,7 @@ def _build(data: Any, origin: str, *, scan: bool) -> Diagram:
     for k, entry in enumerate(data["blocks"]):
         layout = entry.get("layout", {})
         try:
-            bid = d.add_block(entry["kind"], entry["name"], entry["params"], layout=layout, caption=entry.get("caption", ""))
+            bid = d.add_block(entry["kind"], entry["name"], entry["params"], layout=layout, caption=entry.get("caption", ""), take_params=own)
         except EngineError as err:
             raise ProjectFileError(f"{origin}: {_json_path(('blocks', k))}{_owner(data, ('blocks', k))}: {err.message}") from err
         # keep the layout exactly as written, so load-then-save gives the same file
@@ -733,7 +749,7 @@ def _build(data: Any, origin: str, *, scan: bool) -> Diagram:
 def loads(text: str, *, origin: str = "project file") -> Diagram:
     """Parse project-file text; see :func:`from_dict` for the errors."""
     data, odd = _parse(text, origin)
-    return _build(data, origin, scan=odd)
+    return _build(data, origin, scan=odd, own=True)
 
 
 def load(path: str | os.PathLike) -> Diagram:
