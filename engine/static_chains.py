@@ -213,6 +213,12 @@ class FeedthroughMatrix(np.lib.mixins.NDArrayOperatorsMixin):
         self._reads = 0
 
     @property
+    def inverse(self):
+        """How ``(I - D M)^-1`` is held: an :class:`AcyclicFeedthrough` (applied on demand) or,
+        with algebraic loops, the dense array."""
+        return self._inverse
+
+    @property
     def is_formed(self) -> bool:
         """Whether the whole matrix exists in memory (it does not after an acyclic assembly)."""
         return self._full is not None

@@ -1,0 +1,206 @@
+"""Long chains of static blocks: exact models, assembled by the linear route.
+
+References: closed forms stated beside each check; the dense inverse of ``I - D M``
+(``numpy.linalg.inv``) on the same matrices; and the full JSON Schema validator
+(``jsonschema`` 4.26, Draft 2020-12) for the loader's quick check.
+"""
+from __future__ import annotations
+
+import copy
+import json
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from numpy.testing import assert_allclose
+
+from loopwright.engine import project
+from loopwright.engine.check import summarize
+from loopwright.engine.diagram import Diagram
+from loopwright.engine.errors import DiagramError
+from loopwright.engine.interconnect import assemble
+from loopwright.engine.noise import noise_budget
+from loopwright.engine.static_chains import AcyclicFeedthrough, FeedthroughMatrix
+from strategies import loop_diagrams
+
+SETTINGS = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+
+
+def _chain_loop(gains) -> Diagram:
+    """A first-order plant ``2/(s + 1)`` under ``u = g (r - y_m)`` through gains in series (demo data)."""
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step"}})
+    d.add_block("source", "n", {"role": "noise", "width": 1, "waveform": {"kind": "white", "intensity": 1e-4}})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    d.add_block("plant", "P", {"num": [2.0], "den": [1.0, 1.0]})
+    d.add_block("sum", "ym", {"signs": ["+", "+"], "width": 1})
+    d.connect("r.out", "e.in1")
+    prev = "e.out"
+    for k, g in enumerate(gains):
+        d.add_block("gain", f"g{k}", {"K": [[float(g)]]})
+        d.connect(prev, f"g{k}.in", name=f"s{k}")
+        prev = f"g{k}.out"
+    d.connect(prev, "P.u", name="u")
+    d.connect("P.y", "ym.in1", name="y")
+    d.connect("n.out", "ym.in2")
+    d.connect("ym.out", "e.in2", name="ym")
+    return d
+
+
+def test_a_long_chain_of_unit_gains_assembles_exactly_without_forming_the_injection_block():
+    # closed form: x' = -(1 + 2 g) x with g = 1 (the product of the unit gains); u/r has the
+    # feedthrough g; an injection at s_k (into gain k) reaches u through gains k.. (product 1),
+    # and the noise n reaches u through -g
+    gains = 3000
+    m = assemble(_chain_loop([1.0] * gains))
+    assert isinstance(m.D, FeedthroughMatrix) and isinstance(m.D.inverse, AcyclicFeedthrough)
+    assert_allclose(m.A, [[-3.0]], rtol=0, atol=0)
+    assert_allclose(m.pair("r", "u")[3], [[1.0]], rtol=0, atol=0)
+    assert_allclose(m.pair("n", "u")[3], [[-1.0]], rtol=0, atol=0)
+    for k in (0, 1, gains // 2, gains - 1):
+        assert_allclose(m.pair(f"s{k}", "u")[3], [[1.0]], rtol=0, atol=0)
+        assert_allclose(m.pair("u", f"s{k}")[3], [[0.0]], rtol=0, atol=0)  # u feeds no static block
+    # the linear route: graph order makes I - D M triangular, its factor has no fill (one
+    # entry per signal and per feedthrough link: gains + 2 + 2 junction inputs), and no
+    # command below needs the ns x ns injection block
+    ns = len(m.signals)
+    assert ns == gains + 5
+    assert m.D.inverse.factor_nnz == ns + gains + 4
+    summarize(m.diagram)
+    noise_budget(m)
+    assert not m.D.is_formed
+
+
+@SETTINGS
+@given(st.lists(st.floats(-3.0, 3.0).filter(lambda g: abs(g) > 0.1), min_size=1, max_size=40))
+def test_chain_feedthrough_is_the_product_of_the_gains_after_the_injection(gains):
+    # closed form: s_k is the signal into gain k, so from its injection to u the feedthrough
+    # is prod(gains[k:]); the
+    # loop's pole is -(1 + 2 g) with g = prod(gains)
+    m = assemble(_chain_loop(gains))
+    g = float(np.prod(gains))
+    assert_allclose(m.A, [[-1.0 - 2.0 * g]], rtol=1e-12)
+    for k in range(len(gains)):
+        assert_allclose(m.pair(f"s{k}", "u")[3], [[np.prod(gains[k:])]], rtol=1e-12)
+
+
+def _keys(ns_rows: int, ns_cols: int):
+    """Index expressions as callers write them."""
+    return [
+        (slice(None), slice(2, 5)),
+        (slice(1, None, 2), slice(None)),
+        3,
+        -1,
+        (4, 2),
+        (-2, slice(None, None, -1)),
+        ([0, 3, 3, 1], slice(None)),
+        (slice(None), [5, 0, 5]),
+        np.ix_([1, 2], [0, 4, 3]),
+        (np.array([0, 2]), np.array([1, 3])),
+        (np.arange(ns_rows) % 2 == 0, slice(0, 3)),
+        (slice(None), np.arange(ns_cols) % 3 == 1),
+        np.ix_(range(2, 4), range(1, 6)),
+        (range(2, 4), range(1, 6)),  # two index arrays that do not broadcast: IndexError
+        ([], slice(None)),
+    ]
+
+
+@SETTINGS
+@given(loop_diagrams())
+def test_reading_pieces_of_d_equals_reading_the_whole(d):
+    # reference: the dense D of the same diagram (np.asarray forms it)
+    whole = np.asarray(assemble(d).D)
+    for key in _keys(*whole.shape):
+        lazy = assemble(d).D  # a fresh model, so the piece is computed on its own
+        try:
+            want = whole[key]
+        except IndexError:
+            with pytest.raises(IndexError):
+                lazy[key]
+            continue
+        if isinstance(key, tuple) and any(np.size(k) == 0 for k in key if not isinstance(k, slice)):
+            assert lazy[key].shape == want.shape
+            continue
+        assert_allclose(lazy[key], want, rtol=1e-12, atol=1e-14, err_msg=repr(key))
+
+
+@SETTINGS
+@given(loop_diagrams())
+def test_the_injection_block_equals_the_dense_inverse(d):
+    # reference: numpy.linalg.inv(I - D M) on the same matrices; B's injection columns are
+    # B_u M times that inverse
+    m = assemble(d)
+    if not isinstance(m.D.inverse, AcyclicFeedthrough):
+        return
+    inv = m.D.inverse
+    ns = inv.ns
+    ref = np.linalg.inv(np.eye(ns) - inv.DM.toarray())
+    assert_allclose(inv.columns(np.arange(ns)), ref, rtol=1e-12, atol=1e-13)
+    assert_allclose(inv.rows(np.arange(ns)), ref, rtol=1e-12, atol=1e-13)
+    assert np.all(inv.row_sum_bound() >= np.abs(ref).max(axis=1) - 1e-12)
+
+
+def test_gains_that_multiply_beyond_the_limit_along_a_chain_are_refused():
+    # 12 gains of 1e10 each are fine on their own; their product 1e120 exceeds the 1e100 limit
+    with pytest.raises(DiagramError, match="badly scaled"):
+        assemble(_chain_loop([1e10] * 12))
+
+
+def test_an_injection_block_bound_within_the_limit_is_not_formed():
+    # closed form: the row sums of (I - |D M|)^-1 on a chain of gains 10 are 1 + 10 + ... + 10^k,
+    # below the limit for 40 gains (about 1.1e40): nothing is formed to check the range
+    m = assemble(_chain_loop([10.0] * 40))
+    assert not m.D.is_formed
+
+
+# ---- the loader's quick schema check --------------------------------------------------
+
+_JSON_VALUES = st.recursive(
+    st.none() | st.booleans() | st.integers(-3, 3) | st.floats(-1e3, 1e3) | st.sampled_from(["", "x", "+", "-", "u", "a.b", "gain", "P\n"]),
+    lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.sampled_from(["K", "x", "kind", "name", "width", "signs"]), inner, max_size=3),
+    max_leaves=8,
+)
+
+
+def _paths(node, path=()):
+    yield path
+    if isinstance(node, dict):
+        for k, v in node.items():
+            yield from _paths(v, (*path, k))
+    elif isinstance(node, list):
+        for i, v in enumerate(node):
+            yield from _paths(v, (*path, i))
+
+
+def _replace(doc, path, value) -> None:
+    """Put ``value`` at ``path`` if that path still exists (an earlier change may have removed it)."""
+    node = doc
+    for part in path[:-1]:
+        if isinstance(node, dict) and part in node or isinstance(node, list) and isinstance(part, int) and part < len(node):
+            node = node[part]
+        else:
+            return
+    last = path[-1]
+    if isinstance(node, dict) or isinstance(node, list) and isinstance(last, int) and last < len(node):
+        node[last] = value
+
+
+_SAMPLE = project.to_dict(_chain_loop([2.0, 0.5]))
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.data())
+def test_the_quick_schema_check_never_accepts_what_the_full_validator_refuses(data):
+    # reference: jsonschema's Draft 2020-12 validator on the same schema
+    doc = copy.deepcopy(_SAMPLE)
+    paths = [p for p in _paths(doc) if p]
+    for _ in range(data.draw(st.integers(1, 3))):
+        _replace(doc, data.draw(st.sampled_from(paths)), data.draw(_JSON_VALUES))
+    doc = json.loads(json.dumps(doc))
+    if project._quick_validator()(doc):
+        assert not list(project._validator()[0].iter_errors(doc))
+
+
+def test_the_quick_schema_check_accepts_a_valid_file():
+    assert project._quick_validator()(json.loads(project.dumps(_chain_loop([1.0] * 3))))
