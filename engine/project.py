@@ -464,7 +464,7 @@ def _quick_check(node: Any):
             f = _quick_check(val)
             checks.append(lambda v, f=f: not isinstance(v, dict) or all(f(k) for k in v))
         elif kw == "required":
-            checks.append(lambda v, req=tuple(val): not isinstance(v, dict) or all(k in v for k in req))
+            checks.append(lambda v, req=frozenset(val): not isinstance(v, dict) or req.issubset(v))
         elif kw == "items":
             if not isinstance(val, dict):
                 return _never
@@ -481,10 +481,8 @@ def _quick_check(node: Any):
             cmp = {"minimum": lambda x, b: x >= b, "maximum": lambda x, b: x <= b,
                    "exclusiveMinimum": lambda x, b: x > b, "exclusiveMaximum": lambda x, b: x < b}[kw]
             checks.append(lambda v, cmp=cmp, b=val: not _is_number(v) or cmp(v, b))
-        elif kw == "enum":
-            checks.append(lambda v, choices=tuple(val): any(_json_equal(v, c) for c in choices))
-        elif kw == "const":
-            checks.append(lambda v, c=val: _json_equal(v, c))
+        elif kw in ("enum", "const"):
+            checks.append(_quick_choice(val if kw == "enum" else [val]))
         elif kw == "allOf":
             checks.append(_quick_by_kind(val) or _quick_all([_quick_check(sub) for sub in val]))
         elif kw == "anyOf":
@@ -502,6 +500,18 @@ def _quick_check(node: Any):
     if "additionalProperties" in node and "properties" not in node:
         checks.append(_quick_object({}, node["additionalProperties"]))
     return _quick_all(checks)
+
+
+def _quick_choice(choices: list):
+    """``enum`` (or ``const``: one choice), by a set lookup when the choices are all text or
+    all numbers (``true`` is not ``1`` here, as in JSON Schema)."""
+    if all(type(c) is str for c in choices):
+        texts = frozenset(choices)
+        return lambda v: type(v) is str and v in texts
+    if all(type(c) in (int, float) for c in choices):
+        numbers = frozenset(choices)
+        return lambda v: (type(v) is int or type(v) is float) and v in numbers
+    return lambda v: any(_json_equal(v, c) for c in choices)
 
 
 def _quick_all(checks):
