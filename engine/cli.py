@@ -7,8 +7,6 @@ only a bug in Loopwright itself shows a traceback.
 from __future__ import annotations
 
 import argparse
-import contextlib
-import gc
 import importlib
 import sys
 import warnings
@@ -21,6 +19,7 @@ from loopwright.engine.cli_common import fmt_complex, fmt_num, load_diagram, pri
 from loopwright.engine.eigen import format_pole, trustworthy_digits
 from loopwright.engine.cli_options import bounded_int
 from loopwright.engine.errors import EngineError
+from loopwright.engine.interconnect import collector_paused
 from loopwright.engine.output_paths import check_export_output
 
 __all__ = ["main", "build_parser", "COMMANDS", "one_line"]
@@ -213,7 +212,7 @@ def main(argv: list[str] | None = None, *, diagram_renderer=None) -> int:
     # Overflow inside numpy is not news for the user: the engine's guards name the bad
     # number, and a result that is not finite is reported as such; a warning printed in
     # the middle of the output would only add lines.
-    with np.errstate(all="ignore"), warnings.catch_warnings(), _without_collector_pauses():
+    with np.errstate(all="ignore"), warnings.catch_warnings(), collector_paused():
         warnings.simplefilter("ignore", RuntimeWarning)
         try:
             return int(args.run(args) or 0)
@@ -231,24 +230,6 @@ def main(argv: list[str] | None = None, *, diagram_renderer=None) -> int:
             return 2
         except BrokenPipeError:
             return 0
-
-
-@contextlib.contextmanager
-def _without_collector_pauses():
-    """Python's cycle collector paused for one command (and restored after).
-
-    A command builds a few objects per block and frees them by reference counting; with
-    the collector running, its full passes over everything alive come more often as the
-    diagram grows: assembling 4,000 gains in series spent over a third of its time there.
-    Whatever cycles a command leaves are collected once the collector runs again.
-    """
-    was_enabled = gc.isenabled()
-    gc.disable()
-    try:
-        yield
-    finally:
-        if was_enabled:
-            gc.enable()
 
 
 def _numerical_breakdown(err: Exception) -> bool:

@@ -22,8 +22,10 @@ the estimator reads the same command wire as the plant.
 """
 from __future__ import annotations
 
+import contextlib
 import copy
 import difflib
+import gc
 from dataclasses import dataclass, field
 
 import networkx as nx
@@ -294,6 +296,24 @@ def _raise_first(problems: list[Problem]) -> None:
     raise DiagramError(text, block_ids=p.block_ids, wire_ids=p.wire_ids)
 
 
+@contextlib.contextmanager
+def collector_paused():
+    """Python's cycle collector paused inside the block (restored after; nests).
+
+    Assembly and the commands build a few objects per block and free them by reference
+    counting; the collector's full passes over everything alive come more often as the
+    diagram grows, and made assembling 4,000 gains in series take 1.7 times as long.
+    Whatever cycles are left are collected once it runs again.
+    """
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
+
+
 def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel:
     """Reduce ``diagram`` to one continuous-time state-space model.
 
@@ -328,6 +348,12 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     >>> m.A
     array([[-2.]])
     """
+    with collector_paused():
+        return _assemble(diagram, break_at=break_at)
+
+
+def _assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel:
+    """The work of :func:`assemble` (which pauses the collector around it)."""
     snap = diagram.copy()
     blocks = list(snap.blocks.values())
     reals, problems = _realize_all(blocks, snap, check_each=False)
