@@ -28,23 +28,29 @@ SETTINGS = settings(max_examples=25, deadline=None, suppress_health_check=[Healt
 
 
 def _chain_loop(gains) -> Diagram:
-    """A first-order plant ``2/(s + 1)`` under ``u = g (r - y_m)`` through gains in series (demo data)."""
+    """A first-order plant ``2/(s + 1)`` under ``u = g (r - y_m)`` through gains in series,
+    with a load ``d`` added by a junction halfway along the chain (demo data).
+
+    ``s<k>`` is the signal into gain ``k``; the junction ``j`` sits before gain ``len(gains) // 2``.
+    """
     d = Diagram()
-    d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step"}})
-    d.add_block("source", "n", {"role": "noise", "width": 1, "waveform": {"kind": "white", "intensity": 1e-4}})
-    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    for name, role in (("r", "reference"), ("n", "noise"), ("ld", "disturbance")):
+        d.add_block("source", name, {"role": role, "width": 1, "waveform": {"kind": "white", "intensity": 1e-4}})
+    for name in ("e", "j", "ym"):
+        d.add_block("sum", name, {"signs": ["+", "-"] if name == "e" else ["+", "+"], "width": 1})
     d.add_block("plant", "P", {"num": [2.0], "den": [1.0, 1.0]})
-    d.add_block("sum", "ym", {"signs": ["+", "+"], "width": 1})
-    d.connect("r.out", "e.in1")
     prev = "e.out"
     for k, g in enumerate(gains):
+        if k == len(gains) // 2:
+            d.connect(prev, "j.in1", name="before_j")
+            d.connect("ld.out", "j.in2")
+            prev = "j.out"
         d.add_block("gain", f"g{k}", {"K": [[float(g)]]})
         d.connect(prev, f"g{k}.in", name=f"s{k}")
         prev = f"g{k}.out"
-    d.connect(prev, "P.u", name="u")
-    d.connect("P.y", "ym.in1", name="y")
-    d.connect("n.out", "ym.in2")
-    d.connect("ym.out", "e.in2", name="ym")
+    wires = [("r.out", "e.in1", None), (prev, "P.u", "u"), ("P.y", "ym.in1", "y"), ("n.out", "ym.in2", None), ("ym.out", "e.in2", "ym")]
+    for src, dst, name in wires:
+        d.connect(src, dst, name=name)
     return d
 
 
@@ -58,15 +64,16 @@ def test_a_long_chain_of_unit_gains_assembles_exactly_without_forming_the_inject
     assert_allclose(m.A, [[-3.0]], rtol=0, atol=0)
     assert_allclose(m.pair("r", "u")[3], [[1.0]], rtol=0, atol=0)
     assert_allclose(m.pair("n", "u")[3], [[-1.0]], rtol=0, atol=0)
+    assert_allclose(m.pair("ld", "u")[3], [[1.0]], rtol=0, atol=0)
     for k in (0, 1, gains // 2, gains - 1):
         assert_allclose(m.pair(f"s{k}", "u")[3], [[1.0]], rtol=0, atol=0)
         assert_allclose(m.pair("u", f"s{k}")[3], [[0.0]], rtol=0, atol=0)  # u feeds no static block
     # the linear route: graph order makes I - D M triangular, its factor has no fill (one
-    # entry per signal and per feedthrough link: gains + 2 + 2 junction inputs), and no
+    # entry per signal and per feedthrough link: one per gain, two per junction), and no
     # command below needs the ns x ns injection block
     ns = len(m.signals)
-    assert ns == gains + 5
-    assert m.D.inverse.factor_nnz == ns + gains + 4
+    assert ns == gains + 7  # 3 sources, 3 junctions, the plant
+    assert m.D.inverse.factor_nnz == ns + gains + 6
     summarize(m.diagram)
     noise_budget(m)
     assert not m.D.is_formed
@@ -83,6 +90,7 @@ def test_chain_feedthrough_is_the_product_of_the_gains_after_the_injection(gains
     assert_allclose(m.A, [[-1.0 - 2.0 * g]], rtol=1e-12)
     for k in range(len(gains)):
         assert_allclose(m.pair(f"s{k}", "u")[3], [[np.prod(gains[k:])]], rtol=1e-12)
+    assert_allclose(m.pair("ld", "u")[3], [[np.prod(gains[len(gains) // 2 :])]], rtol=1e-12)
 
 
 def _keys(ns_rows: int, ns_cols: int):
@@ -163,27 +171,20 @@ _JSON_VALUES = st.recursive(
 )
 
 
-def _paths(node, path=()):
-    yield path
-    if isinstance(node, dict):
-        for k, v in node.items():
-            yield from _paths(v, (*path, k))
-    elif isinstance(node, list):
-        for i, v in enumerate(node):
-            yield from _paths(v, (*path, i))
-
-
-def _replace(doc, path, value) -> None:
-    """Put ``value`` at ``path`` if that path still exists (an earlier change may have removed it)."""
+def _mutate(doc, data) -> None:
+    """Replace one value somewhere in ``doc`` (a random walk down from the top)."""
     node = doc
-    for part in path[:-1]:
-        if isinstance(node, dict) and part in node or isinstance(node, list) and isinstance(part, int) and part < len(node):
-            node = node[part]
-        else:
+    while True:
+        keys = list(node) if isinstance(node, dict) else list(range(len(node)))
+        if not keys:
             return
-    last = path[-1]
-    if isinstance(node, dict) or isinstance(node, list) and isinstance(last, int) and last < len(node):
-        node[last] = value
+        key = data.draw(st.sampled_from(keys))
+        child = node[key]
+        if isinstance(child, (dict, list)) and child and data.draw(st.booleans()):
+            node = child
+            continue
+        node[key] = data.draw(_JSON_VALUES)
+        return
 
 
 _SAMPLE = project.to_dict(_chain_loop([2.0, 0.5]))
@@ -194,9 +195,8 @@ _SAMPLE = project.to_dict(_chain_loop([2.0, 0.5]))
 def test_the_quick_schema_check_never_accepts_what_the_full_validator_refuses(data):
     # reference: jsonschema's Draft 2020-12 validator on the same schema
     doc = copy.deepcopy(_SAMPLE)
-    paths = [p for p in _paths(doc) if p]
     for _ in range(data.draw(st.integers(1, 3))):
-        _replace(doc, data.draw(st.sampled_from(paths)), data.draw(_JSON_VALUES))
+        _mutate(doc, data)
     doc = json.loads(json.dumps(doc))
     if project._quick_validator()(doc):
         assert not list(project._validator()[0].iter_errors(doc))
