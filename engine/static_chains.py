@@ -123,6 +123,15 @@ class AcyclicFeedthrough:
         self._lu = self._factor(self.DM)
         self.factor_nnz = 0 if self._lu is None else int(self._lu.L.nnz + self._lu.U.nnz - self.ns)
 
+    def __getstate__(self) -> dict:
+        state = dict(self.__dict__)
+        state.pop("_lu")  # a factorisation object does not pickle; it is cheap to make again
+        return state
+
+    def __setstate__(self, state: dict) -> None:
+        self.__dict__.update(state)
+        self._lu = self._factor(self.DM)
+
     def _factor(self, DM: sp.csr_matrix):
         """LU of ``I - DM`` in graph order (unit lower triangular: the factor is the matrix)."""
         if not self.ns:

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import copy
 import json
+import pickle
 
 import numpy as np
 import pytest
@@ -204,3 +205,11 @@ def test_the_quick_schema_check_never_accepts_what_the_full_validator_refuses(da
 
 def test_the_quick_schema_check_accepts_a_valid_file():
     assert project._quick_validator()(json.loads(project.dumps(_chain_loop([1.0] * 3))))
+
+
+def test_a_model_with_an_unformed_injection_block_pickles_and_copies():
+    # reference: the pieces of the original model's D (closed form: a chain of unit gains)
+    m = assemble(_chain_loop([1.0] * 30))
+    for other in (pickle.loads(pickle.dumps(m)), copy.deepcopy(m)):
+        assert not other.D.is_formed
+        assert_allclose(other.D[:, m.inputs["inject:s3"]], m.D[:, m.inputs["inject:s3"]], rtol=0, atol=0)
