@@ -147,10 +147,12 @@ def timed(fn, repeat: int = 1):
     CPU time is printed beside wall time: on a shared machine other jobs inflate wall
     time unevenly between the runs being compared.
     """
+    import gc
     import time
 
     best, best_cpu, out = np.inf, np.inf, None
     for _ in range(repeat):
+        gc.collect()  # every run starts without the garbage of the runs before
         t0, c0 = time.perf_counter(), time.process_time()
         out = fn()
         best = min(best, time.perf_counter() - t0)

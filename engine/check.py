@@ -37,7 +37,6 @@ from dataclasses import dataclass, field
 
 import networkx as nx
 import numpy as np
-from scipy.optimize import linear_sum_assignment
 
 from loopwright.engine.blocks import plant_matrices, realize
 from loopwright.engine.diagram import Diagram, PortRef
@@ -152,6 +151,7 @@ def poles_match(a: np.ndarray, b: np.ndarray, *, rtol: float = 1e-5) -> tuple[bo
         return True, 0.0
     scale = np.maximum(1.0, np.abs(a))
     cost = np.abs(a[:, None] - b[None, :]) / scale[:, None]
+    from scipy.optimize import linear_sum_assignment  # (a slow import, only needed here)
     r, c = linear_sum_assignment(cost)
     near = np.abs(a[:, None] - a[None, :]) / scale[:, None] < 1e-3
     allowed = np.where(near.sum(axis=1) > 1, max(rtol, np.sqrt(rtol) / 10), rtol)
@@ -174,7 +174,7 @@ def _separation(model: AssembledModel, poles: np.ndarray, bounds: np.ndarray) ->
     error dynamics decouple (else ``None`` in their place)."""
     diagram = model.diagram
     pairs, err_rows, plant_rows, gains = [], [], [], {}
-    graph = diagram.graph()
+    graph = None  # the block graph, drawn only for a diagram with a linked estimator
     est_poles = []
     for b in diagram.blocks.values():
         link = b.params.get("plant") if b.kind == "estimator" else None
@@ -189,6 +189,7 @@ def _separation(model: AssembledModel, poles: np.ndarray, bounds: np.ndarray) ->
         A, _, C, _ = plant_matrices(diagram, link)
         L = realize(b, diagram).B[:, -C.shape[0]:]
         est_poles.append(eigen_sensitivity(A - L @ C))
+        graph = diagram.graph() if graph is None else graph
         k = _static_feedback(model, b.name, link, graph)
         if k is not None:
             gains[b.name] = k
@@ -255,6 +256,7 @@ def _within_bounds(a: np.ndarray, a_bounds: np.ndarray, b: np.ndarray, b_bounds:
         return False
     allowed = _BOUND_FACTOR * (a_bounds[:, None] + b_bounds[None, :]) + 1e-9 * np.maximum(1.0, np.abs(a))[:, None]
     excess = np.maximum(np.abs(a[:, None] - b[None, :]) - allowed, 0.0)
+    from scipy.optimize import linear_sum_assignment  # (a slow import, only needed here)
     r, c = linear_sum_assignment(excess)
     return bool(np.all(excess[r, c] == 0.0))
 
@@ -330,7 +332,8 @@ def summarize(diagram: Diagram) -> CheckReport:
         warnings.append(sep.message)
     # Separation can hold while the estimate is biased: a known signal added after the
     # estimator's tap drives the error without moving any pole.
-    gaps = tuple(estimator_input_gaps(diagram))
+    # (the signal graph it needs is drawn only when there is an estimator to look at)
+    gaps = tuple(estimator_input_gaps(diagram)) if any(b.kind == "estimator" for b in diagram.blocks.values()) else ()
     warnings.extend(gap.message for gap in gaps)
     digits = pole_digits(poles, bounds, scale=scale)
     if digits and min(digits) < 3:

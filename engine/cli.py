@@ -20,6 +20,7 @@ from loopwright.engine.blas_threads import limit_blas_threads
 from loopwright.engine.eigen import format_pole, trustworthy_digits
 from loopwright.engine.cli_options import bounded_int
 from loopwright.engine.errors import EngineError
+from loopwright.engine.interconnect import collector_paused
 from loopwright.engine.output_paths import check_export_output
 
 __all__ = ["main", "build_parser", "COMMANDS", "one_line"]
@@ -213,7 +214,7 @@ def main(argv: list[str] | None = None, *, diagram_renderer=None) -> int:
     # Overflow inside numpy is not news for the user: the engine's guards name the bad
     # number, and a result that is not finite is reported as such; a warning printed in
     # the middle of the output would only add lines.
-    with np.errstate(all="ignore"), warnings.catch_warnings():
+    with np.errstate(all="ignore"), warnings.catch_warnings(), collector_paused():
         warnings.simplefilter("ignore", RuntimeWarning)
         try:
             return int(args.run(args) or 0)

@@ -258,10 +258,10 @@ def _export(args: argparse.Namespace) -> int:
         if measured is None or actuator is None:
             dm, da = _default_loop_signals(diagram)
             measured, actuator = measured or dm, actuator or da
-        model = controller_model(diagram, measured=measured, actuator=actuator, ts=args.ts, method=args.method,
-                                 prewarp_rad_s=args.prewarp, source=args.file)
-        summary.update(measured=measured, actuator=actuator)
         cont = lumped_controller(diagram, measured=measured, actuator=actuator)
+        model = controller_model(diagram, measured=measured, actuator=actuator, ts=args.ts, method=args.method,
+                                 prewarp_rad_s=args.prewarp, source=args.file, lumped=cont)
+        summary.update(measured=measured, actuator=actuator)
         if cont.B.shape[1] == 1 and cont.C.shape[0] == 1:
             tf = controller_transfer_function(cont)
             summary["transfer_function"] = {"num": tf["num"], "den": tf["den"], "poles": poles_to_json(tf["poles"]),

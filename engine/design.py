@@ -27,7 +27,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg as sla
-import scipy.signal as ssig
 
 from loopwright.engine.errors import DesignError
 
@@ -381,6 +380,8 @@ def place_state_feedback(A, B, poles, *, inputs=None, method: str = "place") -> 
 
 def _place(A: np.ndarray, B: np.ndarray, target: np.ndarray, *, what: str) -> tuple[np.ndarray, list[str]]:
     """Robust eigenstructure assignment; returns the gain and any warnings."""
+    import scipy.signal as ssig  # here, not at the top: importing it is most of a command's start-up
+
     try:
         with warnings.catch_warnings():
             # scipy warns when its iteration stops early; the achieved poles are

@@ -11,7 +11,7 @@ import copy
 import pickle
 import re
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, NamedTuple
 
 import networkx as nx
 
@@ -42,9 +42,12 @@ class _Tracked:
         object.__setattr__(self, key, value)
 
 
-@dataclass(frozen=True)
-class PortRef:
-    """One port of one block: ``PortRef("b3", "u")``."""
+class PortRef(NamedTuple):
+    """One port of one block: ``PortRef("b3", "u")``.
+
+    A named tuple (immutable, like a frozen dataclass): hashing and comparing it runs in
+    compiled code, and the assembly looks ports up once per wire and per port.
+    """
 
     block: str
     port: str
@@ -276,8 +279,12 @@ class Diagram:
         layout: dict[str, Any] | None = None,
         caption: str = "",
         block_id: str | None = None,
+        take_params: bool = False,
     ) -> str:
         """Add a block and return its id.
+
+        ``params`` is copied, unless ``take_params``: then the block keeps that very dict
+        (for a caller that made it and keeps no other reference, like the file loader).
 
         Raises
         ------
@@ -297,7 +304,11 @@ class Diagram:
         lay = {"x": 0.0, "y": 0.0, "rotation": 0, "flip": False}
         lay.update(layout or {})
         ix = self._tables()
-        self.blocks[bid] = Block(bid, kind, name, copy.deepcopy(params) if params is not None else default_params(kind), lay, caption)
+        if params is None:
+            params = default_params(kind)
+        elif not take_params:
+            params = copy.deepcopy(params)
+        self.blocks[bid] = Block(bid, kind, name, params, lay, caption)
         ix.block_names.setdefault(name, bid)
         self._tables_done(ix)
         return bid

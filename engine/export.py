@@ -33,7 +33,7 @@ from loopwright.engine.discretize import DiscreteModel, discretize
 from loopwright.engine.errors import DesignError, EngineError
 from loopwright.engine.interconnect import assemble
 from loopwright.engine.jsonable import to_jsonable
-from loopwright.engine.lumped import lumped_controller
+from loopwright.engine.lumped import LumpedModel, lumped_controller
 from loopwright.engine.output_paths import OutputRefusedError, check_export_output, display_path
 from loopwright.engine.project import atomic_write
 
@@ -121,9 +121,14 @@ def controller_model(
     method: str = "zoh",
     prewarp_rad_s: float | None = None,
     source: str | None = None,
+    lumped: LumpedModel | None = None,
 ) -> ExportModel:
-    """The lumped controller (measured -> actuator), continuous, or discretised when ``ts`` is given."""
-    k = lumped_controller(diagram, measured=measured, actuator=actuator)
+    """The lumped controller (measured -> actuator), continuous, or discretised when ``ts`` is given.
+
+    ``lumped``: that controller, when the caller has it already (from :func:`lumped_controller`
+    with the same signals).
+    """
+    k = lumped_controller(diagram, measured=measured, actuator=actuator) if lumped is None else lumped
     origin = _origin(diagram, source) + f", controller from {', '.join(k.inputs)} to {', '.join(k.outputs)}"
     if ts is None:
         if prewarp_rad_s is not None:

@@ -142,9 +142,12 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
     n = model.A.shape[0]
     errs = _error_maps(model)
     rows: list[tuple[str, str, np.ndarray, np.ndarray | None]] = []  # (name, signal, c row, d block)
+    # the sources' columns of D only (they come first): its injection block is not needed
+    n_src = max((model.inputs[name].stop for name in srcs), default=0)
+    D_src = model.D[:, :n_src]
     for sig, sl in model.signals.items():
         for i in range(sl.start, sl.stop):
-            rows.append((model.output_names[i], sig, model.C[i], model.D[i]))
+            rows.append((model.output_names[i], sig, model.C[i], D_src[i]))
     for est, E, names in errs:
         for i, nm in enumerate(names):
             rows.append((nm, f"error:{est}", E[i], None))
@@ -165,7 +168,7 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
         S = red.scale
         Cs = np.array([r[2] for r in rows]) * S[None, :]  # rows in the reduction's (possibly balanced) coordinates
         var = variances_by_source(red.T_real, red.Z_real, Cs, {name: (model.B[:, model.inputs[name]] / S[:, None], W) for name, W in srcs.items()})
-    D_rows = np.array([np.zeros(model.D.shape[1]) if r[3] is None else r[3] for r in rows]).reshape(len(rows), model.D.shape[1])
+    D_rows = np.array([np.zeros(n_src) if r[3] is None else r[3] for r in rows]).reshape(len(rows), n_src)
     for name, W in srcs.items():
         Dw = D_rows[:, model.inputs[name]]
         direct[name] = np.einsum("ij,jk,ik->i", Dw, W, Dw)

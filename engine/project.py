@@ -107,7 +107,7 @@ def _parse(text: str, origin: str) -> tuple[Any, bool]:
         return value
 
     try:
-        if not _OUT_OF_RANGE_HINT.search(text):  # the usual case: the C decoder reads every number itself
+        if not _may_hold_out_of_range_number(text):  # the usual case: the C decoder reads every number itself
             return json.loads(text, parse_constant=constant), bool(odd)
         return json.loads(text, parse_constant=constant, parse_float=real, parse_int=whole), bool(odd)
     except json.JSONDecodeError as err:
@@ -119,6 +119,21 @@ def _parse(text: str, origin: str) -> tuple[Any, bool]:
 # Text that may hold a number beyond the float range: 309 digits in a row, or an exponent
 # of 100 or more. Only then are the numbers parsed one by one to find it.
 _OUT_OF_RANGE_HINT = re.compile(r"\d{309}|[eE]\+?0*[1-9]\d\d")
+_BIG_EXPONENT = re.compile(r"[eE]\+?0*[1-9]\d\d")
+
+
+def _may_hold_out_of_range_number(text: str) -> bool:
+    """:data:`_OUT_OF_RANGE_HINT` found in ``text``; the run of 309 digits is looked for by
+    a vectorised count (the regular expression tries it at every digit: slow on long files)."""
+    import numpy as np
+
+    if _BIG_EXPONENT.search(text):
+        return True
+    codes = np.frombuffer(text.encode("utf-8", "surrogatepass"), dtype=np.uint8)
+    digit = np.zeros(codes.size + 2, dtype=np.int8)
+    digit[1:-1] = (codes >= ord("0")) & (codes <= ord("9"))
+    edges = np.flatnonzero(np.diff(digit))  # starts and ends of the runs of digits, in turn
+    return bool(edges.size) and int((edges[1::2] - edges[::2]).max()) >= 309
 
 
 class _NonFinite:
@@ -135,8 +150,34 @@ class _NonFinite:
 _NESTING_TOKEN = re.compile(r'[\[\]{}"]')
 
 
+def _deepest_nesting_bound(text: str) -> int:
+    """The nesting depth of ``[``/``{`` outside strings, counted at C speed.
+
+    Without backslashes every quote opens or closes a string, so a bracket is outside
+    every string when an even number of quotes precede it: up to the first place the
+    decoder would refuse, this counts exactly what :func:`_refuse_deep_nesting` counts, and
+    past it at most more. A text with a backslash gets a bound that sends it to that walk.
+    """
+    import numpy as np
+
+    if "\\" in text:  # escapes (rare in a diagram): the token-by-token walk reads them
+        return MAX_NESTING + 1
+    codes = np.frombuffer(text.encode("utf-8", "surrogatepass"), dtype=np.uint8)
+    if not codes.size:
+        return 0
+    outside = (np.cumsum(codes == ord('"')) & 1) == 0
+    step = ((codes == ord("[")) | (codes == ord("{"))).astype(np.int32) - ((codes == ord("]")) | (codes == ord("}")))
+    return max(0, int(np.cumsum(step * outside).max()))
+
+
 def _refuse_deep_nesting(text: str, origin: str) -> None:
-    """Raise when ``[``/``{`` nest deeper than :data:`MAX_NESTING` (counted outside strings)."""
+    """Raise when ``[``/``{`` nest deeper than :data:`MAX_NESTING` (counted outside strings).
+
+    Counted in one vectorised pass first; only a text that may nest too deeply is walked
+    token by token, to refuse it with its line number.
+    """
+    if _deepest_nesting_bound(text) <= MAX_NESTING:
+        return
     depth, pos = 0, 0
     while found := _NESTING_TOKEN.search(text, pos):
         char, pos = found.group(), found.end()
@@ -354,6 +395,213 @@ def schema() -> dict[str, Any]:
     return _validator()[1]
 
 
+# ---- a quick yes/no check of the schema, for the usual case of a valid file ---------
+# Keywords that only annotate; any other keyword the quick check does not know makes it
+# answer "not sure" (False), and the full validator then decides.
+_ANNOTATIONS = frozenset(("$comment", "$schema", "$id", "$defs", "title", "description", "default", "examples"))
+
+
+def _json_equal(a: Any, b: Any) -> bool:
+    """Equality as JSON Schema means it for ``enum`` and ``const`` (``true`` is not ``1``)."""
+    if isinstance(a, str) or isinstance(b, str):
+        return a == b
+    if isinstance(a, bool) or isinstance(b, bool):
+        return type(a) is type(b) and a == b
+    if isinstance(a, list) and isinstance(b, list):
+        return len(a) == len(b) and all(_json_equal(x, y) for x, y in zip(a, b))
+    if isinstance(a, dict) and isinstance(b, dict):
+        return a.keys() == b.keys() and all(_json_equal(a[k], b[k]) for k in a)
+    if isinstance(a, (list, dict)) or isinstance(b, (list, dict)):
+        return False
+    return a == b
+
+
+def _is_number(v: Any) -> bool:
+    return (type(v) is float or type(v) is int) or isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+_TYPE_TESTS = {
+    "object": lambda v: isinstance(v, dict),
+    "array": lambda v: isinstance(v, list),
+    "string": lambda v: isinstance(v, str),
+    "number": _is_number,
+    "integer": lambda v: _is_number(v) and (isinstance(v, int) or v.is_integer()),
+    "boolean": lambda v: isinstance(v, bool),
+    "null": lambda v: v is None,
+}
+
+
+def _never(value: Any) -> bool:
+    return False
+
+
+def _quick_check(node: Any):
+    """A function ``value -> bool`` that says True only where the (``$ref``-free) schema
+    ``node`` surely accepts ``value``.
+
+    Written for the keywords our schema uses, with JSON Schema 2020-12's meaning (each
+    keyword applies to its own type only); a keyword it does not know gives a function
+    that always says False. A False sends the file to the full validator, which finds
+    and words the error; so this check only ever needs to be right when it says True,
+    and the file's reading stays that of the full validator.
+    """
+    if node is True or node == {}:
+        return lambda v: True
+    if not isinstance(node, dict) or "patternProperties" in node or "prefixItems" in node or "else" in node:
+        return _never
+    checks = []
+    for kw, val in node.items():
+        if kw in _ANNOTATIONS or kw in ("then", "additionalProperties"):
+            continue
+        if kw == "type":
+            tests = [_TYPE_TESTS[t] for t in ([val] if isinstance(val, str) else val) if t in _TYPE_TESTS]
+            if len(tests) != (1 if isinstance(val, str) else len(val)):
+                return _never
+            checks.append(tests[0] if len(tests) == 1 else lambda v, tests=tests: any(t(v) for t in tests))
+        elif kw == "properties":
+            checks.append(_quick_object(val, node.get("additionalProperties", True)))
+        elif kw == "propertyNames":
+            f = _quick_check(val)
+            checks.append(lambda v, f=f: not isinstance(v, dict) or all(f(k) for k in v))
+        elif kw == "required":
+            checks.append(lambda v, req=frozenset(val): not isinstance(v, dict) or req.issubset(v))
+        elif kw == "items":
+            if not isinstance(val, dict):
+                return _never
+            checks.append(_quick_list(val))
+        elif kw in ("minItems", "maxItems"):
+            lo, hi = (val, math.inf) if kw == "minItems" else (0, val)
+            checks.append(lambda v, lo=lo, hi=hi: not isinstance(v, list) or lo <= len(v) <= hi)
+        elif kw == "minLength":
+            checks.append(lambda v, lo=val: not isinstance(v, str) or len(v) >= lo)
+        elif kw == "pattern":
+            rx = re.compile(val)
+            checks.append(lambda v, rx=rx: not isinstance(v, str) or rx.search(v) is not None)
+        elif kw in ("minimum", "maximum", "exclusiveMinimum", "exclusiveMaximum"):
+            cmp = {"minimum": lambda x, b: x >= b, "maximum": lambda x, b: x <= b,
+                   "exclusiveMinimum": lambda x, b: x > b, "exclusiveMaximum": lambda x, b: x < b}[kw]
+            checks.append(lambda v, cmp=cmp, b=val: not _is_number(v) or cmp(v, b))
+        elif kw in ("enum", "const"):
+            checks.append(_quick_choice(val if kw == "enum" else [val]))
+        elif kw == "allOf":
+            checks.append(_quick_by_kind(val) or _quick_all([_quick_check(sub) for sub in val]))
+        elif kw == "anyOf":
+            subs = [_quick_check(sub) for sub in val]
+            checks.append(lambda v, subs=subs: any(f(v) for f in subs))
+        elif kw == "if":
+            # "if" decides whether "then" applies, so it must be exact both ways: a False
+            # meaning "not sure" would skip a "then" that applies
+            if not _exact_condition(val):
+                return _never
+            cond, then = _quick_check(val), _quick_check(node.get("then", True))
+            checks.append(lambda v, cond=cond, then=then: not cond(v) or then(v))
+        else:
+            return _never
+    if "additionalProperties" in node and "properties" not in node:
+        checks.append(_quick_object({}, node["additionalProperties"]))
+    return _quick_all(checks)
+
+
+def _quick_choice(choices: list):
+    """``enum`` (or ``const``: one choice), by a set lookup when the choices are all text or
+    all numbers (``true`` is not ``1`` here, as in JSON Schema)."""
+    if all(type(c) is str for c in choices):
+        texts = frozenset(choices)
+        return lambda v: type(v) is str and v in texts
+    if all(type(c) in (int, float) for c in choices):
+        numbers = frozenset(choices)
+        return lambda v: (type(v) is int or type(v) is float) and v in numbers
+    return lambda v: any(_json_equal(v, c) for c in choices)
+
+
+def _quick_all(checks):
+    if len(checks) == 1:
+        return checks[0]
+
+    def every(v):
+        for c in checks:
+            if not c(v):
+                return False
+        return True
+
+    return every
+
+
+def _quick_object(props: dict, additional: Any):
+    """``properties`` together with ``additionalProperties`` (one pass over the object's keys)."""
+    known = {k: _quick_check(sub) for k, sub in props.items()}
+    other = None if additional is False else _quick_check(additional)
+
+    def check(v):
+        if not isinstance(v, dict):
+            return True
+        for k, x in v.items():
+            f = known.get(k, other)
+            if f is None or not f(x):
+                return False
+        return True
+
+    return check
+
+
+def _quick_list(items: dict):
+    if items == {"type": "number"}:  # the matrices' rows: most of a file's values
+        def numbers(v):
+            if not isinstance(v, list):
+                return True
+            for x in v:
+                if type(x) is not float and type(x) is not int:
+                    return False
+            return True
+
+        return numbers
+    f = _quick_check(items)
+
+    def each(v):
+        if not isinstance(v, list):
+            return True
+        for x in v:
+            if not f(x):
+                return False
+        return True
+
+    return each
+
+
+def _quick_by_kind(all_of: list):
+    """An ``allOf`` of ``if {kind: const X} then ...`` branches, as a lookup of the one branch
+    that can apply (a value whose ``kind`` is not text goes branch by branch)."""
+    table = {}
+    for branch in all_of:
+        if not isinstance(branch, dict) or set(branch) != {"if", "then"} or not _exact_condition(branch["if"]):
+            return None
+        cond = branch["if"]["properties"]
+        if set(cond) != {"kind"} or not isinstance(cond["kind"]["const"], str) or cond["kind"]["const"] in table:
+            return None
+        table[cond["kind"]["const"]] = _quick_check(branch["then"])
+
+    def by_kind(v):
+        if not isinstance(v, dict) or not isinstance(v.get("kind"), str):
+            return False  # not sure: the full validator decides
+        f = table.get(v["kind"])
+        return f is None or f(v)
+
+    return by_kind
+
+
+def _exact_condition(node: Any) -> bool:
+    """Whether :func:`_quick_check` of ``node`` is exact both ways (True and False mean what
+    they say): only the ``{"properties": {key: {"const": text}}}`` form our schema uses."""
+    if not isinstance(node, dict) or set(node) != {"properties"}:
+        return False
+    return all(isinstance(sub, dict) and set(sub) == {"const"} for sub in node["properties"].values())
+
+
+@functools.cache
+def _quick_validator():
+    return _quick_check(_validator()[0].schema)
+
+
 _TYPE_NAMES = {"object": "an object", "array": "a list", "string": "text", "number": "a number", "integer": "a whole number",
                "boolean": "true or false", "null": "null"}
 
@@ -390,6 +638,8 @@ def _schema_message(err) -> tuple[tuple, str]:
 
 
 def _refuse_schema_errors(data: dict, origin: str) -> None:
+    if _quick_validator()(data):  # surely valid: the full validator would find nothing
+        return
     errors = list(_validator()[0].iter_errors(data))
     if errors:
         err = _most_telling(min(errors, key=lambda e: _document_order(data, e.absolute_path)))
@@ -449,8 +699,9 @@ def from_dict(data: Any, *, origin: str = "project file") -> Diagram:
     return _build(data, origin, scan=True)
 
 
-def _build(data: Any, origin: str, *, scan: bool) -> Diagram:
-    """:func:`from_dict`; ``scan``: look for non-finite numbers and deep nesting (the parser may have done it)."""
+def _build(data: Any, origin: str, *, scan: bool, own: bool = False) -> Diagram:
+    """:func:`from_dict`; ``scan``: look for non-finite numbers and deep nesting (the parser may have done it);
+    ``own``: ``data`` was parsed here and nobody else holds it, so the blocks may keep its values."""
     if not isinstance(data, dict):
         raise ProjectFileError(f"{origin}: not a Loopwright diagram (the top level must be a JSON object)")
     if data.get("format") != FORMAT_NAME:
@@ -472,7 +723,7 @@ def _build(data: Any, origin: str, *, scan: bool) -> Diagram:
     for k, entry in enumerate(data["blocks"]):
         layout = entry.get("layout", {})
         try:
-            bid = d.add_block(entry["kind"], entry["name"], entry["params"], layout=layout, caption=entry.get("caption", ""))
+            bid = d.add_block(entry["kind"], entry["name"], entry["params"], layout=layout, caption=entry.get("caption", ""), take_params=own)
         except EngineError as err:
             raise ProjectFileError(f"{origin}: {_json_path(('blocks', k))}{_owner(data, ('blocks', k))}: {err.message}") from err
         # keep the layout exactly as written, so load-then-save gives the same file
@@ -508,7 +759,7 @@ def _build(data: Any, origin: str, *, scan: bool) -> Diagram:
 def loads(text: str, *, origin: str = "project file") -> Diagram:
     """Parse project-file text; see :func:`from_dict` for the errors."""
     data, odd = _parse(text, origin)
-    return _build(data, origin, scan=odd)
+    return _build(data, origin, scan=odd, own=True)
 
 
 def load(path: str | os.PathLike) -> Diagram:

@@ -22,6 +22,7 @@ import numpy as np
 from loopwright.engine.blocks import plant_matrices
 from loopwright.engine.diagram import Block, Diagram
 from loopwright.engine.errors import DiagramError, ParameterError
+from loopwright.engine.static_chains import FeedthroughMatrix
 
 __all__ = ["SCALE_LIMIT", "check_block_params", "check_realization", "check_model", "checked_plant_matrices"]
 
@@ -59,6 +60,8 @@ def _too_big(value: Any, path: str) -> tuple[str, float] | None:
             continue
         if isinstance(v, np.ndarray):
             v = v.tolist()
+        if type(v) is list and _plain_numbers_in_range(v):
+            continue  # the usual case, without building an array for a few numbers
         if isinstance(v, (list, tuple)):
             try:
                 arr = np.array(v, dtype=float)
@@ -73,6 +76,25 @@ def _too_big(value: Any, path: str) -> tuple[str, float] | None:
                 continue
             stack.extend(reversed([(f"{where}[{i}]", sub) for i, sub in enumerate(v)]))
     return None
+
+
+def _plain_numbers_in_range(v: list) -> bool:
+    """True for a list of numbers, or of lists of numbers, all within the limit (a small
+    matrix or coefficient list); False means "look closer", not "out of range"."""
+    lo, hi = -SCALE_LIMIT, SCALE_LIMIT
+    for x in v:
+        t = type(x)
+        if t is float or t is int:
+            if not lo <= x <= hi:
+                return False
+        elif t is list:
+            for y in x:
+                ty = type(y)
+                if (ty is not float and ty is not int) or not lo <= y <= hi:
+                    return False
+        else:
+            return False
+    return True
 
 
 def check_block_params(block: Block, *, only: tuple[str, ...] | None = None) -> None:
@@ -195,7 +217,12 @@ def check_model(model) -> None:
     ------
     DiagramError
     """
-    hit = _first_out_of_range({"A": model.A, "B": model.B, "C": model.C, "D": model.D})
+    hit = _first_out_of_range({"A": model.A, "B": model.B, "C": model.C})
+    if hit is None and isinstance(model.D, FeedthroughMatrix):
+        in_d = model.D.first_out_of_range(SCALE_LIMIT)
+        hit = None if in_d is None else ("D", *in_d)
+    elif hit is None:
+        hit = _first_out_of_range({"D": model.D})
     if hit is None:
         return
     name, i, j, value = hit

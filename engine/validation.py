@@ -70,7 +70,7 @@ def as_matrix(
         arr = arr.reshape(1, -1)
     elif arr.ndim > 2:
         raise ParameterError(f"{where}: {field} has {arr.ndim} dimensions, expected a matrix", field=field, block_ids=ids)
-    if not np.all(np.isfinite(arr)):
+    if not np.isfinite(arr).all():
         bad = tuple(int(k) + 1 for k in np.argwhere(~np.isfinite(arr))[0])
         raise ParameterError(
             f"{where}: {field} has a non-finite entry at row {bad[0]}, column {bad[1]}", field=field, block_ids=ids
@@ -103,7 +103,7 @@ def as_vector(value: Any, *, where: str, field: str, length: int | None = None, 
         arr = np.full(length if length is not None else 1, float(arr))
     if arr.ndim != 1:
         raise ParameterError(f"{where}: {field} must be a number or a flat list", field=field, block_ids=ids)
-    if not np.all(np.isfinite(arr)):
+    if not np.isfinite(arr).all():
         raise ParameterError(f"{where}: {field} has a non-finite entry", field=field, block_ids=ids)
     if length is not None and arr.size != length:
         raise ParameterError(f"{where}: {field} has {arr.size} entries, expected {length}", field=field, block_ids=ids)
