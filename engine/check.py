@@ -304,15 +304,16 @@ def pole_digits(poles, bounds, *, scale: float) -> list[int]:
     return [trustworthy_digits(scale if r == "origin" and scale > 0 else p, b) for p, b, r in zip(poles, bounds, regions)]
 
 
-def summarize(diagram: Diagram) -> CheckReport:
-    """Assemble ``diagram`` and report what an engineer checks first.
+def summarize(diagram: Diagram, *, model=None) -> CheckReport:
+    """Assemble ``diagram`` (unless its assembled ``model`` is given) and report what an
+    engineer checks first.
 
     Raises
     ------
     EngineError
         Whatever keeps the diagram from assembling.
     """
-    model = assemble(diagram)
+    model = assemble(diagram) if model is None else model
     sens = eigen_sensitivity(model.A)
     order = np.lexsort((sens.values.imag, sens.values.real))
     poles, bounds = sens.values[order], sens.error_bound[order]

@@ -207,11 +207,13 @@ def _comp_names(name: str, width: int) -> list[str]:
     return [name] if width == 1 else [f"{name}[{k + 1}]" for k in range(width)]
 
 
-def collect_problems(diagram: Diagram) -> list[Problem]:
+def collect_problems(diagram: Diagram, *, assembled=None) -> list[Problem]:
     """Every problem that keeps ``diagram`` from assembling (empty list: it assembles).
 
     Parameter errors, unconnected inputs, width mismatches and name clashes are gathered
     in one pass; an ill-posed algebraic loop is found only when the rest is clean.
+    ``assembled``, when given, is called instead of :func:`assemble` for that last step
+    (the window passes the assembly its views share, so an edit is assembled once).
     """
     found: list[Problem] = []
     widths: dict[str, tuple[dict[str, int], dict[str, int]]] = {}
@@ -225,7 +227,7 @@ def collect_problems(diagram: Diagram) -> list[Problem]:
     found += _wiring_problems(diagram, widths)
     if not found:
         try:
-            assemble(diagram)
+            assemble(diagram) if assembled is None else assembled()
         except EngineError as err:
             found.append(Problem(err.message, tuple(err.block_ids), tuple(err.wire_ids)))
     return found

@@ -515,7 +515,7 @@ def _refined_peak(Ljw, grid: np.ndarray, S: np.ndarray, offset: float, L0: compl
                     v = np.abs(1.0 / (1.0 + Ljw(np.exp(lw))) + offset)
                 return np.where(np.isfinite(v), v, -np.inf)
 
-            xs, vs = _golden_max(f, np.log(grid[inner - 1]), np.log(grid[inner + 1]))
+            xs, vs = _zoom_max(f, np.log(grid[inner - 1]), np.log(grid[inner + 1]))
             j = int(np.argmax(vs))
             if vs[j] > best:
                 best, w_best = float(vs[j]), float(np.exp(xs[j]))
@@ -529,25 +529,35 @@ def _refined_peak(Ljw, grid: np.ndarray, S: np.ndarray, offset: float, L0: compl
     return best, w_best
 
 
-def _golden_max(f, lo: np.ndarray, hi: np.ndarray, *, xtol: float = 1e-10):
-    """Golden-section search for the maximum of ``f`` on each interval ``[lo_i, hi_i]`` at
-    once (``f`` maps an array of points to values); returns the best points and values
-    seen (the grid neighbours bracket a local maximum, so the search converges to it)."""
-    g = (np.sqrt(5.0) - 1.0) / 2.0
+def _zoom_max(f, lo: np.ndarray, hi: np.ndarray, *, xtol: float = 1e-10, points: int = 9):
+    """Maximum of ``f`` on each interval ``[lo_i, hi_i]`` at once (``f`` maps an array of
+    points to values); returns the best points and values seen.
+
+    Each round samples ``points`` evenly spaced interior points of every interval in one
+    call of ``f`` and keeps the two spacings around the best sample, so an interval shrinks
+    by ``(points + 1) / 2`` per call (golden-section search: by 1.618 per call). For a loop
+    evaluated block by block the cost of a call is mostly its fixed overhead, not the
+    number of points, so fewer, wider calls are what is cheap. The grid neighbours bracket
+    a local maximum; sampling keeps the best point seen, so the answer is never below the
+    bracket's samples (common practice, no source).
+    """
     a, b = lo.astype(float).copy(), hi.astype(float).copy()
-    c, d = b - g * (b - a), a + g * (b - a)
-    fc, fd = f(c), f(d)
-    best_x, best_v = np.where(fc >= fd, c, d), np.maximum(fc, fd)
-    while np.any(b - a > xtol):
-        left = fc >= fd  # the maximum lies in [a, d]
-        b = np.where(left, d, b)
-        a = np.where(left, a, c)
-        c_new, d_new = b - g * (b - a), a + g * (b - a)
-        x = np.where(left, c_new, d_new)
-        fx = f(x)
-        c, d, fc, fd = (np.where(left, c_new, d), np.where(left, c, d_new), np.where(left, fx, fd), np.where(left, fc, fx))
-        better = fx > best_v
-        best_x, best_v = np.where(better, x, best_x), np.where(better, fx, best_v)
+    best_x, best_v = np.full(a.shape, np.nan), np.full(a.shape, -np.inf)
+    t = np.arange(1, points + 1) / (points + 1)
+    while True:
+        live = (b - a) > xtol
+        if not live.any():
+            break
+        xs = a[live, None] + (b - a)[live, None] * t[None, :]
+        vs = np.asarray(f(xs.ravel()), dtype=float).reshape(xs.shape)
+        k = np.argmax(vs, axis=1)
+        rows = np.arange(xs.shape[0])
+        xk, vk = xs[rows, k], vs[rows, k]
+        step = (b - a)[live] / (points + 1)
+        better = vk > best_v[live]
+        best_x[live] = np.where(better, xk, best_x[live])
+        best_v[live] = np.where(better, vk, best_v[live])
+        a[live], b[live] = xk - step, xk + step
     return best_x, best_v
 
 
@@ -589,14 +599,17 @@ def _margins_record(stable: bool, ol_classes: PoleClasses, gains, crossings, sen
 def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
     """Gain crossovers (``|L| = 1``), phase and delay margins, and critical gains ``-1/L(jw)``
     where ``L(jw)`` is real and negative (the DC value ``L0`` and ``L(inf) = d`` included),
-    bracketed on ``grid`` (where ``L`` was evaluated) and refined with ``brentq``.
+    bracketed on ``grid`` (where ``L`` was evaluated) and refined together (:func:`_refine_roots`).
 
     Returns ``(wc, pms, pm, pm_w, delays, dm, crit)``, ``crit`` sorted ``(gain, w)`` pairs.
     """
-    logmag = np.log(np.abs(L) + 1e-300)
-    wc = np.array(_refine_roots(lambda w: np.log(np.abs(Ljw(w)) + 1e-300), grid, logmag))
+    # both kinds of root refined together: one evaluation of L per pass serves both
+    wc, wx = _refine_roots(Ljw, grid, L, (lambda v: np.log(np.abs(v) + 1e-300), lambda v: v.imag))
+    wc, wx = np.array(wc), np.asarray(wx)
+    at_roots = Ljw(np.concatenate([wc, wx])) if wc.size + wx.size else np.zeros(0, complex)
+    L_wc, L_wx = at_roots[: wc.size], at_roots[wc.size:]
     if wc.size:
-        phase = np.degrees(np.angle(Ljw(wc)))
+        phase = np.degrees(np.angle(L_wc))
         pms = _wrap180(phase + 180.0)
         i = int(np.argmin(np.abs(pms)))
         pm, pm_w = float(pms[i]), float(wc[i])
@@ -607,8 +620,7 @@ def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
         pms, delays = np.zeros(0), np.zeros(0)
         pm, pm_w, dm = np.inf, np.nan, np.inf
     crit: list[tuple[float, float]] = []
-    wx = np.asarray(_refine_roots(lambda w: Ljw(w).imag, grid, L.imag))
-    for w, val in zip(wx, Ljw(wx) if wx.size else []):
+    for w, val in zip(wx, L_wx):
         if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val):
             crit.append((-1.0 / val.real, float(w)))
     if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0):
@@ -680,20 +692,29 @@ def _nearest_critical_gains(crit) -> tuple[float, float, float, float]:
     return lo_g, hi_g, lo_w, hi_w
 
 
-def _refine_roots(f, grid: np.ndarray, values: np.ndarray) -> list[float]:
-    """Roots of ``f`` on ``(grid[0], grid[-1])``, bracketed by sign changes of ``values``.
+def _refine_roots(Ljw, grid: np.ndarray, L: np.ndarray, parts) -> list[list[float]]:
+    """Roots on ``(grid[0], grid[-1])`` of each function ``g(L(jw))`` of ``parts``, bracketed by
+    sign changes of ``g(L)`` on the grid (``L`` is ``Ljw(grid)``); one sorted list per part.
 
-    All brackets are refined together (``f`` takes an array of frequencies): the Illinois
-    variant of regula falsi in log-frequency, with a bisection step every fourth pass so
-    that no bracket shrinks slowly, to a relative width of about 1e-15 in frequency (as
-    ``brentq`` with ``xtol = rtol = 1e-15`` did; Dowell & Jarratt 1971, from memory).
+    All brackets of all parts are refined together (one call of ``Ljw`` per pass): the
+    Illinois variant of regula falsi in log-frequency, with a bisection step every fourth
+    pass so that no bracket shrinks slowly, to a relative width of about 1e-15 in frequency
+    (as ``brentq`` with ``xtol = rtol = 1e-15`` did; Dowell & Jarratt 1971, from memory).
     """
-    v = np.asarray(values, dtype=float)
-    idx = np.nonzero(np.sign(v[:-1]) * np.sign(v[1:]) < 0)[0]
-    roots = [float(grid[i]) for i in np.nonzero(v == 0)[0]]
+    found: list[list[float]] = []
+    brackets, owner = [], []
+    for k, g in enumerate(parts):
+        v = np.asarray(g(L), dtype=float)
+        found.append([float(grid[i]) for i in np.nonzero(v == 0)[0]])
+        idx = np.nonzero(np.sign(v[:-1]) * np.sign(v[1:]) < 0)[0]
+        brackets.append((idx, v))
+        owner.append(np.full(idx.size, k))
+    idx = np.concatenate([b[0] for b in brackets])
     if idx.size:
+        owner = np.concatenate(owner)
         a, b = np.log(grid[idx]), np.log(grid[idx + 1])
-        fa, fb = v[idx].copy(), v[idx + 1].copy()
+        fa = np.concatenate([v[i] for i, v in brackets])
+        fb = np.concatenate([v[i + 1] for i, v in brackets])
         x = 0.5 * (a + b)
         side = np.zeros(idx.size, dtype=int)
         for it in range(200):
@@ -706,7 +727,14 @@ def _refine_roots(f, grid: np.ndarray, values: np.ndarray) -> list[float]:
             bad = ~np.isfinite(xs) | (xs <= np.minimum(a, b)) | (xs >= np.maximum(a, b)) | (it % 4 == 3)
             x = np.where(live, np.where(bad, 0.5 * (a + b), xs), x)
             fx = np.zeros(idx.size)
-            fx[live] = np.asarray(f(np.exp(x[live])), dtype=float)
+            Lx = Ljw(np.exp(x[live]))
+            who = owner[live]
+            vals = np.empty(Lx.shape, dtype=float)
+            for k, g in enumerate(parts):
+                mine = who == k
+                if mine.any():
+                    vals[mine] = np.asarray(g(Lx[mine]), dtype=float)
+            fx[live] = vals
             left = live & (np.sign(fx) == np.sign(fa))  # the root is in (x, b)
             right = live & ~left & (fx != 0)
             done = live & (fx == 0)
@@ -720,8 +748,10 @@ def _refine_roots(f, grid: np.ndarray, values: np.ndarray) -> list[float]:
             a = np.where(done, x, a)
             b = np.where(done, x, b)
         ok = np.isfinite(x)
-        roots += [float(r) for r in np.exp(np.where(np.abs(fa) < np.abs(fb), a, b))[ok]]
-    return sorted(set(roots))
+        best = np.exp(np.where(np.abs(fa) < np.abs(fb), a, b))
+        for k in range(len(parts)):
+            found[k] += [float(r) for r in best[ok & (owner == k)]]
+    return [sorted(set(r)) for r in found]
 
 
 def _close_channels(A, B, C, D, keep: int):

@@ -211,8 +211,9 @@ def parse_matrix_text(text: str) -> list[list[float]]:
     return out
 
 
-def problems(diagram):
-    """Every problem that keeps ``diagram`` from assembling (see ``interconnect.collect_problems``)."""
+def problems(diagram, *, assembled=None):
+    """Every problem that keeps ``diagram`` from assembling (see ``interconnect.collect_problems``;
+    ``assembled`` is passed on)."""
     from loopwright.engine.interconnect import collect_problems  # the assembly imports this module
 
-    return collect_problems(diagram)
+    return collect_problems(diagram, assembled=assembled)

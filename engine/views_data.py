@@ -117,7 +117,7 @@ class SharedModel:
         """The check report (:func:`check.summarize`): the poles and the separation check."""
         from loopwright.engine.check import summarize
 
-        return self._get("report", lambda: summarize(self.diagram))
+        return self._get("report", lambda: summarize(self.diagram, model=self.model))
 
     def remember(self, key, make):
         """``make()`` the first time ``key`` is asked for, the same object afterwards."""

@@ -77,7 +77,7 @@ def compute_live_result(diagram: Diagram, revision: int, shared=None) -> LiveRes
         if w.source.port in cache[bid]:
             widths[w.id] = int(cache[bid][w.source.port])
     try:
-        found = list(find_problems(diagram))
+        found = list(find_problems(diagram, assembled=None if shared is None else (lambda: shared.model)))
     except EngineError as err:
         found = []
         error = str(err)

@@ -49,15 +49,27 @@ def test_the_live_check_and_the_pole_map_share_one_check_report_per_revision(win
 
     _open(window, [("r", "y")])
     qtbot.waitUntil(lambda: _settled(window), timeout=30000)
-    calls = []
-    real = check.summarize
-    monkeypatch.setattr(check, "summarize", lambda d: (calls.append(1), real(d))[1])
+    import loopwright.engine.interconnect as interconnect
+
+    calls, assembled = [], []
+    real, real_assemble = check.summarize, interconnect.assemble
+    monkeypatch.setattr(check, "summarize", lambda d, **kw: (calls.append(1), real(d, **kw))[1])
+
+    def counting_assemble(d, *a, **kw):
+        if kw.get("break_at") is None:  # an opened loop (the loop-break view) is a model of its own
+            assembled.append(id(d))
+        return real_assemble(d, *a, **kw)
+
+    monkeypatch.setattr(interconnect, "assemble", counting_assemble)
     doc = window.document
     for k in range(3):
         _edit_gain(doc, 1.1 + 0.1 * k)
         qtbot.waitUntil(lambda: _settled(window) and window.panels["poles"].data is not None, timeout=30000)
     assert window.view_docks["poles"].isVisible()
     assert len(calls) == 3  # one per edit, for the live check and the pole map together
+    # each revision's snapshot is assembled once, for the views, the check report and the
+    # live check's problems together
+    assert assembled and len(assembled) == len(set(assembled))
     d = doc.snapshot()
     want = summarize(d)  # reference: the engine's own check of the same diagram
     rep = window.live.latest.report
