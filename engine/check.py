@@ -281,13 +281,44 @@ def _static_feedback(model: AssembledModel, estimator: str, plant: str, g: nx.Mu
         return None
     starts = {t.block for t in xw.targets}
     ends = {uw.source.block}
-    inner = g.subgraph(n for n in g.nodes if n not in (est.id, pl.id))
-    down = set(starts).union(*(nx.descendants(inner, s) for s in starts if s in inner))
-    up = set(ends).union(*(nx.ancestors(inner, e) for e in ends if e in inner))
+    avoid = {est.id, pl.id}
+    static = lambda b: diagram.blocks[b].kind not in _DYNAMIC_KINDS  # noqa: E731
+    # Searches through static blocks only, from the estimate forwards and from the plant
+    # input backwards, each stopping at the dynamic blocks it meets (its frontier). When
+    # either frontier is empty, every block on a path between them is static and the
+    # searches already hold the answer; they stay local to the loop, where a search of
+    # the whole graph per estimator made a long chain of loops quadratic.
+    down, down_frontier = _static_reach(g.successors, starts, avoid, static)
+    up, up_frontier = _static_reach(g.predecessors, ends, avoid, static)
+    if down_frontier and up_frontier:  # a dynamic branch may join the two: search it all
+        inner = g.subgraph(n for n in g.nodes if n not in avoid)
+        down = set(starts).union(*(nx.descendants(inner, s) for s in starts if s in inner))
+        up = set(ends).union(*(nx.ancestors(inner, e) for e in ends if e in inner))
     on_path = (down & up) | (starts & ends)
-    if not on_path or any(diagram.blocks[b].kind in _DYNAMIC_KINDS for b in on_path):
+    if not on_path or any(not static(b) for b in on_path):
         return None
     return -model.D[model.signals[uw.name], model.inputs[f"inject:{xw.name}"]]
+
+
+def _static_reach(neighbours, seeds: set, avoid: set, static) -> tuple[set, set]:
+    """Blocks reached from ``seeds`` through ``neighbours`` (successors or predecessors)
+    without passing a dynamic block or one in ``avoid``: ``(reached, frontier)``, the
+    frontier being the dynamic blocks met (a dynamic seed is in both)."""
+    reached, frontier = set(), set()
+    todo = [b for b in seeds if b not in avoid]
+    while todo:
+        b = todo.pop()
+        if b in reached or b in frontier:
+            continue
+        if not static(b):
+            frontier.add(b)
+            if b not in seeds:
+                continue
+        reached.add(b)
+        if b in frontier:  # a dynamic seed: on a path itself, but the search stops there
+            continue
+        todo.extend(n for n in neighbours(b) if n not in avoid and n not in reached)
+    return reached, frontier
 
 
 def pole_digits(poles, bounds, *, scale: float) -> list[int]:

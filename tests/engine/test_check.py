@@ -275,3 +275,26 @@ def test_a_pole_at_the_origin_is_not_called_ill_conditioned():
     assert rep.poles_trusted
     assert not any("ill-conditioned" in w for w in rep.warnings)
     assert any("1 at the origin" in w for w in rep.warnings)
+
+
+def test_the_state_feedback_gain_is_named_only_when_every_path_to_the_plant_input_is_static():
+    # common practice, no source: u = -K xhat is a static feedback only when nothing dynamic
+    # lies between the estimate and the plant input; a filter beside K (from the estimate, or
+    # from the plant input's own sum) makes the map dynamic, and no K is named then
+    A, B, C = [[0.0, 1.0], [0.0, 0.0]], [[0.0], [1.0]], [[1.0, 0.0]]
+    K, L = [[8.0, 4.0]], [[11.0], [30.0]]
+    plain = summarize(observer_loop(A, B, C, K, L)).separation
+    assert_allclose(plain.gains["E"], K, atol=1e-12)
+    for wiring in (("xhat0", "F.u"), ("u.out", "F.u")):
+        d = observer_loop(A, B, C, K, L)
+        d.add_block("dynamic", "F", {"A": [[-3.0]], "B": [[1.0]], "C": [[0.01]], "D": [[0.0]]})
+        d.block_by_name("u").params["signs"] = ["+", "+", "+"]
+        if wiring[0] == "xhat0":
+            d.add_block("gain", "S", {"K": [[1.0, 0.0]]})  # picks the first estimate
+            d.connect("E.xhat", "S.in")
+            d.connect("S.out", "F.u")
+        else:
+            d.connect("u.out", "F.u")
+        d.connect("F.y", "u.in3")
+        sep = summarize(d).separation
+        assert sep is not None and "E" not in sep.gains, wiring
