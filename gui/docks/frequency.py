@@ -149,7 +149,10 @@ class FrequencyPanel(PlotPanel):
 
     def _redraw_units(self) -> None:
         s = self._scale()
-        self.phase.setLabel("bottom", "frequency (Hz)" if s != 1.0 else "frequency (rad/s)")
+        label = "frequency (Hz)" if s != 1.0 else "frequency (rad/s)"
+        axis = self.phase.getAxis("bottom")
+        if axis.labelText != label:  # setting it, even unchanged, makes the axis lay out its ticks again
+            self.phase.setLabel("bottom", label)
         for (pair, i, j), (cm, cp) in self.curves.items():
             resp = self.data.get(pair)
             if resp is None:
