@@ -294,8 +294,14 @@ class LoopBreakPanel(PlotPanel):
     def _fit_margins(self) -> None:
         """Names no wider than half the list (they wrap), values in the rest, rows as tall as their text."""
         t = self.margins
-        t.resizeColumnToContents(0)
-        t.setColumnWidth(0, min(t.columnWidth(0), max(t.viewport().width() // 2, 60)))
+        header = t.horizontalHeader()
+        content = max(t.sizeHintForColumn(0), header.sectionSizeHint(0) if header.isVisible() else 0)
+        want = min(content, max(t.viewport().width() // 2, 60))
+        # set only a different width: every change is a sectionResized, which refits again
+        # (resizing to the contents first and then capping it changed it twice per fit, and
+        # the window refitted the list without end, a core kept busy while idle)
+        if t.columnWidth(0) != want:
+            t.setColumnWidth(0, want)
         t.resizeRowsToContents()
 
     def eventFilter(self, obj, event) -> bool:

@@ -108,3 +108,43 @@ def test_the_margins_name_a_frequency_only_where_there_is_one():
     assert rows["gain margin, lower"] == "none: stable for any lower gain"
     assert rows["phase margin"] == f"{m.phase_margin_deg:.4g}° at {m.phase_margin_w_rad_s:.4g} rad/s"
     assert not any("—" in v for v in rows.values())
+
+
+@pytest.mark.parametrize("width", [300, 420, 800])
+def test_the_margins_list_settles_and_the_idle_panel_does_no_work(qtbot, width):
+    # the list's first column is capped at half its width; fitting it must not change it
+    # back and forth (each change refits again): a panel doing so repainted without end and
+    # kept a core busy while the window sat idle
+    from PySide6.QtCore import QEvent, QObject
+
+    from loopwright.gui.docks.loop_break import LoopBreakPanel
+
+    panel = LoopBreakPanel()
+    qtbot.addWidget(panel)
+    panel.resize(width, 360)
+    panel.show()
+    qtbot.waitExposed(panel)
+    panel.show_value(loop_break_view(load(CONVEYOR), "P.u"))
+    qtbot.wait(100)  # let the layout settle
+
+    class Counter(QObject):
+        def __init__(self):
+            super().__init__()
+            self.events = 0
+
+        def eventFilter(self, obj, event):
+            if event.type() in (QEvent.Type.Timer, QEvent.Type.Paint, QEvent.Type.LayoutRequest):
+                self.events += 1
+            return False
+
+    counter = Counter()
+    watched = [panel, panel.margins, panel.margins.viewport(), panel.margins.horizontalHeader()]
+    for w in watched:
+        w.installEventFilter(counter)
+    fits = []
+    panel.margins.horizontalHeader().sectionResized.connect(lambda *a: fits.append(a))
+    qtbot.wait(300)
+    for w in watched:
+        w.removeEventFilter(counter)
+    assert fits == [] and counter.events <= 3, (fits[:4], counter.events)
+    assert panel.margins.columnWidth(0) <= max(panel.margins.viewport().width() // 2, 60)
