@@ -175,3 +175,41 @@ def test_an_undoable_edit_and_its_undo_start_the_views_before_the_event_loop_tur
         assert all(window.views.jobs.is_busy(k) for k in ("frequency", "time", "poles")), step
         qtbot.waitUntil(lambda: _settled(window), timeout=30000)
         assert window.live.latest.revision == doc.revision
+
+
+@pytest.mark.parametrize("sample", SAMPLES, ids=lambda p: p.stem)
+def test_an_idle_window_with_every_panel_shown_does_no_work(window, qtbot, sample):
+    # an idle window must leave the cores (and the interpreter lock the workers need) alone:
+    # a panel that re-lays itself out on every turn of the event loop once kept a core busy
+    # and slowed every edit's views. Counted over a third of a second, never timed.
+    from PySide6.QtCore import QEvent, QObject
+    from PySide6.QtWidgets import QApplication, QDockWidget
+
+    window.show()
+    assert window.open_sample(str(sample))
+    for dock in window.findChildren(QDockWidget):
+        if dock.isHidden():
+            dock.toggleViewAction().trigger()
+    for key in ("frequency", "time", "loop_break"):
+        window.view_docks[key].raise_()
+    qtbot.waitUntil(lambda: _settled(window), timeout=60000)
+    qtbot.wait(300)  # the last answers drawn and laid out
+
+    class Counter(QObject):
+        def __init__(self):
+            super().__init__()
+            self.seen = []
+
+        def eventFilter(self, obj, event):
+            if event.type() in (QEvent.Type.Timer, QEvent.Type.Paint, QEvent.Type.UpdateRequest, QEvent.Type.LayoutRequest):
+                self.seen.append((type(obj).__name__, obj.objectName(), event.type().name))
+            return False
+
+    counter = Counter()
+    app = QApplication.instance()
+    app.installEventFilter(counter)
+    try:
+        qtbot.wait(330)
+    finally:
+        app.removeEventFilter(counter)
+    assert len(counter.seen) <= 6, counter.seen[:10]
