@@ -955,10 +955,14 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
     integral, the right-half-plane pole and zero bounds).
 
     ``route``: ``"auto"`` takes the block-by-block route (:func:`_margins_block_by_block`)
-    for a scalar loop where an operation count says it is cheaper, ``"whole model"`` never,
-    ``"block by block"`` whenever it applies. Either way the route falls back to the whole
-    model where it cannot certify its answer. The block-by-block route carries no
-    performance limits (they need the loop's zeros, an O(n^3) computation).
+    for a scalar loop where an operation count says it is cheaper, else the loop-evaluator
+    route (:func:`_scalar_margins_at`: the loop as opened, its states off the loop dropped
+    where that is exact, evaluated part by part where its structure allows, as the
+    loop-break view does); ``"whole model"`` the minimal realization of the loop evaluated
+    through one Schur form (:func:`loop_margins`), ``"block by block"`` the block-by-block
+    route whenever it applies. Every route falls back to the whole model where it cannot
+    certify its answer. The block-by-block route carries no performance limits (they need
+    the loop's zeros, an O(n^3) computation).
     """
     if not np.isfinite(skew):
         raise AnalysisError(f"disk-margin skew must be a finite number; got {skew}")
@@ -972,13 +976,45 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
         fast = _margins_block_by_block(diagram, opened, base, skew=skew, force=route == "block by block")
         if fast is not None:
             return fast
-    A, B, C, D = _break_loop(opened, signal, base, component, trim=_trim_for_margins)
+    if route == "whole model":
+        A, B, C, D = _break_loop(opened, signal, base, component, trim=_trim_for_margins)
+        if D.shape[0] == 1:
+            m = loop_margins(A, B, C, D, skew=skew)
+            if limits:
+                _attach_limits(m, A, B, C, D)
+            return m
+        return _vector_margins(A, B, C, D, signal, skew=skew, limits=limits)
+    A, B, C, D = _break_loop(opened, signal, base, component, trim=_structural_trim)
     if D.shape[0] == 1:
-        m = loop_margins(A, B, C, D, skew=skew)
-        if limits:
-            _attach_limits(m, A, B, C, D)
-        return m
-    return _vector_margins(A, B, C, D, signal, skew=skew, limits=limits)
+        return _scalar_margins_at(A, B, C, D, skew=skew, limits=limits)
+    return _vector_margins(*_trim_for_margins(A, B, C, D), signal, skew=skew, limits=limits)
+
+
+def _scalar_margins_at(A, B, C, D, *, skew: float, limits: bool) -> LoopMargins:
+    """Certified margins of the scalar loop ``(A, B, C, D)`` (as opened, states off the loop
+    dropped where exact) from one evaluator of ``L``, and its performance limits.
+
+    ``L(jw)`` is evaluated by one :class:`LoopResponse` of this realisation (part by part
+    when it is block triangular: a loop opened in a ring of loops) for the margins' grid,
+    their refinement, the Hamiltonian certificates' evaluations and the Bode integral's
+    quadrature. The limits' algebra (right-half-plane poles and zeros, relative degree)
+    needs the minimal realization; its zeros then also place the margins' grid points (the
+    zeros of this realisation add only the hidden modes, which are poles of it anyway).
+    """
+    if _ill_posed(D):
+        raise AnalysisError("1 + L(inf) = 0: the closed loop has no proper solution at this break")
+    resp = LoopResponse(A, B, C, D)
+    minimal = minimal_realization(A, B, C, D) if limits else (A, B, C, D)
+    try:
+        # the minimal realization is not reduced twice: the limits' zeros are those of the
+        # realisation they read their poles from
+        zeros = transmission_zeros(*minimal, minimal=not limits) if minimal[0].size else np.zeros(0)
+    except (np.linalg.LinAlgError, ValueError):
+        zeros = np.zeros(0)
+    m, _w, _L = scalar_margins(resp, skew=skew, zeros=zeros, certify=True)
+    if limits:
+        _attach_limits(m, *minimal, response=resp, zeros=zeros)
+    return m
 
 
 def _vector_margins(A, B, C, D, signal: str, *, skew: float, limits: bool) -> VectorLoopMargins:
@@ -1146,11 +1182,20 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
     return _margins_record(True, ol_classes, (lo_g, hi_g, lo_w, hi_w), crossings, (s_peak, s_w), disk, "")
 
 
-def _attach_limits(m: LoopMargins, A, B, C, D) -> None:
-    from loopwright.engine.limits import performance_limits
+def _attach_limits(m: LoopMargins, A, B, C, D, *, response=None, zeros=None) -> None:
+    """Set ``m.limits`` to the performance limits of the loop ``(A, B, C, D)`` (None where
+    they cannot be computed). With ``zeros`` the realisation is taken as minimal and those
+    as its transmission zeros; ``response`` evaluates ``L`` for the Bode integral (any
+    realisation of the same loop)."""
+    from loopwright.engine.limits import limits_of_minimal_loop, performance_limits
 
     try:
-        m.limits = performance_limits(A, B, C, D, closed_loop_stable=m.closed_loop_stable, gain_crossovers=m.gain_crossovers_w_rad_s)
+        if zeros is None:
+            m.limits = performance_limits(A, B, C, D, closed_loop_stable=m.closed_loop_stable,
+                                          gain_crossovers=m.gain_crossovers_w_rad_s, response=response)
+        else:
+            m.limits = limits_of_minimal_loop(A, B, C, D, zeros=zeros, closed_loop_stable=m.closed_loop_stable,
+                                              gain_crossovers=m.gain_crossovers_w_rad_s, response=response)
     except (np.linalg.LinAlgError, ValueError):
         m.limits = None  # the margins stand on their own; the limits are an extra
 
