@@ -32,7 +32,9 @@ from loopwright.engine.quadrature import QuadratureResult, adaptive_gauss_kronro
 from loopwright.engine.responses import _as_system
 from loopwright.engine.structure import minimal_realization, transmission_zeros
 
-__all__ = ["PerformanceLimits", "bode_sensitivity_integral", "limits_of_minimal_loop", "performance_limits"]
+__all__ = ["PerformanceLimits", "bode_sensitivity_integral", "clearly_stable", "limits_of_realization", "performance_limits"]
+
+_EPS = float(np.finfo(float).eps)
 
 RULES_SOURCE = "rules of thumb, common practice: Skogestad & Postlethwaite, Multivariable Feedback Control, 2005, ch. 5, from memory"
 
@@ -167,24 +169,44 @@ def performance_limits(A, B, C, D=None, *, closed_loop_stable: bool = True, gain
     PerformanceLimits
     """
     A, B, C, D = _as_system(A, B, C, D)
-    Am, Bm, Cm, Dm = minimal_realization(A, B, C, D)
+    poles = _eigenvalues(A)
+    if clearly_stable(poles, matrix_scale(A)):
+        # every hidden mode is stable: it adds no right-half-plane pole, and its decoupling
+        # zero lies in the left half-plane, so the minimal realization would change nothing here
+        realization, minimal = (A, B, C, D), False
+    else:
+        realization, minimal, poles = minimal_realization(A, B, C, D), True, None
     try:
-        zeros = transmission_zeros(Am, Bm, Cm, Dm) if Am.shape[0] else np.zeros(0, complex)
+        zeros = transmission_zeros(*realization, minimal=minimal) if realization[0].shape[0] else np.zeros(0, complex)
     except (np.linalg.LinAlgError, ValueError):
         zeros = np.zeros(0, complex)
-    return limits_of_minimal_loop(Am, Bm, Cm, Dm, zeros=zeros, closed_loop_stable=closed_loop_stable,
-                                  gain_crossovers=gain_crossovers, response=response)
+    return limits_of_realization(*realization, zeros=zeros, poles=poles, closed_loop_stable=closed_loop_stable,
+                                 gain_crossovers=gain_crossovers, response=response)
 
 
-def limits_of_minimal_loop(A, B, C, D, *, zeros, closed_loop_stable: bool = True, gain_crossovers=(),
-                           response=None) -> PerformanceLimits:
-    """:func:`performance_limits` of a loop already in minimal form, with its transmission
-    zeros already computed (``zeros``, as :func:`loopwright.engine.structure.transmission_zeros`
-    returns them), so that a caller which needs both for other work computes them once."""
+def clearly_stable(poles, scale: float) -> bool:
+    """Whether every pole lies left of the axis by far more than rounding can move a
+    simple eigenvalue (``Re p < -sqrt(eps) max(scale, |p|)``: a damping ratio above about
+    1.5e-8), so that a realisation with these poles has no unstable hidden mode."""
+    p = np.asarray(poles, dtype=complex).ravel()
+    return bool(np.all(p.real < -np.sqrt(_EPS) * np.maximum(scale, np.abs(p))))
+
+
+def limits_of_realization(A, B, C, D, *, zeros, poles=None, closed_loop_stable: bool = True, gain_crossovers=(),
+                          response=None) -> PerformanceLimits:
+    """:func:`performance_limits` of a realisation that is minimal or :func:`clearly_stable`,
+    with its transmission zeros already computed (``zeros``, as
+    :func:`loopwright.engine.structure.transmission_zeros` returns them), so that a caller
+    which needs them for other work computes them once.
+
+    ``poles``: the eigenvalues of ``A`` when the caller has them (any backward-stable
+    computation; default: computed here). They place the quadrature's panel ends and, when
+    none lies right of the axis tolerance, spare the rounding analysis of the poles.
+    """
     A, B, C, D = _as_system(A, B, C, D)
     n = A.shape[0]
     scale = matrix_scale(A)
-    poles = _eigenvalues(A)
+    poles = _eigenvalues(A) if poles is None else np.asarray(poles, dtype=complex).ravel()
     rhp_p, theory_err = np.zeros(0, complex), 0.0
     # a pole counts in the right half-plane only beyond the axis tolerance (whatever its
     # rounding bound says about the origin): without such a pole the condition numbers and

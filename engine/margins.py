@@ -1003,17 +1003,24 @@ def _scalar_margins_at(A, B, C, D, *, skew: float, limits: bool) -> LoopMargins:
     """
     if _ill_posed(D):
         raise AnalysisError("1 + L(inf) = 0: the closed loop has no proper solution at this break")
+    from loopwright.engine.limits import clearly_stable
+
     resp = LoopResponse(A, B, C, D)
-    minimal = minimal_realization(A, B, C, D) if limits else (A, B, C, D)
+    poles = resp.poles
+    if clearly_stable(poles, matrix_scale(A)):
+        # hidden modes are stable: no minimal realization needed (see limits.performance_limits)
+        realization, minimal_zeros = (A, B, C, D), False
+    elif limits:
+        realization, minimal_zeros, poles = minimal_realization(A, B, C, D), False, None
+    else:
+        realization, minimal_zeros = (A, B, C, D), True
     try:
-        # the minimal realization is not reduced twice: the limits' zeros are those of the
-        # realisation they read their poles from
-        zeros = transmission_zeros(*minimal, minimal=not limits) if minimal[0].size else np.zeros(0)
+        zeros = transmission_zeros(*realization, minimal=minimal_zeros) if realization[0].size else np.zeros(0)
     except (np.linalg.LinAlgError, ValueError):
         zeros = np.zeros(0)
     m, _w, _L = scalar_margins(resp, skew=skew, zeros=zeros, certify=True)
     if limits:
-        _attach_limits(m, *minimal, response=resp, zeros=zeros)
+        _attach_limits(m, *realization, response=resp, zeros=zeros, poles=poles)
     return m
 
 
@@ -1182,20 +1189,21 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
     return _margins_record(True, ol_classes, (lo_g, hi_g, lo_w, hi_w), crossings, (s_peak, s_w), disk, "")
 
 
-def _attach_limits(m: LoopMargins, A, B, C, D, *, response=None, zeros=None) -> None:
+def _attach_limits(m: LoopMargins, A, B, C, D, *, response=None, zeros=None, poles=None) -> None:
     """Set ``m.limits`` to the performance limits of the loop ``(A, B, C, D)`` (None where
-    they cannot be computed). With ``zeros`` the realisation is taken as minimal and those
-    as its transmission zeros; ``response`` evaluates ``L`` for the Bode integral (any
-    realisation of the same loop)."""
-    from loopwright.engine.limits import limits_of_minimal_loop, performance_limits
+    they cannot be computed). With ``zeros`` the realisation is taken as minimal or clearly
+    stable and those as its transmission zeros, ``poles`` (optional) as its poles
+    (:func:`loopwright.engine.limits.limits_of_realization`); ``response`` evaluates ``L``
+    for the Bode integral (any realisation of the same loop)."""
+    from loopwright.engine.limits import limits_of_realization, performance_limits
 
     try:
         if zeros is None:
             m.limits = performance_limits(A, B, C, D, closed_loop_stable=m.closed_loop_stable,
                                           gain_crossovers=m.gain_crossovers_w_rad_s, response=response)
         else:
-            m.limits = limits_of_minimal_loop(A, B, C, D, zeros=zeros, closed_loop_stable=m.closed_loop_stable,
-                                              gain_crossovers=m.gain_crossovers_w_rad_s, response=response)
+            m.limits = limits_of_realization(A, B, C, D, zeros=zeros, poles=poles, closed_loop_stable=m.closed_loop_stable,
+                                             gain_crossovers=m.gain_crossovers_w_rad_s, response=response)
     except (np.linalg.LinAlgError, ValueError):
         m.limits = None  # the margins stand on their own; the limits are an extra
 
