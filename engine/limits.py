@@ -215,7 +215,7 @@ def limits_of_realization(A, B, C, D, *, zeros, poles=None, closed_loop_stable: 
         sens = eigen_sensitivity(A)
         poles = sens.values
         in_rhp = pole_regions(poles, scale=scale, bounds=sens.error_bound) == "rhp"
-        rhp_p = np.sort_complex(poles[in_rhp])
+        rhp_p = _in_pair_order(poles[in_rhp])
         theory_err = float(np.pi * np.sum(sens.error_bound[in_rhp]))
     zeros = np.asarray(zeros, dtype=complex).ravel()
     zeros = zeros[np.isfinite(zeros)]
@@ -224,7 +224,7 @@ def limits_of_realization(A, B, C, D, *, zeros, poles=None, closed_loop_stable: 
     # the pencil returns are infinite zeros seen through rounding (huge, often in +- pairs)
     zeros = zeros[np.argsort(np.abs(zeros), kind="stable")][: max(n - rel, 0)]
     # zeros come from a generalised eigenvalue problem: a looser, still scaled, tolerance
-    rhp_z = np.sort_complex(zeros[zeros.real > 1e-8 * np.maximum(max(scale, 1e-300), np.abs(zeros))])
+    rhp_z = _in_pair_order(zeros[zeros.real > 1e-8 * np.maximum(max(scale, 1e-300), np.abs(zeros))])
     applies = rel >= 2 and closed_loop_stable
     theory = float(np.pi * np.sum(rhp_p.real)) if applies else np.nan
     integral = bode_sensitivity_integral(A, B, C, D, response=response, poles=poles).value if applies else np.nan
@@ -243,6 +243,18 @@ def limits_of_realization(A, B, C, D, *, zeros, poles=None, closed_loop_stable: 
         gain_crossovers_rad_s=[float(w) for w in gain_crossovers],
         bode_integral_theory_error=theory_err,
     )
+
+
+def _in_pair_order(z: np.ndarray) -> np.ndarray:
+    """Roots sorted by real part, then imaginary part, with real parts equal to 10 significant
+    digits taken as equal: the two members of a conjugate pair, computed with real parts a
+    rounding apart, then always come negative imaginary part first (``np.sort_complex``
+    would order them by that rounding, which differs between realisations)."""
+    z = np.asarray(z, dtype=complex).ravel()
+    if z.size < 2:
+        return z
+    unit = 1e-10 * max(float(np.abs(z).max()), 1e-300)
+    return z[np.lexsort((z.imag, np.round(z.real / unit)))]
 
 
 def _eigenvalues(A: np.ndarray) -> np.ndarray:
