@@ -242,13 +242,19 @@ def test_loop_margins_and_limits_of_the_unstable_rotor_loop_agree_across_routes(
 # the block-by-block route from one assembly
 
 
-@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(loop_diagrams())
-def test_the_closed_loop_from_the_opened_one_equals_its_own_assembly(diagram):
-    # reference: the closed diagram assembled on its own, its poles by LAPACK (numpy.linalg.eigvals)
+def _opened_at_the_plant_input(diagram):
+    """The loop opened at ``P.u`` and its coupling form (the example is skipped without one)."""
     opened = assemble(diagram, break_at="P.u")
     bw = BlockwiseModel.from_model(opened)
     assume(bw is not None)
+    return opened, bw
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(loop_diagrams())
+def test_the_closed_loop_from_the_opened_one_equals_its_own_assembly(diagram):
+    # reference: the closed diagram assembled on its own
+    opened, bw = _opened_at_the_plant_input(diagram)
     cols, rows = opened.input_slice("break:P.u"), opened.signal_slice(opened.break_return)
     d = -float(opened.D[rows, cols][0, 0])
     assume(abs(1.0 + d) > 1e-6)
@@ -270,9 +276,7 @@ def test_the_closed_loop_from_the_opened_one_equals_its_own_assembly(diagram):
 @given(loop_diagrams())
 def test_opened_loop_poles_group_by_group_equal_the_dense_eigenvalues(diagram):
     # reference: LAPACK's eigenvalues (numpy.linalg.eigvals) of the opened loop's state matrix
-    opened = assemble(diagram, break_at="P.u")
-    bw = BlockwiseModel.from_model(opened)
-    assume(bw is not None)
+    opened, bw = _opened_at_the_plant_input(diagram)
     poles = _open_loop_poles(bw)
     assume(poles is not None)
     ref = np.linalg.eigvals(opened.A)
