@@ -3,8 +3,10 @@ the measurement.
 
 The diagram is ``scale_diagrams.flexible_beam_loop`` (demo data). Ours: ``margins_at`` as
 the ``margins`` command calls it; on this loop the operation count picks the block-by-block
-route (coupling-form poles of the open and the closed loop, ``L(jw)`` block by block; no
-minimal realization, Schur form or Hamiltonian of the 3,008-state model). The whole-model
+route (one assembly of the opened loop, the closed loop's coupling form derived from it;
+the opened loop's poles block by block, the closed loop's from the coupling form;
+``L(jw)`` block by block; no minimal realization, Schur form or Hamiltonian of the
+3,008-state model). The whole-model
 route (minimal realization, Schur form, Hamiltonian peak searches: O(n^3) several times
 over) is run at ``--whole-modes`` (smaller), where it finishes, and the two are compared
 there (the block-by-block route asked for by name: at that size the operation count

@@ -31,7 +31,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.signal as ssig
 
 from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.discretize import DiscreteModel, discrete_frequency_response, discretize
@@ -225,6 +224,8 @@ def controller_transfer_function(model: LumpedModel) -> dict:
     n = model.A.shape[0]
     if n == 0:
         return {"num": model.D[0].copy(), "den": np.ones(1), "poles": np.zeros(0, complex), "zeros": np.zeros(0, complex), "gain": float(model.D[0, 0])}
+    import scipy.signal as ssig  # here, not at the top: importing it is most of a command's start-up
+
     num, den = ssig.ss2tf(model.A, model.B, model.C, model.D)
     num = np.atleast_2d(num)[0]
     # strip leading (numerically) zero numerator terms so the degree is honest

@@ -985,10 +985,14 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
     integral, the right-half-plane pole and zero bounds).
 
     ``route``: ``"auto"`` takes the block-by-block route (:func:`_margins_block_by_block`)
-    for a scalar loop where an operation count says it is cheaper, ``"whole model"`` never,
-    ``"block by block"`` whenever it applies. Either way the route falls back to the whole
-    model where it cannot certify its answer. The block-by-block route carries no
-    performance limits (they need the loop's zeros, an O(n^3) computation).
+    for a scalar loop where an operation count says it is cheaper, else the loop-evaluator
+    route (:func:`_scalar_margins_at`: the loop as opened, its states off the loop dropped
+    where that is exact, evaluated part by part where its structure allows, as the
+    loop-break view does); ``"whole model"`` the minimal realization of the loop evaluated
+    through one Schur form (:func:`loop_margins`), ``"block by block"`` the block-by-block
+    route whenever it applies. Every route falls back to the whole model where it cannot
+    certify its answer. The block-by-block route carries no performance limits (they need
+    the loop's zeros, an O(n^3) computation).
     """
     if not np.isfinite(skew):
         raise AnalysisError(f"disk-margin skew must be a finite number; got {skew}")
@@ -1002,13 +1006,52 @@ def margins_at(diagram, signal: str, *, skew: float = 0.0, limits: bool = True, 
         fast = _margins_block_by_block(diagram, opened, base, skew=skew, force=route == "block by block")
         if fast is not None:
             return fast
-    A, B, C, D = _break_loop(opened, signal, base, component, trim=_trim_for_margins)
+    if route == "whole model":
+        A, B, C, D = _break_loop(opened, signal, base, component, trim=_trim_for_margins)
+        if D.shape[0] == 1:
+            m = loop_margins(A, B, C, D, skew=skew)
+            if limits:
+                _attach_limits(m, A, B, C, D)
+            return m
+        return _vector_margins(A, B, C, D, signal, skew=skew, limits=limits)
+    A, B, C, D = _break_loop(opened, signal, base, component, trim=_structural_trim)
     if D.shape[0] == 1:
-        m = loop_margins(A, B, C, D, skew=skew)
-        if limits:
-            _attach_limits(m, A, B, C, D)
-        return m
-    return _vector_margins(A, B, C, D, signal, skew=skew, limits=limits)
+        return _scalar_margins_at(A, B, C, D, skew=skew, limits=limits)
+    return _vector_margins(*_trim_for_margins(A, B, C, D), signal, skew=skew, limits=limits)
+
+
+def _scalar_margins_at(A, B, C, D, *, skew: float, limits: bool) -> LoopMargins:
+    """Certified margins of the scalar loop ``(A, B, C, D)`` (as opened, states off the loop
+    dropped where exact) from one evaluator of ``L``, and its performance limits.
+
+    ``L(jw)`` is evaluated by one :class:`LoopResponse` of this realisation (part by part
+    when it is block triangular: a loop opened in a ring of loops) for the margins' grid,
+    their refinement, the Hamiltonian certificates' evaluations and the Bode integral's
+    quadrature. The limits' algebra (right-half-plane poles and zeros, relative degree)
+    needs the minimal realization; its zeros then also place the margins' grid points (the
+    zeros of this realisation add only the hidden modes, which are poles of it anyway).
+    """
+    if _ill_posed(D):
+        raise AnalysisError("1 + L(inf) = 0: the closed loop has no proper solution at this break")
+    from loopwright.engine.limits import clearly_stable
+
+    resp = LoopResponse(A, B, C, D)
+    poles = resp.poles
+    if clearly_stable(poles, matrix_scale(A)):
+        # hidden modes are stable: no minimal realization needed (see limits.performance_limits)
+        realization, minimal_zeros = (A, B, C, D), False
+    elif limits:
+        realization, minimal_zeros, poles = minimal_realization(A, B, C, D), False, None
+    else:
+        realization, minimal_zeros = (A, B, C, D), True
+    try:
+        zeros = transmission_zeros(*realization, minimal=minimal_zeros) if realization[0].size else np.zeros(0)
+    except (np.linalg.LinAlgError, ValueError):
+        zeros = np.zeros(0)
+    m, _w, _L = scalar_margins(resp, skew=skew, zeros=zeros, certify=True)
+    if limits:
+        _attach_limits(m, *realization, response=resp, zeros=zeros, poles=poles)
+    return m
 
 
 def _vector_margins(A, B, C, D, signal: str, *, skew: float, limits: bool) -> VectorLoopMargins:
@@ -1074,6 +1117,9 @@ def _structural_trim(A, B, C, D):
 _BLOCKWISE_MIN_STATES = 200
 #: Sweeps of the coupling-form pole iteration counted by the route's operation count.
 _ABERTH_SWEEPS = 20
+#: Largest group of mutually driven blocks of an opened loop whose poles are taken from a
+#: dense eigenvalue computation (25 n^3 flops: a few ms) rather than the pole iteration.
+_DENSE_GROUP = 200
 
 
 def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: bool) -> LoopMargins | None:
@@ -1097,14 +1143,13 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
     from loopwright.engine.blockwise_response import BlockwiseModel, whole_model_cost
     from loopwright.engine.coupled_poles import closed_loop_poles
     from loopwright.engine.eigen import axis_tolerance
-    from loopwright.engine.interconnect import assemble
 
     cols, rows = opened.input_slice(f"break:{base}"), opened.signal_slice(opened.break_return)
     if (cols.stop - cols.start, rows.stop - rows.start) != (1, 1):
         return None
     n = opened.A.shape[0]
     points = 4000
-    if n == 0:
+    if n == 0 or (n < _BLOCKWISE_MIN_STATES and not force):
         return None
     bw_open = BlockwiseModel.from_model(opened)
     if bw_open is None:
@@ -1119,19 +1164,17 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
     poles = 2.0 * _ABERTH_SWEEPS * n * (8.0 * bw_open.q**3 / 3.0 + 8.0 * bw_open.q**2)
     if not force and (n < _BLOCKWISE_MIN_STATES or bw_open.cost(1, 1, points) + 60.0 * n * n + poles >= dense):
         return None
-    closed = assemble(diagram)
-    bw_closed = BlockwiseModel.from_model(closed)
-    if bw_closed is None:
-        return None
-    ol, cl = closed_loop_poles(bw_open), closed_loop_poles(bw_closed)
-    if ol is None or cl is None:
-        return None
-    scale = matrix_scale(closed.A)  # the open loop differs by a coupling of low rank: one balancing serves both
-    if np.any(cl.real >= -axis_tolerance(cl, scale)):
-        return None  # unstable or marginal: the other route classifies the gain intervals
     d = -float(opened.D[rows, cols][0, 0])
     if _ill_posed(np.array([[d]])):
         return None
+    closed_A, bw_closed = _closed_coupling_form(opened, bw_open, cols, rows, d)
+    ol = _open_loop_poles(bw_open)
+    cl = closed_loop_poles(bw_closed)
+    if ol is None or cl is None:
+        return None
+    scale = matrix_scale(closed_A)  # the open loop differs by a coupling of low rank: one balancing serves both
+    if np.any(cl.real >= -axis_tolerance(cl, scale)):
+        return None  # unstable or marginal: the other route classifies the gain intervals
 
     def Ljw(w):
         w = np.atleast_1d(np.asarray(w, dtype=float))
@@ -1176,11 +1219,89 @@ def _margins_block_by_block(diagram, opened, base: str, *, skew: float, force: b
     return _margins_record(True, ol_classes, (lo_g, hi_g, lo_w, hi_w), crossings, (s_peak, s_w), disk, "")
 
 
-def _attach_limits(m: LoopMargins, A, B, C, D) -> None:
-    from loopwright.engine.limits import performance_limits
+def _closed_coupling_form(opened, bw_open, cols: slice, rows: slice, d: float):
+    """The closed loop's state matrix and coupling form, from the loop opened at a scalar break.
+
+    Closing the break feeds the returned signal ``r = C_r x + D_rb b`` back into the break
+    input ``b``: ``b = C_r x / (1 - D_rb) = C_r x / (1 + d)`` with ``d = L(inf) = -D_rb``,
+    so ``A_closed = A + B_b C_r / (1 + d)``, and with ``B_b = U W_b`` the coupling form
+    ``A0 + U V`` keeps its blocks and gets ``V + W_b C_r / (1 + d)`` (exact: the same model
+    a second assembly of the closed diagram would give, without that assembly and the
+    factorisation of its coupling).
+
+    Returns
+    -------
+    A_closed : (n, n) ndarray
+    bw_closed : BlockwiseModel
+        Valid for the closed loop's poles (:func:`loopwright.engine.coupled_poles.closed_loop_poles`);
+        its ``model`` carries the closed loop's state matrix only.
+    """
+    from types import SimpleNamespace
+
+    from loopwright.engine.blockwise_response import BlockwiseModel
+
+    back = np.asarray(opened.C[rows], dtype=float) / (1.0 + d)  # (1, n)
+    A_closed = opened.A + np.asarray(opened.B[:, cols], dtype=float) @ back
+    V_closed = bw_open.V + np.asarray(bw_open.W[:, cols], dtype=float) @ back
+    states_only = SimpleNamespace(A=A_closed, B=opened.B, C=opened.C)
+    return A_closed, BlockwiseModel(states_only, bw_open.blocks, V_closed, bw_open.W)
+
+
+def _open_loop_poles(bw) -> np.ndarray | None:
+    """Poles of the opened loop from its coupling form, block by block where the opening
+    leaves the blocks in a cascade.
+
+    Block ``i``'s states are driven by block ``j``'s where ``V[channels_i, states_j]`` is not
+    zero. Ordered by the strongly connected groups of that graph, ``A`` is block
+    triangular, so its eigenvalues are those of the groups' diagonal blocks: a block driven
+    by no state of its own group has its own poles (``A[i, i] = A0_i``, already known to its
+    evaluator), a small group the eigenvalues of its dense diagonal block (at most
+    :data:`_DENSE_GROUP` states). A larger group needs the pole iteration on the whole
+    coupling form (:func:`loopwright.engine.coupled_poles.closed_loop_poles`), which is
+    then used for everything; None where it does not converge.
+    """
+    from scipy.sparse import csr_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    from loopwright.engine.coupled_poles import closed_loop_poles
+
+    blocks = bw.blocks
+    k = len(blocks)
+    drives = np.zeros((k, k), dtype=bool)  # drives[j, i]: block j's states enter block i's inputs
+    for i, bi in enumerate(blocks):
+        rows_i = bw.V[bi.channels]
+        for j, bj in enumerate(blocks):
+            drives[j, i] = bool(np.any(rows_i[:, bj.states]))
+    _, labels = connected_components(csr_matrix(drives), directed=True, connection="strong")
+    A = bw.model.A
+    parts = []
+    for g in np.unique(labels):
+        members = np.flatnonzero(labels == g)
+        if members.size == 1 and not drives[members[0], members[0]]:
+            parts.append(np.asarray(blocks[members[0]].evaluator.eigenvalues, dtype=complex))
+            continue
+        idx = np.concatenate([np.arange(blocks[i].states.start, blocks[i].states.stop) for i in members])
+        if idx.size > _DENSE_GROUP:
+            return closed_loop_poles(bw)
+        parts.append(sla.eigvals(A[np.ix_(idx, idx)]).astype(complex))
+    return np.concatenate(parts) if parts else np.zeros(0, complex)
+
+
+def _attach_limits(m: LoopMargins, A, B, C, D, *, response=None, zeros=None, poles=None) -> None:
+    """Set ``m.limits`` to the performance limits of the loop ``(A, B, C, D)`` (None where
+    they cannot be computed). With ``zeros`` the realisation is taken as minimal or clearly
+    stable and those as its transmission zeros, ``poles`` (optional) as its poles
+    (:func:`loopwright.engine.limits.limits_of_realization`); ``response`` evaluates ``L``
+    for the Bode integral (any realisation of the same loop)."""
+    from loopwright.engine.limits import limits_of_realization, performance_limits
 
     try:
-        m.limits = performance_limits(A, B, C, D, closed_loop_stable=m.closed_loop_stable, gain_crossovers=m.gain_crossovers_w_rad_s)
+        if zeros is None:
+            m.limits = performance_limits(A, B, C, D, closed_loop_stable=m.closed_loop_stable,
+                                          gain_crossovers=m.gain_crossovers_w_rad_s, response=response)
+        else:
+            m.limits = limits_of_realization(A, B, C, D, zeros=zeros, poles=poles, closed_loop_stable=m.closed_loop_stable,
+                                             gain_crossovers=m.gain_crossovers_w_rad_s, response=response)
     except (np.linalg.LinAlgError, ValueError):
         m.limits = None  # the margins stand on their own; the limits are an extra
 

@@ -801,7 +801,7 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
             m = dataclasses.replace(m, peak_sensitivity=float(s_peak), peak_sensitivity_w_rad_s=float(s_w), certified=True,
                                     disk=disk_margin_from_alpha(1.0 / pk if pk > 0 else np.inf, skew=skew, w_rad_s=pk_w))
         if limits:
-            _attach_limits(m, *_trim_for_margins(A, B, C, D))
+            _attach_limits(m, A, B, C, D, response=resp)  # the Bode integral on this loop's evaluator
         report(1.0)
         return view_of(m)
 
