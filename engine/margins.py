@@ -620,12 +620,17 @@ def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
         pms, delays = np.zeros(0), np.zeros(0)
         pm, pm_w, dm = np.inf, np.nan, np.inf
     crit: list[tuple[float, float]] = []
+    # A value of L at the rounding level of its largest is no crossing: its sign is noise
+    # (an L(0) of exactly 0 came out as -7e-18 on one route, a "gain margin" of 1e17 at DC).
+    # Critical gains beyond 1e12 times the loop's own size are counted as none.
+    finite = np.abs(L[np.isfinite(L)])
+    floor = 1e-12 * float(finite.max()) if finite.size else 0.0
     for w, val in zip(wx, L_wx):
-        if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val):
+        if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val) and abs(val) > floor:
             crit.append((-1.0 / val.real, float(w)))
-    if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0):
+    if np.isfinite(L0) and L0.real < 0 and abs(L0.imag) <= 1e-9 * abs(L0) and abs(L0) > floor:
         crit.append((-1.0 / L0.real, 0.0))
-    if d < 0:
+    if d < 0 and abs(d) > floor:
         crit.append((-1.0 / d, np.inf))
     crit.sort()
     return wc, pms, pm, pm_w, delays, dm, crit

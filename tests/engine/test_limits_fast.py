@@ -335,3 +335,22 @@ def test_the_cascade_keeps_its_digits_at_low_frequency_behind_a_double_integrato
     # to the 1e-7 the printed value is rounded to
     lim = performance_limits(A, B, C, D)
     assert lim.relative_degree >= 2 and abs(lim.bode_integral) < 1e-7
+
+
+def test_a_loop_value_at_rounding_level_is_no_phase_crossing():
+    # L(s) = 3 s / (s + 1)^4: L(0) = 0 exactly, so no critical gain at DC. Its phase
+    # 90 - 4 atan(w) reaches -180 degrees at w = tan(67.5 deg) = 1 + sqrt(2), where
+    # L = -3 w / (1 + w^2)^2 (closed form). Handed the DC value as the tiny negative number
+    # one route's rounding gave (-7.5e-18), that is no crossing with a gain factor of 1e17,
+    # while the real crossing stays.
+    from loopwright.engine.margins import _crossings
+
+    def Ljw(w):
+        s = 1j * np.asarray(w, dtype=float)
+        return 3.0 * s / (s + 1.0) ** 4
+
+    grid = np.logspace(-3, 3, 400)
+    *_, crit = _crossings(Ljw, grid, Ljw(grid), 0.0, -7.5e-18 + 0j)
+    w180 = 1.0 + np.sqrt(2.0)
+    assert [w for _g, w in crit] == pytest.approx([w180], rel=1e-9)
+    assert crit[0][0] == pytest.approx((1.0 + w180**2) ** 2 / (3.0 * w180), rel=1e-9)
