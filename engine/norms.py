@@ -24,6 +24,7 @@ import numpy as np
 import scipy.linalg as sla
 import scipy.optimize as sopt
 
+from loopwright.engine.nogil import eigenvalues as _eigenvalues
 from loopwright.engine.responses import _as_system, auto_frequency_grid
 from loopwright.engine.structure import minimal_realization
 
@@ -75,7 +76,7 @@ def is_stable_matrix(A, *, margin: float = 0.0, eigenvalues=None) -> bool:
     A = np.atleast_2d(np.asarray(A, dtype=float))
     if A.shape[0] == 0:
         return True
-    ev = sla.eigvals(A) if eigenvalues is None else np.asarray(eigenvalues)
+    ev = _eigenvalues(A) if eigenvalues is None else np.asarray(eigenvalues)
     slack = 1e-12 * max(1.0, np.linalg.norm(A, 1))
     return bool(np.max(ev.real) < -max(margin, slack))
 
@@ -143,7 +144,7 @@ def peak_gain(A, B, C, D=None, *, tol: float = 1e-10, minimal: bool = True, max_
         return PeakGain(d_norm, 0.0 if d_norm > 0 else 0.0, True)
     if not is_stable_matrix(A):
         return PeakGain(np.inf, np.nan, False)
-    poles = sla.eigvals(A)
+    poles = _eigenvalues(A)
     grid = np.concatenate([[0.0], auto_frequency_grid(poles, points_per_decade=20)])
     evaluate = _freq_evaluator(A, B, C, D)
     gains = sigma_max(evaluate(grid))
@@ -200,7 +201,7 @@ def certify_peak(A, B, C, D, lower: float, w_lower: float, *, evaluate=None, tol
         Ae = A - B @ Ri @ D.T @ C
         H = np.block([[Ae, -gamma * B @ Ri @ B.T], [gamma * C.T @ np.linalg.solve(S, C), -Ae.T]])
         hn = max(1.0, np.linalg.norm(H, 1))
-        ev = sla.eigvals(H)
+        ev = _eigenvalues(H)  # lets the window draw meanwhile (engine/nogil.py)
         on_axis = ev[(np.abs(ev.real) <= 1e-7 * np.maximum(1.0, np.abs(ev)) + 1e-10 * hn) & (ev.imag >= 0)]
         if on_axis.size == 0:
             break

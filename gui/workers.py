@@ -16,6 +16,7 @@ so Qt queues the delivery; a result whose revision is no longer the document's i
 from __future__ import annotations
 
 import threading
+import time
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 
@@ -239,10 +240,11 @@ class _JobControl:
     next report instead of letting it run to the end for nothing.
     """
 
-    def __init__(self, key: str, emit, emit_interim=None):
+    def __init__(self, key: str, emit, emit_interim=None, after_interim=None):
         self.key = key
         self._emit = emit
         self._emit_interim = emit_interim
+        self._after_interim = after_interim
         self._stopped = threading.Event()
         self._last = -1.0
 
@@ -259,6 +261,10 @@ class _JobControl:
                 self._emit_interim(self, interim)
             except RuntimeError:
                 pass  # the window was closed while the worker ran
+            if self._after_interim is not None:
+                self._after_interim(self._stopped)
+            if self._stopped.is_set():
+                raise JobStopped(f"{self.key}: stopped")
         if fraction - self._last >= 0.01 or fraction >= 1.0:
             self._last = fraction
             try:
@@ -306,6 +312,12 @@ class ViewJobs(QObject):
         self._latest: dict[str, tuple[int, Future, _JobControl, int]] = {}
         self._submitted: list[Future] = []
         self._quick: set[Future] = set()
+        # quick jobs waiting or running, seen from the workers: a slow job that has handed
+        # over its first answer waits for them before it refines it (see _wait_for_quick)
+        self._quick_lock = threading.Lock()
+        self._quick_pending = 0
+        self._quick_idle = threading.Event()
+        self._quick_idle.set()
         self._token = 0
         self._closed = False
         self.discarded = 0
@@ -329,7 +341,8 @@ class ViewJobs(QObject):
             old[2].stop()
         self._token += 1
         token, revision = self._token, self._doc.revision
-        control = _JobControl(key, self._progress.emit, lambda c, value, rev=revision: self._interim.emit((c, ViewResult(key, rev, value))))
+        control = _JobControl(key, self._progress.emit, lambda c, value, rev=revision: self._interim.emit((c, ViewResult(key, rev, value))),
+                              after_interim=self._wait_for_quick if slow else None)
         if progress:
             kwargs = dict(kwargs, progress=control.report)
         fut = (self._slow_executor if slow else self._executor).submit(_run_view_job, fn, args, kwargs)
@@ -337,6 +350,10 @@ class ViewJobs(QObject):
         self._submitted = [f for f in self._submitted if not f.done()] + [fut]
         if not slow:
             self._quick = {f for f in self._quick if not f.done()} | {fut}
+            with self._quick_lock:
+                self._quick_pending += 1
+                self._quick_idle.clear()
+            fut.add_done_callback(self._quick_job_done)
         fut.add_done_callback(lambda f, k=key, tk=token, rev=revision: self._deliver(f, k, tk, rev))
         self.busy_changed.emit(key, True)
 
@@ -357,6 +374,24 @@ class ViewJobs(QObject):
 
     def is_busy(self, key: str) -> bool:
         return key in self._latest
+
+    def _quick_job_done(self, _fut) -> None:
+        # runs on the worker that finished the job (or the thread that cancelled it)
+        with self._quick_lock:
+            self._quick_pending -= 1
+            if self._quick_pending <= 0:
+                self._quick_pending = 0
+                self._quick_idle.set()
+
+    def _wait_for_quick(self, stopped: threading.Event, limit_s: float = 10.0) -> None:
+        """On a slow job's worker, after its first answer is drawn: wait until no quick job
+        waits or runs (or the job is stopped, or ``limit_s`` passed). What follows a first
+        answer only refines it (the certificate of a large loop's margins), and on two cores
+        it would take half the machine from the views an edit is waiting for."""
+        end = time.monotonic() + limit_s
+        while not stopped.is_set() and not self._quick_idle.wait(0.02):
+            if time.monotonic() > end:
+                return
 
     def worker_idle(self, *, quick_only: bool = False) -> bool:
         """True when nothing runs or waits on the workers (stopped jobs included); with

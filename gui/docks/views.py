@@ -20,6 +20,8 @@ progress where the engine reports it and a Stop that ends the computation.
 """
 from __future__ import annotations
 
+import sys
+
 from PySide6.QtCore import QObject, QTimer, Signal
 
 from loopwright.engine.views_data import SharedModel
@@ -29,6 +31,8 @@ from loopwright.gui.workers import ViewJobs, ViewResult
 __all__ = ["ViewsController", "VIEW_ORDER"]
 
 _BUSY_AFTER_MS = 500
+#: The interpreter's thread switch interval while the views compute (see ViewsController).
+_SWITCH_INTERVAL_S = 0.0005
 
 #: The order the panels' jobs run in after an edit: cheap first, so they are drawn first.
 VIEW_ORDER = ("poles", "frequency", "time", "singular_values", "loop_break", "noise", "audit")
@@ -53,6 +57,12 @@ class ViewsController(QObject):
         from loopwright.gui.workers import limit_blas_threads
 
         limit_blas_threads(1)  # the live check and the views compute at once on two cores
+        # The window's drawing calls back into Python for every plot item it paints, and
+        # each callback must take the interpreter lock from a worker that is computing; with
+        # the default switch interval (5 ms) a plot of a few dozen items waited a quarter
+        # of a second for it while its own work took ten milliseconds. A shorter interval
+        # hands the lock over sooner, at the cost of more switches on the workers.
+        sys.setswitchinterval(min(sys.getswitchinterval(), _SWITCH_INTERVAL_S))
         self._doc = document
         self.jobs = ViewJobs(document, self)
         self.panels: dict[str, tuple] = {}
