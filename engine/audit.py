@@ -25,13 +25,20 @@ states the method and its accuracy). Otherwise ``A`` is reduced once (complex Sc
 evaluated for all signals at once on one frequency grid, peaks are refined jointly by
 grid densification (up to 8 passes of 5 points inside each signal's bracket around its
 peak, each pass one batched solve shared by all signals; a peak at either end of the grid
-extends the grid outward first), and H2 norms reuse the same real Schur form for one Lyapunov solve per input
+extends the grid outward first; :mod:`loopwright.engine.audit_peaks` keeps the brackets of
+all signals in arrays), and H2 norms reuse the same real Schur form for one Lyapunov solve per input
 group. Where an operation count says it is cheaper (big blocks with few ports, such as a
 plant in modal form), the grid and the refinement are evaluated block by block instead
 (:mod:`loopwright.engine.blockwise_response`); the answers are the same. Stability per pair uses the left and right eigenvectors of each non-stable mode
 taken from the triangular form. Peak gains are therefore grid-and-refine values (relative
 error about 1e-8 or better around a smooth peak), not Hamiltonian certificates; use
 :func:`norms.peak_gain` on a single path for a certified value.
+
+**Paths:** the blocks on a path are those the source reaches that also reach the signal's
+driving block. On a loop that is nearly every block for every signal, so the listing is
+built once per (input group, strongly connected component of the driving block) and
+shared by the rows it serves (:class:`_PathIndex`): linear in the number of blocks where
+listing each row afresh was quadratic. Rows may therefore share list objects.
 """
 from __future__ import annotations
 
@@ -41,11 +48,12 @@ import networkx as nx
 import numpy as np
 import scipy.linalg as sla
 
+from loopwright.engine.audit_peaks import refine_peaks
 from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
 from loopwright.engine.errors import EngineError
 from loopwright.engine.coupled_poles import closed_loop_poles, h2_by_residues, residue_factors
 from loopwright.engine.eigen import axis_tolerance, matrix_scale
-from loopwright.engine.norms import dc_gain, h2_norm, lyapunov_from_schur, sigma_max
+from loopwright.engine.norms import dc_gain, h2_norm, lyapunov_from_schur
 from loopwright.engine.responses import ReducedModel, auto_frequency_grid, reduce_model
 
 __all__ = ["AuditRow", "AuditCancelled", "path_audit", "path_between", "RANKING_RULE"]
@@ -145,129 +153,115 @@ def path_between(model, group: str, signal: str, graph=None, *, cache: dict | No
     """Block ids and wire ids on the paths from an input group to a signal.
 
     The blocks are those reachable from the source block (or from the consumers of an
-    injected signal) that also reach the block driving ``signal``; the wires are the
-    diagram edges between them, plus the injected and the observed signal's own wires.
+    injected signal) that also reach the block driving ``signal``, listed by hops from the
+    source (ties in diagram order); the wires are the diagram edges between them, plus
+    the injected and the observed signal's own wires.
 
-    ``cache`` (a dict, optional) keeps reachability sets between calls on the same model.
+    ``cache`` (a dict, optional) keeps the reachability of the model between calls.
 
     Returns
     -------
     block_ids, wire_ids : list of str
+        New lists, the caller's to keep.
     """
-    d = model.diagram
-    g = d.graph() if graph is None else graph
-    wires_by_name = {w.name: w for w in d.wires.values()}
-    end = _driver(model, signal)
-    extra_wires: list[str] = []
-    if group.startswith("inject:") or group.startswith("break:"):
-        sig = group.split(":", 1)[1]
-        w = wires_by_name.get(sig)
-        starts = {t.block for t in w.targets} if w is not None else set()
-        if w is not None:
-            extra_wires.append(w.id)
-    else:
-        starts = {d.block_by_name(group).id}
     cache = {} if cache is None else cache
-    fkey = ("fwd", group)
-    if fkey not in cache:
-        # hops from the source: every reachable block, and the order to list a path in
-        hops: dict[str, int] = {}
-        for s in starts:
-            for node, k in nx.single_source_shortest_path_length(g, s).items():
-                hops[node] = min(k, hops.get(node, k))
-        cache[fkey] = hops
-    bkey = ("back", end)
-    if bkey not in cache:
-        cache[bkey] = nx.ancestors(g, end) | {end}
-    hops, back = cache[fkey], cache[bkey]
-    nodes = set(hops) & back
-    if "edges" not in cache:
-        cache["edges"] = list(g.edges(keys=True))
-    wids = [k for u, v, k in cache["edges"] if u in nodes and v in nodes]
-    if signal in wires_by_name and (nodes or extra_wires):
-        extra_wires.append(wires_by_name[signal].id)
-    seen, wire_ids = set(), []
-    for k in wids + extra_wires:
-        if k not in seen:
-            seen.add(k)
-            wire_ids.append(k)
-    rank = {b: i for i, b in enumerate(d.blocks)}
-    order = sorted(nodes, key=lambda b: (hops[b], rank[b]))
-    return order, wire_ids
+    index = cache.get("paths")
+    if index is None:
+        index = cache["paths"] = _PathIndex(model, graph)
+    bids, wids, _names_b, _names_w = index.path(group, signal)
+    return list(bids), list(wids)
 
 
-def _refine_peaks(responder, grid, Y, sig_items, passes: int, progress=None) -> dict:
-    """Peak gain and its frequency for every signal of one input group.
+class _PathIndex:
+    """Reachability of one model's diagram, for listing the path of every audit row.
 
-    Each signal keeps a bracket of samples around its best point; each pass puts 5 new
-    frequencies inside every distinct bracket (or extends the grid outward when the peak
-    sits at an end), solves once for all of them and evaluates each signal only at its
-    own points. Returns signal -> (peak, w_rad_s). ``progress(fraction)``, when given,
-    is called after each pass (and may raise to stop).
+    On a loop every block reaches every other, so each of the ~n rows of a source lists
+    ~n blocks: computing each row's list afresh (a search towards the signal, a filter of
+    every wire) costs O(n^2). The blocks that reach a signal are the ancestors of the
+    strongly connected component of its driving block, the same set for every signal
+    driven inside that component; so the search runs once per (source, component), the
+    block and wire lists (and their names) are built once per (source, component) and
+    shared by its rows. Only a row whose own signal's wire is not yet listed gets a list
+    of its own (the shared one plus that wire). Rows therefore share list objects: read
+    them, never change them.
     """
-    local: dict[str, tuple[np.ndarray, np.ndarray]] = {}
-    best: dict[str, tuple[float, float]] = {}
-    top = grid[-1]
-    for sig, sl in sig_items:
-        g = sigma_max(Y[:, sl, :])
-        gv = np.where(np.isfinite(g), g, -np.inf)
-        i = int(np.argmax(gv))
-        if not np.isfinite(gv[i]):
-            best[sig] = (0.0, 0.0)
-            continue
-        lo, hi = max(i - 1, 0), min(i + 2, grid.size)
-        # neighbours must be distinct points: step past near-duplicates of the peak
-        while lo > 0 and abs(grid[lo] - grid[i]) <= 1e-12 * grid[i]:
-            lo -= 1
-        while hi < grid.size and abs(grid[hi - 1] - grid[i]) <= 1e-12 * grid[i]:
-            hi += 1
-        w0, g0 = grid[lo:hi], g[lo:hi]
-        keep = np.concatenate([[True], np.diff(w0) > 1e-12 * np.abs(w0[1:])])
-        local[sig] = (w0[keep].copy(), g0[keep].copy())
-    for done in range(passes):
-        if progress is not None:
-            progress(done / passes)
-        plans: dict[bytes, tuple[np.ndarray, list[str]]] = {}
-        for sig, (w, g) in local.items():
-            i = int(np.argmax(np.where(np.isfinite(g), g, -np.inf)))
-            if i == w.size - 1 and w[i] >= top:
-                new = w[i] * np.logspace(0.1, 1.5, 5)  # still rising at the top: look further up
-            elif i == 0 and w.size > 1 and w[0] > 0 and w[0] <= grid[1]:
-                new = w[0] * np.logspace(-1.5, -0.1, 5)  # between DC and the lowest grid point
-            elif 0 < i < w.size - 1:
-                new = np.linspace(w[i - 1], w[i + 1], 7)[1:-1]
+
+    def __init__(self, model, graph=None):
+        d = model.diagram
+        self.model, self.diagram = model, d
+        self.graph = g = d.graph() if graph is None else graph
+        self.wires_by_name = {w.name: w for w in d.wires.values()}
+        self.rank = {b: i for i, b in enumerate(d.blocks)}
+        self.position = {node: i for i, node in enumerate(g)}  # the order of g.edges()
+        self.component: dict[str, int] = {}
+        for c, members in enumerate(nx.strongly_connected_components(g)):
+            for node in members:
+                self.component[node] = c
+        self.searches = 0  # backward searches run (one per component of a driving block)
+        self._hops: dict[str, dict[str, int]] = {}
+        self._own_wire: dict[str, list[str]] = {}
+        self._back: dict[int, set[str]] = {}
+        self._shared: dict[tuple[str, int], tuple] = {}
+
+    def _forward(self, group: str) -> tuple[dict[str, int], list[str]]:
+        """Hops from the group's start blocks to every block they reach; the group's own wire."""
+        if group not in self._hops:
+            d, g = self.diagram, self.graph
+            extra: list[str] = []
+            if group.startswith("inject:") or group.startswith("break:"):
+                w = self.wires_by_name.get(group.split(":", 1)[1])
+                starts = {t.block for t in w.targets} if w is not None else set()
+                if w is not None:
+                    extra.append(w.id)
             else:
-                continue
-            # drop points that coincide with samples already taken (linspace may reproduce
-            # an existing point up to rounding, which would make it its own neighbour)
-            new = new[np.all(np.abs(new[:, None] - w[None, :]) > 1e-12 * np.abs(new)[:, None], axis=1)]
-            if new.size == 0:
-                continue
-            key = new.tobytes()
-            if key in plans:
-                plans[key][1].append(sig)
-            else:
-                plans[key] = (new, [sig])
-        if not plans:
-            break
-        w_new = np.concatenate([pts for pts, _ in plans.values()])
-        solved = responder.solve(w_new)
-        col = 0
-        rows = dict(sig_items)
-        for pts, sigs in plans.values():
-            at = slice(col, col + pts.size)
-            col += pts.size
-            for sig in sigs:
-                gk = sigma_max(responder.outputs(solved, rows[sig], at))
-                w, g = local[sig]
-                w2 = np.concatenate([w, pts])
-                g2 = np.concatenate([g, gk])
-                order = np.argsort(w2)
-                local[sig] = (w2[order], g2[order])
-    for sig, (w, g) in local.items():
-        i = int(np.argmax(np.where(np.isfinite(g), g, -np.inf)))
-        best[sig] = (float(g[i]), float(w[i]))
-    return best
+                starts = {d.block_by_name(group).id}
+            hops: dict[str, int] = {}
+            for s in starts:
+                for node, k in nx.single_source_shortest_path_length(g, s).items():
+                    hops[node] = min(k, hops.get(node, k))
+            self._hops[group] = hops
+            self._own_wire[group] = extra
+        return self._hops[group], self._own_wire[group]
+
+    def _backward(self, end: str) -> set[str]:
+        """Every block that reaches ``end`` (``end`` included): one search per component."""
+        c = self.component[end]
+        if c not in self._back:
+            self.searches += 1
+            self._back[c] = nx.ancestors(self.graph, end) | {end}
+        return self._back[c]
+
+    def path(self, group: str, signal: str) -> tuple[list[str], list[str], list[str], list[str]]:
+        """``(block_ids, wire_ids, block names, wire names)`` of the path; shared lists."""
+        hops, extra = self._forward(group)
+        end = _driver(self.model, signal)
+        key = (group, self.component[end])
+        shared = self._shared.get(key)
+        if shared is None:
+            nodes = set(hops) & self._backward(end)
+            order = sorted(nodes, key=lambda b: (hops[b], self.rank[b]))
+            # the wires between them in the order of graph.edges(); a wire with several
+            # targets on the path is one edge per target but is listed once
+            succ, seen, base = self.graph.succ, set(), []
+            for u in sorted(nodes, key=self.position.__getitem__):
+                for v, keyed in succ[u].items():
+                    if v in nodes:
+                        for k in keyed:
+                            if k not in seen:
+                                seen.add(k)
+                                base.append(k)
+            for k in extra:
+                if k not in seen:
+                    seen.add(k)
+                    base.append(k)
+            blocks, wires = self.diagram.blocks, self.diagram.wires
+            shared = (order, base, seen, [blocks[b].name for b in order], [wires[w].name for w in base], bool(nodes or extra))
+            self._shared[key] = shared
+        order, base, seen, names_b, names_w, any_path = shared
+        w = self.wires_by_name.get(signal)
+        if w is None or not any_path or w.id in seen:
+            return order, base, names_b, names_w
+        return order, base + [w.id], names_b, names_w + [w.name]
 
 
 def path_audit(
@@ -367,7 +361,7 @@ def path_audit(
             S = red.scale
             Bw = Bg / S[:, None]
             X = lyapunov_from_schur(red.T_real, red.Z_real, Bw @ Bw.T)
-        best = _refine_peaks(responder, grid, Y, sig_items, refine_passes if n else 0, progress=_stage(progress, (gi + 0.5) * part, (gi + 0.8) * part))
+        best = refine_peaks(responder, grid, Y, sig_items, refine_passes if n else 0, progress=_stage(progress, (gi + 0.5) * part, (gi + 0.8) * part))
         report((gi + 0.8) * part)
         finite_y = np.abs(Y[np.isfinite(Y)])
         scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
@@ -406,7 +400,10 @@ def _pair_row(model, grp, sig, Dgs, g0, best, unstable, h2_of, scale_ref, graph,
     """The audit row of one pair from its pieces (either route); None for a pair with no
     structural path and zero gain. ``h2_of()`` gives the H2 norm of a stable strictly
     proper path."""
-    bids, wids = path_between(model, grp, sig, graph, cache=reach_cache)
+    index = reach_cache.get("paths")
+    if index is None:
+        index = reach_cache["paths"] = _PathIndex(model, graph)
+    bids, wids, names_b, names_w = index.path(grp, sig)
     d_peak = float(np.linalg.norm(Dgs, 2)) if Dgs.size else 0.0
     note = ""
     if unstable:
@@ -439,8 +436,6 @@ def _pair_row(model, grp, sig, Dgs, g0, best, unstable, h2_of, scale_ref, graph,
         dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
     if not bids and not unstable and peak <= 1e-13 * scale_ref:
         return None
-    names_b = [model.diagram.blocks[b].name for b in bids]
-    names_w = [model.diagram.wires[w].name for w in wids]
     return AuditRow(
         grp, sig, peak, wpk, h2, dc, not unstable, names_b, names_w, bids, wids, note=note,
         dc_gain_kind="signed value" if scalar else "largest singular value",
@@ -448,7 +443,7 @@ def _pair_row(model, grp, sig, Dgs, g0, best, unstable, h2_of, scale_ref, graph,
 
 
 class _BlockResponder:
-    """The responder interface of :func:`_refine_peaks` on the block-by-block route."""
+    """The responder interface of :func:`~loopwright.engine.audit_peaks.refine_peaks` on the block-by-block route."""
 
     def __init__(self, bw: BlockwiseModel, cols):
         self.bw, self.cols = bw, cols
@@ -562,7 +557,7 @@ def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, re
             Y = Y_all[:, :, at : at + w]
             at += w
             lo = base + 0.5 * span * (1.0 + j / len(batch))
-            best = _refine_peaks(_BlockResponder(bw, gcols), grid, Y, sig_items, refine_passes,
+            best = refine_peaks(_BlockResponder(bw, gcols), grid, Y, sig_items, refine_passes,
                                  progress=_stage(progress, lo, lo + 0.5 * span / len(batch)))
             if progress is not None:
                 progress(base + 0.5 * span * (1.0 + (j + 1) / len(batch)))
