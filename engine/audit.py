@@ -42,9 +42,9 @@ listing each row afresh was quadratic. Rows may therefore share list objects.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
-import networkx as nx
 import numpy as np
 import scipy.linalg as sla
 
@@ -189,24 +189,24 @@ class _PathIndex:
     def __init__(self, model, graph=None):
         d = model.diagram
         self.model, self.diagram = model, d
-        self.graph = g = d.graph() if graph is None else graph
+        if graph is None:
+            self.succ, self.pred = _adjacency(d)
+            self.position = {b: i for i, b in enumerate(d.blocks)}
+        else:
+            self.succ, self.pred = graph.succ, graph.pred
+            self.position = {node: i for i, node in enumerate(graph)}
         self.wires_by_name = {w.name: w for w in d.wires.values()}
         self.rank = {b: i for i, b in enumerate(d.blocks)}
-        self.position = {node: i for i, node in enumerate(g)}  # the order of g.edges()
-        self.component: dict[str, int] = {}
-        for c, members in enumerate(nx.strongly_connected_components(g)):
-            for node in members:
-                self.component[node] = c
+        self.component = _components(self.succ)  # block -> its component's root block
         self.searches = 0  # backward searches run (one per component of a driving block)
         self._hops: dict[str, dict[str, int]] = {}
         self._own_wire: dict[str, list[str]] = {}
-        self._back: dict[int, set[str]] = {}
-        self._shared: dict[tuple[str, int], tuple] = {}
+        self._back: dict[str, set[str]] = {}
+        self._shared: dict[tuple[str, str], tuple] = {}
 
     def _forward(self, group: str) -> tuple[dict[str, int], list[str]]:
         """Hops from the group's start blocks to every block they reach; the group's own wire."""
         if group not in self._hops:
-            d, g = self.diagram, self.graph
             extra: list[str] = []
             if group.startswith("inject:") or group.startswith("break:"):
                 w = self.wires_by_name.get(group.split(":", 1)[1])
@@ -214,11 +214,19 @@ class _PathIndex:
                 if w is not None:
                     extra.append(w.id)
             else:
-                starts = {d.block_by_name(group).id}
-            hops: dict[str, int] = {}
-            for s in starts:
-                for node, k in nx.single_source_shortest_path_length(g, s).items():
-                    hops[node] = min(k, hops.get(node, k))
+                starts = {self.diagram.block_by_name(group).id}
+            # breadth first from all starts at once: the fewest hops from any of them
+            hops = dict.fromkeys(starts, 0)
+            frontier, k = list(starts), 0
+            while frontier:
+                k += 1
+                ahead = []
+                for u in frontier:
+                    for v in self.succ[u]:
+                        if v not in hops:
+                            hops[v] = k
+                            ahead.append(v)
+                frontier = ahead
             self._hops[group] = hops
             self._own_wire[group] = extra
         return self._hops[group], self._own_wire[group]
@@ -228,7 +236,13 @@ class _PathIndex:
         c = self.component[end]
         if c not in self._back:
             self.searches += 1
-            self._back[c] = nx.ancestors(self.graph, end) | {end}
+            seen, todo = {end}, [end]
+            while todo:
+                for u in self.pred[todo.pop()]:
+                    if u not in seen:
+                        seen.add(u)
+                        todo.append(u)
+            self._back[c] = seen
         return self._back[c]
 
     def path(self, group: str, signal: str) -> tuple[list[str], list[str], list[str], list[str]]:
@@ -242,7 +256,7 @@ class _PathIndex:
             order = sorted(nodes, key=lambda b: (hops[b], self.rank[b]))
             # the wires between them in the order of graph.edges(); a wire with several
             # targets on the path is one edge per target but is listed once
-            succ, seen, base = self.graph.succ, set(), []
+            succ, seen, base = self.succ, set(), []
             for u in sorted(nodes, key=self.position.__getitem__):
                 for v, keyed in succ[u].items():
                     if v in nodes:
@@ -262,6 +276,62 @@ class _PathIndex:
         if w is None or not any_path or w.id in seen:
             return order, base, names_b, names_w
         return order, base + [w.id], names_b, names_w + [w.name]
+
+
+def _adjacency(diagram) -> tuple[dict, dict]:
+    """Successors and predecessors of every block: ``succ[u][v]`` maps the ids of the wires
+    from ``u`` to ``v`` to None, in the order :meth:`Diagram.graph` lists its edges."""
+    succ: dict[str, dict] = {b: {} for b in diagram.blocks}
+    pred: dict[str, dict] = {b: {} for b in diagram.blocks}
+    for w in diagram.wires.values():
+        for t in w.targets:
+            succ[w.source.block].setdefault(t.block, {})[w.id] = None
+            pred[t.block].setdefault(w.source.block, {})[w.id] = None
+    return succ, pred
+
+
+def _components(succ) -> dict[str, int]:
+    """Strongly connected component of every node (Tarjan's algorithm, without recursion:
+    a chain of thousands of blocks would exceed Python's recursion limit)."""
+    index: dict = {}
+    low: dict = {}
+    comp: dict = {}
+    stack: list = []
+    on_stack: set = set()
+    count = 0
+    for root in succ:
+        if root in index:
+            continue
+        index[root] = low[root] = count
+        count += 1
+        stack.append(root)
+        on_stack.add(root)
+        work = [(root, iter(succ[root]))]
+        while work:
+            v, nbrs = work[-1]
+            for w in nbrs:
+                if w not in index:
+                    index[w] = low[w] = count
+                    count += 1
+                    stack.append(w)
+                    on_stack.add(w)
+                    work.append((w, iter(succ[w])))
+                    break
+                if w in on_stack:
+                    low[v] = min(low[v], index[w])
+            else:
+                work.pop()
+                if work:
+                    u = work[-1][0]
+                    low[u] = min(low[u], low[v])
+                if low[v] == index[v]:  # v roots a component: name it after v
+                    while True:
+                        x = stack.pop()
+                        on_stack.discard(x)
+                        comp[x] = v
+                        if x == v:
+                            break
+    return comp
 
 
 def path_audit(
@@ -333,7 +403,7 @@ def path_audit(
     if injections:
         groups += [g for g in model.inputs if g.startswith("inject:")]
     blockwise = BlockwiseModel.from_model(model) if n else None
-    graph = model.diagram.graph()
+    graph = None  # the path index reads the diagram itself (networkx graphs are slow to build)
     reach_cache: dict = {}
     rows: list[AuditRow] = []
     sig_items = list(model.signals.items())
@@ -365,81 +435,149 @@ def path_audit(
         report((gi + 0.8) * part)
         finite_y = np.abs(Y[np.isfinite(Y)])
         scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
-        for si, (sig, sl) in enumerate(sig_items):
-            if si % 8 == 0:
-                report((gi + 0.8 + 0.2 * si / len(sig_items)) * part)
-            Cz = Ct_all[sl]
-            unstable = False
-            for (v, u), r in zip(vecs, reach):
-                if not r:
-                    continue
-                cn = np.linalg.norm(Cz)
-                if cn > 0 and np.linalg.norm(Cz @ v) / (np.linalg.norm(v) * cn) > _COUPLING_TOL:
-                    unstable = True
-                    break
+        unstable = [False] * len(sig_items)
+        if any(reach):
+            for si, (sig, sl) in enumerate(sig_items):
+                Cz = Ct_all[sl]
+                for (v, u), r in zip(vecs, reach):
+                    if not r:
+                        continue
+                    cn = np.linalg.norm(Cz)
+                    if cn > 0 and np.linalg.norm(Cz @ v) / (np.linalg.norm(v) * cn) > _COUPLING_TOL:
+                        unstable[si] = True
+                        break
+        batch_h2 = _h2_from_gramian(C, red.scale, X, Dg, sig_items) if X is not None else {}
 
-            def h2_of(sl=sl):
-                if X is not None:
-                    Cs = C[sl] * red.scale[None, :]
-                    return float(np.sqrt(max(np.trace(Cs @ X @ Cs.T), 0.0)))
-                if n == 0:
-                    return 0.0
-                return h2_norm(A, Bg, C[sl], Dg[sl]).value
+        def h2_of(sig, sl, Bg=Bg, Dg=Dg, X=X, batch_h2=batch_h2):
+            if sig in batch_h2:
+                return batch_h2[sig]
+            if X is not None:
+                Cs = C[sl] * red.scale[None, :]
+                return float(np.sqrt(max(np.trace(Cs @ X @ Cs.T), 0.0)))
+            if n == 0:
+                return 0.0
+            return h2_norm(A, Bg, C[sl], Dg[sl]).value
 
-            g0 = Y[0, sl, :]
-            if not np.all(np.isfinite(g0)):
-                g0 = dc_gain(A, Bg, C[sl], Dg[sl])
-            row = _pair_row(model, grp, sig, Dg[sl], g0, best.get(sig), unstable, h2_of, scale_ref, graph, reach_cache)
-            if row is not None:
-                rows.append(row)
+        def dc_of(sl, Bg=Bg, Dg=Dg):
+            return dc_gain(A, Bg, C[sl], Dg[sl])
+
+        rows += _group_rows(model, grp, sig_items, Dg, Y[0], best, unstable, h2_of, dc_of, scale_ref, reach_cache, graph,
+                            progress=_stage(progress, (gi + 0.8) * part, (gi + 1.0) * part))
     report(1.0)
     return _ranked(rows)
 
 
-def _pair_row(model, grp, sig, Dgs, g0, best, unstable, h2_of, scale_ref, graph, reach_cache) -> AuditRow | None:
-    """The audit row of one pair from its pieces (either route); None for a pair with no
-    structural path and zero gain. ``h2_of()`` gives the H2 norm of a stable strictly
-    proper path."""
+def _h2_from_gramian(C, scale, X, Dg, sig_items) -> dict[str, float]:
+    """H2 norms of the single-row signals without feedthrough, from the group's gramian
+    ``X`` (of the balanced coordinates): ``sqrt(c X c^T)`` with ``c`` the signal's row of
+    ``C`` scaled. One stacked product over the signals; each is the (1, n) by (n, n) and
+    (1, n) by (n, 1) product that one signal alone would form."""
+    rownz = np.any(Dg != 0, axis=1)
+    want = [(sig, sl.start) for sig, sl in sig_items if sl.stop - sl.start == 1 and not rownz[sl.start]]
+    if not want:
+        return {}
+    at = np.array([r for _sig, r in want], dtype=int)
+    Cs = C[at] * scale[None, :]
+    v = (Cs[:, None, :] @ X) @ Cs[:, :, None]
+    # + 0.0: the trace of a 1 x 1 matrix is 0.0 + its entry (a -0.0 entry gives 0.0)
+    return {sig: math.sqrt(max(float(x) + 0.0, 0.0)) for (sig, _r), x in zip(want, v[:, 0, 0])}
+
+
+def _stacked_norm2(M: np.ndarray) -> np.ndarray:
+    """``np.linalg.norm(M[k], 2)`` of each (1, m) matrix of the stack ``M`` (k, 1, m):
+    the same singular value decomposition per matrix, in one call."""
+    if M.shape[0] == 0:
+        return np.zeros(0)
+    return np.linalg.svd(M, compute_uv=False).max(axis=-1)
+
+
+def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, scale_ref, reach_cache, graph,
+                progress=None) -> list[AuditRow]:
+    """The audit rows of one input group (either route), from its pieces.
+
+    ``Dg`` (p, m) is the group's feedthrough, ``Y0`` (p, m) its response at w = 0,
+    ``best`` signal -> (peak, w) from the refinement, ``unstable`` one flag per signal,
+    ``h2_of(sig, rows)`` the H2 norm of a stable strictly proper path, ``dc_of(rows)`` the
+    DC gain where ``Y0`` is not finite. A pair with no structural path and zero gain gets
+    no row. Single-row signals (nearly all, on a big diagram) take their feedthrough and
+    DC norms from one stacked call per group; the rest one at a time.
+    """
     index = reach_cache.get("paths")
     if index is None:
         index = reach_cache["paths"] = _PathIndex(model, graph)
-    bids, wids, names_b, names_w = index.path(grp, sig)
-    d_peak = float(np.linalg.norm(Dgs, 2)) if Dgs.size else 0.0
-    note = ""
-    if unstable:
-        peak, wpk, h2 = np.inf, np.nan, np.inf
-        note = "a mode with Re(p) >= 0 is reached by the source and seen at the signal"
+    m = Dg.shape[1]
+    single = np.array([sl.start for _sig, sl in sig_items if sl.stop - sl.start == 1], dtype=int)
+    rownz = np.any(Dg != 0, axis=1)
+    finite0 = np.all(np.isfinite(Y0), axis=1)
+    # feedthrough norm of every single-row signal (0 where the row is zero)
+    d_norm = np.zeros(Dg.shape[0])
+    nz = single[rownz[single]]
+    d_norm[nz] = _stacked_norm2(Dg[nz][:, None, :])
+    # DC gain: the signed value of a scalar path, else the norm of a single row
+    dc_single = np.zeros(Dg.shape[0])
+    if m == 1:
+        dc_single[single] = np.real(Y0[single, 0])
     else:
-        peak, wpk = best
-        # a sup reached only as w -> inf equals |D|; the refined grid then stops just
-        # short of it at some huge finite frequency, which would mislead
-        if d_peak >= peak * (1.0 - 1e-9):
-            peak, wpk = max(d_peak, peak), np.inf
-        if np.any(Dgs != 0):
-            h2 = np.inf
-            note = "direct feedthrough: H2 is infinite"
+        fin = single[finite0[single]]
+        dc_single[fin] = _stacked_norm2(Y0[fin][:, None, :])
+    rows: list[AuditRow] = []
+    d_norm_l, rownz_l, finite0_l, dc_single_l = d_norm.tolist(), rownz.tolist(), finite0.tolist(), dc_single.tolist()
+    isfinite, inf = math.isfinite, math.inf
+    for si, (sig, sl) in enumerate(sig_items):
+        if progress is not None and si % 256 == 0:
+            progress(si / len(sig_items))
+        one = sl.stop - sl.start == 1
+        if one:
+            r = sl.start
+            d_peak, has_d, g_finite, g_size = d_norm_l[r], rownz_l[r], finite0_l[r], m
         else:
-            h2 = h2_of()
-    scalar = g0.size == 1
-    if not np.all(np.isfinite(g0)):
-        # an integrator on the path: unbounded at DC; a scalar path keeps the sign it tends to
-        dc = float(np.sign(np.nan_to_num(np.real(g0).ravel()[0]))) * np.inf if scalar else np.inf
-        if scalar and dc == 0:
-            dc = np.inf
-    elif scalar:
-        dc = float(np.real(g0.ravel()[0]))  # a real system's DC gain is real
-    else:
-        dc = float(np.linalg.norm(g0, 2)) if g0.size else 0.0
-    if wpk == np.inf and np.isfinite(dc) and abs(abs(dc) - peak) <= 1e-9 * peak:
-        wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
-    if np.isfinite(dc) and np.isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
-        dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
-    if not bids and not unstable and peak <= 1e-13 * scale_ref:
-        return None
-    return AuditRow(
-        grp, sig, peak, wpk, h2, dc, not unstable, names_b, names_w, bids, wids, note=note,
-        dc_gain_kind="signed value" if scalar else "largest singular value",
-    )
+            Dgs = Dg[sl]
+            d_peak = float(np.linalg.norm(Dgs, 2)) if Dgs.size else 0.0
+            has_d, g_finite, g_size = bool(np.any(Dgs != 0)), bool(np.all(finite0[sl])), Dgs.size
+        note = ""
+        if unstable[si]:
+            peak, wpk, h2 = inf, math.nan, inf
+            note = "a mode with Re(p) >= 0 is reached by the source and seen at the signal"
+        else:
+            peak, wpk = best[sig]
+            # a sup reached only as w -> inf equals |D|; the refined grid then stops just
+            # short of it at some huge finite frequency, which would mislead
+            if d_peak >= peak * (1.0 - 1e-9):
+                peak, wpk = max(d_peak, peak), inf
+            if has_d:
+                h2 = inf
+                note = "direct feedthrough: H2 is infinite"
+            else:
+                h2 = h2_of(sig, sl)
+        scalar = g_size == 1
+        if not g_finite:
+            g0 = dc_of(sl)
+            if not np.all(np.isfinite(g0)):
+                # an integrator on the path: unbounded at DC; a scalar path keeps the sign it tends to
+                dc = float(np.sign(np.nan_to_num(np.real(g0).ravel()[0]))) * inf if scalar else inf
+                if scalar and dc == 0:
+                    dc = inf
+            elif scalar:
+                dc = float(np.real(g0.ravel()[0]))  # a real system's DC gain is real
+            else:
+                dc = float(np.linalg.norm(g0, 2)) if g0.size else 0.0
+        elif one:
+            dc = dc_single_l[sl.start]
+        else:
+            g0 = Y0[sl]
+            dc = float(np.linalg.norm(g0, 2)) if g0.size else 0.0
+        if wpk == inf and isfinite(dc) and abs(abs(dc) - peak) <= 1e-9 * peak:
+            wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
+        if isfinite(dc) and isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
+            dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
+        bids, wids, names_b, names_w = index.path(grp, sig)
+        if not bids and not unstable[si] and peak <= 1e-13 * scale_ref:
+            continue
+        rows.append(AuditRow(
+            grp, sig, peak, wpk, h2, dc, not unstable[si], names_b, names_w, bids, wids, note=note,
+            dc_gain_kind="signed value" if scalar else "largest singular value",
+        ))
+    return rows
 
 
 class _BlockResponder:
@@ -527,7 +665,7 @@ def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, re
             return None
     grid = np.concatenate([[0.0], auto_frequency_grid(poles, points_per_decade=points_per_decade)])
     p = model.C.shape[0]
-    graph = model.diagram.graph()
+    graph = None  # the path index reads the diagram itself (networkx graphs are slow to build)
     reach_cache: dict = {}
     rows: list[AuditRow] = []
     # batches of input groups whose grid responses fit in memory together
@@ -564,10 +702,8 @@ def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, re
             finite_y = np.abs(Y[np.isfinite(Y)])
             scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
             Dg = D[:, gcols]
-            for sig, sl in sig_items:
-                row = _pair_row(model, grp, sig, Dg[sl], Y[0, sl, :], best[sig], False, lambda key=(grp, sig): h2[key], scale_ref, graph, reach_cache)
-                if row is not None:
-                    rows.append(row)
+            rows += _group_rows(model, grp, sig_items, Dg, Y[0], best, [False] * len(sig_items),
+                                lambda sig, _sl, grp=grp: h2[(grp, sig)], None, scale_ref, reach_cache, graph)
         done += len(batch)
     if progress is not None:
         progress(1.0)
@@ -575,7 +711,8 @@ def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, re
 
 
 def _ranked(rows: list[AuditRow]) -> list[AuditRow]:
-    rows.sort(key=lambda r: (r.stable, -r.peak_gain if np.isfinite(r.peak_gain) else -np.inf, -r.h2 if np.isfinite(r.h2) else -np.inf, r.source, r.signal))
+    isfinite, inf = math.isfinite, math.inf
+    rows.sort(key=lambda r: (r.stable, -r.peak_gain if isfinite(r.peak_gain) else -inf, -r.h2 if isfinite(r.h2) else -inf, r.source, r.signal))
     for i, r in enumerate(rows, 1):
         r.rank = i
     return rows

@@ -44,7 +44,12 @@ def grid_gains(Y: np.ndarray, sig_items) -> np.ndarray:
     starts = np.array([sl.start for _sig, sl in sig_items], dtype=int)
     widths = np.array([sl.stop - sl.start for _sig, sl in sig_items], dtype=int)
     scalar = np.flatnonzero(widths == 1)
-    if scalar.size:
+    if scalar.size and Y.shape[2] == 1:
+        # one entry each: sigma_max is its modulus, as sqrt(|y|^2) (a sum of one term)
+        mag = np.abs(Y[:, :, 0] if scalar.size == Y.shape[1] and np.array_equal(starts, np.arange(Y.shape[1])) else Y[:, starts[scalar], 0])
+        np.square(mag, out=mag)
+        out[:, scalar] = np.sqrt(mag, out=mag)
+    elif scalar.size:
         # one row each: sigma_max is the 2-norm over the group's inputs
         out[:, scalar] = np.sqrt(np.sum(np.abs(Y[:, starts[scalar], :]) ** 2, axis=2))
     for j in np.flatnonzero(widths != 1):
@@ -98,8 +103,9 @@ def _first_appearance_groups(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 def _initial_brackets(grid: np.ndarray, g: np.ndarray, passes: int):
     """Each signal's bracket around its best grid point: ``(W, G, count, active)``.
 
-    ``W``/``G`` (signals, room) hold frequencies (ascending) and gains, padded with
-    ``inf``/``-inf`` past ``count``; ``active`` is False for a signal with no finite gain.
+    ``W``/``G`` (signals, room) hold the samples (frequencies, and gains with non-finite
+    values as ``-inf``) in no particular order, padded with ``inf``/``-inf`` past
+    ``count``; ``active`` is False for a signal with no finite gain.
     """
     gv = np.where(np.isfinite(g), g, -np.inf)
     best = np.argmax(gv, axis=0)
@@ -123,7 +129,7 @@ def _initial_brackets(grid: np.ndarray, g: np.ndarray, passes: int):
     for i, idx in spans.items():
         who = np.flatnonzero(active & (best == i))
         W[who, : idx.size] = grid[idx]
-        G[who, : idx.size] = g[idx][:, who].T
+        G[who, : idx.size] = gv[idx][:, who].T
         count[who] = idx.size
     return W, G, count, active
 
@@ -141,40 +147,36 @@ def _linspace_inner(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return pts
 
 
-def _new_points(W, G, count, active, grid):
-    """The points each signal asks for in this pass: ``(rows, points (r, 5), kept (r, 5))``."""
+def _new_points(W, G, count, grid):
+    """The points each row of a bracket asks for in this pass: ``(points, kept)``, (r, 5).
+
+    The samples of a row are unordered, so the peak (the lowest frequency among equal
+    largest gains, as a search in ascending order finds first) and its neighbours in
+    frequency are found by masked minima and maxima.
+    """
     top = grid[-1]
     low = grid[1] if grid.size > 1 else -np.inf
-    rows = np.flatnonzero(active)
-    Wr, Gr, cr = W[rows], G[rows], count[rows]
-    i = np.argmax(np.where(np.isfinite(Gr), Gr, -np.inf), axis=1)
-    at = np.arange(rows.size)
-    wi = Wr[at, i]
-    up = (i == cr - 1) & (wi >= top)  # still rising at the top: look further up
-    down = ~up & (i == 0) & (cr > 1) & (Wr[:, 0] > 0) & (Wr[:, 0] <= low)  # between DC and the lowest grid point
-    inside = ~up & ~down & (i > 0) & (i < cr - 1)
-    pts = np.zeros((rows.size, _NEW))
+    gmax = G.max(axis=1)
+    wi = np.where(G == gmax[:, None], W, np.inf).min(axis=1)
+    below = np.where(W < wi[:, None], W, -np.inf).max(axis=1)
+    above = np.where(W > wi[:, None], W, np.inf).min(axis=1)
+    up = (above == np.inf) & (wi >= top)  # still rising at the top: look further up
+    # between DC and the lowest grid point
+    down = ~up & (below == -np.inf) & (count > 1) & (wi > 0) & (wi <= low)
+    inside = ~up & ~down & (below > -np.inf) & (above < np.inf)
+    pts = np.zeros((W.shape[0], _NEW))
     pts[up] = wi[up, None] * _UP[None, :]
-    pts[down] = Wr[down, 0, None] * _DOWN[None, :]
-    if inside.any():
-        j = i[inside]
-        pts[inside] = _linspace_inner(Wr[inside, j - 1], Wr[inside, j + 1])
+    pts[down] = wi[down, None] * _DOWN[None, :]
+    pts[inside] = _linspace_inner(below[inside], above[inside])
     # drop points that coincide with samples already taken (linspace may reproduce an
     # existing point up to rounding, which would make it its own neighbour). A new point
-    # is nearest to the bracket's own samples: above the last one, below the first one,
-    # or between the peak's two neighbours; rounding is monotone, so no other sample of
-    # the row can be closer than these.
-    near = np.full((rows.size, 3), np.nan)
-    near[up, 0] = wi[up]
-    near[down, 0] = Wr[down, 0]
-    if inside.any():
-        j = i[inside]
-        near[inside] = np.stack([Wr[inside, j - 1], wi[inside], Wr[inside, j + 1]], axis=1)
+    # lies above every sample, below every sample, or between the peak's two neighbours;
+    # rounding is monotone, so no sample is closer to it than the peak and those neighbours.
+    near = np.stack([np.where(inside, below, wi), wi, np.where(inside, above, wi)], axis=1)
     with np.errstate(invalid="ignore"):
-        dist = np.abs(pts[:, :, None] - near[:, None, :])
-        far = (dist > _SAME * np.abs(pts)[:, :, None]) | np.isnan(near)[:, None, :]
+        far = np.abs(pts[:, :, None] - near[:, None, :]) > _SAME * np.abs(pts)[:, :, None]
     kept = np.all(far, axis=2) & (up | down | inside)[:, None]
-    return rows, pts, kept
+    return pts, kept
 
 
 def refine_peaks(responder, grid: np.ndarray, Y: np.ndarray, sig_items, passes: int, progress=None) -> dict:
@@ -205,13 +207,15 @@ def refine_peaks(responder, grid: np.ndarray, Y: np.ndarray, sig_items, passes: 
     starts = np.array([sl.start for _sig, sl in sig_items], dtype=int)
     scalar = np.array([sl.stop - sl.start == 1 for _sig, sl in sig_items], dtype=bool)
     W, G, count, active = _initial_brackets(grid, grid_gains(Y, sig_items), passes)
+    live = np.flatnonzero(active)  # rows still asking for points (a row that asks for none never will again)
     for done in range(passes):
         if progress is not None:
             progress(done / passes)
-        rows, pts, kept = _new_points(W, G, count, active, grid)
+        used = int(count[live].max())  # columns past every row's count are padding
+        pts, kept = _new_points(W[live, :used], G[live, :used], count[live], grid)
         asks = kept.any(axis=1)
-        rows, pts, kept = rows[asks], pts[asks], kept[asks]
-        if rows.size == 0:
+        live, pts, kept = live[asks], pts[asks], kept[asks]
+        if live.size == 0:
             break
         # each row's kept points moved to the front; equal lists share one plan
         front = np.argsort(~kept, axis=1, kind="stable")
@@ -226,27 +230,24 @@ def refine_peaks(responder, grid: np.ndarray, Y: np.ndarray, sig_items, passes: 
         for c in np.unique(sizes):
             who = np.flatnonzero(sizes[plan] == c)
             cols = offsets[plan[who]][:, None] + np.arange(c)[None, :]
-            one = scalar[rows[who]]
+            one = scalar[live[who]]
             if one.any():
-                out = _group_outputs(responder, solved, starts[rows[who[one]]], cols[one])
+                out = _group_outputs(responder, solved, starts[live[who[one]]], cols[one])
                 values[who[one], :c] = np.sqrt(np.sum(np.abs(out) ** 2, axis=2))
             for q in who[~one]:
-                sl = sig_items[rows[q]][1]
+                sl = sig_items[live[q]][1]
                 at = slice(offsets[plan[q]], offsets[plan[q]] + c)
                 values[q, :c] = sigma_max(responder.outputs(solved, sl, at))
-        # merge the new samples into each row's bracket (ascending frequency)
-        grown = count[rows][:, None] + np.arange(_NEW)[None, :]
-        r_idx = np.repeat(rows[:, None], _NEW, axis=1)
-        W[r_idx[kept], grown[kept]] = pts[kept]
-        G[r_idx[kept], grown[kept]] = values[kept]
-        count[rows] += kept.sum(axis=1)
-        order = np.argsort(W[rows], axis=1)
-        W[rows] = np.take_along_axis(W[rows], order, axis=1)
-        G[rows] = np.take_along_axis(G[rows], order, axis=1)
+        # append the new samples to each row
+        slot = count[live][:, None] + np.arange(_NEW)[None, :]
+        row = np.repeat(live[:, None], _NEW, axis=1)
+        W[row[kept], slot[kept]] = pts[kept]
+        G[row[kept], slot[kept]] = np.where(np.isfinite(values[kept]), values[kept], -np.inf)
+        count[live] += kept.sum(axis=1)
+    # the peak: the lowest frequency among equal largest gains
+    gmax = G.max(axis=1)
+    w = np.where(G == gmax[:, None], W, np.inf).min(axis=1)
     best: dict[str, tuple[float, float]] = {}
-    i = np.argmax(np.where(np.isfinite(G), G, -np.inf), axis=1)
-    peak = G[np.arange(len(names)), i]
-    w = W[np.arange(len(names)), i]
     for j, sig in enumerate(names):
-        best[sig] = (float(peak[j]), float(w[j])) if active[j] else (0.0, 0.0)
+        best[sig] = (float(gmax[j]), float(w[j])) if active[j] else (0.0, 0.0)
     return best
