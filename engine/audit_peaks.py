@@ -34,26 +34,26 @@ _CHUNK_ENTRIES = 2_000_000
 
 
 def grid_gains(Y: np.ndarray, sig_items) -> np.ndarray:
-    """Largest singular value of every signal's response at every grid point, (k, signals).
+    """Largest singular value of every signal's response at every grid point, (signals, k).
 
-    ``Y`` is (k, p, m), ``sig_items`` the ``(signal, row slice)`` pairs; each column is
+    ``Y`` is (k, p, m), ``sig_items`` the ``(signal, row slice)`` pairs; each row is
     :func:`~loopwright.engine.norms.sigma_max` of that signal's rows.
     """
     k = Y.shape[0]
-    out = np.empty((k, len(sig_items)))
+    out = np.empty((len(sig_items), k))
     starts = np.array([sl.start for _sig, sl in sig_items], dtype=int)
     widths = np.array([sl.stop - sl.start for _sig, sl in sig_items], dtype=int)
     scalar = np.flatnonzero(widths == 1)
     if scalar.size and Y.shape[2] == 1:
         # one entry each: sigma_max is its modulus, as sqrt(|y|^2) (a sum of one term)
-        mag = np.abs(Y[:, :, 0] if scalar.size == Y.shape[1] and np.array_equal(starts, np.arange(Y.shape[1])) else Y[:, starts[scalar], 0])
+        mag = np.abs(Y[:, starts[scalar], 0].T)
         np.square(mag, out=mag)
-        out[:, scalar] = np.sqrt(mag, out=mag)
+        out[scalar] = np.sqrt(mag, out=mag)
     elif scalar.size:
         # one row each: sigma_max is the 2-norm over the group's inputs
-        out[:, scalar] = np.sqrt(np.sum(np.abs(Y[:, starts[scalar], :]) ** 2, axis=2))
+        out[scalar] = np.sqrt(np.sum(np.abs(Y[:, starts[scalar], :]) ** 2, axis=2)).T
     for j in np.flatnonzero(widths != 1):
-        out[:, j] = sigma_max(Y[:, sig_items[j][1], :])
+        out[j] = sigma_max(Y[:, sig_items[j][1], :])
     return out
 
 
@@ -101,16 +101,16 @@ def _first_appearance_groups(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _initial_brackets(grid: np.ndarray, g: np.ndarray, passes: int):
-    """Each signal's bracket around its best grid point: ``(W, G, count, active)``.
+    """Each signal's bracket around its best grid point ``g`` (signals, k): ``(W, G, count, active)``.
 
     ``W``/``G`` (signals, room) hold the samples (frequencies, and gains with non-finite
     values as ``-inf``) in no particular order, padded with ``inf``/``-inf`` past
     ``count``; ``active`` is False for a signal with no finite gain.
     """
     gv = np.where(np.isfinite(g), g, -np.inf)
-    best = np.argmax(gv, axis=0)
-    s = g.shape[1]
-    active = np.isfinite(gv[best, np.arange(s)])
+    best = np.argmax(gv, axis=1)
+    s = g.shape[0]
+    active = np.isfinite(gv[np.arange(s), best])
     spans = {}
     for i in np.unique(best[active]):
         lo, hi = max(i - 1, 0), min(i + 2, grid.size)
@@ -129,7 +129,7 @@ def _initial_brackets(grid: np.ndarray, g: np.ndarray, passes: int):
     for i, idx in spans.items():
         who = np.flatnonzero(active & (best == i))
         W[who, : idx.size] = grid[idx]
-        G[who, : idx.size] = gv[idx][:, who].T
+        G[who, : idx.size] = gv[who][:, idx]
         count[who] = idx.size
     return W, G, count, active
 
@@ -212,7 +212,10 @@ def refine_peaks(responder, grid: np.ndarray, Y: np.ndarray, sig_items, passes: 
         if progress is not None:
             progress(done / passes)
         used = int(count[live].max())  # columns past every row's count are padding
-        pts, kept = _new_points(W[live, :used], G[live, :used], count[live], grid)
+        if live.size == W.shape[0]:
+            pts, kept = _new_points(W[:, :used], G[:, :used], count, grid)
+        else:
+            pts, kept = _new_points(W[live, :used], G[live, :used], count[live], grid)
         asks = kept.any(axis=1)
         live, pts, kept = live[asks], pts[asks], kept[asks]
         if live.size == 0:
