@@ -2,7 +2,7 @@
 
 The diagram is ``scale_diagrams.gain_chain_loop`` (demo data). Timed from the in-memory
 diagram: assembly, and each command's analysis (check summary, frequency response of one
-path, noise budget, margins at the command signal, path audit of the sources, up to ``--audit-max`` gains);
+path, noise budget, margins at the command signal, path audit of the sources);
 and reading the diagram back from its project text (``project.loads``: parsing, schema
 check and rebuilding the diagram wire by wire). python-
 control 0.10.2 assembles the same loop with ``interconnect`` (timed at ``--ct-gains``
@@ -77,19 +77,22 @@ def _time_commands(d, gains: int, audit_max: int) -> None:
                                           "-o", os.path.join(tmp, "controller.json")],
         }
         if gains <= audit_max:
-            # both print the path audit, whose rows list the blocks on each path: on a chain
-            # the output itself grows with the square of the number of blocks
+            # the audit prints every row (2 sources x ~n signals) with the blocks on its path:
+            # on a loop each lists ~n blocks, so its text grows with the square of the chain
+            # (the lists themselves are shared by the rows); the report prints the top 5
             commands["audit"] = ["audit", path]
             commands["report"] = ["report", path]
         for label, argv in commands.items():
             best, best_cpu = np.inf, np.inf
             for _ in range(3):
                 gc.collect()  # every run starts without the garbage of the runs before
+                out = io.StringIO()
                 t0, c0 = time.perf_counter(), time.process_time()
-                with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
+                with contextlib.redirect_stdout(out), contextlib.redirect_stderr(io.StringIO()):
                     status = cli.main(argv)
                 best, best_cpu = min(best, time.perf_counter() - t0), min(best_cpu, time.process_time() - c0)
-            print(f"  command {label:<26} wall {best:7.3f} s  cpu {best_cpu:7.3f} s  (file in, text out; exit {status})")
+            size = len(out.getvalue())
+            print(f"  command {label:<26} wall {best:7.3f} s  cpu {best_cpu:7.3f} s  (file in, text out: {size / 1e6:.2f} MB; exit {status})")
     t0 = time.perf_counter()
     run = subprocess.run([sys.executable, "-c", "import time; import loopwright.engine.cli; print(time.process_time())"],
                          check=True, capture_output=True, text=True)
@@ -101,11 +104,12 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[500, 1000, 2000, 4000])
     ap.add_argument("--ct-gains", type=int, default=200)
-    ap.add_argument("--audit-max", type=int, default=1000, help="largest chain to audit (the audit's output is quadratic)")
+    ap.add_argument("--audit-max", type=int, default=None, help="largest chain to audit (default: every size; the audit's text is quadratic)")
     ap.add_argument("--cli", action="store_true", help="also time each command end to end in this process (file in, text out)")
     args = ap.parse_args(argv)
     print(f"python-control {ct.__version__}")
     w = np.logspace(-2, 2, 1000)
+    audit_max = max(args.sizes) if args.audit_max is None else args.audit_max
     for gains in args.sizes:
         d = gain_chain_loop(gains)
         t_a, c_a, model = timed(lambda: assemble(d), repeat=3)
@@ -119,16 +123,14 @@ def main(argv=None) -> int:
             "noise": lambda: noise_budget(assemble(d)),
             "margins at u": lambda: margins_at(d, "u"),
         }
-        if gains <= args.audit_max:
-            # every row lists the blocks on its path: on a chain the output itself grows
-            # with the square of the number of blocks
+        if gains <= audit_max:
             steps["audit"] = lambda: path_audit(assemble(d))
         print(f"\n{len(d.blocks)} blocks, {gains} gains in series: assemble wall {t_a:.3f} s, cpu {c_a:.3f} s")
         for label, fn in steps.items():
             t, c, _ = timed(fn, repeat=2)
             print(f"  {label:<20} wall {t:7.3f} s  cpu {c:7.3f} s  (assembly included)")
         if args.cli:
-            _time_commands(d, gains, args.audit_max)
+            _time_commands(d, gains, audit_max)
         if gains == args.sizes[-1] and args.ct_gains:
             t_ct, c_ct, _ = timed(lambda: _ct_chain(args.ct_gains))
             dd = gain_chain_loop(args.ct_gains)

@@ -25,27 +25,35 @@ states the method and its accuracy). Otherwise ``A`` is reduced once (complex Sc
 evaluated for all signals at once on one frequency grid, peaks are refined jointly by
 grid densification (up to 8 passes of 5 points inside each signal's bracket around its
 peak, each pass one batched solve shared by all signals; a peak at either end of the grid
-extends the grid outward first), and H2 norms reuse the same real Schur form for one Lyapunov solve per input
+extends the grid outward first; :mod:`loopwright.engine.audit_peaks` keeps the brackets of
+all signals in arrays), and H2 norms reuse the same real Schur form for one Lyapunov solve per input
 group. Where an operation count says it is cheaper (big blocks with few ports, such as a
 plant in modal form), the grid and the refinement are evaluated block by block instead
 (:mod:`loopwright.engine.blockwise_response`); the answers are the same. Stability per pair uses the left and right eigenvectors of each non-stable mode
 taken from the triangular form. Peak gains are therefore grid-and-refine values (relative
 error about 1e-8 or better around a smooth peak), not Hamiltonian certificates; use
 :func:`norms.peak_gain` on a single path for a certified value.
+
+**Paths:** the blocks on a path are those the source reaches that also reach the signal's
+driving block. On a loop that is nearly every block for every signal, so the listing is
+built once per (input group, strongly connected component of the driving block) and
+shared by the rows it serves (:class:`_PathIndex`): linear in the number of blocks where
+listing each row afresh was quadratic. Rows may therefore share list objects.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
-import networkx as nx
 import numpy as np
 import scipy.linalg as sla
 
+from loopwright.engine.audit_peaks import refine_peaks
 from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
 from loopwright.engine.errors import EngineError
 from loopwright.engine.coupled_poles import closed_loop_poles, h2_by_residues, residue_factors
 from loopwright.engine.eigen import axis_tolerance, matrix_scale
-from loopwright.engine.norms import dc_gain, h2_norm, lyapunov_from_schur, sigma_max
+from loopwright.engine.norms import dc_gain, h2_norm, lyapunov_from_schur
 from loopwright.engine.responses import ReducedModel, auto_frequency_grid, reduce_model
 
 __all__ = ["AuditRow", "AuditCancelled", "path_audit", "path_between", "RANKING_RULE"]
@@ -145,129 +153,185 @@ def path_between(model, group: str, signal: str, graph=None, *, cache: dict | No
     """Block ids and wire ids on the paths from an input group to a signal.
 
     The blocks are those reachable from the source block (or from the consumers of an
-    injected signal) that also reach the block driving ``signal``; the wires are the
-    diagram edges between them, plus the injected and the observed signal's own wires.
+    injected signal) that also reach the block driving ``signal``, listed by hops from the
+    source (ties in diagram order); the wires are the diagram edges between them, plus
+    the injected and the observed signal's own wires.
 
-    ``cache`` (a dict, optional) keeps reachability sets between calls on the same model.
+    ``cache`` (a dict, optional) keeps the reachability of the model between calls.
 
     Returns
     -------
     block_ids, wire_ids : list of str
+        New lists, the caller's to keep.
     """
-    d = model.diagram
-    g = d.graph() if graph is None else graph
-    wires_by_name = {w.name: w for w in d.wires.values()}
-    end = _driver(model, signal)
-    extra_wires: list[str] = []
-    if group.startswith("inject:") or group.startswith("break:"):
-        sig = group.split(":", 1)[1]
-        w = wires_by_name.get(sig)
-        starts = {t.block for t in w.targets} if w is not None else set()
-        if w is not None:
-            extra_wires.append(w.id)
-    else:
-        starts = {d.block_by_name(group).id}
     cache = {} if cache is None else cache
-    fkey = ("fwd", group)
-    if fkey not in cache:
-        # hops from the source: every reachable block, and the order to list a path in
-        hops: dict[str, int] = {}
-        for s in starts:
-            for node, k in nx.single_source_shortest_path_length(g, s).items():
-                hops[node] = min(k, hops.get(node, k))
-        cache[fkey] = hops
-    bkey = ("back", end)
-    if bkey not in cache:
-        cache[bkey] = nx.ancestors(g, end) | {end}
-    hops, back = cache[fkey], cache[bkey]
-    nodes = set(hops) & back
-    if "edges" not in cache:
-        cache["edges"] = list(g.edges(keys=True))
-    wids = [k for u, v, k in cache["edges"] if u in nodes and v in nodes]
-    if signal in wires_by_name and (nodes or extra_wires):
-        extra_wires.append(wires_by_name[signal].id)
-    seen, wire_ids = set(), []
-    for k in wids + extra_wires:
-        if k not in seen:
-            seen.add(k)
-            wire_ids.append(k)
-    rank = {b: i for i, b in enumerate(d.blocks)}
-    order = sorted(nodes, key=lambda b: (hops[b], rank[b]))
-    return order, wire_ids
+    index = cache.get("paths")
+    if index is None:
+        index = cache["paths"] = _PathIndex(model, graph)
+    bids, wids, _names_b, _names_w = index.path(group, signal)
+    return list(bids), list(wids)
 
 
-def _refine_peaks(responder, grid, Y, sig_items, passes: int, progress=None) -> dict:
-    """Peak gain and its frequency for every signal of one input group.
+class _PathIndex:
+    """Reachability of one model's diagram, for listing the path of every audit row.
 
-    Each signal keeps a bracket of samples around its best point; each pass puts 5 new
-    frequencies inside every distinct bracket (or extends the grid outward when the peak
-    sits at an end), solves once for all of them and evaluates each signal only at its
-    own points. Returns signal -> (peak, w_rad_s). ``progress(fraction)``, when given,
-    is called after each pass (and may raise to stop).
+    On a loop every block reaches every other, so each of the ~n rows of a source lists
+    ~n blocks: computing each row's list afresh (a search towards the signal, a filter of
+    every wire) costs O(n^2). The blocks that reach a signal are the ancestors of the
+    strongly connected component of its driving block, the same set for every signal
+    driven inside that component; so the search runs once per (source, component), the
+    block and wire lists (and their names) are built once per (source, component) and
+    shared by its rows. Only a row whose own signal's wire is not yet listed gets a list
+    of its own (the shared one plus that wire). Rows therefore share list objects: read
+    them, never change them.
     """
-    local: dict[str, tuple[np.ndarray, np.ndarray]] = {}
-    best: dict[str, tuple[float, float]] = {}
-    top = grid[-1]
-    for sig, sl in sig_items:
-        g = sigma_max(Y[:, sl, :])
-        gv = np.where(np.isfinite(g), g, -np.inf)
-        i = int(np.argmax(gv))
-        if not np.isfinite(gv[i]):
-            best[sig] = (0.0, 0.0)
+
+    def __init__(self, model, graph=None):
+        d = model.diagram
+        self.model, self.diagram = model, d
+        if graph is None:
+            self.succ, self.pred = _adjacency(d)
+            self.position = {b: i for i, b in enumerate(d.blocks)}
+        else:
+            self.succ, self.pred = graph.succ, graph.pred
+            self.position = {node: i for i, node in enumerate(graph)}
+        self.wires_by_name = {w.name: w for w in d.wires.values()}
+        self.rank = {b: i for i, b in enumerate(d.blocks)}
+        self.component = _components(self.succ)  # block -> its component's root block
+        self.searches = 0  # backward searches run (one per component of a driving block)
+        self._hops: dict[str, dict[str, int]] = {}
+        self._own_wire: dict[str, list[str]] = {}
+        self._back: dict[str, set[str]] = {}
+        self._shared: dict[tuple[str, str], tuple] = {}
+
+    def _forward(self, group: str) -> tuple[dict[str, int], list[str]]:
+        """Hops from the group's start blocks to every block they reach; the group's own wire."""
+        if group not in self._hops:
+            extra: list[str] = []
+            if group.startswith("inject:") or group.startswith("break:"):
+                w = self.wires_by_name.get(group.split(":", 1)[1])
+                starts = {t.block for t in w.targets} if w is not None else set()
+                if w is not None:
+                    extra.append(w.id)
+            else:
+                starts = {self.diagram.block_by_name(group).id}
+            # breadth first from all starts at once: the fewest hops from any of them
+            hops = dict.fromkeys(starts, 0)
+            frontier, k = list(starts), 0
+            while frontier:
+                k += 1
+                ahead = []
+                for u in frontier:
+                    for v in self.succ[u]:
+                        if v not in hops:
+                            hops[v] = k
+                            ahead.append(v)
+                frontier = ahead
+            self._hops[group] = hops
+            self._own_wire[group] = extra
+        return self._hops[group], self._own_wire[group]
+
+    def _backward(self, end: str) -> set[str]:
+        """Every block that reaches ``end`` (``end`` included): one search per component."""
+        c = self.component[end]
+        if c not in self._back:
+            self.searches += 1
+            seen, todo = {end}, [end]
+            while todo:
+                for u in self.pred[todo.pop()]:
+                    if u not in seen:
+                        seen.add(u)
+                        todo.append(u)
+            self._back[c] = seen
+        return self._back[c]
+
+    def path(self, group: str, signal: str) -> tuple[list[str], list[str], list[str], list[str]]:
+        """``(block_ids, wire_ids, block names, wire names)`` of the path; shared lists."""
+        hops, extra = self._forward(group)
+        end = _driver(self.model, signal)
+        key = (group, self.component[end])
+        shared = self._shared.get(key)
+        if shared is None:
+            nodes = set(hops) & self._backward(end)
+            order = sorted(nodes, key=lambda b: (hops[b], self.rank[b]))
+            # the wires between them in the order of graph.edges(); a wire with several
+            # targets on the path is one edge per target but is listed once
+            succ, seen, base = self.succ, set(), []
+            for u in sorted(nodes, key=self.position.__getitem__):
+                for v, keyed in succ[u].items():
+                    if v in nodes:
+                        for k in keyed:
+                            if k not in seen:
+                                seen.add(k)
+                                base.append(k)
+            for k in extra:
+                if k not in seen:
+                    seen.add(k)
+                    base.append(k)
+            blocks, wires = self.diagram.blocks, self.diagram.wires
+            shared = (order, base, seen, [blocks[b].name for b in order], [wires[w].name for w in base], bool(nodes or extra))
+            self._shared[key] = shared
+        order, base, seen, names_b, names_w, any_path = shared
+        w = self.wires_by_name.get(signal)
+        if w is None or not any_path or w.id in seen:
+            return order, base, names_b, names_w
+        return order, base + [w.id], names_b, names_w + [w.name]
+
+
+def _adjacency(diagram) -> tuple[dict, dict]:
+    """Successors and predecessors of every block: ``succ[u][v]`` maps the ids of the wires
+    from ``u`` to ``v`` to None, in the order :meth:`Diagram.graph` lists its edges."""
+    succ: dict[str, dict] = {b: {} for b in diagram.blocks}
+    pred: dict[str, dict] = {b: {} for b in diagram.blocks}
+    for w in diagram.wires.values():
+        for t in w.targets:
+            succ[w.source.block].setdefault(t.block, {})[w.id] = None
+            pred[t.block].setdefault(w.source.block, {})[w.id] = None
+    return succ, pred
+
+
+def _components(succ) -> dict[str, int]:
+    """Strongly connected component of every node (Tarjan's algorithm, without recursion:
+    a chain of thousands of blocks would exceed Python's recursion limit)."""
+    index: dict = {}
+    low: dict = {}
+    comp: dict = {}
+    stack: list = []
+    on_stack: set = set()
+    count = 0
+    for root in succ:
+        if root in index:
             continue
-        lo, hi = max(i - 1, 0), min(i + 2, grid.size)
-        # neighbours must be distinct points: step past near-duplicates of the peak
-        while lo > 0 and abs(grid[lo] - grid[i]) <= 1e-12 * grid[i]:
-            lo -= 1
-        while hi < grid.size and abs(grid[hi - 1] - grid[i]) <= 1e-12 * grid[i]:
-            hi += 1
-        w0, g0 = grid[lo:hi], g[lo:hi]
-        keep = np.concatenate([[True], np.diff(w0) > 1e-12 * np.abs(w0[1:])])
-        local[sig] = (w0[keep].copy(), g0[keep].copy())
-    for done in range(passes):
-        if progress is not None:
-            progress(done / passes)
-        plans: dict[bytes, tuple[np.ndarray, list[str]]] = {}
-        for sig, (w, g) in local.items():
-            i = int(np.argmax(np.where(np.isfinite(g), g, -np.inf)))
-            if i == w.size - 1 and w[i] >= top:
-                new = w[i] * np.logspace(0.1, 1.5, 5)  # still rising at the top: look further up
-            elif i == 0 and w.size > 1 and w[0] > 0 and w[0] <= grid[1]:
-                new = w[0] * np.logspace(-1.5, -0.1, 5)  # between DC and the lowest grid point
-            elif 0 < i < w.size - 1:
-                new = np.linspace(w[i - 1], w[i + 1], 7)[1:-1]
+        index[root] = low[root] = count
+        count += 1
+        stack.append(root)
+        on_stack.add(root)
+        work = [(root, iter(succ[root]))]
+        while work:
+            v, nbrs = work[-1]
+            for w in nbrs:
+                if w not in index:
+                    index[w] = low[w] = count
+                    count += 1
+                    stack.append(w)
+                    on_stack.add(w)
+                    work.append((w, iter(succ[w])))
+                    break
+                if w in on_stack:
+                    low[v] = min(low[v], index[w])
             else:
-                continue
-            # drop points that coincide with samples already taken (linspace may reproduce
-            # an existing point up to rounding, which would make it its own neighbour)
-            new = new[np.all(np.abs(new[:, None] - w[None, :]) > 1e-12 * np.abs(new)[:, None], axis=1)]
-            if new.size == 0:
-                continue
-            key = new.tobytes()
-            if key in plans:
-                plans[key][1].append(sig)
-            else:
-                plans[key] = (new, [sig])
-        if not plans:
-            break
-        w_new = np.concatenate([pts for pts, _ in plans.values()])
-        solved = responder.solve(w_new)
-        col = 0
-        rows = dict(sig_items)
-        for pts, sigs in plans.values():
-            at = slice(col, col + pts.size)
-            col += pts.size
-            for sig in sigs:
-                gk = sigma_max(responder.outputs(solved, rows[sig], at))
-                w, g = local[sig]
-                w2 = np.concatenate([w, pts])
-                g2 = np.concatenate([g, gk])
-                order = np.argsort(w2)
-                local[sig] = (w2[order], g2[order])
-    for sig, (w, g) in local.items():
-        i = int(np.argmax(np.where(np.isfinite(g), g, -np.inf)))
-        best[sig] = (float(g[i]), float(w[i]))
-    return best
+                work.pop()
+                if work:
+                    u = work[-1][0]
+                    low[u] = min(low[u], low[v])
+                if low[v] == index[v]:  # v roots a component: name it after v
+                    while True:
+                        x = stack.pop()
+                        on_stack.discard(x)
+                        comp[x] = v
+                        if x == v:
+                            break
+    return comp
 
 
 def path_audit(
@@ -339,7 +403,7 @@ def path_audit(
     if injections:
         groups += [g for g in model.inputs if g.startswith("inject:")]
     blockwise = BlockwiseModel.from_model(model) if n else None
-    graph = model.diagram.graph()
+    graph = None  # the path index reads the diagram itself (networkx graphs are slow to build)
     reach_cache: dict = {}
     rows: list[AuditRow] = []
     sig_items = list(model.signals.items())
@@ -367,88 +431,157 @@ def path_audit(
             S = red.scale
             Bw = Bg / S[:, None]
             X = lyapunov_from_schur(red.T_real, red.Z_real, Bw @ Bw.T)
-        best = _refine_peaks(responder, grid, Y, sig_items, refine_passes if n else 0, progress=_stage(progress, (gi + 0.5) * part, (gi + 0.8) * part))
+        best = refine_peaks(responder, grid, Y, sig_items, refine_passes if n else 0, progress=_stage(progress, (gi + 0.5) * part, (gi + 0.8) * part))
         report((gi + 0.8) * part)
         finite_y = np.abs(Y[np.isfinite(Y)])
         scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
-        for si, (sig, sl) in enumerate(sig_items):
-            if si % 8 == 0:
-                report((gi + 0.8 + 0.2 * si / len(sig_items)) * part)
-            Cz = Ct_all[sl]
-            unstable = False
-            for (v, u), r in zip(vecs, reach):
-                if not r:
-                    continue
-                cn = np.linalg.norm(Cz)
-                if cn > 0 and np.linalg.norm(Cz @ v) / (np.linalg.norm(v) * cn) > _COUPLING_TOL:
-                    unstable = True
-                    break
+        unstable = [False] * len(sig_items)
+        if any(reach):
+            for si, (sig, sl) in enumerate(sig_items):
+                Cz = Ct_all[sl]
+                for (v, u), r in zip(vecs, reach):
+                    if not r:
+                        continue
+                    cn = np.linalg.norm(Cz)
+                    if cn > 0 and np.linalg.norm(Cz @ v) / (np.linalg.norm(v) * cn) > _COUPLING_TOL:
+                        unstable[si] = True
+                        break
+        batch_h2 = _h2_from_gramian(C, red.scale, X, Dg, sig_items) if X is not None else {}
 
-            def h2_of(sl=sl):
-                if X is not None:
-                    Cs = C[sl] * red.scale[None, :]
-                    return float(np.sqrt(max(np.trace(Cs @ X @ Cs.T), 0.0)))
-                if n == 0:
-                    return 0.0
-                return h2_norm(A, Bg, C[sl], Dg[sl]).value
+        def h2_of(sig, sl, Bg=Bg, Dg=Dg, X=X, batch_h2=batch_h2):
+            if sig in batch_h2:
+                return batch_h2[sig]
+            if X is not None:
+                Cs = C[sl] * red.scale[None, :]
+                return float(np.sqrt(max(np.trace(Cs @ X @ Cs.T), 0.0)))
+            if n == 0:
+                return 0.0
+            return h2_norm(A, Bg, C[sl], Dg[sl]).value
 
-            g0 = Y[0, sl, :]
-            if not np.all(np.isfinite(g0)):
-                g0 = dc_gain(A, Bg, C[sl], Dg[sl])
-            row = _pair_row(model, grp, sig, Dg[sl], g0, best.get(sig), unstable, h2_of, scale_ref, graph, reach_cache)
-            if row is not None:
-                rows.append(row)
+        def dc_of(sl, Bg=Bg, Dg=Dg):
+            return dc_gain(A, Bg, C[sl], Dg[sl])
+
+        rows += _group_rows(model, grp, sig_items, Dg, Y[0], best, unstable, h2_of, dc_of, scale_ref, reach_cache, graph,
+                            progress=_stage(progress, (gi + 0.8) * part, (gi + 1.0) * part))
     report(1.0)
     return _ranked(rows)
 
 
-def _pair_row(model, grp, sig, Dgs, g0, best, unstable, h2_of, scale_ref, graph, reach_cache) -> AuditRow | None:
-    """The audit row of one pair from its pieces (either route); None for a pair with no
-    structural path and zero gain. ``h2_of()`` gives the H2 norm of a stable strictly
-    proper path."""
-    bids, wids = path_between(model, grp, sig, graph, cache=reach_cache)
-    d_peak = float(np.linalg.norm(Dgs, 2)) if Dgs.size else 0.0
-    note = ""
-    if unstable:
-        peak, wpk, h2 = np.inf, np.nan, np.inf
-        note = "a mode with Re(p) >= 0 is reached by the source and seen at the signal"
+def _h2_from_gramian(C, scale, X, Dg, sig_items) -> dict[str, float]:
+    """H2 norms of the single-row signals without feedthrough, from the group's gramian
+    ``X`` (of the balanced coordinates): ``sqrt(c X c^T)`` with ``c`` the signal's row of
+    ``C`` scaled. One stacked product over the signals; each is the (1, n) by (n, n) and
+    (1, n) by (n, 1) product that one signal alone would form."""
+    rownz = np.any(Dg != 0, axis=1)
+    want = [(sig, sl.start) for sig, sl in sig_items if sl.stop - sl.start == 1 and not rownz[sl.start]]
+    if not want:
+        return {}
+    at = np.array([r for _sig, r in want], dtype=int)
+    Cs = C[at] * scale[None, :]
+    v = (Cs[:, None, :] @ X) @ Cs[:, :, None]
+    # + 0.0: the trace of a 1 x 1 matrix is 0.0 + its entry (a -0.0 entry gives 0.0)
+    return {sig: math.sqrt(max(float(x) + 0.0, 0.0)) for (sig, _r), x in zip(want, v[:, 0, 0])}
+
+
+def _stacked_norm2(M: np.ndarray) -> np.ndarray:
+    """``np.linalg.norm(M[k], 2)`` of each (1, m) matrix of the stack ``M`` (k, 1, m):
+    the same singular value decomposition per matrix, in one call."""
+    if M.shape[0] == 0:
+        return np.zeros(0)
+    return np.linalg.svd(M, compute_uv=False).max(axis=-1)
+
+
+def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, scale_ref, reach_cache, graph,
+                progress=None) -> list[AuditRow]:
+    """The audit rows of one input group (either route), from its pieces.
+
+    ``Dg`` (p, m) is the group's feedthrough, ``Y0`` (p, m) its response at w = 0,
+    ``best`` signal -> (peak, w) from the refinement, ``unstable`` one flag per signal,
+    ``h2_of(sig, rows)`` the H2 norm of a stable strictly proper path, ``dc_of(rows)`` the
+    DC gain where ``Y0`` is not finite. A pair with no structural path and zero gain gets
+    no row. Single-row signals (nearly all, on a big diagram) take their feedthrough and
+    DC norms from one stacked call per group; the rest one at a time.
+    """
+    index = reach_cache.get("paths")
+    if index is None:
+        index = reach_cache["paths"] = _PathIndex(model, graph)
+    m = Dg.shape[1]
+    single = np.array([sl.start for _sig, sl in sig_items if sl.stop - sl.start == 1], dtype=int)
+    rownz = np.any(Dg != 0, axis=1)
+    finite0 = np.all(np.isfinite(Y0), axis=1)
+    # feedthrough norm of every single-row signal (0 where the row is zero)
+    d_norm = np.zeros(Dg.shape[0])
+    nz = single[rownz[single]]
+    d_norm[nz] = _stacked_norm2(Dg[nz][:, None, :])
+    # DC gain: the signed value of a scalar path, else the norm of a single row
+    dc_single = np.zeros(Dg.shape[0])
+    if m == 1:
+        dc_single[single] = np.real(Y0[single, 0])
     else:
-        peak, wpk = best
-        # a sup reached only as w -> inf equals |D|; the refined grid then stops just
-        # short of it at some huge finite frequency, which would mislead
-        if d_peak >= peak * (1.0 - 1e-9):
-            peak, wpk = max(d_peak, peak), np.inf
-        if np.any(Dgs != 0):
-            h2 = np.inf
-            note = "direct feedthrough: H2 is infinite"
+        fin = single[finite0[single]]
+        dc_single[fin] = _stacked_norm2(Y0[fin][:, None, :])
+    rows: list[AuditRow] = []
+    d_norm_l, rownz_l, finite0_l, dc_single_l = d_norm.tolist(), rownz.tolist(), finite0.tolist(), dc_single.tolist()
+    isfinite, inf = math.isfinite, math.inf
+    for si, (sig, sl) in enumerate(sig_items):
+        if progress is not None and si % 256 == 0:
+            progress(si / len(sig_items))
+        one = sl.stop - sl.start == 1
+        if one:
+            r = sl.start
+            d_peak, has_d, g_finite, g_size = d_norm_l[r], rownz_l[r], finite0_l[r], m
         else:
-            h2 = h2_of()
-    scalar = g0.size == 1
-    if not np.all(np.isfinite(g0)):
-        # an integrator on the path: unbounded at DC; a scalar path keeps the sign it tends to
-        dc = float(np.sign(np.nan_to_num(np.real(g0).ravel()[0]))) * np.inf if scalar else np.inf
-        if scalar and dc == 0:
-            dc = np.inf
-    elif scalar:
-        dc = float(np.real(g0.ravel()[0]))  # a real system's DC gain is real
-    else:
-        dc = float(np.linalg.norm(g0, 2)) if g0.size else 0.0
-    if wpk == np.inf and np.isfinite(dc) and abs(abs(dc) - peak) <= 1e-9 * peak:
-        wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
-    if np.isfinite(dc) and np.isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
-        dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
-    if not bids and not unstable and peak <= 1e-13 * scale_ref:
-        return None
-    names_b = [model.diagram.blocks[b].name for b in bids]
-    names_w = [model.diagram.wires[w].name for w in wids]
-    return AuditRow(
-        grp, sig, peak, wpk, h2, dc, not unstable, names_b, names_w, bids, wids, note=note,
-        dc_gain_kind="signed value" if scalar else "largest singular value",
-    )
+            Dgs = Dg[sl]
+            d_peak = float(np.linalg.norm(Dgs, 2)) if Dgs.size else 0.0
+            has_d, g_finite, g_size = bool(np.any(Dgs != 0)), bool(np.all(finite0[sl])), Dgs.size
+        note = ""
+        if unstable[si]:
+            peak, wpk, h2 = inf, math.nan, inf
+            note = "a mode with Re(p) >= 0 is reached by the source and seen at the signal"
+        else:
+            peak, wpk = best[sig]
+            # a sup reached only as w -> inf equals |D|; the refined grid then stops just
+            # short of it at some huge finite frequency, which would mislead
+            if d_peak >= peak * (1.0 - 1e-9):
+                peak, wpk = max(d_peak, peak), inf
+            if has_d:
+                h2 = inf
+                note = "direct feedthrough: H2 is infinite"
+            else:
+                h2 = h2_of(sig, sl)
+        scalar = g_size == 1
+        if not g_finite:
+            g0 = dc_of(sl)
+            if not np.all(np.isfinite(g0)):
+                # an integrator on the path: unbounded at DC; a scalar path keeps the sign it tends to
+                dc = float(np.sign(np.nan_to_num(np.real(g0).ravel()[0]))) * inf if scalar else inf
+                if scalar and dc == 0:
+                    dc = inf
+            elif scalar:
+                dc = float(np.real(g0.ravel()[0]))  # a real system's DC gain is real
+            else:
+                dc = float(np.linalg.norm(g0, 2)) if g0.size else 0.0
+        elif one:
+            dc = dc_single_l[sl.start]
+        else:
+            g0 = Y0[sl]
+            dc = float(np.linalg.norm(g0, 2)) if g0.size else 0.0
+        if wpk == inf and isfinite(dc) and abs(abs(dc) - peak) <= 1e-9 * peak:
+            wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
+        if isfinite(dc) and isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
+            dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
+        bids, wids, names_b, names_w = index.path(grp, sig)
+        if not bids and not unstable[si] and peak <= 1e-13 * scale_ref:
+            continue
+        rows.append(AuditRow(
+            grp, sig, peak, wpk, h2, dc, not unstable[si], names_b, names_w, bids, wids, note=note,
+            dc_gain_kind="signed value" if scalar else "largest singular value",
+        ))
+    return rows
 
 
 class _BlockResponder:
-    """The responder interface of :func:`_refine_peaks` on the block-by-block route."""
+    """The responder interface of :func:`~loopwright.engine.audit_peaks.refine_peaks` on the block-by-block route."""
 
     def __init__(self, bw: BlockwiseModel, cols):
         self.bw, self.cols = bw, cols
@@ -532,7 +665,7 @@ def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, re
             return None
     grid = np.concatenate([[0.0], auto_frequency_grid(poles, points_per_decade=points_per_decade)])
     p = model.C.shape[0]
-    graph = model.diagram.graph()
+    graph = None  # the path index reads the diagram itself (networkx graphs are slow to build)
     reach_cache: dict = {}
     rows: list[AuditRow] = []
     # batches of input groups whose grid responses fit in memory together
@@ -562,17 +695,15 @@ def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, re
             Y = Y_all[:, :, at : at + w]
             at += w
             lo = base + 0.5 * span * (1.0 + j / len(batch))
-            best = _refine_peaks(_BlockResponder(bw, gcols), grid, Y, sig_items, refine_passes,
+            best = refine_peaks(_BlockResponder(bw, gcols), grid, Y, sig_items, refine_passes,
                                  progress=_stage(progress, lo, lo + 0.5 * span / len(batch)))
             if progress is not None:
                 progress(base + 0.5 * span * (1.0 + (j + 1) / len(batch)))
             finite_y = np.abs(Y[np.isfinite(Y)])
             scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
             Dg = D[:, gcols]
-            for sig, sl in sig_items:
-                row = _pair_row(model, grp, sig, Dg[sl], Y[0, sl, :], best[sig], False, lambda key=(grp, sig): h2[key], scale_ref, graph, reach_cache)
-                if row is not None:
-                    rows.append(row)
+            rows += _group_rows(model, grp, sig_items, Dg, Y[0], best, [False] * len(sig_items),
+                                lambda sig, _sl, grp=grp: h2[(grp, sig)], None, scale_ref, reach_cache, graph)
         done += len(batch)
     if progress is not None:
         progress(1.0)
@@ -580,7 +711,8 @@ def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, re
 
 
 def _ranked(rows: list[AuditRow]) -> list[AuditRow]:
-    rows.sort(key=lambda r: (r.stable, -r.peak_gain if np.isfinite(r.peak_gain) else -np.inf, -r.h2 if np.isfinite(r.h2) else -np.inf, r.source, r.signal))
+    isfinite, inf = math.isfinite, math.inf
+    rows.sort(key=lambda r: (r.stable, -r.peak_gain if isfinite(r.peak_gain) else -inf, -r.h2 if isfinite(r.h2) else -inf, r.source, r.signal))
     for i, r in enumerate(rows, 1):
         r.rank = i
     return rows

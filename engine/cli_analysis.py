@@ -8,6 +8,7 @@ which :func:`loopwright.engine.cli.main` turns into one line and exit status 2.
 from __future__ import annotations
 
 import argparse
+import math
 
 import numpy as np
 
@@ -511,6 +512,35 @@ def _sets(*what) -> str:
 # audit
 
 
+class _Joined:
+    """``" ".join(names)``, once per list: rows of the path audit share their path lists
+    (on a loop every row of a source lists the same ~n blocks), so the text is shared too."""
+
+    def __init__(self):
+        self._done: dict[int, tuple[list, str]] = {}
+
+    def __call__(self, names: list[str]) -> str:
+        hit = self._done.get(id(names))
+        if hit is None or hit[0] is not names:
+            hit = self._done[id(names)] = (names, " ".join(names))  # the list is kept, so its id stays its own
+        return hit[1]
+
+
+def _memo_fmt():
+    """:func:`fmt_num` remembering its answers; keyed by value and sign, so -0.0 keeps its "-0"."""
+    done: dict[tuple[float, float], str] = {}
+
+    def number(v) -> str:
+        v = float(v)
+        key = (v, math.copysign(1.0, v))
+        text = done.get(key)
+        if text is None:
+            text = done[key] = fmt_num(v)
+        return text
+
+    return number
+
+
 def _audit(args: argparse.Namespace) -> int:
     from loopwright.engine.audit import RANKING_RULE, path_audit
 
@@ -523,10 +553,11 @@ def _audit(args: argparse.Namespace) -> int:
     if args.json:
         print_json({"file": args.file, "ranking": RANKING_RULE, "units": {"peak_freq": "rad/s"}, "rows": [r.as_dict() for r in rows], "caution": CAUTION})
         return 0
+    joined = _Joined()
     if args.csv:
         write_csv(
             (
-                [r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.dc_gain_kind, r.stable, " ".join(r.blocks), " ".join(r.wires)]
+                [r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.dc_gain_kind, r.stable, joined(r.blocks), joined(r.wires)]
                 for r in rows
             ),
             ["rank", "source", "signal", "peak_gain", "peak_freq_rad_s", "h2", "dc_gain", "dc_gain_kind", "stable", "blocks", "wires"],
@@ -534,13 +565,14 @@ def _audit(args: argparse.Namespace) -> int:
         return 0
     shown = f"top {len(rows)} of {total} paths" if len(rows) < total else f"{total} paths"
     print(f"{args.file}: path audit ({shown}; {RANKING_RULE})")
+    number = _memo_fmt()  # a long chain repeats a few values thousands of times
     _table(
         ["#", "source", "signal", "peak gain", "at (rad/s)", "H2", "DC gain", "stable", "blocks on the path"],
         [
             [
-                str(r.rank), r.source, r.signal, fmt_num(r.peak_gain), fmt_num(r.peak_freq_rad_s), fmt_num(r.h2),
-                fmt_num(r.dc_gain) + ("*" if r.dc_gain_kind != "signed value" else ""),
-                "yes" if r.stable else "NO", " ".join(r.blocks),
+                str(r.rank), r.source, r.signal, number(r.peak_gain), number(r.peak_freq_rad_s), number(r.h2),
+                number(r.dc_gain) + ("*" if r.dc_gain_kind != "signed value" else ""),
+                "yes" if r.stable else "NO", joined(r.blocks),
             ]
             for r in rows
         ],
