@@ -282,7 +282,10 @@ def _static_feedback(model: AssembledModel, estimator: str, plant: str, g: nx.Mu
     starts = {t.block for t in xw.targets}
     ends = {uw.source.block}
     avoid = {est.id, pl.id}
-    static = lambda b: diagram.blocks[b].kind not in _DYNAMIC_KINDS  # noqa: E731
+
+    def static(b) -> bool:
+        return diagram.blocks[b].kind not in _DYNAMIC_KINDS
+
     # Searches through static blocks only, from the estimate forwards and from the plant
     # input backwards, each stopping at the dynamic blocks it meets (its frontier). When
     # either frontier is empty, every block on a path between them is static and the
@@ -312,11 +315,10 @@ def _static_reach(neighbours, seeds: set, avoid: set, static) -> tuple[set, set]
             continue
         if not static(b):
             frontier.add(b)
-            if b not in seeds:
-                continue
-        reached.add(b)
-        if b in frontier:  # a dynamic seed: on a path itself, but the search stops there
+            if b in seeds:  # on a path itself, but the search stops there
+                reached.add(b)
             continue
+        reached.add(b)
         todo.extend(n for n in neighbours(b) if n not in avoid and n not in reached)
     return reached, frontier
 

@@ -23,11 +23,9 @@ from dataclasses import dataclass, field
 from PySide6.QtCore import QObject, QTimer, Signal
 
 from loopwright.engine.diagram import Diagram
-from loopwright.engine.blas_threads import limit_blas_threads  # noqa: F401  (the window calls it: two workers share two cores)
 from loopwright.engine.errors import EngineError
 
-__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs", "JobStopped", "TaskResult", "Tasks",
-           "limit_blas_threads"]
+__all__ = ["LiveResult", "LiveModel", "compute_live_result", "ViewResult", "ViewJobs", "JobStopped", "TaskResult", "Tasks"]
 
 
 @dataclass(frozen=True)

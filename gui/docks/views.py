@@ -54,7 +54,7 @@ class ViewsController(QObject):
 
     def __init__(self, document, *, debounce_ms: int = 150, parent=None):
         super().__init__(parent)
-        from loopwright.gui.workers import limit_blas_threads
+        from loopwright.engine.blas_threads import limit_blas_threads
 
         limit_blas_threads(1)  # the live check and the views compute at once on two cores
         # The window's drawing calls back into Python for every plot item it paints, and
