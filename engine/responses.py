@@ -59,7 +59,7 @@ _BLOCK = 48
 _MAX_ENTRIES = 4_000_000
 #: Relative accuracy asked of each response entry, and the most refinement steps spent on it.
 _REFINE_RTOL = 1e-12
-_REFINE_STEPS = 3
+_REFINE_STEPS = 8
 _EPS = np.finfo(float).eps
 # An automatic frequency grid ends within 1e-30 .. 1e30 rad/s (decade exponents) and has at
 # most this many log-spaced points (60 per decade over 40 decades is 2400; the cap only
@@ -303,7 +303,7 @@ def reduced_response(
     B, C : ndarray, optional
         The original ``B`` (n, m) and ``C`` (p, n). When given, frequencies whose
         estimated relative error exceeds ``rtol`` get steps of iterative refinement with
-        the residual taken in the original coordinates (up to three, while they still
+        the residual taken in the original coordinates (up to eight, while they still
         change the result by more than ``rtol``), which restores the relative accuracy
         of each entry there. Two causes are estimated: cancellation in ``C x`` after the
         unitary change of coordinates (long chains far from their peak: the result much
