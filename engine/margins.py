@@ -620,11 +620,13 @@ def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
         pms, delays = np.zeros(0), np.zeros(0)
         pm, pm_w, dm = np.inf, np.nan, np.inf
     crit: list[tuple[float, float]] = []
-    # A value of L at the rounding level of its largest is no crossing: its sign is noise
-    # (an L(0) of exactly 0 came out as -7e-18 on one route, a "gain margin" of 1e17 at DC).
-    # Critical gains beyond 1e12 times the loop's own size are counted as none.
+    # A value of L near the rounding level of its largest is no crossing: its sign is noise
+    # (an L(0) of exactly 0 came out as -7e-18 on one route, a "gain margin" of 1e17 at DC;
+    # behind a plant pole at -1e-5 it came out as -4e-12 with |L| up to 2.5: the rounding of
+    # C x with x of size 2e5). Critical gains beyond 1e10 times the loop's own size (200 dB)
+    # are counted as none: no loop is designed on such a margin.
     finite = np.abs(L[np.isfinite(L)])
-    floor = 1e-12 * float(finite.max()) if finite.size else 0.0
+    floor = 1e-10 * float(finite.max()) if finite.size else 0.0
     for w, val in zip(wx, L_wx):
         if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val) and abs(val) > floor:
             crit.append((-1.0 / val.real, float(w)))

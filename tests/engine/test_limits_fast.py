@@ -354,3 +354,27 @@ def test_a_loop_value_at_rounding_level_is_no_phase_crossing():
     w180 = 1.0 + np.sqrt(2.0)
     assert [w for _g, w in crit] == pytest.approx([w180], rel=1e-9)
     assert crit[0][0] == pytest.approx((1.0 + w180**2) ** 2 / (3.0 * w180), rel=1e-9)
+
+
+def test_a_zero_at_dc_behind_a_slow_plant_pole_is_no_crossing_on_either_route():
+    # found by hypothesis: a washout s/(s + 0.8125) ahead of a plant with a pole at -1e-5
+    # (demo numbers): L(0) = 0 exactly, but the whole-model route computes it as C x with x of
+    # size 2e5 and got -4e-12 (|L| reaches 2.5): a "gain margin" of 2.4e11 at DC there, none
+    # on the part-by-part route. Closed form: L(s) = 2 s (s + 1) / ((s + 0.8125)(s^2 + s + 1e-5))
+    # is real and negative nowhere on the axis, so both routes report no gain margin.
+    from loopwright.engine.diagram import Diagram
+
+    d = Diagram()
+    d.add_block("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0}})
+    d.add_block("sum", "e", {"signs": ["+", "-"], "width": 1})
+    d.add_block("dynamic", "Ctl", {"num": [1.0, 0.0], "den": [1.0, 0.8125]})
+    d.add_block("plant", "P", {"A": [[-1.0, 0.0, -1e-05], [0.0, -1.0, 0.0], [1.0, 0.0, 0.0]], "B": [[0.0], [0.0], [1.0]],
+                               "C": [[0.0, 0.0, 2.0]], "D": [[0.0]]})
+    d.connect("r.out", "e.in1")
+    d.connect("e.out", "Ctl.u")
+    d.connect("Ctl.y", "P.u")
+    d.connect("P.y", "e.in2")
+    for route in ("whole model", "loop evaluator"):
+        m = margins_at(d, "P.u", **({"route": route} if route == "whole model" else {}))
+        assert m.closed_loop_stable, route
+        assert m.gain_upper == np.inf and m.phase_crossovers_w_rad_s == [], route
