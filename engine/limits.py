@@ -167,8 +167,10 @@ def performance_limits(A, B, C, D=None, *, closed_loop_stable: bool = True, gain
     response : callable, optional
         ``response(w) -> L(jw)`` at an array of frequencies (rad/s), e.g. a
         :class:`~loopwright.engine.loop_response.LoopResponse` of the same loop in another
-        realisation (a cascade evaluates ``L`` part by part); by default one is made from
-        the minimal realisation.
+        realisation; by default one of ``(A, B, C, D)`` as given, not of its minimal
+        realisation: a cascade evaluates ``L`` part by part with componentwise refinement,
+        while a minimal realisation mixes the parts into one Schur form, which beside a
+        double integrator loses digits that the Bode integral's low-frequency end needs.
 
     Returns
     -------
@@ -182,6 +184,10 @@ def performance_limits(A, B, C, D=None, *, closed_loop_stable: bool = True, gain
         realization, minimal = (A, B, C, D), False
     else:
         realization, minimal, poles = minimal_realization(A, B, C, D), True, None
+    if response is None:
+        from loopwright.engine.loop_response import LoopResponse
+
+        response = LoopResponse(A, B, C, D)
     try:
         zeros = transmission_zeros(*realization, minimal=minimal) if realization[0].shape[0] else np.zeros(0, complex)
     except (np.linalg.LinAlgError, ValueError):

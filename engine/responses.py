@@ -57,6 +57,10 @@ DIVERGENCE_LIMIT = 1e100
 _BLOCK = 48
 # Bound on the complex entries (n x columns) held at once while solving.
 _MAX_ENTRIES = 4_000_000
+#: Relative accuracy asked of each response entry, and the most refinement steps spent on it.
+_REFINE_RTOL = 1e-12
+_REFINE_STEPS = 3
+_EPS = np.finfo(float).eps
 # An automatic frequency grid ends within 1e-30 .. 1e30 rad/s (decade exponents) and has at
 # most this many log-spaced points (60 per decade over 40 decades is 2400; the cap only
 # thins a grid stretched by a badly scaled model).
@@ -281,7 +285,8 @@ def _shifted_solve(T: np.ndarray, s: np.ndarray, R: np.ndarray) -> np.ndarray:
 
 
 def reduced_response(
-    reduced: ReducedModel, Bt: np.ndarray, Ct: np.ndarray, D: np.ndarray, s, *, B=None, C=None
+    reduced: ReducedModel, Bt: np.ndarray, Ct: np.ndarray, D: np.ndarray, s, *, B=None, C=None,
+    rtol: float = _REFINE_RTOL,
 ) -> np.ndarray:
     """Evaluate ``G(s) = Ct (s I - T)^-1 Bt + D`` at complex points ``s``.
 
@@ -296,11 +301,18 @@ def reduced_response(
     s : (k,) array_like of complex
         Points of the complex plane, usually ``1j * w_rad_s``.
     B, C : ndarray, optional
-        The original ``B`` (n, m) and ``C`` (p, n). When given, frequencies whose result
-        is much smaller than ``||C|| ||x||`` (cancellation after the unitary change of
-        coordinates: long chains far from their peak) get one step of iterative
-        refinement with the residual taken in the original coordinates, which restores
-        the relative accuracy of each entry there.
+        The original ``B`` (n, m) and ``C`` (p, n). When given, frequencies whose
+        estimated relative error exceeds ``rtol`` get steps of iterative refinement with
+        the residual taken in the original coordinates (up to three, while they still
+        change the result by more than ``rtol``), which restores the relative accuracy
+        of each entry there. Two causes are estimated: cancellation in ``C x`` after the
+        unitary change of coordinates (long chains far from their peak: the result much
+        smaller than ``||C|| ||x||``), and the Schur form's own backward error, about
+        ``eps ||A||``, magnified by ``||(sI - A)^-1||`` (at least ``||x|| / ||b||``) near
+        lightly damped poles of a stiff model (a flexible structure with modes over many
+        decades: ``||A||`` is the square of its highest mode's frequency).
+    rtol : float
+        Relative accuracy asked of each entry (default ``1e-12``); a plot needs far less.
 
     Returns
     -------
@@ -320,31 +332,63 @@ def reduced_response(
         Bb = np.asarray(B, dtype=float).reshape(n, m) / reduced.scale[:, None]
         Cb = np.asarray(C, dtype=float).reshape(p, n) * reduced.scale[None, :]
         c_norm = np.linalg.norm(Cb, 2)
+        b_norm = np.linalg.norm(Bb, 2)
+        a_norm = np.linalg.norm(reduced.A_bal, 1)
     chunk = max(1, _MAX_ENTRIES // max(1, n * m))
     for a in range(0, s.size, chunk):
         sc = s[a : a + chunk]
         X = _shifted_solve(reduced.T, sc, Bt)  # (n, kc, m)
-        with np.errstate(invalid="ignore", over="ignore"):
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
             Y = np.einsum("pn,nkm->kpm", Ct, X, optimize=True)
-            if refine:
-                # rounding in the unitary coordinates is about eps ||C|| ||x||; where that is
-                # not small against |y|, refine (threshold: a pessimistic 1e-13 |y|, as the
-                # triangular solve itself may add a growth factor)
+            if refine and b_norm > 0:
                 x_norm = np.sqrt(np.sum(np.abs(X) ** 2, axis=(0, 2)))  # (kc,)
                 y_abs = np.min(np.abs(Y).reshape(Y.shape[0], -1), axis=1)
-                need = np.nonzero(np.isfinite(x_norm) & (2.2e-16 * c_norm * x_norm > 1e-13 * y_abs))[0]
+                # first-order error estimate (common practice, no source: backward error
+                # times condition): eps ||C|| ||x|| (1 + ||A|| ||x|| / ||b||) against |y|
+                estimate = _EPS * c_norm * x_norm * (1.0 + a_norm * x_norm / b_norm)
+                need = np.nonzero(np.isfinite(x_norm) & (estimate > rtol * y_abs))[0]
                 if need.size:
-                    sn = sc[need]
-                    kn = need.size
-                    xb = (reduced.Z @ X[:, need, :].reshape(n, kn * m)).reshape(n, kn, m)
-                    ax = (reduced.A_bal @ xb.reshape(n, kn * m)).reshape(n, kn, m)
-                    resid = Bb[:, None, :] - (xb * sn[None, :, None] - ax)
-                    rt = (reduced.Z.conj().T @ resid.reshape(n, kn * m)).reshape(n, kn, m)
-                    corr = _shifted_solve(reduced.T, sn, rt)
-                    xb += (reduced.Z @ corr.reshape(n, kn * m)).reshape(n, kn, m)
-                    Y[need] = np.moveaxis((Cb @ xb.reshape(n, kn * m)).reshape(p, kn, m), 1, 0)
+                    Y[need] = _refined_outputs(reduced, X[:, need, :], sc[need], Bb, Cb, rtol)
             out[a : a + chunk] += Y
     return out
+
+
+def _refined_outputs(reduced: ReducedModel, X: np.ndarray, s: np.ndarray, Bb: np.ndarray, Cb: np.ndarray,
+                     rtol: float) -> np.ndarray:
+    """``Cb x`` after iterative refinement of ``x = (sI - A)^-1 Bb`` from the reduced-coordinate
+    solution ``X`` (n, k, m), the residual taken with the original ``A`` (balanced); shape (k, p, m).
+
+    Each step solves for the correction with the Schur form again; a frequency leaves the loop
+    once a step changes its outputs by no more than ``rtol`` of their size, or when a step
+    does not at least halve the previous correction: then the residual itself is rounding
+    (``s x`` and ``A x`` cancel, e.g. just beside a pole at the origin) and that step is
+    undone, as further steps would only wander (common practice, no source)."""
+    n, k, m = X.shape
+    p = Cb.shape[0]
+    Z = reduced.Z
+    xb = (Z @ X.reshape(n, k * m)).reshape(n, k, m)
+    Y = np.moveaxis((Cb @ xb.reshape(n, k * m)).reshape(p, k, m), 1, 0)
+    live = np.arange(k)
+    last = np.full(k, np.inf)  # the size of each frequency's previous correction
+    for _ in range(_REFINE_STEPS):
+        xs, ss = xb[:, live, :], s[live]
+        kl = live.size
+        ax = (reduced.A_bal @ xs.reshape(n, kl * m)).reshape(n, kl, m)
+        resid = Bb[:, None, :] - (xs * ss[None, :, None] - ax)
+        rt = (Z.conj().T @ resid.reshape(n, kl * m)).reshape(n, kl, m)
+        corr = (Z @ _shifted_solve(reduced.T, ss, rt).reshape(n, kl * m)).reshape(n, kl, m)
+        dy = np.moveaxis((Cb @ corr.reshape(n, kl * m)).reshape(p, kl, m), 1, 0)
+        step = np.sqrt(np.sum(np.abs(corr) ** 2, axis=(0, 2)))
+        take = np.isfinite(step) & (step <= 0.5 * last[live])
+        xb[:, live[take], :] += corr[:, take, :]
+        Y[live[take]] += dy[take]
+        last[live] = step
+        size = np.abs(Y[live]).reshape(kl, -1)
+        change = np.abs(dy).reshape(kl, -1)
+        live = live[take & np.any(change > rtol * size, axis=1)]
+        if live.size == 0:
+            break
+    return Y
 
 
 def frequency_response(A, B, C, D, w_rad_s, *, reduced: ReducedModel | None = None) -> np.ndarray:
