@@ -16,7 +16,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QAction, QColor
-from PySide6.QtWidgets import QSplitter, QFileDialog, QHBoxLayout, QLabel, QMenu, QProgressBar, QPushButton, QSizePolicy, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QSplitter, QFileDialog, QGraphicsItem, QGraphicsView, QHBoxLayout, QLabel, QMenu, QProgressBar, QPushButton, QSizePolicy, QVBoxLayout, QWidget
 
 from loopwright.engine.svg_plot import PAIR_COLOURS
 
@@ -202,9 +202,18 @@ class PlotPanel(QWidget):
             gen.setViewBox(QRect(0, 0, widget.width(), widget.height()))
             gen.setTitle(f"Loopwright {self.title}")
             gen.setDescription(CAUTION)
-            painter = QPainter(gen)
-            QWidget.render(widget, painter, QPoint(0, 0))  # the widget overload, also for a QGraphicsView
-            painter.end()
+            # cached items would paint their pixmaps; uncached they paint vectors and real text
+            cached = [(it, it.cacheMode()) for view in [widget, *widget.findChildren(QGraphicsView)] if isinstance(view, QGraphicsView)
+                      for it in view.scene().items() if it.cacheMode() != QGraphicsItem.CacheMode.NoCache]
+            for it, _mode in cached:
+                it.setCacheMode(QGraphicsItem.CacheMode.NoCache)
+            try:
+                painter = QPainter(gen)
+                QWidget.render(widget, painter, QPoint(0, 0))  # the widget overload, also for a QGraphicsView
+                painter.end()
+            finally:
+                for it, mode in cached:
+                    it.setCacheMode(mode)
         else:
             from pyqtgraph.exporters import ImageExporter
 
@@ -267,6 +276,10 @@ def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, 
         ax.enableAutoSIPrefix(False)  # a "(x0.001)" beside a unit is easy to miss
         ax.setPen(pg.mkPen("#5b6573"))
         ax.setTextPen(pg.mkPen("#1f2933"))
+        # an axis (with its grid lines and tick labels) is drawn again wherever a curve over
+        # it changes; kept as a picture of its own, that is a copy until its ticks change
+        # (save_picture draws it as vectors and text again for SVG)
+        ax.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
     return p
 
 
