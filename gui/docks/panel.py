@@ -115,6 +115,7 @@ class PlotPanel(QWidget):
         self.stop_button.clicked.connect(self.stop_requested.emit)
         row.addWidget(self.stop_button)
         self.waiting.setVisible(False)
+        self._fraction: float | None = None  # the running job's last reported fraction done
         self._layout.addWidget(self.waiting)
         self.setContextMenuPolicy(Qt.ContextMenuPolicy.DefaultContextMenu)
         self.save_picture_action = QAction("Save picture (PNG or SVG)…", self)
@@ -148,13 +149,27 @@ class PlotPanel(QWidget):
 
     def set_waiting(self, on: bool) -> None:
         """Show (after half a second of waiting) or hide the busy line with its Stop button."""
+        if on and self._fraction is not None:
+            self._show_fraction()
         if not on:
-            self.progress.setRange(0, 0)
-            self.waiting_label.setText("computing…")
-        self.waiting.setVisible(on)
+            self._fraction = None
+            if self.progress.maximum() != 0:
+                self.progress.setRange(0, 0)
+            if self.waiting_label.text() != "computing…":
+                self.waiting_label.setText("computing…")
+        if self.waiting.isHidden() == on:
+            self.waiting.setVisible(on)
 
     def set_progress(self, fraction: float) -> None:
         """Show the fraction done of the running computation (0 to 1)."""
+        self._fraction = fraction
+        # while the busy line is hidden (a quick answer) only remember it: a label's new text
+        # lays the panel out again, several times per answer
+        if not self.waiting.isHidden():
+            self._show_fraction()
+
+    def _show_fraction(self) -> None:
+        fraction = self._fraction
         self.progress.setRange(0, 1000)
         self.progress.setValue(int(round(1000 * min(max(fraction, 0.0), 1.0))))
         self.waiting_label.setText(f"computing… {100 * fraction:.0f} %")
@@ -330,10 +345,12 @@ def fit_range(plot: pg.PlotItem, *, x=None, y=None, padding: float | None = None
         if covered and abs(c_lo - lo) <= tol and abs(c_hi - hi) <= tol:
             continue
         want["xRange" if axis == 0 else "yRange"] = (lo, hi)
-    if not want:
-        return False
-    vb.setRange(padding=0, disableAutoRange=True, **want)
-    return True
+    if want:
+        vb.setRange(padding=0, disableAutoRange=True, **want)
+    # pyqtgraph moves the curves to a new range only when it paints, which makes the items it
+    # moves ask for a second paint; moved now (this or a linked plot's range), one paint draws all
+    vb.updateMatrix()
+    return bool(want)
 
 
 def new_layout_widget() -> pg.GraphicsLayoutWidget:

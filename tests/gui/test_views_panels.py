@@ -344,6 +344,25 @@ def test_the_audit_panel_reports_progress_to_the_end(window, wait_views):
     panel.set_waiting(False)
 
 
+def test_progress_of_a_quick_answer_leaves_the_hidden_busy_line_alone(window, wait_views):
+    # an answer within half a second reports its progress with the busy line hidden: the
+    # panel only remembers it (a label's new text would lay the panel out again, for each
+    # report), and shows the last fraction once the line does show
+    path = next(p for p in SAMPLES if p.stem == "two_zone_oven")
+    _open_with_pairs(window, path, [])
+    panel = _show(window, "audit", wait_views)
+    assert panel.waiting.isHidden()
+    texts = []
+    panel.waiting_label.setText = lambda text, _real=panel.waiting_label.setText: (texts.append(text), _real(text))[1]
+    for k in range(1, 10):
+        panel.set_progress(k / 10)
+    assert texts == [] and panel.progress_text() == "computing…"
+    panel.set_waiting(True)
+    assert panel.progress_text() == "computing… 90 %" and panel.progress.value() == 900
+    panel.set_waiting(False)
+    assert panel.progress_text() == "computing…" and panel.waiting.isHidden()
+
+
 def test_time_view_shows_the_step_metrics_of_each_pair_in_its_colour(window, wait_views):
     # the metrics beside the plot are the engine's (engine/step_metrics.py on the engine's
     # run); python-control 0.10 step_info on the same path agrees on the overshoot
