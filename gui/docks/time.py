@@ -190,7 +190,9 @@ class TimePanel(PlotPanel):
                     label = f"{name} ← {input_label(pair[0])}" if pair in self.pairs and self.run_kind() in ("step", "impulse") else name
                     self.curves[key] = self.plot.plot(autoDownsampleFactor=_SAMPLES_PER_PIXEL)
                     self.legend.addItem(self.curves[key], label)
-                self.curves[key].setPen(pen_for(colour, c if pair in self.pairs else c + 1))
+                pen = pen_for(colour, c if pair in self.pairs else c + 1)
+                if self.curves[key].opts["pen"] != pen:  # a new pen, even an equal one, processes the data again
+                    self.curves[key].setPen(pen)
                 self.curves[key].setData(run.t, run.y[:, c])
             if run.diverged:
                 errors.append(f"{pair[1]}: {run.message}")

@@ -165,6 +165,40 @@ def test_each_plot_is_ranged_once_per_update_and_its_range_covers_the_data(windo
     assert counts["magnitude"][-1] == 0 and counts["phase"][-1] == 0
 
 
+
+def test_each_curve_processes_its_new_data_once_per_update(window, qtbot, monkeypatch):
+    # a curve given a new pen processes its data again, even when the pen equals the old
+    # one: the frequency and time views set a pen only when it changes, then the data once
+    # (a time curve thins its data again when the plot's time span moves)
+    _open(window, [("r", "y"), ("dl", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    freq, time_ = window.panels["frequency"], window.panels["time"]
+    updated = []
+    real = pg.PlotDataItem.updateItems
+    monkeypatch.setattr(pg.PlotDataItem, "updateItems", lambda item, *a, **k: (updated.append(item), real(item, *a, **k))[1])
+    per_update = {"frequency": [], "time": []}
+    for panel in (freq, time_):
+        real_show = panel.show_value
+
+        def show(value, _real=real_show, _key=panel.key):
+            updated.clear()
+            _real(value)
+            per_update[_key].append(max(updated.count(item) for item in set(updated)) if updated else 0)
+
+        monkeypatch.setattr(panel, "show_value", show)
+    for k in range(2):
+        _edit_gain(window.document, 1.2 + 0.2 * k)
+        qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    assert per_update["frequency"] and per_update["time"]
+    assert max(per_update["frequency"]) == 1 and max(per_update["time"]) <= 2, per_update
+    # and the curves keep their pair's colour
+    from loopwright.gui.docks.panel import pair_colour
+
+    for (pair, _i, _j), (cm, cp) in freq.curves.items():
+        assert cm.opts["pen"].color() == pair_colour(freq.pairs.index(pair)) == cp.opts["pen"].color()
+    for (pair, _name), item in time_.curves.items():
+        assert item.opts["pen"].color() == pair_colour(time_.pairs.index(pair))
+
 def test_an_undoable_edit_and_its_undo_start_the_views_before_the_event_loop_turns(window, qtbot):
     # the command has made all its changes when push() returns: the work starts there and
     # then, not after the repaint the event loop does before a 0 ms timer
