@@ -53,7 +53,7 @@ from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
 from loopwright.engine.errors import EngineError
 from loopwright.engine.coupled_poles import closed_loop_poles, h2_by_residues, residue_factors
 from loopwright.engine.eigen import axis_tolerance, matrix_scale
-from loopwright.engine.norms import dc_gain, h2_norm, lyapunov_from_schur
+from loopwright.engine.norms import dc_gain, h2_norm, refined_lyapunov
 from loopwright.engine.responses import ReducedModel, auto_frequency_grid, reduce_model
 
 __all__ = ["AuditRow", "AuditCancelled", "path_audit", "path_between", "RANKING_RULE"]
@@ -430,7 +430,7 @@ def path_audit(
         if model_stable and n:
             S = red.scale
             Bw = Bg / S[:, None]
-            X = lyapunov_from_schur(red.T_real, red.Z_real, Bw @ Bw.T)
+            X = refined_lyapunov(red, Bw @ Bw.T)
         best = refine_peaks(responder, grid, Y, sig_items, refine_passes if n else 0, progress=_stage(progress, (gi + 0.5) * part, (gi + 0.8) * part))
         report((gi + 0.8) * part)
         finite_y = np.abs(Y[np.isfinite(Y)])
