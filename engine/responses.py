@@ -12,7 +12,10 @@ on large models.
 
 Time responses use exact discretisation on a uniform grid: zero-order hold for
 piecewise-constant inputs, first-order hold for ramps and sines, both from one augmented
-matrix exponential. Runs that diverge stop early and say so (``diverged``/``message``).
+matrix exponential. A run whose input is held at one value throughout (a step, an impulse,
+a free response) is a power sequence of the step's matrix: on small models its states come
+from ``log2 N`` squarings and products instead of ``N`` single steps, whose interpreter
+overhead is the cost there. Runs that diverge stop early and say so (``diverged``/``message``).
 
 Caveat: the time grid must be uniform; the impulse response omits the ``D delta(t)`` term.
 """
