@@ -257,9 +257,10 @@ def pair_frequency_response(
         w = np.logspace(np.log10(lo), np.log10(hi), points)
         G = evaluate(w)
     elif drawing:
-        # a plot shows no more than this: fewer points per resonance, fewer peaks refined
+        # a plot shows no more than this: fewer points per resonance, fewer peaks refined,
+        # in one pass (each pass is a call, and a call's overhead, not its points, is the cost)
         w = drawing_frequency_grid(evaluate.poles, w_min=w_min, w_max=w_max)
-        w, G = _refine_at_main_peaks(evaluate, w, evaluate(w), points=5, most=12)
+        w, G = _refine_at_main_peaks(evaluate, w, evaluate(w), passes=_DRAWING_PASSES, points=_DRAWING_PEAK_POINTS, most=12)
     else:
         w = auto_frequency_grid(evaluate.poles, w_min=w_min, w_max=w_max)
         w, G = _refine_at_main_peaks(evaluate, w, evaluate(w))
@@ -323,6 +324,14 @@ def _refine_at_main_peaks(evaluate, w: np.ndarray, G: np.ndarray, *, passes: int
     return w, G
 
 
+#: Refinement of a drawn response's highest peaks: one pass of 15 points between the
+#: neighbours of each. The drawing grid already has a point at each lightly damped pole's
+#: damped frequency and half a half-width either side, so one pass puts the marked peak
+#: within 1e-5 dB of the command line's four passes on the samples and generated loops
+#: (the half-width shrunk 16-fold), at two calls of the evaluator per pair instead of five.
+_DRAWING_PASSES = 1
+_DRAWING_PEAK_POINTS = 15
+
 #: Points across each lightly damped resonance on the drawing grid, in half-widths from its peak.
 _DRAWING_OFFSETS = np.array([-4.0, -2.0, -1.0, -0.5, 0.0, 0.5, 1.0, 2.0, 4.0])
 
@@ -343,10 +352,12 @@ def drawing_frequency_grid(poles, *, w_min: float | None = None, w_max: float | 
     """
     from loopwright.engine.responses import auto_frequency_grid
 
-    span = auto_frequency_grid(poles, w_min=w_min, w_max=w_max, points_per_decade=4, decades_beyond=decades_beyond)
+    roots = np.asarray(poles, dtype=complex).ravel()
+    # the span depends on the poles' magnitudes only: real poles of the same magnitudes give
+    # it without the points the automatic grid would lay on every resonance first
+    span = auto_frequency_grid(-np.abs(roots), w_min=w_min, w_max=w_max, points_per_decade=4, decades_beyond=decades_beyond)
     lo, hi = float(span[0]), float(span[-1])
     parts = [np.logspace(np.log10(lo), np.log10(hi), max(10, int(np.ceil(np.log10(hi / lo) * points_per_decade)) + 1))]
-    roots = np.asarray(poles, dtype=complex)
     roots = roots[np.isfinite(roots) & (roots.imag >= 0)]
     wn = np.abs(roots)
     keep = (wn > 0) & (wn >= lo) & (wn <= hi)

@@ -125,14 +125,17 @@ class FrequencyPanel(PlotPanel):
                             self.legend.addItem(cm, self._label(pair, resp))
                     cm, cp = self.curves[key]
                     pen = pen_for(shade_of(colour, i * m + j, p * m), 0, width=2.4 if pair not in self.pairs else 2.0)
-                    cm.setPen(pen)
-                    cp.setPen(pen)
+                    if cm.opts["pen"] != pen:  # a new pen, even an equal one, processes the curve's data again
+                        cm.setPen(pen)
+                        cp.setPen(pen)
                     w_pk, db_pk = resp.peak(i, j)
                     if db_pk > best[0]:
                         best = (db_pk, w_pk)
             if pair not in self.peaks:
                 self.peaks[pair] = self.mag.plot(pen=None, symbol="t", symbolSize=12, symbolPen=pg.mkPen("#1f2933"))
-            self.peaks[pair].setSymbolBrush(pg.mkBrush(colour))
+            brush = pg.mkBrush(colour)
+            if self.peaks[pair].opts["symbolBrush"] != brush:
+                self.peaks[pair].setSymbolBrush(brush)
             self.peaks[pair].setToolTip(f"peak {best[0]:.4g} dB at {best[1]:.4g} rad/s")
         for key in [k for k in self.curves if k not in wanted]:
             cm, cp = self.curves.pop(key)

@@ -16,7 +16,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QAction, QColor
-from PySide6.QtWidgets import QSplitter, QFileDialog, QHBoxLayout, QLabel, QMenu, QProgressBar, QPushButton, QSizePolicy, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QSplitter, QFileDialog, QGraphicsItem, QGraphicsView, QHBoxLayout, QLabel, QMenu, QProgressBar, QPushButton, QSizePolicy, QVBoxLayout, QWidget
 
 from loopwright.engine.svg_plot import PAIR_COLOURS
 
@@ -115,6 +115,7 @@ class PlotPanel(QWidget):
         self.stop_button.clicked.connect(self.stop_requested.emit)
         row.addWidget(self.stop_button)
         self.waiting.setVisible(False)
+        self._fraction: float | None = None  # the running job's last reported fraction done
         self._layout.addWidget(self.waiting)
         self.setContextMenuPolicy(Qt.ContextMenuPolicy.DefaultContextMenu)
         self.save_picture_action = QAction("Save picture (PNG or SVG)…", self)
@@ -148,13 +149,27 @@ class PlotPanel(QWidget):
 
     def set_waiting(self, on: bool) -> None:
         """Show (after half a second of waiting) or hide the busy line with its Stop button."""
+        if on and self._fraction is not None:
+            self._show_fraction()
         if not on:
-            self.progress.setRange(0, 0)
-            self.waiting_label.setText("computing…")
-        self.waiting.setVisible(on)
+            self._fraction = None
+            if self.progress.maximum() != 0:
+                self.progress.setRange(0, 0)
+            if self.waiting_label.text() != "computing…":
+                self.waiting_label.setText("computing…")
+        if self.waiting.isHidden() == on:
+            self.waiting.setVisible(on)
 
     def set_progress(self, fraction: float) -> None:
         """Show the fraction done of the running computation (0 to 1)."""
+        self._fraction = fraction
+        # while the busy line is hidden (a quick answer) only remember it: a label's new text
+        # lays the panel out again, several times per answer
+        if not self.waiting.isHidden():
+            self._show_fraction()
+
+    def _show_fraction(self) -> None:
+        fraction = self._fraction
         self.progress.setRange(0, 1000)
         self.progress.setValue(int(round(1000 * min(max(fraction, 0.0), 1.0))))
         self.waiting_label.setText(f"computing… {100 * fraction:.0f} %")
@@ -202,9 +217,18 @@ class PlotPanel(QWidget):
             gen.setViewBox(QRect(0, 0, widget.width(), widget.height()))
             gen.setTitle(f"Loopwright {self.title}")
             gen.setDescription(CAUTION)
-            painter = QPainter(gen)
-            QWidget.render(widget, painter, QPoint(0, 0))  # the widget overload, also for a QGraphicsView
-            painter.end()
+            # cached items would paint their pixmaps; uncached they paint vectors and real text
+            cached = [(it, it.cacheMode()) for view in [widget, *widget.findChildren(QGraphicsView)] if isinstance(view, QGraphicsView)
+                      for it in view.scene().items() if it.cacheMode() != QGraphicsItem.CacheMode.NoCache]
+            for it, _mode in cached:
+                it.setCacheMode(QGraphicsItem.CacheMode.NoCache)
+            try:
+                painter = QPainter(gen)
+                QWidget.render(widget, painter, QPoint(0, 0))  # the widget overload, also for a QGraphicsView
+                painter.end()
+            finally:
+                for it, mode in cached:
+                    it.setCacheMode(mode)
         else:
             from pyqtgraph.exporters import ImageExporter
 
@@ -267,6 +291,10 @@ def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, 
         ax.enableAutoSIPrefix(False)  # a "(x0.001)" beside a unit is easy to miss
         ax.setPen(pg.mkPen("#5b6573"))
         ax.setTextPen(pg.mkPen("#1f2933"))
+        # an axis (with its grid lines and tick labels) is drawn again wherever a curve over
+        # it changes; kept as a picture of its own, that is a copy until its ticks change
+        # (save_picture draws it as vectors and text again for SVG)
+        ax.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
     return p
 
 
@@ -317,10 +345,12 @@ def fit_range(plot: pg.PlotItem, *, x=None, y=None, padding: float | None = None
         if covered and abs(c_lo - lo) <= tol and abs(c_hi - hi) <= tol:
             continue
         want["xRange" if axis == 0 else "yRange"] = (lo, hi)
-    if not want:
-        return False
-    vb.setRange(padding=0, disableAutoRange=True, **want)
-    return True
+    if want:
+        vb.setRange(padding=0, disableAutoRange=True, **want)
+    # pyqtgraph moves the curves to a new range only when it paints, which makes the items it
+    # moves ask for a second paint; moved now (this or a linked plot's range), one paint draws all
+    vb.updateMatrix()
+    return bool(want)
 
 
 def new_layout_widget() -> pg.GraphicsLayoutWidget:

@@ -22,6 +22,9 @@ __all__ = ["TimePanel", "RUN_LABELS", "parse_initial"]
 
 RUN_LABELS = {"step": "unit step", "impulse": "unit impulse", "initial": "initial state", "sources": "the sources' own waveforms"}
 _ERROR_COLOUR = QColor("#5b6573")
+#: Samples per pixel a curve is thinned to before it is drawn (pairs of the largest and
+#: smallest sample of each stretch); above 1, so the thinning settles on one value.
+_SAMPLES_PER_PIXEL = 1.5
 
 
 def parse_initial(text: str) -> dict:
@@ -81,6 +84,10 @@ class TimePanel(PlotPanel):
         # the legend has a row of its own above the plot: it never covers a settled response
         self.legend = legend_row(self.canvas, 0, columns=2)
         self.plot = themed_plot(self.canvas, 1, left="response", bottom="time (s)")
+        # a run has thousands of samples and the plot a few hundred pixels: each curve draws
+        # the largest and smallest sample of every stretch of about a pixel (the envelope
+        # stays exact), not every sample with a wide pen; its data stays the run's own
+        self.plot.setDownsampling(auto=True, mode="peak")
         row = QHBoxLayout()
         row.addWidget(self.canvas, 1)
         # step metrics of each pair, beside the plot, in the pair's colour (step runs only)
@@ -181,9 +188,11 @@ class TimePanel(PlotPanel):
                 wanted.add(key)
                 if key not in self.curves:
                     label = f"{name} ← {input_label(pair[0])}" if pair in self.pairs and self.run_kind() in ("step", "impulse") else name
-                    self.curves[key] = self.plot.plot()
+                    self.curves[key] = self.plot.plot(autoDownsampleFactor=_SAMPLES_PER_PIXEL)
                     self.legend.addItem(self.curves[key], label)
-                self.curves[key].setPen(pen_for(colour, c if pair in self.pairs else c + 1))
+                pen = pen_for(colour, c if pair in self.pairs else c + 1)
+                if self.curves[key].opts["pen"] != pen:  # a new pen, even an equal one, processes the data again
+                    self.curves[key].setPen(pen)
                 self.curves[key].setData(run.t, run.y[:, c])
             if run.diverged:
                 errors.append(f"{pair[1]}: {run.message}")

@@ -206,6 +206,82 @@ def test_time_grid_must_be_uniform():
         simulate([[-1.0]], [[1.0]], [[1.0]], [[0.0]], [0.0, 0.1, 0.3])
 
 
+
+def _held_run_step_by_step(monkeypatch, fn, *args):
+    """The run as it was computed before held inputs were doubled: one step at a time."""
+    import loopwright.engine.responses as responses
+
+    with monkeypatch.context() as mp:
+        mp.setattr(responses, "_doubling_pays", lambda *a: False)
+        return fn(*args)
+
+
+def _count_calls(monkeypatch, name):
+    import loopwright.engine.responses as responses
+
+    calls = []
+    real = getattr(responses, name)
+    monkeypatch.setattr(responses, name, lambda *a, **k: calls.append(1) or real(*a, **k))
+    return calls
+
+
+@pytest.mark.parametrize("sample", ["conveyor_flexible_drive", "levitated_rotor_axis", "two_zone_oven"])
+def test_a_held_input_is_run_by_doubling_with_the_answers_of_single_steps(sample, monkeypatch):
+    # a step, an impulse and a free response hold their input for the whole run: the states
+    # come from log2 N products of powers of the step's matrix instead of N single steps.
+    # Oracles: the step-by-step run (the previous method) and python-control 0.10.2
+    # step_response / impulse_response (its own exact discretisation)
+    from loopwright.engine.project import load
+    from loopwright.engine.views_data import time_grid
+    from pathlib import Path
+
+    model = assemble(load(Path(__file__).resolve().parents[2] / "samples" / f"{sample}.lwd"))
+    t = time_grid(model.diagram, model)
+    cols = slice(0, min(2, model.B.shape[1]))
+    A, B, C, D = model.A, model.B[:, cols], model.C[:4], np.asarray(model.D[:4])[:, cols]
+    step_calls = _count_calls(monkeypatch, "_states_step_by_step")
+    doubled = _count_calls(monkeypatch, "_states_by_doubling")
+    runs = [step_response(A, B, C, D, t), impulse_response(A, B, C, D, t), initial_response(A, C, B[:, 0], t)]
+    assert len(doubled) == 3 and step_calls == []
+    singles = [_held_run_step_by_step(monkeypatch, step_response, A, B, C, D, t),
+               _held_run_step_by_step(monkeypatch, impulse_response, A, B, C, D, t),
+               _held_run_step_by_step(monkeypatch, initial_response, A, C, B[:, 0], t)]
+    assert len(step_calls) == 3
+    for ours, single in zip(runs, singles):
+        assert not ours.diverged and ours.y.shape == single.y.shape
+        assert_allclose(ours.y, single.y, rtol=0, atol=1e-11 * np.abs(single.y).max())
+    sys_ = ct.ss(A, B, C, D)
+    ref = np.moveaxis(np.asarray(ct.step_response(sys_, t).outputs).reshape(C.shape[0], B.shape[1], -1), 2, 0)
+    assert_allclose(runs[0].y, ref, rtol=0, atol=1e-9 * np.abs(ref).max())  # python-control 0.10.2 step_response
+    ref_i = np.moveaxis(np.asarray(ct.impulse_response(ct.ss(A, B, C, 0 * D), t).outputs).reshape(C.shape[0], B.shape[1], -1), 2, 0)
+    assert_allclose(runs[1].y, ref_i, rtol=0, atol=1e-9 * np.abs(ref_i).max())  # python-control 0.10.2 impulse_response
+
+
+def test_a_growing_mode_the_input_never_reaches_leaves_the_held_run_finite(monkeypatch):
+    # diag(-1, +5) with the input and output on the first state only: the unstable mode is
+    # never excited, so the step response is 1 - e^{-t} (closed form) to the end, although
+    # the powers of the step's matrix overflow long before (e^{5 t} at t = 200 s): doubling
+    # gives way to single steps there instead of reading 0 * inf as a diverged run
+    A, B, C, D = np.diag([-1.0, 5.0]), [[1.0], [0.0]], [[1.0, 0.0]], [[0.0]]
+    t = np.linspace(0.0, 200.0, 4001)
+    step_calls = _count_calls(monkeypatch, "_states_step_by_step")
+    res = step_response(A, B, C, D, t)
+    assert step_calls == [1]
+    assert not res.diverged
+    assert_allclose(res.y[:, 0, 0], 1.0 - np.exp(-t), atol=1e-13)  # closed form 1 - e^{-t}
+
+
+def test_a_diverging_held_run_stops_where_single_steps_stop(monkeypatch):
+    # an unstable loop driven by a step: the run stops at the first sample past the limit,
+    # the same sample whichever way the states were computed (x' = x + u: x = e^t - 1,
+    # closed form, passes 1e100 near t = 230 s)
+    t = np.linspace(0.0, 1000.0, 10001)
+    ours = step_response([[1.0]], [[1.0]], [[1.0]], [[0.0]], t)
+    single = _held_run_step_by_step(monkeypatch, step_response, [[1.0]], [[1.0]], [[1.0]], [[0.0]], t)
+    assert ours.diverged and single.diverged
+    assert ours.t.size == single.t.size and 225.0 < ours.t[-1] < 235.0
+    assert_allclose(ours.y[:, 0, 0], np.expm1(ours.t), rtol=1e-9)  # closed form e^t - 1
+
 # ---- diagram-driven runs ------------------------------------------------------------
 
 

@@ -120,6 +120,7 @@ def test_each_plot_is_ranged_once_per_update_and_its_range_covers_the_data(windo
     most = {"magnitude": 1, "phase": 2, "time": 1, "poles": 1}  # phase: its own, and the frequencies it follows
     plots = {"magnitude": (freq, freq.mag), "phase": (freq, freq.phase), "time": (time_, time_.plot), "poles": (poles, poles.plot)}
     counts = {name: [] for name in plots}
+    deferred = {name: [] for name in plots}
     for panel in (freq, time_, poles):
         real_show = panel.show_value
 
@@ -129,6 +130,9 @@ def test_each_plot_is_ranged_once_per_update_and_its_range_covers_the_data(windo
             for name, (owner, plot) in plots.items():
                 if owner is _panel:
                     counts[name].append(ranged.count(plot.getViewBox()))
+                    # the curves already sit in the new range: a move left for the paint makes
+                    # the moved items ask for a second paint of the panel
+                    deferred[name].append(plot.getViewBox()._matrixNeedsUpdate)
 
         monkeypatch.setattr(panel, "show_value", show)
     for k in range(3):
@@ -136,6 +140,7 @@ def test_each_plot_is_ranged_once_per_update_and_its_range_covers_the_data(windo
         qtbot.waitUntil(lambda: _settled(window), timeout=30000)
     for name, seen in counts.items():
         assert seen and max(seen) <= most[name], (name, seen)  # never once per curve
+        assert not any(deferred[name]), name
     # the ranges cover every curve's data (view coordinates: log10 of the frequency)
     for (pair, i, j), (cm, cp) in freq.curves.items():
         x, ym = cm.getOriginalDataset()
@@ -159,6 +164,40 @@ def test_each_plot_is_ranged_once_per_update_and_its_range_covers_the_data(windo
     freq.show_value([freq.data[p] for p in freq.shown_pairs()])
     assert counts["magnitude"][-1] == 0 and counts["phase"][-1] == 0
 
+
+
+def test_each_curve_processes_its_new_data_once_per_update(window, qtbot, monkeypatch):
+    # a curve given a new pen processes its data again, even when the pen equals the old
+    # one: the frequency and time views set a pen only when it changes, then the data once
+    # (a time curve thins its data again when the plot's time span moves)
+    _open(window, [("r", "y"), ("dl", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    freq, time_ = window.panels["frequency"], window.panels["time"]
+    updated = []
+    real = pg.PlotDataItem.updateItems
+    monkeypatch.setattr(pg.PlotDataItem, "updateItems", lambda item, *a, **k: (updated.append(item), real(item, *a, **k))[1])
+    per_update = {"frequency": [], "time": []}
+    for panel in (freq, time_):
+        real_show = panel.show_value
+
+        def show(value, _real=real_show, _key=panel.key):
+            updated.clear()
+            _real(value)
+            per_update[_key].append(max(updated.count(item) for item in set(updated)) if updated else 0)
+
+        monkeypatch.setattr(panel, "show_value", show)
+    for k in range(2):
+        _edit_gain(window.document, 1.2 + 0.2 * k)
+        qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    assert per_update["frequency"] and per_update["time"]
+    assert max(per_update["frequency"]) == 1 and max(per_update["time"]) <= 2, per_update
+    # and the curves keep their pair's colour
+    from loopwright.gui.docks.panel import pair_colour
+
+    for (pair, _i, _j), (cm, cp) in freq.curves.items():
+        assert cm.opts["pen"].color() == pair_colour(freq.pairs.index(pair)) == cp.opts["pen"].color()
+    for (pair, _name), item in time_.curves.items():
+        assert item.opts["pen"].color() == pair_colour(time_.pairs.index(pair))
 
 def test_an_undoable_edit_and_its_undo_start_the_views_before_the_event_loop_turns(window, qtbot):
     # the command has made all its changes when push() returns: the work starts there and

@@ -63,6 +63,26 @@ def test_time_view_step_and_source_runs_equal_the_engine(window, wait_views, pat
     assert "seed 7" in panel.note.text()  # the white source's seed is named under a source run
 
 
+
+def test_time_view_draws_each_runs_envelope_with_about_a_sample_per_pixel(window, wait_views):
+    # a run of 2001 samples in a plot a few hundred pixels wide: each curve draws the largest
+    # and smallest sample of every stretch of a pixel or so (counted, not timed), its data
+    # stays the run's own, and the drawn envelope is exact (the run's extremes are drawn)
+    path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+    _open_with_pairs(window, path, [("r", "y")])
+    window.resize(1000, 700)
+    panel = _show(window, "time", wait_views)
+    run = time_views(load(path), [("r", "y")], "step")[0]
+    curve = panel.curves[(("r", "y"), run.names[0])]
+    t, y = curve.getOriginalDataset()
+    assert_allclose(y, run.y[:, 0], rtol=1e-9, atol=1e-15)
+    drawn_t, drawn_y = curve.curve.getData()
+    width = panel.plot.getViewBox().width()
+    assert run.t.size > 4 * width  # there is something to thin
+    assert drawn_t.size <= 2 * 1.5 * width + 4  # two extremes for each of 1.5 stretches per pixel
+    assert drawn_y.max() == pytest.approx(run.y[:, 0].max(), rel=1e-12)
+    assert drawn_y.min() == pytest.approx(run.y[:, 0].min(), rel=1e-12, abs=1e-15)
+
 def test_time_view_shows_the_estimation_error_from_an_initial_state(window, wait_views):
     path = next(p for p in SAMPLES if p.stem == "levitated_rotor_axis")
     _open_with_pairs(window, path, [("r", "y")])
@@ -324,6 +344,25 @@ def test_the_audit_panel_reports_progress_to_the_end(window, wait_views):
     panel.set_waiting(False)
 
 
+def test_progress_of_a_quick_answer_leaves_the_hidden_busy_line_alone(window, wait_views):
+    # an answer within half a second reports its progress with the busy line hidden: the
+    # panel only remembers it (a label's new text would lay the panel out again, for each
+    # report), and shows the last fraction once the line does show
+    path = next(p for p in SAMPLES if p.stem == "two_zone_oven")
+    _open_with_pairs(window, path, [])
+    panel = _show(window, "audit", wait_views)
+    assert panel.waiting.isHidden()
+    texts = []
+    panel.waiting_label.setText = lambda text, _real=panel.waiting_label.setText: (texts.append(text), _real(text))[1]
+    for k in range(1, 10):
+        panel.set_progress(k / 10)
+    assert texts == [] and panel.progress_text() == "computing…"
+    panel.set_waiting(True)
+    assert panel.progress_text() == "computing… 90 %" and panel.progress.value() == 900
+    panel.set_waiting(False)
+    assert panel.progress_text() == "computing…" and panel.waiting.isHidden()
+
+
 def test_time_view_shows_the_step_metrics_of_each_pair_in_its_colour(window, wait_views):
     # the metrics beside the plot are the engine's (engine/step_metrics.py on the engine's
     # run); python-control 0.10 step_info on the same path agrees on the overshoot
@@ -373,6 +412,33 @@ def test_a_view_picture_never_replaces_a_diagram_and_carries_the_caution(window,
     panel.save_picture(tmp_path / "f.svg")
     assert CAUTION in (tmp_path / "f.svg").read_text(encoding="utf-8")
 
+
+
+def test_axes_are_kept_as_pictures_on_screen_and_written_as_vectors_to_svg(window, wait_views, tmp_path):
+    # on screen every axis (ticks, labels, grid lines) is a cached picture, redrawn only when
+    # its ticks change, not each time a curve over it does; an SVG still gets the axes as
+    # lines and text (Qt paints a cached item's pixmap into any device, SVG included)
+    import pyqtgraph as pg
+    from PySide6.QtWidgets import QGraphicsItem
+
+    path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
+    _open_with_pairs(window, path, [("r", "y")])
+    for key in ("frequency", "time"):
+        panel = _show(window, key, wait_views)
+        axes = [it for it in panel.canvas.scene().items() if isinstance(it, pg.AxisItem) and it.isVisible()]
+        assert axes and all(ax.cacheMode() == QGraphicsItem.CacheMode.DeviceCoordinateCache for ax in axes), key
+        panel.save_picture(tmp_path / f"{key}.svg")
+        svg = (tmp_path / f"{key}.svg").read_text(encoding="utf-8")
+        for ax in axes:  # the reference: the same picture from axes that were never cached
+            ax.setCacheMode(QGraphicsItem.CacheMode.NoCache)
+        panel.save_picture(tmp_path / f"{key}_plain.svg")
+        plain = (tmp_path / f"{key}_plain.svg").read_text(encoding="utf-8")
+        for ax in axes:
+            ax.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
+        assert svg.count("<text") == plain.count("<text") > 6, key  # tick labels as text, none lost
+        assert svg.count("<image") == plain.count("<image"), key  # no pixmap of an axis
+        panel.save_picture(tmp_path / f"{key}.svg")
+        assert all(ax.cacheMode() == QGraphicsItem.CacheMode.DeviceCoordinateCache for ax in axes), key  # and cached again
 
 def test_no_leftover_tab_bar_shows_beside_the_dock_groups(window):
     # building the tab groups leaves the main window earlier tab bars of each group; none of
