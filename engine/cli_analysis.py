@@ -17,6 +17,7 @@ from loopwright.engine.cli_common import fmt_num, load_diagram, print_json, writ
 from loopwright.engine.cli_options import FREQUENCY_RANGE_RAD_S, SKEW_RANGE, TIME_RANGE_S, bounded_float, bounded_int
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.interconnect import assemble
+from loopwright.engine.path_text import PATH_TEXT_MAX, path_text
 from loopwright.engine.views_data import MAX_POINTS
 
 __all__ = ["add_commands"]
@@ -84,7 +85,11 @@ def add_commands(subparsers) -> None:
     _plot_flag(p)
     p.set_defaults(run=_margins)
 
-    p = subparsers.add_parser("audit", help="rank every source-to-signal path (peak gain, H2, DC gain, stability)")
+    p = subparsers.add_parser(
+        "audit", help="rank every source-to-signal path (peak gain, H2, DC gain, stability)",
+        epilog=f"The table shows a path of more than {PATH_TEXT_MAX} blocks by its first and last three blocks and the number "
+               "left out between them ('... 1,994 more ...'); --json and --csv list every block and wire of every path.",
+    )
     p.add_argument("file", help="diagram file (.lwd)")
     p.add_argument("--injections", action="store_true", help="also audit the injection on every signal")
     p.add_argument("--top", type=bounded_int(1, _MAX_ROWS), default=None, help="show only the first N rows")
@@ -513,16 +518,18 @@ def _sets(*what) -> str:
 
 
 class _Joined:
-    """``" ".join(names)``, once per list: rows of the path audit share their path lists
-    (on a loop every row of a source lists the same ~n blocks), so the text is shared too."""
+    """``join(names)`` (default ``" ".join``), once per list: rows of the path audit share
+    their path lists (on a loop every row of a source lists the same ~n blocks), so the
+    text is shared too."""
 
-    def __init__(self):
+    def __init__(self, join=" ".join):
+        self._join = join
         self._done: dict[int, tuple[list, str]] = {}
 
     def __call__(self, names: list[str]) -> str:
         hit = self._done.get(id(names))
         if hit is None or hit[0] is not names:
-            hit = self._done[id(names)] = (names, " ".join(names))  # the list is kept, so its id stays its own
+            hit = self._done[id(names)] = (names, self._join(names))  # the list is kept, so its id stays its own
         return hit[1]
 
 
@@ -566,6 +573,7 @@ def _audit(args: argparse.Namespace) -> int:
     shown = f"top {len(rows)} of {total} paths" if len(rows) < total else f"{total} paths"
     print(f"{args.file}: path audit ({shown}; {RANKING_RULE})")
     number = _memo_fmt()  # a long chain repeats a few values thousands of times
+    joined = _Joined(path_text)  # a long path by its ends: the table grows linearly with the diagram
     _table(
         ["#", "source", "signal", "peak gain", "at (rad/s)", "H2", "DC gain", "stable", "blocks on the path"],
         [

@@ -21,6 +21,7 @@ from loopwright.engine.eigen import format_pole, trustworthy_digits
 from loopwright.engine.errors import EngineError
 from loopwright.engine.margins import LoopMargins, VectorLoopMargins, margins_at
 from loopwright.engine.noise import NoiseBudget, noise_budget, white_sources
+from loopwright.engine.path_text import path_text
 from loopwright.engine.responses import reduce_model
 
 __all__ = ["LoopReport", "loop_report", "format_report"]
@@ -224,7 +225,7 @@ def format_report(rep: LoopReport, *, origin: str = "") -> str:
     for r in rep.audit:
         out.append(
             f"  {r.source:<8} {r.signal:<12} {fmt_num(r.peak_gain, digits=4):>11} {fmt_num(r.peak_freq_rad_s, digits=4):>10} "
-            f"{fmt_num(r.dc_gain, digits=4) + ('*' if r.dc_gain_kind != 'signed value' else ''):>11}  {' '.join(r.blocks)}"
+            f"{fmt_num(r.dc_gain, digits=4) + ('*' if r.dc_gain_kind != 'signed value' else ''):>11}  {path_text(r.blocks)}"
         )
     if any(r.dc_gain_kind != "signed value" for r in rep.audit):
         out.append("  (DC gain: signed for a scalar path; * largest singular value of a vector path's DC gain matrix)")
