@@ -145,10 +145,6 @@ def _eigvecs_of_mode(T: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
     return v, u
 
 
-def _driver(model, signal: str) -> str:
-    return model.signal_ports[signal].block
-
-
 def path_between(model, group: str, signal: str, graph=None, *, cache: dict | None = None) -> tuple[list[str], list[str]]:
     """Block ids and wire ids on the paths from an input group to a signal.
 
@@ -203,6 +199,7 @@ class _PathIndex:
         self._own_wire: dict[str, list[str]] = {}
         self._back: dict[str, set[str]] = {}
         self._shared: dict[tuple[str, str], tuple] = {}
+        self._ids_by_name: dict[str, str] | None = None
 
     def _forward(self, group: str) -> tuple[dict[str, int], list[str]]:
         """Hops from the group's start blocks to every block they reach; the group's own wire."""
@@ -214,7 +211,11 @@ class _PathIndex:
                 if w is not None:
                     extra.append(w.id)
             else:
-                starts = {self.diagram.block_by_name(group).id}
+                if self._ids_by_name is None:  # (the diagram's own lookup tables may not be built yet)
+                    self._ids_by_name = {}
+                    for b in self.diagram.blocks.values():
+                        self._ids_by_name.setdefault(b.name, b.id)
+                starts = {self._ids_by_name[group]} if group in self._ids_by_name else {self.diagram.block_by_name(group).id}
             # breadth first from all starts at once: the fewest hops from any of them
             hops = dict.fromkeys(starts, 0)
             frontier, k = list(starts), 0
@@ -247,8 +248,29 @@ class _PathIndex:
 
     def path(self, group: str, signal: str) -> tuple[list[str], list[str], list[str], list[str]]:
         """``(block_ids, wire_ids, block names, wire names)`` of the path; shared lists."""
+        return self.paths(group, [signal])[0]
+
+    def paths(self, group: str, signals: list[str]) -> list[tuple[list[str], list[str], list[str], list[str]]]:
+        """:meth:`path` of each of ``signals`` (one call per input group: a loop over the
+        signals with the lookups bound once)."""
         hops, extra = self._forward(group)
-        end = _driver(self.model, signal)
+        ports, component, shared_of, wires_by_name = self.model.signal_ports, self.component, self._shared, self.wires_by_name
+        out = []
+        for signal in signals:
+            end = ports[signal].block
+            shared = shared_of.get((group, component[end]))
+            if shared is None:
+                shared = self._share(group, end, hops, extra)
+            order, base, seen, names_b, names_w, any_path = shared
+            w = wires_by_name.get(signal)
+            if w is None or not any_path or w.id in seen:
+                out.append((order, base, names_b, names_w))
+            else:
+                out.append((order, base + [w.id], names_b, names_w + [w.name]))
+        return out
+
+    def _share(self, group: str, end: str, hops: dict[str, int], extra: list[str]) -> tuple:
+        """The lists shared by the rows of ``group`` whose signal is driven in the component of ``end``."""
         key = (group, self.component[end])
         shared = self._shared.get(key)
         if shared is None:
@@ -271,11 +293,7 @@ class _PathIndex:
             blocks, wires = self.diagram.blocks, self.diagram.wires
             shared = (order, base, seen, [blocks[b].name for b in order], [wires[w].name for w in base], bool(nodes or extra))
             self._shared[key] = shared
-        order, base, seen, names_b, names_w, any_path = shared
-        w = self.wires_by_name.get(signal)
-        if w is None or not any_path or w.id in seen:
-            return order, base, names_b, names_w
-        return order, base + [w.id], names_b, names_w + [w.name]
+        return shared
 
 
 def _adjacency(diagram) -> tuple[dict, dict]:
@@ -523,6 +541,7 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
     rows: list[AuditRow] = []
     d_norm_l, rownz_l, finite0_l, dc_single_l = d_norm.tolist(), rownz.tolist(), finite0.tolist(), dc_single.tolist()
     isfinite, inf = math.isfinite, math.inf
+    paths = index.paths(grp, [sig for sig, _sl in sig_items])
     for si, (sig, sl) in enumerate(sig_items):
         if progress is not None and si % 256 == 0:
             progress(si / len(sig_items))
@@ -570,7 +589,7 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
             wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
         if isfinite(dc) and isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
             dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
-        bids, wids, names_b, names_w = index.path(grp, sig)
+        bids, wids, names_b, names_w = paths[si]
         if not bids and not unstable[si] and peak <= 1e-13 * scale_ref:
             continue
         rows.append(AuditRow(

@@ -623,10 +623,12 @@ def _noise(args: argparse.Namespace) -> int:
           + ")")
     if b.message:
         print(f"  note: {b.message}")
+    number = _memo_fmt()  # a long chain repeats a few values thousands of times
     _table(
         ["component", "RMS"] + [f"share {s}" for s in srcs] + [""],
         [
-            [ln.name, fmt_num(ln.rms)] + [("-" if not np.isfinite(ln.share_by_source[s]) else f"{100 * ln.share_by_source[s]:.1f} %") for s in srcs] + [ln.reason]
+            [ln.name, number(ln.rms)] + [("-" if not math.isfinite(ln.share_by_source[s]) else f"{100 * ln.share_by_source[s]:.1f} %") for s in srcs]
+            + [ln.reason]
             for ln in b.lines
         ],
     )
