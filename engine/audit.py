@@ -47,6 +47,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg as sla
+import scipy.sparse as sp
+from scipy.sparse.csgraph import connected_components
 
 from loopwright.engine.audit_peaks import refine_peaks
 from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
@@ -193,7 +195,7 @@ class _PathIndex:
             self.position = {node: i for i, node in enumerate(graph)}
         self.wires_by_name = {w.name: w for w in d.wires.values()}
         self.rank = {b: i for i, b in enumerate(d.blocks)}
-        self.component = _components(self.succ)  # block -> its component's root block
+        self.component = _components(self.succ)  # block -> the number of its component
         self.searches = 0  # backward searches run (one per component of a driving block)
         self._hops: dict[str, dict[str, int]] = {}
         self._own_wire: dict[str, list[str]] = {}
@@ -308,48 +310,17 @@ def _adjacency(diagram) -> tuple[dict, dict]:
     return succ, pred
 
 
-def _components(succ) -> dict[str, int]:
-    """Strongly connected component of every node (Tarjan's algorithm, without recursion:
-    a chain of thousands of blocks would exceed Python's recursion limit)."""
-    index: dict = {}
-    low: dict = {}
-    comp: dict = {}
-    stack: list = []
-    on_stack: set = set()
-    count = 0
-    for root in succ:
-        if root in index:
-            continue
-        index[root] = low[root] = count
-        count += 1
-        stack.append(root)
-        on_stack.add(root)
-        work = [(root, iter(succ[root]))]
-        while work:
-            v, nbrs = work[-1]
-            for w in nbrs:
-                if w not in index:
-                    index[w] = low[w] = count
-                    count += 1
-                    stack.append(w)
-                    on_stack.add(w)
-                    work.append((w, iter(succ[w])))
-                    break
-                if w in on_stack:
-                    low[v] = min(low[v], index[w])
-            else:
-                work.pop()
-                if work:
-                    u = work[-1][0]
-                    low[u] = min(low[u], low[v])
-                if low[v] == index[v]:  # v roots a component: name it after v
-                    while True:
-                        x = stack.pop()
-                        on_stack.discard(x)
-                        comp[x] = v
-                        if x == v:
-                            break
-    return comp
+def _components(succ) -> dict:
+    """Strongly connected component of every node, as a number (equal numbers: the same
+    component), by :func:`scipy.sparse.csgraph.connected_components` (compiled code: a
+    Python walk over a chain of thousands of blocks cost more than the rest of its paths)."""
+    nodes = list(succ)
+    at = {u: i for i, u in enumerate(nodes)}
+    rows = [at[u] for u in nodes for _v in succ[u]]
+    cols = [at[v] for u in nodes for v in succ[u]]
+    graph = sp.csr_matrix((np.ones(len(rows)), (rows, cols)), shape=(len(nodes), len(nodes)))
+    _count, labels = connected_components(graph, directed=True, connection="strong")
+    return dict(zip(nodes, labels.tolist()))
 
 
 def path_audit(

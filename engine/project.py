@@ -454,8 +454,16 @@ def _quick_check(node: Any):
     if not isinstance(node, dict) or "patternProperties" in node or "prefixItems" in node or "else" in node:
         return _never
     checks = []
+    done: tuple[str, ...] = ()
+    if node.get("type") == "object" and "properties" in node:
+        # the usual object node: its type, properties and required keys in one pass
+        required = node.get("required", [])
+        if not isinstance(required, list):
+            return _never
+        checks.append(_quick_object(node["properties"], node.get("additionalProperties", True), strict=True, required=frozenset(required)))
+        done = ("type", "properties", "required")
     for kw, val in node.items():
-        if kw in _ANNOTATIONS or kw in ("then", "additionalProperties"):
+        if kw in _ANNOTATIONS or kw in ("then", "additionalProperties") or kw in done:
             continue
         if kw == "type":
             tests = [_TYPE_TESTS[t] for t in ([val] if isinstance(val, str) else val) if t in _TYPE_TESTS]
@@ -490,8 +498,7 @@ def _quick_check(node: Any):
         elif kw == "allOf":
             checks.append(_quick_by_kind(val) or _quick_all([_quick_check(sub) for sub in val]))
         elif kw == "anyOf":
-            subs = [_quick_check(sub) for sub in val]
-            checks.append(lambda v, subs=subs: any(f(v) for f in subs))
+            checks.append(_quick_any([_quick_check(sub) for sub in val]))
         elif kw == "if":
             # "if" decides whether "then" applies, so it must be exact both ways: a False
             # meaning "not sure" would skip a "then" that applies
@@ -519,8 +526,15 @@ def _quick_choice(choices: list):
 
 
 def _quick_all(checks):
+    """All of ``checks`` (called in turn, as few Python frames as possible: this runs on every value of a file)."""
     if len(checks) == 1:
         return checks[0]
+    if len(checks) == 2:
+        first, second = checks
+        return lambda v: first(v) and second(v)
+    if len(checks) == 3:
+        first, second, third = checks
+        return lambda v: first(v) and second(v) and third(v)
 
     def every(v):
         for c in checks:
@@ -531,19 +545,31 @@ def _quick_all(checks):
     return every
 
 
-def _quick_object(props: dict, additional: Any):
-    """``properties`` together with ``additionalProperties`` (one pass over the object's keys)."""
+def _quick_any(checks):
+    """Any of ``checks``, the first that says True deciding (``anyOf``)."""
+    def some(v):
+        for c in checks:
+            if c(v):
+                return True
+        return False
+
+    return some
+
+
+def _quick_object(props: dict, additional: Any, *, strict: bool = False, required: frozenset = frozenset()):
+    """``properties`` together with ``additionalProperties`` (one pass over the object's keys);
+    ``strict``: also ``"type": "object"`` (anything else fails), with the ``required`` keys."""
     known = {k: _quick_check(sub) for k, sub in props.items()}
     other = None if additional is False else _quick_check(additional)
 
     def check(v):
         if not isinstance(v, dict):
-            return True
+            return not strict
         for k, x in v.items():
             f = known.get(k, other)
             if f is None or not f(x):
                 return False
-        return True
+        return required.issubset(v)
 
     return check
 
