@@ -135,10 +135,12 @@ def _check_plot(args: argparse.Namespace) -> None:
 
 
 def _table(header: list[str], rows: list[list[str]], *, indent: str = "  ") -> None:
+    """The header and rows, the first column left-aligned and the others right-aligned,
+    printed at once (thousands of rows on a long chain)."""
     widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)]
-    print((indent + "  ".join(h.rjust(w) if i else h.ljust(w) for i, (h, w) in enumerate(zip(header, widths)))).rstrip())
-    for r in rows:
-        print((indent + "  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths)))).rstrip())
+    first, rest = widths[0], list(enumerate(widths))[1:]
+    lines = [(indent + "  ".join([r[0].ljust(first)] + [r[i].rjust(w) for i, w in rest])).rstrip() for r in [header, *rows]]
+    print("\n".join(lines))
 
 
 # ---------------------------------------------------------------------------------------
@@ -151,7 +153,7 @@ def _freq(args: argparse.Namespace) -> int:
 
     _check_plot(args)
     diagram = load_diagram(args.file)
-    model = assemble(diagram)
+    model = assemble(diagram, take=True)  # the diagram is this command's own
     w_list = _frequency_list(args.w_list) if args.w_list is not None else None
     resp = pair_frequency_response(model, args.source, args.signal, w_min=args.w_min, w_max=args.w_max,
                                    points=args.points, w=w_list)
@@ -237,7 +239,7 @@ def _tf(args: argparse.Namespace) -> int:
     from loopwright.engine.path_tf import path_transfer
 
     diagram = load_diagram(args.file)
-    model = assemble(diagram)
+    model = assemble(diagram, take=True)  # the diagram is this command's own
     tf = path_transfer(model, args.source, args.signal)
     if args.json:
         print_json({"file": args.file, **tf.as_dict(), "caution": CAUTION})
@@ -294,7 +296,7 @@ def _time(args: argparse.Namespace) -> int:
 
     _check_plot(args)
     diagram = load_diagram(args.file)
-    model = assemble(diagram)
+    model = assemble(diagram, take=True)  # the diagram is this command's own
     sigs = [model.resolve_signal(s.strip()) for s in args.signals.split(",") if s.strip()]
     if not sigs:
         raise ParameterError("--to needs at least one signal name", field="--to")
@@ -552,7 +554,7 @@ def _audit(args: argparse.Namespace) -> int:
     from loopwright.engine.audit import RANKING_RULE, path_audit
 
     diagram = load_diagram(args.file)
-    model = assemble(diagram)
+    model = assemble(diagram, take=True)  # the diagram is this command's own
     rows = path_audit(model, injections=args.injections)
     total = len(rows)
     if args.top is not None:
@@ -600,7 +602,7 @@ def _noise(args: argparse.Namespace) -> int:
     from loopwright.engine.noise import noise_budget
 
     diagram = load_diagram(args.file)
-    model = assemble(diagram)
+    model = assemble(diagram, take=True)  # the diagram is this command's own
     b = noise_budget(model)
     srcs = list(b.sources)
     covs = _covariances(model, b, args.covariance)

@@ -323,7 +323,7 @@ def collector_paused():
             gc.enable()
 
 
-def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel:
+def assemble(diagram: Diagram, *, break_at: str | None = None, take: bool = False) -> AssembledModel:
     """Reduce ``diagram`` to one continuous-time state-space model.
 
     Parameters
@@ -332,6 +332,10 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         Not modified; the model keeps a snapshot.
     break_at : str, optional
         Signal, or input port ``"block.port"``, at which to open the loop (see the module docstring).
+    take : bool
+        The model keeps ``diagram`` itself rather than a snapshot: for a caller that hands
+        the diagram over and changes it no more (a command that has just read it from a
+        file). Copying is a fifth of the assembly of a long chain of gains.
 
     Returns
     -------
@@ -358,12 +362,12 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     array([[-2.]])
     """
     with collector_paused():
-        return _assemble(diagram, break_at=break_at)
+        return _assemble(diagram, break_at=break_at, take=take)
 
 
-def _assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel:
+def _assemble(diagram: Diagram, *, break_at: str | None = None, take: bool = False) -> AssembledModel:
     """The work of :func:`assemble` (which pauses the collector around it)."""
-    snap = diagram.copy()
+    snap = diagram if take else diagram.copy()
     blocks = list(snap.blocks.values())
     reals, problems = _realize_all(blocks, snap, check_each=False)
     if problems or not _all_in_range(reals.values()):
@@ -594,6 +598,10 @@ def _parameter_key(b) -> tuple | None:
         if len(p) != 1:
             return None
         K = p.get("K")
+        if type(K) is list and len(K) == 1:  # a scalar gain written [[k]]: the usual one
+            row = K[0]
+            if type(row) is list and len(row) == 1 and type(row[0]) is float:
+                return ("gain", ((row[0],),))
         if type(K) is float or type(K) is int:
             return ("gain", type(K), K)
         if type(K) is not list or not K or len(K) > _SHARED_GAIN_ENTRIES:

@@ -19,6 +19,7 @@ from loopwright.engine.cli_common import fmt_num
 from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.eigen import format_pole, trustworthy_digits
 from loopwright.engine.errors import EngineError
+from loopwright.engine.interconnect import assemble
 from loopwright.engine.margins import LoopMargins, VectorLoopMargins, margins_at
 from loopwright.engine.noise import NoiseBudget, noise_budget, white_sources
 from loopwright.engine.path_text import path_text
@@ -98,7 +99,7 @@ def _key_signal_lines(diagram: Diagram, budget: NoiseBudget) -> list[str]:
     return names
 
 
-def loop_report(diagram: Diagram, *, top: int = 5) -> LoopReport:
+def loop_report(diagram: Diagram, *, top: int = 5, take: bool = False) -> LoopReport:
     """Assemble ``diagram`` and run the first analyses on it.
 
     Parameters
@@ -106,6 +107,9 @@ def loop_report(diagram: Diagram, *, top: int = 5) -> LoopReport:
     diagram : Diagram
     top : int
         How many audit rows to keep (the audit itself covers every source-signal pair).
+    take : bool
+        The caller hands ``diagram`` over and changes it no more (see
+        :func:`~loopwright.engine.interconnect.assemble`).
 
     Raises
     ------
@@ -113,7 +117,7 @@ def loop_report(diagram: Diagram, *, top: int = 5) -> LoopReport:
         The diagram does not assemble. Failures of single analyses (e.g. a loop break on a
         missing signal) are reported inside the report instead.
     """
-    chk = summarize(diagram)
+    chk = summarize(diagram, model=assemble(diagram, take=take))
     model = chk.model
     notes: list[str] = []
     loop_break = diagram.settings.get("loop_break")
