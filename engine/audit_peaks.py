@@ -48,7 +48,9 @@ def grid_gains(Y: np.ndarray, sig_items) -> np.ndarray:
     scalar = np.flatnonzero(widths == 1)
     if scalar.size and Y.shape[2] == 1:
         # one entry each: sigma_max is its modulus, as sqrt(|y|^2) (a sum of one term)
-        mag = np.abs(Y[:, starts[scalar], 0].T)
+        rows = starts[scalar]
+        every_row = rows.size == Y.shape[1] and bool(np.all(rows == np.arange(rows.size)))
+        mag = np.abs((Y[:, :, 0] if every_row else Y[:, rows, 0]).T)  # (every row in order: no gathered copy)
         np.square(mag, out=mag)
         out[scalar] = np.sqrt(mag, out=mag)
     elif scalar.size:
@@ -279,8 +281,4 @@ def refine_peaks(responder, grid: np.ndarray, Y: np.ndarray, sig_items, passes: 
         gmax[live], wi[live], below[live], above[live] = _fold_in(gmax[live], wi[live], below[live], above[live], pts, kept, values)
         count[live] += kept.sum(axis=1)
     # the peak: the lowest frequency among equal largest gains
-    w = wi
-    best: dict[str, tuple[float, float]] = {}
-    for j, sig in enumerate(names):
-        best[sig] = (float(gmax[j]), float(w[j])) if active[j] else (0.0, 0.0)
-    return best
+    return {sig: (g, w) if a else (0.0, 0.0) for sig, g, w, a in zip(names, gmax.tolist(), wi.tolist(), active.tolist())}
