@@ -536,15 +536,17 @@ class _Joined:
 
 
 def _memo_fmt():
-    """:func:`fmt_num` remembering its answers; keyed by value and sign, so -0.0 keeps its "-0"."""
-    done: dict[tuple[float, float], str] = {}
+    """:func:`fmt_num` remembering its answers by value; a zero is formatted each time, so
+    -0.0 keeps its "-0" (it equals 0.0 as a key)."""
+    done: dict[float, str] = {}
 
     def number(v) -> str:
-        v = float(v)
-        key = (v, math.copysign(1.0, v))
-        text = done.get(key)
+        text = done.get(v)
         if text is None:
-            text = done[key] = fmt_num(v)
+            v = float(v)
+            if v == 0.0:
+                return fmt_num(v)
+            text = done[v] = fmt_num(v)
         return text
 
     return number
