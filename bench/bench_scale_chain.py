@@ -77,9 +77,8 @@ def _time_commands(d, gains: int, audit_max: int) -> None:
                                           "-o", os.path.join(tmp, "controller.json")],
         }
         if gains <= audit_max:
-            # the audit prints every row (2 sources x ~n signals) with the blocks on its path:
-            # on a loop each lists ~n blocks, so its text grows with the square of the chain
-            # (the lists themselves are shared by the rows); the report prints the top 5
+            # the audit prints every row (2 sources x ~n signals), each path by its ends when
+            # it is long (the full lists are in --json): its text grows linearly with the chain
             commands["audit"] = ["audit", path]
             commands["report"] = ["report", path]
         for label, argv in commands.items():
@@ -104,7 +103,7 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[500, 1000, 2000, 4000])
     ap.add_argument("--ct-gains", type=int, default=200)
-    ap.add_argument("--audit-max", type=int, default=None, help="largest chain to audit (default: every size; the audit's text is quadratic)")
+    ap.add_argument("--audit-max", type=int, default=None, help="largest chain to audit (default: every size)")
     ap.add_argument("--cli", action="store_true", help="also time each command end to end in this process (file in, text out)")
     args = ap.parse_args(argv)
     print(f"python-control {ct.__version__}")

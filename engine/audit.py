@@ -47,6 +47,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg as sla
+import scipy.sparse as sp
+from scipy.sparse.csgraph import connected_components
 
 from loopwright.engine.audit_peaks import refine_peaks
 from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
@@ -145,10 +147,6 @@ def _eigvecs_of_mode(T: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
     return v, u
 
 
-def _driver(model, signal: str) -> str:
-    return model.signal_ports[signal].block
-
-
 def path_between(model, group: str, signal: str, graph=None, *, cache: dict | None = None) -> tuple[list[str], list[str]]:
     """Block ids and wire ids on the paths from an input group to a signal.
 
@@ -197,12 +195,13 @@ class _PathIndex:
             self.position = {node: i for i, node in enumerate(graph)}
         self.wires_by_name = {w.name: w for w in d.wires.values()}
         self.rank = {b: i for i, b in enumerate(d.blocks)}
-        self.component = _components(self.succ)  # block -> its component's root block
+        self.component = _components(self.succ)  # block -> the number of its component
         self.searches = 0  # backward searches run (one per component of a driving block)
         self._hops: dict[str, dict[str, int]] = {}
         self._own_wire: dict[str, list[str]] = {}
         self._back: dict[str, set[str]] = {}
         self._shared: dict[tuple[str, str], tuple] = {}
+        self._ids_by_name: dict[str, str] | None = None
 
     def _forward(self, group: str) -> tuple[dict[str, int], list[str]]:
         """Hops from the group's start blocks to every block they reach; the group's own wire."""
@@ -214,7 +213,11 @@ class _PathIndex:
                 if w is not None:
                     extra.append(w.id)
             else:
-                starts = {self.diagram.block_by_name(group).id}
+                if self._ids_by_name is None:  # (the diagram's own lookup tables may not be built yet)
+                    self._ids_by_name = {}
+                    for b in self.diagram.blocks.values():
+                        self._ids_by_name.setdefault(b.name, b.id)
+                starts = {self._ids_by_name[group]} if group in self._ids_by_name else {self.diagram.block_by_name(group).id}
             # breadth first from all starts at once: the fewest hops from any of them
             hops = dict.fromkeys(starts, 0)
             frontier, k = list(starts), 0
@@ -247,8 +250,29 @@ class _PathIndex:
 
     def path(self, group: str, signal: str) -> tuple[list[str], list[str], list[str], list[str]]:
         """``(block_ids, wire_ids, block names, wire names)`` of the path; shared lists."""
+        return self.paths(group, [signal])[0]
+
+    def paths(self, group: str, signals: list[str]) -> list[tuple[list[str], list[str], list[str], list[str]]]:
+        """:meth:`path` of each of ``signals`` (one call per input group: a loop over the
+        signals with the lookups bound once)."""
         hops, extra = self._forward(group)
-        end = _driver(self.model, signal)
+        ports, component, shared_of, wires_by_name = self.model.signal_ports, self.component, self._shared, self.wires_by_name
+        out = []
+        for signal in signals:
+            end = ports[signal].block
+            shared = shared_of.get((group, component[end]))
+            if shared is None:
+                shared = self._share(group, end, hops, extra)
+            order, base, seen, names_b, names_w, any_path = shared
+            w = wires_by_name.get(signal)
+            if w is None or not any_path or w.id in seen:
+                out.append((order, base, names_b, names_w))
+            else:
+                out.append((order, base + [w.id], names_b, names_w + [w.name]))
+        return out
+
+    def _share(self, group: str, end: str, hops: dict[str, int], extra: list[str]) -> tuple:
+        """The lists shared by the rows of ``group`` whose signal is driven in the component of ``end``."""
         key = (group, self.component[end])
         shared = self._shared.get(key)
         if shared is None:
@@ -271,11 +295,7 @@ class _PathIndex:
             blocks, wires = self.diagram.blocks, self.diagram.wires
             shared = (order, base, seen, [blocks[b].name for b in order], [wires[w].name for w in base], bool(nodes or extra))
             self._shared[key] = shared
-        order, base, seen, names_b, names_w, any_path = shared
-        w = self.wires_by_name.get(signal)
-        if w is None or not any_path or w.id in seen:
-            return order, base, names_b, names_w
-        return order, base + [w.id], names_b, names_w + [w.name]
+        return shared
 
 
 def _adjacency(diagram) -> tuple[dict, dict]:
@@ -290,48 +310,17 @@ def _adjacency(diagram) -> tuple[dict, dict]:
     return succ, pred
 
 
-def _components(succ) -> dict[str, int]:
-    """Strongly connected component of every node (Tarjan's algorithm, without recursion:
-    a chain of thousands of blocks would exceed Python's recursion limit)."""
-    index: dict = {}
-    low: dict = {}
-    comp: dict = {}
-    stack: list = []
-    on_stack: set = set()
-    count = 0
-    for root in succ:
-        if root in index:
-            continue
-        index[root] = low[root] = count
-        count += 1
-        stack.append(root)
-        on_stack.add(root)
-        work = [(root, iter(succ[root]))]
-        while work:
-            v, nbrs = work[-1]
-            for w in nbrs:
-                if w not in index:
-                    index[w] = low[w] = count
-                    count += 1
-                    stack.append(w)
-                    on_stack.add(w)
-                    work.append((w, iter(succ[w])))
-                    break
-                if w in on_stack:
-                    low[v] = min(low[v], index[w])
-            else:
-                work.pop()
-                if work:
-                    u = work[-1][0]
-                    low[u] = min(low[u], low[v])
-                if low[v] == index[v]:  # v roots a component: name it after v
-                    while True:
-                        x = stack.pop()
-                        on_stack.discard(x)
-                        comp[x] = v
-                        if x == v:
-                            break
-    return comp
+def _components(succ) -> dict:
+    """Strongly connected component of every node, as a number (equal numbers: the same
+    component), by :func:`scipy.sparse.csgraph.connected_components` (compiled code: a
+    Python walk over a chain of thousands of blocks cost more than the rest of its paths)."""
+    nodes = list(succ)
+    at = {u: i for i, u in enumerate(nodes)}
+    rows = [at[u] for u in nodes for _v in succ[u]]
+    cols = [at[v] for u in nodes for v in succ[u]]
+    graph = sp.csr_matrix((np.ones(len(rows)), (rows, cols)), shape=(len(nodes), len(nodes)))
+    _count, labels = connected_components(graph, directed=True, connection="strong")
+    return dict(zip(nodes, labels.tolist()))
 
 
 def path_audit(
@@ -523,6 +512,7 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
     rows: list[AuditRow] = []
     d_norm_l, rownz_l, finite0_l, dc_single_l = d_norm.tolist(), rownz.tolist(), finite0.tolist(), dc_single.tolist()
     isfinite, inf = math.isfinite, math.inf
+    paths = index.paths(grp, [sig for sig, _sl in sig_items])
     for si, (sig, sl) in enumerate(sig_items):
         if progress is not None and si % 256 == 0:
             progress(si / len(sig_items))
@@ -570,7 +560,7 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
             wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
         if isfinite(dc) and isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
             dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
-        bids, wids, names_b, names_w = index.path(grp, sig)
+        bids, wids, names_b, names_w = paths[si]
         if not bids and not unstable[si] and peak <= 1e-13 * scale_ref:
             continue
         rows.append(AuditRow(

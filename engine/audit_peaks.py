@@ -15,6 +15,8 @@ frequencies do not depend on how many other signals are refined alongside.
 """
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from loopwright.engine.blockwise_response import GroupResponder
@@ -46,7 +48,9 @@ def grid_gains(Y: np.ndarray, sig_items) -> np.ndarray:
     scalar = np.flatnonzero(widths == 1)
     if scalar.size and Y.shape[2] == 1:
         # one entry each: sigma_max is its modulus, as sqrt(|y|^2) (a sum of one term)
-        mag = np.abs(Y[:, starts[scalar], 0].T)
+        rows = starts[scalar]
+        every_row = rows.size == Y.shape[1] and bool(np.all(rows == np.arange(rows.size)))
+        mag = np.abs((Y[:, :, 0] if every_row else Y[:, rows, 0]).T)  # (every row in order: no gathered copy)
         np.square(mag, out=mag)
         out[scalar] = np.sqrt(mag, out=mag)
     elif scalar.size:
@@ -100,12 +104,14 @@ def _first_appearance_groups(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return rank[label], first[by_first]
 
 
-def _initial_brackets(grid: np.ndarray, g: np.ndarray, passes: int):
-    """Each signal's bracket around its best grid point ``g`` (signals, k): ``(W, G, count, active)``.
+def _initial_brackets(grid: np.ndarray, g: np.ndarray):
+    """Each signal's bracket around its best grid point ``g`` (signals, k):
+    ``(gmax, wi, below, above, count, active)``.
 
-    ``W``/``G`` (signals, room) hold the samples (frequencies, and gains with non-finite
-    values as ``-inf``) in no particular order, padded with ``inf``/``-inf`` past
-    ``count``; ``active`` is False for a signal with no finite gain.
+    ``gmax`` is the largest gain of the row's samples, ``wi`` the lowest frequency where it
+    is reached, ``below``/``above`` the nearest sampled frequencies under and over ``wi``
+    (``-inf``/``inf``: none), ``count`` the number of samples; non-finite gains count as
+    ``-inf``. ``active`` is False for a signal with no finite gain.
     """
     gv = np.where(np.isfinite(g), g, -np.inf)
     best = np.argmax(gv, axis=1)
@@ -122,8 +128,8 @@ def _initial_brackets(grid: np.ndarray, g: np.ndarray, passes: int):
         w0 = grid[lo:hi]
         keep = np.concatenate([[True], np.diff(w0) > _SAME * np.abs(w0[1:])])
         spans[int(i)] = np.arange(lo, hi)[keep]
-    room = max((v.size for v in spans.values()), default=1) + _NEW * passes
-    W = np.full((s, room), np.inf)
+    room = max((v.size for v in spans.values()), default=1)
+    W = np.full((s, room), np.inf)  # samples in no particular order, padded with inf / -inf
     G = np.full((s, room), -np.inf)
     count = np.zeros(s, dtype=int)
     for i, idx in spans.items():
@@ -131,7 +137,44 @@ def _initial_brackets(grid: np.ndarray, g: np.ndarray, passes: int):
         W[who, : idx.size] = grid[idx]
         G[who, : idx.size] = gv[who][:, idx]
         count[who] = idx.size
-    return W, G, count, active
+    gmax, wi, below, above = _peak_and_neighbours(list(W.T), list(G.T))
+    return gmax, wi, below, above, count, active
+
+
+def _peak_and_neighbours(ws: list[np.ndarray], gs: list[np.ndarray]):
+    """``(gmax, wi, below, above)`` of rows whose samples are the columns ``ws`` (frequencies)
+    and ``gs`` (gains; ``-inf`` for none): the largest gain, the lowest frequency reaching
+    it, and the nearest frequencies under and over that one (``-inf``/``inf``: none).
+
+    Reduced column by column (one elementwise operation over every row per column): a
+    reduction along a row of a handful of entries costs numpy far more per row.
+    """
+    gmax = functools.reduce(np.maximum, gs)
+    wi = functools.reduce(np.minimum, [np.where(g == gmax, w, np.inf) for w, g in zip(ws, gs)])
+    below = functools.reduce(np.maximum, [np.where(w < wi, w, -np.inf) for w in ws])
+    above = functools.reduce(np.minimum, [np.where(w > wi, w, np.inf) for w in ws])
+    return gmax, wi, below, above
+
+
+def _fold_in(gmax, wi, below, above, pts, kept, values):
+    """The peak and bracket of rows after adding the samples ``pts[kept]`` (gains ``values``):
+    ``(gmax, wi, below, above)``, as the same reductions over every sample would give.
+
+    Only the new samples and the old peak and neighbours can be the new ones: the new
+    points lie strictly between the old neighbours (or beyond the end of the samples, on
+    the side where the old peak has none), where the old peak was the only sample, and an
+    old sample as large as the new largest gain lies at or above the old peak frequency
+    (the old peak was the lowest such). So a row's update reads 8 numbers, not all its samples.
+    """
+    gn = np.where(kept, np.where(np.isfinite(values), values, -np.inf), -np.inf)
+    g2 = functools.reduce(np.maximum, list(gn.T), gmax)
+    lowest_new = functools.reduce(np.minimum, [np.where(g == g2, w, np.inf) for w, g in zip(pts.T, gn.T)])
+    w2 = np.where(gmax == g2, np.minimum(wi, lowest_new), lowest_new)
+    lo = [below, wi, above] + list(np.where(kept, pts, -np.inf).T)
+    hi = [below, wi, above] + list(np.where(kept, pts, np.inf).T)
+    b2 = functools.reduce(np.maximum, [np.where(w < w2, w, -np.inf) for w in lo])
+    a2 = functools.reduce(np.minimum, [np.where(w > w2, w, np.inf) for w in hi])
+    return g2, w2, b2, a2
 
 
 def _linspace_inner(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -147,24 +190,20 @@ def _linspace_inner(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return pts
 
 
-def _new_points(W, G, count, grid):
+def _new_points(wi, below, above, count, grid):
     """The points each row of a bracket asks for in this pass: ``(points, kept)``, (r, 5).
 
-    The samples of a row are unordered, so the peak (the lowest frequency among equal
-    largest gains, as a search in ascending order finds first) and its neighbours in
-    frequency are found by masked minima and maxima.
+    ``wi`` is the row's peak frequency (the lowest among equal largest gains, as a search
+    in ascending order finds first), ``below``/``above`` its neighbours in frequency
+    (``-inf``/``inf``: none), ``count`` its number of samples.
     """
     top = grid[-1]
     low = grid[1] if grid.size > 1 else -np.inf
-    gmax = G.max(axis=1)
-    wi = np.where(G == gmax[:, None], W, np.inf).min(axis=1)
-    below = np.where(W < wi[:, None], W, -np.inf).max(axis=1)
-    above = np.where(W > wi[:, None], W, np.inf).min(axis=1)
     up = (above == np.inf) & (wi >= top)  # still rising at the top: look further up
     # between DC and the lowest grid point
     down = ~up & (below == -np.inf) & (count > 1) & (wi > 0) & (wi <= low)
     inside = ~up & ~down & (below > -np.inf) & (above < np.inf)
-    pts = np.zeros((W.shape[0], _NEW))
+    pts = np.zeros((wi.shape[0], _NEW))
     pts[up] = wi[up, None] * _UP[None, :]
     pts[down] = wi[down, None] * _DOWN[None, :]
     pts[inside] = _linspace_inner(below[inside], above[inside])
@@ -172,10 +211,12 @@ def _new_points(W, G, count, grid):
     # existing point up to rounding, which would make it its own neighbour). A new point
     # lies above every sample, below every sample, or between the peak's two neighbours;
     # rounding is monotone, so no sample is closer to it than the peak and those neighbours.
-    near = np.stack([np.where(inside, below, wi), wi, np.where(inside, above, wi)], axis=1)
+    # (one comparison per near point over every row: an all() over a last axis of 3 costs more)
+    kept = np.repeat((up | down | inside)[:, None], _NEW, axis=1)
+    tol = _SAME * np.abs(pts)
     with np.errstate(invalid="ignore"):
-        far = np.abs(pts[:, :, None] - near[:, None, :]) > _SAME * np.abs(pts)[:, :, None]
-    kept = np.all(far, axis=2) & (up | down | inside)[:, None]
+        for near in (np.where(inside, below, wi), wi, np.where(inside, above, wi)):
+            kept &= np.abs(pts - near[:, None]) > tol
     return pts, kept
 
 
@@ -206,16 +247,12 @@ def refine_peaks(responder, grid: np.ndarray, Y: np.ndarray, sig_items, passes: 
     names = [sig for sig, _sl in sig_items]
     starts = np.array([sl.start for _sig, sl in sig_items], dtype=int)
     scalar = np.array([sl.stop - sl.start == 1 for _sig, sl in sig_items], dtype=bool)
-    W, G, count, active = _initial_brackets(grid, grid_gains(Y, sig_items), passes)
+    gmax, wi, below, above, count, active = _initial_brackets(grid, grid_gains(Y, sig_items))
     live = np.flatnonzero(active)  # rows still asking for points (a row that asks for none never will again)
     for done in range(passes):
         if progress is not None:
             progress(done / passes)
-        used = int(count[live].max())  # columns past every row's count are padding
-        if live.size == W.shape[0]:
-            pts, kept = _new_points(W[:, :used], G[:, :used], count, grid)
-        else:
-            pts, kept = _new_points(W[live, :used], G[live, :used], count[live], grid)
+        pts, kept = _new_points(wi[live], below[live], above[live], count[live], grid)
         asks = kept.any(axis=1)
         live, pts, kept = live[asks], pts[asks], kept[asks]
         if live.size == 0:
@@ -241,16 +278,7 @@ def refine_peaks(responder, grid: np.ndarray, Y: np.ndarray, sig_items, passes: 
                 sl = sig_items[live[q]][1]
                 at = slice(offsets[plan[q]], offsets[plan[q]] + c)
                 values[q, :c] = sigma_max(responder.outputs(solved, sl, at))
-        # append the new samples to each row
-        slot = count[live][:, None] + np.arange(_NEW)[None, :]
-        row = np.repeat(live[:, None], _NEW, axis=1)
-        W[row[kept], slot[kept]] = pts[kept]
-        G[row[kept], slot[kept]] = np.where(np.isfinite(values[kept]), values[kept], -np.inf)
+        gmax[live], wi[live], below[live], above[live] = _fold_in(gmax[live], wi[live], below[live], above[live], pts, kept, values)
         count[live] += kept.sum(axis=1)
     # the peak: the lowest frequency among equal largest gains
-    gmax = G.max(axis=1)
-    w = np.where(G == gmax[:, None], W, np.inf).min(axis=1)
-    best: dict[str, tuple[float, float]] = {}
-    for j, sig in enumerate(names):
-        best[sig] = (float(gmax[j]), float(w[j])) if active[j] else (0.0, 0.0)
-    return best
+    return {sig: (g, w) if a else (0.0, 0.0) for sig, g, w, a in zip(names, gmax.tolist(), wi.tolist(), active.tolist())}

@@ -20,7 +20,7 @@ from loopwright.engine.blas_threads import limit_blas_threads
 from loopwright.engine.eigen import format_pole, trustworthy_digits
 from loopwright.engine.cli_options import bounded_int
 from loopwright.engine.errors import EngineError
-from loopwright.engine.interconnect import collector_paused
+from loopwright.engine.interconnect import assemble, collector_paused
 from loopwright.engine.output_paths import check_export_output
 
 __all__ = ["main", "build_parser", "COMMANDS", "one_line"]
@@ -45,7 +45,7 @@ class _Parser(argparse.ArgumentParser):
 
 def _check(args: argparse.Namespace) -> int:
     diagram = load_diagram(args.file)
-    rep = summarize(diagram)
+    rep = summarize(diagram, model=assemble(diagram, take=True))  # the diagram is this command's own
     sep = rep.separation
     if args.json:
         print_json(
@@ -140,7 +140,7 @@ def _report(args: argparse.Namespace) -> int:
         from loopwright.engine.report_html import Picture, report_html, write_report_html
 
         check_export_output(args.html, reading=[args.file])  # refused before any work
-        rep = loop_report(diagram, top=args.top)
+        rep = loop_report(diagram, top=args.top, take=True)
         picture, how = None, "a block sketch drawn by the engine (the canvas renderer needs PySide6)"
         render = getattr(args, "diagram_renderer", None)
         if render is not None:
@@ -152,7 +152,7 @@ def _report(args: argparse.Namespace) -> int:
         print(f"wrote {args.html}  (diagram picture: {how})")
         print(f"\n{CAUTION}")
         return 0
-    rep = loop_report(diagram, top=args.top)
+    rep = loop_report(diagram, top=args.top, take=True)  # the diagram is this command's own
     if args.json:
         print_json({"file": args.file, **rep.as_dict()})
     else:

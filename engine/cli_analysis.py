@@ -17,6 +17,7 @@ from loopwright.engine.cli_common import fmt_num, load_diagram, print_json, writ
 from loopwright.engine.cli_options import FREQUENCY_RANGE_RAD_S, SKEW_RANGE, TIME_RANGE_S, bounded_float, bounded_int
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.interconnect import assemble
+from loopwright.engine.path_text import PATH_TEXT_MAX, path_text
 from loopwright.engine.views_data import MAX_POINTS
 
 __all__ = ["add_commands"]
@@ -84,7 +85,11 @@ def add_commands(subparsers) -> None:
     _plot_flag(p)
     p.set_defaults(run=_margins)
 
-    p = subparsers.add_parser("audit", help="rank every source-to-signal path (peak gain, H2, DC gain, stability)")
+    p = subparsers.add_parser(
+        "audit", help="rank every source-to-signal path (peak gain, H2, DC gain, stability)",
+        epilog=f"The table shows a path of more than {PATH_TEXT_MAX} blocks by its first and last three blocks and the number "
+               "left out between them ('... 1,994 more ...'); --json and --csv list every block and wire of every path.",
+    )
     p.add_argument("file", help="diagram file (.lwd)")
     p.add_argument("--injections", action="store_true", help="also audit the injection on every signal")
     p.add_argument("--top", type=bounded_int(1, _MAX_ROWS), default=None, help="show only the first N rows")
@@ -130,10 +135,12 @@ def _check_plot(args: argparse.Namespace) -> None:
 
 
 def _table(header: list[str], rows: list[list[str]], *, indent: str = "  ") -> None:
+    """The header and rows, the first column left-aligned and the others right-aligned,
+    printed at once (thousands of rows on a long chain)."""
     widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)]
-    print((indent + "  ".join(h.rjust(w) if i else h.ljust(w) for i, (h, w) in enumerate(zip(header, widths)))).rstrip())
-    for r in rows:
-        print((indent + "  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths)))).rstrip())
+    first, rest = widths[0], list(enumerate(widths))[1:]
+    lines = [(indent + "  ".join([r[0].ljust(first)] + [r[i].rjust(w) for i, w in rest])).rstrip() for r in [header, *rows]]
+    print("\n".join(lines))
 
 
 # ---------------------------------------------------------------------------------------
@@ -146,7 +153,7 @@ def _freq(args: argparse.Namespace) -> int:
 
     _check_plot(args)
     diagram = load_diagram(args.file)
-    model = assemble(diagram)
+    model = assemble(diagram, take=True)  # the diagram is this command's own
     w_list = _frequency_list(args.w_list) if args.w_list is not None else None
     resp = pair_frequency_response(model, args.source, args.signal, w_min=args.w_min, w_max=args.w_max,
                                    points=args.points, w=w_list)
@@ -232,7 +239,7 @@ def _tf(args: argparse.Namespace) -> int:
     from loopwright.engine.path_tf import path_transfer
 
     diagram = load_diagram(args.file)
-    model = assemble(diagram)
+    model = assemble(diagram, take=True)  # the diagram is this command's own
     tf = path_transfer(model, args.source, args.signal)
     if args.json:
         print_json({"file": args.file, **tf.as_dict(), "caution": CAUTION})
@@ -289,7 +296,7 @@ def _time(args: argparse.Namespace) -> int:
 
     _check_plot(args)
     diagram = load_diagram(args.file)
-    model = assemble(diagram)
+    model = assemble(diagram, take=True)  # the diagram is this command's own
     sigs = [model.resolve_signal(s.strip()) for s in args.signals.split(",") if s.strip()]
     if not sigs:
         raise ParameterError("--to needs at least one signal name", field="--to")
@@ -513,29 +520,33 @@ def _sets(*what) -> str:
 
 
 class _Joined:
-    """``" ".join(names)``, once per list: rows of the path audit share their path lists
-    (on a loop every row of a source lists the same ~n blocks), so the text is shared too."""
+    """``join(names)`` (default ``" ".join``), once per list: rows of the path audit share
+    their path lists (on a loop every row of a source lists the same ~n blocks), so the
+    text is shared too."""
 
-    def __init__(self):
+    def __init__(self, join=" ".join):
+        self._join = join
         self._done: dict[int, tuple[list, str]] = {}
 
     def __call__(self, names: list[str]) -> str:
         hit = self._done.get(id(names))
         if hit is None or hit[0] is not names:
-            hit = self._done[id(names)] = (names, " ".join(names))  # the list is kept, so its id stays its own
+            hit = self._done[id(names)] = (names, self._join(names))  # the list is kept, so its id stays its own
         return hit[1]
 
 
 def _memo_fmt():
-    """:func:`fmt_num` remembering its answers; keyed by value and sign, so -0.0 keeps its "-0"."""
-    done: dict[tuple[float, float], str] = {}
+    """:func:`fmt_num` remembering its answers by value; a zero is formatted each time, so
+    -0.0 keeps its "-0" (it equals 0.0 as a key)."""
+    done: dict[float, str] = {}
 
     def number(v) -> str:
-        v = float(v)
-        key = (v, math.copysign(1.0, v))
-        text = done.get(key)
+        text = done.get(v)
         if text is None:
-            text = done[key] = fmt_num(v)
+            v = float(v)
+            if v == 0.0:
+                return fmt_num(v)
+            text = done[v] = fmt_num(v)
         return text
 
     return number
@@ -545,7 +556,7 @@ def _audit(args: argparse.Namespace) -> int:
     from loopwright.engine.audit import RANKING_RULE, path_audit
 
     diagram = load_diagram(args.file)
-    model = assemble(diagram)
+    model = assemble(diagram, take=True)  # the diagram is this command's own
     rows = path_audit(model, injections=args.injections)
     total = len(rows)
     if args.top is not None:
@@ -566,6 +577,7 @@ def _audit(args: argparse.Namespace) -> int:
     shown = f"top {len(rows)} of {total} paths" if len(rows) < total else f"{total} paths"
     print(f"{args.file}: path audit ({shown}; {RANKING_RULE})")
     number = _memo_fmt()  # a long chain repeats a few values thousands of times
+    joined = _Joined(path_text)  # a long path by its ends: the table grows linearly with the diagram
     _table(
         ["#", "source", "signal", "peak gain", "at (rad/s)", "H2", "DC gain", "stable", "blocks on the path"],
         [
@@ -592,7 +604,7 @@ def _noise(args: argparse.Namespace) -> int:
     from loopwright.engine.noise import noise_budget
 
     diagram = load_diagram(args.file)
-    model = assemble(diagram)
+    model = assemble(diagram, take=True)  # the diagram is this command's own
     b = noise_budget(model)
     srcs = list(b.sources)
     covs = _covariances(model, b, args.covariance)
@@ -615,10 +627,12 @@ def _noise(args: argparse.Namespace) -> int:
           + ")")
     if b.message:
         print(f"  note: {b.message}")
+    number = _memo_fmt()  # a long chain repeats a few values thousands of times
     _table(
         ["component", "RMS"] + [f"share {s}" for s in srcs] + [""],
         [
-            [ln.name, fmt_num(ln.rms)] + [("-" if not np.isfinite(ln.share_by_source[s]) else f"{100 * ln.share_by_source[s]:.1f} %") for s in srcs] + [ln.reason]
+            [ln.name, number(ln.rms)] + [("-" if not math.isfinite(ln.share_by_source[s]) else f"{100 * ln.share_by_source[s]:.1f} %") for s in srcs]
+            + [ln.reason]
             for ln in b.lines
         ],
     )

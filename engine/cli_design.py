@@ -248,11 +248,11 @@ def _export(args: argparse.Namespace) -> int:
         c_prefix_for(args.output, args.prefix)
     summary: dict = {"file": args.file, "what": args.what, "format": fmt}
     if args.what == "closed-loop":
-        model = closed_loop_model(diagram, source=args.file)
+        model = closed_loop_model(diagram, source=args.file, take=True)  # the diagram is this command's own
     elif args.what == "path":
         if not args.source or not args.signal:
             raise DesignError("--what path needs --from INPUT and --to SIGNAL")
-        model = path_model(diagram, args.source, args.signal, source=args.file)
+        model = path_model(diagram, args.source, args.signal, source=args.file, take=True)
     else:
         measured, actuator = _split(args.measured), _split(args.actuator)
         if measured is None or actuator is None:

@@ -90,18 +90,24 @@ def _origin(diagram: Diagram, source: str | None) -> str:
     return " ".join(parts) if parts else "diagram"
 
 
-def closed_loop_model(diagram: Diagram, *, source: str | None = None) -> ExportModel:
-    """The whole assembled model: every source and injection in, every signal out."""
-    m = assemble(diagram)
+def closed_loop_model(diagram: Diagram, *, source: str | None = None, take: bool = False) -> ExportModel:
+    """The whole assembled model: every source and injection in, every signal out.
+
+    ``take``: the caller hands ``diagram`` over (see :func:`~loopwright.engine.interconnect.assemble`).
+    """
+    m = assemble(diagram, take=take)
     return ExportModel(
         "closed-loop", m.A, m.B, m.C, m.D, m.state_names, m.input_names, m.output_names, _origin(diagram, source),
         extra={"sources": dict(m.sources)},
     )
 
 
-def path_model(diagram: Diagram, input_name: str, signal: str, *, source: str | None = None) -> ExportModel:
-    """One path of the assembled model: from a source (or a signal's injection) to a signal."""
-    m = assemble(diagram)
+def path_model(diagram: Diagram, input_name: str, signal: str, *, source: str | None = None, take: bool = False) -> ExportModel:
+    """One path of the assembled model: from a source (or a signal's injection) to a signal.
+
+    ``take``: the caller hands ``diagram`` over (see :func:`~loopwright.engine.interconnect.assemble`).
+    """
+    m = assemble(diagram, take=take)
     group = m.resolve_input(input_name)
     sig = m.resolve_signal(signal)
     A, B, C, D = m.pair(group, sig)

@@ -196,10 +196,12 @@ def signal_names(diagram: Diagram) -> dict[PortRef, str]:
     """Signal name of every output port: the wire's name, or ``block.port`` when unwired."""
     out: dict[PortRef, str] = {}
     wired = {w.source: w.name for w in diagram.wires.values()}
+    as_ref = tuple.__new__  # PortRef(...) without its Python-level constructor (one per port)
     for b in diagram.blocks.values():
         for port in output_ports(b):
-            ref = PortRef(b.id, port)
-            out[ref] = wired.get(ref, f"{b.name}.{port}")
+            ref = as_ref(PortRef, (b.id, port))
+            name = wired.get(ref)
+            out[ref] = f"{b.name}.{port}" if name is None else name
     return out
 
 
@@ -237,22 +239,31 @@ def _wiring_problems(diagram: Diagram, widths: dict[str, tuple[dict[str, int], d
                      sig_of_port: dict[PortRef, str] | None = None) -> list[Problem]:
     """Wires to missing ports, width mismatches, unconnected or doubly fed inputs, name clashes."""
     found: list[Problem] = []
-    in_ports = {b.id: input_ports(b) for b in diagram.blocks.values()}
+    blocks = diagram.blocks
+    in_ports = {b.id: input_ports(b) for b in blocks.values()}
+    no_widths: tuple[dict, dict] = ({}, {})
+    fed: dict[PortRef, str] = {}  # the first wire into each input port
+    twice: dict[PortRef, list[str]] = {}  # every wire into a port fed more than once, in order
     for w in diagram.wires.values():
-        src_blk = diagram.blocks.get(w.source.block)
+        for t in w.targets:
+            if t in fed:
+                twice.setdefault(t, [fed[t]]).append(w.id)
+            else:
+                fed[t] = w.id
+        src_blk = blocks.get(w.source.block)
         if src_blk is None:
             found.append(Problem(f"wire {w.name!r} starts at a block that no longer exists", (), (w.id,)))
             continue
-        sw = widths.get(src_blk.id, (None, {}))[1].get(w.source.port)
+        sw = widths.get(src_blk.id, no_widths)[1].get(w.source.port)
         for t in w.targets:
-            dst = diagram.blocks.get(t.block)
+            dst = blocks.get(t.block)
             if dst is None:
                 found.append(Problem(f"wire {w.name!r} ends at a block that no longer exists", (), (w.id,)))
                 continue
             if t.port not in in_ports[dst.id]:
                 found.append(Problem(f"wire {w.name!r} ends at {dst.name}.{t.port}, which is not an input port", (dst.id,), (w.id,)))
                 continue
-            dw = widths.get(dst.id, ({}, None))[0].get(t.port)
+            dw = widths.get(dst.id, no_widths)[0].get(t.port)
             if sw is not None and dw is not None and sw != dw:
                 found.append(
                     Problem(
@@ -262,17 +273,13 @@ def _wiring_problems(diagram: Diagram, widths: dict[str, tuple[dict[str, int], d
                         (w.id,),
                     )
                 )
-    fed: dict[PortRef, list[str]] = {}
-    for w in diagram.wires.values():
-        for t in w.targets:
-            fed.setdefault(t, []).append(w.id)
-    for b in diagram.blocks.values():
+    for b in blocks.values():
         for port in in_ports[b.id]:
-            ref = PortRef(b.id, port)
+            ref = (b.id, port)  # equal to the PortRef, and hashed alike
             if ref not in fed:
                 found.append(Problem(f"input {b.name}.{port} is not connected", (b.id,)))
-            elif len(fed[ref]) > 1:
-                found.append(Problem(f"input {b.name}.{port} is fed by {len(fed[ref])} wires", (b.id,), tuple(fed[ref])))
+            elif ref in twice:
+                found.append(Problem(f"input {b.name}.{port} is fed by {len(twice[ref])} wires", (b.id,), tuple(twice[ref])))
     seen: dict[str, PortRef] = {}
     for ref, name in (signal_names(diagram) if sig_of_port is None else sig_of_port).items():
         if name in seen:
@@ -316,7 +323,7 @@ def collector_paused():
             gc.enable()
 
 
-def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel:
+def assemble(diagram: Diagram, *, break_at: str | None = None, take: bool = False) -> AssembledModel:
     """Reduce ``diagram`` to one continuous-time state-space model.
 
     Parameters
@@ -325,6 +332,10 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
         Not modified; the model keeps a snapshot.
     break_at : str, optional
         Signal, or input port ``"block.port"``, at which to open the loop (see the module docstring).
+    take : bool
+        The model keeps ``diagram`` itself rather than a snapshot: for a caller that hands
+        the diagram over and changes it no more (a command that has just read it from a
+        file). Copying is a fifth of the assembly of a long chain of gains.
 
     Returns
     -------
@@ -351,19 +362,25 @@ def assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel
     array([[-2.]])
     """
     with collector_paused():
-        return _assemble(diagram, break_at=break_at)
+        return _assemble(diagram, break_at=break_at, take=take)
 
 
-def _assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledModel:
+def _assemble(diagram: Diagram, *, break_at: str | None = None, take: bool = False) -> AssembledModel:
     """The work of :func:`assemble` (which pauses the collector around it)."""
-    snap = diagram.copy()
+    snap = diagram if take else diagram.copy()
     blocks = list(snap.blocks.values())
     reals, problems = _realize_all(blocks, snap, check_each=False)
     if problems or not _all_in_range(reals.values()):
         # something is wrong: block by block again, so the problems come in diagram order
         reals, problems = _realize_all(blocks, snap, check_each=True)
     _raise_first(problems)
-    widths = {bid: (dict(r.inputs), dict(r.outputs)) for bid, r in reals.items()}
+    widths: dict[str, tuple[dict[str, int], dict[str, int]]] = {}
+    by_realization: dict[int, tuple[dict[str, int], dict[str, int]]] = {}  # blocks sharing one share these (read only)
+    for bid, r in reals.items():
+        w = by_realization.get(id(r))
+        if w is None:
+            w = by_realization[id(r)] = (dict(r.inputs), dict(r.outputs))
+        widths[bid] = w
     for b in blocks:
         if b.kind == "source":
             with np.errstate(all="ignore"):
@@ -386,10 +403,11 @@ def _assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledMode
     nu = 0
     y_rows_of_block: list[tuple[int, int]] = []  # (row offset, rows) per realised block, in stacking order
     src_rows, src_cols_list = [], []
+    as_ref = tuple.__new__  # PortRef(...) without its Python-level constructor (one per port)
     for b in blocks:
         if b.kind == "source":
-            w = port_widths(b, snap)[1]["out"]
-            ref = PortRef(b.id, "out")
+            w = widths[b.id][1]["out"]
+            ref = as_ref(PortRef, (b.id, "out"))
             name = sig_of_port[ref]
             port_rows[ref] = slice(ns, ns + w)
             sig_slices[name], sig_ports[name] = slice(ns, ns + w), ref
@@ -411,15 +429,18 @@ def _assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledMode
         C_parts.append(r.C)
         D_parts.append(r.D)
         for port, w in r.inputs:
-            in_offsets[PortRef(b.id, port)] = slice(nu, nu + w)
+            in_offsets[as_ref(PortRef, (b.id, port))] = slice(nu, nu + w)
             nu += w
         row0 = ns
         for port, w in r.outputs:
-            ref = PortRef(b.id, port)
+            ref = as_ref(PortRef, (b.id, port))
             name = sig_of_port[ref]
-            port_rows[ref] = slice(ns, ns + w)
-            sig_slices[name], sig_ports[name] = slice(ns, ns + w), ref
-            sig_names.extend(_comp_names(name, w))
+            port_rows[ref] = rows = slice(ns, ns + w)
+            sig_slices[name], sig_ports[name] = rows, ref
+            if w == 1:
+                sig_names.append(name)
+            else:
+                sig_names.extend(_comp_names(name, w))
             ns += w
         y_rows_of_block.append((row0, ns - row0))
         nx_ += n
@@ -434,7 +455,7 @@ def _assemble(diagram: Diagram, *, break_at: str | None = None) -> AssembledMode
     Ab = sp.csr_matrix(Ab, shape=(nx_, nx_))
     Bb = sp.csr_matrix(Bb, shape=(nx_, nu))
     # map stacked block-output rows to signal rows (sources interleave in diagram order)
-    row_map = np.concatenate([np.arange(r0, r0 + k) for r0, k in y_rows_of_block]) if y_rows_of_block else np.zeros(0, int)
+    row_map = _concatenated_ranges(y_rows_of_block)
     Cb = sp.csr_matrix((Cb_blk.data, (row_map[Cb_blk.row], Cb_blk.col)), shape=(ns, nx_))
     Db = sp.csr_matrix((Db_blk.data, (row_map[Db_blk.row], Db_blk.col)), shape=(ns, nu))
     E = sp.csr_matrix((np.ones(len(src_rows)), (src_rows, src_cols_list)), shape=(ns, ne))
@@ -534,7 +555,17 @@ def _realize_all(blocks, snap: Diagram, *, check_each: bool) -> tuple[dict[str, 
 def _realize_each(blocks, snap, check_each):
     reals: dict[str, Realization] = {}
     problems: list[Problem] = []
+    # Gains and junctions are functions of their numbers alone: blocks with equal numbers
+    # share one realisation (a chain of thousands of unit gains is realised once). Only
+    # when every block is checked on its own (to name the first problem) is nothing shared.
+    shared: dict[tuple, Realization] = {}
     for b in blocks:
+        key = None if check_each else _parameter_key(b)
+        if key is not None:
+            hit = shared.get(key)
+            if hit is not None:
+                reals[b.id] = hit
+                continue
         try:
             check_block_params(b)
             if b.kind == "source":
@@ -543,14 +574,59 @@ def _realize_each(blocks, snap, check_each):
             if check_each:
                 check_realization(b, {"A": r.A, "B": r.B, "C": r.C, "D": r.D})
             reals[b.id] = r
+            if key is not None:
+                for M in (r.A, r.B, r.C, r.D):
+                    M.flags.writeable = False  # shared by several blocks: nobody may change it in place
+                shared[key] = r
         except EngineError as err:
             problems.append(Problem(err.message, tuple(err.block_ids) or (b.id,), error=err))
     return reals, problems
 
 
+# A gain of at most this many entries is keyed by its numbers (a bigger one is realised on its own).
+_SHARED_GAIN_ENTRIES = 16
+
+
+def _parameter_key(b) -> tuple | None:
+    """A key equal for two gains (or two summing junctions) exactly when their parameters
+    are, typed numbers included (``1``, ``1.0`` and ``True`` differ); None for any other block,
+    or parameters not in the plain form (their realisation is made and checked on its own)."""
+    p = b.params
+    if type(p) is not dict:
+        return None
+    if b.kind == "gain":
+        if len(p) != 1:
+            return None
+        K = p.get("K")
+        if type(K) is list and len(K) == 1:  # a scalar gain written [[k]]: the usual one
+            row = K[0]
+            if type(row) is list and len(row) == 1 and type(row[0]) is float:
+                return ("gain", ((row[0],),))
+        if type(K) is float or type(K) is int:
+            return ("gain", type(K), K)
+        if type(K) is not list or not K or len(K) > _SHARED_GAIN_ENTRIES:
+            return None
+        rows = []
+        for row in K:
+            if type(row) is not list or len(row) > _SHARED_GAIN_ENTRIES:
+                return None
+            for x in row:
+                if type(x) is not float:
+                    return None
+            rows.append(tuple(row))
+        return ("gain", tuple(rows))
+    if b.kind == "sum":
+        signs, width = p.get("signs"), p.get("width", 1)
+        if len(p) > 2 or type(signs) is not list or type(width) is not int or not all(type(x) is str for x in signs):
+            return None
+        return ("sum", tuple(signs), width)
+    return None
+
+
 def _all_in_range(reals) -> bool:
     """Whether every entry of every realisation is finite and within :data:`SCALE_LIMIT` (one pass)."""
-    parts = [M.ravel() for r in reals for M in (r.A, r.B, r.C, r.D) if M.size]
+    unique = {id(r): r for r in reals}.values()  # a shared realisation is checked once
+    parts = [M.ravel() for r in unique for M in (r.A, r.B, r.C, r.D) if M.size]
     if not parts:
         return True
     values = np.concatenate(parts)
@@ -582,18 +658,30 @@ def _resolve_break(diagram: Diagram, where: str, sig_slices, sig_of_port) -> tup
 
 def _block_diag(parts: list[np.ndarray]) -> sp.coo_matrix:
     """Sparse block-diagonal stack of dense blocks (empty blocks keep their shape), in one
-    pass: cheaper than ``scipy.sparse.block_diag`` on thousands of tiny blocks."""
-    rows, cols, vals = [np.zeros(0, dtype=np.int64)], [np.zeros(0, dtype=np.int64)], [np.zeros(0)]
-    r0 = c0 = 0
-    for part in parts:
-        if part.size:
-            i, j = np.nonzero(part)
-            rows.append(i + r0)
-            cols.append(j + c0)
-            vals.append(part[i, j])
-        r0 += part.shape[0]
-        c0 += part.shape[1]
-    return sp.coo_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(r0, c0))
+    vectorised pass over all their entries: cheaper than ``scipy.sparse.block_diag`` (or a
+    pass per block) on thousands of tiny blocks."""
+    shapes = np.array([part.shape for part in parts], dtype=np.int64).reshape(-1, 2)
+    r0 = np.concatenate([[0], np.cumsum(shapes[:, 0])])
+    c0 = np.concatenate([[0], np.cumsum(shapes[:, 1])])
+    sizes = shapes[:, 0] * shapes[:, 1]
+    values = np.concatenate([part.ravel() for part in parts if part.size] or [np.zeros(0)]).astype(float, copy=False)
+    # entry k of part p (row-major): row r0[p] + k // cols[p], column c0[p] + k % cols[p]
+    owner = np.repeat(np.arange(len(parts)), sizes)
+    local = np.arange(values.size) - np.repeat(np.cumsum(sizes) - sizes, sizes)
+    cols = shapes[owner, 1]
+    keep = values != 0
+    rows = (r0[:-1][owner] + local // np.maximum(cols, 1))[keep]
+    columns = (c0[:-1][owner] + local % np.maximum(cols, 1))[keep]
+    return sp.coo_matrix((values[keep], (rows, columns)), shape=(int(r0[-1]), int(c0[-1])))
+
+
+def _concatenated_ranges(runs: list[tuple[int, int]]) -> np.ndarray:
+    """``concatenate([arange(start, start + k) for start, k in runs])``, in one vectorised step."""
+    if not runs:
+        return np.zeros(0, dtype=np.int64)
+    starts, counts = np.array(runs, dtype=np.int64).T
+    before = np.cumsum(counts) - counts
+    return np.repeat(starts - before, counts) + np.arange(int(counts.sum()), dtype=np.int64)
 
 
 def _dense(m) -> np.ndarray:

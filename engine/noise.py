@@ -16,6 +16,8 @@ Lyapunov equation is solved in Schur coordinates on the part of the state it rea
 """
 from __future__ import annotations
 
+import math
+
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -185,21 +187,28 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
         vmat = np.array([var[name] for name in names], dtype=float).T.reshape(n_rows, len(names))
     white = dmat > 0
     vmat = np.where(white, np.inf, vmat)
+    # what each line needs, for every line at once (the loop below only builds the lines)
+    n_src_names = len(names)
+    any_white = white.any(axis=1).tolist()
+    last_white = (n_src_names - 1 - np.argmax(white[:, ::-1], axis=1)).tolist() if n_src_names else [0] * n_rows
+    values_l = vmat.tolist()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        infs = np.isinf(vmat)
+        inf_share = np.where(infs, 1.0 / infs.sum(axis=1)[:, None], 0.0).tolist()
     for k, (cname, sig, _, _) in enumerate(rows):
-        values = vmat[k].tolist()
+        values = values_l[k]
         vb = dict(zip(names, values))
         reason = ""
-        if white[k].any():
-            last = names[int(np.flatnonzero(white[k])[-1])]
+        if any_white[k]:
+            last = names[last_white[k]]
             reason = f"direct feedthrough from white source {last!r}: the signal is itself white"
         total = float(sum(values))
         if not stable and srcs:
             reason = reason or "the closed loop is not stable"
-        if np.isfinite(total) and total > 0:
+        if math.isfinite(total) and total > 0:
             share = dict(zip(names, (vmat[k] / total).tolist()))
-        elif np.isinf(total):
-            infs = np.isinf(vmat[k])
-            share = dict(zip(names, np.where(infs, 1.0 / infs.sum(), 0.0).tolist())) if stable else dict.fromkeys(names, np.nan)
+        elif math.isinf(total):
+            share = dict(zip(names, inf_share[k])) if stable else dict.fromkeys(names, np.nan)
         else:
             share = dict.fromkeys(names, np.nan)
         budget.lines.append(NoiseLine(cname, sig, float(np.sqrt(total)), vb, share, reason))

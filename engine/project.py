@@ -12,6 +12,7 @@ can show what is wrong; :func:`loopwright.engine.validation.problems` reports it
 """
 from __future__ import annotations
 
+import copy
 import errno
 import functools
 import json
@@ -117,23 +118,23 @@ def _parse(text: str, origin: str) -> tuple[Any, bool]:
 
 
 # Text that may hold a number beyond the float range: 309 digits in a row, or an exponent
-# of 100 or more. Only then are the numbers parsed one by one to find it.
-_OUT_OF_RANGE_HINT = re.compile(r"\d{309}|[eE]\+?0*[1-9]\d\d")
-_BIG_EXPONENT = re.compile(r"[eE]\+?0*[1-9]\d\d")
+# of 100 or more. Only then are the numbers parsed one by one to find it. Both are looked
+# for in a copy of the bytes that keeps only what they are made of (digits; ``e``, ``E`` as
+# ``e``; ``+``), everything else a space: one C pass each, instead of a regular expression
+# trying every letter of every name.
+_BIG_EXPONENT = re.compile(rb"e\+?0*[1-9][0-9][0-9]")
+_EXPONENT_BYTES = bytes(c if 48 <= c <= 57 or c == 43 else 101 if c in (69, 101) else 32 for c in range(256))
+_DIGIT_BYTES = bytes(48 if 48 <= c <= 57 else 32 for c in range(256))
+_LONG_DIGIT_RUN = b"0" * 309
 
 
 def _may_hold_out_of_range_number(text: str) -> bool:
-    """:data:`_OUT_OF_RANGE_HINT` found in ``text``; the run of 309 digits is looked for by
-    a vectorised count (the regular expression tries it at every digit: slow on long files)."""
-    import numpy as np
-
-    if _BIG_EXPONENT.search(text):
+    """Whether ``text`` holds a run of 309 digits or an exponent ``e+100`` or more (``E``,
+    leading zeros and no ``+`` alike): the only ways a JSON number leaves the float range."""
+    raw = text.encode("utf-8", "surrogatepass")
+    if _BIG_EXPONENT.search(raw.translate(_EXPONENT_BYTES)):
         return True
-    codes = np.frombuffer(text.encode("utf-8", "surrogatepass"), dtype=np.uint8)
-    digit = np.zeros(codes.size + 2, dtype=np.int8)
-    digit[1:-1] = (codes >= ord("0")) & (codes <= ord("9"))
-    edges = np.flatnonzero(np.diff(digit))  # starts and ends of the runs of digits, in turn
-    return bool(edges.size) and int((edges[1::2] - edges[::2]).max()) >= 309
+    return _LONG_DIGIT_RUN in raw.translate(_DIGIT_BYTES)
 
 
 class _NonFinite:
@@ -148,6 +149,8 @@ class _NonFinite:
 
 
 _NESTING_TOKEN = re.compile(r'[\[\]{}"]')
+# every byte but brackets, braces and the quote: deleted before counting the nesting
+_NOT_NESTING_BYTES = bytes(c for c in range(256) if c not in b'[]{}"')
 
 
 def _deepest_nesting_bound(text: str) -> int:
@@ -157,12 +160,13 @@ def _deepest_nesting_bound(text: str) -> int:
     every string when an even number of quotes precede it: up to the first place the
     decoder would refuse, this counts exactly what :func:`_refuse_deep_nesting` counts, and
     past it at most more. A text with a backslash gets a bound that sends it to that walk.
+    Only the brackets and quotes are counted (the rest is deleted first, in one C pass).
     """
     import numpy as np
 
     if "\\" in text:  # escapes (rare in a diagram): the token-by-token walk reads them
         return MAX_NESTING + 1
-    codes = np.frombuffer(text.encode("utf-8", "surrogatepass"), dtype=np.uint8)
+    codes = np.frombuffer(text.encode("utf-8", "surrogatepass").translate(None, _NOT_NESTING_BYTES), dtype=np.uint8)
     if not codes.size:
         return 0
     outside = (np.cumsum(codes == ord('"')) & 1) == 0
@@ -450,8 +454,16 @@ def _quick_check(node: Any):
     if not isinstance(node, dict) or "patternProperties" in node or "prefixItems" in node or "else" in node:
         return _never
     checks = []
+    done: tuple[str, ...] = ()
+    if node.get("type") == "object" and "properties" in node:
+        # the usual object node: its type, properties and required keys in one pass
+        required = node.get("required", [])
+        if not isinstance(required, list):
+            return _never
+        checks.append(_quick_object(node["properties"], node.get("additionalProperties", True), strict=True, required=frozenset(required)))
+        done = ("type", "properties", "required")
     for kw, val in node.items():
-        if kw in _ANNOTATIONS or kw in ("then", "additionalProperties"):
+        if kw in _ANNOTATIONS or kw in ("then", "additionalProperties") or kw in done:
             continue
         if kw == "type":
             tests = [_TYPE_TESTS[t] for t in ([val] if isinstance(val, str) else val) if t in _TYPE_TESTS]
@@ -486,8 +498,7 @@ def _quick_check(node: Any):
         elif kw == "allOf":
             checks.append(_quick_by_kind(val) or _quick_all([_quick_check(sub) for sub in val]))
         elif kw == "anyOf":
-            subs = [_quick_check(sub) for sub in val]
-            checks.append(lambda v, subs=subs: any(f(v) for f in subs))
+            checks.append(_quick_any([_quick_check(sub) for sub in val]))
         elif kw == "if":
             # "if" decides whether "then" applies, so it must be exact both ways: a False
             # meaning "not sure" would skip a "then" that applies
@@ -515,8 +526,15 @@ def _quick_choice(choices: list):
 
 
 def _quick_all(checks):
+    """All of ``checks`` (called in turn, as few Python frames as possible: this runs on every value of a file)."""
     if len(checks) == 1:
         return checks[0]
+    if len(checks) == 2:
+        first, second = checks
+        return lambda v: first(v) and second(v)
+    if len(checks) == 3:
+        first, second, third = checks
+        return lambda v: first(v) and second(v) and third(v)
 
     def every(v):
         for c in checks:
@@ -527,19 +545,31 @@ def _quick_all(checks):
     return every
 
 
-def _quick_object(props: dict, additional: Any):
-    """``properties`` together with ``additionalProperties`` (one pass over the object's keys)."""
+def _quick_any(checks):
+    """Any of ``checks``, the first that says True deciding (``anyOf``)."""
+    def some(v):
+        for c in checks:
+            if c(v):
+                return True
+        return False
+
+    return some
+
+
+def _quick_object(props: dict, additional: Any, *, strict: bool = False, required: frozenset = frozenset()):
+    """``properties`` together with ``additionalProperties`` (one pass over the object's keys);
+    ``strict``: also ``"type": "object"`` (anything else fails), with the ``required`` keys."""
     known = {k: _quick_check(sub) for k, sub in props.items()}
     other = None if additional is False else _quick_check(additional)
 
     def check(v):
         if not isinstance(v, dict):
-            return True
+            return not strict
         for k, x in v.items():
             f = known.get(k, other)
             if f is None or not f(x):
                 return False
-        return True
+        return required.issubset(v)
 
     return check
 
@@ -720,14 +750,17 @@ def _build(data: Any, origin: str, *, scan: bool, own: bool = False) -> Diagram:
     d = Diagram()
     d.meta = data.get("meta", {})
     d.settings = data.get("settings", {})
-    for k, entry in enumerate(data["blocks"]):
-        layout = entry.get("layout", {})
-        try:
-            bid = d.add_block(entry["kind"], entry["name"], entry["params"], layout=layout, caption=entry.get("caption", ""), take_params=own)
-        except EngineError as err:
-            raise ProjectFileError(f"{origin}: {_json_path(('blocks', k))}{_owner(data, ('blocks', k))}: {err.message}") from err
-        # keep the layout exactly as written, so load-then-save gives the same file
-        d.blocks[bid].layout = layout
+    # every block at once; one by one (with the error of the first refused) only when that fails
+    entries = [(entry["kind"], entry["name"], entry["params"] if own else copy.deepcopy(entry["params"]),
+                entry.get("layout", {}), entry.get("caption", "")) for entry in data["blocks"]]
+    if not d.add_blocks_at_once(entries):
+        for k, (kind, name, params, layout, caption) in enumerate(entries):
+            try:
+                bid = d.add_block(kind, name, params, layout=layout, caption=caption, take_params=True)
+            except EngineError as err:
+                raise ProjectFileError(f"{origin}: {_json_path(('blocks', k))}{_owner(data, ('blocks', k))}: {err.message}") from err
+            # keep the layout exactly as written, so load-then-save gives the same file
+            d.blocks[bid].layout = layout
     # Before anything of that size exists: a width typed with a zero too many would cost
     # minutes and gigabytes before a width mismatch is reported.
     total, largest = declared_width(d.blocks.values())
@@ -737,6 +770,8 @@ def _build(data: Any, origin: str, *, scan: bool, own: bool = False) -> Diagram:
             f"{origin}: the widths add up to {total} signal components, at most {MAX_TOTAL_WIDTH} "
             f"(largest: {_json_path(path)}{_owner(data, path)}); is a width mistyped?"
         )
+    if d.connect_at_once([(entry["signal"], entry["from"], entry["to"], entry.get("layout")) for entry in data["wires"]]):
+        return d
     for k, entry in enumerate(data["wires"]):
         signal, src = entry["signal"], entry["from"]
         wid = None

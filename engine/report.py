@@ -19,8 +19,10 @@ from loopwright.engine.cli_common import fmt_num
 from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.eigen import format_pole, trustworthy_digits
 from loopwright.engine.errors import EngineError
+from loopwright.engine.interconnect import assemble
 from loopwright.engine.margins import LoopMargins, VectorLoopMargins, margins_at
 from loopwright.engine.noise import NoiseBudget, noise_budget, white_sources
+from loopwright.engine.path_text import path_text
 from loopwright.engine.responses import reduce_model
 
 __all__ = ["LoopReport", "loop_report", "format_report"]
@@ -97,7 +99,7 @@ def _key_signal_lines(diagram: Diagram, budget: NoiseBudget) -> list[str]:
     return names
 
 
-def loop_report(diagram: Diagram, *, top: int = 5) -> LoopReport:
+def loop_report(diagram: Diagram, *, top: int = 5, take: bool = False) -> LoopReport:
     """Assemble ``diagram`` and run the first analyses on it.
 
     Parameters
@@ -105,6 +107,9 @@ def loop_report(diagram: Diagram, *, top: int = 5) -> LoopReport:
     diagram : Diagram
     top : int
         How many audit rows to keep (the audit itself covers every source-signal pair).
+    take : bool
+        The caller hands ``diagram`` over and changes it no more (see
+        :func:`~loopwright.engine.interconnect.assemble`).
 
     Raises
     ------
@@ -112,7 +117,7 @@ def loop_report(diagram: Diagram, *, top: int = 5) -> LoopReport:
         The diagram does not assemble. Failures of single analyses (e.g. a loop break on a
         missing signal) are reported inside the report instead.
     """
-    chk = summarize(diagram)
+    chk = summarize(diagram, model=assemble(diagram, take=take))
     model = chk.model
     notes: list[str] = []
     loop_break = diagram.settings.get("loop_break")
@@ -224,7 +229,7 @@ def format_report(rep: LoopReport, *, origin: str = "") -> str:
     for r in rep.audit:
         out.append(
             f"  {r.source:<8} {r.signal:<12} {fmt_num(r.peak_gain, digits=4):>11} {fmt_num(r.peak_freq_rad_s, digits=4):>10} "
-            f"{fmt_num(r.dc_gain, digits=4) + ('*' if r.dc_gain_kind != 'signed value' else ''):>11}  {' '.join(r.blocks)}"
+            f"{fmt_num(r.dc_gain, digits=4) + ('*' if r.dc_gain_kind != 'signed value' else ''):>11}  {path_text(r.blocks)}"
         )
     if any(r.dc_gain_kind != "signed value" for r in rep.audit):
         out.append("  (DC gain: signed for a scalar path; * largest singular value of a vector path's DC gain matrix)")

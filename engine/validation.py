@@ -136,10 +136,12 @@ def declared_width(blocks: Iterable[Any]) -> tuple[int, Any]:
         if ports is None:
             signs = block.params.get("signs")
             ports = len(signs) + 1 if isinstance(signs, list) else 1
-        try:
-            width = as_width(block.params.get("width", 1), where="")
-        except ParameterError:
-            width = 1
+        width = block.params.get("width", 1)
+        if type(width) is not int or not 1 <= width <= MAX_WIDTH:  # (the usual whole number passes as it is)
+            try:
+                width = as_width(width, where="")
+            except ParameterError:
+                width = 1
         size = ports * width
         total += size
         if ports and size > most:

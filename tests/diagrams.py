@@ -119,3 +119,23 @@ def nonminimum_phase_lag() -> Diagram:
     d.add_block("plant", "G", {"num": [-1.0, 1.0], "den": [1.0, 2.0, 1.0]})
     d.connect("r.out", "G.u", name="u")
     return d
+
+
+def gain_chain(gains: list[float]) -> Diagram:
+    """Demo data: a first-order plant 2/(s + 1) under proportional control through gains in series:
+    ``r -> e -> g0 -> ... -> P -> y``, ``ym = y + n`` fed back into ``e``."""
+    d = Diagram()
+    for kind, name, params in [
+        ("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0}}),
+        ("source", "n", {"role": "noise", "width": 1, "waveform": {"kind": "white", "intensity": 1e-4, "seed": 1}}),
+        ("sum", "e", {"signs": ["+", "-"], "width": 1}),
+        ("plant", "P", {"num": [2.0], "den": [1.0, 1.0]}),
+        ("sum", "ym", {"signs": ["+", "+"], "width": 1}),
+    ] + [("gain", f"g{k}", {"K": [[g]]}) for k, g in enumerate(gains)]:
+        d.add_block(kind, name, params)
+    outs = ["e.out"] + [f"g{k}.out" for k in range(len(gains))]
+    wires = [("r.out", "e.in1", None)] + [(outs[k], f"g{k}.in", f"s{k}") for k in range(len(gains))]
+    wires += [(outs[-1], "P.u", "u"), ("P.y", "ym.in1", "y"), ("n.out", "ym.in2", None), ("ym.out", "e.in2", "ym")]
+    for src, dst, name in wires:
+        d.connect(src, dst, name=name)
+    return d

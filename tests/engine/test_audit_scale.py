@@ -20,33 +20,14 @@ from loopwright.engine import audit as audit_module
 from loopwright.engine.audit import _components, path_audit, path_between
 from loopwright.engine.audit_peaks import refine_peaks
 from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
-from loopwright.engine.diagram import Diagram
 from loopwright.engine.interconnect import assemble
 from loopwright.engine.norms import sigma_max
 from loopwright.engine.project import load
 from loopwright.engine.responses import auto_frequency_grid, reduce_model
+from diagrams import gain_chain as _gain_chain
 from strategies import loop_diagrams
 
 SAMPLES = ["conveyor_flexible_drive.lwd", "levitated_rotor_axis.lwd", "two_zone_oven.lwd"]
-
-
-def _gain_chain(gains: list[float]) -> Diagram:
-    """Demo data: a first-order plant 2/(s + 1) under proportional control through gains in series."""
-    d = Diagram()
-    for kind, name, params in [
-        ("source", "r", {"role": "reference", "width": 1, "waveform": {"kind": "step", "amplitude": 1.0}}),
-        ("source", "n", {"role": "noise", "width": 1, "waveform": {"kind": "white", "intensity": 1e-4, "seed": 1}}),
-        ("sum", "e", {"signs": ["+", "-"], "width": 1}),
-        ("plant", "P", {"num": [2.0], "den": [1.0, 1.0]}),
-        ("sum", "ym", {"signs": ["+", "+"], "width": 1}),
-    ] + [("gain", f"g{k}", {"K": [[g]]}) for k, g in enumerate(gains)]:
-        d.add_block(kind, name, params)
-    outs = ["e.out"] + [f"g{k}.out" for k in range(len(gains))]
-    wires = [("r.out", "e.in1", None)] + [(outs[k], f"g{k}.in", f"s{k}") for k in range(len(gains))]
-    wires += [(outs[-1], "P.u", "u"), ("P.y", "ym.in1", "y"), ("n.out", "ym.in2", None), ("ym.out", "e.in2", "ym")]
-    for src, dst, name in wires:
-        d.connect(src, dst, name=name)
-    return d
 
 
 def _reference_path(model, group, signal):

@@ -179,7 +179,7 @@ def test_a_numerical_breakdown_behind_the_guard_is_one_line(tmp_path, monkeypatc
 
     from loopwright.engine import check
 
-    def broken(_):
+    def broken(_diagram, **_options):
         raise np.linalg.LinAlgError("SVD did not converge")
 
     monkeypatch.setattr(check, "summarize", broken)
@@ -192,7 +192,7 @@ def test_a_numerical_breakdown_behind_the_guard_is_one_line(tmp_path, monkeypatc
 
 
 def test_an_unrelated_value_error_is_still_a_bug_with_a_traceback(tmp_path, monkeypatch):
-    def broken(_):
+    def broken(_diagram, **_options):
         raise ValueError("operands could not be broadcast together")
 
     monkeypatch.setattr("loopwright.engine.cli.summarize", broken)
