@@ -127,7 +127,7 @@ def _cut_map(diagram: Diagram, cut: list[str], read: list[str], *, what: str) ->
         wire.source = PortRef(bid, "out")
         new_sources.append(name)
         widths.append(w)
-    model: AssembledModel = assemble(work)
+    model: AssembledModel = assemble(work, take=True)  # our own copy, changed no more
     B = np.hstack([model.B[:, model.inputs[s]] for s in new_sources])
     rows = [model.signals[model.resolve_signal(s)] for s in read]
     C = np.vstack([model.C[r] for r in rows])

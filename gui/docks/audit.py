@@ -9,6 +9,7 @@ from PySide6.QtWidgets import QAbstractItemView, QCheckBox, QHBoxLayout, QTableW
 
 from loopwright.engine.audit import RANKING_RULE, path_audit
 from loopwright.engine.interconnect import assemble
+from loopwright.engine.path_text import path_text
 from loopwright.gui.docks.panel import PlotPanel
 
 __all__ = ["AuditPanel", "audit_rows", "audit_summary"]
@@ -103,7 +104,7 @@ class AuditPanel(PlotPanel):
         g.setRowCount(len(rows))
         for i, r in enumerate(rows):
             cells = [str(r.rank), r.source, r.signal, _num(r.peak_gain), _num(r.peak_freq_rad_s), _num(r.h2), _num(r.dc_gain),
-                     "yes" if r.stable else "NO", " → ".join(r.blocks)]
+                     "yes" if r.stable else "NO", path_text(r.blocks, sep=" → ")]
             for j, c in enumerate(cells):
                 item = QTableWidgetItem(c)
                 if j in (0, 3, 4, 5, 6):

@@ -69,3 +69,25 @@ def test_in_a_small_window_the_poles_stay_in_sight_and_the_audit_line_gives_way(
     audit = window.audit_status
     assert audit.text() == line and audit.toolTip() == line
     assert audit.width() <= 0.4 * window.statusBar().width()
+
+
+def test_the_audit_table_shows_a_long_path_by_its_ends(qtbot):
+    # a chain of 40 gains inside a loop (demo data): every path passes nearly every block, so
+    # the table lists each by its first and last three blocks and the count between (the
+    # engine's path_text), while the row keeps every block for lighting it on the canvas
+    from diagrams import gain_chain
+
+    from loopwright.gui.docks.audit import AuditPanel
+
+    panel = AuditPanel()
+    qtbot.addWidget(panel)
+    rows = path_audit(assemble(gain_chain([1.0] * 40)))
+    panel.show_value(rows)
+    longest = max(range(len(rows)), key=lambda i: len(rows[i].blocks))
+    blocks = rows[longest].blocks
+    assert len(blocks) > 40
+    cell = panel.grid.item(longest, panel.grid.columnCount() - 1).text()
+    assert cell == " → ".join([*blocks[:3], f"... {len(blocks) - 6:,} more ...", *blocks[-3:]])
+    short = min(range(len(rows)), key=lambda i: len(rows[i].blocks))
+    assert panel.grid.item(short, panel.grid.columnCount() - 1).text() == " → ".join(rows[short].blocks)
+    assert panel.rows[longest].blocks == blocks
