@@ -48,8 +48,9 @@ class SharedModel:
     """What every view of one diagram snapshot needs, computed once and shared.
 
     The app's views of one revision all start from the same closed loop: the assembled
-    model, its poles, its Schur reduction (frequency and singular-value views), the check
-    report (pole map). Each is computed on first use and kept; a view asked for the same
+    model, its one Schur reduction (balanced; the frequency and singular-value views
+    evaluate their responses with it, and the pole map takes the poles and their condition
+    numbers from it), the check report (pole map). Each is computed on first use and kept; a view asked for the same
     pair's frequency response as another view gets the same answer object. The snapshot
     must not change afterwards (the app hands each revision a fresh copy). Several threads
     may ask at once: each item is computed by the first that asks, the others wait for it.
@@ -95,10 +96,11 @@ class SharedModel:
 
     @property
     def reduced(self):
-        """One Schur reduction of the closed loop's ``A`` (:func:`responses.reduce_model`)."""
-        from loopwright.engine.responses import reduce_model
+        """The one Schur reduction of the closed loop's ``A`` (:func:`eigen.balanced_reduction`):
+        the only O(n^3) decomposition of ``A`` the pole map and the frequency views need."""
+        from loopwright.engine.eigen import balanced_reduction
 
-        return self._get("reduced", lambda: reduce_model(self.model.A))
+        return self._get("reduced", lambda: balanced_reduction(self.model.A))
 
     @property
     def poles(self) -> np.ndarray:
@@ -117,7 +119,7 @@ class SharedModel:
         """The check report (:func:`check.summarize`): the poles and the separation check."""
         from loopwright.engine.check import summarize
 
-        return self._get("report", lambda: summarize(self.diagram, model=self.model))
+        return self._get("report", lambda: summarize(self.diagram, model=self.model, reduced=self.reduced))
 
     def remember(self, key, make):
         """``make()`` the first time ``key`` is asked for, the same object afterwards."""

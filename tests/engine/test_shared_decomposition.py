@@ -1,0 +1,57 @@
+"""One O(n^3) decomposition of the closed loop per revision, for the pole map and the
+frequency view together (engine/views_data.py SharedModel). Counted, never timed."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+import scipy.linalg as sla
+from numpy.testing import assert_allclose
+
+from loopwright.engine.check import summarize
+from loopwright.engine.eigen import eigen_sensitivity
+from loopwright.engine.project import load
+from loopwright.engine.views_data import SharedModel, frequency_views
+
+SAMPLES = Path(__file__).resolve().parents[2] / "samples"
+
+_DECOMPOSITIONS = [(sla, "schur"), (sla, "eig"), (sla, "eigvals"), (sla, "hessenberg"), (np.linalg, "eig"), (np.linalg, "eigvals")]
+
+
+@pytest.fixture
+def full_size_decompositions(monkeypatch):
+    """Every eigenvalue or Schur decomposition of a matrix as large as ``size[0]``, by name."""
+    seen, size = [], [0]
+    for mod, name in _DECOMPOSITIONS:
+        real = getattr(mod, name)
+
+        def counting(a, *args, _real=real, _name=name, **kwargs):
+            if np.shape(a)[0] == size[0]:
+                seen.append(_name)
+            return _real(a, *args, **kwargs)
+
+        monkeypatch.setattr(mod, name, counting)
+    return seen, size
+
+
+@pytest.mark.parametrize("sample", ["conveyor_flexible_drive", "levitated_rotor_axis"])
+def test_the_pole_map_and_the_frequency_view_share_one_decomposition(sample, full_size_decompositions):
+    seen, size = full_size_decompositions
+    d = load(str(SAMPLES / f"{sample}.lwd"))
+    shared = SharedModel(d)
+    size[0] = shared.model.n_states
+    report = shared.report  # what the pole map shows
+    pair = (next(iter(shared.model.sources)), shared.model.signals and next(iter(shared.model.signals)))
+    views = frequency_views(d, [pair], drawing=True, shared=shared)
+    assert seen == ["schur"], seen  # one Schur form of the closed loop (before: a Schur form and an eig)
+    assert not isinstance(views[0], str)
+    # the answers are those of each computed on its own (reference for the condition numbers:
+    # scipy's eig with left vectors on the balanced matrix, as the check computed them before)
+    alone = summarize(d)
+    assert_allclose(np.sort_complex(report.poles), np.sort_complex(alone.poles), rtol=1e-10, atol=1e-12)
+    Ab, _ = sla.matrix_balance(shared.model.A, permute=True, separate=False)
+    w, vl, vr = sla.eig(Ab, left=True, right=True)
+    kappa = 1.0 / np.abs(np.sum((vl / np.linalg.norm(vl, axis=0)).conj() * (vr / np.linalg.norm(vr, axis=0)), axis=0))
+    assert_allclose(report.worst_condition, kappa.max(), rtol=1e-8)
+    assert_allclose(eigen_sensitivity(shared.model.A).worst_condition, kappa.max(), rtol=1e-8)
