@@ -338,17 +338,42 @@ def _triangular_right_vectors(T: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 def triangular_condition_numbers(T) -> np.ndarray:
     """Condition numbers ``kappa_k = ||x_k|| ||y_k|| / |y_k^H x_k|`` of the eigenvalues
     ``t_kk`` of an upper triangular ``T`` (right and left eigenvectors ``x_k``, ``y_k``);
-    ``inf`` for an eigenvalue defective to working precision: equal to another within
-    rounding, with eigenvectors orthogonal to within rounding (``kappa > 1/eps``).
+    ``inf`` for an eigenvalue defective to working precision.
 
     The left eigenvectors of ``T`` are the right ones of its flipped transpose
-    ``J T^T J`` (``J`` the reversal), conjugated and flipped back. As ``x_k`` is zero below
-    ``k`` and ``y_k`` above it, ``y_k^H x_k = conj(y_k[k]) x_k[k]``.
+    ``J T^T J`` (``J`` the reversal), conjugated and flipped back. Both sets come from
+    numpy's ``eig`` (LAPACK ``geev``): on a triangular matrix the QR iteration has nothing
+    to do and only the eigenvector back substitution (``trevc``) works, with the
+    interpreter lock released, so the window and the other views go on meanwhile.
+    Should ``geev`` return the eigenvalues in another order than the diagonal, the
+    eigenvectors are taken by our own back substitution instead
+    (:func:`_substitution_condition_numbers`).
     """
     T = np.asarray(T, dtype=complex)
     n = T.shape[0]
     if n == 0:
         return np.zeros(0)
+    Tf = np.ascontiguousarray(T.T[::-1, ::-1])
+    try:
+        wx, X = np.linalg.eig(T)
+        wy, Yf = np.linalg.eig(Tf)
+    except np.linalg.LinAlgError:
+        return _substitution_condition_numbers(T)
+    if not (np.array_equal(wx, np.diag(T)) and np.array_equal(wy, np.diag(Tf))):
+        return _substitution_condition_numbers(T)
+    # unit vectors; y_k = conj(J w_(n-1-k)), so y_k^H x_k = sum(J w_(n-1-k) * x_k)
+    s = np.abs(np.sum(Yf[::-1, ::-1] * X, axis=0))
+    with np.errstate(divide="ignore"):
+        kappa = np.where(s > 0, 1.0 / np.maximum(s, 1e-300), np.inf)
+    return np.maximum(kappa, 1.0)
+
+
+def _substitution_condition_numbers(T: np.ndarray) -> np.ndarray:
+    """:func:`triangular_condition_numbers` by our own back substitution
+    (:func:`_triangular_right_vectors`); ``inf`` for an eigenvalue equal to another within
+    rounding whose eigenvectors are orthogonal to within rounding (``kappa > 1/eps``). As
+    ``x_k`` is zero below ``k`` and ``y_k`` above it, ``y_k^H x_k = conj(y_k[k]) x_k[k]``."""
+    n = T.shape[0]
     X, tied_x = _triangular_right_vectors(T)
     Yf, tied_y = _triangular_right_vectors(np.ascontiguousarray(T.T[::-1, ::-1]))
     Y = np.conj(Yf[::-1, ::-1])

@@ -13,7 +13,11 @@ import scipy.linalg as sla
 from numpy.testing import assert_allclose
 from scipy.optimize import linear_sum_assignment
 
-from loopwright.engine.eigen import balanced_reduction, eigen_sensitivity, triangular_condition_numbers
+from loopwright.engine.eigen import _substitution_condition_numbers, balanced_reduction, eigen_sensitivity, triangular_condition_numbers
+
+#: Both routes to the condition numbers of a triangular factor: numpy's eig (LAPACK trevc),
+#: and our own back substitution (taken when geev reorders the eigenvalues)
+ROUTES = [pytest.param(triangular_condition_numbers, id="lapack"), pytest.param(_substitution_condition_numbers, id="substitution")]
 
 
 def _geev_condition(A):
@@ -90,17 +94,34 @@ def test_the_balanced_reduction_is_a_similarity_of_the_matrix():
     assert_allclose(red.A_bal[np.ix_(perm, perm)], Ab)
 
 
-def test_a_long_defective_chain_neither_overflows_nor_reads_as_well_conditioned():
+@pytest.mark.parametrize("route", ROUTES)
+def test_a_long_defective_chain_neither_overflows_nor_reads_as_well_conditioned(route):
     # closed form: A = -I + 10 N (60 stages, N the shift) has the single eigenvalue -1, 60-fold and
     # defective; its eigenvectors' growth (10^59) must not overflow (pytest turns warnings into errors)
     A = -np.eye(60) + 10.0 * np.eye(60, k=1)
-    kappa = triangular_condition_numbers(A.astype(complex))
+    kappa = route(A.astype(complex))
     assert np.all(kappa > 1e15)  # inf where the arithmetic sees an exactly defective eigenvalue
+    assert np.all(np.isinf(route(np.diag([1.0, 1.0], k=1).astype(complex))))  # an exact triple zero (closed form)
 
 
+@pytest.mark.parametrize("route", ROUTES)
+@pytest.mark.parametrize("seed", range(4))
+def test_both_routes_match_scipy_eig_on_triangular_factors(route, seed):
+    # reference: scipy.linalg.eig(left=True, right=True) (LAPACK geev) of the triangular factor itself
+    rng = np.random.default_rng(seed)
+    n = 25
+    T = np.triu(rng.standard_normal((n, n)) + 1j * rng.standard_normal((n, n)))
+    T[np.diag_indices(n)] *= np.logspace(-2, 2, n)  # spread the eigenvalues over four decades
+    w, vl, vr = sla.eig(T, left=True, right=True)
+    ref = 1.0 / np.abs(np.sum((vl / np.linalg.norm(vl, axis=0)).conj() * (vr / np.linalg.norm(vr, axis=0)), axis=0))
+    r, c = _paired(w, np.diag(T))
+    assert_allclose(route(T)[c], ref[r], rtol=1e-8)
+
+
+@pytest.mark.parametrize("route", ROUTES)
 @pytest.mark.parametrize("t", [0.0, 1e-3, 1.0, 1e6])
-def test_condition_numbers_of_a_triangular_matrix_in_closed_form(t):
+def test_condition_numbers_of_a_triangular_matrix_in_closed_form(t, route):
     # closed form (Wilkinson 1965): T = [[1, t, 0], [0, 2, 0], [0, 0, 3]]: for lambda = 1 and 2 the
     # left/right eigenvectors give kappa = sqrt(1 + t^2); lambda = 3 is decoupled, kappa = 1
     T = np.array([[1.0, t, 0.0], [0.0, 2.0, 0.0], [0.0, 0.0, 3.0]], dtype=complex)
-    assert_allclose(triangular_condition_numbers(T), [np.sqrt(1 + t * t)] * 2 + [1.0], rtol=1e-12)
+    assert_allclose(route(T), [np.sqrt(1 + t * t)] * 2 + [1.0], rtol=1e-12)
