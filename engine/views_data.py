@@ -728,7 +728,8 @@ class LoopBreakView:
     critical_w_rad_s: list[float] = field(default_factory=list)
 
 
-def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True, progress=None, interim=None) -> LoopBreakView:
+def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True, progress=None, interim=None,
+                    shared: SharedModel | None = None) -> LoopBreakView:
     """Nyquist curves, exclusion disks and margins of the loop broken at ``at``.
 
     ``limits=False`` leaves out the performance limits (Bode's sensitivity integral and
@@ -742,6 +743,9 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
     loop) and ``interim`` is given, ``interim(view)`` first receives the view with the
     refined grid values (``margins.certified`` False), so it can be drawn at once.
     ``progress(fraction)`` is called between the steps and may stop the work by raising.
+    ``shared`` (the snapshot's :class:`SharedModel`): a scalar break's nominal closed-loop
+    stability is read from its poles (the loop closed at the break is the diagram itself),
+    not from a decomposition of its own.
 
     Raises
     ------
@@ -780,7 +784,8 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
             except (np.linalg.LinAlgError, ValueError):
                 zeros = ()
         costly = interim is not None and resp.n >= _PROGRESSIVE_MIN_STATES
-        m, w, L = scalar_margins(resp, skew=skew, zeros=zeros, certify=not costly, progress=report)
+        m, w, L = scalar_margins(resp, skew=skew, zeros=zeros, certify=not costly, progress=report,
+                                 closed_loop_poles=_shared_poles(shared))
 
         def view_of(m):
             crit = _critical_frequencies([m])
@@ -832,6 +837,17 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
         loci[ok] = np.sort_complex(np.linalg.eigvals(L[ok]))
     report(1.0)
     return LoopBreakView(at, names, w, curves, circles, margins, loci, crit)
+
+
+def _shared_poles(shared: SharedModel | None):
+    """The snapshot's closed-loop poles, or None (no shared model, or it does not assemble:
+    the loop-break view then decides stability on its own)."""
+    if shared is None:
+        return None
+    try:
+        return shared.poles
+    except EngineError:
+        return None
 
 
 #: Up to this many states the transmission zeros (one generalised eigenvalue problem) are

@@ -56,3 +56,26 @@ def test_the_pole_map_and_the_frequency_view_share_one_decomposition(sample, ful
     kappa = 1.0 / np.abs(np.sum((vl / np.linalg.norm(vl, axis=0)).conj() * (vr / np.linalg.norm(vr, axis=0)), axis=0))
     assert_allclose(report.worst_condition, kappa.max(), rtol=1e-8)
     assert_allclose(eigen_sensitivity(shared.model.A).worst_condition, kappa.max(), rtol=1e-8)
+
+
+@pytest.mark.parametrize("sample", ["conveyor_flexible_drive", "levitated_rotor_axis"])
+def test_the_loop_break_view_takes_the_closed_loop_stability_from_the_shared_poles(sample, full_size_decompositions):
+    # the loop closed at the break is the diagram itself: its nominal stability comes from the
+    # shared decomposition, not from another eigenvalue decomposition of the closed loop;
+    # the margins are those of the view computed on its own (and of python-control's
+    # stability_margins where comparable: see tests/engine/test_margins.py)
+    from loopwright.engine.views_data import loop_break_view
+
+    seen, size = full_size_decompositions
+    d = load(str(SAMPLES / f"{sample}.lwd"))
+    alone = loop_break_view(d, "P.u", limits=False)
+    shared = SharedModel(d)
+    size[0] = shared.model.n_states
+    shared.poles  # the pole map's decomposition, already made when the loop-break view runs
+    seen.clear()
+    view = loop_break_view(d, "P.u", limits=False, shared=shared)
+    assert "eigvals" not in seen and "eig" not in seen, seen
+    assert view.margins.closed_loop_stable == alone.margins.closed_loop_stable is True
+    for name in ("phase_margin_deg", "gain_upper", "gain_lower", "peak_sensitivity", "delay_margin_s"):
+        assert_allclose(getattr(view.margins, name), getattr(alone.margins, name), rtol=1e-9)
+    assert_allclose(view.margins.disk.alpha, alone.margins.disk.alpha, rtol=1e-9)
