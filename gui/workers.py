@@ -280,10 +280,19 @@ class _JobControl:
                 pass  # the window was closed while the worker ran
 
 
+#: Workers of the quick views. Two: on a large loop the slow worker's first answer (the
+#: loop-break view's) comes long before the quick views are done, and the second core then
+#: idled while they ran one after the other; now the next quick view starts as soon as a
+#: worker is free (the views of one revision share their decompositions, so the second
+#: waits for what the first is computing rather than computing it again).
+_QUICK_WORKERS = 2
+
+
 class ViewJobs(QObject):
-    """Runs the plot panels' engine calls off the GUI thread: quick ones one at a time on
-    one worker, slow ones (``slow=True``: margins, the noise budget, the audit) one at a
-    time on another, so a slow answer never holds up the quick views of a later edit.
+    """Runs the plot panels' engine calls off the GUI thread: quick ones in the order sent on
+    :data:`_QUICK_WORKERS` workers, slow ones (``slow=True``: margins, the noise budget, the
+    audit) one at a time on another, so a slow answer never holds up the quick views of a
+    later edit.
 
     Each request carries a key (the panel) and the document revision it was built at. A
     newer request for the same key cancels the older one while it waits, and stops it
@@ -314,7 +323,7 @@ class ViewJobs(QObject):
     def __init__(self, document, parent: QObject | None = None):
         super().__init__(parent)
         self._doc = document
-        self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views")
+        self._executor = ThreadPoolExecutor(max_workers=_QUICK_WORKERS, thread_name_prefix="loopwright-views")
         self._slow_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views-slow", initializer=_yield_to_quick_views)
         self._latest: dict[str, tuple[int, Future, _JobControl, int]] = {}
         self._submitted: list[Future] = []

@@ -51,3 +51,25 @@ def test_an_edit_is_checked_after_slow_quick_views_even_when_the_debounce_runs_o
     qtbot.waitUntil(win.live.is_current, timeout=30000)
     assert sent == [(doc.revision, False)]  # sent once, when the pole map was drawn
     assert win.live.latest.report is not None
+
+
+def test_a_quick_view_starts_while_another_still_computes(qtbot):
+    # the quick views of an edit no longer queue behind one another: the next starts on the
+    # second quick worker (the slow views keep a worker of their own)
+    from loopwright.engine.project import load
+    from loopwright.gui.document import Document
+    from loopwright.gui.workers import ViewJobs
+
+    jobs = ViewJobs(Document(load(str(CONVEYOR))))
+    release = threading.Event()
+    delivered = []
+    jobs.result_ready.connect(lambda r: delivered.append((r.key, r.value)))
+    jobs.submit("poles", lambda: release.wait(30) and "poles drawn")
+    jobs.submit("time", lambda: "time drawn")
+    try:
+        qtbot.waitUntil(lambda: ("time", "time drawn") in delivered, timeout=10000)
+        assert jobs.is_busy("poles")  # still computing when the other view's answer arrived
+    finally:
+        release.set()
+    qtbot.waitUntil(lambda: ("poles", "poles drawn") in delivered, timeout=10000)
+    jobs.shutdown()
