@@ -269,15 +269,28 @@ def eigen_sensitivity(A, *, reduced=None) -> EigenSensitivity:
         return EigenSensitivity(e.astype(complex), e, e, e)
     if reduced is None:  # on its own: the Schur form only (no cascade search, no Schur vectors kept)
         Ab, _d = _balanced(A)
-        T = np.triu(sla.rsf2csf(*sla.schur(Ab, output="real"))[0])
+        T_real, Z_real = sla.schur(Ab, output="real")
+        T = np.triu(sla.rsf2csf(T_real, Z_real)[0])
     else:
-        Ab, T = reduced.A_bal, reduced.T
-    w = np.diag(T).copy()
+        Ab, T, T_real = reduced.A_bal, reduced.T, reduced.T_real
+    w = _conjugate_pairs(np.diag(T), T_real)
     kappa = triangular_condition_numbers(T)
     size = max(float(np.linalg.norm(Ab, "fro")), _EPS)
     bound = kappa * _EPS * size
     cluster = _cluster_bounds(T, w, bound, size)
     return EigenSensitivity(w, kappa, np.minimum(bound, cluster), cluster)
+
+
+def _conjugate_pairs(w: np.ndarray, T_real: np.ndarray) -> np.ndarray:
+    """The diagonal ``w`` of a complex Schur form made from the real one ``T_real``, with
+    each complex pair exactly conjugate (as LAPACK's ``geev`` returns them for a real
+    matrix): the two entries of each 2 x 2 block of ``T_real`` (a nonzero subdiagonal
+    entry) are replaced by their conjugate mean; the change is within rounding."""
+    w = np.array(w, dtype=complex)
+    for k in np.nonzero(np.diag(T_real, -1))[0]:
+        mean = 0.5 * (w[k] + np.conj(w[k + 1]))
+        w[k], w[k + 1] = mean, np.conj(mean)
+    return w
 
 
 #: Rows of a triangular eigenvector solve done at once (one matrix product for the rest).

@@ -125,3 +125,15 @@ def test_condition_numbers_of_a_triangular_matrix_in_closed_form(t, route):
     # left/right eigenvectors give kappa = sqrt(1 + t^2); lambda = 3 is decoupled, kappa = 1
     T = np.array([[1.0, t, 0.0], [0.0, 2.0, 0.0], [0.0, 0.0, 3.0]], dtype=complex)
     assert_allclose(route(T), [np.sqrt(1 + t * t)] * 2 + [1.0], rtol=1e-12)
+
+
+def test_complex_poles_of_a_real_matrix_come_in_exact_conjugate_pairs():
+    # common practice, no source: a real matrix's complex eigenvalues are conjugate pairs, and
+    # LAPACK's geev returns them exactly conjugate; so do the Schur route's (a pole list sorts and
+    # prints the two members of a pair alike)
+    rng = np.random.default_rng(11)
+    A = rng.standard_normal((40, 40)) * np.logspace(-2, 2, 40)[:, None]
+    for s in (eigen_sensitivity(A), eigen_sensitivity(A, reduced=balanced_reduction(A))):
+        cplx = s.values[s.values.imag != 0]
+        assert cplx.size >= 2
+        assert np.array_equal(np.sort_complex(cplx), np.sort_complex(np.conj(cplx)))
