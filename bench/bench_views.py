@@ -332,6 +332,7 @@ def main(argv=None) -> int:
                     help="the views open during the edits (default: the four of the target)")
     ap.add_argument("--timeout", type=float, default=120.0, help="seconds to wait for the views after opening or an edit")
     ap.add_argument("--no-full-audit", action="store_true", help="time the audit's progress and Stop only, not a whole run")
+    ap.add_argument("--no-reference", action="store_true", help="skip the python-control timings (repeated runs side by side)")
     args = ap.parse_args(argv)
     import control as ct
     from PySide6.QtWidgets import QApplication
@@ -363,6 +364,8 @@ def main(argv=None) -> int:
             print("  engine, one view at a time on this thread (wall / cpu ms): "
                   + ", ".join(f"{k} {w * 1000:.0f}/{c * 1000:.0f}" for k, (w, c) in parts.items())
                   + f"; total {ours * 1000:.0f} ms")
+            if args.no_reference:
+                continue
             t_ct, failed = time_python_control(n)
             print(f"  python-control, nearest calls for the same views: {t_ct * 1000:.0f} ms   ratio {t_ct / ours:.1f}x "
                   "(python-control's margins are not certified peak gains, and it draws no disk margin)"

@@ -337,9 +337,10 @@ def pole_digits(poles, bounds, *, scale: float) -> list[int]:
     return [trustworthy_digits(scale if r == "origin" and scale > 0 else p, b) for p, b, r in zip(poles, bounds, regions)]
 
 
-def summarize(diagram: Diagram, *, model=None) -> CheckReport:
+def summarize(diagram: Diagram, *, model=None, reduced=None) -> CheckReport:
     """Assemble ``diagram`` (unless its assembled ``model`` is given) and report what an
-    engineer checks first.
+    engineer checks first (``reduced``: :func:`eigen.balanced_reduction` of ``model.A``,
+    when it is at hand, for the poles and their condition numbers).
 
     Raises
     ------
@@ -347,7 +348,7 @@ def summarize(diagram: Diagram, *, model=None) -> CheckReport:
         Whatever keeps the diagram from assembling.
     """
     model = assemble(diagram) if model is None else model
-    sens = eigen_sensitivity(model.A)
+    sens = eigen_sensitivity(model.A, reduced=reduced)
     order = np.lexsort((sens.values.imag, sens.values.real))
     poles, bounds = sens.values[order], sens.error_bound[order]
     warnings = []

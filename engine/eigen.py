@@ -9,12 +9,15 @@ Two questions every pole list must answer before it is printed:
   the size of the matrix and recognises such a circle around the origin by its radius and
   its centre (the mean of a cluster is accurate to rounding even when its members are
   not).
-* **How many digits are right?** :func:`eigen_sensitivity` balances the matrix, takes
-  the left and right eigenvectors and the condition number ``kappa_i = 1/|y_i^H x_i|``
-  of each eigenvalue (unit-norm vectors), and bounds the rounding error to first order
-  by ``kappa_i * eps * ||A_bal||_F`` (J. H. Wilkinson, The Algebraic Eigenvalue Problem,
-  Oxford 1965, ch. 2; the same bound as LAPACK's eigenvalue error estimates, from
-  memory). :func:`trustworthy_digits` turns a bound into the number of significant
+* **How many digits are right?** :func:`eigen_sensitivity` balances the matrix, reduces
+  it to complex Schur form ``T`` (:func:`balanced_reduction`, the same reduction the
+  app's frequency view evaluates its responses with, so one decomposition serves both),
+  takes the left and right eigenvectors of ``T`` by back substitution and the condition
+  number ``kappa_i = 1/|y_i^H x_i|`` of each eigenvalue (unit-norm vectors; a unitary
+  change of coordinates leaves it unchanged), and bounds the rounding error to first
+  order by ``kappa_i * eps * ||A_bal||_F`` (J. H. Wilkinson, The Algebraic Eigenvalue
+  Problem, Oxford 1965, ch. 2; the same bound as LAPACK's eigenvalue error estimates,
+  from memory). :func:`trustworthy_digits` turns a bound into the number of significant
   digits worth printing.
 """
 from __future__ import annotations
@@ -32,6 +35,7 @@ __all__ = [
     "matrix_scale",
     "axis_tolerance",
     "eigen_sensitivity",
+    "balanced_reduction",
     "trustworthy_digits",
     "format_pole",
 ]
@@ -152,17 +156,16 @@ def pole_regions(poles, *, scale: float, bounds=None) -> np.ndarray:
     reach = np.full(n, True) if bounds is None else (
         np.abs(p) <= np.maximum(np.asarray(bounds, dtype=float).ravel(), _AXIS_ULPS * _EPS * s))
     order = np.argsort(np.abs(p), kind="stable")
-    origin = 0
-    for k in range(n, 0, -1):
-        sel = p[order[:k]]
-        radius = float(np.abs(sel).max())
-        if radius == 0.0 or (
-            radius <= (_AXIS_ULPS * _EPS) ** (1.0 / k) * s
-            and abs(sel.mean()) <= 1e-3 * radius + _AXIS_ULPS * _EPS * s
-            and bool(np.all(reach[order[:k]]))
-        ):
-            origin = k
-            break
+    # the k poles nearest the origin, for every k at once: their radius (the k-th smallest
+    # modulus), their mean and whether rounding can reach zero from all of them; the
+    # largest k that passes wins
+    k = np.arange(1, n + 1)
+    radius = np.abs(p[order])
+    centre = np.abs(np.cumsum(p[order]) / k)
+    with np.errstate(divide="ignore"):
+        fits = (radius <= (_AXIS_ULPS * _EPS) ** (1.0 / k) * s) & (centre <= 1e-3 * radius + _AXIS_ULPS * _EPS * s)
+    fits = (radius == 0.0) | (fits & np.logical_and.accumulate(reach[order]))
+    origin = int(k[fits].max()) if np.any(fits) else 0
     labels = np.empty(n, dtype=object)
     labels[order[:origin]] = "origin"
     rest = order[origin:]
@@ -213,12 +216,47 @@ class EigenSensitivity:
         return bool(np.all(self.digits(max_digits=digits) >= digits))
 
 
-def eigen_sensitivity(A) -> EigenSensitivity:
+def balanced_reduction(A):
+    """``A`` balanced and reduced to complex Schur form once:
+    :class:`~loopwright.engine.responses.ReducedModel` with ``A = S Z T Z^H S^-1``.
+
+    ``S`` is the diagonal of LAPACK's balancing (``gebal``, permutation and scaling; the
+    permutation is only a reordering and is not applied). The eigenvalues, their condition
+    numbers (:func:`eigen_sensitivity`) and frequency responses
+    (:func:`~loopwright.engine.responses.reduced_response`) all come from this one
+    decomposition.
+    """
+    import dataclasses
+
+    from loopwright.engine.responses import reduce_model
+
+    A = np.atleast_2d(np.asarray(A, dtype=float))
+    Ab, d = _balanced(A)
+    return dataclasses.replace(reduce_model(Ab), scale=d)
+
+
+def _balanced(A: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``(D^-1 A D, diag(D))`` with ``D`` the scaling of LAPACK's balancing (``gebal``, with
+    permutation; the permutation itself is left out: it does not change eigenvalues or
+    their condition numbers)."""
+    n = A.shape[0]
+    if n == 0 or not np.any(A):
+        return A, np.ones(n)
+    _, (scale, perm) = sla.matrix_balance(A, permute=True, separate=True)
+    d = np.empty(n)
+    d[perm] = scale  # gebal's similarity is P diag(scale): the scale of state perm[j] is scale[j]
+    return A / d[:, None] * d[None, :], d
+
+
+def eigen_sensitivity(A, *, reduced=None) -> EigenSensitivity:
     """Eigenvalues of ``A`` with condition numbers and rounding bounds (see the module notes).
 
     Parameters
     ----------
     A : (n, n) array_like
+    reduced : ReducedModel, optional
+        :func:`balanced_reduction` of ``A``, when it is at hand (the app's views share
+        one); made here otherwise.
 
     Returns
     -------
@@ -229,18 +267,134 @@ def eigen_sensitivity(A) -> EigenSensitivity:
     if n == 0:
         e = np.zeros(0)
         return EigenSensitivity(e.astype(complex), e, e, e)
-    Ab, _ = sla.matrix_balance(A, permute=True, separate=False)
-    w, vl, vr = sla.eig(Ab, left=True, right=True)
-    vl = vl / np.linalg.norm(vl, axis=0)
-    vr = vr / np.linalg.norm(vr, axis=0)
-    s = np.abs(np.sum(vl.conj() * vr, axis=0))
-    with np.errstate(divide="ignore"):
-        kappa = np.where(s > 0, 1.0 / np.maximum(s, 1e-300), np.inf)
+    if reduced is None:  # on its own: the Schur form only (no cascade search, no Schur vectors kept)
+        Ab, _d = _balanced(A)
+        T_real, Z_real = sla.schur(Ab, output="real")
+        T = np.triu(sla.rsf2csf(T_real, Z_real)[0])
+    else:
+        Ab, T, T_real = reduced.A_bal, reduced.T, reduced.T_real
+    w = _conjugate_pairs(np.diag(T), T_real)
+    kappa = triangular_condition_numbers(T)
     size = max(float(np.linalg.norm(Ab, "fro")), _EPS)
     bound = kappa * _EPS * size
-    w = np.asarray(w, dtype=complex)
-    cluster = _cluster_bounds(Ab, w, bound, size)
+    cluster = _cluster_bounds(T, w, bound, size)
     return EigenSensitivity(w, kappa, np.minimum(bound, cluster), cluster)
+
+
+def _conjugate_pairs(w: np.ndarray, T_real: np.ndarray) -> np.ndarray:
+    """The diagonal ``w`` of a complex Schur form made from the real one ``T_real``, with
+    each complex pair exactly conjugate (as LAPACK's ``geev`` returns them for a real
+    matrix): the two entries of each 2 x 2 block of ``T_real`` (a nonzero subdiagonal
+    entry) are replaced by their conjugate mean; the change is within rounding."""
+    w = np.array(w, dtype=complex)
+    for k in np.nonzero(np.diag(T_real, -1))[0]:
+        mean = 0.5 * (w[k] + np.conj(w[k + 1]))
+        w[k], w[k + 1] = mean, np.conj(mean)
+    return w
+
+
+#: Rows of a triangular eigenvector solve done at once (one matrix product for the rest).
+_VECTOR_BLOCK = 48
+#: A column of eigenvectors is scaled down once an entry exceeds this (no overflow).
+_VECTOR_BIG = 1e100
+
+
+def _triangular_right_vectors(T: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Right eigenvectors of an upper triangular ``T``, one per column, by back substitution,
+    and which columns met an eigenvalue equal to their own within rounding.
+
+    Column ``k`` solves ``(T - t_kk I) x = 0`` with ``x[k] = 1`` and ``x[j] = 0`` for
+    ``j > k``, for every ``k`` at once, row by row from the bottom (blocks of rows, the
+    rows below a block entering through one matrix product). As in LAPACK's ``trevc``
+    (from memory), a divisor ``t_jj - t_kk`` smaller than ``eps max(|t_kk|, max|T|)`` is
+    replaced by that size (equal eigenvalues: the vector of a defective eigenvalue is then
+    huge, and so its condition number), and a column whose entries grow past
+    :data:`_VECTOR_BIG` is scaled down as a whole (each column is a vector of its own), so
+    nothing overflows; ``x[k]`` then carries the scale.
+
+    Returns
+    -------
+    X : (n, n) complex ndarray
+    tied : (n,) bool ndarray
+        Columns where a divisor was replaced.
+    """
+    n = T.shape[0]
+    lam = np.diag(T)
+    smin = np.maximum(_EPS * np.maximum(np.abs(lam), float(np.abs(T).max())), np.finfo(float).tiny)
+    X = np.zeros((n, n), dtype=complex)
+    X[np.arange(n), np.arange(n)] = 1.0
+    tied = np.zeros(n, dtype=bool)
+    stop = n
+    while stop > 0:
+        start = max(0, stop - _VECTOR_BLOCK)
+        W = X[start:stop, start:]  # a view: the block's rows, the columns that can be nonzero
+        if stop < n:
+            W[:, stop - start :] = T[start:stop, stop:] @ X[stop:, stop:]
+        for i in range(stop - start - 1, -1, -1):
+            r = start + i
+            cols = slice(i + 1, None)
+            num = W[i, cols] + T[r, r + 1 : stop] @ W[i + 1 :, cols] if i + 1 < stop - start else W[i, cols]
+            d = lam[r + 1 :] - lam[r]
+            tiny = np.abs(d) < smin[r + 1 :]
+            if np.any(tiny):
+                d = np.where(tiny, smin[r + 1 :], d)
+                tied[r + 1 :] |= tiny
+            W[i, cols] = num / d
+            big = np.abs(W[i, cols]) > _VECTOR_BIG
+            if np.any(big):
+                k = np.nonzero(big)[0] + r + 1
+                X[:, k] /= np.abs(X[r, k])
+        stop = start
+    return X, tied
+
+
+def triangular_condition_numbers(T) -> np.ndarray:
+    """Condition numbers ``kappa_k = ||x_k|| ||y_k|| / |y_k^H x_k|`` of the eigenvalues
+    ``t_kk`` of an upper triangular ``T`` (right and left eigenvectors ``x_k``, ``y_k``);
+    ``inf`` for an eigenvalue defective to working precision.
+
+    The left eigenvectors of ``T`` are the right ones of its flipped transpose
+    ``J T^T J`` (``J`` the reversal), conjugated and flipped back. Both sets come from
+    numpy's ``eig`` (LAPACK ``geev``): on a triangular matrix the QR iteration has nothing
+    to do and only the eigenvector back substitution (``trevc``) works, with the
+    interpreter lock released, so the window and the other views go on meanwhile.
+    Should ``geev`` return the eigenvalues in another order than the diagonal, the
+    eigenvectors are taken by our own back substitution instead
+    (:func:`_substitution_condition_numbers`).
+    """
+    T = np.asarray(T, dtype=complex)
+    n = T.shape[0]
+    if n == 0:
+        return np.zeros(0)
+    Tf = np.ascontiguousarray(T.T[::-1, ::-1])
+    try:
+        wx, X = np.linalg.eig(T)
+        wy, Yf = np.linalg.eig(Tf)
+    except np.linalg.LinAlgError:
+        return _substitution_condition_numbers(T)
+    if not (np.array_equal(wx, np.diag(T)) and np.array_equal(wy, np.diag(Tf))):
+        return _substitution_condition_numbers(T)
+    # unit vectors; y_k = conj(J w_(n-1-k)), so y_k^H x_k = sum(J w_(n-1-k) * x_k)
+    s = np.abs(np.sum(Yf[::-1, ::-1] * X, axis=0))
+    with np.errstate(divide="ignore"):
+        kappa = np.where(s > 0, 1.0 / np.maximum(s, 1e-300), np.inf)
+    return np.maximum(kappa, 1.0)
+
+
+def _substitution_condition_numbers(T: np.ndarray) -> np.ndarray:
+    """:func:`triangular_condition_numbers` by our own back substitution
+    (:func:`_triangular_right_vectors`); ``inf`` for an eigenvalue equal to another within
+    rounding whose eigenvectors are orthogonal to within rounding (``kappa > 1/eps``). As
+    ``x_k`` is zero below ``k`` and ``y_k`` above it, ``y_k^H x_k = conj(y_k[k]) x_k[k]``."""
+    n = T.shape[0]
+    X, tied_x = _triangular_right_vectors(T)
+    Yf, tied_y = _triangular_right_vectors(np.ascontiguousarray(T.T[::-1, ::-1]))
+    Y = np.conj(Yf[::-1, ::-1])
+    tied = tied_x | tied_y[::-1]
+    idx = np.arange(n)
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+        kappa = (np.linalg.norm(X, axis=0) / np.abs(X[idx, idx])) * (np.linalg.norm(Y, axis=0) / np.abs(Y[idx, idx]))
+    return np.where(np.isfinite(kappa) & ~(tied & (kappa > 1.0 / _EPS)), np.maximum(kappa, 1.0), np.inf)
 
 
 def _clusters(values: np.ndarray, bound: np.ndarray, size: float) -> list[np.ndarray]:
@@ -273,7 +427,7 @@ def _clusters(values: np.ndarray, bound: np.ndarray, size: float) -> list[np.nda
     return [np.flatnonzero(roots == g) for g in np.unique(roots) if np.count_nonzero(roots == g) > 1]
 
 
-def _cluster_bounds(Ab: np.ndarray, values: np.ndarray, bound: np.ndarray, size: float) -> np.ndarray:
+def _cluster_bounds(T: np.ndarray, values: np.ndarray, bound: np.ndarray, size: float) -> np.ndarray:
     """Bounds for the members of clusters of eigenvalues (``inf`` for the others).
 
     The first-order bound ``kappa eps ||A||`` is infinite for a defective eigenvalue (a
@@ -293,7 +447,7 @@ def _cluster_bounds(Ab: np.ndarray, values: np.ndarray, bound: np.ndarray, size:
     groups = [g for g in _clusters(values, bound, size) if np.any(bad[g])]
     if not groups:
         return out
-    T, Z = sla.schur(Ab.astype(complex), output="complex")
+    Z = np.eye(T.shape[0], dtype=complex)  # not updated (wantq=0), but the routine takes one
     diag = np.diag(T).copy()
     n = values.size
     for g in groups:

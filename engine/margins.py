@@ -385,7 +385,7 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
     return m
 
 
-def scalar_margins(resp: LoopResponse, *, skew: float = 0.0, zeros=(), certify: bool = True, progress=None):
+def scalar_margins(resp: LoopResponse, *, skew: float = 0.0, zeros=(), certify: bool = True, progress=None, closed_loop_poles=None):
     """Margins of the scalar loop ``resp`` (a :class:`~loopwright.engine.loop_response.LoopResponse`),
     and the grid they were found on.
 
@@ -396,7 +396,10 @@ def scalar_margins(resp: LoopResponse, *, skew: float = 0.0, zeros=(), certify: 
     ``certify`` they are then certified by the Hamiltonian test
     (:func:`loopwright.engine.norms.certify_peak`) started there, and
     ``LoopMargins.certified`` says so. ``progress(fraction)`` is called between the steps
-    (it may stop the work by raising).
+    (it may stop the work by raising). ``closed_loop_poles``: the eigenvalues of the loop
+    closed at nominal gain, when they are known already (the app's views share one
+    decomposition of the closed loop); they decide its stability instead of a decomposition
+    of its own.
 
     Returns
     -------
@@ -422,7 +425,8 @@ def scalar_margins(resp: LoopResponse, *, skew: float = 0.0, zeros=(), certify: 
     def stable_at(g):
         if abs(1.0 + g * d) < 1e-14:
             return False
-        return is_stable_matrix(closed_loop_matrix(A, B, C, D, g))
+        known = closed_loop_poles if g == 1.0 and closed_loop_poles is not None and len(closed_loop_poles) == n else None
+        return is_stable_matrix(closed_loop_matrix(A, B, C, D, g), eigenvalues=known)
 
     nominal = stable_at(1.0)
     msg = ""

@@ -48,8 +48,9 @@ class SharedModel:
     """What every view of one diagram snapshot needs, computed once and shared.
 
     The app's views of one revision all start from the same closed loop: the assembled
-    model, its poles, its Schur reduction (frequency and singular-value views), the check
-    report (pole map). Each is computed on first use and kept; a view asked for the same
+    model, its one Schur reduction (balanced; the frequency and singular-value views
+    evaluate their responses with it, and the pole map takes the poles and their condition
+    numbers from it), the check report (pole map). Each is computed on first use and kept; a view asked for the same
     pair's frequency response as another view gets the same answer object. The snapshot
     must not change afterwards (the app hands each revision a fresh copy). Several threads
     may ask at once: each item is computed by the first that asks, the others wait for it.
@@ -95,10 +96,11 @@ class SharedModel:
 
     @property
     def reduced(self):
-        """One Schur reduction of the closed loop's ``A`` (:func:`responses.reduce_model`)."""
-        from loopwright.engine.responses import reduce_model
+        """The one Schur reduction of the closed loop's ``A`` (:func:`eigen.balanced_reduction`):
+        the only O(n^3) decomposition of ``A`` the pole map and the frequency views need."""
+        from loopwright.engine.eigen import balanced_reduction
 
-        return self._get("reduced", lambda: reduce_model(self.model.A))
+        return self._get("reduced", lambda: balanced_reduction(self.model.A))
 
     @property
     def poles(self) -> np.ndarray:
@@ -117,7 +119,7 @@ class SharedModel:
         """The check report (:func:`check.summarize`): the poles and the separation check."""
         from loopwright.engine.check import summarize
 
-        return self._get("report", lambda: summarize(self.diagram, model=self.model))
+        return self._get("report", lambda: summarize(self.diagram, model=self.model, reduced=self.reduced))
 
     def remember(self, key, make):
         """``make()`` the first time ``key`` is asked for, the same object afterwards."""
@@ -743,7 +745,8 @@ class LoopBreakView:
     critical_w_rad_s: list[float] = field(default_factory=list)
 
 
-def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True, progress=None, interim=None) -> LoopBreakView:
+def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True, progress=None, interim=None,
+                    shared: SharedModel | None = None) -> LoopBreakView:
     """Nyquist curves, exclusion disks and margins of the loop broken at ``at``.
 
     ``limits=False`` leaves out the performance limits (Bode's sensitivity integral and
@@ -757,6 +760,9 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
     loop) and ``interim`` is given, ``interim(view)`` first receives the view with the
     refined grid values (``margins.certified`` False), so it can be drawn at once.
     ``progress(fraction)`` is called between the steps and may stop the work by raising.
+    ``shared`` (the snapshot's :class:`SharedModel`): a scalar break's nominal closed-loop
+    stability is read from its poles (the loop closed at the break is the diagram itself),
+    not from a decomposition of its own.
 
     Raises
     ------
@@ -795,7 +801,8 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
             except (np.linalg.LinAlgError, ValueError):
                 zeros = ()
         costly = interim is not None and resp.n >= _PROGRESSIVE_MIN_STATES
-        m, w, L = scalar_margins(resp, skew=skew, zeros=zeros, certify=not costly, progress=report)
+        m, w, L = scalar_margins(resp, skew=skew, zeros=zeros, certify=not costly, progress=report,
+                                 closed_loop_poles=_shared_poles(shared))
 
         def view_of(m):
             crit = _critical_frequencies([m])
@@ -847,6 +854,17 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
         loci[ok] = np.sort_complex(np.linalg.eigvals(L[ok]))
     report(1.0)
     return LoopBreakView(at, names, w, curves, circles, margins, loci, crit)
+
+
+def _shared_poles(shared: SharedModel | None):
+    """The snapshot's closed-loop poles, or None (no shared model, or it does not assemble:
+    the loop-break view then decides stability on its own)."""
+    if shared is None:
+        return None
+    try:
+        return shared.poles
+    except EngineError:
+        return None
 
 
 #: Up to this many states the transmission zeros (one generalised eigenvalue problem) are

@@ -9,7 +9,7 @@ computes signal widths and the check report (all through the engine). In the win
 check shares the views' snapshot and :class:`~loopwright.engine.views_data.SharedModel`
 (:meth:`LiveModel.share_with`): the pole map and the status bar come from one assembly
 and one check report, and an edit's check starts when the quick views are drawn (or after
-the debounce, whichever is first), so it never slows them down. Its result comes back
+:data:`VIEWS_FIRST_MS` at the latest), so it never slows them down. Its result comes back
 through a Qt signal emitted from the worker thread to an object living on the GUI thread,
 so Qt queues the delivery; a result whose revision is no longer the document's is dropped.
 """
@@ -97,6 +97,10 @@ def compute_live_result(diagram: Diagram, revision: int, shared=None) -> LiveRes
     return LiveResult(revision=revision, problems=found, widths=widths, report=report, error=error)
 
 
+#: In the window, an edit's check waits at most this long (ms) for the quick views to be drawn.
+VIEWS_FIRST_MS = 2000
+
+
 class LiveModel(QObject):
     """Re-assembles the document's diagram off the GUI thread after each quiet spell.
 
@@ -137,9 +141,9 @@ class LiveModel(QObject):
         controller's :meth:`~loopwright.gui.docks.views.ViewsController.revision_inputs`).
 
         ``views_done`` (a signal: the quick views of the current revision are drawn) makes
-        an edit's check wait for them, or for the debounce, whichever comes first: the
-        views, which the user watches, get the machine first, and the check then finds
-        the check report the pole map computed.
+        an edit's check wait for them, or for :data:`VIEWS_FIRST_MS` (or the debounce, if
+        longer), whichever comes first: the views, which the user watches, get the machine
+        first, and the check then finds the check report the pole map computed.
         """
         self._shared_inputs = inputs
         if views_done is not None:
@@ -152,10 +156,15 @@ class LiveModel(QObject):
 
     def _on_changed(self, revision: int) -> None:
         # idle: check now (a 0 ms timer still gathers the steps of one command), or in the
-        # window once the quick views are drawn (the debounce is then only the latest
-        # start); a check still running: wait for a quiet spell, so a burst is checked once
+        # window once the quick views are drawn (the timer is then only the latest start: on
+        # a large loop the debounce ran out while the views still computed, and the check
+        # took the interpreter from them); a check still running: wait for a quiet spell,
+        # so a burst is checked once
         idle = self._pending is None or self._pending.done()
-        self._timer.start(0 if idle and not self._after_views else self._debounce_ms)
+        if idle and self._after_views:
+            self._timer.start(max(self._debounce_ms, VIEWS_FIRST_MS))
+        else:
+            self._timer.start(0 if idle else self._debounce_ms)
         self.busy_changed.emit(True)
 
     def _on_command_done(self, _index: int) -> None:
@@ -271,10 +280,19 @@ class _JobControl:
                 pass  # the window was closed while the worker ran
 
 
+#: Workers of the quick views. Two: on a large loop the slow worker's first answer (the
+#: loop-break view's) comes long before the quick views are done, and the second core then
+#: idled while they ran one after the other; now the next quick view starts as soon as a
+#: worker is free (the views of one revision share their decompositions, so the second
+#: waits for what the first is computing rather than computing it again).
+_QUICK_WORKERS = 2
+
+
 class ViewJobs(QObject):
-    """Runs the plot panels' engine calls off the GUI thread: quick ones one at a time on
-    one worker, slow ones (``slow=True``: margins, the noise budget, the audit) one at a
-    time on another, so a slow answer never holds up the quick views of a later edit.
+    """Runs the plot panels' engine calls off the GUI thread: quick ones in the order sent on
+    :data:`_QUICK_WORKERS` workers, slow ones (``slow=True``: margins, the noise budget, the
+    audit) one at a time on another, so a slow answer never holds up the quick views of a
+    later edit.
 
     Each request carries a key (the panel) and the document revision it was built at. A
     newer request for the same key cancels the older one while it waits, and stops it
@@ -305,7 +323,7 @@ class ViewJobs(QObject):
     def __init__(self, document, parent: QObject | None = None):
         super().__init__(parent)
         self._doc = document
-        self._executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views")
+        self._executor = ThreadPoolExecutor(max_workers=_QUICK_WORKERS, thread_name_prefix="loopwright-views")
         self._slow_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views-slow", initializer=_yield_to_quick_views)
         self._latest: dict[str, tuple[int, Future, _JobControl, int]] = {}
         self._submitted: list[Future] = []

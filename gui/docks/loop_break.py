@@ -83,13 +83,15 @@ def _checking(m: LoopMargins) -> str:
     return "" if getattr(m, "certified", True) else CHECKING
 
 
-def loop_break_job(diagram, at: str, *, progress=None):
+def loop_break_job(diagram, at: str, *, progress=None, shared=None):
     """The view's engine call (worker thread): :func:`loop_break_view` without the
     performance limits (the view does not show them), stoppable through ``progress``; a
     large loop's first answer (margins from the refined grid) is handed to ``progress`` as
-    an interim answer and drawn while the certification runs."""
+    an interim answer and drawn while the certification runs. ``shared``: the snapshot's
+    :class:`~loopwright.engine.views_data.SharedModel` (its poles decide the closed loop's
+    stability)."""
     interim = None if progress is None else (lambda view: progress(0.5, view))
-    return loop_break_view(diagram, at, limits=False, progress=progress, interim=interim)
+    return loop_break_view(diagram, at, limits=False, progress=progress, interim=interim, shared=shared)
 
 
 def margin_rows(m: LoopMargins) -> list[tuple[str, str]]:
@@ -196,7 +198,7 @@ class LoopBreakPanel(PlotPanel):
         if not isinstance(at, str) or not at:
             self.set_message("No loop break: right-click a wire and choose “break the loop here”.")
             return None
-        return loop_break_job, (diagram, at), {}
+        return loop_break_job, (diagram, at), {"shared": shared}
 
     def show_value(self, value) -> None:
         self.data = value
