@@ -289,7 +289,7 @@ def _shifted_solve(T: np.ndarray, s: np.ndarray, R: np.ndarray) -> np.ndarray:
 
 def reduced_response(
     reduced: ReducedModel, Bt: np.ndarray, Ct: np.ndarray, D: np.ndarray, s, *, B=None, C=None,
-    rtol: float = _REFINE_RTOL,
+    rtol: float = _REFINE_RTOL, max_steps: int = _REFINE_STEPS,
 ) -> np.ndarray:
     """Evaluate ``G(s) = Ct (s I - T)^-1 Bt + D`` at complex points ``s``.
 
@@ -316,6 +316,9 @@ def reduced_response(
         decades: ``||A||`` is the square of its highest mode's frequency).
     rtol : float
         Relative accuracy asked of each entry (default ``1e-12``); a plot needs far less.
+    max_steps : int
+        At most this many refinement steps (default 8; a plot takes one, each step costing
+        about what the solve did).
 
     Returns
     -------
@@ -351,13 +354,13 @@ def reduced_response(
                 estimate = _EPS * c_norm * x_norm * (1.0 + a_norm * x_norm / b_norm)
                 need = np.nonzero(np.isfinite(x_norm) & (estimate > rtol * y_abs))[0]
                 if need.size:
-                    Y[need] = _refined_outputs(reduced, X[:, need, :], sc[need], Bb, Cb, rtol)
+                    Y[need] = _refined_outputs(reduced, X[:, need, :], sc[need], Bb, Cb, rtol, max_steps)
             out[a : a + chunk] += Y
     return out
 
 
 def _refined_outputs(reduced: ReducedModel, X: np.ndarray, s: np.ndarray, Bb: np.ndarray, Cb: np.ndarray,
-                     rtol: float) -> np.ndarray:
+                     rtol: float, max_steps: int) -> np.ndarray:
     """``Cb x`` after iterative refinement of ``x = (sI - A)^-1 Bb`` from the reduced-coordinate
     solution ``X`` (n, k, m), the residual taken with the original ``A`` (balanced); shape (k, p, m).
 
@@ -373,7 +376,7 @@ def _refined_outputs(reduced: ReducedModel, X: np.ndarray, s: np.ndarray, Bb: np
     Y = np.moveaxis((Cb @ xb.reshape(n, k * m)).reshape(p, k, m), 1, 0)
     live = np.arange(k)
     last = np.full(k, np.inf)  # the size of each frequency's previous correction
-    for _ in range(_REFINE_STEPS):
+    for _ in range(max_steps):
         xs, ss = xb[:, live, :], s[live]
         kl = live.size
         ax = (reduced.A_bal @ xs.reshape(n, kl * m)).reshape(n, kl, m)

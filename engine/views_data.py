@@ -239,11 +239,11 @@ def pair_frequency_response(
         red = reduced
         Bt, Ct = red.input_matrix(B), red.output_matrix(C)
         # a drawn curve needs far fewer digits than a printed answer: fewer refinement steps
-        rtol = _DRAWING_RTOL if drawing else _PRINTED_RTOL
+        rtol, steps = (_DRAWING_RTOL, _DRAWING_STEPS) if drawing else (_PRINTED_RTOL, 8)
 
         def evaluate(w):
             with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-                return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C, rtol=rtol)
+                return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C, rtol=rtol, max_steps=steps)
 
         evaluate.poles = red.poles
 
@@ -277,6 +277,9 @@ def pair_frequency_response(
 #: and of a printed one.
 _DRAWING_RTOL = 1e-6
 _PRINTED_RTOL = 1e-12
+#: Refinement steps of a drawn response: one step restores the digits a plot shows (a
+#: stiff model's lowest modes may need more for a printed answer); each costs about a solve.
+_DRAWING_STEPS = 1
 #: Peaks lower than this fraction of the highest are drawn on the grid as they fall.
 _PEAK_FLOOR = 1e-3
 #: At most this many peaks are refined in a pass (the highest).
