@@ -9,6 +9,8 @@
   white sources per zone: 143 zones give 1,001 blocks, 572 states and 286 sources.
 * :func:`gain_chain_loop`: a loop whose controller passes through ``gains`` unit gains in
   series (a long chain of static blocks: scalings, unit conversions).
+
+Also the reference the scale checks compare with, :func:`refined_direct_response`.
 """
 from __future__ import annotations
 
@@ -158,3 +160,22 @@ def timed(fn, repeat: int = 1):
         best = min(best, time.perf_counter() - t0)
         best_cpu = min(best_cpu, time.process_time() - c0)
     return best, best_cpu, out
+
+
+def refined_direct_response(A, B, C, D, w):
+    """``C (jw I - A)^-1 B + D`` by one LU solve per frequency, with two steps of iterative
+    refinement whose residuals are summed in extended precision (``numpy.longdouble``):
+    accurate where rounding in ``A x`` cancels (a plain LU solve is itself 2e-7 off where the
+    response is 1e-15 of its peak at 1,008 states; common practice, no source:
+    mixed-precision iterative refinement). Shape (k, p, m)."""
+    n = A.shape[0]
+    out = []
+    for wk in w:
+        M = 1j * wk * np.eye(n) - A
+        lu = sla.lu_factor(M)
+        x = sla.lu_solve(lu, B.astype(complex))
+        for _ in range(2):
+            r = B.astype(np.clongdouble) - M.astype(np.clongdouble) @ x.astype(np.clongdouble)
+            x = x + sla.lu_solve(lu, r.astype(complex))
+        out.append((C.astype(np.clongdouble) @ x.astype(np.clongdouble)).astype(complex) + D)
+    return np.array(out)

@@ -171,21 +171,15 @@ def test_block_by_block_equals_the_direct_solve_on_modal_loops(seed, linked):
     _check_all_paths(model, np.array([0.3, 1.0, 2.05, 5.5, 11.9, 40.0]))
 
 
-def _refined_direct_response(A, B, C, D, w):
-    """:func:`_direct_response` with two steps of iterative refinement whose residuals are
-    summed in extended precision (``numpy.longdouble``): accurate where rounding in ``A x``
-    cancels (common practice, no source: mixed-precision iterative refinement)."""
-    n = A.shape[0]
-    out = []
-    for wk in w:
-        M = 1j * wk * np.eye(n) - A
-        lu = sla.lu_factor(M)
-        x = sla.lu_solve(lu, B.astype(complex))
-        for _ in range(2):
-            r = B.astype(np.clongdouble) - M.astype(np.clongdouble) @ x.astype(np.clongdouble)
-            x = x + sla.lu_solve(lu, r.astype(complex))
-        out.append((C.astype(np.clongdouble) @ x.astype(np.clongdouble)).astype(complex) + D)
-    return np.array(out)
+def _bench_reference():
+    """The scale benches' reference: a direct solve refined in extended precision."""
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "bench"))
+    from scale_diagrams import refined_direct_response
+
+    return refined_direct_response
 
 
 def test_the_whole_model_route_keeps_its_digits_on_a_stiff_modal_loop():
@@ -197,7 +191,7 @@ def test_the_whole_model_route_keeps_its_digits_on_a_stiff_modal_loop():
     model = assemble(_modal_loop(150, 2, 0, bending=True))
     A, B, C, D = model.pair("r", "y")
     w = np.concatenate([np.logspace(-1, 5, 40), 3.0 * np.arange(1, 151, 3) ** 2 * 1.003])
-    ref = _refined_direct_response(A, B, C, D, w)
+    ref = _bench_reference()(A, B, C, D, w)
     whole = frequency_response(A, B, C, D, w)
     blockwise = path_evaluator(model, "r", "y", points=w.size)
     assert blockwise.route == "block by block"
