@@ -238,12 +238,12 @@ def pair_frequency_response(
         A, B, C, D = model.pair(grp, sig)
         red = reduced
         Bt, Ct = red.input_matrix(B), red.output_matrix(C)
-        # a drawn curve needs far fewer digits than a printed answer: fewer refinement steps
-        rtol, steps = (_DRAWING_RTOL, _DRAWING_STEPS) if drawing else (_PRINTED_RTOL, 8)
+        # a drawn curve needs far fewer digits than a printed answer (the evaluator's default)
+        accuracy = {"rtol": _DRAWING_RTOL, "max_steps": _DRAWING_STEPS} if drawing else {}
 
         def evaluate(w):
             with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-                return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C, rtol=rtol, max_steps=steps)
+                return reduced_response(red, Bt, Ct, D, 1j * np.asarray(w, dtype=float), B=B, C=C, **accuracy)
 
         evaluate.poles = red.poles
 
@@ -273,10 +273,8 @@ def pair_frequency_response(
     return PairResponse(grp, sig, w, G, list(model.input_names[cols]), list(model.output_names[rows]))
 
 
-#: Relative accuracy of a drawn response (a millionth: far below a pixel or a cursor's digits)
-#: and of a printed one.
+#: Relative accuracy of a drawn response (a millionth: far below a pixel or a cursor's digits).
 _DRAWING_RTOL = 1e-6
-_PRINTED_RTOL = 1e-12
 #: Refinement steps of a drawn response: one step restores the digits a plot shows (a
 #: stiff model's lowest modes may need more for a printed answer); each costs about a solve.
 _DRAWING_STEPS = 1
