@@ -451,8 +451,7 @@ def scalar_margins(resp: LoopResponse, *, skew: float = 0.0, zeros=(), certify: 
     certified = True
     if nominal:
         S = 1.0 / (1.0 + L)
-        s_peak, s_w = _refined_peak(Ljw, grid, S, 0.0, L0, d)
-        pk_d, pk_d_w = _refined_peak(Ljw, grid, S, (skew - 1.0) / 2.0, L0, d)
+        (s_peak, s_w), (pk_d, pk_d_w) = _refined_peaks(Ljw, grid, S, (0.0, (skew - 1.0) / 2.0), L0, d)
         report(0.4)
         certified = False
         if certify:
@@ -490,9 +489,11 @@ def certify_sensitivity_peaks(resp: LoopResponse, sens: tuple[float, float], dis
             return (np.where(np.isfinite(L), 1.0 / (1.0 + L), 0.0) + c)[:, None, None]
 
     report(0.45)
-    ps = certify_peak(As, Bs, Cs, Ds, sens[0], sens[1], evaluate=S_eval, check=lambda: report(0.5))
+    # the starts come from _refined_peaks (a zoomed local maximum, w = 0 compared)
+    ps = certify_peak(As, Bs, Cs, Ds, sens[0], sens[1], evaluate=S_eval, check=lambda: report(0.5), refined_start=True)
     report(0.7)
-    pd = certify_peak(As, Bs, Cs, Ds + offset, disk[0], disk[1], evaluate=lambda w: S_eval(w, offset), check=lambda: report(0.75))
+    pd = certify_peak(As, Bs, Cs, Ds + offset, disk[0], disk[1], evaluate=lambda w: S_eval(w, offset), check=lambda: report(0.75),
+                      refined_start=True)
     report(0.95)
     return (ps.value, ps.w_rad_s), (pd.value, pd.w_rad_s)
 
@@ -501,66 +502,93 @@ def certify_sensitivity_peaks(resp: LoopResponse, sens: tuple[float, float], dis
 _PEAKS_REFINED = 6
 
 
-def _refined_peak(Ljw, grid: np.ndarray, S: np.ndarray, offset: float, L0: complex, d: float) -> tuple[float, float]:
-    """Peak over w of ``|S(jw) + offset|``: the grid's highest local maxima, each refined by a
-    bounded search in log-frequency between its neighbours, and the ends ``w = 0`` and
-    ``w -> inf``."""
-    mags = np.abs(S + offset)
-    mags = np.where(np.isfinite(mags), mags, -np.inf)
-    best, w_best = -np.inf, np.nan
-    if mags.size:
-        inner = np.nonzero((mags[1:-1] >= mags[:-2]) & (mags[1:-1] >= mags[2:]))[0] + 1
-        inner = inner[np.argsort(-mags[inner])][:_PEAKS_REFINED]
-        k = int(np.argmax(mags))
-        best, w_best = float(mags[k]), float(grid[k])
-        if inner.size:
-            def f(lw):
-                with np.errstate(all="ignore"):
-                    v = np.abs(1.0 / (1.0 + Ljw(np.exp(lw))) + offset)
-                return np.where(np.isfinite(v), v, -np.inf)
+def _refined_peaks(Ljw, grid: np.ndarray, S: np.ndarray, offsets, L0: complex, d: float) -> list[tuple[float, float]]:
+    """Peak over w of ``|S(jw) + offset|`` for each of ``offsets``: the grid's highest local
+    maxima, each refined by a bounded search in log-frequency between its neighbours, and
+    the ends ``w = 0`` and ``w -> inf``. The searches of every offset run together (one
+    call of ``Ljw`` per round serves all of them). Returns one ``(peak, w)`` per offset."""
+    offsets = [float(c) for c in offsets]
+    found, lo, hi, who = [], [], [], []
+    for i, c in enumerate(offsets):
+        mags = np.abs(S + c)
+        mags = np.where(np.isfinite(mags), mags, -np.inf)
+        best, w_best = -np.inf, np.nan
+        if mags.size:
+            inner = np.nonzero((mags[1:-1] >= mags[:-2]) & (mags[1:-1] >= mags[2:]))[0] + 1
+            inner = inner[np.argsort(-mags[inner])][:_PEAKS_REFINED]
+            k = int(np.argmax(mags))
+            best, w_best = float(mags[k]), float(grid[k])
+            lo.append(np.log(grid[inner - 1]))
+            hi.append(np.log(grid[inner + 1]))
+            who.append(np.full(inner.size, i))
+        found.append([best, w_best])
+    if who and sum(x.size for x in who):
+        who = np.concatenate(who)
+        shift = np.asarray(offsets)[who]
 
-            xs, vs = _zoom_max(f, np.log(grid[inner - 1]), np.log(grid[inner + 1]))
-            j = int(np.argmax(vs))
-            if vs[j] > best:
-                best, w_best = float(vs[j]), float(np.exp(xs[j]))
-    with np.errstate(all="ignore"):
-        at0 = abs(1.0 / (1.0 + L0) + offset)
-    if np.isfinite(at0) and at0 >= best:
-        best, w_best = float(at0), 0.0
-    at_inf = abs(1.0 / (1.0 + d) + offset)
-    if at_inf > best:
-        best, w_best = float(at_inf), np.inf
-    return best, w_best
+        def f(xs, rows):
+            with np.errstate(all="ignore"):
+                v = np.abs(1.0 / (1.0 + Ljw(np.exp(xs.ravel())).reshape(xs.shape)) + shift[rows, None])
+            return np.where(np.isfinite(v), v, -np.inf)
+
+        xs, vs = _zoom_max(f, np.concatenate(lo), np.concatenate(hi))
+        for i in range(len(offsets)):
+            mine = np.nonzero(who == i)[0]
+            if mine.size:
+                j = mine[int(np.argmax(vs[mine]))]
+                if vs[j] > found[i][0]:
+                    found[i] = [float(vs[j]), float(np.exp(xs[j]))]
+    out = []
+    for c, (best, w_best) in zip(offsets, found):
+        with np.errstate(all="ignore"):
+            at0 = abs(1.0 / (1.0 + L0) + c)
+        if np.isfinite(at0) and at0 >= best:
+            best, w_best = float(at0), 0.0
+        at_inf = abs(1.0 / (1.0 + d) + c)
+        if at_inf > best:
+            best, w_best = float(at_inf), np.inf
+        out.append((best, w_best))
+    return out
 
 
-def _zoom_max(f, lo: np.ndarray, hi: np.ndarray, *, xtol: float = 1e-10, points: int = 9):
-    """Maximum of ``f`` on each interval ``[lo_i, hi_i]`` at once (``f`` maps an array of
-    points to values); returns the best points and values seen.
+def _zoom_max(f, lo: np.ndarray, hi: np.ndarray, *, xtol: float = 1e-10, rtol: float = 1e-13, points: int = 9):
+    """Maximum of ``f`` on each interval ``[lo_i, hi_i]`` at once; returns the best points
+    and values seen. ``f(xs, rows)`` maps the (r, points) array of sample points of the
+    intervals ``rows`` to their values.
 
     Each round samples ``points`` evenly spaced interior points of every interval in one
     call of ``f`` and keeps the two spacings around the best sample, so an interval shrinks
-    by ``(points + 1) / 2`` per call (golden-section search: by 1.618 per call). For a loop
-    evaluated block by block the cost of a call is mostly its fixed overhead, not the
-    number of points, so fewer, wider calls are what is cheap. The grid neighbours bracket
-    a local maximum; sampling keeps the best point seen, so the answer is never below the
-    bracket's samples (common practice, no source).
+    by ``(points + 1) / 2`` per call (golden-section search: by 1.618 per call). An
+    interval is done when it is narrower than ``xtol`` or when its samples all lie within
+    ``rtol`` of its best value: near a smooth maximum the values flatten with the square of
+    the width, so the best sample is then within about ``rtol`` of the maximum (the
+    Hamiltonian certificate that follows asks for 1e-10). For a loop evaluated block by
+    block the cost of a call is mostly its fixed overhead, not the number of points, so
+    fewer, wider calls are what is cheap. The grid neighbours bracket a local maximum;
+    sampling keeps the best point seen, so the answer is never below the bracket's samples
+    (common practice, no source).
     """
     a, b = lo.astype(float).copy(), hi.astype(float).copy()
     best_x, best_v = np.full(a.shape, np.nan), np.full(a.shape, -np.inf)
+    done = np.zeros(a.shape, dtype=bool)
     t = np.arange(1, points + 1) / (points + 1)
     while True:
-        live = (b - a) > xtol
+        live = ~done & ((b - a) > xtol)
         if not live.any():
             break
+        rows = np.nonzero(live)[0]
         xs = a[live, None] + (b - a)[live, None] * t[None, :]
-        vs = np.asarray(f(xs.ravel()), dtype=float).reshape(xs.shape)
+        vs = np.asarray(f(xs, rows), dtype=float).reshape(xs.shape)
         k = np.argmax(vs, axis=1)
-        rows = np.arange(xs.shape[0])
-        xk, vk = xs[rows, k], vs[rows, k]
+        r = np.arange(xs.shape[0])
+        xk, vk = xs[r, k], vs[r, k]
         step = (b - a)[live] / (points + 1)
         better = vk > best_v[live]
         best_x[live] = np.where(better, xk, best_x[live])
         best_v[live] = np.where(better, vk, best_v[live])
+        with np.errstate(invalid="ignore"):
+            flat = np.isfinite(vk) & (vk - vs.min(axis=1) <= rtol * np.abs(vk))
+        done[live] = flat
         a[live], b[live] = xk - step, xk + step
     return best_x, best_v
 
@@ -607,8 +635,28 @@ def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
 
     Returns ``(wc, pms, pm, pm_w, delays, dm, crit)``, ``crit`` sorted ``(gain, w)`` pairs.
     """
+    # A value of L near the rounding level of its largest is no crossing: its sign is noise
+    # (an L(0) of exactly 0 came out as -7e-18 on one route, a "gain margin" of 1e17 at DC;
+    # behind a plant pole at -1e-5 it came out as -4e-12 with |L| up to 2.5: the rounding of
+    # C x with x of size 2e5). Critical gains beyond 1e10 times the loop's own size (200 dB)
+    # are counted as none: no loop is designed on such a margin.
+    finite = np.abs(L[np.isfinite(L)])
+    floor = 1e-10 * float(finite.max()) if finite.size else 0.0
+
+    def negative_axis_possible(La, Lb):
+        # a sign change of Im L counts only where L crosses the negative real axis above
+        # the floor: not between two samples below the floor (far above the loop's
+        # bandwidth Im L changes sign with every rounding error), nor where both samples
+        # lie right of the imaginary axis less than a quarter turn apart (a crossing of
+        # the positive real axis; the grid keeps neighbours within 10 degrees)
+        with np.errstate(all="ignore"):
+            tiny = (np.abs(La) <= floor) & (np.abs(Lb) <= floor)
+            right = (La.real > 0) & (Lb.real > 0) & (np.abs(np.angle(Lb / La)) < 0.5 * np.pi)
+        return ~(tiny | right)
+
     # both kinds of root refined together: one evaluation of L per pass serves both
-    wc, wx = _refine_roots(Ljw, grid, L, (lambda v: np.log(np.abs(v) + 1e-300), lambda v: v.imag))
+    wc, wx = _refine_roots(Ljw, grid, L, (lambda v: np.log(np.abs(v) + 1e-300), lambda v: v.imag),
+                           keep=(None, negative_axis_possible))
     wc, wx = np.array(wc), np.asarray(wx)
     at_roots = Ljw(np.concatenate([wc, wx])) if wc.size + wx.size else np.zeros(0, complex)
     L_wc, L_wx = at_roots[: wc.size], at_roots[wc.size:]
@@ -624,13 +672,6 @@ def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
         pms, delays = np.zeros(0), np.zeros(0)
         pm, pm_w, dm = np.inf, np.nan, np.inf
     crit: list[tuple[float, float]] = []
-    # A value of L near the rounding level of its largest is no crossing: its sign is noise
-    # (an L(0) of exactly 0 came out as -7e-18 on one route, a "gain margin" of 1e17 at DC;
-    # behind a plant pole at -1e-5 it came out as -4e-12 with |L| up to 2.5: the rounding of
-    # C x with x of size 2e5). Critical gains beyond 1e10 times the loop's own size (200 dB)
-    # are counted as none: no loop is designed on such a margin.
-    finite = np.abs(L[np.isfinite(L)])
-    floor = 1e-10 * float(finite.max()) if finite.size else 0.0
     for w, val in zip(wx, L_wx):
         if val.real < 0 and abs(val.imag) <= 1e-6 * abs(val) and abs(val) > floor:
             crit.append((-1.0 / val.real, float(w)))
@@ -703,14 +744,28 @@ def _nearest_critical_gains(crit) -> tuple[float, float, float, float]:
     return lo_g, hi_g, lo_w, hi_w
 
 
-def _refine_roots(Ljw, grid: np.ndarray, L: np.ndarray, parts) -> list[list[float]]:
+#: Where each pass of :func:`_refine_roots` samples a bracket of width ``W`` around its
+#: regula-falsi point (offsets in units of ``W``): a ladder of ever closer points on both
+#: sides, so one pass shrinks the bracket to the first rung the estimate is good to.
+_ROOT_LADDER = np.array([1e-1, 1e-2, 1e-4, 1e-7, 1e-10, 1e-13])
+
+
+def _refine_roots(Ljw, grid: np.ndarray, L: np.ndarray, parts, keep=None) -> list[list[float]]:
     """Roots on ``(grid[0], grid[-1])`` of each function ``g(L(jw))`` of ``parts``, bracketed by
     sign changes of ``g(L)`` on the grid (``L`` is ``Ljw(grid)``); one sorted list per part.
+    ``keep`` (optional, one per part, None for all): ``keep(L_left, L_right)`` is a mask of
+    the brackets worth refining (a root its caller would discard need not be found).
 
-    All brackets of all parts are refined together (one call of ``Ljw`` per pass): the
-    Illinois variant of regula falsi in log-frequency, with a bisection step every fourth
-    pass so that no bracket shrinks slowly, to a relative width of about 1e-15 in frequency
-    (as ``brentq`` with ``xtol = rtol = 1e-15`` did; Dowell & Jarratt 1971, from memory).
+    All brackets of all parts are refined together, one call of ``Ljw`` per pass (in log
+    frequency, where a width is a relative width in frequency): each pass samples every
+    bracket at its regula-falsi point, at a ladder of points on both sides of it
+    (:data:`_ROOT_LADDER`) and at its midpoint, and keeps the narrowest sign change. A
+    smooth root is found in two or three passes (the estimate's error squares with the
+    width, and the ladder turns an estimate good to ``1e-7 W`` into a bracket of that
+    width); the midpoint halves the bracket at worst, as bisection does. The result is
+    good to a relative width of about 1e-15 in frequency (as ``brentq`` with
+    ``xtol = rtol = 1e-15``). For a loop evaluated block by block the cost of a call is
+    mostly its fixed overhead, so a few wide calls are what is cheap.
     """
     found: list[list[float]] = []
     brackets, owner = [], []
@@ -718,6 +773,8 @@ def _refine_roots(Ljw, grid: np.ndarray, L: np.ndarray, parts) -> list[list[floa
         v = np.asarray(g(L), dtype=float)
         found.append([float(grid[i]) for i in np.nonzero(v == 0)[0]])
         idx = np.nonzero(np.sign(v[:-1]) * np.sign(v[1:]) < 0)[0]
+        if keep is not None and keep[k] is not None and idx.size:
+            idx = idx[np.asarray(keep[k](L[idx], L[idx + 1]), dtype=bool)]
         brackets.append((idx, v))
         owner.append(np.full(idx.size, k))
     idx = np.concatenate([b[0] for b in brackets])
@@ -726,39 +783,48 @@ def _refine_roots(Ljw, grid: np.ndarray, L: np.ndarray, parts) -> list[list[floa
         a, b = np.log(grid[idx]), np.log(grid[idx + 1])
         fa = np.concatenate([v[i] for i, v in brackets])
         fb = np.concatenate([v[i + 1] for i, v in brackets])
-        x = 0.5 * (a + b)
-        side = np.zeros(idx.size, dtype=int)
-        for it in range(200):
-            # a width in log-frequency is a relative width in frequency
+        offsets = np.concatenate([-_ROOT_LADDER, [0.0], _ROOT_LADDER[::-1]])
+        for _ in range(200):
             live = np.abs(b - a) > 1e-15 + 4.0 * np.finfo(float).eps * np.maximum(np.abs(a), np.abs(b))
             if not live.any():
                 break
+            la, lb_, lfa, lfb = a[live], b[live], fa[live], fb[live]
+            width = lb_ - la
+            mid = 0.5 * (la + lb_)
             with np.errstate(all="ignore"):
-                xs = b - fb * (b - a) / (fb - fa)
-            bad = ~np.isfinite(xs) | (xs <= np.minimum(a, b)) | (xs >= np.maximum(a, b)) | (it % 4 == 3)
-            x = np.where(live, np.where(bad, 0.5 * (a + b), xs), x)
-            fx = np.zeros(idx.size)
-            Lx = Ljw(np.exp(x[live]))
+                xs = lb_ - lfb * width / (lfb - lfa)
+            xs = np.where(np.isfinite(xs) & (xs > la) & (xs < lb_), xs, mid)
+            pts = np.concatenate([xs[:, None] + offsets[None, :] * width[:, None], mid[:, None]], axis=1)
+            pts = np.sort(np.clip(pts, la[:, None], lb_[:, None]), axis=1)
+            Lx = Ljw(np.exp(pts.ravel())).reshape(pts.shape)
+            vals = np.empty(pts.shape)
             who = owner[live]
-            vals = np.empty(Lx.shape, dtype=float)
             for k, g in enumerate(parts):
                 mine = who == k
                 if mine.any():
                     vals[mine] = np.asarray(g(Lx[mine]), dtype=float)
-            fx[live] = vals
-            left = live & (np.sign(fx) == np.sign(fa))  # the root is in (x, b)
-            right = live & ~left & (fx != 0)
-            done = live & (fx == 0)
-            a = np.where(left, x, a)
-            fa = np.where(left, fx, fa)
-            fb = np.where(left & (side == 1), 0.5 * fb, fb)  # Illinois: halve the stale end
-            b = np.where(right, x, b)
-            fb = np.where(right, fx, fb)
-            fa = np.where(right & (side == -1), 0.5 * fa, fa)
-            side = np.where(left, 1, np.where(right, -1, side))
-            a = np.where(done, x, a)
-            b = np.where(done, x, b)
-        ok = np.isfinite(x)
+            xx = np.concatenate([la[:, None], pts, lb_[:, None]], axis=1)
+            ff = np.concatenate([lfa[:, None], vals, lfb[:, None]], axis=1)
+            # the first sample that is a root, or the first change of sign, per bracket;
+            # a non-finite sample (a pole on the axis) is skipped as no change
+            zero = ff == 0.0
+            change = np.sign(ff[:, :-1]) * np.sign(ff[:, 1:]) < 0
+            rows = np.arange(xx.shape[0])
+            has_zero = zero.any(axis=1)
+            jz = np.argmax(zero, axis=1)
+            jc = np.argmax(change, axis=1)
+            has_change = change.any(axis=1)
+            new_a = np.where(has_zero, xx[rows, jz], np.where(has_change, xx[rows, jc], la))
+            new_b = np.where(has_zero, xx[rows, jz], np.where(has_change, xx[rows, jc + 1], lb_))
+            new_fa = np.where(has_zero, 0.0, np.where(has_change, ff[rows, jc], lfa))
+            new_fb = np.where(has_zero, 0.0, np.where(has_change, ff[rows, jc + 1], lfb))
+            # no change of sign left between finite samples (the ends' change ran into a
+            # pole on the axis): no root to report there
+            stuck = ~has_zero & ~has_change
+            new_a = np.where(stuck, np.nan, new_a)
+            new_b = np.where(stuck, np.nan, new_b)
+            a[live], b[live], fa[live], fb[live] = new_a, new_b, new_fa, new_fb
+        ok = np.isfinite(a) & np.isfinite(b)
         best = np.exp(np.where(np.abs(fa) < np.abs(fb), a, b))
         for k in range(len(parts)):
             found[k] += [float(r) for r in best[ok & (owner == k)]]

@@ -159,7 +159,7 @@ def peak_gain(A, B, C, D=None, *, tol: float = 1e-10, minimal: bool = True, max_
 
 
 def certify_peak(A, B, C, D, lower: float, w_lower: float, *, evaluate=None, tol: float = 1e-10, max_iter: int = 60,
-                 check=None) -> PeakGain:
+                 check=None, refined_start: bool = False) -> PeakGain:
     """The peak gain of a stable system from a known lower bound: the Hamiltonian level-set
     iteration (see the module notes) started at ``lower``, reached at ``w_lower``.
 
@@ -178,6 +178,11 @@ def certify_peak(A, B, C, D, lower: float, w_lower: float, *, evaluate=None, tol
     check : callable, optional
         Called before each Hamiltonian eigenvalue computation (a progress report that may
         stop the work by raising).
+    refined_start : bool
+        ``(lower, w_lower)`` is already a local maximum refined by a search (and the value
+        at ``w = 0`` was compared): when the first Hamiltonian test certifies it, it is
+        returned as it is, without the closing local search of the frequency (which on a
+        flat maximum moves ``w`` within its own uncertainty and the value by rounding).
 
     Returns
     -------
@@ -192,6 +197,7 @@ def certify_peak(A, B, C, D, lower: float, w_lower: float, *, evaluate=None, tol
         return PeakGain(lb, w_best if lb > 0 else 0.0, True)
     Ip, Im = np.eye(p), np.eye(m)
     bracket = None
+    moved = False
     for _ in range(max_iter):
         if check is not None:
             check()
@@ -217,9 +223,10 @@ def certify_peak(A, B, C, D, lower: float, w_lower: float, *, evaluate=None, tol
         if not g_mid[j] > lb * (1.0 + tol):
             break
         lb, w_best = float(g_mid[j]), float(mids[j])
+        moved = True
         if ws.size > 1:
             bracket = (ws[j], ws[j + 1])
-    if np.isfinite(w_best):
+    if np.isfinite(w_best) and (moved or not refined_start):
         # polish the frequency: the value is already within tol, the argmax is flat
         lo, hi = bracket if bracket is not None else (w_best * 0.9, w_best * 1.1 + 1e-12)
         lo, hi = min(lo, w_best), max(hi, w_best)
