@@ -98,11 +98,19 @@ def controllable_part(A, B, C, *, tol: float = DEFAULT_RANK_TOL):
             new = new - basis @ (basis.T @ new)
         if new.size == 0:
             break
-        U, s, _ = np.linalg.svd(new, full_matrices=False)
-        r = int(np.sum(s > thresh))
-        if r == 0:
-            break
-        U = U[:, :r]
+        if new.shape[1] == 1:
+            # one direction (a single input, every step of a SISO staircase): its singular
+            # value is its norm, no decomposition needed
+            size = float(np.linalg.norm(new))
+            if not size > thresh:
+                break
+            U = new / size
+        else:
+            U, s, _ = np.linalg.svd(new, full_matrices=False)
+            r = int(np.sum(s > thresh))
+            if r == 0:
+                break
+            U = U[:, :r]
         basis = np.hstack([basis, U])
         new = A @ U
     V = basis
