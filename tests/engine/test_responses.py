@@ -436,3 +436,20 @@ def test_frequency_response_of_random_cascades_matches_python_control(seed, size
     red = reduce_model(A)
     assert_allclose(np.tril(red.T, -1), 0.0, atol=0)
     assert_allclose(red.Z @ red.T @ red.Z.conj().T, A, atol=1e-12 * max(1.0, np.abs(A).max()))
+
+
+def test_the_refinement_residual_uses_the_nonzeros_of_a_sparse_model():
+    # A_bal @ X by compressed rows when A is sparse (an assembled loop), as two real products
+    # when it is dense; both equal numpy's complex product to rounding (common practice, no
+    # source: the same sums in another order)
+    from loopwright.engine.responses import reduce_model
+
+    rng = np.random.default_rng(3)
+    n = 60
+    sparse_A = np.diag(-rng.random(n) - 0.1) + np.diag(rng.normal(size=n - 1), 1)
+    dense_A = rng.normal(size=(n, n)) - 8.0 * np.eye(n)
+    X = rng.normal(size=(n, 7)) + 1j * rng.normal(size=(n, 7))
+    for A, sparse in ((sparse_A, True), (dense_A, False)):
+        red = reduce_model(A)
+        assert (red._a_operator is not None) is sparse
+        np.testing.assert_allclose(red.times_a(X), A.astype(complex) @ X, rtol=1e-13, atol=1e-13 * np.abs(A).max())
