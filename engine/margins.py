@@ -638,10 +638,13 @@ def _crossings(Ljw, grid: np.ndarray, L: np.ndarray, d: float, L0: complex):
     # A value of L near the rounding level of its largest is no crossing: its sign is noise
     # (an L(0) of exactly 0 came out as -7e-18 on one route, a "gain margin" of 1e17 at DC;
     # behind a plant pole at -1e-5 it came out as -4e-12 with |L| up to 2.5: the rounding of
-    # C x with x of size 2e5). Critical gains beyond 1e10 times the loop's own size (200 dB)
-    # are counted as none: no loop is designed on such a margin.
+    # C x with x of size 2e5). Critical gains beyond 1e10 (200 dB) are counted as none (no
+    # loop is designed on such a margin), and beyond 1e10 times the loop's largest gain when
+    # that is below 1. Not beyond 1e10 times a largest gain above 1: with integrators in
+    # the loop that is only how far down in frequency the grid reached (a 1/s^3 loop
+    # sampled to 1e-5 rad/s put the floor at 2,600 and hid a crossing at |L| = 900).
     finite = np.abs(L[np.isfinite(L)])
-    floor = 1e-10 * float(finite.max()) if finite.size else 0.0
+    floor = 1e-10 * min(1.0, float(finite.max())) if finite.size else 0.0
 
     def negative_axis_possible(La, Lb):
         # a sign change of Im L counts only where L crosses the negative real axis above

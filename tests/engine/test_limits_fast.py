@@ -378,3 +378,22 @@ def test_a_zero_at_dc_behind_a_slow_plant_pole_is_no_crossing_on_either_route():
         m = margins_at(d, "P.u", **({"route": route} if route == "whole model" else {}))
         assert m.closed_loop_stable, route
         assert m.gain_upper == np.inf and m.phase_crossovers_w_rad_s == [], route
+
+
+def test_a_conditionally_stable_loop_with_integrators_keeps_its_lower_gain_margin():
+    # L(s) = 4.5 (s + 1)^3 / s^4: closed loop s^4 + K s^3 + 3K s^2 + 3K s + K with K = 4.5 g.
+    # Routh (closed form): stable for K > 9/8, losing stability at w^2 = 3K/K = 3 where
+    # L(j sqrt 3) = K (1 + j sqrt 3)^3 / 9 = -8K/9: lower gain factor 0.25 at sqrt(3) rad/s.
+    # The floor for crossings at rounding level was 1e-10 of the largest |L| on the grid;
+    # four integrators make that 4.5e12 three decades below the zeros, a floor of 450 above
+    # |L| = 4 there: the margin was reported as "none: stable for any lower gain".
+    import scipy.signal as ss
+
+    from loopwright.engine.margins import loop_margins
+
+    A, B, C, D = ss.tf2ss(4.5 * np.poly([-1.0, -1.0, -1.0]), [1.0, 0.0, 0.0, 0.0, 0.0])
+    m = loop_margins(A, B, C, D)
+    assert m.closed_loop_stable
+    assert m.gain_lower == pytest.approx(0.25, rel=1e-9)
+    assert m.gain_lower_w_rad_s == pytest.approx(np.sqrt(3.0), rel=1e-9)
+    assert m.gain_upper == np.inf
