@@ -19,7 +19,6 @@ Two evaluators, chosen by the loop's structure:
 from __future__ import annotations
 
 import numpy as np
-import scipy.linalg as sla
 
 from loopwright.engine.responses import _as_system, _triangular_blocks, reduce_model, reduced_response
 
@@ -71,7 +70,7 @@ class LoopResponse:
             self._T, self._lam = [], []
             for p in parts:
                 a = A[np.ix_(p, p)]
-                lam, V = sla.eig(a)
+                lam, V = np.linalg.eig(a)  # numpy's: less overhead per small call than scipy's
                 if np.all(np.isfinite(V)) and np.linalg.cond(V) <= _KAPPA_MAX:
                     self._T.append((V, np.linalg.inv(V)))
                     self._lam.append(lam)
@@ -89,7 +88,7 @@ class LoopResponse:
                 self._links.append(links)
             self._Bk = [self._to_part(k, B[p, :], left=True)[:, 0].astype(complex) for k, p in enumerate(parts)]
             self._Ck = [self._from_part(k, C[:, p], right=True)[0].astype(complex) for k, p in enumerate(parts)]
-            self.poles = np.concatenate([sla.eigvals(a) for a in self._Akk])
+            self.poles = np.concatenate(self._lam).astype(complex)
         else:
             self.route = "whole model"
             self.poles = self.reduced.poles if self.n else np.zeros(0, complex)
