@@ -504,3 +504,25 @@ def test_a_diverging_run_in_blocks_stops_where_single_steps_stop(monkeypatch):
     assert ours.diverged and single.diverged
     assert ours.t.size == single.t.size and 225.0 < ours.t[-1] < 240.0
     assert_allclose(ours.y, single.y, rtol=1e-12)
+
+
+@pytest.mark.parametrize("cascade", [False, True])
+def test_products_with_the_schur_vectors_through_their_real_form_equal_the_complex_ones(cascade):
+    # Z = Z_real G, G the real-to-complex rotations of the 2 x 2 blocks (two nonzeros per
+    # column): Z X and Z^H R as real-times-complex products equal numpy's complex products
+    # to rounding (common practice, no source: the same sums regrouped)
+    from loopwright.engine.responses import reduce_model
+
+    rng = np.random.default_rng(8)
+    n = 120
+    A = rng.normal(size=(n, n)) / np.sqrt(n) - 0.5 * np.eye(n)
+    if cascade:  # block triangular: the cascade's Schur form, block by block
+        A = np.triu(A, -3) * (np.add.outer(np.arange(n) // 30, -(np.arange(n) // 30)) <= 0)
+    red = reduce_model(A)
+    assert red._rotations is not None
+    assert red._rotations.nnz <= 2 * n  # the diagonal and two entries per complex pair
+    assert np.count_nonzero(np.diag(red.T_real, -1)) > 10  # complex pairs are there
+    X = rng.normal(size=(n, 9)) + 1j * rng.normal(size=(n, 9))
+    scale = np.abs(X).max()
+    assert_allclose(red.to_original(X), red.Z @ X, rtol=0, atol=1e-13 * scale)
+    assert_allclose(red.to_reduced(X), red.Z.conj().T @ X, rtol=0, atol=1e-13 * scale)
