@@ -169,11 +169,24 @@ class DiagramScene(QGraphicsScene):
         item = self.block_items.get(bid)
         if item is None:
             return
+        before = self._block_geometry(item)
         item.sync(self.document.diagram.blocks[bid])
         self._mark_open_inputs([bid])
+        if self._block_geometry(item) == before:
+            # a parameter-only edit (a gain's matrix of the same shape): the body and the
+            # ports stay where they were, so its wires, their lanes and their names too
+            return
         self._index_body(bid)
         self._reroute_block(bid)
         self._fit_scene_rect()
+
+    @staticmethod
+    def _block_geometry(item: BlockItem) -> tuple:
+        """What a block's wires are routed around: its body in the scene and its ports'
+        places and directions."""
+        r = item.body_scene_rect()
+        ports = sorted((name, is_in, p.pos().x(), p.pos().y(), tuple(p.normal)) for (name, is_in), p in item.ports.items())
+        return (r.x(), r.y(), r.width(), r.height(), tuple(ports))
 
     def _on_wire_added(self, wid: str) -> None:
         self._add_wire_item(wid)

@@ -12,7 +12,9 @@ from PySide6.QtGui import QColor
 from PySide6.QtWidgets import QComboBox, QHBoxLayout, QLabel
 
 from loopwright.engine.views_data import frequency_views
-from loopwright.gui.docks.panel import PlotPanel, data_span, elastic, fit_range, legend_row, new_layout_widget, pair_colour, pen_for, shade_of, themed_plot
+from loopwright.gui.docks.panel import (
+    PlotPanel, data_span, elastic, fit_range, legend_row, new_layout_widget, pair_colour, pen_for, release_user_range, shade_of, themed_plot,
+)
 from loopwright.gui.view_commands import input_label
 
 __all__ = ["FrequencyPanel", "AUDIT_COLOUR"]
@@ -36,7 +38,7 @@ class FrequencyPanel(PlotPanel):
         self.unit = QComboBox()
         self.unit.setObjectName("frequency_unit")
         self.unit.addItems(["rad/s", "Hz"])
-        self.unit.currentIndexChanged.connect(self._redraw_units)
+        self.unit.currentIndexChanged.connect(self._on_unit_changed)
         bar.addWidget(self.unit)
         bar.addStretch(1)
         self.readout = QLabel("")
@@ -149,6 +151,10 @@ class FrequencyPanel(PlotPanel):
             self.show_error("\n".join(errors))
         else:
             self.set_message("" if shown else "No pair yet: right-click a wire and choose “look here”.")
+
+    def _on_unit_changed(self, *_args) -> None:
+        release_user_range(self.mag)  # a zoom in the other unit shows other frequencies
+        self._redraw_units()
 
     def _redraw_units(self) -> None:
         s = self._scale()

@@ -252,3 +252,70 @@ def test_an_idle_window_with_every_panel_shown_does_no_work(window, qtbot, sampl
     finally:
         app.removeEventFilter(counter)
     assert len(counter.seen) <= 6, counter.seen[:10]
+
+
+def test_a_range_that_holds_the_new_data_is_kept_and_one_that_does_not_is_fitted(qtbot):
+    # fit_range keeps an axis whose range holds the data with half the padding to spare
+    # and is at most KEEP_WIDER times the fitted width (its axis keeps its drawn ticks);
+    # data that leave it, or shrink a lot, are fitted again
+    from loopwright.gui.docks.panel import KEEP_WIDER, fit_range, new_layout_widget, themed_plot
+
+    w = new_layout_widget()
+    qtbot.addWidget(w)
+    plot = themed_plot(w, 0, left="y", bottom="x")
+    vb = plot.getViewBox()
+    assert fit_range(plot, x=(0.0, 10.0), y=(-1.0, 1.0), padding=0.1)
+    assert_allclose(vb.viewRange(), [[-1.0, 11.0], [-1.2, 1.2]])
+    # a little more or less, inside: kept
+    assert not fit_range(plot, x=(0.3, 10.4), y=(-0.9, 1.05), padding=0.1)
+    assert_allclose(vb.viewRange(), [[-1.0, 11.0], [-1.2, 1.2]])
+    # past the edge less half the padding: fitted again
+    assert fit_range(plot, x=(0.0, 10.6), y=(-0.9, 1.05), padding=0.1)
+    assert_allclose(vb.viewRange()[0], [-1.06, 11.66])
+    assert_allclose(vb.viewRange()[1], [-1.2, 1.2])  # that axis still holds its data
+    # shrunk to less than 1 / KEEP_WIDER of the range: fitted again
+    lo, hi = -1.2, 1.2
+    small = 0.95 * (hi - lo) / KEEP_WIDER / 1.2 / 2  # half a span whose padded width is 95 % of the kept limit
+    assert fit_range(plot, y=(-small, small), padding=0.1)
+    assert_allclose(vb.viewRange()[1], [-1.2 * small, 1.2 * small])
+
+
+def _wheel(widget, pos, steps):
+    """A real mouse-wheel turn over ``widget`` at ``pos`` (what a user does to zoom)."""
+    from PySide6.QtCore import QPoint, QPointF, Qt
+    from PySide6.QtGui import QWheelEvent
+    from PySide6.QtWidgets import QApplication
+
+    ev = QWheelEvent(QPointF(pos), QPointF(widget.mapToGlobal(pos)), QPoint(0, 0), QPoint(0, 120 * steps),
+                     Qt.MouseButton.NoButton, Qt.KeyboardModifier.NoModifier, Qt.ScrollPhase.NoScrollPhase, False)
+    QApplication.sendEvent(widget, ev)
+
+
+def test_a_users_zoom_is_kept_through_edits_until_they_fit_the_plot_again(window, qtbot):
+    _open(window, [("r", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    time_ = window.panels["time"]
+    vb = time_.plot.getViewBox()
+    fitted = vb.viewRange()
+    view = time_.canvas
+    centre = view.mapFromScene(vb.mapViewToScene(pg.Point(np.mean(fitted[0]), np.mean(fitted[1]))))
+    _wheel(view.viewport(), centre, 3)  # zoom in on the middle
+    zoomed = vb.viewRange()
+    assert zoomed[0][1] - zoomed[0][0] < 0.9 * (fitted[0][1] - fitted[0][0])
+    curve = next(iter(time_.curves.values()))
+    y_before = curve.getOriginalDataset()[1].copy()
+    for k in range(2):
+        _edit_gain(window.document, 1.6 + 0.4 * k)
+        qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    assert not np.allclose(curve.getOriginalDataset()[1], y_before)  # the answer is new ...
+    assert_allclose(vb.viewRange(), zoomed)  # ... and shown where the user looks
+    # the plot's auto-range button: fitted to the data, and fitted again after the next edit
+    time_.plot.autoBtnClicked()
+    _edit_gain(window.document, 0.8)
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    (t0, t1), (y0, y1) = vb.viewRange()
+    for item in time_.curves.values():
+        t, y = item.getOriginalDataset()
+        assert t0 <= t.min() and t.max() <= t1 and y0 <= y.min() and y.max() <= y1
+    assert not any(vb.autoRangeEnabled())  # ranged once per update by the panel again
+    assert (t1 - t0) < 1.2 * (t.max() - t.min())

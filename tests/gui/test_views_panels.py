@@ -330,7 +330,10 @@ def test_stop_ends_a_running_job_at_its_next_progress_report(qtbot):
     jobs.shutdown()
 
 
-def test_the_audit_panel_reports_progress_to_the_end(window, wait_views):
+def test_the_audit_panel_reports_progress_to_the_end(window, wait_views, monkeypatch):
+    import loopwright.gui.workers as workers
+
+    monkeypatch.setattr(workers, "PROGRESS_AFTER_S", 0.0)  # every report counts, however quick the job
     path = next(p for p in SAMPLES if p.stem == "two_zone_oven")
     _open_with_pairs(window, path, [])
     seen = []
@@ -342,6 +345,45 @@ def test_the_audit_panel_reports_progress_to_the_end(window, wait_views):
     panel.set_progress(0.4)
     assert panel.progress_text() == "computing… 40 %" and panel.progress.value() == 400
     panel.set_waiting(False)
+
+
+def test_a_quick_job_sends_the_window_no_progress_and_a_long_one_does_past_the_threshold(qtbot, monkeypatch):
+    # the busy line shows past half a second: before that, a job's reports stay on its
+    # worker (a 50-state loop's whole job takes tens of milliseconds, and each report
+    # would be a queued call on the window's thread)
+    import threading
+
+    import loopwright.gui.workers as workers
+    from loopwright.gui.document import Document
+    from loopwright.gui.workers import ViewJobs
+
+    monkeypatch.setattr(workers, "PROGRESS_AFTER_S", 0.3)
+    jobs = ViewJobs(Document(load(SAMPLES[0])))
+    fractions, results = [], []
+    jobs.progress_changed.connect(lambda key, f: fractions.append((key, f)))
+    jobs.result_ready.connect(results.append)
+    pause = threading.Event()
+
+    def quick(*, progress):
+        for k in range(1, 101):
+            progress(k / 100)
+        return "done"
+
+    jobs.submit("loop_break", quick, progress=True)
+    qtbot.waitUntil(lambda: len(results) == 1, timeout=10000)
+    assert results[0].value == "done" and fractions == []
+
+    def slow(*, progress):
+        for k in range(1, 101):
+            progress(k / 100)
+            pause.wait(0.01)  # about a second in all, most of it past the threshold
+        return "done"
+
+    jobs.submit("loop_break", slow, progress=True)
+    qtbot.waitUntil(lambda: len(results) == 2, timeout=20000)
+    assert fractions and fractions[-1] == ("loop_break", 1.0)
+    assert 0.1 < fractions[0][1] < 0.6  # the reports before the threshold never left the worker
+    jobs.shutdown()
 
 
 def test_progress_of_a_quick_answer_leaves_the_hidden_busy_line_alone(window, wait_views):
