@@ -319,3 +319,37 @@ def test_a_users_zoom_is_kept_through_edits_until_they_fit_the_plot_again(window
         assert t0 <= t.min() and t.max() <= t1 and y0 <= y.min() and y.max() <= y1
     assert not any(vb.autoRangeEnabled())  # ranged once per update by the panel again
     assert (t1 - t0) < 1.2 * (t.max() - t.min())
+
+
+def test_the_pole_maps_guides_are_one_item_redrawn_only_when_their_reach_changes(window, qtbot, monkeypatch):
+    # rays of constant damping and circles of constant natural frequency (closed form in
+    # engine/views_data.damping_guides) in one curve; an edit that moves the poles a little
+    # keeps the guides' reach (a tenth of a decade), so they are not given new data
+    from loopwright.engine.views_data import damping_guides
+    from loopwright.gui.docks.poles import guide_radius
+
+    assert guide_radius(1.0) == 1.0 and guide_radius(9.9) == 10.0
+    assert_allclose(guide_radius(1.01), 10 ** 0.1)
+    _open(window, [("r", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    poles = window.panels["poles"]
+    guide_items = [it for it in poles.plot.items if isinstance(it, pg.PlotCurveItem)]
+    assert guide_items == [poles.guides]
+    radius = poles.data["guide_radius"]
+    want = damping_guides(radius)
+    x, y = poles.guide_lines()
+    lines = [(a, b) for _z, a, b in want["rays"]] + [(a, b) for _w, a, b in want["circles"]]
+    assert np.isnan(x).sum() == len(lines) - 1
+    assert_allclose(x[np.isfinite(x)], np.concatenate([a for a, _b in lines]))
+    assert_allclose(y[np.isfinite(y)], np.concatenate([b for _a, b in lines]))
+    reach = 1.15 * max(np.abs(poles.data[k]).max() for k in ("poles", "feedback", "estimator") if poles.data[k].size)
+    assert reach <= radius < 1.26 * reach
+    given = []
+    real = pg.PlotCurveItem.setData
+    monkeypatch.setattr(pg.PlotCurveItem, "setData", lambda item, *a, **k: (given.append(item), real(item, *a, **k))[1])
+    for k in range(3):
+        _edit_gain(window.document, 1.0 + 0.01 * (k + 1))
+        qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+        assert (poles.guides in given) == (poles.data["guide_radius"] != radius)
+        radius = poles.data["guide_radius"]
+        given.clear()
