@@ -134,11 +134,14 @@ class FrequencyPanel(PlotPanel):
                     if db_pk > best[0]:
                         best = (db_pk, w_pk)
             if pair not in self.peaks:
-                self.peaks[pair] = self.mag.plot(pen=None, symbol="t", symbolSize=12, symbolPen=pg.mkPen("#1f2933"))
-            brush = pg.mkBrush(colour)
-            if self.peaks[pair].opts["symbolBrush"] != brush:
-                self.peaks[pair].setSymbolBrush(brush)
-            self.peaks[pair].setToolTip(f"peak {best[0]:.4g} dB at {best[1]:.4g} rad/s")
+                # a point with its symbol and outline set once (a new peak is a new position)
+                self.peaks[pair] = pg.ScatterPlotItem(symbol="t", size=12, pen=pg.mkPen("#1f2933"), brush=pg.mkBrush(colour))
+                self.mag.addItem(self.peaks[pair])
+            if self.peaks[pair].opts["brush"].color() != colour:
+                self.peaks[pair].setBrush(pg.mkBrush(colour))
+            tip = f"peak {best[0]:.4g} dB at {best[1]:.4g} rad/s"
+            if self.peaks[pair].toolTip() != tip:
+                self.peaks[pair].setToolTip(tip)
         for key in [k for k in self.curves if k not in wanted]:
             cm, cp = self.curves.pop(key)
             self.mag.removeItem(cm)
@@ -173,7 +176,7 @@ class FrequencyPanel(PlotPanel):
             resp = self.data[pair]
             p, m = resp.response.shape[1:]
             w_pk, db_pk = max((resp.peak(i, j) for i in range(p) for j in range(m)), key=lambda t: t[1])
-            item.setData([w_pk * s], [db_pk])
+            item.setData(x=[np.log10(w_pk * s)], y=[db_pk])  # a bare point is not log-scaled by the plot
         self._fit()
         if self.data:
             ws = np.concatenate([r.w_rad_s for r in self.data.values()]) * s
@@ -198,8 +201,8 @@ class FrequencyPanel(PlotPanel):
         """Pair -> (frequency in the shown unit, dB) of its marked peak."""
         out = {}
         for pair, item in self.peaks.items():
-            x, y = item.getOriginalDataset()
-            out[pair] = (float(x[0]), float(y[0]))
+            x, y = item.getData()
+            out[pair] = (float(10.0 ** x[0]), float(y[0]))
         return out
 
     # ---- cursor ----------------------------------------------------------------------------

@@ -121,6 +121,7 @@ class LoopBreakPanel(PlotPanel):
 
     def __init__(self, parent=None):
         super().__init__(parent)
+        self._legend_fitted: tuple | None = None  # (width, height, entries) the legend was arranged for
         bar = QHBoxLayout()
         self.where = QLabel("")
         self.where.setObjectName("loop_break_where")
@@ -266,11 +267,8 @@ class LoopBreakPanel(PlotPanel):
             self.summary.setText(f"phase margin {_phase_text(m, where=False)} · gain margin {_num(lo_db)} / +{_num(hi_db)} dB · "
                                  f"disk margin α {_num(m.disk.alpha)}{_checking(m)} · delay margin {_num(m.delay_margin_s)} s"
                                  if m.closed_loop_stable else "the closed loop is UNSTABLE at this break")
-        self.margins.setRowCount(len(rows))
-        for i, (a, b) in enumerate(rows):
-            self.margins.setItem(i, 0, QTableWidgetItem(a))
-            self.margins.setItem(i, 1, QTableWidgetItem(b))
-        self._fit_margins()
+        if self._set_rows(rows):
+            self._fit_margins()
         self._arrange()
         self._frame(v, k, together, again=False)
 
@@ -310,6 +308,24 @@ class LoopBreakPanel(PlotPanel):
         # recentred the first, and a tall plot showed only a strip beside the curve
         self.plot.setRange(xRange=(x0, x1), yRange=(y0, y1), padding=0)
 
+    def _set_rows(self, rows) -> bool:
+        """Show ``rows`` in the margins list, changing only the texts that differ; True when
+        any did (the rows are then fitted to their texts again)."""
+        t = self.margins
+        changed = t.rowCount() != len(rows)
+        if changed:
+            t.setRowCount(len(rows))
+        for i, pair in enumerate(rows):
+            for j, text in enumerate(pair):
+                item = t.item(i, j)
+                if item is None:
+                    t.setItem(i, j, QTableWidgetItem(text))
+                    changed = True
+                elif item.text() != text:
+                    item.setText(text)
+                    changed = True
+        return changed
+
     def _fit_margins(self) -> None:
         """Names no wider than half the list (they wrap), values in the rest, rows as tall as their text."""
         t = self.margins
@@ -336,6 +352,10 @@ class LoopBreakPanel(PlotPanel):
     def _fit_legend(self) -> None:
         """As many legend entries to a line as the plot's width holds (4, 2 or 1): a legend
         wider than the plot was cut at its edge."""
+        fitted = (self.canvas.width(), self.canvas.height(), len(self.legend.items))
+        if fitted == self._legend_fitted:
+            return  # the same room and entries: the same arrangement
+        self._legend_fitted = fitted
         room = self.canvas.width() - 8
         columns = next((c for c in (4, 2) if self.legend_width(c) <= room), 1)
         if self.legend.columnCount != columns:

@@ -40,6 +40,11 @@ def guide_radius(reach: float) -> float:
     return float(10.0 ** (np.ceil(10.0 * np.log10(reach) - 1e-9) / 10.0))
 
 
+def _point_set(symbol: str, size: float, pen) -> pg.ScatterPlotItem:
+    """Points drawn with one symbol, outline and no fill."""
+    return pg.ScatterPlotItem(symbol=symbol, size=size, pen=pen, brush=None)
+
+
 def _joined(lines) -> tuple[np.ndarray, np.ndarray]:
     """Several polylines ``[(x, y), ...]`` as one, broken by NaN between them (one item to
     draw instead of one per line)."""
@@ -70,9 +75,13 @@ class PoleMapPanel(PlotPanel):
         self.readout.setObjectName("poles_readout")
         elastic(self.readout)
         self._layout.addWidget(self.readout)
-        self.closed = self.plot.plot(pen=None, symbol="x", symbolSize=12, symbolPen=pg.mkPen("#c0392b", width=2))
-        self.feedback = self.plot.plot(pen=None, symbol="o", symbolSize=15, symbolBrush=None, symbolPen=pg.mkPen("#2f7fd0", width=1.6))
-        self.estimator = self.plot.plot(pen=None, symbol="s", symbolSize=15, symbolBrush=None, symbolPen=pg.mkPen("#2aa05a", width=1.6))
+        # point sets with one symbol, pen and brush each, set once: new poles are only new
+        # positions (a plot item with symbols made each spot's style again on every edit)
+        self.closed = _point_set("x", 12, pg.mkPen("#c0392b", width=2))
+        self.feedback = _point_set("o", 15, pg.mkPen("#2f7fd0", width=1.6))
+        self.estimator = _point_set("s", 15, pg.mkPen("#2aa05a", width=1.6))
+        for item in (self.closed, self.feedback, self.estimator):
+            self.plot.addItem(item)
         for item, name in ((self.closed, "closed loop"), (self.feedback, "designed eig(A − BK)"), (self.estimator, "designed eig(A − LC)")):
             self.legend.addItem(item, name)
         # every damping ray and natural-frequency circle in one curve, drawn behind the poles
@@ -94,9 +103,9 @@ class PoleMapPanel(PlotPanel):
             return
         self.data = value
         p = value["poles"]
-        self.closed.setData(p.real, p.imag)
-        self.feedback.setData(value["feedback"].real, value["feedback"].imag)
-        self.estimator.setData(value["estimator"].real, value["estimator"].imag)
+        self.closed.setData(x=p.real, y=p.imag)
+        self.feedback.setData(x=value["feedback"].real, y=value["feedback"].imag)
+        self.estimator.setData(x=value["estimator"].real, y=value["estimator"].imag)
         radius = value.get("guide_radius")
         if radius is None or radius != self._guide_radius:  # the same radius: the same guides
             self._guide_radius = radius

@@ -75,7 +75,7 @@ def test_the_live_check_and_the_pole_map_share_one_check_report_per_revision(win
     rep = window.live.latest.report
     assert window.live.latest.revision == doc.revision
     assert_allclose(np.sort_complex(rep.poles), np.sort_complex(want.poles), rtol=1e-9, atol=1e-12)
-    x, y = window.panels["poles"].closed.getOriginalDataset()
+    x, y = window.panels["poles"].closed.getData()
     assert_allclose(np.sort_complex(x + 1j * y), np.sort_complex(want.poles), rtol=1e-9, atol=1e-12)
     assert str(rep.states) in window._model_label.text()
 
@@ -156,7 +156,7 @@ def test_each_plot_is_ranged_once_per_update_and_its_range_covers_the_data(windo
         t, y = item.getOriginalDataset()
         (t0, t1), (y0, y1) = time_.plot.getViewBox().viewRange()
         assert t0 <= t.min() and t.max() <= t1 and y0 <= y.min() and y.max() <= y1
-    x, y = poles.closed.getOriginalDataset()
+    x, y = poles.closed.getData()
     (a0, a1), (b0, b1) = poles.plot.getViewBox().viewRange()
     assert a0 < x.min() and x.max() < a1 and b0 < y.min() and y.max() < b1
     # the same data again moves no range (the axes keep their drawn ticks)
@@ -353,3 +353,107 @@ def test_the_pole_maps_guides_are_one_item_redrawn_only_when_their_reach_changes
         assert (poles.guides in given) == (poles.data["guide_radius"] != radius)
         radius = poles.data["guide_radius"]
         given.clear()
+
+
+def test_the_status_line_says_checking_only_when_a_check_takes_half_a_second(window, qtbot, monkeypatch):
+    # each change of the line lays the window out again: a check that answers within half a
+    # second changes it once, to its answer; one that takes longer says "checking…" first
+    import loopwright.gui.workers as workers
+
+    _open(window, [("r", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    label = window._model_label
+    texts = []
+    real = label.setText
+    monkeypatch.setattr(label, "setText", lambda text: (texts.append(text), real(text))[1])
+    monkeypatch.setattr(workers, "PROGRESS_AFTER_S", 30.0)  # far longer than any check here
+    for k in range(2):
+        _edit_gain(window.document, 1.2 + 0.2 * k)
+        qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    assert len(texts) == 2 and not any(t.startswith("checking…") for t in texts)
+    assert texts[-1] == label.text() and str(window.live.latest.report.states) in texts[-1]
+    texts.clear()
+    monkeypatch.setattr(workers, "PROGRESS_AFTER_S", 0.0)  # every check counts as slow
+    _edit_gain(window.document, 0.9)
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    assert texts[0].startswith("checking…") and not texts[-1].startswith("checking…")
+
+
+def test_an_edit_that_changes_no_mark_visits_no_canvas_item_and_a_recreated_item_gets_its_marks(window, qtbot, monkeypatch):
+    # the tags of the kept pairs, the problems, design states and signal widths are given
+    # to every item only when they change; an item deleted and brought back by undo is new
+    # and gets them again
+    from loopwright.gui.canvas.marking import Markable
+    from loopwright.gui.commands import DeleteItems
+
+    _open(window, [("r", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    sc, doc = window.scene, window.document
+    visits = []
+    for name in ("set_tags", "set_problems"):
+        real = getattr(Markable, name)
+        monkeypatch.setattr(Markable, name, lambda item, *a, _real=real, **k: (visits.append(item), _real(item, *a, **k))[1])
+    _edit_gain(doc, 1.4)
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    qtbot.wait(20)  # the tags follow on the next turn of the event loop
+    assert visits == []
+    y = next(w for w in doc.diagram.wires.values() if w.name == "y")
+    assert "out 1" in sc.wire_items[y.id].tags
+    doc.push(DeleteItems(doc, [], [y.id]))
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    doc.undo_stack.undo()
+    qtbot.waitUntil(lambda: _settled(window) and "out 1" in sc.wire_items[y.id].tags, timeout=30000)
+    assert sc.wire_items[y.id].signal_width == window.live.latest.widths.get(y.id)
+
+
+def test_a_parameter_edit_leaves_the_pair_lists_alone(window, qtbot):
+    # the lists of inputs, signals and break points are filled again only when they change
+    # (refilling them on every edit also dropped a name being typed)
+    _open(window, [("r", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    panel = window.findChild(type(window.pairs_dock.widget()), "pairs_panel") or window.pairs_dock.widget()
+    filled = []
+    real = panel.input_box.clear
+    panel.input_box.clear = lambda: (filled.append(1), real())[1]
+    panel.output_box.setEditText("y_typ")
+    _edit_gain(window.document, 1.4)
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    qtbot.wait(20)
+    assert filled == [] and panel.output_box.currentText() == "y_typ"
+    assert panel.list.count() == 1 and "y ←" in panel.list.item(0).text()
+    window.picker.pick_input("dl")
+    window.picker.pick_output("y")
+    qtbot.waitUntil(lambda: panel.list.count() == 2, timeout=10000)
+    assert filled == [1]
+
+
+def test_the_margins_list_keeps_its_rows_and_changes_only_their_texts(window, qtbot):
+    _open(window, [("r", "y")])
+    window.view_docks["loop_break"].show()
+    window.view_docks["loop_break"].raise_()
+    qtbot.waitUntil(lambda: _settled(window) and window.panels["loop_break"].data is not None, timeout=30000)
+    panel = window.panels["loop_break"]
+    table = panel.margins
+    before = [table.item(i, 1) for i in range(table.rowCount())]
+    old = panel.listed_margins()
+    doc = window.document
+    k = doc.diagram.block_by_name("K")  # the state feedback: the loop at the plant input changes
+    doc.push(SetParams(doc, k.id, dict(k.params, K=(1.3 * np.asarray(k.params["K"], dtype=float)).tolist())))
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    assert [table.item(i, 1) for i in range(table.rowCount())] == before  # the same items ...
+    assert panel.listed_margins() != old  # ... with the new answer's texts
+    from loopwright.gui.docks.loop_break import margin_rows
+
+    assert panel.listed_margins() == dict(margin_rows(panel.data.margins))
+
+
+def test_the_pole_maps_point_sets_carry_one_style_for_all_their_points(window, qtbot):
+    # the closed-loop and designed poles are bare point sets: a new set of poles is new
+    # positions only, no style per point to make again
+    _open(window, [("r", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    poles = window.panels["poles"]
+    for item in (poles.closed, poles.feedback, poles.estimator):
+        assert isinstance(item, pg.ScatterPlotItem)
+        assert all(p is None for p in item.data["pen"]) and all(b is None for b in item.data["brush"])
+    assert len(poles.closed.data) == window.live.latest.report.poles.size

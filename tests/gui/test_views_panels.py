@@ -115,10 +115,10 @@ def test_pole_map_shows_the_closed_loop_and_the_designed_poles(window, wait_view
     _open_with_pairs(window, path, [])
     panel = _show(window, "poles", wait_views)
     rep = summarize(load(path))
-    x, y = panel.closed.getOriginalDataset()
+    x, y = panel.closed.getData()
     assert_allclose(np.sort_complex(x + 1j * y), np.sort_complex(rep.poles), rtol=1e-9, atol=1e-12)
-    fx, fy = panel.feedback.getOriginalDataset()
-    ex, ey = panel.estimator.getOriginalDataset()
+    fx, fy = panel.feedback.getData()
+    ex, ey = panel.estimator.getData()
     assert_allclose(np.sort_complex(fx + 1j * fy), np.sort_complex(rep.separation.state_feedback_poles))
     assert_allclose(np.sort_complex(ex + 1j * ey), np.sort_complex(rep.separation.estimator_poles))
     assert "separation holds" in panel.message.text()
@@ -227,7 +227,7 @@ def _first_ink(panel):
     if panel.key == "loop_break":
         return pg.mkPen(panel.curve.opts["pen"]).color()
     if panel.key == "poles":
-        return pg.mkPen(panel.closed.opts["symbolPen"]).color()
+        return pg.mkPen(panel.closed.opts["pen"]).color()
     if panel.key == "noise":
         return pg.mkBrush(next(iter(panel.bars.values())).opts["brush"]).color()
     return panel.grid.palette().text().color()
@@ -555,7 +555,7 @@ def test_after_an_edit_the_four_views_show_the_engines_numbers_from_one_shared_m
     tx, ty = window.panels["time"].curves[next(iter(window.panels["time"].curves))].getOriginalDataset()
     if window.panels["time"].run_kind() == "step":
         assert_allclose(ty, run.y[:, 0], rtol=1e-9, atol=1e-12)
-    x, y = window.panels["poles"].closed.getOriginalDataset()
+    x, y = window.panels["poles"].closed.getData()
     assert_allclose(np.sort_complex(x + 1j * y), np.sort_complex(summarize(d).poles), rtol=1e-9, atol=1e-12)
     at = d.settings.get("loop_break")
     if at:
