@@ -292,12 +292,19 @@ def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, 
         ax.enableAutoSIPrefix(False)  # a "(x0.001)" beside a unit is easy to miss
         ax.setPen(pg.mkPen("#5b6573"))
         ax.setTextPen(pg.mkPen("#1f2933"))
-        # an axis (with its grid lines and tick labels) is drawn again wherever a curve over
-        # it changes; kept as a picture of its own, that is a copy until its ticks change
-        # (save_picture draws it as vectors and text again for SVG)
-        ax.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
+        # the axis keeps its ticks, labels and grid as a recorded picture, made again when
+        # its range changes (rarely: fit_range keeps a range that holds the data) and when
+        # it moves against its plot (a label above it wrapped onto another line); no pixmap
+        # cache on top: with few range changes left to refresh it, a pixmap of an axis cut
+        # by a narrow panel's edge showed stale tick labels
+        ax.geometryChanged.connect(lambda _ax=ax: _redraw_axis(_ax))
     hold_user_range(p)
     return p
+
+
+def _redraw_axis(axis: pg.AxisItem) -> None:
+    axis.picture = None
+    axis.update()
 
 
 def data_span(arrays, *, log: bool = False) -> tuple[float, float] | None:

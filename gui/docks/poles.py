@@ -40,9 +40,9 @@ def guide_radius(reach: float) -> float:
     return float(10.0 ** (np.ceil(10.0 * np.log10(reach) - 1e-9) / 10.0))
 
 
-def _point_set(symbol: str, size: float, pen) -> pg.ScatterPlotItem:
-    """Points drawn with one symbol, outline and no fill."""
-    return pg.ScatterPlotItem(symbol=symbol, size=size, pen=pen, brush=None)
+def _point_set(symbol: str, size: float, pen, brush=None) -> pg.ScatterPlotItem:
+    """Points drawn with one symbol, outline and fill (none by default)."""
+    return pg.ScatterPlotItem(symbol=symbol, size=size, pen=pen, brush=brush)
 
 
 def _joined(lines) -> tuple[np.ndarray, np.ndarray]:
@@ -77,7 +77,7 @@ class PoleMapPanel(PlotPanel):
         self._layout.addWidget(self.readout)
         # point sets with one symbol, pen and brush each, set once: new poles are only new
         # positions (a plot item with symbols made each spot's style again on every edit)
-        self.closed = _point_set("x", 12, pg.mkPen("#c0392b", width=2))
+        self.closed = _point_set("x", 12, pg.mkPen("#c0392b", width=2), brush=(50, 50, 150))  # the cross filled dark, as ever
         self.feedback = _point_set("o", 15, pg.mkPen("#2f7fd0", width=1.6))
         self.estimator = _point_set("s", 15, pg.mkPen("#2aa05a", width=1.6))
         for item in (self.closed, self.feedback, self.estimator):
