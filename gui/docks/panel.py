@@ -294,9 +294,12 @@ def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, 
         ax.setTextPen(pg.mkPen("#1f2933"))
         # the axis keeps its ticks, labels and grid as a recorded picture, made again when
         # its range changes (rarely: fit_range keeps a range that holds the data) and when
-        # it moves against its plot (a label above it wrapped onto another line); no pixmap
-        # cache on top: with few range changes left to refresh it, a pixmap of an axis cut
-        # by a narrow panel's edge showed stale tick labels
+        # it moves against its plot (a label above it wrapped onto another line); on screen
+        # a copy of it is drawn when a curve over it changes (half the painting of an edit).
+        # The copy is of the whole axis: one of only the part in sight (a device copy)
+        # showed stale tick labels where a narrow panel cut the axis off.
+        # (save_picture draws it as vectors and text again for SVG)
+        ax.setCacheMode(QGraphicsItem.CacheMode.ItemCoordinateCache)
         ax.geometryChanged.connect(lambda _ax=ax: _redraw_axis(_ax))
     hold_user_range(p)
     return p

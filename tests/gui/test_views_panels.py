@@ -458,9 +458,9 @@ def test_a_view_picture_never_replaces_a_diagram_and_carries_the_caution(window,
 
 def test_axes_keep_their_picture_through_an_edit_and_draw_it_again_when_moved(window, wait_views, tmp_path):
     # an axis (ticks, labels, grid lines) is a recorded picture, made again only when its
-    # range changes or it moves against its plot, not each time a curve over it changes;
-    # no pixmap cache on top (a stale pixmap of an axis cut by a narrow panel's edge showed
-    # old tick labels), and an SVG gets the axes as lines and text
+    # range changes or it moves against its plot, not each time a curve over it changes; on
+    # screen a copy of the whole axis is drawn (a copy of only the part in sight showed
+    # stale tick labels where a narrow panel cut the axis off); an SVG gets lines and text
     import pyqtgraph as pg
     from PySide6.QtWidgets import QGraphicsItem
 
@@ -471,7 +471,7 @@ def test_axes_keep_their_picture_through_an_edit_and_draw_it_again_when_moved(wi
     panels = [_show(window, key, wait_views) for key in ("frequency", "time")]
     axes = {p.key: [it for it in p.canvas.scene().items() if isinstance(it, pg.AxisItem) and it.isVisible()] for p in panels}
     for key, items in axes.items():
-        assert items and all(ax.cacheMode() == QGraphicsItem.CacheMode.NoCache for ax in items), key
+        assert items and all(ax.cacheMode() == QGraphicsItem.CacheMode.ItemCoordinateCache for ax in items), key
         for ax in items:
             ax.grab_picture = ax.picture
     doc = window.document
@@ -490,6 +490,7 @@ def test_axes_keep_their_picture_through_an_edit_and_draw_it_again_when_moved(wi
         panel.save_picture(tmp_path / f"{panel.key}.svg")
         svg = (tmp_path / f"{panel.key}.svg").read_text(encoding="utf-8")
         assert svg.count("<text") > 6, panel.key  # tick labels as text
+        assert all(ax.cacheMode() == QGraphicsItem.CacheMode.ItemCoordinateCache for ax in axes[panel.key])  # and copied again
 
 
 def test_no_leftover_tab_bar_shows_beside_the_dock_groups(window):
@@ -619,3 +620,30 @@ def test_slow_views_run_beside_the_quick_ones(qtbot):
     release.set()
     qtbot.waitUntil(lambda: results == ["frequency", "loop_break"], timeout=10000)
     jobs.shutdown()
+
+
+@pytest.mark.parametrize("path", SAMPLES, ids=[p.stem for p in SAMPLES])
+def test_axes_cut_off_by_narrow_panels_show_as_fresh_axes_would(window, wait_views, path):
+    # four views side by side along the bottom make each one narrower than its legend, which
+    # cuts the axes off at the panel's edge; what the window shows equals the same axes drawn
+    # afresh (a copy of only the part in sight kept stale tick labels and grid lines there)
+    import pyqtgraph as pg
+    from PySide6.QtCore import Qt
+    from PySide6.QtWidgets import QApplication
+
+    window.resize(1600, 1000)
+    window.show()
+    for key in ("frequency", "time", "poles", "loop_break"):
+        window.addDockWidget(Qt.DockWidgetArea.BottomDockWidgetArea, window.view_docks[key], Qt.Orientation.Horizontal)
+        window.view_docks[key].show()
+    _open_with_pairs(window, path, [("r", "y")])
+    wait_views(window)
+    for _ in range(10):
+        QApplication.processEvents()
+    for key in ("frequency", "time", "poles", "loop_break"):
+        canvas = window.panels[key].canvas
+        shown = canvas.grab().toImage()
+        for ax in [it for it in canvas.scene().items() if isinstance(it, pg.AxisItem)]:
+            ax.picture = None
+            ax.update()
+        assert canvas.grab().toImage() == shown, key
