@@ -17,12 +17,23 @@ from loopwright.gui.docks.panel import (
 )
 from loopwright.gui.view_commands import input_label
 
-__all__ = ["FrequencyPanel", "AUDIT_COLOUR"]
+__all__ = ["FrequencyPanel", "AUDIT_COLOUR", "frequency_job"]
 
 #: The colour of the path picked in the audit (the canvas highlight of the light theme).
 AUDIT_COLOUR = QColor("#8e44ad")
 
 _TWO_PI = 2.0 * np.pi
+
+
+def frequency_job(diagram, pairs, **kwargs) -> list:
+    """The view's engine call (worker thread): :func:`frequency_views`, with each answer's
+    magnitude in dB and unwrapped phase made there too (computed when first read, they
+    were made on the window's thread as it drew them)."""
+    out = frequency_views(diagram, pairs, **kwargs)
+    for resp in out:
+        if not isinstance(resp, str):
+            resp.mag_db, resp.phase_deg  # noqa: B018 - made now, kept by the answer
+    return out
 
 
 class FrequencyPanel(PlotPanel):
@@ -77,7 +88,7 @@ class FrequencyPanel(PlotPanel):
         shown = self.shown_pairs()
         if not shown:
             return None
-        return frequency_views, (diagram, shown), {"drawing": True, "shared": shared}
+        return frequency_job, (diagram, shown), {"drawing": True, "shared": shared}
 
     def set_audit_pair(self, pair: tuple[str, str] | None) -> None:
         if pair != self.audit_pair:

@@ -457,3 +457,34 @@ def test_the_pole_maps_point_sets_carry_one_style_for_all_their_points(window, q
         assert isinstance(item, pg.ScatterPlotItem)
         assert all(p is None for p in item.data["pen"]) and all(b is None for b in item.data["brush"])
     assert len(poles.closed.data) == window.live.latest.report.poles.size
+
+
+def test_the_frequency_views_answer_comes_with_its_db_and_phase_made_on_the_worker(window, qtbot, monkeypatch):
+    # the dB and unwrapped phase of each response are computed where the response is, not
+    # on the window's thread when the curves are drawn
+    import threading
+
+    from loopwright.engine.responses import magnitude_db, phase_deg
+    from loopwright.engine.views_data import PairResponse
+
+    made_on = []
+    for name in ("mag_db", "phase_deg"):
+        real = PairResponse.__dict__[name].func
+
+        def recording(resp, _real=real):
+            made_on.append(threading.current_thread() is threading.main_thread())
+            return _real(resp)
+
+        prop = PairResponse.__dict__[name]
+        monkeypatch.setattr(prop, "func", recording)
+    _open(window, [("r", "y"), ("dl", "y")])
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    made_on.clear()
+    _edit_gain(window.document, 1.3)
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    assert made_on and not any(made_on)  # made, and never on the window's thread
+    freq = window.panels["frequency"]
+    for (pair, i, j), (cm, cp) in freq.curves.items():  # and what is drawn is the engine's dB and phase
+        resp = freq.data[pair]
+        assert_allclose(cm.getOriginalDataset()[1], magnitude_db(resp.response)[:, i, j])
+        assert_allclose(cp.getOriginalDataset()[1], phase_deg(resp.response)[:, i, j])
