@@ -347,7 +347,11 @@ def release_user_range(plot: pg.PlotItem) -> None:
 
 
 def is_user_range(vb: pg.ViewBox) -> bool:
-    """True when ``vb`` (or a plot it follows along x) shows a range the user set."""
+    """True when ``vb`` (or a plot it follows along x) shows a range the user set; a press
+    of the plot's auto-range button hands the range back to the panel."""
+    if any(vb.autoRangeEnabled()):
+        vb.user_range = False
+        vb.disableAutoRange()  # the panel ranges it once per update from now on
     linked = vb.linkedView(0)
     return bool(getattr(vb, "user_range", False) or (linked is not None and getattr(linked, "user_range", False)))
 
@@ -364,10 +368,6 @@ def fit_range(plot: pg.PlotItem, *, x=None, y=None, padding: float | None = None
     user set (:func:`hold_user_range`) is kept as it is.
     """
     vb = plot.getViewBox()
-    if any(vb.autoRangeEnabled()):
-        # the user pressed the plot's auto-range button: fit from now on, once per update
-        vb.user_range = False
-        vb.disableAutoRange()
     if is_user_range(vb):
         return False
     current = vb.viewRange()

@@ -488,3 +488,34 @@ def test_the_frequency_views_answer_comes_with_its_db_and_phase_made_on_the_work
         resp = freq.data[pair]
         assert_allclose(cm.getOriginalDataset()[1], magnitude_db(resp.response)[:, i, j])
         assert_allclose(cp.getOriginalDataset()[1], phase_deg(resp.response)[:, i, j])
+
+
+def test_the_loop_break_view_keeps_a_users_zoom_until_its_auto_range_button(window, qtbot):
+    _open(window, [("r", "y")])
+    window.view_docks["loop_break"].show()
+    window.view_docks["loop_break"].raise_()
+    qtbot.waitUntil(lambda: _settled(window) and window.panels["loop_break"].data is not None, timeout=30000)
+    panel = window.panels["loop_break"]
+    vb = panel.plot.getViewBox()
+    framed = vb.viewRange()
+    view = panel.canvas
+    centre = view.mapFromScene(vb.mapViewToScene(pg.Point(-1.0, 0.0)))
+    _wheel(view.viewport(), centre, 3)  # zoom in on the critical point
+    zoomed, target = vb.viewRange(), vb.targetRange()
+    assert zoomed[0][1] - zoomed[0][0] < 0.9 * (framed[0][1] - framed[0][0])
+    doc = window.document
+    k = doc.diagram.block_by_name("K")
+    doc.push(SetParams(doc, k.id, dict(k.params, K=(1.2 * np.asarray(k.params["K"], dtype=float)).tolist())))
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    # the same part asked for (the aspect is locked: a panel laid out anew shows more or
+    # less around it)
+    assert_allclose(vb.targetRange(), target)
+    panel.plot.autoBtnClicked()
+    doc.push(SetParams(doc, k.id, dict(k.params, K=(1.3 * np.asarray(k.params["K"], dtype=float)).tolist())))
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    (x0, x1), (y0, y1) = vb.viewRange()
+    assert not any(vb.autoRangeEnabled())
+    assert x0 < -1.0 < x1 and y0 < 0.0 < y1  # framed by the panel again: the critical point in sight
+    L = panel.data.curves[0]
+    near = L[np.abs(L) < 20.0]
+    assert x0 <= near.real.min() and near.real.max() <= x1
