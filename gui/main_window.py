@@ -32,6 +32,7 @@ from loopwright.gui.problems import ProblemsList
 from loopwright.gui.settings import Preferences, RecentFiles, save_canvas_colours
 from loopwright.gui.shelf import Shelf
 from loopwright.gui.theme import theme_from_palette
+from loopwright.gui import workers
 from loopwright.gui.workers import LiveModel, LiveResult
 
 __all__ = ["MainWindow", "sample_paths", "status_text"]
@@ -249,6 +250,11 @@ class MainWindow(QMainWindow):
         self.shelf.place_requested.connect(self._place_from_shelf)
         self.problems.culprits_chosen.connect(self.select_culprits)
         self.live.result_ready.connect(self._on_live_result)
+        # "checking…" shows only once a check has taken half a second: a quick one's
+        # two status changes per edit laid the whole window out twice
+        self._checking_timer = QTimer(self)
+        self._checking_timer.setSingleShot(True)
+        self._checking_timer.timeout.connect(self._show_checking)
         self.live.busy_changed.connect(self._on_busy)
         # Bound methods, not lambdas: Qt drops them when the window goes, while the undo
         # stack may still emit as it is destroyed.
@@ -447,11 +453,18 @@ class MainWindow(QMainWindow):
         self.setWindowModified(d.is_dirty)
 
     def _on_busy(self, busy: bool) -> None:
-        if busy:
+        if not busy:
+            self._checking_timer.stop()
+        elif not self._checking_timer.isActive():
+            self._checking_timer.start(int(1000 * workers.PROGRESS_AFTER_S))
+
+    def _show_checking(self) -> None:
+        if not self.live.is_current():
             # the line of the last result, made when it came (not again on every edit)
             self._model_label.setText("checking…  " + self._live_status)
 
     def _on_live_result(self, result: LiveResult) -> None:
+        self._checking_timer.stop()
         text = status_text(result)
         self._live_status = text
         self._model_label.setText(text)

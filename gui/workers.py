@@ -254,6 +254,7 @@ class _JobControl:
         self._after_interim = after_interim
         self._stopped = threading.Event()
         self._last = -1.0
+        self._quiet_until = time.monotonic() + PROGRESS_AFTER_S
 
     def stop(self) -> None:
         self._stopped.set()
@@ -272,12 +273,20 @@ class _JobControl:
                 self._after_interim(self._stopped)
             if self._stopped.is_set():
                 raise JobStopped(f"{self.key}: stopped")
+        if time.monotonic() < self._quiet_until:
+            return  # nobody sees it yet: a quick job's reports cost the window nothing
         if fraction - self._last >= 0.01 or fraction >= 1.0:
             self._last = fraction
             try:
                 self._emit(self.key, float(fraction))
             except RuntimeError:
                 pass  # the window was closed while the worker ran
+
+
+#: Seconds a job runs before its progress reports reach the window: the busy line shows
+#: only after half a second (gui/docks/views.py), and on a 50-state loop a whole job takes
+#: tens of milliseconds, whose reports would each be a queued call on the window's thread.
+PROGRESS_AFTER_S = 0.5
 
 
 #: Workers of the quick views. Two: on a large loop the slow worker's first answer (the
@@ -306,7 +315,8 @@ class ViewJobs(QObject):
     busy_changed(str, bool)
         A panel's request started waiting or running (True), or ended (False).
     progress_changed(str, float)
-        A running job's fraction done (only jobs submitted with ``progress=True``).
+        A running job's fraction done (only jobs submitted with ``progress=True``, and
+        only once they have run :data:`PROGRESS_AFTER_S`).
 
     A job submitted with ``progress=True`` may also hand a first answer to its progress
     report (``progress(fraction, interim)``): it reaches :attr:`result_ready` at once if it

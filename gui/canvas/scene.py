@@ -66,6 +66,9 @@ class DiagramScene(QGraphicsScene):
         self._segment_index = RectIndex()
         self._body_index = RectIndex()
         self._rect_pending = False
+        # what the live model and the pairs last marked on the items (set_problems, set_tags,
+        # ...): an edit that changes none of it (most parameter edits) visits no item
+        self._marks: dict[str, object] = {}
         self.setItemIndexMethod(QGraphicsScene.ItemIndexMethod.BspTreeIndex)
         self.setBackgroundBrush(theme.background)
         d = document
@@ -86,6 +89,7 @@ class DiagramScene(QGraphicsScene):
     # ---- document -> items ----------------------------------------------------------------
     def _on_diagram_replaced(self) -> None:
         self._link = None
+        self._marks.clear()  # an item came or went: the next marks go to every item
         self._pending_branch = None
         self.clear()
         self._segments.clear()
@@ -104,6 +108,7 @@ class DiagramScene(QGraphicsScene):
         self._refit_scene_rect()
 
     def _add_block_item(self, bid: str) -> BlockItem:
+        self._marks.clear()  # an item came or went: the next marks go to every item
         item = BlockItem(self.document.diagram.blocks[bid], self.theme, font=self.font_, grid=self.grid_size)
         self.block_items[bid] = item
         self._wires_of.setdefault(bid, set())
@@ -130,6 +135,7 @@ class DiagramScene(QGraphicsScene):
                 item.set_open_inputs(p.ref.port for (name, is_in), p in item.ports.items() if is_in and (bid, name) not in fed)
 
     def _add_wire_item(self, wid: str) -> WireItem:
+        self._marks.clear()  # an item came or went: the next marks go to every item
         item = WireItem(wid, self, self.theme, font=self.font_)
         self.wire_items[wid] = item
         self.addItem(item)
@@ -158,6 +164,7 @@ class DiagramScene(QGraphicsScene):
         self._fit_scene_rect()
 
     def _on_block_removed(self, bid: str) -> None:
+        self._marks.clear()  # an item came or went: the next marks go to every item
         item = self.block_items.pop(bid, None)
         self._wires_of.pop(bid, None)
         self._body_index.discard(bid)
@@ -169,17 +176,31 @@ class DiagramScene(QGraphicsScene):
         item = self.block_items.get(bid)
         if item is None:
             return
+        before = self._block_geometry(item)
         item.sync(self.document.diagram.blocks[bid])
         self._mark_open_inputs([bid])
+        if self._block_geometry(item) == before:
+            # a parameter-only edit (a gain's matrix of the same shape): the body and the
+            # ports stay where they were, so its wires, their lanes and their names too
+            return
         self._index_body(bid)
         self._reroute_block(bid)
         self._fit_scene_rect()
+
+    @staticmethod
+    def _block_geometry(item: BlockItem) -> tuple:
+        """What a block's wires are routed around: its body in the scene and its ports'
+        places and directions."""
+        r = item.body_scene_rect()
+        ports = sorted((name, is_in, p.pos().x(), p.pos().y(), tuple(p.normal)) for (name, is_in), p in item.ports.items())
+        return (r.x(), r.y(), r.width(), r.height(), tuple(ports))
 
     def _on_wire_added(self, wid: str) -> None:
         self._add_wire_item(wid)
         self._mark_open_inputs()
 
     def _on_wire_removed(self, wid: str) -> None:
+        self._marks.clear()  # an item came or went: the next marks go to every item
         self._segments.pop(wid, None)
         self._label_rects.pop(wid, None)
         self._segment_index.discard(wid)
@@ -280,6 +301,10 @@ class DiagramScene(QGraphicsScene):
                 by_wire.setdefault(w, []).append(p.message)
                 if is_error:
                     errors.add(w)
+        marks = (by_block, by_wire, errors)
+        if marks == self._marks.get("problems"):
+            return  # the same marks (most edits): no item to visit
+        self._marks["problems"] = marks
         for bid, item in self.block_items.items():
             item.set_problems(by_block.get(bid, []), warnings_only=bid not in errors)
         for wid, item in self.wire_items.items():
@@ -288,12 +313,19 @@ class DiagramScene(QGraphicsScene):
     def set_design_states(self, states: dict[str, str]) -> None:
         """Mark designed blocks whose matrix cannot be vouched for, ``{block id: state}``
         (``"stale"``, ``"not designed yet"``, ...); other blocks lose their mark."""
+        marks = dict(states)
+        if marks == self._marks.get("design"):
+            return
+        self._marks["design"] = marks
         for bid, item in self.block_items.items():
             item.set_design_state(states.get(bid, ""))
 
     def set_widths(self, widths: dict[str, int]) -> None:
         """Signal widths by wire id (vectors are drawn heavier, with their width)."""
+        if widths == self._widths and "widths" in self._marks:
+            return
         self._widths = dict(widths)
+        self._marks["widths"] = True
         for wid, item in self.wire_items.items():
             item.set_signal_width(self._widths.get(wid))
 
@@ -307,6 +339,11 @@ class DiagramScene(QGraphicsScene):
 
     def set_tags(self, block_tags: dict, wire_tags: dict) -> None:
         """Pin tags, ``{id: [(text, QColor), ...]}`` for blocks and wires; others lose theirs."""
+        marks = ({k: [(t, c.name()) for t, c in v] for k, v in block_tags.items()},
+                 {k: [(t, c.name()) for t, c in v] for k, v in wire_tags.items()})
+        if marks == self._marks.get("tags"):
+            return
+        self._marks["tags"] = marks
         for bid, item in self.block_items.items():
             item.set_tags(block_tags.get(bid, []), self.font_)
         for wid, item in self.wire_items.items():

@@ -12,15 +12,28 @@ from PySide6.QtGui import QColor
 from PySide6.QtWidgets import QComboBox, QHBoxLayout, QLabel
 
 from loopwright.engine.views_data import frequency_views
-from loopwright.gui.docks.panel import PlotPanel, data_span, elastic, fit_range, legend_row, new_layout_widget, pair_colour, pen_for, shade_of, themed_plot
+from loopwright.gui.docks.panel import (
+    PlotPanel, data_span, elastic, fit_range, legend_row, new_layout_widget, pair_colour, pen_for, release_user_range, shade_of, themed_plot,
+)
 from loopwright.gui.view_commands import input_label
 
-__all__ = ["FrequencyPanel", "AUDIT_COLOUR"]
+__all__ = ["FrequencyPanel", "AUDIT_COLOUR", "frequency_job"]
 
 #: The colour of the path picked in the audit (the canvas highlight of the light theme).
 AUDIT_COLOUR = QColor("#8e44ad")
 
 _TWO_PI = 2.0 * np.pi
+
+
+def frequency_job(diagram, pairs, **kwargs) -> list:
+    """The view's engine call (worker thread): :func:`frequency_views`, with each answer's
+    magnitude in dB and unwrapped phase made there too (computed when first read, they
+    were made on the window's thread as it drew them)."""
+    out = frequency_views(diagram, pairs, **kwargs)
+    for resp in out:
+        if not isinstance(resp, str):
+            resp.mag_db, resp.phase_deg  # noqa: B018 - made now, kept by the answer
+    return out
 
 
 class FrequencyPanel(PlotPanel):
@@ -36,7 +49,7 @@ class FrequencyPanel(PlotPanel):
         self.unit = QComboBox()
         self.unit.setObjectName("frequency_unit")
         self.unit.addItems(["rad/s", "Hz"])
-        self.unit.currentIndexChanged.connect(self._redraw_units)
+        self.unit.currentIndexChanged.connect(self._on_unit_changed)
         bar.addWidget(self.unit)
         bar.addStretch(1)
         self.readout = QLabel("")
@@ -75,7 +88,7 @@ class FrequencyPanel(PlotPanel):
         shown = self.shown_pairs()
         if not shown:
             return None
-        return frequency_views, (diagram, shown), {"drawing": True, "shared": shared}
+        return frequency_job, (diagram, shown), {"drawing": True, "shared": shared}
 
     def set_audit_pair(self, pair: tuple[str, str] | None) -> None:
         if pair != self.audit_pair:
@@ -132,11 +145,14 @@ class FrequencyPanel(PlotPanel):
                     if db_pk > best[0]:
                         best = (db_pk, w_pk)
             if pair not in self.peaks:
-                self.peaks[pair] = self.mag.plot(pen=None, symbol="t", symbolSize=12, symbolPen=pg.mkPen("#1f2933"))
-            brush = pg.mkBrush(colour)
-            if self.peaks[pair].opts["symbolBrush"] != brush:
-                self.peaks[pair].setSymbolBrush(brush)
-            self.peaks[pair].setToolTip(f"peak {best[0]:.4g} dB at {best[1]:.4g} rad/s")
+                # a point with its symbol and outline set once (a new peak is a new position)
+                self.peaks[pair] = pg.ScatterPlotItem(symbol="t", size=12, pen=pg.mkPen("#1f2933"), brush=pg.mkBrush(colour))
+                self.mag.addItem(self.peaks[pair])
+            if self.peaks[pair].opts["brush"].color() != colour:
+                self.peaks[pair].setBrush(pg.mkBrush(colour))
+            tip = f"peak {best[0]:.4g} dB at {best[1]:.4g} rad/s"
+            if self.peaks[pair].toolTip() != tip:
+                self.peaks[pair].setToolTip(tip)
         for key in [k for k in self.curves if k not in wanted]:
             cm, cp = self.curves.pop(key)
             self.mag.removeItem(cm)
@@ -149,6 +165,10 @@ class FrequencyPanel(PlotPanel):
             self.show_error("\n".join(errors))
         else:
             self.set_message("" if shown else "No pair yet: right-click a wire and choose “look here”.")
+
+    def _on_unit_changed(self, *_args) -> None:
+        release_user_range(self.mag)  # a zoom in the other unit shows other frequencies
+        self._redraw_units()
 
     def _redraw_units(self) -> None:
         s = self._scale()
@@ -167,7 +187,7 @@ class FrequencyPanel(PlotPanel):
             resp = self.data[pair]
             p, m = resp.response.shape[1:]
             w_pk, db_pk = max((resp.peak(i, j) for i in range(p) for j in range(m)), key=lambda t: t[1])
-            item.setData([w_pk * s], [db_pk])
+            item.setData(x=[np.log10(w_pk * s)], y=[db_pk])  # a bare point is not log-scaled by the plot
         self._fit()
         if self.data:
             ws = np.concatenate([r.w_rad_s for r in self.data.values()]) * s
@@ -192,8 +212,8 @@ class FrequencyPanel(PlotPanel):
         """Pair -> (frequency in the shown unit, dB) of its marked peak."""
         out = {}
         for pair, item in self.peaks.items():
-            x, y = item.getOriginalDataset()
-            out[pair] = (float(x[0]), float(y[0]))
+            x, y = item.getData()
+            out[pair] = (float(10.0 ** x[0]), float(y[0]))
         return out
 
     # ---- cursor ----------------------------------------------------------------------------

@@ -147,7 +147,11 @@ def _drop_leftover_tab_bars(window) -> None:
     """
     from PySide6.QtWidgets import QTabBar
 
-    bars = [tb for tb in window.findChildren(QTabBar) if tb.parentWidget() is window]
+    # the window's own children only (a search of every widget below it took longer than
+    # the rest of an edit's layout pass)
+    bars = window.findChildren(QTabBar, options=Qt.FindChildOption.FindDirectChildrenOnly)
+    if len(bars) < 2:
+        return
     tabs = {tb: [tb.tabText(i) for i in range(tb.count())] for tb in bars}
     for tb, names in tabs.items():
         if any(other is not tb and len(other_names) > len(names) and set(names) <= set(other_names) for other, other_names in tabs.items()):

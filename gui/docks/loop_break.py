@@ -12,7 +12,7 @@ from PySide6.QtWidgets import QComboBox, QHBoxLayout, QHeaderView, QLabel, QTabl
 
 from loopwright.engine.margins import LoopMargins
 from loopwright.engine.views_data import loop_break_view
-from loopwright.gui.docks.panel import AdaptiveSplitter, PlotPanel, elastic, legend_row, new_layout_widget, themed_plot
+from loopwright.gui.docks.panel import KEEP_WIDER, AdaptiveSplitter, PlotPanel, elastic, is_user_range, legend_row, new_layout_widget, themed_plot
 
 __all__ = ["LoopBreakPanel", "margin_rows"]
 
@@ -121,6 +121,7 @@ class LoopBreakPanel(PlotPanel):
 
     def __init__(self, parent=None):
         super().__init__(parent)
+        self._legend_fitted: tuple | None = None  # (width, height, entries) the legend was arranged for
         bar = QHBoxLayout()
         self.where = QLabel("")
         self.where.setObjectName("loop_break_where")
@@ -266,16 +267,21 @@ class LoopBreakPanel(PlotPanel):
             self.summary.setText(f"phase margin {_phase_text(m, where=False)} · gain margin {_num(lo_db)} / +{_num(hi_db)} dB · "
                                  f"disk margin α {_num(m.disk.alpha)}{_checking(m)} · delay margin {_num(m.delay_margin_s)} s"
                                  if m.closed_loop_stable else "the closed loop is UNSTABLE at this break")
-        self.margins.setRowCount(len(rows))
-        for i, (a, b) in enumerate(rows):
-            self.margins.setItem(i, 0, QTableWidgetItem(a))
-            self.margins.setItem(i, 1, QTableWidgetItem(b))
-        self._fit_margins()
+        if self._set_rows(rows):
+            self._fit_margins()
         self._arrange()
-        self._frame(v, k, together)
+        self._frame(v, k, together, again=False)
 
-    def _frame(self, v, k, together) -> None:
-        """Frame the part that matters: the critical point, the disk and where the curve passes near."""
+    def _frame(self, v, k, together, *, again: bool = True) -> None:
+        """Frame the part that matters: the critical point, the disk and where the curve passes near.
+
+        With ``again`` False (a new answer) a frame that still holds all of it with half the
+        padding to spare, and that it fills to at least 1 / KEEP_WIDER along one side, is
+        kept (its axes keep their drawn ticks); a range the user zoomed or panned to is
+        always kept."""
+        vb = self.plot.getViewBox()
+        if is_user_range(vb):
+            return
         if together:
             pts = v.loci.ravel()
         else:
@@ -289,9 +295,36 @@ class LoopBreakPanel(PlotPanel):
                 xs = np.concatenate([xs, [c - r, c + r]])
                 ys = np.concatenate([ys, [-r, r]])
         pad = 0.1 * max(np.ptp(xs), np.ptp(ys), 1.0)
+        x0, x1, y0, y1 = xs.min() - pad, xs.max() + pad, ys.min() - pad, ys.max() + pad
+        if not again:
+            (c_x0, c_x1), (c_y0, c_y1) = vb.viewRange()
+            spare = 0.5 * pad
+            holds = c_x0 <= x0 + spare and c_x1 >= x1 - spare and c_y0 <= y0 + spare and c_y1 >= y1 - spare
+            # the aspect is locked: the frame is wider than wanted along one side only
+            fills = max((x1 - x0) / max(c_x1 - c_x0, 1e-300), (y1 - y0) / max(c_y1 - c_y0, 1e-300))
+            if holds and fills * KEEP_WIDER >= 1.0:
+                return
         # both ranges in one call: with the aspect locked, a second call kept its own range and
         # recentred the first, and a tall plot showed only a strip beside the curve
-        self.plot.setRange(xRange=(xs.min() - pad, xs.max() + pad), yRange=(ys.min() - pad, ys.max() + pad), padding=0)
+        self.plot.setRange(xRange=(x0, x1), yRange=(y0, y1), padding=0)
+
+    def _set_rows(self, rows) -> bool:
+        """Show ``rows`` in the margins list, changing only the texts that differ; True when
+        any did (the rows are then fitted to their texts again)."""
+        t = self.margins
+        changed = t.rowCount() != len(rows)
+        if changed:
+            t.setRowCount(len(rows))
+        for i, pair in enumerate(rows):
+            for j, text in enumerate(pair):
+                item = t.item(i, j)
+                if item is None:
+                    t.setItem(i, j, QTableWidgetItem(text))
+                    changed = True
+                elif item.text() != text:
+                    item.setText(text)
+                    changed = True
+        return changed
 
     def _fit_margins(self) -> None:
         """Names no wider than half the list (they wrap), values in the rest, rows as tall as their text."""
@@ -319,6 +352,10 @@ class LoopBreakPanel(PlotPanel):
     def _fit_legend(self) -> None:
         """As many legend entries to a line as the plot's width holds (4, 2 or 1): a legend
         wider than the plot was cut at its edge."""
+        fitted = (self.canvas.width(), self.canvas.height(), len(self.legend.items))
+        if fitted == self._legend_fitted:
+            return  # the same room and entries: the same arrangement
+        self._legend_fitted = fitted
         room = self.canvas.width() - 8
         columns = next((c for c in (4, 2) if self.legend_width(c) <= room), 1)
         if self.legend.columnCount != columns:

@@ -247,11 +247,19 @@ class PairsPanel(QWidget):
         self._timer.setInterval(0)
         self._timer.timeout.connect(self.refresh)
         document.changed.connect(lambda _rev: self._timer.start())
+        self._shown: tuple | None = None
         self.refresh()
 
     def refresh(self) -> None:
         d = self._doc.diagram
-        for box, items in ((self.input_box, input_choices(d)), (self.output_box, signal_choices(d)), (self.break_box, ["(none)"] + break_choices(d))):
+        choices = (input_choices(d), signal_choices(d), ["(none)"] + break_choices(d))
+        brk = d.settings.get("loop_break")
+        pairs = pairs_of(d)
+        shown = (choices, brk, pairs)
+        if shown == self._shown:
+            return  # a parameter edit: the same lists (refilling them would also drop what is being typed)
+        self._shown = shown
+        for box, items in zip((self.input_box, self.output_box, self.break_box), choices):
             current = box.currentText()
             box.blockSignals(True)
             box.clear()
@@ -259,10 +267,9 @@ class PairsPanel(QWidget):
             if current in items:
                 box.setCurrentText(current)
             box.blockSignals(False)
-        brk = d.settings.get("loop_break")
         self.break_box.setCurrentText(brk if isinstance(brk, str) else "(none)")
         self.list.clear()
-        for k, (src, sig) in enumerate(pairs_of(d)):
+        for k, (src, sig) in enumerate(pairs):
             item = QListWidgetItem(_swatch(pair_colour(k)), f"{k + 1}: {sig} ← {input_label(src)}")
             self.list.addItem(item)
 

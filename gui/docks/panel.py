@@ -21,7 +21,8 @@ from PySide6.QtWidgets import QSplitter, QFileDialog, QGraphicsItem, QGraphicsVi
 from loopwright.engine.svg_plot import PAIR_COLOURS
 
 __all__ = ["PlotPanel", "PAIR_COLOURS", "pair_colour", "shade_of", "write_table_csv", "pen_for", "themed_plot", "new_layout_widget",
-           "legend_row", "elastic", "AdaptiveSplitter", "fit_range", "data_span"]
+           "legend_row", "elastic", "AdaptiveSplitter", "fit_range", "data_span",
+           "hold_user_range", "release_user_range", "is_user_range", "KEEP_WIDER"]
 
 # PAIR_COLOURS: one colour per kept pair, the same in every panel, on the canvas and in the
 # command line's SVG plots; our own set, chosen to stay apart on light and dark backgrounds.
@@ -291,11 +292,22 @@ def themed_plot(layout_widget: pg.GraphicsLayoutWidget, row: int, *, left: str, 
         ax.enableAutoSIPrefix(False)  # a "(x0.001)" beside a unit is easy to miss
         ax.setPen(pg.mkPen("#5b6573"))
         ax.setTextPen(pg.mkPen("#1f2933"))
-        # an axis (with its grid lines and tick labels) is drawn again wherever a curve over
-        # it changes; kept as a picture of its own, that is a copy until its ticks change
+        # the axis keeps its ticks, labels and grid as a recorded picture, made again when
+        # its range changes (rarely: fit_range keeps a range that holds the data) and when
+        # it moves against its plot (a label above it wrapped onto another line); on screen
+        # a copy of it is drawn when a curve over it changes (half the painting of an edit).
+        # The copy is of the whole axis: one of only the part in sight (a device copy)
+        # showed stale tick labels where a narrow panel cut the axis off.
         # (save_picture draws it as vectors and text again for SVG)
-        ax.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
+        ax.setCacheMode(QGraphicsItem.CacheMode.ItemCoordinateCache)
+        ax.geometryChanged.connect(lambda _ax=ax: _redraw_axis(_ax))
+    hold_user_range(p)
     return p
+
+
+def _redraw_axis(axis: pg.AxisItem) -> None:
+    axis.picture = None
+    axis.update()
 
 
 def data_span(arrays, *, log: bool = False) -> tuple[float, float] | None:
@@ -315,16 +327,49 @@ def data_span(arrays, *, log: bool = False) -> tuple[float, float] | None:
     return float(min(lows)), float(max(highs))
 
 
-def fit_range(plot: pg.PlotItem, *, x=None, y=None, padding: float | None = None, slack: float = 0.02) -> bool:
-    """Set the plot's range once so it covers ``x`` and ``y`` (``(low, high)`` in view
+#: A range that covers the data is kept until it is this many times as wide as a fitted
+#: one (the data shrank a lot); so is one the user zoomed or panned, until they fit again.
+KEEP_WIDER = 1.3
+
+
+def hold_user_range(plot: pg.PlotItem) -> None:
+    """Keep the range the user sets with the mouse (wheel zoom, drag) through later updates:
+    :func:`fit_range` leaves it alone until :func:`release_user_range`, or until the user
+    asks the plot to fit its data again (the plot's auto-range button)."""
+    vb = plot.getViewBox()
+    vb.user_range = False
+    vb.sigRangeChangedManually.connect(lambda *_a, _vb=vb: setattr(_vb, "user_range", True))
+
+
+def release_user_range(plot: pg.PlotItem) -> None:
+    """Let :func:`fit_range` fit ``plot`` again (its data changed meaning: another unit, another run)."""
+    plot.getViewBox().user_range = False
+
+
+def is_user_range(vb: pg.ViewBox) -> bool:
+    """True when ``vb`` (or a plot it follows along x) shows a range the user set; a press
+    of the plot's auto-range button hands the range back to the panel."""
+    if any(vb.autoRangeEnabled()):
+        vb.user_range = False
+        vb.disableAutoRange()  # the panel ranges it once per update from now on
+    linked = vb.linkedView(0)
+    return bool(getattr(vb, "user_range", False) or (linked is not None and getattr(linked, "user_range", False)))
+
+
+def fit_range(plot: pg.PlotItem, *, x=None, y=None, padding: float | None = None) -> bool:
+    """Range the plot once so it covers ``x`` and ``y`` (``(low, high)`` in view
     coordinates, e.g. from :func:`data_span`; None leaves that axis alone); True when it moved.
 
     The panels set every curve's data first and then range once, instead of letting each
-    ``setData`` re-range the plot. A range that already covers the data and is within
-    ``slack`` (a fraction of the span) of the fitted one at both ends is kept: its axes
-    keep their drawn ticks, and a small edit does not make the plot jitter.
+    ``setData`` re-range the plot. An axis whose range already holds the data with half the
+    padding to spare at both ends, and is at most :data:`KEEP_WIDER` times as wide as the
+    fitted range, is kept: its axis keeps its drawn ticks (a new range lays out and draws
+    the axis and its grid again), and an edit does not make the plot jitter. A range the
+    user set (:func:`hold_user_range`) is kept as it is.
     """
     vb = plot.getViewBox()
+    if is_user_range(vb):
+        return False
     current = vb.viewRange()
     want: dict[str, tuple[float, float]] = {}
     for axis, span in ((0, x), (1, y)):
@@ -338,11 +383,11 @@ def fit_range(plot: pg.PlotItem, *, x=None, y=None, padding: float | None = None
             half = 0.5 * (abs(lo) if lo else 1.0)
             lo, hi, width = lo - half, hi + half, 2.0 * half
         pad = vb.suggestPadding(axis) if padding is None else padding
+        spare = 0.5 * pad * width
         lo, hi = lo - pad * width, hi + pad * width
         c_lo, c_hi = current[axis]
-        tol = slack * (hi - lo)
-        covered = c_lo <= span[0] and c_hi >= span[1]
-        if covered and abs(c_lo - lo) <= tol and abs(c_hi - hi) <= tol:
+        holds = c_lo <= span[0] - spare and c_hi >= span[1] + spare
+        if holds and (c_hi - c_lo) <= KEEP_WIDER * (hi - lo):
             continue
         want["xRange" if axis == 0 else "yRange"] = (lo, hi)
     if want:

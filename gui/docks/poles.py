@@ -26,9 +26,35 @@ def pole_map_data(diagram, *, shared=None) -> dict:
     fb = sep.state_feedback_poles if sep is not None else np.zeros(0, complex)
     est = sep.estimator_poles if sep is not None else np.zeros(0, complex)
     every = np.concatenate([poles, fb, est])
-    radius = 1.15 * float(np.abs(every).max()) if every.size else 1.0
+    radius = guide_radius(1.15 * float(np.abs(every).max())) if every.size else 1.0
     return {"poles": poles, "feedback": fb, "estimator": est, "matches": None if sep is None else sep.matches,
-            "guides": damping_guides(radius), "table": pole_table(poles)}
+            "guides": damping_guides(radius), "guide_radius": radius, "table": pole_table(poles)}
+
+
+def guide_radius(reach: float) -> float:
+    """How far the guides reach for poles within ``reach`` (rad/s): ``reach`` rounded up
+    to a tenth of a decade (at most 26 % further), so an edit that moves the poles a
+    little leaves the guides as they are drawn."""
+    if not np.isfinite(reach) or reach <= 0:
+        return 1.0
+    return float(10.0 ** (np.ceil(10.0 * np.log10(reach) - 1e-9) / 10.0))
+
+
+def _point_set(symbol: str, size: float, pen, brush=None) -> pg.ScatterPlotItem:
+    """Points drawn with one symbol, outline and fill (none by default)."""
+    return pg.ScatterPlotItem(symbol=symbol, size=size, pen=pen, brush=brush)
+
+
+def _joined(lines) -> tuple[np.ndarray, np.ndarray]:
+    """Several polylines ``[(x, y), ...]`` as one, broken by NaN between them (one item to
+    draw instead of one per line)."""
+    xs, ys = [], []
+    for x, y in lines:
+        xs += [np.asarray(x, dtype=float), [np.nan]]
+        ys += [np.asarray(y, dtype=float), [np.nan]]
+    if not xs:
+        return np.zeros(0), np.zeros(0)
+    return np.concatenate(xs[:-1]), np.concatenate(ys[:-1])
 
 
 class PoleMapPanel(PlotPanel):
@@ -49,12 +75,20 @@ class PoleMapPanel(PlotPanel):
         self.readout.setObjectName("poles_readout")
         elastic(self.readout)
         self._layout.addWidget(self.readout)
-        self.closed = self.plot.plot(pen=None, symbol="x", symbolSize=12, symbolPen=pg.mkPen("#c0392b", width=2))
-        self.feedback = self.plot.plot(pen=None, symbol="o", symbolSize=15, symbolBrush=None, symbolPen=pg.mkPen("#2f7fd0", width=1.6))
-        self.estimator = self.plot.plot(pen=None, symbol="s", symbolSize=15, symbolBrush=None, symbolPen=pg.mkPen("#2aa05a", width=1.6))
+        # point sets with one symbol, pen and brush each, set once: new poles are only new
+        # positions (a plot item with symbols made each spot's style again on every edit)
+        self.closed = _point_set("x", 12, pg.mkPen("#c0392b", width=2), brush=(50, 50, 150))  # the cross filled dark, as ever
+        self.feedback = _point_set("o", 15, pg.mkPen("#2f7fd0", width=1.6))
+        self.estimator = _point_set("s", 15, pg.mkPen("#2aa05a", width=1.6))
+        for item in (self.closed, self.feedback, self.estimator):
+            self.plot.addItem(item)
         for item, name in ((self.closed, "closed loop"), (self.feedback, "designed eig(A − BK)"), (self.estimator, "designed eig(A − LC)")):
             self.legend.addItem(item, name)
-        self.guides: list = []
+        # every damping ray and natural-frequency circle in one curve, drawn behind the poles
+        self.guides = pg.PlotCurveItem(pen=_GUIDE, connect="finite")
+        self.guides.setZValue(-1)
+        self.plot.addItem(self.guides, ignoreBounds=True)
+        self._guide_radius: float | None = None  # the radius the drawn guides were made for
         self.guide_labels: list = []
         self.data: dict | None = None
         self.hold_range = False  # set while a pole is dragged (gui/docks/pole_map_drag.py)
@@ -69,21 +103,29 @@ class PoleMapPanel(PlotPanel):
             return
         self.data = value
         p = value["poles"]
-        self.closed.setData(p.real, p.imag)
-        self.feedback.setData(value["feedback"].real, value["feedback"].imag)
-        self.estimator.setData(value["estimator"].real, value["estimator"].imag)
-        g = value["guides"]
-        lines = [(x, y) for _z, x, y in g["rays"]] + [(x, y) for _w, x, y in g["circles"]]
-        while len(self.guides) < len(lines):
-            item = pg.PlotCurveItem(pen=_GUIDE)
-            self.plot.addItem(item, ignoreBounds=True)
-            self.guides.append(item)
-        for item, (x, y) in zip(self.guides, lines):
-            item.setData(x, y)
-        for item in self.guides[len(lines):]:
-            item.setData([], [])
-        # the labels are made once and then only moved or retitled (an edit rarely
-        # changes them: making text items anew on every edit cost more than the poles)
+        self.closed.setData(x=p.real, y=p.imag)
+        self.feedback.setData(x=value["feedback"].real, y=value["feedback"].imag)
+        self.estimator.setData(x=value["estimator"].real, y=value["estimator"].imag)
+        radius = value.get("guide_radius")
+        if radius is None or radius != self._guide_radius:  # the same radius: the same guides
+            self._guide_radius = radius
+            self._draw_guides(value["guides"])
+        msg = f"{p.size} closed-loop poles"
+        if value["matches"] is True:
+            msg += "; they match eig(A − BK) ∪ eig(A − LC): the separation holds"
+        elif value["matches"] is False:
+            msg += "; they DIFFER from eig(A − BK) ∪ eig(A − LC)"
+        self.set_message(msg)
+        if not self.hold_range:
+            # the poles and designed sets, with room for their symbols (the guides reach
+            # a little past them and are not fitted)
+            pts = [p, value["feedback"], value["estimator"]]
+            fit_range(self.plot, x=data_span([z.real for z in pts]), y=data_span([z.imag for z in pts]), padding=0.08)
+
+    def _draw_guides(self, g: dict) -> None:
+        self.guides.setData(*_joined([(x, y) for _z, x, y in g["rays"]] + [(x, y) for _w, x, y in g["circles"]]))
+        # the labels are made once and then only moved or retitled (making text items anew
+        # cost more than the poles)
         labels = [(f"ζ {z:g}", (0.5, 1.0), (x[1], y[1])) for z, x, y in g["rays"][::2]]
         labels += [(f"ωn {wn:g}", (1.0, 0.0), (-wn, 0.0)) for wn, _x, _y in g["circles"]]
         while len(self.guide_labels) < len(labels):
@@ -98,17 +140,11 @@ class PoleMapPanel(PlotPanel):
             lab.setVisible(True)
         for lab in self.guide_labels[len(labels):]:
             lab.setVisible(False)
-        msg = f"{p.size} closed-loop poles"
-        if value["matches"] is True:
-            msg += "; they match eig(A − BK) ∪ eig(A − LC): the separation holds"
-        elif value["matches"] is False:
-            msg += "; they DIFFER from eig(A − BK) ∪ eig(A − LC)"
-        self.set_message(msg)
-        if not self.hold_range:
-            # the poles and designed sets, with room for their symbols (the guides reach
-            # a little past them and are not fitted)
-            pts = [p, value["feedback"], value["estimator"]]
-            fit_range(self.plot, x=data_span([z.real for z in pts]), y=data_span([z.imag for z in pts]), padding=0.08)
+
+    def guide_lines(self) -> tuple[np.ndarray, np.ndarray]:
+        """The drawn guides' points (NaN between the lines)."""
+        x, y = self.guides.getData()
+        return (np.zeros(0), np.zeros(0)) if x is None else (np.asarray(x), np.asarray(y))
 
     def _on_mouse(self, pos) -> None:
         if not self.data or not self.data["table"]:

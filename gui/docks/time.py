@@ -15,7 +15,9 @@ from PySide6.QtWidgets import QCheckBox, QComboBox, QFrame, QHBoxLayout, QLabel,
 
 from loopwright.engine.errors import ParameterError
 from loopwright.engine.views_data import time_views
-from loopwright.gui.docks.panel import PlotPanel, data_span, elastic, fit_range, legend_row, new_layout_widget, pair_colour, pen_for, themed_plot
+from loopwright.gui.docks.panel import (
+    PlotPanel, data_span, elastic, fit_range, legend_row, new_layout_widget, pair_colour, pen_for, release_user_range, themed_plot,
+)
 from loopwright.gui.view_commands import input_label
 
 __all__ = ["TimePanel", "RUN_LABELS", "parse_initial"]
@@ -125,6 +127,7 @@ class TimePanel(PlotPanel):
         self._enable_initial()
 
     def _on_options(self, *_args) -> None:
+        release_user_range(self.plot)  # another run: fitted to its own answer
         self._enable_initial()
         self.options_changed.emit()
 

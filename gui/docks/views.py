@@ -26,11 +26,11 @@ from PySide6.QtCore import QObject, QTimer, Signal
 
 from loopwright.engine.views_data import SharedModel
 from loopwright.gui.view_commands import pairs_of
-from loopwright.gui.workers import ViewJobs, ViewResult
+from loopwright.gui.workers import PROGRESS_AFTER_S, ViewJobs, ViewResult
 
 __all__ = ["ViewsController", "VIEW_ORDER"]
 
-_BUSY_AFTER_MS = 500
+_BUSY_AFTER_MS = int(1000 * PROGRESS_AFTER_S)  # the busy line, and the progress in it
 #: The interpreter's thread switch interval while the views compute (see ViewsController).
 _SWITCH_INTERVAL_S = 0.0005
 

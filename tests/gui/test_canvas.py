@@ -490,3 +490,31 @@ def test_the_width_of_a_vector_wire_from_a_captioned_source_is_written_above_the
         cap = src.mapRectToScene(caption_rect(d.blocks[w.source.block]))
         assert not rect.intersects(cap), signal
     assert not sc.wire_items[d.wire_by_name("uff").id]._caption_below  # a gain has no caption below its port
+
+
+def test_a_parameter_only_edit_reroutes_no_wire_and_a_new_port_reroutes_the_blocks_wires(window, monkeypatch):
+    # a gain's new matrix of the same shape leaves its body and ports where they were: its
+    # wires keep their routes, lanes and names (rerouting them cost the window's thread
+    # more than drawing the edit's answers); a junction given a third input grows a port,
+    # and its wires are routed again
+    import numpy as np
+
+    from loopwright.gui.commands import SetParams
+
+    window.open_sample(str(OVEN))
+    doc, sc = window.document, window.scene
+    routed = []
+    real = WireItem.recompute
+    monkeypatch.setattr(WireItem, "recompute", lambda item: (routed.append(item.wire_id), real(item))[1])
+    k = doc.diagram.block_by_name("K")
+    before = {wid: [list(r) for r in item.routes] for wid, item in sc.wire_items.items()}
+    doc.push(SetParams(doc, k.id, dict(k.params, K=(1.5 * np.asarray(k.params["K"])).tolist())))
+    assert routed == []
+    assert {wid: [list(r) for r in item.routes] for wid, item in sc.wire_items.items()} == before
+    doc.undo_stack.undo()
+    assert routed == []
+    err = doc.diagram.block_by_name("err")
+    doc.push(SetParams(doc, err.id, dict(err.params, signs=["+", "-", "+"])))
+    wires_of_err = {wid for wid, w in doc.diagram.wires.items()
+                    if w.source.block == err.id or any(t.block == err.id for t in w.targets)}
+    assert wires_of_err and set(routed) == wires_of_err

@@ -115,10 +115,10 @@ def test_pole_map_shows_the_closed_loop_and_the_designed_poles(window, wait_view
     _open_with_pairs(window, path, [])
     panel = _show(window, "poles", wait_views)
     rep = summarize(load(path))
-    x, y = panel.closed.getOriginalDataset()
+    x, y = panel.closed.getData()
     assert_allclose(np.sort_complex(x + 1j * y), np.sort_complex(rep.poles), rtol=1e-9, atol=1e-12)
-    fx, fy = panel.feedback.getOriginalDataset()
-    ex, ey = panel.estimator.getOriginalDataset()
+    fx, fy = panel.feedback.getData()
+    ex, ey = panel.estimator.getData()
     assert_allclose(np.sort_complex(fx + 1j * fy), np.sort_complex(rep.separation.state_feedback_poles))
     assert_allclose(np.sort_complex(ex + 1j * ey), np.sort_complex(rep.separation.estimator_poles))
     assert "separation holds" in panel.message.text()
@@ -227,7 +227,7 @@ def _first_ink(panel):
     if panel.key == "loop_break":
         return pg.mkPen(panel.curve.opts["pen"]).color()
     if panel.key == "poles":
-        return pg.mkPen(panel.closed.opts["symbolPen"]).color()
+        return pg.mkPen(panel.closed.opts["pen"]).color()
     if panel.key == "noise":
         return pg.mkBrush(next(iter(panel.bars.values())).opts["brush"]).color()
     return panel.grid.palette().text().color()
@@ -330,7 +330,10 @@ def test_stop_ends_a_running_job_at_its_next_progress_report(qtbot):
     jobs.shutdown()
 
 
-def test_the_audit_panel_reports_progress_to_the_end(window, wait_views):
+def test_the_audit_panel_reports_progress_to_the_end(window, wait_views, monkeypatch):
+    import loopwright.gui.workers as workers
+
+    monkeypatch.setattr(workers, "PROGRESS_AFTER_S", 0.0)  # every report counts, however quick the job
     path = next(p for p in SAMPLES if p.stem == "two_zone_oven")
     _open_with_pairs(window, path, [])
     seen = []
@@ -342,6 +345,45 @@ def test_the_audit_panel_reports_progress_to_the_end(window, wait_views):
     panel.set_progress(0.4)
     assert panel.progress_text() == "computing… 40 %" and panel.progress.value() == 400
     panel.set_waiting(False)
+
+
+def test_a_quick_job_sends_the_window_no_progress_and_a_long_one_does_past_the_threshold(qtbot, monkeypatch):
+    # the busy line shows past half a second: before that, a job's reports stay on its
+    # worker (a 50-state loop's whole job takes tens of milliseconds, and each report
+    # would be a queued call on the window's thread)
+    import threading
+
+    import loopwright.gui.workers as workers
+    from loopwright.gui.document import Document
+    from loopwright.gui.workers import ViewJobs
+
+    monkeypatch.setattr(workers, "PROGRESS_AFTER_S", 0.3)
+    jobs = ViewJobs(Document(load(SAMPLES[0])))
+    fractions, results = [], []
+    jobs.progress_changed.connect(lambda key, f: fractions.append((key, f)))
+    jobs.result_ready.connect(results.append)
+    pause = threading.Event()
+
+    def quick(*, progress):
+        for k in range(1, 101):
+            progress(k / 100)
+        return "done"
+
+    jobs.submit("loop_break", quick, progress=True)
+    qtbot.waitUntil(lambda: len(results) == 1, timeout=10000)
+    assert results[0].value == "done" and fractions == []
+
+    def slow(*, progress):
+        for k in range(1, 101):
+            progress(k / 100)
+            pause.wait(0.01)  # about a second in all, most of it past the threshold
+        return "done"
+
+    jobs.submit("loop_break", slow, progress=True)
+    qtbot.waitUntil(lambda: len(results) == 2, timeout=20000)
+    assert fractions and fractions[-1] == ("loop_break", 1.0)
+    assert 0.1 < fractions[0][1] < 0.6  # the reports before the threshold never left the worker
+    jobs.shutdown()
 
 
 def test_progress_of_a_quick_answer_leaves_the_hidden_busy_line_alone(window, wait_views):
@@ -414,31 +456,42 @@ def test_a_view_picture_never_replaces_a_diagram_and_carries_the_caution(window,
 
 
 
-def test_axes_are_kept_as_pictures_on_screen_and_written_as_vectors_to_svg(window, wait_views, tmp_path):
-    # on screen every axis (ticks, labels, grid lines) is a cached picture, redrawn only when
-    # its ticks change, not each time a curve over it does; an SVG still gets the axes as
-    # lines and text (Qt paints a cached item's pixmap into any device, SVG included)
+def test_axes_keep_their_picture_through_an_edit_and_draw_it_again_when_moved(window, wait_views, tmp_path):
+    # an axis (ticks, labels, grid lines) is a recorded picture, made again only when its
+    # range changes or it moves against its plot, not each time a curve over it changes; on
+    # screen a copy of the whole axis is drawn (a copy of only the part in sight showed
+    # stale tick labels where a narrow panel cut the axis off); an SVG gets lines and text
     import pyqtgraph as pg
     from PySide6.QtWidgets import QGraphicsItem
 
+    from loopwright.gui.commands import SetParams
+
     path = next(p for p in SAMPLES if p.stem == "conveyor_flexible_drive")
     _open_with_pairs(window, path, [("r", "y")])
-    for key in ("frequency", "time"):
-        panel = _show(window, key, wait_views)
-        axes = [it for it in panel.canvas.scene().items() if isinstance(it, pg.AxisItem) and it.isVisible()]
-        assert axes and all(ax.cacheMode() == QGraphicsItem.CacheMode.DeviceCoordinateCache for ax in axes), key
-        panel.save_picture(tmp_path / f"{key}.svg")
-        svg = (tmp_path / f"{key}.svg").read_text(encoding="utf-8")
-        for ax in axes:  # the reference: the same picture from axes that were never cached
-            ax.setCacheMode(QGraphicsItem.CacheMode.NoCache)
-        panel.save_picture(tmp_path / f"{key}_plain.svg")
-        plain = (tmp_path / f"{key}_plain.svg").read_text(encoding="utf-8")
-        for ax in axes:
-            ax.setCacheMode(QGraphicsItem.CacheMode.DeviceCoordinateCache)
-        assert svg.count("<text") == plain.count("<text") > 6, key  # tick labels as text, none lost
-        assert svg.count("<image") == plain.count("<image"), key  # no pixmap of an axis
-        panel.save_picture(tmp_path / f"{key}.svg")
-        assert all(ax.cacheMode() == QGraphicsItem.CacheMode.DeviceCoordinateCache for ax in axes), key  # and cached again
+    panels = [_show(window, key, wait_views) for key in ("frequency", "time")]
+    axes = {p.key: [it for it in p.canvas.scene().items() if isinstance(it, pg.AxisItem) and it.isVisible()] for p in panels}
+    for key, items in axes.items():
+        assert items and all(ax.cacheMode() == QGraphicsItem.CacheMode.ItemCoordinateCache for ax in items), key
+        for ax in items:
+            ax.grab_picture = ax.picture
+    doc = window.document
+    n = doc.diagram.block_by_name("N")  # the prefilter: the responses change a little
+    doc.push(SetParams(doc, n.id, dict(n.params, K=(1.01 * np.asarray(n.params["K"], dtype=float)).tolist())))
+    wait_views(window)
+    for key, items in axes.items():
+        for ax in items:
+            ax.update()
+        window.panels[key].canvas.grab()  # paints every axis
+        assert all(ax.picture is ax.grab_picture for ax in items), key  # the same ranges: the same pictures
+    ax = axes["time"][0]
+    ax.setPos(ax.pos().x(), ax.pos().y() + 3)  # moved against its plot
+    assert ax.picture is None
+    for panel in panels:
+        panel.save_picture(tmp_path / f"{panel.key}.svg")
+        svg = (tmp_path / f"{panel.key}.svg").read_text(encoding="utf-8")
+        assert svg.count("<text") > 6, panel.key  # tick labels as text
+        assert all(ax.cacheMode() == QGraphicsItem.CacheMode.ItemCoordinateCache for ax in axes[panel.key])  # and copied again
+
 
 def test_no_leftover_tab_bar_shows_beside_the_dock_groups(window):
     # building the tab groups leaves the main window earlier tab bars of each group; none of
@@ -513,7 +566,7 @@ def test_after_an_edit_the_four_views_show_the_engines_numbers_from_one_shared_m
     tx, ty = window.panels["time"].curves[next(iter(window.panels["time"].curves))].getOriginalDataset()
     if window.panels["time"].run_kind() == "step":
         assert_allclose(ty, run.y[:, 0], rtol=1e-9, atol=1e-12)
-    x, y = window.panels["poles"].closed.getOriginalDataset()
+    x, y = window.panels["poles"].closed.getData()
     assert_allclose(np.sort_complex(x + 1j * y), np.sort_complex(summarize(d).poles), rtol=1e-9, atol=1e-12)
     at = d.settings.get("loop_break")
     if at:
@@ -567,3 +620,30 @@ def test_slow_views_run_beside_the_quick_ones(qtbot):
     release.set()
     qtbot.waitUntil(lambda: results == ["frequency", "loop_break"], timeout=10000)
     jobs.shutdown()
+
+
+@pytest.mark.parametrize("path", SAMPLES, ids=[p.stem for p in SAMPLES])
+def test_axes_cut_off_by_narrow_panels_show_as_fresh_axes_would(window, wait_views, path):
+    # four views side by side along the bottom make each one narrower than its legend, which
+    # cuts the axes off at the panel's edge; what the window shows equals the same axes drawn
+    # afresh (a copy of only the part in sight kept stale tick labels and grid lines there)
+    import pyqtgraph as pg
+    from PySide6.QtCore import Qt
+    from PySide6.QtWidgets import QApplication
+
+    window.resize(1600, 1000)
+    window.show()
+    for key in ("frequency", "time", "poles", "loop_break"):
+        window.addDockWidget(Qt.DockWidgetArea.BottomDockWidgetArea, window.view_docks[key], Qt.Orientation.Horizontal)
+        window.view_docks[key].show()
+    _open_with_pairs(window, path, [("r", "y")])
+    wait_views(window)
+    for _ in range(10):
+        QApplication.processEvents()
+    for key in ("frequency", "time", "poles", "loop_break"):
+        canvas = window.panels[key].canvas
+        shown = canvas.grab().toImage()
+        for ax in [it for it in canvas.scene().items() if isinstance(it, pg.AxisItem)]:
+            ax.picture = None
+            ax.update()
+        assert canvas.grab().toImage() == shown, key
