@@ -201,6 +201,7 @@ class _PathIndex:
         self._own_wire: dict[str, list[str]] = {}
         self._back: dict[str, set[str]] = {}
         self._shared: dict[tuple[str, str], tuple] = {}
+        self._reached: dict[tuple, bool] = {}
         self._ids_by_name: dict[str, str] | None = None
 
     def _forward(self, group: str) -> tuple[dict[str, int], list[str]]:
@@ -271,6 +272,22 @@ class _PathIndex:
                 out.append((order, base + [w.id], names_b, names_w + [w.name]))
         return out
 
+    def reaches(self, group: str, signals: list[str]) -> list[bool]:
+        """Whether the path of each of ``signals`` passes any block (:meth:`paths` lists
+        them); the blocks themselves are not listed."""
+        hops, _extra = self._forward(group)
+        ports, component, found = self.model.signal_ports, self.component, self._reached
+        out = []
+        for signal in signals:
+            end = ports[signal].block
+            key = (group, component[end])
+            hit = found.get(key)
+            if hit is None:
+                shared = self._shared.get(key)
+                hit = found[key] = bool(shared[0]) if shared is not None else not self._backward(end).isdisjoint(hops)
+            out.append(hit)
+        return out
+
     def _share(self, group: str, end: str, hops: dict[str, int], extra: list[str]) -> tuple:
         """The lists shared by the rows of ``group`` whose signal is driven in the component of ``end``."""
         key = (group, self.component[end])
@@ -332,6 +349,7 @@ def path_audit(
     refine_passes: int = 8,
     progress=None,
     route: str = "auto",
+    paths_for: int | None = None,
 ) -> list[AuditRow]:
     """Rank every (source, signal) path of the assembled model (see the module docstring
     for the rule).
@@ -356,6 +374,10 @@ def path_audit(
         ``"auto"`` picks by an operation count; ``"block by block"`` asks for the coupling
         route (:func:`_audit_block_by_block`) whatever its cost, still falling back to the
         whole-model route where that route cannot certify its answer.
+    paths_for : int, optional
+        List the blocks and wires of the first ``paths_for`` ranked rows only; the others
+        get empty lists (shared, read only). For a caller that shows the top of the
+        ranking: listing every row's path is most of an audit's work on a long chain.
 
     Returns
     -------
@@ -367,7 +389,7 @@ def path_audit(
     if reduced is None and route != "whole model":
         fast = _audit_block_by_block(
             model, injections=injections, points_per_decade=points_per_decade, refine_passes=refine_passes, force=route == "block by block",
-            progress=progress,
+            progress=progress, paths_for=paths_for,
         )
         if fast is not None:
             return fast
@@ -451,9 +473,9 @@ def path_audit(
             return dc_gain(A, Bg, C[sl], Dg[sl])
 
         rows += _group_rows(model, grp, sig_items, Dg, Y[0], best, unstable, h2_of, dc_of, scale_ref, reach_cache, graph,
-                            progress=_stage(progress, (gi + 0.8) * part, (gi + 1.0) * part))
+                            progress=_stage(progress, (gi + 0.8) * part, (gi + 1.0) * part), paths=paths_for is None)
     report(1.0)
-    return _ranked(rows)
+    return _ranked(rows, reach_cache, paths_for)
 
 
 def _h2_from_gramian(C, scale, X, Dg, sig_items) -> dict[str, float]:
@@ -481,7 +503,7 @@ def _stacked_norm2(M: np.ndarray) -> np.ndarray:
 
 
 def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, scale_ref, reach_cache, graph,
-                progress=None) -> list[AuditRow]:
+                progress=None, paths: bool = True) -> list[AuditRow]:
     """The audit rows of one input group (either route), from its pieces.
 
     ``Dg`` (p, m) is the group's feedthrough, ``Y0`` (p, m) its response at w = 0,
@@ -489,7 +511,8 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
     ``h2_of(sig, rows)`` the H2 norm of a stable strictly proper path, ``dc_of(rows)`` the
     DC gain where ``Y0`` is not finite. A pair with no structural path and zero gain gets
     no row. Single-row signals (nearly all, on a big diagram) take their feedthrough and
-    DC norms from one stacked call per group; the rest one at a time.
+    DC norms from one stacked call per group; the rest one at a time. ``paths=False``: the
+    rows get shared empty path lists (:func:`_ranked` lists the paths of the rows kept).
     """
     index = reach_cache.get("paths")
     if index is None:
@@ -512,7 +535,11 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
     rows: list[AuditRow] = []
     d_norm_l, rownz_l, finite0_l, dc_single_l = d_norm.tolist(), rownz.tolist(), finite0.tolist(), dc_single.tolist()
     isfinite, inf = math.isfinite, math.inf
-    paths = index.paths(grp, [sig for sig, _sl in sig_items])
+    if paths:
+        listed = index.paths(grp, [sig for sig, _sl in sig_items])
+    else:
+        reached = index.reaches(grp, [sig for sig, _sl in sig_items])
+        none: list[str] = []  # shared by every row of the group, never changed
     for si, (sig, sl) in enumerate(sig_items):
         if progress is not None and si % 256 == 0:
             progress(si / len(sig_items))
@@ -560,9 +587,14 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
             wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
         if isfinite(dc) and isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
             dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
-        bids, wids, names_b, names_w = paths[si]
-        if not bids and not unstable[si] and peak <= 1e-13 * scale_ref:
-            continue
+        if paths:
+            bids, wids, names_b, names_w = listed[si]
+            if not bids and not unstable[si] and peak <= 1e-13 * scale_ref:
+                continue
+        else:
+            if not reached[si] and not unstable[si] and peak <= 1e-13 * scale_ref:
+                continue
+            bids = wids = names_b = names_w = none
         rows.append(AuditRow(
             grp, sig, peak, wpk, h2, dc, not unstable[si], names_b, names_w, bids, wids, note=note,
             dc_gain_kind="signed value" if scalar else "largest singular value",
@@ -597,7 +629,7 @@ def _stage(progress, lo: float, hi: float):
 
 
 def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, refine_passes: int, force: bool = False,
-                          progress=None) -> list[AuditRow] | None:
+                          progress=None, paths_for: int | None = None) -> list[AuditRow] | None:
     """The audit without a dense factorisation of the closed loop, or None where this route
     does not apply or cannot certify its answer (the caller then takes the whole-model route).
 
@@ -693,16 +725,21 @@ def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, re
             scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
             Dg = D[:, gcols]
             rows += _group_rows(model, grp, sig_items, Dg, Y[0], best, [False] * len(sig_items),
-                                lambda sig, _sl, grp=grp: h2[(grp, sig)], None, scale_ref, reach_cache, graph)
+                                lambda sig, _sl, grp=grp: h2[(grp, sig)], None, scale_ref, reach_cache, graph, paths=paths_for is None)
         done += len(batch)
     if progress is not None:
         progress(1.0)
-    return _ranked(rows)
+    return _ranked(rows, reach_cache, paths_for)
 
 
-def _ranked(rows: list[AuditRow]) -> list[AuditRow]:
+def _ranked(rows: list[AuditRow], reach_cache: dict | None = None, paths_for: int | None = None) -> list[AuditRow]:
+    """``rows`` sorted by the ranking rule and numbered; with ``paths_for``, the paths of the
+    first ``paths_for`` rows listed (from the path index in ``reach_cache``)."""
     isfinite, inf = math.isfinite, math.inf
     rows.sort(key=lambda r: (r.stable, -r.peak_gain if isfinite(r.peak_gain) else -inf, -r.h2 if isfinite(r.h2) else -inf, r.source, r.signal))
     for i, r in enumerate(rows, 1):
         r.rank = i
+    if paths_for is not None:
+        for r in rows[:paths_for]:
+            r.block_ids, r.wire_ids, r.blocks, r.wires = reach_cache["paths"].path(r.source, r.signal)
     return rows

@@ -227,3 +227,20 @@ def test_unit_gains_in_series_are_refined_once_per_run_of_equal_rows(monkeypatch
         r = rows[("r", f"s{k}")]
         assert_allclose([r.dc_gain, r.peak_gain], [before / 5.0, before], rtol=1e-12)
         assert r.peak_freq_rad_s == np.inf
+
+
+@pytest.mark.parametrize("name", SAMPLES + ["chain"])
+def test_listing_the_paths_of_the_top_rows_only_keeps_the_ranking(name, monkeypatch):
+    d = _gain_chain([1.0, -0.5, 2.0] * 40) if name == "chain" else load(str(ir.files("loopwright.samples") / name))
+    model = assemble(d)
+    full = path_audit(model, injections=True)
+    listed = []
+    paths = audit_module._PathIndex.paths
+    monkeypatch.setattr(audit_module._PathIndex, "paths", lambda self, grp, sigs: listed.extend(sigs) or paths(self, grp, sigs))
+    top = path_audit(model, injections=True, paths_for=5)
+    assert len(listed) == 5  # one listing per row shown, none for the rest
+    assert [(r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.stable, r.note) for r in top] == \
+        [(r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.stable, r.note) for r in full]
+    for a, b in zip(top[:5], full[:5]):
+        assert (a.blocks, a.wires, a.block_ids, a.wire_ids) == (b.blocks, b.wires, b.block_ids, b.wire_ids)
+    assert all(r.blocks == [] and r.block_ids == [] for r in top[5:])
