@@ -444,8 +444,7 @@ def path_audit(
             X = refined_lyapunov(red, Bw @ Bw.T)
         best = refine_peaks(responder, grid, Y, sig_items, refine_passes if n else 0, progress=_stage(progress, (gi + 0.5) * part, (gi + 0.8) * part))
         report((gi + 0.8) * part)
-        finite_y = np.abs(Y[np.isfinite(Y)])
-        scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
+        scale_ref = _largest_finite_modulus(Y)
         unstable = [False] * len(sig_items)
         if any(reach):
             for si, (sig, sl) in enumerate(sig_items):
@@ -476,6 +475,17 @@ def path_audit(
                             progress=_stage(progress, (gi + 0.8) * part, (gi + 1.0) * part), paths=paths_for is None)
     report(1.0)
     return _ranked(rows, reach_cache, paths_for)
+
+
+def _largest_finite_modulus(Y: np.ndarray) -> float:
+    """The largest finite ``|Y|`` (at least 1e-300; 1.0 when none is finite): the scale
+    below which a path's gain is rounding. Where every entry is finite (the usual case)
+    no copy of the finite entries is gathered first."""
+    mag = np.abs(Y)
+    finite = np.isfinite(Y)
+    if not finite.all():
+        mag = mag[finite]
+    return max(1e-300, float(mag.max()) if mag.size else 1.0)
 
 
 def _h2_from_gramian(C, scale, X, Dg, sig_items) -> dict[str, float]:
@@ -721,8 +731,7 @@ def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, re
                                  progress=_stage(progress, lo, lo + 0.5 * span / len(batch)))
             if progress is not None:
                 progress(base + 0.5 * span * (1.0 + (j + 1) / len(batch)))
-            finite_y = np.abs(Y[np.isfinite(Y)])
-            scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
+            scale_ref = _largest_finite_modulus(Y)
             Dg = D[:, gcols]
             rows += _group_rows(model, grp, sig_items, Dg, Y[0], best, [False] * len(sig_items),
                                 lambda sig, _sl, grp=grp: h2[(grp, sig)], None, scale_ref, reach_cache, graph, paths=paths_for is None)
