@@ -48,7 +48,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.linalg as sla
 import scipy.sparse as sp
-from scipy.sparse.csgraph import connected_components
+from scipy.sparse.csgraph import breadth_first_order, connected_components, dijkstra
 
 from loopwright.engine.audit_peaks import refine_peaks
 from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
@@ -182,30 +182,62 @@ class _PathIndex:
     shared by its rows. Only a row whose own signal's wire is not yet listed gets a list
     of its own (the shared one plus that wire). Rows therefore share list objects: read
     them, never change them.
+
+    The diagram is held as arrays (one entry per wire target) and searched by
+    :mod:`scipy.sparse.csgraph` (compiled breadth-first searches): a walk in Python over
+    a chain of thousands of blocks cost more than the rest of the paths.
     """
 
     def __init__(self, model, graph=None):
         d = model.diagram
         self.model, self.diagram = model, d
+        self.blocks = list(d.blocks)
+        at = {b: i for i, b in enumerate(self.blocks)}
+        self.wire_ids = list(d.wires)
+        wire_at = {w: i for i, w in enumerate(self.wire_ids)}
+        src: list[int] = []
+        dst: list[int] = []
+        key: list[int] = []
         if graph is None:
-            self.succ, self.pred = _adjacency(d)
-            self.position = {b: i for i, b in enumerate(d.blocks)}
+            for i, w in enumerate(d.wires.values()):
+                u = at[w.source.block]
+                for t in w.targets:
+                    src.append(u)
+                    dst.append(at[t.block])
+                    key.append(i)
+        else:  # (graph.edges lists the edges in the order a path lists them)
+            for u, v, k in graph.edges(keys=True):
+                src.append(at[u])
+                dst.append(at[v])
+                key.append(wire_at[k])
+        n = len(self.blocks)
+        self.src, self.dst, self.key = np.array(src, dtype=int), np.array(dst, dtype=int), np.array(key, dtype=int)
+        ones = np.ones(self.src.size)
+        self.succ = sp.csr_matrix((ones, (self.src, self.dst)), shape=(n, n))
+        self.pred = sp.csr_matrix((ones, (self.dst, self.src)), shape=(n, n))
+        _count, labels = connected_components(self.succ, directed=True, connection="strong")
+        self.component = dict(zip(self.blocks, labels.tolist()))  # block -> the number of its component
+        # the order in which a path lists its wires: that of Diagram.graph().edges() (by the
+        # source block in diagram order, then each successor as first wired to, then wire)
+        e = np.arange(self.src.size)
+        if graph is None:
+            _u, first_of, inverse = np.unique(self.src * max(n, 1) + self.dst, return_index=True, return_inverse=True)
+            self.listing = np.lexsort((e, first_of[inverse.ravel()], self.src))
         else:
-            self.succ, self.pred = graph.succ, graph.pred
-            self.position = {node: i for i, node in enumerate(graph)}
-        self.wires_by_name = {w.name: w for w in d.wires.values()}
-        self.rank = {b: i for i, b in enumerate(d.blocks)}
-        self.component = _components(self.succ)  # block -> the number of its component
+            self.listing = e
         self.searches = 0  # backward searches run (one per component of a driving block)
-        self._hops: dict[str, dict[str, int]] = {}
+        self.wires_by_name = {w.name: w for w in d.wires.values()}
+        self._hops: dict[str, tuple[np.ndarray, np.ndarray]] = {}
         self._own_wire: dict[str, list[str]] = {}
-        self._back: dict[str, set[str]] = {}
-        self._shared: dict[tuple[str, str], tuple] = {}
+        self._back: dict[int, np.ndarray] = {}
+        self._shared: dict[tuple[str, int], tuple] = {}
         self._reached: dict[tuple, bool] = {}
         self._ids_by_name: dict[str, str] | None = None
+        self._at = at
 
-    def _forward(self, group: str) -> tuple[dict[str, int], list[str]]:
-        """Hops from the group's start blocks to every block they reach; the group's own wire."""
+    def _forward(self, group: str) -> tuple[tuple[np.ndarray, np.ndarray], list[str]]:
+        """``(hops, reached)`` from the group's start blocks to every block (breadth first
+        from all starts at once: the fewest hops from any of them); the group's own wire."""
         if group not in self._hops:
             extra: list[str] = []
             if group.startswith("inject:") or group.startswith("break:"):
@@ -219,39 +251,44 @@ class _PathIndex:
                     for b in self.diagram.blocks.values():
                         self._ids_by_name.setdefault(b.name, b.id)
                 starts = {self._ids_by_name[group]} if group in self._ids_by_name else {self.diagram.block_by_name(group).id}
-            # breadth first from all starts at once: the fewest hops from any of them
-            hops = dict.fromkeys(starts, 0)
-            frontier, k = list(starts), 0
-            while frontier:
-                k += 1
-                ahead = []
-                for u in frontier:
-                    for v in self.succ[u]:
-                        if v not in hops:
-                            hops[v] = k
-                            ahead.append(v)
-                frontier = ahead
-            self._hops[group] = hops
+            n = len(self.blocks)
+            if starts:
+                hops = dijkstra(self.succ, directed=True, indices=sorted(self._at[b] for b in starts), unweighted=True, min_only=True)
+            else:
+                hops = np.full(n, np.inf)
+            self._hops[group] = (hops, np.isfinite(hops))
             self._own_wire[group] = extra
         return self._hops[group], self._own_wire[group]
 
-    def _backward(self, end: str) -> set[str]:
-        """Every block that reaches ``end`` (``end`` included): one search per component."""
+    def _backward(self, end: str) -> np.ndarray:
+        """Whether each block reaches ``end`` (``end`` included): one search per component."""
         c = self.component[end]
         if c not in self._back:
             self.searches += 1
-            seen, todo = {end}, [end]
-            while todo:
-                for u in self.pred[todo.pop()]:
-                    if u not in seen:
-                        seen.add(u)
-                        todo.append(u)
-            self._back[c] = seen
+            mask = np.zeros(len(self.blocks), dtype=bool)
+            mask[breadth_first_order(self.pred, self._at[end], directed=True, return_predecessors=False)] = True
+            self._back[c] = mask
         return self._back[c]
 
     def path(self, group: str, signal: str) -> tuple[list[str], list[str], list[str], list[str]]:
         """``(block_ids, wire_ids, block names, wire names)`` of the path; shared lists."""
         return self.paths(group, [signal])[0]
+
+    def reaches(self, group: str, signals: list[str]) -> list[bool]:
+        """Whether the path of each of ``signals`` passes any block (:meth:`paths` lists
+        them); the blocks themselves are not listed."""
+        (_hops, ahead), _extra = self._forward(group)
+        ports, component, found = self.model.signal_ports, self.component, self._reached
+        out = []
+        for signal in signals:
+            end = ports[signal].block
+            key = (group, component[end])
+            hit = found.get(key)
+            if hit is None:
+                shared = self._shared.get(key)
+                hit = found[key] = bool(shared[0]) if shared is not None else bool(np.any(self._backward(end) & ahead))
+            out.append(hit)
+        return out
 
     def paths(self, group: str, signals: list[str]) -> list[tuple[list[str], list[str], list[str], list[str]]]:
         """:meth:`path` of each of ``signals`` (one call per input group: a loop over the
@@ -272,59 +309,30 @@ class _PathIndex:
                 out.append((order, base + [w.id], names_b, names_w + [w.name]))
         return out
 
-    def reaches(self, group: str, signals: list[str]) -> list[bool]:
-        """Whether the path of each of ``signals`` passes any block (:meth:`paths` lists
-        them); the blocks themselves are not listed."""
-        hops, _extra = self._forward(group)
-        ports, component, found = self.model.signal_ports, self.component, self._reached
-        out = []
-        for signal in signals:
-            end = ports[signal].block
-            key = (group, component[end])
-            hit = found.get(key)
-            if hit is None:
-                shared = self._shared.get(key)
-                hit = found[key] = bool(shared[0]) if shared is not None else not self._backward(end).isdisjoint(hops)
-            out.append(hit)
-        return out
-
-    def _share(self, group: str, end: str, hops: dict[str, int], extra: list[str]) -> tuple:
+    def _share(self, group: str, end: str, hops: tuple[np.ndarray, np.ndarray], extra: list[str]) -> tuple:
         """The lists shared by the rows of ``group`` whose signal is driven in the component of ``end``."""
         key = (group, self.component[end])
         shared = self._shared.get(key)
         if shared is None:
-            nodes = set(hops) & self._backward(end)
-            order = sorted(nodes, key=lambda b: (hops[b], self.rank[b]))
+            distance, ahead = hops
+            on_path = ahead & self._backward(end)
+            idx = np.flatnonzero(on_path)
+            # by hops from the start, ties in diagram order
+            order = [self.blocks[i] for i in idx[np.lexsort((idx, distance[idx]))].tolist()]
             # the wires between them in the order of graph.edges(); a wire with several
             # targets on the path is one edge per target but is listed once
-            succ, seen, base = self.succ, set(), []
-            for u in sorted(nodes, key=self.position.__getitem__):
-                for v, keyed in succ[u].items():
-                    if v in nodes:
-                        for k in keyed:
-                            if k not in seen:
-                                seen.add(k)
-                                base.append(k)
+            listed = self.key[self.listing[on_path[self.src[self.listing]] & on_path[self.dst[self.listing]]]]
+            _u, first = np.unique(listed, return_index=True)
+            base = [self.wire_ids[i] for i in listed[np.sort(first)].tolist()]
+            seen = set(base)
             for k in extra:
                 if k not in seen:
                     seen.add(k)
                     base.append(k)
             blocks, wires = self.diagram.blocks, self.diagram.wires
-            shared = (order, base, seen, [blocks[b].name for b in order], [wires[w].name for w in base], bool(nodes or extra))
+            shared = (order, base, seen, [blocks[b].name for b in order], [wires[w].name for w in base], bool(order or extra))
             self._shared[key] = shared
         return shared
-
-
-def _adjacency(diagram) -> tuple[dict, dict]:
-    """Successors and predecessors of every block: ``succ[u][v]`` maps the ids of the wires
-    from ``u`` to ``v`` to None, in the order :meth:`Diagram.graph` lists its edges."""
-    succ: dict[str, dict] = {b: {} for b in diagram.blocks}
-    pred: dict[str, dict] = {b: {} for b in diagram.blocks}
-    for w in diagram.wires.values():
-        for t in w.targets:
-            succ[w.source.block].setdefault(t.block, {})[w.id] = None
-            pred[t.block].setdefault(w.source.block, {})[w.id] = None
-    return succ, pred
 
 
 def _components(succ) -> dict:

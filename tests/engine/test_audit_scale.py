@@ -96,6 +96,7 @@ def test_a_chain_of_gains_gives_the_closed_form_rows_and_one_path_list_per_sourc
 def test_path_lists_agree_with_networkx_on_the_samples(name):
     model = assemble(load(str(ir.files("loopwright.samples") / name)))
     rows = path_audit(model, injections=True)
+    graph = model.diagram.graph()
     assert rows
     for r in rows:
         bids, wids = _reference_path(model, r.source, r.signal)
@@ -103,6 +104,7 @@ def test_path_lists_agree_with_networkx_on_the_samples(name):
         assert r.blocks == [model.diagram.blocks[b].name for b in bids]
         assert r.wires == [model.diagram.wires[w].name for w in wids]
         assert path_between(model, r.source, r.signal) == (bids, wids)
+        assert path_between(model, r.source, r.signal, graph) == (bids, wids)  # the edges as networkx lists them
 
 
 @settings(max_examples=25, deadline=None)
