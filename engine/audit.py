@@ -550,6 +550,24 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
     else:
         fin = single[finite0[single]]
         dc_single[fin] = _stacked_norm2(Y0[fin][:, None, :])
+    # the rows of single-row signals with a finite DC response and no unstable mode (nearly
+    # all, on a big diagram): their numbers for every row at once, with the arithmetic of
+    # the loop below (which takes them as they are)
+    at = np.array([sl.start if sl.stop - sl.start == 1 else -1 for _sig, sl in sig_items], dtype=int)
+    simple = (at >= 0) & finite0[np.maximum(at, 0)] & ~np.asarray(unstable, dtype=bool)
+    at = np.maximum(at, 0)
+    refined = np.array([best[sig] for sig, _sl in sig_items], dtype=float).reshape(len(sig_items), 2)
+    peak_v, w_v, d_v, dc_v = refined[:, 0], refined[:, 1], d_norm[at], dc_single[at]
+    with np.errstate(invalid="ignore", over="ignore"):
+        to_inf = d_v >= peak_v * (1.0 - 1e-9)  # as in the loop below
+        peak_v = np.where(to_inf, np.maximum(d_v, peak_v), peak_v)
+        w_v = np.where(to_inf, np.inf, w_v)
+        finite_dc = np.isfinite(dc_v)
+        w_v = np.where((w_v == np.inf) & finite_dc & (np.abs(np.abs(dc_v) - peak_v) <= 1e-9 * peak_v), 0.0, w_v)
+        dc_v = np.where(finite_dc & np.isfinite(peak_v) & (np.abs(dc_v) <= _ROUNDING_ZERO * peak_v), 0.0, dc_v)
+    simple_l, peak_l, w_l, dc_l, with_d_l = simple.tolist(), peak_v.tolist(), w_v.tolist(), dc_v.tolist(), rownz[at].tolist()
+    simple_kind = "signed value" if m == 1 else "largest singular value"
+    feedthrough_note = "direct feedthrough: H2 is infinite"
     rows: list[AuditRow] = []
     d_norm_l, rownz_l, finite0_l, dc_single_l = d_norm.tolist(), rownz.tolist(), finite0.tolist(), dc_single.tolist()
     isfinite, inf = math.isfinite, math.inf
@@ -561,6 +579,19 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
     for si, (sig, sl) in enumerate(sig_items):
         if progress is not None and si % 256 == 0:
             progress(si / len(sig_items))
+        if simple_l[si]:
+            peak, wpk, dc = peak_l[si], w_l[si], dc_l[si]
+            h2, note = (inf, feedthrough_note) if with_d_l[si] else (h2_of(sig, sl), "")
+            if paths:
+                bids, wids, names_b, names_w = listed[si]
+                if not bids and peak <= 1e-13 * scale_ref:
+                    continue
+            else:
+                if not reached[si] and peak <= 1e-13 * scale_ref:
+                    continue
+                bids = wids = names_b = names_w = none
+            rows.append(AuditRow(grp, sig, peak, wpk, h2, dc, True, names_b, names_w, bids, wids, note=note, dc_gain_kind=simple_kind))
+            continue
         one = sl.stop - sl.start == 1
         if one:
             r = sl.start
@@ -581,7 +612,7 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
                 peak, wpk = max(d_peak, peak), inf
             if has_d:
                 h2 = inf
-                note = "direct feedthrough: H2 is infinite"
+                note = feedthrough_note
             else:
                 h2 = h2_of(sig, sl)
         scalar = g_size == 1
