@@ -48,7 +48,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.linalg as sla
 import scipy.sparse as sp
-from scipy.sparse.csgraph import connected_components
+from scipy.sparse.csgraph import breadth_first_order, connected_components, dijkstra
 
 from loopwright.engine.audit_peaks import refine_peaks
 from loopwright.engine.blockwise_response import BlockwiseModel, GroupResponder
@@ -182,29 +182,62 @@ class _PathIndex:
     shared by its rows. Only a row whose own signal's wire is not yet listed gets a list
     of its own (the shared one plus that wire). Rows therefore share list objects: read
     them, never change them.
+
+    The diagram is held as arrays (one entry per wire target) and searched by
+    :mod:`scipy.sparse.csgraph` (compiled breadth-first searches): a walk in Python over
+    a chain of thousands of blocks cost more than the rest of the paths.
     """
 
     def __init__(self, model, graph=None):
         d = model.diagram
         self.model, self.diagram = model, d
+        self.blocks = list(d.blocks)
+        at = {b: i for i, b in enumerate(self.blocks)}
+        self.wire_ids = list(d.wires)
+        wire_at = {w: i for i, w in enumerate(self.wire_ids)}
+        src: list[int] = []
+        dst: list[int] = []
+        key: list[int] = []
         if graph is None:
-            self.succ, self.pred = _adjacency(d)
-            self.position = {b: i for i, b in enumerate(d.blocks)}
+            for i, w in enumerate(d.wires.values()):
+                u = at[w.source.block]
+                for t in w.targets:
+                    src.append(u)
+                    dst.append(at[t.block])
+                    key.append(i)
+        else:  # (graph.edges lists the edges in the order a path lists them)
+            for u, v, k in graph.edges(keys=True):
+                src.append(at[u])
+                dst.append(at[v])
+                key.append(wire_at[k])
+        n = len(self.blocks)
+        self.src, self.dst, self.key = np.array(src, dtype=int), np.array(dst, dtype=int), np.array(key, dtype=int)
+        ones = np.ones(self.src.size)
+        self.succ = sp.csr_matrix((ones, (self.src, self.dst)), shape=(n, n))
+        self.pred = sp.csr_matrix((ones, (self.dst, self.src)), shape=(n, n))
+        _count, labels = connected_components(self.succ, directed=True, connection="strong")
+        self.component = dict(zip(self.blocks, labels.tolist()))  # block -> the number of its component
+        # the order in which a path lists its wires: that of Diagram.graph().edges() (by the
+        # source block in diagram order, then each successor as first wired to, then wire)
+        e = np.arange(self.src.size)
+        if graph is None:
+            _u, first_of, inverse = np.unique(self.src * max(n, 1) + self.dst, return_index=True, return_inverse=True)
+            self.listing = np.lexsort((e, first_of[inverse.ravel()], self.src))
         else:
-            self.succ, self.pred = graph.succ, graph.pred
-            self.position = {node: i for i, node in enumerate(graph)}
-        self.wires_by_name = {w.name: w for w in d.wires.values()}
-        self.rank = {b: i for i, b in enumerate(d.blocks)}
-        self.component = _components(self.succ)  # block -> the number of its component
+            self.listing = e
         self.searches = 0  # backward searches run (one per component of a driving block)
-        self._hops: dict[str, dict[str, int]] = {}
+        self.wires_by_name = {w.name: w for w in d.wires.values()}
+        self._hops: dict[str, tuple[np.ndarray, np.ndarray]] = {}
         self._own_wire: dict[str, list[str]] = {}
-        self._back: dict[str, set[str]] = {}
-        self._shared: dict[tuple[str, str], tuple] = {}
+        self._back: dict[int, np.ndarray] = {}
+        self._shared: dict[tuple[str, int], tuple] = {}
+        self._reached: dict[tuple, bool] = {}
         self._ids_by_name: dict[str, str] | None = None
+        self._at = at
 
-    def _forward(self, group: str) -> tuple[dict[str, int], list[str]]:
-        """Hops from the group's start blocks to every block they reach; the group's own wire."""
+    def _forward(self, group: str) -> tuple[tuple[np.ndarray, np.ndarray], list[str]]:
+        """``(hops, reached)`` from the group's start blocks to every block (breadth first
+        from all starts at once: the fewest hops from any of them); the group's own wire."""
         if group not in self._hops:
             extra: list[str] = []
             if group.startswith("inject:") or group.startswith("break:"):
@@ -218,39 +251,44 @@ class _PathIndex:
                     for b in self.diagram.blocks.values():
                         self._ids_by_name.setdefault(b.name, b.id)
                 starts = {self._ids_by_name[group]} if group in self._ids_by_name else {self.diagram.block_by_name(group).id}
-            # breadth first from all starts at once: the fewest hops from any of them
-            hops = dict.fromkeys(starts, 0)
-            frontier, k = list(starts), 0
-            while frontier:
-                k += 1
-                ahead = []
-                for u in frontier:
-                    for v in self.succ[u]:
-                        if v not in hops:
-                            hops[v] = k
-                            ahead.append(v)
-                frontier = ahead
-            self._hops[group] = hops
+            n = len(self.blocks)
+            if starts:
+                hops = dijkstra(self.succ, directed=True, indices=sorted(self._at[b] for b in starts), unweighted=True, min_only=True)
+            else:
+                hops = np.full(n, np.inf)
+            self._hops[group] = (hops, np.isfinite(hops))
             self._own_wire[group] = extra
         return self._hops[group], self._own_wire[group]
 
-    def _backward(self, end: str) -> set[str]:
-        """Every block that reaches ``end`` (``end`` included): one search per component."""
+    def _backward(self, end: str) -> np.ndarray:
+        """Whether each block reaches ``end`` (``end`` included): one search per component."""
         c = self.component[end]
         if c not in self._back:
             self.searches += 1
-            seen, todo = {end}, [end]
-            while todo:
-                for u in self.pred[todo.pop()]:
-                    if u not in seen:
-                        seen.add(u)
-                        todo.append(u)
-            self._back[c] = seen
+            mask = np.zeros(len(self.blocks), dtype=bool)
+            mask[breadth_first_order(self.pred, self._at[end], directed=True, return_predecessors=False)] = True
+            self._back[c] = mask
         return self._back[c]
 
     def path(self, group: str, signal: str) -> tuple[list[str], list[str], list[str], list[str]]:
         """``(block_ids, wire_ids, block names, wire names)`` of the path; shared lists."""
         return self.paths(group, [signal])[0]
+
+    def reaches(self, group: str, signals: list[str]) -> list[bool]:
+        """Whether the path of each of ``signals`` passes any block (:meth:`paths` lists
+        them); the blocks themselves are not listed."""
+        (_hops, ahead), _extra = self._forward(group)
+        ports, component, found = self.model.signal_ports, self.component, self._reached
+        out = []
+        for signal in signals:
+            end = ports[signal].block
+            key = (group, component[end])
+            hit = found.get(key)
+            if hit is None:
+                shared = self._shared.get(key)
+                hit = found[key] = bool(shared[0]) if shared is not None else bool(np.any(self._backward(end) & ahead))
+            out.append(hit)
+        return out
 
     def paths(self, group: str, signals: list[str]) -> list[tuple[list[str], list[str], list[str], list[str]]]:
         """:meth:`path` of each of ``signals`` (one call per input group: a loop over the
@@ -271,43 +309,30 @@ class _PathIndex:
                 out.append((order, base + [w.id], names_b, names_w + [w.name]))
         return out
 
-    def _share(self, group: str, end: str, hops: dict[str, int], extra: list[str]) -> tuple:
+    def _share(self, group: str, end: str, hops: tuple[np.ndarray, np.ndarray], extra: list[str]) -> tuple:
         """The lists shared by the rows of ``group`` whose signal is driven in the component of ``end``."""
         key = (group, self.component[end])
         shared = self._shared.get(key)
         if shared is None:
-            nodes = set(hops) & self._backward(end)
-            order = sorted(nodes, key=lambda b: (hops[b], self.rank[b]))
+            distance, ahead = hops
+            on_path = ahead & self._backward(end)
+            idx = np.flatnonzero(on_path)
+            # by hops from the start, ties in diagram order
+            order = [self.blocks[i] for i in idx[np.lexsort((idx, distance[idx]))].tolist()]
             # the wires between them in the order of graph.edges(); a wire with several
             # targets on the path is one edge per target but is listed once
-            succ, seen, base = self.succ, set(), []
-            for u in sorted(nodes, key=self.position.__getitem__):
-                for v, keyed in succ[u].items():
-                    if v in nodes:
-                        for k in keyed:
-                            if k not in seen:
-                                seen.add(k)
-                                base.append(k)
+            listed = self.key[self.listing[on_path[self.src[self.listing]] & on_path[self.dst[self.listing]]]]
+            _u, first = np.unique(listed, return_index=True)
+            base = [self.wire_ids[i] for i in listed[np.sort(first)].tolist()]
+            seen = set(base)
             for k in extra:
                 if k not in seen:
                     seen.add(k)
                     base.append(k)
             blocks, wires = self.diagram.blocks, self.diagram.wires
-            shared = (order, base, seen, [blocks[b].name for b in order], [wires[w].name for w in base], bool(nodes or extra))
+            shared = (order, base, seen, [blocks[b].name for b in order], [wires[w].name for w in base], bool(order or extra))
             self._shared[key] = shared
         return shared
-
-
-def _adjacency(diagram) -> tuple[dict, dict]:
-    """Successors and predecessors of every block: ``succ[u][v]`` maps the ids of the wires
-    from ``u`` to ``v`` to None, in the order :meth:`Diagram.graph` lists its edges."""
-    succ: dict[str, dict] = {b: {} for b in diagram.blocks}
-    pred: dict[str, dict] = {b: {} for b in diagram.blocks}
-    for w in diagram.wires.values():
-        for t in w.targets:
-            succ[w.source.block].setdefault(t.block, {})[w.id] = None
-            pred[t.block].setdefault(w.source.block, {})[w.id] = None
-    return succ, pred
 
 
 def _components(succ) -> dict:
@@ -332,6 +357,7 @@ def path_audit(
     refine_passes: int = 8,
     progress=None,
     route: str = "auto",
+    paths_for: int | None = None,
 ) -> list[AuditRow]:
     """Rank every (source, signal) path of the assembled model (see the module docstring
     for the rule).
@@ -356,6 +382,10 @@ def path_audit(
         ``"auto"`` picks by an operation count; ``"block by block"`` asks for the coupling
         route (:func:`_audit_block_by_block`) whatever its cost, still falling back to the
         whole-model route where that route cannot certify its answer.
+    paths_for : int, optional
+        List the blocks and wires of the first ``paths_for`` ranked rows only; the others
+        get empty lists (shared, read only). For a caller that shows the top of the
+        ranking: listing every row's path is most of an audit's work on a long chain.
 
     Returns
     -------
@@ -367,7 +397,7 @@ def path_audit(
     if reduced is None and route != "whole model":
         fast = _audit_block_by_block(
             model, injections=injections, points_per_decade=points_per_decade, refine_passes=refine_passes, force=route == "block by block",
-            progress=progress,
+            progress=progress, paths_for=paths_for,
         )
         if fast is not None:
             return fast
@@ -422,8 +452,7 @@ def path_audit(
             X = refined_lyapunov(red, Bw @ Bw.T)
         best = refine_peaks(responder, grid, Y, sig_items, refine_passes if n else 0, progress=_stage(progress, (gi + 0.5) * part, (gi + 0.8) * part))
         report((gi + 0.8) * part)
-        finite_y = np.abs(Y[np.isfinite(Y)])
-        scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
+        scale_ref = _largest_finite_modulus(Y)
         unstable = [False] * len(sig_items)
         if any(reach):
             for si, (sig, sl) in enumerate(sig_items):
@@ -451,9 +480,20 @@ def path_audit(
             return dc_gain(A, Bg, C[sl], Dg[sl])
 
         rows += _group_rows(model, grp, sig_items, Dg, Y[0], best, unstable, h2_of, dc_of, scale_ref, reach_cache, graph,
-                            progress=_stage(progress, (gi + 0.8) * part, (gi + 1.0) * part))
+                            progress=_stage(progress, (gi + 0.8) * part, (gi + 1.0) * part), paths=paths_for is None)
     report(1.0)
-    return _ranked(rows)
+    return _ranked(rows, reach_cache, paths_for)
+
+
+def _largest_finite_modulus(Y: np.ndarray) -> float:
+    """The largest finite ``|Y|`` (at least 1e-300; 1.0 when none is finite): the scale
+    below which a path's gain is rounding. Where every entry is finite (the usual case)
+    no copy of the finite entries is gathered first."""
+    mag = np.abs(Y)
+    finite = np.isfinite(Y)
+    if not finite.all():
+        mag = mag[finite]
+    return max(1e-300, float(mag.max()) if mag.size else 1.0)
 
 
 def _h2_from_gramian(C, scale, X, Dg, sig_items) -> dict[str, float]:
@@ -481,7 +521,7 @@ def _stacked_norm2(M: np.ndarray) -> np.ndarray:
 
 
 def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, scale_ref, reach_cache, graph,
-                progress=None) -> list[AuditRow]:
+                progress=None, paths: bool = True) -> list[AuditRow]:
     """The audit rows of one input group (either route), from its pieces.
 
     ``Dg`` (p, m) is the group's feedthrough, ``Y0`` (p, m) its response at w = 0,
@@ -489,7 +529,8 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
     ``h2_of(sig, rows)`` the H2 norm of a stable strictly proper path, ``dc_of(rows)`` the
     DC gain where ``Y0`` is not finite. A pair with no structural path and zero gain gets
     no row. Single-row signals (nearly all, on a big diagram) take their feedthrough and
-    DC norms from one stacked call per group; the rest one at a time.
+    DC norms from one stacked call per group; the rest one at a time. ``paths=False``: the
+    rows get shared empty path lists (:func:`_ranked` lists the paths of the rows kept).
     """
     index = reach_cache.get("paths")
     if index is None:
@@ -509,13 +550,48 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
     else:
         fin = single[finite0[single]]
         dc_single[fin] = _stacked_norm2(Y0[fin][:, None, :])
+    # the rows of single-row signals with a finite DC response and no unstable mode (nearly
+    # all, on a big diagram): their numbers for every row at once, with the arithmetic of
+    # the loop below (which takes them as they are)
+    at = np.array([sl.start if sl.stop - sl.start == 1 else -1 for _sig, sl in sig_items], dtype=int)
+    simple = (at >= 0) & finite0[np.maximum(at, 0)] & ~np.asarray(unstable, dtype=bool)
+    at = np.maximum(at, 0)
+    refined = np.array([best[sig] for sig, _sl in sig_items], dtype=float).reshape(len(sig_items), 2)
+    peak_v, w_v, d_v, dc_v = refined[:, 0], refined[:, 1], d_norm[at], dc_single[at]
+    with np.errstate(invalid="ignore", over="ignore"):
+        to_inf = d_v >= peak_v * (1.0 - 1e-9)  # as in the loop below
+        peak_v = np.where(to_inf, np.maximum(d_v, peak_v), peak_v)
+        w_v = np.where(to_inf, np.inf, w_v)
+        finite_dc = np.isfinite(dc_v)
+        w_v = np.where((w_v == np.inf) & finite_dc & (np.abs(np.abs(dc_v) - peak_v) <= 1e-9 * peak_v), 0.0, w_v)
+        dc_v = np.where(finite_dc & np.isfinite(peak_v) & (np.abs(dc_v) <= _ROUNDING_ZERO * peak_v), 0.0, dc_v)
+    simple_l, peak_l, w_l, dc_l, with_d_l = simple.tolist(), peak_v.tolist(), w_v.tolist(), dc_v.tolist(), rownz[at].tolist()
+    simple_kind = "signed value" if m == 1 else "largest singular value"
+    feedthrough_note = "direct feedthrough: H2 is infinite"
     rows: list[AuditRow] = []
     d_norm_l, rownz_l, finite0_l, dc_single_l = d_norm.tolist(), rownz.tolist(), finite0.tolist(), dc_single.tolist()
     isfinite, inf = math.isfinite, math.inf
-    paths = index.paths(grp, [sig for sig, _sl in sig_items])
+    if paths:
+        listed = index.paths(grp, [sig for sig, _sl in sig_items])
+    else:
+        reached = index.reaches(grp, [sig for sig, _sl in sig_items])
+        none: list[str] = []  # shared by every row of the group, never changed
     for si, (sig, sl) in enumerate(sig_items):
         if progress is not None and si % 256 == 0:
             progress(si / len(sig_items))
+        if simple_l[si]:
+            peak, wpk, dc = peak_l[si], w_l[si], dc_l[si]
+            h2, note = (inf, feedthrough_note) if with_d_l[si] else (h2_of(sig, sl), "")
+            if paths:
+                bids, wids, names_b, names_w = listed[si]
+                if not bids and peak <= 1e-13 * scale_ref:
+                    continue
+            else:
+                if not reached[si] and peak <= 1e-13 * scale_ref:
+                    continue
+                bids = wids = names_b = names_w = none
+            rows.append(AuditRow(grp, sig, peak, wpk, h2, dc, True, names_b, names_w, bids, wids, note=note, dc_gain_kind=simple_kind))
+            continue
         one = sl.stop - sl.start == 1
         if one:
             r = sl.start
@@ -536,7 +612,7 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
                 peak, wpk = max(d_peak, peak), inf
             if has_d:
                 h2 = inf
-                note = "direct feedthrough: H2 is infinite"
+                note = feedthrough_note
             else:
                 h2 = h2_of(sig, sl)
         scalar = g_size == 1
@@ -560,9 +636,14 @@ def _group_rows(model, grp, sig_items, Dg, Y0, best, unstable, h2_of, dc_of, sca
             wpk = 0.0  # as large at DC as at w -> inf (a static path): report the lowest frequency
         if isfinite(dc) and isfinite(peak) and abs(dc) <= _ROUNDING_ZERO * peak:
             dc = 0.0  # an exact zero (e.g. integral action, a zero at s = 0) seen through rounding
-        bids, wids, names_b, names_w = paths[si]
-        if not bids and not unstable[si] and peak <= 1e-13 * scale_ref:
-            continue
+        if paths:
+            bids, wids, names_b, names_w = listed[si]
+            if not bids and not unstable[si] and peak <= 1e-13 * scale_ref:
+                continue
+        else:
+            if not reached[si] and not unstable[si] and peak <= 1e-13 * scale_ref:
+                continue
+            bids = wids = names_b = names_w = none
         rows.append(AuditRow(
             grp, sig, peak, wpk, h2, dc, not unstable[si], names_b, names_w, bids, wids, note=note,
             dc_gain_kind="signed value" if scalar else "largest singular value",
@@ -597,7 +678,7 @@ def _stage(progress, lo: float, hi: float):
 
 
 def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, refine_passes: int, force: bool = False,
-                          progress=None) -> list[AuditRow] | None:
+                          progress=None, paths_for: int | None = None) -> list[AuditRow] | None:
     """The audit without a dense factorisation of the closed loop, or None where this route
     does not apply or cannot certify its answer (the caller then takes the whole-model route).
 
@@ -689,20 +770,24 @@ def _audit_block_by_block(model, *, injections: bool, points_per_decade: int, re
                                  progress=_stage(progress, lo, lo + 0.5 * span / len(batch)))
             if progress is not None:
                 progress(base + 0.5 * span * (1.0 + (j + 1) / len(batch)))
-            finite_y = np.abs(Y[np.isfinite(Y)])
-            scale_ref = max(1e-300, float(finite_y.max()) if finite_y.size else 1.0)
+            scale_ref = _largest_finite_modulus(Y)
             Dg = D[:, gcols]
             rows += _group_rows(model, grp, sig_items, Dg, Y[0], best, [False] * len(sig_items),
-                                lambda sig, _sl, grp=grp: h2[(grp, sig)], None, scale_ref, reach_cache, graph)
+                                lambda sig, _sl, grp=grp: h2[(grp, sig)], None, scale_ref, reach_cache, graph, paths=paths_for is None)
         done += len(batch)
     if progress is not None:
         progress(1.0)
-    return _ranked(rows)
+    return _ranked(rows, reach_cache, paths_for)
 
 
-def _ranked(rows: list[AuditRow]) -> list[AuditRow]:
+def _ranked(rows: list[AuditRow], reach_cache: dict | None = None, paths_for: int | None = None) -> list[AuditRow]:
+    """``rows`` sorted by the ranking rule and numbered; with ``paths_for``, the paths of the
+    first ``paths_for`` rows listed (from the path index in ``reach_cache``)."""
     isfinite, inf = math.isfinite, math.inf
     rows.sort(key=lambda r: (r.stable, -r.peak_gain if isfinite(r.peak_gain) else -inf, -r.h2 if isfinite(r.h2) else -inf, r.source, r.signal))
     for i, r in enumerate(rows, 1):
         r.rank = i
+    if paths_for is not None:
+        for r in rows[:paths_for]:
+            r.block_ids, r.wire_ids, r.blocks, r.wires = reach_cache["paths"].path(r.source, r.signal)
     return rows

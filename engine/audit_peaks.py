@@ -11,7 +11,8 @@ the bookkeeping runs on arrays (one row per signal) rather than one signal at a 
 arithmetic of every sample is the same as one signal at a time would do: the same
 frequencies, solved together in the same order, each signal's output formed by a matrix
 product of the same shape (:func:`numpy.matmul` over a stack), so the peaks and their
-frequencies do not depend on how many other signals are refined alongside.
+frequencies do not depend on how many other signals are refined alongside. Neighbouring
+signals whose rows are equal (a chain of unit gains) are refined once per run of them.
 """
 from __future__ import annotations
 
@@ -243,7 +244,60 @@ def refine_peaks(responder, grid: np.ndarray, Y: np.ndarray, sig_items, passes: 
     -------
     dict
         signal -> (peak, w_rad_s); (0.0, 0.0) for a signal with no finite gain.
+        Neighbouring signals whose rows are equal share one refinement (see
+        :func:`_runs_of_equal_rows`): the answers are those of each signal on its own.
     """
+    runs = _runs_of_equal_rows(responder, Y, sig_items)
+    if runs is not None:
+        # one refinement per run of equal rows (thousands of unit gains in series: a
+        # handful), each signal then takes its run's answer
+        first, run_of = runs
+        names = [sig for sig, _sl in sig_items]
+        kept = _refine_each(responder, grid, Y, [sig_items[i] for i in first.tolist()], passes, progress)
+        answers = [kept[names[i]] for i in first.tolist()]
+        return dict(zip(names, [answers[r] for r in run_of.tolist()]))
+    return _refine_each(responder, grid, Y, sig_items, passes, progress)
+
+
+def _runs_of_equal_rows(responder, Y: np.ndarray, sig_items) -> tuple[np.ndarray, np.ndarray] | None:
+    """Runs of neighbouring single-row signals that the refinement cannot tell apart, or
+    None when every signal is a run of its own (or the route forms outputs otherwise).
+
+    Two signals in neighbouring rows are in one run when their rows are equal in
+    everything the refinement reads on the whole-model route: the output row ``Ct`` in
+    Schur coordinates, the feedthrough row ``Dg`` and the grid response ``Y``. Their
+    refinements then ask for the same points and form the same products, so one
+    refinement per run gives every member's answer bit for bit. (Block by block, the
+    response at a new point is not formed from the signal's own row: no runs there.)
+
+    Returns
+    -------
+    first : (r,) ndarray
+        Index into ``sig_items`` of each run's first signal.
+    run_of : (s,) ndarray
+        The run of every signal.
+    """
+    if not isinstance(responder, GroupResponder) or responder.blockwise is not None or len(sig_items) < 2:
+        return None
+    starts = np.array([sl.start for _sig, sl in sig_items], dtype=int)
+    widths = np.array([sl.stop - sl.start for _sig, sl in sig_items], dtype=int)
+    p = Y.shape[1]
+    # row r equal to row r - 1 (NaN never equal: such rows stay alone)
+    same = np.zeros(p, dtype=bool)
+    if p > 1:
+        Ct, Dg = responder.Ct, responder.Dg
+        same[1:] = np.all(Ct[1:] == Ct[:-1], axis=1) & np.all(Dg[1:] == Dg[:-1], axis=1)
+        same[1:] &= np.all(Y[:, 1:, :] == Y[:, :-1, :], axis=(0, 2))
+    joins = np.zeros(len(sig_items), dtype=bool)
+    joins[1:] = (widths[1:] == 1) & (widths[:-1] == 1) & (starts[1:] == starts[:-1] + 1) & same[np.minimum(starts[1:], p - 1)]
+    if not joins.any():
+        return None
+    run_of = np.cumsum(~joins) - 1
+    return np.flatnonzero(~joins), run_of
+
+
+def _refine_each(responder, grid: np.ndarray, Y: np.ndarray, sig_items, passes: int, progress=None) -> dict:
+    """:func:`refine_peaks` with every signal refined on its own row of the arrays."""
     names = [sig for sig, _sl in sig_items]
     starts = np.array([sl.start for _sig, sl in sig_items], dtype=int)
     scalar = np.array([sl.stop - sl.start == 1 for _sig, sl in sig_items], dtype=bool)

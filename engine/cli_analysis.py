@@ -137,10 +137,13 @@ def _check_plot(args: argparse.Namespace) -> None:
 def _table(header: list[str], rows: list[list[str]], *, indent: str = "  ") -> None:
     """The header and rows, the first column left-aligned and the others right-aligned,
     printed at once (thousands of rows on a long chain)."""
-    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)]
-    first, rest = widths[0], list(enumerate(widths))[1:]
-    lines = [(indent + "  ".join([r[0].ljust(first)] + [r[i].rjust(w) for i, w in rest])).rstrip() for r in [header, *rows]]
-    print("\n".join(lines))
+    columns = list(zip(*rows)) if rows else [()] * len(header)
+    widths = [max(len(h), max(map(len, col), default=0)) for h, col in zip(header, columns)]
+    # one format per table, applied to each row in C (padding as ljust / rjust would)
+    line = indent.replace("%", "%%") + "  ".join([f"%-{widths[0]}s"] + [f"%{w}s" for w in widths[1:]])
+    n = len(header)
+    every = [header, *rows] if all(len(r) == n for r in rows) else [header, *(r[:n] for r in rows)]
+    print("\n".join([(line % tuple(r)).rstrip() for r in every]))
 
 
 # ---------------------------------------------------------------------------------------

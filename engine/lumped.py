@@ -34,8 +34,9 @@ import numpy as np
 
 from loopwright.engine.diagram import Diagram, PortRef
 from loopwright.engine.discretize import DiscreteModel, discrete_frequency_response, discretize
-from loopwright.engine.errors import AnalysisError, DesignError
-from loopwright.engine.interconnect import AssembledModel, assemble
+from loopwright.engine.blocks import port_widths
+from loopwright.engine.errors import AnalysisError, DesignError, EngineError
+from loopwright.engine.interconnect import AssembledModel, assemble, signal_names
 from loopwright.engine.margins import LoopMargins, _close_channels, loop_margins, margins_from_response
 from loopwright.engine.responses import auto_frequency_grid
 from loopwright.engine.structure import transmission_zeros
@@ -100,6 +101,14 @@ def _structural_keep(A: np.ndarray, B: np.ndarray, C: np.ndarray) -> np.ndarray:
 
 
 def _cut_map(diagram: Diagram, cut: list[str], read: list[str], *, what: str) -> LumpedModel:
+    plain = _plain_signal_ports(diagram, cut, read)
+    if plain is not None:
+        # the usual case, with one assembly (of the cut copy); anything wrong there goes the
+        # checked way below, which names the problem as it always has
+        try:
+            return _cut_and_read(diagram, cut, read, *plain, what=what)
+        except EngineError:
+            pass
     base = assemble(diagram)
     cut = [base.resolve_signal(s) for s in cut]
     read = [base.resolve_signal(s) for s in read]
@@ -108,15 +117,56 @@ def _cut_map(diagram: Diagram, cut: list[str], read: list[str], *, what: str) ->
     clash = sorted(set(cut) & set(read))
     if clash:
         raise DesignError(f"{what}: signal(s) {', '.join(clash)} cannot be both an input and an output")
+    for s in cut + read:
+        if s not in base.signals:
+            whole = s[: s.rindex("[")]
+            raise DesignError(f"{what}: {s!r} is one component of signal {whole!r}; name whole signals ({whole!r})")
+    ports = {sig: base.signal_ports[sig] for sig in cut}
+    widths = {sig: base.signals[sig].stop - base.signals[sig].start for sig in cut}
+    return _cut_and_read(diagram, cut, read, ports, widths, what=what)
+
+
+def _plain_signal_ports(diagram: Diagram, cut: list[str], read: list[str]) -> tuple[dict[str, PortRef], dict[str, int]] | None:
+    """The output port and width of every ``cut`` signal, read off the diagram without
+    assembling it, or None unless every name is a whole signal of the diagram (no
+    component ``u[2]``), named once, with inputs and outputs apart and neither empty.
+
+    The widths are those the assembly gives (:func:`~loopwright.engine.blocks.port_widths`
+    realises the block as the assembly does); a block whose parameters do not realise
+    gives None.
+    """
+    if not cut or not read or set(cut) & set(read):
+        return None
+    ports: dict[str, PortRef] = {}
+    for ref, name in signal_names(diagram).items():
+        if name in ports:
+            return None  # two signals of one name: the assembly refuses the diagram
+        ports[name] = ref
+    if not all(s in ports for s in cut) or not all(s in ports for s in read):
+        return None
+    widths: dict[str, int] = {}
+    for sig in cut:
+        ref = ports[sig]
+        try:
+            widths[sig] = port_widths(diagram.blocks[ref.block], diagram)[1][ref.port]
+        except (EngineError, LookupError):
+            return None
+    return {sig: ports[sig] for sig in cut}, widths
+
+
+def _cut_and_read(diagram: Diagram, cut: list[str], read: list[str], ports: dict[str, PortRef], widths_of: dict[str, int],
+                  *, what: str) -> LumpedModel:
+    """The map from the ``cut`` signals (each leaving ``ports[sig]``, ``widths_of[sig]`` wide)
+    to the ``read`` signals, on a copy of ``diagram`` (see the module docstring)."""
     work = diagram.copy()
     new_sources: list[str] = []
     widths: list[int] = []
     for sig in cut:
-        port = base.signal_ports[sig]
+        port = ports[sig]
         wire = work.wire_from(port)
         if wire is None or not wire.targets:
             raise DesignError(f"{what}: signal {sig!r} feeds no block, so nothing depends on it")
-        w = base.signals[sig].stop - base.signals[sig].start
+        w = widths_of[sig]
         if work.blocks[port.block].kind == "source":
             # a reference read by the controller (feedforward): the source already is an input
             new_sources.append(work.blocks[port.block].name)
@@ -136,7 +186,8 @@ def _cut_map(diagram: Diagram, cut: list[str], read: list[str], *, what: str) ->
     A = model.A[np.ix_(keep, keep)]
     names = tuple(n for n, k in zip(model.state_names, keep) if k)
     in_names = tuple(c for s, w in zip(cut, widths) for c in _comp(s, w))
-    out_names = tuple(c for s in read for c in _comp(s, base.signals[s].stop - base.signals[s].start))
+    # a read signal is not cut, so it keeps its name and width in the copy
+    out_names = tuple(c for s in read for c in _comp(s, model.signals[s].stop - model.signals[s].start))
     return LumpedModel(A, B[keep], C[:, keep], D, names, in_names, out_names, tuple(cut), tuple(read))
 
 

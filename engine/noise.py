@@ -195,6 +195,9 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
     with np.errstate(invalid="ignore", divide="ignore"):
         infs = np.isinf(vmat)
         inf_share = np.where(infs, 1.0 / infs.sum(axis=1)[:, None], 0.0).tolist()
+    totals = [float(sum(values)) for values in values_l]  # in source order, as each line adds them
+    with np.errstate(invalid="ignore"):
+        rms_l = np.sqrt(np.array(totals, dtype=float)).tolist()
     for k, (cname, sig, _, _) in enumerate(rows):
         values = values_l[k]
         vb = dict(zip(names, values))
@@ -202,7 +205,7 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
         if any_white[k]:
             last = names[last_white[k]]
             reason = f"direct feedthrough from white source {last!r}: the signal is itself white"
-        total = float(sum(values))
+        total = totals[k]
         if not stable and srcs:
             reason = reason or "the closed loop is not stable"
         if math.isfinite(total) and total > 0:
@@ -211,5 +214,5 @@ def noise_budget(model, *, reduced: ReducedModel | None = None) -> NoiseBudget:
             share = dict(zip(names, inf_share[k])) if stable else dict.fromkeys(names, np.nan)
         else:
             share = dict.fromkeys(names, np.nan)
-        budget.lines.append(NoiseLine(cname, sig, float(np.sqrt(total)), vb, share, reason))
+        budget.lines.append(NoiseLine(cname, sig, rms_l[k], vb, share, reason))
     return budget

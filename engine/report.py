@@ -136,7 +136,7 @@ def loop_report(diagram: Diagram, *, top: int = 5, take: bool = False) -> LoopRe
         key = _key_signal_lines(diagram, budget)
     else:
         notes.append("no source states a white-noise intensity: noise budget skipped")
-    rows = path_audit(model, reduced=reduced)
+    rows = path_audit(model, reduced=reduced, paths_for=top)  # only the rows shown list their paths
     return LoopReport(
         title=str(diagram.meta.get("title", "")),
         description=str(diagram.meta.get("description", "")),

@@ -96,6 +96,7 @@ def test_a_chain_of_gains_gives_the_closed_form_rows_and_one_path_list_per_sourc
 def test_path_lists_agree_with_networkx_on_the_samples(name):
     model = assemble(load(str(ir.files("loopwright.samples") / name)))
     rows = path_audit(model, injections=True)
+    graph = model.diagram.graph()
     assert rows
     for r in rows:
         bids, wids = _reference_path(model, r.source, r.signal)
@@ -103,6 +104,7 @@ def test_path_lists_agree_with_networkx_on_the_samples(name):
         assert r.blocks == [model.diagram.blocks[b].name for b in bids]
         assert r.wires == [model.diagram.wires[w].name for w in wids]
         assert path_between(model, r.source, r.signal) == (bids, wids)
+        assert path_between(model, r.source, r.signal, graph) == (bids, wids)  # the edges as networkx lists them
 
 
 @settings(max_examples=25, deadline=None)
@@ -182,10 +184,11 @@ def _refine_one_at_a_time(responder, grid, Y, sig_items, passes):
     return best
 
 
-@pytest.mark.parametrize("name", SAMPLES + ["chain"])
+@pytest.mark.parametrize("name", SAMPLES + ["chain", "unit chain"])
 @pytest.mark.parametrize("blockwise", [False, True], ids=["whole model", "block by block"])
 def test_refinement_on_arrays_matches_one_signal_at_a_time_bit_for_bit(name, blockwise):
-    d = _gain_chain([1.01, 0.98, 1.0] * 10) if name == "chain" else load(str(ir.files("loopwright.samples") / name))
+    chains = {"chain": [1.01, 0.98, 1.0] * 10, "unit chain": [1.0] * 12 + [2.0] + [1.0] * 12}  # "unit chain": runs of equal rows
+    d = _gain_chain(chains[name]) if name in chains else load(str(ir.files("loopwright.samples") / name))
     model = assemble(d)
     red = reduce_model(model.A)
     grid = np.concatenate([[0.0], auto_frequency_grid(red.poles, points_per_decade=40)])
@@ -205,3 +208,41 @@ def test_refinement_on_arrays_matches_one_signal_at_a_time_bit_for_bit(name, blo
             Y = responder.outputs(responder.solve(grid), slice(None))
         ours = refine_peaks(responder, grid, Y, sig_items, 8)
         assert ours == _refine_one_at_a_time(responder, grid, Y, sig_items, 8)
+
+
+def test_unit_gains_in_series_are_refined_once_per_run_of_equal_rows(monkeypatch):
+    # closed form as above with every gain 1 except one 2: G = 2, r -> s_k has DC gain
+    # P_k/(1 + 2G) = P_k/5 and its peak |P_k| as w -> inf, P_k = 1 before the 2 and 2 after
+    gains = [1.0] * 40 + [2.0] + [1.0] * 40
+    model = assemble(_gain_chain(gains))
+    refined = []
+    each = audit_module.refine_peaks.__globals__["_refine_each"]
+    monkeypatch.setitem(audit_module.refine_peaks.__globals__, "_refine_each",
+                        lambda responder, grid, Y, sig_items, *a: refined.append(len(sig_items)) or each(responder, grid, Y, sig_items, *a))
+    rows = {(r.source, r.signal): r for r in path_audit(model)}
+    # rows in block order: r.out, n.out, s0 (e), y (P), ym, then s1..s40 (g0..g39, equal rows),
+    # s41..s80 and u (g40..g80, equal rows): 7 runs of the 86 signals; from r, y and ym
+    # (= y + n) are equal rows too: 6 runs
+    assert list(model.signals)[:6] == ["r.out", "n.out", "s0", "y", "ym", "s1"] and len(model.signals) == 86
+    assert refined == [6, 7]
+    for k, before in ((0, 1.0), (40, 1.0), (41, 2.0), (80, 2.0)):
+        r = rows[("r", f"s{k}")]
+        assert_allclose([r.dc_gain, r.peak_gain], [before / 5.0, before], rtol=1e-12)
+        assert r.peak_freq_rad_s == np.inf
+
+
+@pytest.mark.parametrize("name", SAMPLES + ["chain"])
+def test_listing_the_paths_of_the_top_rows_only_keeps_the_ranking(name, monkeypatch):
+    d = _gain_chain([1.0, -0.5, 2.0] * 40) if name == "chain" else load(str(ir.files("loopwright.samples") / name))
+    model = assemble(d)
+    full = path_audit(model, injections=True)
+    listed = []
+    paths = audit_module._PathIndex.paths
+    monkeypatch.setattr(audit_module._PathIndex, "paths", lambda self, grp, sigs: listed.extend(sigs) or paths(self, grp, sigs))
+    top = path_audit(model, injections=True, paths_for=5)
+    assert len(listed) == 5  # one listing per row shown, none for the rest
+    assert [(r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.stable, r.note) for r in top] == \
+        [(r.rank, r.source, r.signal, r.peak_gain, r.peak_freq_rad_s, r.h2, r.dc_gain, r.stable, r.note) for r in full]
+    for a, b in zip(top[:5], full[:5]):
+        assert (a.blocks, a.wires, a.block_ids, a.wire_ids) == (b.blocks, b.wires, b.block_ids, b.wire_ids)
+    assert all(r.blocks == [] and r.block_ids == [] for r in top[5:])

@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
 from loopwright.engine.diagram import Diagram
-from loopwright.engine.errors import AnalysisError, DesignError, UnknownNameError
+from loopwright.engine.errors import AnalysisError, ConnectionError_, DesignError, UnknownNameError
 from loopwright.engine.lumped import (
     controller_transfer_function,
     lumped_controller,
@@ -168,8 +168,11 @@ def test_vector_controller_of_oven_sample_has_two_inputs_two_outputs():
         (["nope"], ["u"], UnknownNameError, "no signal called 'nope'"),
         (["u"], ["u"], DesignError, "both an input and an output"),
         (["est.yhat"], ["u"], DesignError, "feeds no block"),
+        (["y_meas[1]"], ["u"], DesignError, "'y_meas\\[1\\]' is one component of signal 'y_meas'; name whole signals"),
+        (["y_meas"], ["u[1]"], DesignError, "'u\\[1\\]' is one component of signal 'u'"),
+        ([], ["u"], DesignError, "name at least one input signal"),
     ],
-    ids=["unknown-signal", "same-signal", "unused-signal"],
+    ids=["unknown-signal", "same-signal", "unused-signal", "measured-component", "actuator-component", "none-measured"],
 )
 def test_bad_controller_signals_are_rejected(measured, actuator, error, message):
     with pytest.raises(error, match=message):
@@ -279,3 +282,27 @@ def test_default_loop_signals_are_read_off_the_estimator():
     d.add_block("estimator", "est2", {"plant": "P", "L": [[1.0], [1.0], [1.0]]})
     with pytest.raises(DesignError, match="has 2 estimators; name the controller's measured and actuator signals"):
         default_loop_signals(d)
+
+
+def test_the_lumped_controller_assembles_only_the_cut_copy(monkeypatch):
+    # the names are resolved on the diagram itself: one assembly (of the copy with the cut),
+    # not a second one of the whole diagram first
+    from loopwright.engine import interconnect
+    from diagrams import gain_chain
+
+    gains = [1.0, -0.5, 2.0] * 50
+    d = gain_chain(gains)
+    made = []
+    real = interconnect._assemble
+    monkeypatch.setattr(interconnect, "_assemble", lambda dd, **k: made.append(len(dd.blocks)) or real(dd, **k))
+    k = lumped_controller(d, measured=["ym"], actuator=["u"])
+    assert made == [len(d.blocks) + 1]  # the copy, with its one new source in place of ym's driver
+    # closed form: the controller from ym to u is the static gain -g_0 ... g_{N-1} (e = r - ym)
+    g = float(np.prod(gains))
+    assert k.A.shape == (0, 0) and k.input_names == ("ym",) and k.output_names == ("u",)
+    assert_allclose(k.D, [[-g]], rtol=1e-14)
+    # a diagram that does not assemble is named as before, by the checked route
+    d.remove_wire(d.wire_by_name("y").id)
+    made.clear()
+    with pytest.raises(ConnectionError_, match="input ym.in1 is not connected"):
+        lumped_controller(d, measured=["ym"], actuator=["u"])
