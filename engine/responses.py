@@ -772,21 +772,20 @@ def simulate(A, B, C, D, t, u=None, *, x0=None, foh_columns=None, keep_states: b
     # response) makes the run a power sequence, computed a doubling at a time when that
     # costs less than a step at a time (see _states_by_doubling)
     Xs = None
-    if _is_constant_in_time(U) and _doubling_pays(n, m, r, N):
+    # only the outputs asked for: the states at every b-th step and the outputs between them
+    # from the powers of Phi (see _outputs_in_blocks), when that costs less than the others
+    b, lifted = _cheapest_block(n, m, p, r, N) if not keep_states and n * r else (0, np.inf)
+    held = _is_constant_in_time(U)
+    if held and _doubling_pays(n, m, r, N) and _doubling_cost(n, m, r, N) <= lifted:
         Xs = _states_by_doubling(Phi, G0, U[0], X0, N)
-    if Xs is None and not keep_states and n * r:
-        # only the outputs are asked for: the states at every b-th step and the outputs
-        # between them from the powers of Phi (see _outputs_in_blocks), when that costs less
-        b = _cheapest_block(n, m, p, r, N)
-        if b:
-            Yb = _outputs_in_blocks(Phi, G0, G1, U, X0, C, N, bool(foh_columns), b)
-            if Yb is not None:  # else the run grows past the limit: step by step finds where
-                Y = Yb
-                if np.any(D):
-                    Y = Y + (D @ U[0] if _is_constant_in_time(U) else D @ U)
-                if not batched:
-                    Y = Y[:, :, 0]
-                return TimeResult(t.copy(), Y, None, False, "")
+    if Xs is None and b:
+        Y = _outputs_in_blocks(Phi, G0, G1, U, X0, C, N, bool(foh_columns), b)
+        if Y is not None:  # else the run grows past the limit: step by step finds where
+            if np.any(D):
+                Y = Y + (D @ U[0] if held else D @ U)
+            if not batched:
+                Y = Y[:, :, 0]
+            return TimeResult(t.copy(), Y, None, False, "")
     if Xs is None:
         Xs = _states_step_by_step(Phi, G0, G1, U, X0, N, bool(foh_columns))
     diverged, message, last = False, "", N
@@ -823,13 +822,16 @@ def _is_constant_in_time(U: np.ndarray) -> bool:
     return bool(U.shape[0] < 2 or np.array_equal(U[1:], np.broadcast_to(U[:1], (U.shape[0] - 1,) + U.shape[1:])))
 
 
-def _doubling_pays(n: int, m: int, r: int, N: int) -> bool:
-    """Whether doubling (about log2 N products of (n + m)-square matrices, and every state
-    from one product per doubling) costs fewer operations than N single steps."""
+def _doubling_cost(n: int, m: int, r: int, N: int) -> float:
+    """Operations of doubling: about log2 N products of (n + m)-square matrices, and every
+    state from one product per doubling."""
     q = n + m
-    doubling = 2.0 * q**3 * np.ceil(np.log2(max(N, 2))) + 2.0 * q * q * N * r
-    stepping = N * (2.0 * n * (n + m) * r + _STEP_OVERHEAD_FLOPS)
-    return doubling < stepping
+    return 2.0 * q**3 * np.ceil(np.log2(max(N, 2))) + 2.0 * q * q * N * r
+
+
+def _doubling_pays(n: int, m: int, r: int, N: int) -> bool:
+    """Whether doubling costs fewer operations than N single steps."""
+    return _doubling_cost(n, m, r, N) < N * (2.0 * n * (n + m) * r + _STEP_OVERHEAD_FLOPS)
 
 
 def _states_by_doubling(Phi: np.ndarray, G0: np.ndarray, u: np.ndarray, X0: np.ndarray, N: int) -> np.ndarray | None:
@@ -872,10 +874,10 @@ def _states_by_doubling(Phi: np.ndarray, G0: np.ndarray, u: np.ndarray, X0: np.n
 _BLOCKS = (4, 8, 16, 32, 64)
 
 
-def _cheapest_block(n: int, m: int, p: int, r: int, N: int) -> int:
+def _cheapest_block(n: int, m: int, p: int, r: int, N: int) -> tuple[int, float]:
     """The block length ``b`` for :func:`_outputs_in_blocks` with the smallest operation
-    count, or 0 when single steps cost less (each Python-level step charged
-    :data:`_STEP_OVERHEAD_FLOPS`, as in :func:`_doubling_pays`)."""
+    count and that count, or ``(0, inf)`` when single steps cost less (each Python-level
+    step charged :data:`_STEP_OVERHEAD_FLOPS`, as in :func:`_doubling_pays`)."""
     stepping = N * (2.0 * n * (n + m) * r + _STEP_OVERHEAD_FLOPS)
     best, best_b = stepping, 0
     for b in _BLOCKS:
@@ -888,7 +890,7 @@ def _cheapest_block(n: int, m: int, p: int, r: int, N: int) -> int:
                 + 2.0 * N * r * (p * n + b * p * m + n * m))  # outputs and input terms, all blocks at once
         if cost < best:
             best, best_b = cost, b
-    return best_b
+    return (best_b, best) if best_b else (0, np.inf)
 
 
 def _outputs_in_blocks(Phi, G0, G1, U, X0, C, N: int, has_foh: bool, b: int) -> np.ndarray | None:

@@ -213,7 +213,7 @@ def _held_run_step_by_step(monkeypatch, fn, *args):
 
     with monkeypatch.context() as mp:
         mp.setattr(responses, "_doubling_pays", lambda *a: False)
-        mp.setattr(responses, "_cheapest_block", lambda *a: 0)
+        mp.setattr(responses, "_cheapest_block", lambda *a: (0, np.inf))
         return fn(*args)
 
 
@@ -242,8 +242,10 @@ def test_a_held_input_is_run_by_doubling_with_the_answers_of_single_steps(sample
     A, B, C, D = model.A, model.B[:, cols], model.C[:4], np.asarray(model.D[:4])[:, cols]
     step_calls = _count_calls(monkeypatch, "_states_step_by_step")
     doubled = _count_calls(monkeypatch, "_states_by_doubling")
+    lifted = _count_calls(monkeypatch, "_outputs_in_blocks")
     runs = [step_response(A, B, C, D, t), impulse_response(A, B, C, D, t), initial_response(A, C, B[:, 0], t)]
-    assert len(doubled) == 3 and step_calls == []
+    # outputs only: doubling or the lifted run, whichever an operation count says costs less
+    assert len(doubled) + len(lifted) == 3 and step_calls == []
     singles = [_held_run_step_by_step(monkeypatch, step_response, A, B, C, D, t),
                _held_run_step_by_step(monkeypatch, impulse_response, A, B, C, D, t),
                _held_run_step_by_step(monkeypatch, initial_response, A, C, B[:, 0], t)]
@@ -469,7 +471,7 @@ def test_a_run_in_blocks_has_the_outputs_of_single_steps(seed, n, m, p, foh, N):
     rng = np.random.default_rng(seed)
     t = np.linspace(0.0, 6.0, N)
     U = rng.normal(size=(N, m))
-    b = responses._cheapest_block(n, m, p, 1, N) or 4  # the block the cost picks, else the shortest
+    b = responses._cheapest_block(n, m, p, 1, N)[0] or 4  # the block the cost picks, else the shortest
     Phi, G0, G1 = discretise(A, B, t[1] - t[0], foh_columns=[0] if foh else None)
     X0 = rng.normal(size=(n, 1))
     got = responses._outputs_in_blocks(Phi, G0, G1, U[:, :, None], X0, C, N, foh, b)
@@ -526,3 +528,19 @@ def test_products_with_the_schur_vectors_through_their_real_form_equal_the_compl
     scale = np.abs(X).max()
     assert_allclose(red.to_original(X), red.Z @ X, rtol=0, atol=1e-13 * scale)
     assert_allclose(red.to_reduced(X), red.Z.conj().T @ X, rtol=0, atol=1e-13 * scale)
+
+
+def test_a_held_run_of_outputs_only_is_lifted_when_that_costs_less_than_doubling(monkeypatch):
+    # 60 states, 2,001 steps: doubling makes every state (2 q^2 N r operations), the lifted
+    # run only the outputs (far fewer); asked for the states, doubling runs as before. The two
+    # give the same step response (the same recursion regrouped; common practice, no source)
+    A, B, C, D = _stable_system(21, 60, 2, 3)
+    t = np.linspace(0.0, 20.0, 2001)
+    doubled = _count_calls(monkeypatch, "_states_by_doubling")
+    lifted = _count_calls(monkeypatch, "_outputs_in_blocks")
+    U = np.broadcast_to(np.eye(2)[None], (t.size, 2, 2))
+    outputs_only = simulate(A, B, C, D, t, U)
+    assert len(lifted) == 1 and doubled == []
+    with_states = simulate(A, B, C, D, t, U, keep_states=True)
+    assert len(doubled) == 1 and len(lifted) == 1
+    assert_allclose(outputs_only.y, with_states.y, rtol=0, atol=1e-11 * np.abs(with_states.y).max())
