@@ -108,7 +108,6 @@ class LoopResponse:
                     M[off[j] - lo : off[j + 1] - lo] = blkT
                 self._span.append((lo, hi, np.ascontiguousarray(M.T)))
             self._C_all = np.concatenate(self._Ck)
-            self._lam_all = np.concatenate(self._lam).astype(complex)
         else:
             self.route = "whole model"
             self.poles = self.reduced.poles if self.n else np.zeros(0, complex)
@@ -141,7 +140,7 @@ class LoopResponse:
         X = np.empty((off[-1], s.size), dtype=complex)
         # every diagonal part's divisor at once, inverted once: numpy divides complex arrays
         # elementwise several times slower than it inverts one and multiplies
-        inv = 1.0 / (s[None, :] - self._lam_all[:, None])
+        inv = 1.0 / (s[None, :] - self.poles[:, None])
         for k in range(len(self._parts) - 1, -1, -1):
             a, b = off[k], off[k + 1]
             span = self._span[k]

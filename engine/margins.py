@@ -377,11 +377,7 @@ def loop_margins(A, B, C, D=None, *, skew: float = 0.0) -> LoopMargins:
     if _ill_posed(D):
         raise AnalysisError("1 + L(inf) = 0: the closed loop has no proper solution at this break")
     resp = LoopResponse(A, B, C, D)
-    try:
-        zeros = transmission_zeros(A, B, C, D) if A.size else np.zeros(0)
-    except (np.linalg.LinAlgError, ValueError):
-        zeros = np.zeros(0)
-    m, _w, _L = scalar_margins(resp, skew=skew, zeros=zeros, certify=True)
+    m, _w, _L = scalar_margins(resp, skew=skew, zeros=_zeros_of(A, B, C, D, minimal=True), certify=True)
     return m
 
 
@@ -763,9 +759,10 @@ def _refine_roots(Ljw, grid: np.ndarray, L: np.ndarray, parts, keep=None) -> lis
     frequency, where a width is a relative width in frequency): each pass samples every
     bracket at its regula-falsi point, at a ladder of points on both sides of it
     (:data:`_ROOT_LADDER`) and at its midpoint, and keeps the narrowest sign change. A
-    smooth root is found in two or three passes (the estimate's error squares with the
-    width, and the ladder turns an estimate good to ``1e-7 W`` into a bracket of that
-    width); the midpoint halves the bracket at worst, as bisection does. The result is
+    smooth root is found in a few passes (the estimate's error falls with the square of
+    the width, and the ladder turns an estimate good to ``1e-7 W`` into a bracket about that
+    wide; near the end rounding sets the pace); the midpoint halves the bracket at worst, as
+    bisection does. The result is
     good to a relative width of about 1e-15 in frequency (as ``brentq`` with
     ``xtol = rtol = 1e-15``). For a loop evaluated block by block the cost of a call is
     mostly its fixed overhead, so a few wide calls are what is cheap.
@@ -1117,21 +1114,38 @@ def _scalar_margins_at(A, B, C, D, *, skew: float, limits: bool) -> LoopMargins:
 
     resp = LoopResponse(A, B, C, D)
     poles = resp.poles
-    if clearly_stable(poles, matrix_scale(A)):
-        # hidden modes are stable: no minimal realization needed (see limits.performance_limits)
-        realization, minimal_zeros = (A, B, C, D), False
-    elif limits:
-        realization, minimal_zeros, poles = minimal_realization(A, B, C, D), False, None
+    if limits and not clearly_stable(poles, matrix_scale(A)):
+        # the limits need the minimal realization (its hidden modes may be unstable)
+        realization, poles = minimal_realization(A, B, C, D), None
+        zeros = _zeros_of(*realization, minimal=False)
     else:
-        realization, minimal_zeros = (A, B, C, D), True
-    try:
-        zeros = transmission_zeros(*realization, minimal=minimal_zeros) if realization[0].size else np.zeros(0)
-    except (np.linalg.LinAlgError, ValueError):
-        zeros = np.zeros(0)
+        # hidden modes are stable, or no limits asked: no minimal realization needed (see
+        # limits.performance_limits)
+        realization = (A, B, C, D)
+        zeros = grid_zeros(resp)
     m, _w, _L = scalar_margins(resp, skew=skew, zeros=zeros, certify=True)
     if limits:
         _attach_limits(m, *realization, response=resp, zeros=zeros, poles=poles)
     return m
+
+
+def grid_zeros(resp: LoopResponse) -> np.ndarray:
+    """The zeros of the loop ``resp`` that place the margins' grid points
+    (:meth:`LoopResponse.grid`): of the realisation as given when every pole is clearly
+    stable (they add only its hidden modes, poles of it anyway, and cost no staircase of
+    rank decisions), else of its minimal realization; none where they cannot be computed."""
+    from loopwright.engine.limits import clearly_stable
+
+    A = resp.A
+    return _zeros_of(resp.A, resp.B, resp.C, resp.D, minimal=not (A.size and clearly_stable(resp.poles, matrix_scale(A))))
+
+
+def _zeros_of(A, B, C, D, *, minimal: bool) -> np.ndarray:
+    """:func:`transmission_zeros`, or none where they cannot be computed."""
+    try:
+        return transmission_zeros(A, B, C, D, minimal=minimal) if A.size else np.zeros(0)
+    except (np.linalg.LinAlgError, ValueError):
+        return np.zeros(0)
 
 
 def _vector_margins(A, B, C, D, signal: str, *, skew: float, limits: bool) -> VectorLoopMargins:

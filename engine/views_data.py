@@ -779,6 +779,7 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
         _vector_margins,
         certify_sensitivity_peaks,
         disk_margin_from_alpha,
+        grid_zeros,
         opened_loop,
         scalar_margins,
     )
@@ -795,19 +796,7 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
         resp = LoopResponse(A, B, C, D)
         zeros = ()
         if limits or resp.n <= _ZEROS_MAX_STATES:  # cheap at this size: a grid point on every zero as well
-            from loopwright.engine.eigen import matrix_scale
-            from loopwright.engine.limits import clearly_stable
-            from loopwright.engine.structure import transmission_zeros
-
-            # the zeros only place grid points: with every pole clearly stable the zeros of
-            # this realisation serve (they add only the hidden modes, poles of it anyway),
-            # without its minimal realisation (a staircase of n rank decisions), as the
-            # command line's margins do (margins._scalar_margins_at)
-            minimal = not (A.size and clearly_stable(resp.poles, matrix_scale(A)))
-            try:
-                zeros = transmission_zeros(A, B, C, D, minimal=minimal) if A.size else ()
-            except (np.linalg.LinAlgError, ValueError):
-                zeros = ()
+            zeros = grid_zeros(resp)
         costly = interim is not None and resp.n >= _PROGRESSIVE_MIN_STATES
         m, w, L = scalar_margins(resp, skew=skew, zeros=zeros, certify=not costly, progress=report,
                                  closed_loop_poles=_shared_poles(shared))
