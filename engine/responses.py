@@ -768,12 +768,12 @@ def simulate(A, B, C, D, t, u=None, *, x0=None, foh_columns=None, keep_states: b
     if X0.shape != (n, r):
         X0 = np.broadcast_to(X0, (n, r))
     Phi, G0, G1 = discretise(A, B, dt, foh_columns=foh_columns)
-    # an input held at one value for the whole run (a step, an impulse's zero, a free
-    # response) makes the run a power sequence, computed a doubling at a time when that
-    # costs less than a step at a time (see _states_by_doubling)
+    # Three ways, the cheapest by an operation count: an input held at one value for the
+    # whole run (a step, an impulse's zero, a free response) makes the run a power sequence,
+    # every state a doubling at a time (see _states_by_doubling); when only the outputs are
+    # asked for, the states at every b-th step and the outputs between them from the powers
+    # of Phi (see _outputs_in_blocks); else a step at a time.
     Xs = None
-    # only the outputs asked for: the states at every b-th step and the outputs between them
-    # from the powers of Phi (see _outputs_in_blocks), when that costs less than the others
     b, lifted = _cheapest_block(n, m, p, r, N) if not keep_states and n * r else (0, np.inf)
     held = _is_constant_in_time(U)
     if held and _doubling_pays(n, m, r, N) and _doubling_cost(n, m, r, N) <= lifted:
@@ -803,7 +803,7 @@ def simulate(A, B, C, D, t, u=None, *, x0=None, foh_columns=None, keep_states: b
     # outputs as one matrix product over every sample (states are stored time-major per state)
     Y = np.moveaxis((C @ Xs.reshape(n, last * r)).reshape(p, last, r), 0, 1)
     if np.any(D):
-        Y = Y + (D @ U[0] if _is_constant_in_time(U) else D @ U[:last])
+        Y = Y + (D @ U[0] if held else D @ U[:last])
     Xs = np.moveaxis(Xs, 1, 0)
     if not batched:
         Y = Y[:, :, 0]
