@@ -33,6 +33,7 @@ integrators turns real poles into complex pairs 20 % off. The check therefore
 """
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass, field
 
 import networkx as nx
@@ -40,7 +41,7 @@ import numpy as np
 
 from loopwright.engine.blocks import plant_matrices, realize
 from loopwright.engine.diagram import Diagram, PortRef
-from loopwright.engine.eigen import PoleClasses, classify_poles, eigen_sensitivity, matrix_scale
+from loopwright.engine.eigen import EigenSensitivity, PoleClasses, classify_poles, eigen_sensitivity, matrix_scale
 from loopwright.engine.estimator_inputs import InputGap, estimator_input_gaps
 from loopwright.engine.interconnect import AssembledModel, assemble
 from loopwright.engine.recipes import recipe_status
@@ -53,6 +54,31 @@ __all__ = ["CheckReport", "Separation", "summarize", "pole_table", "poles_match"
 _DECOUPLED = 8 * np.finfo(float).eps
 # Rounding bounds are first order: allow this factor before calling a gap real.
 _BOUND_FACTOR = 10.0
+#: Estimator error dynamics ``A - L C`` seen lately, by their exact numbers, with their poles:
+#: an edit elsewhere (the feedback gain, dragged in the app) leaves every estimator as it
+#: was, and the app checks the diagram after each edit.
+_ESTIMATOR_POLES: dict[tuple, EigenSensitivity] = {}
+_ESTIMATOR_POLES_KEPT = 64
+_ESTIMATOR_POLES_LOCK = threading.Lock()
+
+
+def _estimator_poles(error_dynamics: np.ndarray) -> EigenSensitivity:
+    """:func:`eigen_sensitivity` of ``A - L C``, computed once for the same numbers (read-only arrays)."""
+    M = np.ascontiguousarray(error_dynamics, dtype=float)
+    key = (M.shape, M.tobytes())
+    with _ESTIMATOR_POLES_LOCK:
+        hit = _ESTIMATOR_POLES.get(key)
+    if hit is not None:
+        return hit
+    found = eigen_sensitivity(M)
+    for value in vars(found).values():
+        if isinstance(value, np.ndarray):
+            value.flags.writeable = False  # shared by every later check of the same estimator
+    with _ESTIMATOR_POLES_LOCK:
+        if len(_ESTIMATOR_POLES) >= _ESTIMATOR_POLES_KEPT:
+            del _ESTIMATOR_POLES[next(iter(_ESTIMATOR_POLES))]  # the oldest
+        _ESTIMATOR_POLES[key] = found
+    return found
 
 
 @dataclass(frozen=True)
@@ -187,8 +213,8 @@ def _separation(model: AssembledModel, poles: np.ndarray, bounds: np.ndarray) ->
         plant_rows.append(np.arange(xs.start, xs.stop))
         err_rows.append(np.arange(es.start, es.stop))
         A, _, C, _ = plant_matrices(diagram, link)
-        L = realize(b, diagram).B[:, -C.shape[0]:]
-        est_poles.append(eigen_sensitivity(A - L @ C))
+        L = (model.realizations.get(b.id) or realize(b, diagram)).B[:, -C.shape[0]:]
+        est_poles.append(_estimator_poles(A - L @ C))
         graph = diagram.graph() if graph is None else graph
         k = _static_feedback(model, b.name, link, graph)
         if k is not None:

@@ -323,7 +323,7 @@ def collector_paused():
             gc.enable()
 
 
-def assemble(diagram: Diagram, *, break_at: str | None = None, take: bool = False) -> AssembledModel:
+def assemble(diagram: Diagram, *, break_at: str | None = None, take: bool = False, like: AssembledModel | None = None) -> AssembledModel:
     """Reduce ``diagram`` to one continuous-time state-space model.
 
     Parameters
@@ -336,6 +336,11 @@ def assemble(diagram: Diagram, *, break_at: str | None = None, take: bool = Fals
         The model keeps ``diagram`` itself rather than a snapshot: for a caller that hands
         the diagram over and changes it no more (a command that has just read it from a
         file). Copying is a fifth of the assembly of a long chain of gains.
+    like : AssembledModel, optional
+        A model assembled from this very ``diagram`` object (the closed loop, when the loop
+        is now to be broken): its block realisations, made and checked then, are used
+        again instead of being made a second time. Implies ``take`` (the diagram is shared
+        with that model, which keeps it already).
 
     Returns
     -------
@@ -361,19 +366,24 @@ def assemble(diagram: Diagram, *, break_at: str | None = None, take: bool = Fals
     >>> m.A
     array([[-2.]])
     """
+    if like is not None and like.diagram is not diagram:
+        raise ValueError("assemble(like=...): that model was assembled from another diagram")
     with collector_paused():
-        return _assemble(diagram, break_at=break_at, take=take)
+        return _assemble(diagram, break_at=break_at, take=take or like is not None, like=like)
 
 
-def _assemble(diagram: Diagram, *, break_at: str | None = None, take: bool = False) -> AssembledModel:
+def _assemble(diagram: Diagram, *, break_at: str | None = None, take: bool = False, like: AssembledModel | None = None) -> AssembledModel:
     """The work of :func:`assemble` (which pauses the collector around it)."""
     snap = diagram if take else diagram.copy()
     blocks = list(snap.blocks.values())
-    reals, problems = _realize_all(blocks, snap, check_each=False)
-    if problems or not _all_in_range(reals.values()):
-        # something is wrong: block by block again, so the problems come in diagram order
-        reals, problems = _realize_all(blocks, snap, check_each=True)
-    _raise_first(problems)
+    if like is not None:
+        reals = like.realizations
+    else:
+        reals, problems = _realize_all(blocks, snap, check_each=False)
+        if problems or not _all_in_range(reals.values()):
+            # something is wrong: block by block again, so the problems come in diagram order
+            reals, problems = _realize_all(blocks, snap, check_each=True)
+        _raise_first(problems)
     widths: dict[str, tuple[dict[str, int], dict[str, int]]] = {}
     by_realization: dict[int, tuple[dict[str, int], dict[str, int]]] = {}  # blocks sharing one share these (read only)
     for bid, r in reals.items():

@@ -1179,10 +1179,11 @@ def _break_loop(opened, signal: str, base: str, component, *, trim):
     return A, B, C, D
 
 
-def opened_loop(diagram, signal: str):
+def opened_loop(diagram, signal: str, *, closed=None):
     """``L`` at the break ``signal`` (as :func:`margins_at` reads it: a signal, a port or one
     component ``"P.u[2]"``), from one assembly, with the states off the loop dropped where
-    that is exact (:func:`structural_trim`; unstable ones are kept).
+    that is exact (:func:`structural_trim`; unstable ones are kept). ``closed``: the model
+    already assembled from this ``diagram`` object, whose block realisations are used again.
 
     Returns
     -------
@@ -1191,7 +1192,7 @@ def opened_loop(diagram, signal: str):
     from loopwright.engine.interconnect import assemble
 
     base, component = _split_component(diagram, signal)
-    opened = assemble(diagram, break_at=base)
+    opened = assemble(diagram, break_at=base, like=closed)
     return _break_loop(opened, signal, base, component, trim=_structural_trim)
 
 

@@ -92,7 +92,9 @@ class SharedModel:
         """The assembled closed-loop model (:func:`interconnect.assemble`)."""
         from loopwright.engine.interconnect import assemble
 
-        return self._get("model", lambda: assemble(self.diagram))
+        # the snapshot is the views' own and is not changed: the model keeps it (no copy),
+        # so the loop-break view can break this very diagram with the realisations made here
+        return self._get("model", lambda: assemble(self.diagram, take=True))
 
     @property
     def reduced(self):
@@ -120,6 +122,16 @@ class SharedModel:
         from loopwright.engine.check import summarize
 
         return self._get("report", lambda: summarize(self.diagram, model=self.model, reduced=self.reduced))
+
+    def assembled(self):
+        """The assembled model if it has been made already, else None (never assembles)."""
+        with self._lock:
+            return self._memo.get("model")
+
+    def assembled_states(self) -> int | None:
+        """The closed loop's number of states once its model is assembled (None before; never assembles)."""
+        model = self.assembled()
+        return None if model is None else int(model.A.shape[0])
 
     def remember(self, key, make):
         """``make()`` the first time ``key`` is asked for, the same object afterwards."""
@@ -788,7 +800,9 @@ def loop_break_view(diagram, at: str, *, skew: float = 0.0, limits: bool = True,
     report = progress if progress is not None else (lambda _f: None)
     if not np.isfinite(skew):
         raise AnalysisError(f"disk-margin skew must be a finite number; got {skew}")
-    A, B, C, D = opened_loop(diagram, at)
+    # the closed loop's block realisations, when another view has assembled it already
+    closed = shared.assembled() if shared is not None and shared.diagram is diagram else None
+    A, B, C, D = opened_loop(diagram, at, closed=closed)
     report(0.05)
     if D.shape[0] == 1:
         if _ill_posed(D):

@@ -301,7 +301,8 @@ class ViewJobs(QObject):
     """Runs the plot panels' engine calls off the GUI thread: quick ones in the order sent on
     :data:`_QUICK_WORKERS` workers, slow ones (``slow=True``: margins, the noise budget, the
     audit) one at a time on another, so a slow answer never holds up the quick views of a
-    later edit.
+    later edit. Jobs sent with ``lane=True`` (a small loop's views) run one after the other
+    on a worker of their own, in the order sent, and count as quick ones.
 
     Each request carries a key (the panel) and the document revision it was built at. A
     newer request for the same key cancels the older one while it waits, and stops it
@@ -335,6 +336,7 @@ class ViewJobs(QObject):
         self._doc = document
         self._executor = ThreadPoolExecutor(max_workers=_QUICK_WORKERS, thread_name_prefix="loopwright-views")
         self._slow_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views-slow", initializer=_yield_to_quick_views)
+        self._lane_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="loopwright-views-lane")
         self._latest: dict[str, tuple[int, Future, _JobControl, int]] = {}
         self._submitted: list[Future] = []
         self._quick: set[Future] = set()
@@ -351,9 +353,10 @@ class ViewJobs(QObject):
         self._progress.connect(self._on_progress)
         self._interim.connect(self._on_interim)
 
-    def submit(self, key: str, fn, *args, progress: bool = False, slow: bool = False, **kwargs) -> None:
+    def submit(self, key: str, fn, *args, progress: bool = False, slow: bool = False, lane: bool = False, **kwargs) -> None:
         """Run ``fn(*args, **kwargs)`` on a worker for panel ``key`` (args must be snapshots);
-        ``slow`` picks the worker of the slow views.
+        ``slow`` picks the worker of the slow views, ``lane`` the one-at-a-time worker of a
+        small loop's views (a lane job is a quick one: ``slow`` is ignored with it).
 
         With ``progress=True`` the job also gets ``progress=<callable>`` (see
         :class:`_JobControl`): its reports reach :attr:`progress_changed`, and
@@ -361,6 +364,7 @@ class ViewJobs(QObject):
         """
         if self._closed:
             return
+        slow = slow and not lane
         old = self._latest.get(key)
         if old is not None:
             old[1].cancel()
@@ -369,9 +373,10 @@ class ViewJobs(QObject):
         token, revision = self._token, self._doc.revision
         control = _JobControl(key, self._progress.emit, lambda c, value, rev=revision: self._interim.emit((c, ViewResult(key, rev, value))),
                               after_interim=self._wait_for_quick if slow else None)
-        if progress:
+        if progress and not lane:  # a lane job is short: nothing to report, and it runs to its end
             kwargs = dict(kwargs, progress=control.report)
-        fut = (self._slow_executor if slow else self._executor).submit(_run_view_job, fn, args, kwargs)
+        executor = self._lane_executor if lane else self._slow_executor if slow else self._executor
+        fut = executor.submit(_run_view_job, fn, args, kwargs)
         self._latest[key] = (token, fut, control, revision)
         self._submitted = [f for f in self._submitted if not f.done()] + [fut]
         if not slow:
@@ -477,6 +482,7 @@ class ViewJobs(QObject):
             control.stop()
         self._executor.shutdown(wait=wait, cancel_futures=True)
         self._slow_executor.shutdown(wait=wait, cancel_futures=True)
+        self._lane_executor.shutdown(wait=wait, cancel_futures=True)
 
 
 @dataclass(frozen=True)

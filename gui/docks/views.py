@@ -38,6 +38,16 @@ _SWITCH_INTERVAL_S = 0.0005
 VIEW_ORDER = ("poles", "frequency", "time", "singular_values", "loop_break", "noise", "audit")
 #: Views whose answers can take seconds on a large loop: they run on a worker of their own.
 SLOW_VIEWS = frozenset({"loop_break", "noise", "audit"})
+#: A loop of at most this many states has its views computed one after the other on one
+#: worker (the lane), the loop-break view among them. Their work is then mostly the
+#: interpreter's own (many small array operations), and threads computing at once only
+#: take its lock from one another: a worker's CPU time for the same job grew by about
+#: half with one other Python thread busy beside it (the four views of a 50-state loop:
+#: about 75 ms of CPU on two workers and the window, 47 ms alone). On a larger loop the
+#: decompositions, which release the lock, dominate, and two workers use both cores.
+LANE_MAX_STATES = 150
+#: Slow views that are quick on a small loop, and go to its lane.
+LANE_VIEWS = frozenset({"loop_break"})
 
 
 class ViewsController(QObject):
@@ -70,6 +80,8 @@ class ViewsController(QObject):
         self._busy_timers: dict[str, QTimer] = {}
         self._debounce_ms = debounce_ms
         self._shared: tuple | None = None  # (revision, snapshot, pairs, SharedModel)
+        self._loop_states: int | None = None  # of the last assembled revision (None: not known yet)
+        self._lane_keys: set[str] = set()  # views whose current job runs in the lane
         self._timer = QTimer(self)
         self._timer.setSingleShot(True)
         self._timer.timeout.connect(self.refresh_visible)
@@ -95,6 +107,7 @@ class ViewsController(QObject):
     def _on_changed(self, _revision: int) -> None:
         # nothing of an older revision is shown: free the worker for the new one now
         self.jobs.drop_stale()
+        self._note_loop_size()
         self._shared = None
         # idle worker of the quick views: compute now (with any edit still waiting for its
         # debounce); busy (a stopped job still finishing): wait for a quiet spell, so a
@@ -123,8 +136,23 @@ class ViewsController(QObject):
         self._report_quick_done()
 
     def _report_quick_done(self) -> None:
-        if not any(self.jobs.is_busy(k) for k in self.panels if k not in SLOW_VIEWS):
+        if not any(self.jobs.is_busy(k) for k in self.panels if self._is_quick(k)):
             self.quick_views_done.emit()
+
+    def _is_quick(self, key: str) -> bool:
+        return key not in SLOW_VIEWS or key in self._lane_keys
+
+    def _note_loop_size(self) -> None:
+        # the size decides the next revision's workers: an edit rarely changes it much, and
+        # a diagram not assembled yet runs on the workers of a large loop
+        if self._shared is not None:
+            states = self._shared[3].assembled_states()
+            if states is not None:
+                self._loop_states = states
+
+    def _in_lane(self, key: str) -> bool:
+        small = self._loop_states is not None and self._loop_states <= LANE_MAX_STATES
+        return small and (key not in SLOW_VIEWS or key in LANE_VIEWS)
 
     def revision_inputs(self) -> tuple:
         """``(snapshot, pairs, shared)`` of the document's current revision, made once per revision."""
@@ -150,7 +178,13 @@ class ViewsController(QObject):
             self._fresh[key] = self._doc.revision
             return
         fn, args, kwargs = job
-        self.jobs.submit(key, fn, *args, progress=getattr(panel, "reports_progress", False), slow=key in SLOW_VIEWS, **kwargs)
+        lane = self._in_lane(key)
+        if lane:
+            self._lane_keys.add(key)
+        else:
+            self._lane_keys.discard(key)
+        self.jobs.submit(key, fn, *args, progress=getattr(panel, "reports_progress", False), slow=key in SLOW_VIEWS, lane=lane,
+                         **kwargs)
 
     def stop(self, key: str) -> None:
         """Stop panel ``key``'s computation (a job that reports progress ends at its next
@@ -173,7 +207,8 @@ class ViewsController(QObject):
                 panel.clear_value()
         else:
             panel.show_value(result.value)
-        if result.key not in SLOW_VIEWS:
+        self._note_loop_size()
+        if self._is_quick(result.key):
             self._report_quick_done()
 
     def _on_busy(self, key: str, busy: bool) -> None:

@@ -298,3 +298,26 @@ def test_the_state_feedback_gain_is_named_only_when_every_path_to_the_plant_inpu
         d.connect("F.y", "u.in3")
         sep = summarize(d).separation
         assert sep is not None and "E" not in sep.gains, wiring
+
+
+def test_the_estimator_poles_follow_the_estimator_gain_and_are_reused_for_the_same_numbers():
+    # the check keeps the poles of the error dynamics A - L C it has seen (an edit of the
+    # feedback gain leaves them as they were); a changed L must give the new ones.
+    # eig(A - L C) is the estimator's pole set by definition (common practice, no source)
+    import loopwright.engine.check as check
+
+    A = np.array([[0.0, 1.0], [-3.0, -0.4]])
+    B = np.array([[0.0], [1.0]])
+    C = np.array([[1.0, 0.0]])
+    K = np.array([[2.0, 1.5]])
+    poles = {}
+    for L in ([[9.0], [17.0]], [[12.0], [30.0]], [[9.0], [17.0]]):
+        sep = summarize(observer_loop(A, B, C, K, L)).separation
+        expected = np.linalg.eigvals(A - np.asarray(L) @ C)
+        assert_allclose(np.sort_complex(sep.estimator_poles), np.sort_complex(expected), rtol=1e-12)
+        poles.setdefault(str(L), []).append(sep.estimator_poles)
+    first, again = poles[str([[9.0], [17.0]])]
+    assert np.array_equal(first, again)
+    key = ((2, 2), np.ascontiguousarray(A - np.array([[9.0], [17.0]]) @ C).tobytes())
+    assert key in check._ESTIMATOR_POLES  # kept, and read-only for whoever shares it
+    assert not check._ESTIMATOR_POLES[key].values.flags.writeable

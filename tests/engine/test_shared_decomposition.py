@@ -79,3 +79,26 @@ def test_the_loop_break_view_takes_the_closed_loop_stability_from_the_shared_pol
     for name in ("phase_margin_deg", "gain_upper", "gain_lower", "peak_sensitivity", "delay_margin_s"):
         assert_allclose(getattr(view.margins, name), getattr(alone.margins, name), rtol=1e-9)
     assert_allclose(view.margins.disk.alpha, alone.margins.disk.alpha, rtol=1e-9)
+
+
+@pytest.mark.parametrize("sample", ["conveyor_flexible_drive", "levitated_rotor_axis", "two_zone_oven"])
+def test_the_opened_loop_reuses_the_closed_loops_realisations_and_is_the_same_model(sample, monkeypatch):
+    # breaking the loop changes only how the signals are routed: with the closed loop's block
+    # realisations the opened loop is the same model to the bit, and no block is realised again
+    import loopwright.engine.interconnect as ic
+    from loopwright.engine.interconnect import assemble
+
+    d = load(str(SAMPLES / f"{sample}.lwd"))
+    at = "P.u" if "P" in {b.name for b in d.blocks.values()} else d.settings.get("loop_break")
+    fresh = assemble(d, break_at=at)
+    closed = assemble(d, take=True)
+    realised = []
+    monkeypatch.setattr(ic, "realize", lambda b, snap: realised.append(b.name) or pytest.fail("realised again"))
+    reused = assemble(d, break_at=at, like=closed)
+    assert realised == []
+    for name in ("A", "B", "C"):
+        assert np.array_equal(getattr(reused, name), getattr(fresh, name)), name
+    assert np.array_equal(reused.D[:, :], fresh.D[:, :])
+    assert reused.input_names == fresh.input_names and reused.output_names == fresh.output_names
+    with pytest.raises(ValueError, match="another diagram"):
+        assemble(d.copy(), break_at=at, like=closed)

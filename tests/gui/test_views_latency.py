@@ -525,3 +525,38 @@ def test_the_loop_break_view_keeps_a_users_zoom_until_its_auto_range_button(wind
     L = panel.data.curves[0]
     near = L[np.abs(L) < 20.0]
     assert x0 <= near.real.min() and near.real.max() <= x1
+
+
+@pytest.mark.parametrize("lane_max", [150, 0])
+def test_a_small_loops_views_run_one_after_another_on_one_worker(window, qtbot, monkeypatch, lane_max):
+    # on a small loop the views' work is mostly the interpreter's: four threads computing at
+    # once only take its lock from one another, so after the first revision (whose size is
+    # not known yet) they run in the order sent on the lane, the loop-break view among them;
+    # above the limit the quick views use the two workers and the loop-break view its own
+    import threading
+
+    import loopwright.gui.docks.views as views
+    import loopwright.gui.workers as workers
+
+    monkeypatch.setattr(views, "LANE_MAX_STATES", lane_max)
+    _open(window, [("r", "y")])
+    window.view_docks["loop_break"].show()
+    qtbot.waitUntil(lambda: _settled(window) and window.panels["loop_break"].data is not None, timeout=30000)
+    ran = []
+    real = workers._run_view_job
+    monkeypatch.setattr(workers, "_run_view_job",
+                        lambda fn, args, kwargs: (ran.append((fn.__name__, threading.current_thread().name)), real(fn, args, kwargs))[1])
+    _edit_gain(window.document, 1.2)
+    four = ("pole_map_data", "frequency_job", "time_views", "loop_break_job")
+    qtbot.waitUntil(lambda: _settled(window) and sum(n in four for n, _ in ran) >= 4, timeout=30000)
+    names = [n for n, _ in ran if n in four]  # (the audit and the noise budget, open too, stay on the slow worker)
+    assert sorted(names) == sorted(four)
+    threads = {n: t for n, t in ran}
+    assert not threads.get("audit_rows", "slow").startswith("loopwright-views-lane")
+    if lane_max:
+        assert names == ["pole_map_data", "frequency_job", "time_views", "loop_break_job"]  # in the order sent
+        assert all(threads[n].startswith("loopwright-views-lane") for n in four), threads
+    else:
+        assert threads["loop_break_job"].startswith("loopwright-views-slow"), threads
+        assert not any(threads[n].startswith("loopwright-views-lane") for n in four), threads
+    assert window.panels["loop_break"].data is not None and window.panels["loop_break"].data.margins.closed_loop_stable
