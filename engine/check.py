@@ -33,6 +33,7 @@ integrators turns real poles into complex pairs 20 % off. The check therefore
 """
 from __future__ import annotations
 
+import functools
 import threading
 from dataclasses import dataclass, field
 
@@ -143,7 +144,7 @@ class CheckReport:
 
     pole_scale: float = 0.0  # matrix_scale of the assembled A: what a pole at the origin is measured against
 
-    @property
+    @functools.cached_property
     def poles_trusted(self) -> bool:
         """Every pole is right to at least 3 significant digits (a pole at the origin: to 3
         digits of the matrix's scale)."""
@@ -357,10 +358,24 @@ def pole_digits(poles, bounds, *, scale: float) -> list[int]:
     an integrator's pole computed as 0 with a bound of a few ulps is as exact as the
     arithmetic allows, not ill-conditioned (the on-axis warning already names it).
     """
-    from loopwright.engine.eigen import pole_regions, trustworthy_digits
+    from loopwright.engine.eigen import pole_regions
 
-    regions = pole_regions(poles, scale=scale, bounds=bounds) if len(poles) else []
-    return [trustworthy_digits(scale if r == "origin" and scale > 0 else p, b) for p, b, r in zip(poles, bounds, regions)]
+    p = np.asarray(poles, dtype=complex).ravel()
+    if not p.size:
+        return []
+    b = np.asarray(bounds, dtype=float).ravel()
+    regions = pole_regions(p, scale=scale, bounds=b)
+    mag = np.where((regions == "origin") & (scale > 0), float(scale), np.abs(p))
+    # eigen.trustworthy_digits for all poles at once: 0 for an unbounded error or a zero
+    # value, every digit for an exact one, else floor(log10(|value| / bound)) in 0..6
+    with np.errstate(divide="ignore", invalid="ignore"):
+        digits = np.clip(np.floor(np.log10(mag / b)), 0, _MAX_POLE_DIGITS)
+    digits = np.where(b <= 0, _MAX_POLE_DIGITS, np.where(mag == 0, 0, digits))
+    return [int(d) for d in np.where(np.isfinite(b), digits, 0)]
+
+
+#: The most digits a pole is given (eigen.trustworthy_digits's default).
+_MAX_POLE_DIGITS = 6
 
 
 def summarize(diagram: Diagram, *, model=None, reduced=None) -> CheckReport:

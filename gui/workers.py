@@ -88,6 +88,7 @@ def compute_live_result(diagram: Diagram, revision: int, shared=None) -> LiveRes
     elif not any(getattr(p, "severity", "error") == "error" for p in found) and error is None:
         try:
             report = summarize(diagram) if shared is None else shared.report
+            report.poles_trusted  # computed here, once, and kept: the status line reads it in the window
         except EngineError as err:
             error = str(err)
     else:

@@ -43,9 +43,12 @@ SLOW_VIEWS = frozenset({"loop_break", "noise", "audit"})
 #: interpreter's own (many small array operations), and threads computing at once only
 #: take its lock from one another: a worker's CPU time for the same job grew by about
 #: half with one other Python thread busy beside it (the four views of a 50-state loop:
-#: about 75 ms of CPU on two workers and the window, 47 ms alone). On a larger loop the
-#: decompositions, which release the lock, dominate, and two workers use both cores.
-LANE_MAX_STATES = 150
+#: about 75 ms of CPU on two workers and the window, 47 ms alone). Measured edit -> all
+#: four views drawn (bench/bench_views.py loops), lane against workers: 100 states 148
+#: against 179 ms; 150 and 200 states the same within noise, with less CPU and the quick
+#: views drawn sooner on the lane. On a larger loop the decompositions, which release the
+#: lock, dominate, and two workers use both cores.
+LANE_MAX_STATES = 200
 #: Slow views that are quick on a small loop, and go to its lane.
 LANE_VIEWS = frozenset({"loop_break"})
 

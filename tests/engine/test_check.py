@@ -321,3 +321,24 @@ def test_the_estimator_poles_follow_the_estimator_gain_and_are_reused_for_the_sa
     key = ((2, 2), np.ascontiguousarray(A - np.array([[9.0], [17.0]]) @ C).tobytes())
     assert key in check._ESTIMATOR_POLES  # kept, and read-only for whoever shares it
     assert not check._ESTIMATOR_POLES[key].values.flags.writeable
+
+
+def test_pole_digits_for_all_poles_at_once_agree_with_the_rule_for_one_pole():
+    # check.pole_digits is eigen.trustworthy_digits applied to every pole in one pass (a pole
+    # at the origin measured against the matrix's scale): the same digits, edge cases included
+    from loopwright.engine.check import pole_digits
+    from loopwright.engine.eigen import pole_regions, trustworthy_digits
+
+    rng = np.random.default_rng(7)
+    for _ in range(400):
+        n = int(rng.integers(1, 10))
+        p = (rng.normal(size=n) + 1j * rng.normal(size=n) * rng.integers(0, 2, n)) * 10.0 ** rng.integers(-18, 4, n)
+        p[rng.random(n) < 0.15] = 0.0
+        b = np.abs(rng.normal(size=n)) * 10.0 ** rng.integers(-17, 2, n)
+        b[rng.random(n) < 0.1] = np.inf
+        b[rng.random(n) < 0.1] = 0.0
+        b[rng.random(n) < 0.05] = np.nan
+        scale = float(rng.choice([0.0, 1.0, 1e3, 1e-6]))
+        regions = pole_regions(p, scale=scale, bounds=b)
+        one_by_one = [trustworthy_digits(scale if r == "origin" and scale > 0 else q, bb) for q, bb, r in zip(p, b, regions)]
+        assert pole_digits(p, b, scale=scale) == one_by_one
