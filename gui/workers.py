@@ -357,7 +357,8 @@ class ViewJobs(QObject):
     def submit(self, key: str, fn, *args, progress: bool = False, slow: bool = False, lane: bool = False, **kwargs) -> None:
         """Run ``fn(*args, **kwargs)`` on a worker for panel ``key`` (args must be snapshots);
         ``slow`` picks the worker of the slow views, ``lane`` the one-at-a-time worker of a
-        small loop's views (a lane job is a quick one: ``slow`` is ignored with it).
+        small loop's views (a lane job is a quick one: ``slow`` is ignored with it, and a
+        first answer it hands over is followed at once by the rest of its work).
 
         With ``progress=True`` the job also gets ``progress=<callable>`` (see
         :class:`_JobControl`): its reports reach :attr:`progress_changed`, and
@@ -374,7 +375,7 @@ class ViewJobs(QObject):
         token, revision = self._token, self._doc.revision
         control = _JobControl(key, self._progress.emit, lambda c, value, rev=revision: self._interim.emit((c, ViewResult(key, rev, value))),
                               after_interim=self._wait_for_quick if slow else None)
-        if progress and not lane:  # a lane job is short: nothing to report, and it runs to its end
+        if progress:
             kwargs = dict(kwargs, progress=control.report)
         executor = self._lane_executor if lane else self._slow_executor if slow else self._executor
         fut = executor.submit(_run_view_job, fn, args, kwargs)

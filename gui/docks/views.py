@@ -89,6 +89,7 @@ class ViewsController(QObject):
         self._timer.setSingleShot(True)
         self._timer.timeout.connect(self.refresh_visible)
         document.changed.connect(self._on_changed)
+        document.diagram_replaced.connect(self._on_diagram_replaced)
         document.undo_stack.indexChanged.connect(self._on_command_done)
         self.jobs.result_ready.connect(self._on_result)
         self.jobs.busy_changed.connect(self._on_busy)
@@ -117,6 +118,11 @@ class ViewsController(QObject):
         # burst of edits is computed once. A slow view still computing does not count: its
         # new job waits behind it on its own worker.
         self._timer.start(0 if self.jobs.worker_idle(quick_only=True) else self._debounce_ms)
+
+    def _on_diagram_replaced(self) -> None:
+        # another diagram (opened, new, recovered): its size is not known until it is
+        # assembled, and a large loop sent to the lane would lose its progress and Stop
+        self._loop_states = None
 
     def _on_command_done(self, _index: int) -> None:
         # an undoable command (or its undo, or a whole macro) has made all its changes: the

@@ -105,6 +105,43 @@ def test_a_replaced_loop_break_job_stops_and_its_interim_answer_is_dropped(qtbot
     jobs.shutdown()
 
 
+def test_a_loop_break_job_on_the_lane_hands_over_its_first_answer_and_still_stops(qtbot):
+    # a small loop's views share one worker (the lane): a loop-break job there keeps its
+    # progress (a first answer is drawn, and the rest follows at once, since no quick view
+    # waits elsewhere) and its Stop; a newer request replaces it on the same worker
+    doc = Document(load(SAMPLES[0]))
+    jobs = ViewJobs(doc)
+    got, threads, outcome = [], [], []
+    jobs.result_ready.connect(lambda r: got.append(r.value))
+    started, release = threading.Event(), threading.Event()
+
+    def first(progress=None):
+        threads.append(threading.current_thread().name)
+        progress(0.5, "first")
+        started.set()
+        release.wait(10.0)
+        try:
+            progress(0.9)  # replaced meanwhile: this stops it
+        except Exception as err:  # noqa: BLE001 - record what stopped it
+            outcome.append(type(err).__name__)
+            raise
+        return "stale"
+
+    def fresh(progress=None):
+        threads.append(threading.current_thread().name)
+        return "fresh"
+
+    jobs.submit("loop_break", first, progress=True, slow=True, lane=True)
+    assert started.wait(5.0)
+    qtbot.waitUntil(lambda: got == ["first"], timeout=5000)
+    jobs.submit("loop_break", fresh, progress=True, slow=True, lane=True)
+    release.set()
+    qtbot.waitUntil(lambda: got == ["first", "fresh"], timeout=5000)
+    assert outcome == ["JobStopped"]
+    assert len(threads) == 2 and all(t.startswith("loopwright-views-lane") for t in threads), threads
+    jobs.shutdown()
+
+
 def test_the_docks_job_is_the_engines_view(monkeypatch):
     monkeypatch.setattr(views_data, "_PROGRESSIVE_MIN_STATES", 0)
     reports, interims = [], []

@@ -560,3 +560,31 @@ def test_a_small_loops_views_run_one_after_another_on_one_worker(window, qtbot, 
         assert threads["loop_break_job"].startswith("loopwright-views-slow"), threads
         assert not any(threads[n].startswith("loopwright-views-lane") for n in four), threads
     assert window.panels["loop_break"].data is not None and window.panels["loop_break"].data.margins.closed_loop_stable
+
+
+def test_another_diagram_starts_on_the_workers_of_a_large_loop_until_its_size_is_known(window, qtbot, monkeypatch):
+    # the lane is chosen from the size of the revision before; a diagram opened in its place
+    # may be far larger (its loop-break view would lose its progress and Stop on the lane),
+    # so its first revision runs on the ordinary workers, and its edits on the lane again
+    import threading
+
+    import loopwright.gui.workers as workers
+
+    _open(window, [("r", "y")])
+    window.view_docks["loop_break"].show()
+    qtbot.waitUntil(lambda: _settled(window) and window.panels["loop_break"].data is not None, timeout=30000)
+    _edit_gain(window.document, 1.2)
+    qtbot.waitUntil(lambda: _settled(window), timeout=30000)
+    ran = []
+    real = workers._run_view_job
+    monkeypatch.setattr(workers, "_run_view_job",
+                        lambda fn, args, kwargs: (ran.append((fn.__name__, threading.current_thread().name)), real(fn, args, kwargs))[1])
+    window.document.replace_diagram(load(str(CONVEYOR)), path=str(CONVEYOR))
+    qtbot.waitUntil(lambda: _settled(window) and any(n == "loop_break_job" for n, _ in ran), timeout=30000)
+    opened = dict(ran)
+    assert opened["loop_break_job"].startswith("loopwright-views-slow"), opened
+    assert not any(t.startswith("loopwright-views-lane") for t in opened.values()), opened
+    ran.clear()
+    _edit_gain(window.document, 1.3)
+    qtbot.waitUntil(lambda: _settled(window) and any(n == "loop_break_job" for n, _ in ran), timeout=30000)
+    assert dict(ran)["loop_break_job"].startswith("loopwright-views-lane"), ran
