@@ -128,11 +128,6 @@ class SharedModel:
         with self._lock:
             return self._memo.get("model")
 
-    def assembled_states(self) -> int | None:
-        """The closed loop's number of states once its model is assembled (None before; never assembles)."""
-        model = self.assembled()
-        return None if model is None else int(model.A.shape[0])
-
     def remember(self, key, make):
         """``make()`` the first time ``key`` is asked for, the same object afterwards."""
         return self._get(("user", key), make)

@@ -152,12 +152,11 @@ class ViewsController(QObject):
         return key not in SLOW_VIEWS or key in self._lane_keys
 
     def _note_loop_size(self) -> None:
-        # the size decides the next revision's workers: an edit rarely changes it much, and
-        # a diagram not assembled yet runs on the workers of a large loop
-        if self._shared is not None:
-            states = self._shared[3].assembled_states()
-            if states is not None:
-                self._loop_states = states
+        # the outgoing revision's size decides the next one's workers: an edit rarely changes
+        # it much, and a diagram never assembled yet runs on the workers of a large loop
+        model = self._shared[3].assembled() if self._shared is not None else None
+        if model is not None:
+            self._loop_states = model.n_states
 
     def _in_lane(self, key: str) -> bool:
         small = self._loop_states is not None and self._loop_states <= LANE_MAX_STATES
@@ -216,7 +215,6 @@ class ViewsController(QObject):
                 panel.clear_value()
         else:
             panel.show_value(result.value)
-        self._note_loop_size()
         if self._is_quick(result.key):
             self._report_quick_done()
 
